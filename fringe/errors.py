@@ -1,0 +1,90 @@
+"""The one family of errors and warnings fringe raises.
+
+Every error a user can cause is a :class:`FringeError`. Its message is one line that names the
+source (file or option), the field and what was expected; the command line prints exactly that
+line and exits non-zero, with no traceback. Programming errors (bugs) are ordinary Python
+exceptions and are not caught.
+"""
+
+from __future__ import annotations
+
+
+class FringeError(Exception):
+    """Base class of every user-facing fringe error (one-line message)."""
+
+    exit_code = 2
+
+    def __init__(self, message: str):
+        one_line = " ".join(str(message).split())
+        super().__init__(one_line)
+
+
+class ConfigError(FringeError):
+    """A scenario, option or configuration value is invalid."""
+
+
+class InputFileError(FringeError):
+    """An input file is missing, unreadable or violates its format specification."""
+
+    def __init__(self, path, obj: str, expected: str):
+        self.path = str(path)
+        self.obj = obj
+        self.expected = expected
+        super().__init__(f"{self.path}: {obj}: {expected}")
+
+
+class OutputError(FringeError):
+    """An output cannot be written (exists without overwrite, would replace an input, ...)."""
+
+
+class FitError(FringeError):
+    """The data cannot support the requested fit (too few turns, singular design, ...)."""
+
+
+class FringeWarning(UserWarning):
+    """Base class of fringe's warnings (diagnostics a user should read)."""
+
+
+class SystematicsWarning(FringeWarning):
+    """A diagnostic points to a systematic effect (e.g. B0 inconsistent with zero)."""
+
+
+class DegeneracyWarning(FringeWarning):
+    """The fit's normal matrix is ill-conditioned: some coefficients are nearly degenerate."""
+
+
+class TimeScaleWarning(FringeWarning):
+    """Leap-second table or UT1 information is dubious for the requested dates."""
+
+
+def check_finite_number(value, source: str, field: str, *, positive: bool = False,
+                        minimum: float | None = None, maximum: float | None = None) -> float:
+    """Return ``value`` as a float, or raise :class:`ConfigError` naming ``source`` and ``field``.
+
+    Parameters
+    ----------
+    value : object
+        The value to check (bools and strings are rejected).
+    source : str
+        Where the value came from (file name, option, section).
+    field : str
+        The name of the field.
+    positive : bool
+        Require ``value > 0``.
+    minimum, maximum : float, optional
+        Inclusive bounds.
+    """
+    import math
+
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise ConfigError(f"{source}: {field}: expected a number, got {value!r}")
+    x = float(value)
+    if not math.isfinite(x):
+        raise ConfigError(f"{source}: {field}: expected a finite number, got {value!r}")
+    if positive and not x > 0:
+        raise ConfigError(f"{source}: {field}: expected a positive number, got {value!r}")
+    if minimum is not None and x < minimum:
+        raise ConfigError(f"{source}: {field}: expected a value >= {minimum}, got {value!r}")
+    if maximum is not None and x > maximum:
+        raise ConfigError(f"{source}: {field}: expected a value <= {maximum}, got {value!r}")
+    return x

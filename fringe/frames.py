@@ -1,0 +1,264 @@
+"""Time scales, sidereal angle, orbital phase, lab velocity and the SCCEF -> lab rotation.
+
+Which function for which job:
+
+* :class:`Epoch` parses the UTC epoch of a record; sample times are elapsed SI seconds ``t_s``
+  since that epoch (so a leap second inside a run is simply one more elapsed second).
+* :func:`sidereal_angle_rad` gives phi = ERA(UT1) + east longitude (convention C5).
+* :func:`orbital_phase_rad` gives Omega_earth T from the 2000 March equinox (C3).
+* :func:`earth_velocity_beta` gives the Earth's heliocentric velocity / c in SCCEF axes, from
+  ERFA ``epv00`` on a coarse grid, interpolated with a cubic spline.
+* :func:`rotation_velocity_beta` gives the site's Earth-rotation velocity / c (C12).
+* :func:`rotation_sccef_to_lab` gives R such that v_lab = R v_SCCEF (physics reference §1.6).
+* :func:`frame_state` bundles phi, chi and beta for a set of samples; it is what theories use.
+
+Time model: TAI(sample) = TAI(epoch) + t_s. UT1 is TAI + (UT1 - TAI), with UT1 - TAI held at
+its epoch value dUT1 - (TAI - UTC)(epoch); so phi stays continuous across a leap second. The
+neglected drift of UT1 - TAI (a few ms per day) moves phi by ~1e-5 rad per month; give the
+epoch's dUT1 (default 0, an error of at most 0.9 s = 6.6e-5 rad) for better phase.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+import warnings
+from dataclasses import dataclass
+from functools import cached_property
+
+import erfa
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+from .constants import (
+    AU_M,
+    C_M_S,
+    DAY_S,
+    OMEGA_EARTH_RAD_S,
+    OMEGA_ORBIT_RAD_S,
+    ORBIT_ORIGIN_JD,
+)
+from .errors import ConfigError, TimeScaleWarning
+from .site import Site
+
+#: Seconds TT - TAI, exact by definition (IAU 1991).
+TT_MINUS_TAI_S = 32.184
+
+#: Grid step for the ephemeris velocity, s. The cubic spline on a 1 h grid agrees with direct
+#: epv00 to <= 3e-9 m/s (project measurement with pyerfa 2.0.1.5, practice reference §11.3).
+EPHEMERIS_GRID_S = 3600.0
+
+_ISO_RE = re.compile(
+    r"^(\d{4})-(\d{2})-(\d{2})[T ](\d{2}):(\d{2}):(\d{2}(?:\.\d+)?)(Z|\+00:00|UTC)?$")
+
+
+def _erfa_call(func, *args):
+    """Call an ERFA time function, turning ERFA's 'dubious year' warning into ours."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        out = func(*args)
+    for w in caught:
+        if "dubious" in str(w.message).lower():
+            warnings.warn("leap-second table is not authoritative for these dates (ERFA: "
+                          f"{w.message}); UTC conversion may be off by whole seconds",
+                          TimeScaleWarning, stacklevel=3)
+        else:
+            warnings.warn(w.message, w.category, stacklevel=3)
+    return out
+
+
+@dataclass(frozen=True)
+class Epoch:
+    """The UTC instant that sample times are counted from.
+
+    Parameters
+    ----------
+    utc : str
+        ISO 8601 UTC, e.g. ``"2027-02-03T00:00:00Z"`` (fractional seconds and a leap second
+        ``23:59:60`` accepted).
+    dut1_s : float
+        UT1 - UTC at the epoch, s (from IERS Bulletin A); 0 if unknown.
+    """
+
+    utc: str
+    dut1_s: float = 0.0
+
+    def __post_init__(self):
+        if not isinstance(self.utc, str) or not _ISO_RE.match(self.utc.strip()):
+            raise ConfigError(f"epoch_utc: expected ISO 8601 UTC like '2027-02-03T00:00:00Z', "
+                              f"got {self.utc!r}")
+        if not (isinstance(self.dut1_s, (int, float)) and abs(self.dut1_s) < 1.0):
+            raise ConfigError(f"dut1_s: expected |UT1 - UTC| < 1 s, got {self.dut1_s!r}")
+
+    @cached_property
+    def utc_jd(self) -> tuple[float, float]:
+        """Two-part Julian date (UTC, ERFA quasi-JD convention) of the epoch."""
+        y, mo, d, h, mi, s, _ = _ISO_RE.match(self.utc.strip()).groups()
+        try:
+            jd1, jd2 = _erfa_call(erfa.dtf2d, "UTC", int(y), int(mo), int(d), int(h),
+                                  int(mi), float(s))
+        except erfa.ErfaError as exc:
+            raise ConfigError(f"epoch_utc: not a valid UTC instant: {self.utc!r} ({exc})") from None
+        return float(jd1), float(jd2)
+
+    @cached_property
+    def tai_jd(self) -> tuple[float, float]:
+        """Two-part Julian date (TAI) of the epoch."""
+        a, b = _erfa_call(erfa.utctai, *self.utc_jd)
+        return float(a), float(b)
+
+    @cached_property
+    def tai_minus_utc_s(self) -> float:
+        """TAI - UTC at the epoch, s (from ERFA's leap-second table)."""
+        u1, u2 = self.utc_jd
+        t1, t2 = self.tai_jd
+        return round(((t1 - u1) + (t2 - u2)) * DAY_S, 6)
+
+    @property
+    def ut1_minus_tai_s(self) -> float:
+        """UT1 - TAI at the epoch, s; held constant over the record (module docstring)."""
+        return self.dut1_s - self.tai_minus_utc_s
+
+    def tt_jd(self, t_s: ArrayLike) -> tuple[NDArray, NDArray]:
+        """Two-part TT Julian date of samples ``t_s`` (elapsed SI seconds since the epoch)."""
+        t1, t2 = self.tai_jd
+        return (np.full(np.shape(t_s), t1),
+                t2 + (np.asarray(t_s, dtype=float) + TT_MINUS_TAI_S) / DAY_S)
+
+    def ut1_jd(self, t_s: ArrayLike) -> tuple[NDArray, NDArray]:
+        """Two-part UT1 Julian date of samples ``t_s``."""
+        t1, t2 = self.tai_jd
+        return (np.full(np.shape(t_s), t1),
+                t2 + (np.asarray(t_s, dtype=float) + self.ut1_minus_tai_s) / DAY_S)
+
+    def utc_iso(self, t_s: float) -> str:
+        """ISO 8601 UTC label of the instant ``t_s`` seconds after the epoch (leap-second aware)."""
+        t1, t2 = self.tai_jd
+        u1, u2 = _erfa_call(erfa.taiutc, t1, t2 + float(t_s) / DAY_S)
+        y, mo, d, hmsf = _erfa_call(erfa.d2dtf, "UTC", 3, u1, u2)
+        return (f"{int(y):04d}-{int(mo):02d}-{int(d):02d}T{hmsf[0]:02d}:{hmsf[1]:02d}:"
+                f"{hmsf[2]:02d}.{hmsf[3]:03d}Z")
+
+
+def era_rad(epoch: Epoch, t_s: ArrayLike) -> NDArray[np.float64]:
+    """Earth Rotation Angle (IAU 2000, ERFA ``era00``) at samples ``t_s``, radians in [0, 2 pi).
+
+    References
+    ----------
+    IERS Conventions 2003, ch. 5, eq. 14; Capitaine et al. 2000.
+    """
+    a, b = epoch.ut1_jd(t_s)
+    return erfa.era00(a, b)
+
+
+def sidereal_angle_rad(epoch: Epoch, t_s: ArrayLike, east_longitude_rad: float) -> NDArray:
+    """Sidereal angle phi = ERA(UT1) + east longitude, mod 2 pi (convention C5), radians."""
+    return np.mod(era_rad(epoch, t_s) + east_longitude_rad, 2.0 * np.pi)
+
+
+def orbital_phase_rad(epoch: Epoch, t_s: ArrayLike) -> NDArray[np.float64]:
+    """Orbital phase Omega_earth T, T counted from 2000-03-20 07:35 UT (C3), radians (unwrapped).
+
+    Uses UT1 days; the difference from TT is ~1e-5 rad (physics reference §1.7).
+    """
+    a, b = epoch.ut1_jd(t_s)
+    days = (a - ORBIT_ORIGIN_JD) + b
+    return OMEGA_ORBIT_RAD_S * DAY_S * days
+
+
+def earth_velocity_beta(epoch: Epoch, t_s: ArrayLike,
+                        grid_s: float = EPHEMERIS_GRID_S) -> NDArray[np.float64]:
+    """Earth's heliocentric velocity over c in SCCEF (BCRS ~ ICRS) axes, shape (n, 3).
+
+    ERFA ``epv00`` (about 40 us a call) is evaluated on a grid of step ``grid_s`` spanning the
+    samples and interpolated with a cubic spline. TT is used for TDB (difference < 2 ms).
+    """
+    from scipy.interpolate import CubicSpline
+
+    t = np.asarray(t_s, dtype=float)
+    if t.size == 0:
+        return np.zeros((0, 3))
+    lo, hi = float(np.min(t)), float(np.max(t))
+    n_grid = max(int(math.ceil((hi - lo) / grid_s)) + 7, 8)
+    grid = lo - 3 * grid_s + grid_s * np.arange(n_grid)
+    a, b = epoch.tt_jd(grid)
+    pvh, _ = erfa.epv00(a, b)
+    v_grid = pvh["v"] * (AU_M / DAY_S / C_M_S)
+    return CubicSpline(grid, v_grid, axis=0)(t)
+
+
+def rotation_velocity_beta(phi_rad: ArrayLike, axis_distance_m: float) -> NDArray[np.float64]:
+    """Earth-rotation velocity of the site over c, SCCEF axes, shape (n, 3).
+
+    beta_rot = beta_L (-sin phi, cos phi, 0), beta_L = omega_earth rho / c, i.e. along lab east.
+    """
+    phi = np.asarray(phi_rad, dtype=float)
+    beta_l = OMEGA_EARTH_RAD_S * axis_distance_m / C_M_S
+    return beta_l * np.stack([-np.sin(phi), np.cos(phi), np.zeros_like(phi)], axis=-1)
+
+
+def rotation_sccef_to_lab(colatitude_rad: float, phi_rad: ArrayLike) -> NDArray[np.float64]:
+    """Rotation matrix R (v_lab = R v_SCCEF), lab axes (south, east, up), shape (n, 3, 3).
+
+    Rows: local south, local east, zenith (Dec 90 deg - chi, RA phi); physics reference §1.6.
+    """
+    phi = np.asarray(phi_rad, dtype=float)
+    c, s = np.cos(phi), np.sin(phi)
+    cc, sc = math.cos(colatitude_rad), math.sin(colatitude_rad)
+    zero = np.zeros_like(phi)
+    return np.stack([np.stack([cc * c, cc * s, np.full_like(phi, -sc)], -1),
+                     np.stack([-s, c, zero], -1),
+                     np.stack([sc * c, sc * s, np.full_like(phi, cc)], -1)], -2)
+
+
+@dataclass(frozen=True)
+class FrameState:
+    """Frame quantities at a set of samples: what every theory needs.
+
+    Parameters
+    ----------
+    phi_rad : ndarray, shape (n,)
+        Sidereal angle (C5), radians.
+    colatitude_rad : float
+        Site colatitude chi (C4), radians.
+    beta : ndarray, shape (n, 3)
+        Lab velocity relative to the Sun over c, SCCEF axes (orbit + Earth rotation, C12).
+    orbital_phase_rad : ndarray, shape (n,) or None
+        Omega_earth T (C3), for tables and labels only.
+    """
+
+    phi_rad: NDArray
+    colatitude_rad: float
+    beta: NDArray
+    orbital_phase_rad: NDArray | None = None
+
+    @cached_property
+    def rotation(self) -> NDArray:
+        """R(t), SCCEF -> lab, shape (n, 3, 3)."""
+        return rotation_sccef_to_lab(self.colatitude_rad, self.phi_rad)
+
+    def __len__(self) -> int:
+        return int(np.shape(self.phi_rad)[0])
+
+
+def frame_state(epoch: Epoch, t_s: ArrayLike, site: Site, *,
+                include_rotation_velocity: bool = True) -> FrameState:
+    """Frame quantities (phi, chi, beta) at samples ``t_s`` seconds after ``epoch`` at ``site``."""
+    t = np.atleast_1d(np.asarray(t_s, dtype=float))
+    phi = sidereal_angle_rad(epoch, t, site.east_longitude_rad)
+    beta = earth_velocity_beta(epoch, t)
+    if include_rotation_velocity:
+        beta = beta + rotation_velocity_beta(phi, site.axis_distance_m)
+    return FrameState(phi_rad=phi, colatitude_rad=site.colatitude_rad, beta=beta,
+                      orbital_phase_rad=orbital_phase_rad(epoch, t))
+
+
+def circular_orbit_beta(orbital_phase: ArrayLike, beta_orbit: float,
+                        obliquity_rad: float) -> NDArray[np.float64]:
+    """Circular-orbit model of the Earth's velocity over c, SCCEF axes (physics reference §1.8).
+
+    beta = beta_orbit (sin OT, -cos eta cos OT, -sin eta cos OT). For design and closed forms.
+    """
+    p = np.asarray(orbital_phase, dtype=float)
+    return beta_orbit * np.stack([np.sin(p), -math.cos(obliquity_rad) * np.cos(p),
+                                  -math.sin(obliquity_rad) * np.cos(p)], axis=-1)

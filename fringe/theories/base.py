@@ -1,0 +1,98 @@
+"""The protocol every anisotropy theory follows.
+
+A theory turns coefficient values into the two-way fractional speed change along lab
+directions. Linear theories (all but the classical medium) also expose, for each coefficient at
+unit value, a lab-frame response tensor ``T`` and an isotropic shift ``s`` such that the two-way
+fractional change of a mode with sensitivity tensor ``M`` (trace 1 for a Fabry-Perot mode, whose
+M is the projector n n onto its axis) is ``M : T + tr(M) s``. The per-coefficient pair (T, s) is
+the whole basis: every observable is linear in it.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from typing import ClassVar
+
+import numpy as np
+from numpy.typing import NDArray
+
+from ..errors import ConfigError
+from ..frames import FrameState
+
+
+def traceless(t: NDArray) -> NDArray:
+    """Traceless part of symmetric tensors on the last two axes (..., 3, 3)."""
+    tr = np.trace(t, axis1=-2, axis2=-1)[..., None, None]
+    return t - tr * np.eye(3) / 3.0
+
+
+def rotate_to_lab(tensor_sccef: NDArray, state: FrameState) -> NDArray:
+    """T_lab = R T Rᵀ for tensors (n, k, 3, 3) or (k, 3, 3) in SCCEF axes."""
+    r = state.rotation
+    if tensor_sccef.ndim == 3:
+        return np.einsum("nij,kjl,nml->nkim", r, tensor_sccef, r, optimize=True)
+    return np.einsum("nij,nkjl,nml->nkim", r, tensor_sccef, r, optimize=True)
+
+
+class Theory:
+    """Base class: subclasses set ``name``, ``sector``, ``parameter_names``, ``parameter_units``.
+
+    Attributes
+    ----------
+    sector : {"photon", "matter"}
+        Photon-sector theories act on light paths (cavities, interferometers); matter-sector
+        theories act on a clock's quantization axis.
+    linear : bool
+        True when the observable is linear in the coefficients.
+    """
+
+    name: ClassVar[str] = ""
+    sector: ClassVar[str] = "photon"
+    linear: ClassVar[bool] = True
+    parameter_names: ClassVar[tuple[str, ...]] = ()
+    parameter_units: ClassVar[dict[str, str]] = {}
+    description: ClassVar[str] = ""
+
+    def check_params(self, params: Mapping[str, float], source: str = "coefficients") -> dict:
+        """Return ``params`` as floats after checking every name belongs to this theory."""
+        out = {}
+        for key, value in params.items():
+            if key not in self.parameter_names:
+                raise ConfigError(f"{source}: {key}: not a coefficient of theory '{self.name}' "
+                                  f"(expected one of {', '.join(self.parameter_names)})")
+            if isinstance(value, bool) or not isinstance(value, (int, float)) \
+                    or not np.isfinite(value):
+                raise ConfigError(f"{source}: {key}: expected a finite number, got {value!r}")
+            out[key] = float(value)
+        return out
+
+    # -- linear theories -------------------------------------------------------------------
+    def response(self, state: FrameState, names: tuple[str, ...] | None = None
+                 ) -> tuple[NDArray, NDArray]:
+        """Per-coefficient lab response tensors T (n, k, 3, 3) and isotropic shifts s (n, k).
+
+        ``names`` selects and orders the coefficients (default: all ``parameter_names``).
+        """
+        raise NotImplementedError(f"theory '{self.name}' is not linear")
+
+    def combined_response(self, params: Mapping[str, float], state: FrameState
+                          ) -> tuple[NDArray, NDArray]:
+        """T (n, 3, 3) and s (n,) for the given coefficient values (linear theories)."""
+        params = self.check_params(params)
+        names = tuple(k for k, v in params.items() if v != 0.0)
+        n = len(state)
+        if not names:
+            return np.zeros((n, 3, 3)), np.zeros(n)
+        t, s = self.response(state, names)
+        p = np.array([params[k] for k in names])
+        return np.einsum("nkij,k->nij", t, p), s @ p
+
+    def path_shift(self, params: Mapping[str, float], directions_lab: NDArray,
+                   state: FrameState) -> NDArray:
+        """Two-way fractional speed change along unit lab directions (n, p, 3) -> (n, p)."""
+        t, s = self.combined_response(params, state)
+        return np.einsum("npi,nij,npj->np", directions_lab, t, directions_lab) + s[:, None]
+
+    def to_dict(self) -> dict:
+        """Configuration as plain JSON types (for provenance)."""
+        return {"name": self.name}

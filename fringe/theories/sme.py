@@ -1,0 +1,114 @@
+"""SME nonbirefringent photon sector: ke_* (kappa_e-), ko_* (kappa_o+), ktr (kappa_tr).
+
+The nine coefficients are carried by one symmetric, eta-traceless tensor k^{mu nu} (physics
+reference §1.4):  k^{00} = (3/2) ktr,  k^{jk} = -ke^{jk} + (1/2) ktr delta^{jk},  k^{0l} = -w^l
+with w = (ko_YZ, -ko_XZ, ko_XY) (C11). To first order in the coefficients the photon moves on the
+effective metric eta + k, so the two-way fractional speed change along a unit lab direction n is
+
+    delta(n) = -1/2 (k'^{00} + n^j n^k k'^{jk}),
+
+where k' = L k Lᵀ is k seen by the lab: L = diag(1, R) Lambda(beta), the exact observer Lorentz
+boost to the lab velocity beta (SCCEF axes) followed by the rotation R into lab axes (C12). No
+truncated table is used: boost-suppressed ko terms and O(beta^2) ktr terms come out exactly.
+In the response form of :mod:`fringe.theories.base`, T = -1/2 traceless(k'_spatial) and
+s = -(2/3) k'^{00} = -ktr'.
+
+References
+----------
+Kostelecky & Mewes, PRD 66, 056005 (2002), arXiv:hep-ph/0205211; Mattingly, Living Rev. Relativ.
+8, 5 (2005), arXiv:gr-qc/0502097 (section "Cavity experiments"); Hohensee et al., PRD 82, 076001
+(2010), arXiv:1006.1376 (ktr made visible by the boost).
+"""
+
+from __future__ import annotations
+
+from typing import ClassVar
+
+import numpy as np
+from numpy.typing import NDArray
+
+from ..frames import FrameState
+from .base import Theory
+
+KE_NAMES = ("ke_XY", "ke_XZ", "ke_YZ", "ke_XXmYY", "ke_ZZ")
+KO_NAMES = ("ko_XY", "ko_XZ", "ko_YZ")
+SME_NAMES = KE_NAMES + KO_NAMES + ("ktr",)
+
+
+def unit_k_tensor(name: str) -> NDArray:
+    """The 4x4 tensor k^{mu nu} (SCCEF) of a unit value of one SME coefficient."""
+    k = np.zeros((4, 4))
+    sp = k[1:, 1:]
+    if name == "ke_XY":
+        sp[0, 1] = sp[1, 0] = -1.0
+    elif name == "ke_XZ":
+        sp[0, 2] = sp[2, 0] = -1.0
+    elif name == "ke_YZ":
+        sp[1, 2] = sp[2, 1] = -1.0
+    elif name == "ke_XXmYY":          # XX = +1/2, YY = -1/2 (traceless, ZZ = 0)
+        sp[0, 0], sp[1, 1] = -0.5, 0.5
+    elif name == "ke_ZZ":             # ZZ = 1, XX = YY = -1/2
+        sp[0, 0], sp[1, 1], sp[2, 2] = 0.5, 0.5, -1.0
+    elif name in KO_NAMES:
+        w = {"ko_XY": (0.0, 0.0, 1.0), "ko_XZ": (0.0, -1.0, 0.0),
+             "ko_YZ": (1.0, 0.0, 0.0)}[name]
+        k[0, 1:] = k[1:, 0] = -np.array(w)
+    elif name == "ktr":
+        k[0, 0] = 1.5
+        sp[...] = 0.5 * np.eye(3)
+    else:
+        raise KeyError(name)
+    return k
+
+
+def k_tensor(values: dict[str, float]) -> NDArray:
+    """k^{mu nu} (SCCEF) of a set of SME coefficient values."""
+    return sum((v * unit_k_tensor(n) for n, v in values.items()), np.zeros((4, 4)))
+
+
+def boost_matrix(beta: NDArray) -> NDArray:
+    """Observer Lorentz boost Lambda^mu_nu to a frame moving with velocity beta, (n, 4, 4).
+
+    x'^0 = gamma (x^0 - beta . x),  x' = x + ((gamma - 1)/beta^2 (beta . x) - gamma x^0) beta.
+    """
+    beta = np.atleast_2d(beta)
+    b2 = np.einsum("ni,ni->n", beta, beta)
+    gamma = 1.0 / np.sqrt(1.0 - b2)
+    # (gamma - 1)/b^2 = gamma^2/(gamma + 1), finite at b = 0
+    f = gamma * gamma / (gamma + 1.0)
+    lam = np.empty((beta.shape[0], 4, 4))
+    lam[:, 0, 0] = gamma
+    lam[:, 0, 1:] = -gamma[:, None] * beta
+    lam[:, 1:, 0] = -gamma[:, None] * beta
+    lam[:, 1:, 1:] = np.eye(3) + f[:, None, None] * beta[:, :, None] * beta[:, None, :]
+    return lam
+
+
+def lab_transform(state: FrameState) -> NDArray:
+    """L = diag(1, R) Lambda(beta): SCCEF -> (boost) -> lab axes, shape (n, 4, 4)."""
+    lam = boost_matrix(state.beta)
+    out = lam.copy()
+    out[:, 1:, :] = np.einsum("nij,njk->nik", state.rotation, lam[:, 1:, :])
+    return out
+
+
+class SmePhoton(Theory):
+    """SME nonbirefringent photon sector with the exact observer boost to the lab."""
+
+    name: ClassVar[str] = "sme"
+    parameter_names: ClassVar[tuple[str, ...]] = SME_NAMES
+    parameter_units: ClassVar[dict[str, str]] = {n: "1" for n in SME_NAMES}
+    description: ClassVar[str] = ("SME nonbirefringent photon sector (kappa_e-, kappa_o+, "
+                                  "kappa_tr), exact observer boost")
+
+    def response(self, state: FrameState, names=None):
+        names = tuple(names) if names is not None else self.parameter_names
+        self.check_params({n: 0.0 for n in names})
+        basis = np.stack([unit_k_tensor(n) for n in names])          # (k, 4, 4)
+        lt = lab_transform(state)                                     # (n, 4, 4)
+        kp = np.einsum("nab,kbc,ndc->nkad", lt, basis, lt, optimize=True)
+        spatial = kp[..., 1:, 1:]
+        tr = np.trace(spatial, axis1=-2, axis2=-1)
+        t = -0.5 * (spatial - tr[..., None, None] * np.eye(3) / 3.0)
+        s = -0.5 * kp[..., 0, 0] - tr / 6.0      # = -(2/3) k'^{00} (eta-trace is invariant)
+        return t, s
