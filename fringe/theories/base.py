@@ -75,6 +75,16 @@ class Theory:
         """
         raise NotImplementedError(f"theory '{self.name}' is not linear")
 
+    def project(self, state: FrameState, w_lab: NDArray, w_iso: float,
+                names: tuple[str, ...] | None = None) -> NDArray:
+        """Basis of an observable W_lab : T_k + w_iso s_k, shape (n, k).
+
+        ``w_lab`` (n, 3, 3) is the apparatus's combined lab-frame sensitivity tensor. Theories
+        may override this with a faster contraction that never forms T_k.
+        """
+        t, s = self.response(state, names)
+        return np.einsum("nij,nkij->nk", w_lab, t, optimize=True) + w_iso * s
+
     def combined_response(self, params: Mapping[str, float], state: FrameState
                           ) -> tuple[NDArray, NDArray]:
         """T (n, 3, 3) and s (n,) for the given coefficient values (linear theories)."""

@@ -106,9 +106,29 @@ class SmePhoton(Theory):
         self.check_params({n: 0.0 for n in names})
         basis = np.stack([unit_k_tensor(n) for n in names])          # (k, 4, 4)
         lt = lab_transform(state)                                     # (n, 4, 4)
-        kp = np.einsum("nab,kbc,ndc->nkad", lt, basis, lt, optimize=True)
+        kp = np.matmul(np.einsum("nab,kbc->nkac", lt, basis), np.swapaxes(lt, 1, 2)[:, None])
         spatial = kp[..., 1:, 1:]
         tr = np.trace(spatial, axis1=-2, axis2=-1)
         t = -0.5 * (spatial - tr[..., None, None] * np.eye(3) / 3.0)
         s = -0.5 * kp[..., 0, 0] - tr / 6.0      # = -(2/3) k'^{00} (eta-trace is invariant)
         return t, s
+
+    def project(self, state, w_lab, w_iso, names=None):
+        """Fast basis: W : T_k + w_iso s_k = V : k_k with V = Lᵀ A L (no per-coefficient tensors).
+
+        With T_k = -1/2 traceless((L k_k Lᵀ)_spatial) and s_k = -1/2 k'^{00} - 1/6 tr k'_spatial,
+        A = -1/2 [W - tr(W)/3 I]_spatial + w_iso (-1/2 e0 e0 - 1/6 I_spatial), since
+        X : (L k Lᵀ) = (Lᵀ X L) : k for any 4x4 X.
+        """
+        names = tuple(names) if names is not None else self.parameter_names
+        self.check_params({n: 0.0 for n in names})
+        basis = np.stack([unit_k_tensor(n) for n in names]).reshape(len(names), 16)
+        n = w_lab.shape[0]
+        a = np.zeros((n, 4, 4))
+        tr_w = np.trace(w_lab, axis1=1, axis2=2)
+        a[:, 1:, 1:] = -0.5 * (w_lab - (tr_w / 3.0)[:, None, None] * np.eye(3)) \
+            - (w_iso / 6.0) * np.eye(3)
+        a[:, 0, 0] = -0.5 * w_iso
+        lt = lab_transform(state)
+        v = np.matmul(np.swapaxes(lt, 1, 2), np.matmul(a, lt))
+        return v.reshape(n, 16) @ basis.T

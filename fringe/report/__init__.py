@@ -1,0 +1,1 @@
+"""Rendering: tables, figures and text built from fringe's result objects."""
