@@ -6,65 +6,15 @@ stderr and a non-zero exit, with no traceback.
 
 from __future__ import annotations
 
-import functools
 import logging
-import sys
 from pathlib import Path
 
 import click
 
 from . import __version__
-from .errors import FringeError, FringeWarning
-
-
-def _run_guarded(func):
-    """Turn user errors into a one-line message and exit status 2."""
-
-    @functools.wraps(func)
-    def wrapper(*args, **kwargs):
-        import warnings
-
-        def show_warning(message, category, filename, lineno, file=None, line=None):
-            if issubclass(category, FringeWarning):
-                click.echo(f"warning: {message}", err=True)
-            else:
-                click.echo(f"warning: {category.__name__}: {message}", err=True)
-
-        old = warnings.showwarning
-        warnings.showwarning = show_warning
-        try:
-            return func(*args, **kwargs)
-        except FringeError as exc:
-            click.echo(f"error: {exc}", err=True)
-            sys.exit(exc.exit_code)
-        except KeyboardInterrupt:
-            click.echo("error: interrupted; no partial output was kept", err=True)
-            sys.exit(130)
-        finally:
-            warnings.showwarning = old
-
-    return wrapper
-
-
-def _out_dir(path: str) -> Path:
-    out = Path(path)
-    out.mkdir(parents=True, exist_ok=True)
-    return out
-
-
-def _progress(total: int, label: str):
-    """A click progress bar on stderr when the job is long, else a no-op context."""
-    import contextlib
-
-    if total < 2_000_000 or not sys.stderr.isatty():
-        @contextlib.contextmanager
-        def _null():
-            class _P:
-                def update(self, n):
-                    pass
-            yield _P()
-        return _null()
-    return click.progressbar(length=total, label=label, file=sys.stderr)
+from .cli_common import out_dir as _out_dir
+from .cli_common import progress as _progress
+from .cli_common import run_guarded as _run_guarded
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
@@ -144,6 +94,23 @@ def predict_cmd(scenario, assignments, out_dir, series, overwrite):
     click.echo("")
     for p in written:
         click.echo(f"wrote {p}")
+
+
+def _register_optional_commands():
+    """Add the commands defined in their own modules (``fringe/cli_<name>.py``)."""
+    import importlib
+
+    for name in ("simulate", "inspect", "import", "fit", "report", "plan", "demo"):
+        try:
+            module = importlib.import_module(f".cli_{name}", __package__)
+        except ModuleNotFoundError as exc:
+            if exc.name != f"{__package__}.cli_{name}":
+                raise
+            continue
+        main.add_command(module.command)
+
+
+_register_optional_commands()
 
 
 if __name__ == "__main__":  # pragma: no cover

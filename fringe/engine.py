@@ -1,0 +1,169 @@
+"""Chunk-wise passes over a run file, locally or on a dask.distributed cluster.
+
+:func:`survey` reads the start of a record (reference angle, turn period, gap threshold).
+:func:`demodulate_range` runs stage 1 on the blocks that *start* in a sample range, reading
+ahead until the last of them is complete; it opens the file itself, so it runs unchanged in a
+dask worker (h5py objects are not picklable). :func:`run_stage1` splits the record into ranges
+and runs them with the local engine (a plain loop: the fastest on one machine) or with dask
+(``engine="dask"``, ``scheduler`` = a scheduler address, or a ``distributed.Client``).
+"""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from .demodulate import DemodSettings, TurnTable, demodulate_blocks, turn_boundaries
+from .errors import ConfigError, FitError
+from .io.runfile import open_run
+
+logger = logging.getLogger(__name__)
+
+#: Samples per range of stage 1 (memory ~ 350 bytes per sample for the default model).
+RANGE_SAMPLES = 1 << 17
+
+ENGINES = ("local", "dask")
+
+
+@dataclass(frozen=True)
+class RecordInfo:
+    """What stage 1 needs to know about a record before splitting it."""
+
+    path: str
+    n_samples: int
+    theta0_rad: float
+    turn_period_s: float
+    max_gap_s: float
+    aux_channels: tuple[str, ...]
+
+
+def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = ()
+           ) -> RecordInfo:
+    """Reference angle, turn period and gap threshold from the start of the record."""
+    with open_run(path) as run:
+        n = run.n_samples
+        first = next(run.iter_chunks(min(n, 1 << 16), ("time", "azimuth"), copy=True))
+        for name in aux_channels:
+            if name not in run.aux_channels:
+                raise ConfigError(f"{path}: samples/{name}: no such auxiliary channel "
+                                  f"(have {', '.join(run.aux_channels) or 'none'})")
+    t, az = first["time"], first["azimuth"]
+    theta = np.unwrap(np.pi - az)
+    span_t = t[-1] - t[0]
+    span_theta = abs(theta[-1] - theta[0])
+    if span_t <= 0 or span_theta < np.pi:
+        raise FitError(f"{path}: samples/azimuth: the table turns less than half a turn in the "
+                       f"first {t.size} samples; cannot demodulate a non-rotating record")
+    period = 2 * np.pi * span_t / span_theta
+    max_gap = settings.max_gap_s if settings.max_gap_s is not None else 0.25 * period
+    return RecordInfo(path=str(path), n_samples=n, theta0_rad=float(theta[0] % (2 * np.pi)),
+                      turn_period_s=float(period), max_gap_s=float(max_gap),
+                      aux_channels=tuple(aux_channels))
+
+
+def _read(run, start: int, stop: int, channels) -> dict:
+    parts = list(run.iter_chunks(max(stop - start, 1), channels, start=start, stop=stop,
+                                 copy=True))
+    return {c: np.concatenate([p[c] for p in parts]) if parts else np.zeros(0)
+            for c in channels}
+
+
+def demodulate_range(info: RecordInfo, settings: DemodSettings, start: int, stop: int
+                     ) -> TurnTable:
+    """Stage 1 on the blocks starting in samples [start, stop) of ``info.path``."""
+    channels = ("time", "azimuth", "signal") + info.aux_channels
+    with open_run(info.path, check_values=False) as run:
+        lo = max(start - 1, 0)
+        data = _read(run, lo, stop, channels)
+        t, th = data["time"], np.pi - data["azimuth"]
+        if start > 0:
+            bnd = turn_boundaries(th[1:], info.theta0_rad, t[1:], info.max_gap_s,
+                                  theta_prev=th[0], t_prev=t[0])
+            data = {c: v[1:] for c, v in data.items()}
+        else:
+            bnd = turn_boundaries(th, info.theta0_rad, t, info.max_gap_s)
+            bnd[0] = True
+        starts = np.flatnonzero(bnd)
+        if starts.size == 0:
+            return _empty(settings, info)
+        first = starts[0]
+        # read ahead until the block in progress at `stop` is complete
+        pos = stop
+        step = max(int(4 * info.turn_period_s / max(np.median(np.diff(t)), 1e-9)), 64) \
+            if t.size > 1 else 1024
+        while pos < info.n_samples:
+            more = _read(run, pos, min(pos + step, info.n_samples), channels)
+            tm, thm = more["time"], np.pi - more["azimuth"]
+            b = turn_boundaries(thm, info.theta0_rad, tm, info.max_gap_s,
+                                theta_prev=np.pi - data["azimuth"][-1], t_prev=data["time"][-1])
+            hit = np.flatnonzero(b)
+            if hit.size:
+                cut = hit[0]
+                data = {c: np.concatenate([data[c], more[c][:cut]]) for c in channels}
+                break
+            data = {c: np.concatenate([data[c], more[c]]) for c in channels}
+            pos += tm.size
+    sl = slice(first, None)
+    block_starts = starts - first
+    return demodulate_blocks(data["time"][sl], data["azimuth"][sl], data["signal"][sl],
+                             block_starts, settings,
+                             aux={c: data[c][sl] for c in info.aux_channels})
+
+
+def _empty(settings: DemodSettings, info: RecordInfo) -> TurnTable:
+    p = settings.n_terms
+    z = np.zeros(0)
+    return TurnTable(t_mid_s=z, t_start_s=z, t_stop_s=z, n_valid=np.zeros(0, np.int64),
+                     coef=np.zeros((0, p)), ninv_2=np.zeros((0, 2, 2)), residual_rms=z,
+                     angle_gap_deg=z, status=np.zeros(0, np.int8), settings=settings,
+                     aux={c: np.zeros((0, p)) for c in info.aux_channels})
+
+
+def ranges(n_samples: int, range_samples: int = RANGE_SAMPLES) -> list[tuple[int, int]]:
+    return [(a, min(a + range_samples, n_samples)) for a in range(0, n_samples, range_samples)]
+
+
+def run_stage1(path: str, settings: DemodSettings, *, aux_channels: tuple[str, ...] = (),
+               engine: str = "local", scheduler=None, range_samples: int = RANGE_SAMPLES,
+               progress: Callable[[int], None] | None = None) -> tuple[TurnTable, RecordInfo]:
+    """Demodulate the whole record; returns the turn table (glitch rule applied) and info."""
+    if engine not in ENGINES:
+        raise ConfigError(f"--engine: expected one of {', '.join(ENGINES)}, got {engine!r}")
+    info = survey(path, settings, aux_channels)
+    parts = ranges(info.n_samples, range_samples)
+    if engine == "local":
+        tables = []
+        for a, b in parts:
+            tables.append(demodulate_range(info, settings, a, b))
+            if progress:
+                progress(b - a)
+    else:
+        tables = _run_dask(info, settings, parts, scheduler)
+        if progress:
+            progress(info.n_samples)
+    table = TurnTable.concatenate(tables, settings)
+    table.apply_glitch_rule()
+    logger.info("stage 1: %s", table.counts())
+    return table, info
+
+
+def _run_dask(info, settings, parts, scheduler):
+    try:
+        from distributed import Client
+    except ImportError:
+        raise ConfigError("--engine dask: needs the 'dask' extra (pip install "
+                          "'fringe[dask]')") from None
+    if scheduler is None:
+        raise ConfigError("--engine dask: needs --scheduler ADDRESS (e.g. tcp://host:8786)")
+    own = not isinstance(scheduler, Client)
+    client = Client(scheduler) if own else scheduler
+    try:
+        futures = [client.submit(demodulate_range, info, settings, a, b, pure=False)
+                   for a, b in parts]
+        return client.gather(futures)
+    finally:
+        if own:
+            client.close()
