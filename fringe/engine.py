@@ -71,9 +71,13 @@ def _read(run, start: int, stop: int, channels) -> dict:
             for c in channels}
 
 
-def demodulate_range(info: RecordInfo, settings: DemodSettings, start: int, stop: int
-                     ) -> TurnTable:
-    """Stage 1 on the blocks starting in samples [start, stop) of ``info.path``."""
+def range_samples_and_blocks(info: RecordInfo, start: int, stop: int
+                             ) -> tuple[dict, np.ndarray] | None:
+    """Samples of the blocks starting in [start, stop), read ahead to complete the last one.
+
+    Returns (channel -> array, block start indices into those arrays), or None when no block
+    starts in the range.
+    """
     channels = ("time", "azimuth", "signal") + info.aux_channels
     with open_run(info.path, check_values=False) as run:
         lo = max(start - 1, 0)
@@ -88,29 +92,34 @@ def demodulate_range(info: RecordInfo, settings: DemodSettings, start: int, stop
             bnd[0] = True
         starts = np.flatnonzero(bnd)
         if starts.size == 0:
-            return _empty(settings, info)
-        first = starts[0]
-        # read ahead until the block in progress at `stop` is complete
+            return None
+        dt = np.median(np.diff(t)) if t.size > 1 else 1.0
+        step = max(int(4 * info.turn_period_s / max(dt, 1e-9)), 64)
         pos = stop
-        step = max(int(4 * info.turn_period_s / max(np.median(np.diff(t)), 1e-9)), 64) \
-            if t.size > 1 else 1024
         while pos < info.n_samples:
             more = _read(run, pos, min(pos + step, info.n_samples), channels)
             tm, thm = more["time"], np.pi - more["azimuth"]
             b = turn_boundaries(thm, info.theta0_rad, tm, info.max_gap_s,
                                 theta_prev=np.pi - data["azimuth"][-1], t_prev=data["time"][-1])
             hit = np.flatnonzero(b)
+            cut = hit[0] if hit.size else tm.size
+            data = {c: np.concatenate([data[c], more[c][:cut]]) for c in channels}
             if hit.size:
-                cut = hit[0]
-                data = {c: np.concatenate([data[c], more[c][:cut]]) for c in channels}
                 break
-            data = {c: np.concatenate([data[c], more[c]]) for c in channels}
             pos += tm.size
-    sl = slice(first, None)
-    block_starts = starts - first
-    return demodulate_blocks(data["time"][sl], data["azimuth"][sl], data["signal"][sl],
-                             block_starts, settings,
-                             aux={c: data[c][sl] for c in info.aux_channels})
+    first = starts[0]
+    return {c: v[first:] for c, v in data.items()}, starts - first
+
+
+def demodulate_range(info: RecordInfo, settings: DemodSettings, start: int, stop: int
+                     ) -> TurnTable:
+    """Stage 1 on the blocks starting in samples [start, stop) of ``info.path``."""
+    got = range_samples_and_blocks(info, start, stop)
+    if got is None:
+        return _empty(settings, info)
+    data, block_starts = got
+    return demodulate_blocks(data["time"], data["azimuth"], data["signal"], block_starts,
+                             settings, aux={c: data[c] for c in info.aux_channels})
 
 
 def _empty(settings: DemodSettings, info: RecordInfo) -> TurnTable:

@@ -1,0 +1,133 @@
+"""The whole fit of a run file: stage 1 (engine), stages 2-3 (fit), packaging (result).
+
+:func:`fit_run` is what ``fringe fit`` calls; it returns a :class:`~fringe.result.FitResult`
+and the per-turn columns for the amplitudes file.
+"""
+
+from __future__ import annotations
+
+import datetime
+import logging
+import platform
+
+import numpy as np
+
+from . import __version__
+from .apparatus import make_apparatus
+from .demodulate import DemodSettings
+from .engine import run_stage1
+from .errors import ConfigError
+from .fit import FitSettings, stage2_and_3
+from .frames import Epoch, sidereal_angle_rad
+from .io.runfile import open_run, sha256
+from .result import FitResult
+from .signal import Setup
+from .theories import make_theory
+
+logger = logging.getLogger(__name__)
+
+#: Apparatus attributes that the run format allows but the apparatus classes do not take.
+_RUN_ONLY_ATTRS = ()
+
+
+def software_versions() -> dict:
+    import erfa
+    import h5py
+    import scipy
+
+    return {"fringe": __version__, "python": platform.python_version(),
+            "numpy": np.__version__, "scipy": scipy.__version__, "h5py": h5py.__version__,
+            "pyerfa": erfa.__version__}
+
+
+def setup_from_run(path: str, theory: str, dut1_s: float = 0.0) -> tuple[Setup, dict]:
+    """Build the Setup (site, epoch, apparatus, theory, units) from a run file's metadata."""
+    with open_run(path, check_values=False) as run:
+        meta = run.to_dict()
+        site = run.site
+        attrs = dict(run.apparatus)
+    apparatus = make_apparatus({k: v for k, v in attrs.items() if k not in _RUN_ONLY_ATTRS},
+                               source=f"{path}: apparatus")
+    setup = Setup(site=site, epoch=Epoch(meta["epoch_utc"], dut1_s), apparatus=apparatus,
+                  theory=make_theory(theory), units=meta["signal_units"])
+    return setup, meta
+
+
+def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None, *,
+            engine: str = "local", scheduler=None, dut1_s: float = 0.0, progress=None,
+            one_stage: bool = False) -> tuple[FitResult, dict]:
+    """Fit a run file end to end.
+
+    Parameters
+    ----------
+    path : str
+        Run file (format version 1).
+    settings : FitSettings
+    demod : DemodSettings, optional
+    engine : {"local", "dask"}
+    scheduler : str or distributed.Client, optional
+        For ``engine="dask"``.
+    dut1_s : float
+        UT1 - UTC at the record's epoch, s.
+    progress : callable, optional
+        Called with the number of samples processed.
+    one_stage : bool
+        Also run the one-stage global least-squares cross-check (a second pass).
+
+    Returns
+    -------
+    (FitResult, dict)
+        The result and the per-turn columns (for :func:`fringe.result.write_turns`).
+    """
+    demod = demod or DemodSettings()
+    setup, meta = setup_from_run(path, settings.theory, dut1_s)
+    for ch in settings.regress:
+        if ch not in meta["aux_channels"]:
+            raise ConfigError(f"--regress {ch}: {path} has no auxiliary channel {ch!r} "
+                              f"(has {', '.join(meta['aux_channels']) or 'none'})")
+    table, info = run_stage1(path, demod, aux_channels=tuple(settings.regress), engine=engine,
+                             scheduler=scheduler, progress=progress)
+    span_s = float(meta["time_last_s"] - meta["time_first_s"])
+    harm, res, free = stage2_and_3(setup, table, settings, span_s / 86400.0)
+    harm["units"] = setup.units
+    sig = np.sqrt(np.diag(res.cov))
+    counts = table.counts()
+    sel = table.accepted
+    stage1 = dict(counts, turn_period_s=info.turn_period_s,
+                  residual_rms=float(np.median(table.residual_rms[sel])),
+                  white_noise_per_sample=float(np.median(table.residual_rms[sel])),
+                  settings=demod.to_dict(), glitch_rule=(
+                      f"residual RMS > median + {demod.glitch_threshold} x 1.4826 x MAD"))
+    result = FitResult(
+        theory=setup.theory.name, units=setup.units,
+        coefficients={n: {"value": float(v), "sigma": float(s)}
+                      for n, v, s in zip(res.names, res.value, sig)},
+        fixed=dict(settings.fixed),
+        covariance={"names": list(res.names), "matrix": res.cov.tolist()},
+        harmonics=harm, warnings=list(res.warnings), efficiency=res.efficiency,
+        statistics={"chi2_reduced": res.chi2_reduced, "dof": res.dof,
+                    "uncertainty": settings.uncertainty, "n_turns_used": int(np.sum(sel))},
+        stage1=stage1, site=meta["site"], apparatus=meta["apparatus"],
+        epoch_utc=meta["epoch_utc"], span_s=span_s,
+        settings={"fit": settings.to_dict(), "engine": engine, "dut1_s": dut1_s},
+        input={"path": str(path), "sha256": sha256(path), "n_samples": meta["n_samples"]},
+        software=software_versions(),
+        created_utc=datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        nuisance=res.nuisance, notes=list(res.notes), upper_limits=res.upper_limits)
+    t = table.t_mid_s
+    model_c = np.full(t.size, np.nan)
+    model_b = np.full(t.size, np.nan)
+    model_c[sel], model_b[sel] = res.model_c, res.model_b
+    columns = {"t_mid_s": t,
+               "phi_rad": sidereal_angle_rad(setup.epoch, t, setup.site.east_longitude_rad),
+               "C": table.C, "B": table.B,
+               "sigma_C": np.sqrt(table.formal_cov()[:, 0, 0]),
+               "sigma_B": np.sqrt(table.formal_cov()[:, 1, 1]),
+               "accepted": sel.astype(np.int8), "status": table.status,
+               "model_C": model_c, "model_B": model_b, "n_valid": table.n_valid,
+               "residual_rms": table.residual_rms}
+    if one_stage and setup.theory.linear:
+        from .onestage import one_stage_fit
+
+        result.one_stage = one_stage_fit(info, demod, setup, table, res.names, settings)
+    return result, columns

@@ -1,0 +1,391 @@
+"""Stages 2 and 3: from per-turn 2 theta amplitudes to harmonics and coefficients.
+
+* Stage 2 (:func:`fit_harmonics`): weighted least squares of the per-turn (C_i, B_i) against the
+  C10 model in the sidereal angle phi_i; gives C0 ... Bc2 with covariance. B0 is zero for every
+  photon-sector signal (up to the tiny Earth-rotation ko_XY term), so a B0 beyond 3 sigma raises a
+  warning naming a lab-fixed 2 theta systematic.
+* Stage 3 (:func:`fit_coefficients`): weighted least squares of the same amplitudes against the
+  per-turn 2 theta content of each free coefficient's basis signal, evaluated with the ephemeris
+  velocity at each turn (:func:`fringe.signal.two_theta_amplitudes`), plus nuisances: a constant
+  B offset (lab-fixed 2 theta systematic, on by default), optionally a constant C offset (only
+  when ke_ZZ is not free: the two are degenerate) and regressions on the 2 theta amplitudes of
+  auxiliary channels. The classical medium (nonlinear) is fitted with lmfit.
+
+Uncertainties: per-turn weights from the stage-1 formal covariance; the coefficient covariance
+is scaled by the reduced chi^2 (default, the observed scatter), or replaced by a block bootstrap
+over days of turns (correlated noise), or left formal. ``efficiency`` = white-noise Cramer-Rao
+sigma for this record (per-sample noise = median per-turn residual RMS) / reported sigma.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.typing import NDArray
+
+from .conventions import HARMONIC_NAMES
+from .demodulate import TurnTable
+from .errors import ConfigError, DegeneracyWarning, FitError, SystematicsWarning
+from .frames import sidereal_angle_rad
+from .signal import Setup, basis, signal
+from .theories import KE_NAMES, KO_NAMES
+
+logger = logging.getLogger(__name__)
+
+UNCERTAINTY_MODES = ("reduced-chi2", "bootstrap", "formal")
+
+#: Span from which ko_* join the default SME free set, days (half a sidereal year: the annual
+#: modulation that separates ko_* from ke_* is then sampled over half a cycle). Common practice
+#: reading of practice.md §6 (a year or more separates them fully).
+KO_DEFAULT_SPAN_DAYS = 182.6
+
+N_ANGLES = 8
+
+
+@dataclass(frozen=True)
+class FitSettings:
+    """Settings of stages 2-3 (see module docstring).
+
+    Parameters
+    ----------
+    theory : str
+    free : tuple of str or None
+        Free coefficients (None: the theory's default set).
+    fixed : dict
+        Coefficients held at given values.
+    uncertainty : {"reduced-chi2", "bootstrap", "formal"}
+    lab_b0 : bool
+        Fit a constant B offset (lab-fixed 2 theta systematic).
+    lab_c0 : bool
+        Fit a constant C offset (not allowed with ke_ZZ free).
+    regress : tuple of str
+        Auxiliary channels whose 2 theta amplitudes are regressed out.
+    bootstrap_days : float
+        Length of the resampled blocks of turns, days.
+    n_bootstrap : int
+    seed : int
+    """
+
+    theory: str = "sme"
+    free: tuple | None = None
+    fixed: dict = field(default_factory=dict)
+    uncertainty: str = "reduced-chi2"
+    lab_b0: bool = True
+    lab_c0: bool = False
+    regress: tuple = ()
+    bootstrap_days: float = 1.0
+    n_bootstrap: int = 200
+    seed: int = 12345
+
+    def __post_init__(self):
+        if self.uncertainty not in UNCERTAINTY_MODES:
+            raise ConfigError(f"--uncertainty: expected one of {', '.join(UNCERTAINTY_MODES)}, "
+                              f"got {self.uncertainty!r}")
+
+    def to_dict(self) -> dict:
+        return {"theory": self.theory, "free": list(self.free) if self.free else None,
+                "fixed": dict(self.fixed), "uncertainty": self.uncertainty,
+                "lab_b0": self.lab_b0, "lab_c0": self.lab_c0, "regress": list(self.regress),
+                "bootstrap_days": self.bootstrap_days, "n_bootstrap": self.n_bootstrap,
+                "seed": self.seed}
+
+
+def default_free(setup: Setup, span_days: float) -> tuple[str, ...]:
+    """The default free coefficients of a theory for a record of ``span_days``."""
+    name = setup.theory.name
+    if name == "sme":
+        return KE_NAMES + (KO_NAMES if span_days >= KO_DEFAULT_SPAN_DAYS else ())
+    if name == "rms":
+        return ("rms_mm",)
+    return setup.theory.parameter_names
+
+
+def turn_model(setup: Setup, t_s: NDArray, names: tuple[str, ...] | None = None,
+               params: dict | None = None) -> tuple[NDArray, NDArray, NDArray]:
+    """Non-rotating mean A, and 2 theta amplitudes C, B of the model at instants t_s.
+
+    For linear theories (``params`` None) each is (n, k) per unit coefficient; with ``params``
+    each is (n,) for the total signal (any theory). Evaluated on N_ANGLES table angles per
+    instant with the frames frozen at the instant.
+    """
+    from .frames import FrameState
+
+    t = np.atleast_1d(np.asarray(t_s, float))
+    theta = 2.0 * np.pi * np.arange(N_ANGLES) / N_ANGLES
+    state = setup.frames(t)
+    rep = np.repeat(np.arange(t.size), N_ANGLES)
+    st = FrameState(state.phi_rad[rep], state.colatitude_rad, state.beta[rep])
+    az = np.tile(np.pi - theta, t.size)
+    if params is None:
+        g = basis(setup, t[rep], az, names, state=st).reshape(t.size, N_ANGLES, -1)
+    else:
+        g = signal(setup, params, t[rep], az, state=st).reshape(t.size, N_ANGLES, 1)
+    c = (2.0 / N_ANGLES) * np.einsum("nak,a->nk", g, np.cos(2 * theta))
+    b = (2.0 / N_ANGLES) * np.einsum("nak,a->nk", g, np.sin(2 * theta))
+    a = g.mean(axis=1)
+    if params is not None:
+        return a[:, 0], c[:, 0], b[:, 0]
+    return a, c, b
+
+
+def _whiten(cov: NDArray) -> NDArray:
+    """Per-turn 2x2 whitening matrices W with W cov Wᵀ = 1 (inverse Cholesky)."""
+    chol = np.linalg.cholesky(cov)
+    return np.linalg.inv(chol)
+
+
+def _wls(jc: NDArray, jb: NDArray, c: NDArray, b: NDArray, w: NDArray
+         ) -> tuple[NDArray, NDArray, float, int, NDArray]:
+    """Weighted LS of stacked (C, B) rows; returns x, formal cov, chi2, dof, residuals (n, 2)."""
+    jw = np.einsum("nij,njk->nik", w, np.stack([jc, jb], axis=1))     # (n, 2, k)
+    yw = np.einsum("nij,nj->ni", w, np.stack([c, b], axis=1))          # (n, 2)
+    a = jw.reshape(-1, jw.shape[2])
+    y = yw.reshape(-1)
+    normal = a.T @ a
+    scale = np.sqrt(np.maximum(np.diag(normal), 1e-300))
+    nn = normal / np.outer(scale, scale)
+    try:
+        inv = np.linalg.inv(nn) / np.outer(scale, scale)
+    except np.linalg.LinAlgError:
+        raise FitError("stage 3: singular normal matrix (a free coefficient has no signal in "
+                       "this record); fix it or free fewer coefficients") from None
+    x = inv @ (a.T @ y)
+    r = y - a @ x
+    dof = max(y.size - x.size, 1)
+    resid = np.stack([c, b], axis=1) - np.einsum("nik,k->ni", np.stack([jc, jb], axis=1), x)
+    return x, inv, float(r @ r), dof, resid
+
+
+def fit_harmonics(phi_rad: NDArray, c: NDArray, b: NDArray, w: NDArray) -> dict:
+    """Stage 2: C10 harmonics with covariance (scaled by the reduced chi^2)."""
+    f = np.stack([np.ones_like(phi_rad), np.sin(phi_rad), np.cos(phi_rad),
+                  np.sin(2 * phi_rad), np.cos(2 * phi_rad)], axis=1)
+    z = np.zeros_like(f)
+    jc = np.concatenate([f, z], axis=1)
+    jb = np.concatenate([z, f], axis=1)
+    x, cov, chi2, dof, _ = _wls(jc, jb, c, b, w)
+    red = chi2 / dof
+    cov = cov * max(red, 0.0)
+    return {"names": list(HARMONIC_NAMES), "value": x.tolist(),
+            "sigma": np.sqrt(np.diag(cov)).tolist(), "covariance": cov.tolist(),
+            "chi2_reduced": red}
+
+
+def _bootstrap(jc, jb, c, b, w, t_s, days, n_boot, rng):
+    groups = np.floor((t_s - t_s[0]) / (86400.0 * days)).astype(int)
+    uniq, inv = np.unique(groups, return_inverse=True)
+    if uniq.size < 5:
+        raise FitError(f"--uncertainty bootstrap: only {uniq.size} blocks of {days} d; "
+                       "need at least 5 (shorter --bootstrap-days)")
+    members = [np.flatnonzero(inv == g) for g in range(uniq.size)]
+    draws = []
+    for _ in range(n_boot):
+        pick = np.concatenate([members[i] for i in rng.integers(0, uniq.size, uniq.size)])
+        x, *_ = _wls(jc[pick], jb[pick], c[pick], b[pick], w[pick])
+        draws.append(x)
+    return np.cov(np.array(draws).T, ddof=1).reshape(jc.shape[1], jc.shape[1])
+
+
+@dataclass
+class CoefficientFit:
+    """Stage-3 outcome before packaging (see :class:`fringe.result.FitResult`)."""
+
+    names: list
+    value: NDArray
+    cov: NDArray
+    nuisance: dict
+    chi2_reduced: float
+    dof: int
+    efficiency: dict
+    model_c: NDArray
+    model_b: NDArray
+    warnings: list
+    notes: list
+    upper_limits: dict = field(default_factory=dict)
+
+
+def _design(setup, t, names, table, sel, settings):
+    """Columns (jc, jb) for free coefficients and nuisances; and their labels."""
+    a, jc, jb = turn_model(setup, t, names)
+    labels = list(names)
+    extra_c, extra_b = [], []
+    if settings.lab_b0:
+        extra_c.append(np.zeros(t.size))
+        extra_b.append(np.ones(t.size))
+        labels.append("lab_B0")
+    if settings.lab_c0:
+        if "ke_ZZ" in names:
+            raise ConfigError("--lab-c0: a constant C offset is degenerate with ke_ZZ; fix "
+                              "ke_ZZ or drop --lab-c0")
+        extra_c.append(np.ones(t.size))
+        extra_b.append(np.zeros(t.size))
+        labels.append("lab_C0")
+    ic, isn = table.settings.index("c2"), table.settings.index("s2")
+    for ch in settings.regress:
+        extra_c.append(table.aux[ch][sel, ic])
+        extra_b.append(table.aux[ch][sel, isn])
+        labels.append(f"aux_{ch}")
+    if extra_c:
+        jc = np.concatenate([jc, np.stack(extra_c, 1)], axis=1)
+        jb = np.concatenate([jb, np.stack(extra_b, 1)], axis=1)
+    return jc, jb, labels
+
+
+def fit_coefficients(setup: Setup, table: TurnTable, settings: FitSettings,
+                     free: tuple[str, ...]) -> CoefficientFit:
+    """Stage 3 for a linear theory (see module docstring)."""
+    sel = table.accepted
+    t = table.t_mid_s[sel]
+    c, b = table.C[sel].copy(), table.B[sel].copy()
+    cov_i = table.formal_cov()[sel]
+    if settings.fixed:
+        _, fc, fb = turn_model(setup, t, params=settings.fixed)
+        c, b = c - fc, b - fb
+    w = _whiten(cov_i)
+    jc, jb, labels = _design(setup, t, free, table, sel, settings)
+    x, cov, chi2, dof, resid = _wls(jc, jb, c, b, w)
+    red = chi2 / dof
+    notes, warns = [], []
+    if settings.uncertainty == "reduced-chi2":
+        cov = cov * red
+    elif settings.uncertainty == "bootstrap":
+        cov = _bootstrap(jc, jb, c, b, w, t, settings.bootstrap_days, settings.n_bootstrap,
+                         np.random.default_rng(settings.seed))
+    # Cramer-Rao with the white per-sample level the data show
+    sigma_white = float(np.median(table.residual_rms[sel]))
+    w_cr = _whiten(sigma_white ** 2 * table.ninv_2[sel])
+    _, cov_cr, *_ = _wls(jc, jb, c, b, w_cr)
+    k = len(free)
+    sig = np.sqrt(np.diag(cov))
+    eff = {n: float(np.sqrt(cov_cr[i, i]) / sig[i]) for i, n in enumerate(free)}
+    warns += _degeneracy(labels, cov)
+    model_c = jc[:, :k] @ x[:k]
+    model_b = jb[:, :k] @ x[:k]
+    nuis = {lab: {"value": float(x[i]), "sigma": float(sig[i])}
+            for i, lab in enumerate(labels) if i >= k}
+    return CoefficientFit(names=list(free), value=x[:k], cov=cov[:k, :k], nuisance=nuis,
+                          chi2_reduced=red, dof=dof, efficiency=eff, model_c=model_c,
+                          model_b=model_b, warnings=warns, notes=notes)
+
+
+def _degeneracy(labels, cov, limit: float = 0.95) -> list[str]:
+    sig = np.sqrt(np.diag(cov))
+    corr = cov / np.outer(sig, sig)
+    out = []
+    pairs = [(labels[i], labels[j], corr[i, j]) for i in range(len(labels))
+             for j in range(i + 1, len(labels)) if abs(corr[i, j]) > limit]
+    if pairs:
+        text = ", ".join(f"{a}/{b} (r = {r:+.3f})" for a, b, r in pairs[:6])
+        out.append(f"near-degenerate coefficients: {text}; the record does not separate them "
+                   "(a longer span, or fix some of them)")
+        import warnings
+
+        warnings.warn(out[-1], DegeneracyWarning, stacklevel=3)
+    return out
+
+
+def fit_medium(setup: Setup, table: TurnTable, settings: FitSettings) -> CoefficientFit:
+    """Nonlinear fit of the Sun's velocity through a classical medium (lmfit), 95 % speed limit."""
+    import lmfit
+
+    from .theories import MEDIUM_NAMES
+
+    sel = table.accepted
+    t = table.t_mid_s[sel]
+    c, b = table.C[sel], table.B[sel]
+    w = _whiten(table.formal_cov()[sel])
+    off = settings.lab_b0
+
+    def model(p):
+        vals = {n: p[n].value for n in MEDIUM_NAMES}
+        _, mc, mb = turn_model(setup, t, params=vals)
+        if off:
+            mb = mb + p["lab_B0"].value
+        return mc, mb
+
+    def resid(p):
+        mc, mb = model(p)
+        r = np.stack([c - mc, b - mb], axis=1)
+        return np.einsum("nij,nj->ni", w, r).ravel()
+
+    params = lmfit.Parameters()
+    for n in MEDIUM_NAMES:
+        params.add(n, value=settings.fixed.get(n, 1.0), vary=n not in settings.fixed)
+    if off:
+        params.add("lab_B0", value=0.0)
+    out = lmfit.minimize(resid, params, method="leastsq")
+    names = [n for n in MEDIUM_NAMES if n not in settings.fixed]
+    if out.covar is None:
+        raise FitError("medium fit: no covariance (the fit did not converge or the data do "
+                       "not constrain the velocity)")
+    cov = np.array(out.covar)
+    red = float(out.redchi)
+    order = list(out.var_names)
+    idx = [order.index(n) for n in names]
+    cov_v = cov[np.ix_(idx, idx)]
+    if settings.uncertainty == "formal":
+        cov_v = cov_v / red
+    x = np.array([out.params[n].value for n in names])
+    rng = np.random.default_rng(settings.seed)
+    full = np.array([out.params[n].value for n in MEDIUM_NAMES])
+    draws = np.tile(full, (20000, 1))
+    draws[:, [MEDIUM_NAMES.index(n) for n in names]] = rng.multivariate_normal(x, cov_v, 20000)
+    speed95 = float(np.percentile(np.linalg.norm(draws, axis=1), 95))
+    mc, mb = model(out.params)
+    return CoefficientFit(names=names, value=x, cov=cov_v, nuisance={}, chi2_reduced=red,
+                          dof=int(out.nfree), efficiency={}, model_c=mc, model_b=mb,
+                          warnings=[], notes=["medium: nonlinear fit with lmfit (leastsq); the "
+                                              "95 % speed limit samples the fit covariance"],
+                          upper_limits={"speed_kms_95": speed95})
+
+
+def stage2_and_3(setup: Setup, table: TurnTable, settings: FitSettings,
+                 span_days: float) -> tuple[dict, CoefficientFit, tuple]:
+    """Run stage 2 (harmonics) and stage 3 (coefficients); also the systematics diagnostics."""
+    sel = table.accepted
+    if np.sum(sel) < 12:
+        raise FitError(f"fit: only {int(np.sum(sel))} accepted turns; need at least 12")
+    t = table.t_mid_s[sel]
+    phi = sidereal_angle_rad(setup.epoch, t, setup.site.east_longitude_rad)
+    w = _whiten(table.formal_cov()[sel])
+    harm = fit_harmonics(phi, table.C[sel], table.B[sel], w)
+    theory = setup.theory
+    if settings.free is not None:
+        free = tuple(settings.free)
+        theory.check_params({n: 0.0 for n in free}, source="--free")
+    else:
+        free = tuple(n for n in default_free(setup, span_days) if n not in settings.fixed)
+    theory.check_params(settings.fixed, source="--fix")
+    if not free:
+        raise ConfigError("--free: no free coefficient left")
+    if "rms_kt" in free:
+        raise ConfigError("--free rms_kt: the Kennedy-Thorndike combination lives in the "
+                          "non-rotating absolute frequency, which the 2 theta fit does not use; "
+                          "fix rms_kt (or leave it out)")
+    if theory.linear:
+        res = fit_coefficients(setup, table, settings, free)
+    else:
+        res = fit_medium(setup, table, settings)
+    import warnings
+
+    b0, sb0 = harm["value"][5], harm["sigma"][5]
+    if theory.sector == "photon" and sb0 > 0 and abs(b0) > 3 * sb0:
+        msg = (f"B0 = {b0:.3g} ± {sb0:.2g} {setup.units} is inconsistent with zero "
+               f"({abs(b0) / sb0:.1f} sigma): photon-sector signals give B0 = 0, so this points "
+               "to a lab-fixed 2 theta systematic (tilt, gravity or centrifugal deformation, "
+               "magnetics)")
+        res.warnings.append(msg)
+        warnings.warn(msg, SystematicsWarning, stacklevel=2)
+    c0, sc0 = harm["value"][0], harm["sigma"][0]
+    if "ke_ZZ" in res.names:
+        res.notes.append("ke_ZZ is determined by C0 alone, the unmodulated 2 theta term, which "
+                         "is exposed to the same lab-fixed systematics as B0")
+        if sc0 > 0 and abs(c0) > 3 * sc0:
+            msg = (f"C0 = {c0:.3g} ± {sc0:.2g} {setup.units} is inconsistent with zero "
+                   f"({abs(c0) / sc0:.1f} sigma); ke_ZZ (C0 only) may carry a lab-fixed "
+                   "systematic")
+            res.warnings.append(msg)
+            warnings.warn(msg, SystematicsWarning, stacklevel=2)
+    return harm, res, free
