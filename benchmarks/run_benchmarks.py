@@ -1,0 +1,191 @@
+"""On-demand benchmarks of fringe (never run in CI; no pass/fail).
+
+Usage (from the repository root, in the project's environment)::
+
+    python benchmarks/run_benchmarks.py --days 365 --workdir BENCH_DIR
+
+Writes BENCH_DIR/results.json and prints a Markdown table for docs/performance.md. Every speed is a
+ratio against a floor measured in the same run:
+
+* floor: one h5py read of time, azimuth and signal plus one sin/cos pass over the azimuth;
+* ``fringe fit`` end to end (stage 1 + stages 2-3 + result), as a multiple of the floor;
+* the baseline a user would otherwise write: one lmfit fit per turn, timed on a sample of turns
+  and extrapolated to all turns; reported as the speed-up of ``fringe fit``;
+* peak resident memory of ``fringe fit`` at 1/8, 1/4, 1/2 and the whole record (each in a fresh
+  subprocess, ru_maxrss);
+* ``simulate`` and ``predict`` throughput (samples per second) and ``plan`` time.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import platform
+import resource
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+SCENARIO = """
+title = "benchmark: invented cavity pair"
+[site]
+latitude_deg = 47.62
+longitude_deg = 11.38
+[campaign]
+start_utc = "2027-01-05T00:00:00Z"
+duration_days = {days}
+sample_interval_s = 1.0
+[apparatus]
+kind = "cavity-pair"
+carrier_hz = 2.82e14
+units = "Hz"
+[turntable]
+motion = "continuous"
+period_s = 45.0
+[theory]
+name = "sme"
+[coefficients]
+ke_XY = 1e-17
+[noise]
+white_fm_adev_1s = 1e-15
+[systematics]
+drift_per_day = 1e-13
+gaps_per_day = 0.5
+gap_length_s = 600
+glitches_per_day = 1
+glitch_size = 1e-13
+"""
+
+
+def floor_seconds(path: str) -> float:
+    import h5py
+
+    t0 = time.perf_counter()
+    with h5py.File(path, "r") as f:
+        g = f["samples"]
+        n = g["time"].shape[0]
+        buf = np.empty(min(n, 1 << 17))
+        for start in range(0, n, buf.size):
+            stop = min(start + buf.size, n)
+            view = buf[: stop - start]
+            for name in ("time", "signal", "azimuth"):
+                g[name].read_direct(view, np.s_[start:stop], np.s_[0:stop - start])
+            np.sin(view)
+            np.cos(view)
+    return time.perf_counter() - t0
+
+
+def fit_seconds(path: str) -> float:
+    from fringe.analysis import fit_run
+    from fringe.fit import FitSettings
+    import scipy.interpolate  # noqa: F401  (import cost is not part of the timing)
+
+    t0 = time.perf_counter()
+    fit_run(path, FitSettings())
+    return time.perf_counter() - t0
+
+
+def lmfit_loop_seconds_per_turn(path: str, n_turns: int = 200) -> float:
+    """One lmfit Model.fit per turn (offset + slope + 1theta + 2theta), as a user might write."""
+    import lmfit
+
+    from fringe.io.runfile import open_run
+
+    with open_run(path) as run:
+        d = next(run.iter_chunks(n_turns * 45 + 100, copy=True))
+    t, th, y = d["time"], np.pi - d["azimuth"], d["signal"]
+
+    def model(x, a0, a1, c1, s1, c2, s2):
+        tt, ang = x
+        return (a0 + a1 * tt + c1 * np.cos(ang) + s1 * np.sin(ang) + c2 * np.cos(2 * ang)
+                + s2 * np.sin(2 * ang))
+
+    m = lmfit.Model(model)
+    edges = np.arange(0, t.size, 45)
+    t0 = time.perf_counter()
+    done = 0
+    for a, b in zip(edges[:-1], edges[1:]):
+        ok = np.isfinite(y[a:b])
+        tt = t[a:b][ok] - t[a:b][ok].mean()
+        m.fit(y[a:b][ok], x=(tt, th[a:b][ok]), a0=0, a1=0, c1=0, s1=0, c2=0, s2=0)
+        done += 1
+    return (time.perf_counter() - t0) / max(done, 1)
+
+
+def peak_rss_of_fit(path: str) -> float:
+    """Peak resident memory (MiB) of a fit in a fresh subprocess."""
+    code = ("import resource,sys; from fringe.analysis import fit_run; "
+            "from fringe.fit import FitSettings; fit_run(sys.argv[1], FitSettings()); "
+            "print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)")
+    out = subprocess.run([sys.executable, "-c", code, path], check=True, capture_output=True,
+                         text=True)
+    return int(out.stdout.strip().splitlines()[-1]) / 1024.0
+
+
+def main():
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--days", type=float, default=365.0)
+    ap.add_argument("--workdir", default="bench-work")
+    ap.add_argument("--skip-memory", action="store_true")
+    args = ap.parse_args()
+    work = Path(args.workdir)
+    work.mkdir(parents=True, exist_ok=True)
+    from fringe.scenario import scenario_from_dict
+    from fringe.simulate import simulate
+
+    import tomllib
+
+    results = {"machine": {"python": platform.python_version(), "cpus": os.cpu_count(),
+                           "platform": platform.platform()}, "days": args.days}
+    fractions = (1.0,) if args.skip_memory else (0.125, 0.25, 0.5, 1.0)
+    paths = {}
+    for frac in fractions:
+        sc = scenario_from_dict(tomllib.loads(SCENARIO.format(days=args.days * frac)),
+                                "benchmark")
+        path = work / f"run_{frac:g}.h5"
+        if not path.exists():
+            t0 = time.perf_counter()
+            simulate(sc, path, seed=1)
+            dt = time.perf_counter() - t0
+            if frac == 1.0:
+                results["simulate_samples_per_s"] = sc.n_samples / dt
+        paths[frac] = str(path)
+        if frac == 1.0:
+            from fringe.predict import iter_prediction_chunks
+
+            t0 = time.perf_counter()
+            n = 0
+            for t, _, _ in iter_prediction_chunks(sc):
+                n += t.size
+                if n >= 2_000_000:
+                    break
+            results["predict_samples_per_s"] = n / (time.perf_counter() - t0)
+            try:
+                from fringe.plan import plan_scenario
+
+                t0 = time.perf_counter()
+                plan_scenario(sc)
+                results["plan_s"] = time.perf_counter() - t0
+            except ImportError:
+                pass
+    full = paths[1.0]
+    floor = min(floor_seconds(full) for _ in range(2))
+    fit = fit_seconds(full)
+    per_turn = lmfit_loop_seconds_per_turn(full)
+    n_turns = args.days * 86400 / 45.0
+    results.update({"floor_s": floor, "fit_s": fit, "fit_over_floor": fit / floor,
+                    "lmfit_loop_s_extrapolated": per_turn * n_turns,
+                    "speedup_vs_lmfit_loop": per_turn * n_turns / fit})
+    if not args.skip_memory:
+        results["peak_rss_mib"] = {str(f): peak_rss_of_fit(p) for f, p in paths.items()}
+    results["self_peak_rss_mib"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    (work / "results.json").write_text(json.dumps(results, indent=2))
+    print(json.dumps(results, indent=2))
+
+
+if __name__ == "__main__":
+    main()

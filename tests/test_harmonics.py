@@ -1,0 +1,309 @@
+"""The C10 harmonic table by projection vs the closed forms of physics.md §2 (checks.md §2)."""
+
+import json
+
+import numpy as np
+import pytest
+
+import fringe.harmonics as harmonics
+from fringe.apparatus import CavityPair, CavityVsReference
+from fringe.constants import C_M_S, OMEGA_EARTH_RAD_S
+from fringe.conventions import (
+    HARMONIC_NAMES,
+    azimuth_from_theta,
+    horizontal_direction_lab,
+    theta_from_azimuth,
+)
+from fringe.frames import Epoch, FrameState, circular_orbit_beta
+from fringe.signal import Setup, basis
+from fringe.site import Site
+from fringe.theories import RobertsonMansouriSexl, SmePhoton
+from fringe.theories.sme import KE_NAMES, KO_NAMES, SME_NAMES
+
+import oracle
+
+CHI = np.radians(37.48)                                   # checks.md common inputs
+BETA_ORB = 9.93e-5                                        # checks.md common inputs
+ETA = np.radians(23.4392794)                              # checks.md common inputs
+V_SUN_BETA = 369.82e3 / C_M_S * np.array([-0.970762, 0.207371, -0.120904])  # checks.md §3
+EPOCH = Epoch("2026-04-01T00:00:00Z")
+IDX = {name: i for i, name in enumerate(HARMONIC_NAMES)}
+# Rounding floor of a projected harmonic per unit coefficient: the least-squares projection of
+# 512 grid samples of O(1) numbers carries ~sqrt(512) eps ~ 5e-15. (A unit ktr is an O(1)
+# rest-frame tensor whose boosted anisotropy is only ~beta^2, so this floor applies to it too.)
+FLOOR = 1e-14
+SME = SmePhoton()
+RMS = RobertsonMansouriSexl(sun_velocity_beta=V_SUN_BETA)
+
+
+def setup_for(chi, apparatus=None, theory=SME, rotation=False):
+    return Setup(site=Site(latitude_deg=90.0 - np.degrees(chi), longitude_deg=0.0), epoch=EPOCH,
+                 apparatus=apparatus or CavityPair(), theory=theory,
+                 include_rotation_velocity=rotation)
+
+
+def freeze_orbit(monkeypatch, beta_orbit, orbital_phase=0.0):
+    """Replace the ephemeris inside the projection by the circular orbit at one phase."""
+    value = circular_orbit_beta([orbital_phase], beta_orbit, ETA)
+    monkeypatch.setattr(harmonics, "earth_velocity_beta", lambda epoch, t_s: value.copy())
+
+
+def unit_ke(name):
+    """SCCEF tensor of a unit ke coefficient (XX = (d - ZZ)/2, YY = -(d + ZZ)/2)."""
+    comps = {"ke_XY": (0, 1), "ke_XZ": (0, 2), "ke_YZ": (1, 2)}
+    k = np.zeros((3, 3))
+    if name in comps:
+        i, j = comps[name]
+        k[i, j] = k[j, i] = 1.0
+    elif name == "ke_XXmYY":
+        k[0, 0], k[1, 1] = 0.5, -0.5
+    else:
+        k[0, 0], k[1, 1], k[2, 2] = -0.5, -0.5, 1.0
+    return k
+
+
+def fourier_table(kxy, kxz, kyz, kxx_m_yy, kzz, chi):
+    """physics.md §2.1 (two-path normalisation), in HARMONIC_NAMES order."""
+    s, c = np.sin(chi), np.cos(chi)
+    return np.array([0.75 * s * s * kzz, -s * c * kyz, -s * c * kxz,
+                     0.5 * (1 + c * c) * kxy, 0.25 * (1 + c * c) * kxx_m_yy,
+                     0.0, s * kxz, -s * kyz, -0.5 * c * kxx_m_yy, c * kxy])
+
+
+def k_components(k):
+    return k[0, 1], k[0, 2], k[1, 2], k[0, 0] - k[1, 1], k[2, 2]
+
+
+def closed_form_sme(name, chi, ot, beta_orbit, beta_l):
+    """physics.md §2.1-§2.4 for a unit value of one SME coefficient (circular orbit)."""
+    v = {n: 0.0 for n in SME_NAMES}
+    v[name] = 1.0
+    ke = np.zeros((3, 3))
+    for n in KE_NAMES:
+        ke += v[n] * unit_ke(n)
+    kxy, kxz, kyz, kdd, kzz = k_components(ke)
+    oxy, oxz, oyz, ktr = v["ko_XY"], v["ko_XZ"], v["ko_YZ"], v["ktr"]
+    b, so, co, se, ce = beta_orbit, np.sin(ot), np.cos(ot), np.sin(ETA), np.cos(ETA)
+    # §2.2 (orbital boost) and §2.4 (ktr, O(beta^2))
+    kxy += b * (oxz * so + oyz * ce * co) + ktr * b * b * ce * np.sin(2 * ot)
+    kdd += 2 * b * (oxz * ce * co - oyz * so) - 2 * ktr * b * b * (so * so - ce * ce * co * co)
+    kxz += -b * (oxy * so - oyz * se * co) + ktr * b * b * se * np.sin(2 * ot)
+    kyz += b * (oxy * ce - oxz * se) * co - ktr * b * b * np.sin(2 * ETA) * co * co
+    kzz += (2 / 3 * b * (2 * oxy * se * co + oxz * ce * co + oyz * so)
+            - 2 * ktr * b * b * (se * se * co * co - 1 / 3))
+    table = fourier_table(kxy, kxz, kyz, kdd, kzz, chi)
+    # §2.3 (Earth-rotation terms, first order in beta_L)
+    s, c = np.sin(chi), np.cos(chi)
+    table[IDX["B0"]] += beta_l * s * oxy
+    table[IDX["Bs1"]] += beta_l * c * oxz
+    table[IDX["Bc1"]] += -beta_l * c * oyz
+    table[IDX["Cs1"]] += -beta_l * oyz
+    table[IDX["Cc1"]] += -beta_l * oxz
+    return table
+
+
+# ---- the Fourier table vs the projection -----------------------------------------------------
+
+def test_fourier_table_machine_precision_random_chi(monkeypatch):
+    """With no lab velocity the exact and first-order routes coincide: machine precision."""
+    freeze_orbit(monkeypatch, 0.0)
+    rng = np.random.default_rng(1)
+    for chi in rng.uniform(0.05, np.pi - 0.05, 6):
+        coef, unc, labels = harmonics.harmonics_at(setup_for(chi), 0.0, names=KE_NAMES)
+        for j, name in enumerate(labels):
+            closed = fourier_table(*k_components(unit_ke(name)), chi)
+            # checks.md §2 "Fourier table vs direct matrix formula": machine precision
+            np.testing.assert_allclose(coef[:, j], closed, rtol=0, atol=FLOOR)
+        assert np.all(unc <= FLOOR)
+        # RMS through the same table with K_RMS (physics.md §3.5): also exact
+        rms_coef, _, _ = harmonics.harmonics_at(setup_for(chi, theory=RMS), 0.0,
+                                                names=("rms_mm",))
+        closed = fourier_table(*k_components(oracle.k_rms(1.0, V_SUN_BETA)), chi)
+        np.testing.assert_allclose(rms_coef[:, 0], closed, rtol=0,
+                                   atol=1e-14 * np.abs(closed).max())
+
+
+@pytest.mark.parametrize("ot", [0.0, 1.1, 2.5, 4.4])
+@pytest.mark.parametrize("names, rotation", [(KE_NAMES + KO_NAMES, True), (("ktr",), False)],
+                         ids=["ke-ko-with-rotation", "ktr-orbit-only"])
+def test_closed_forms_with_orbit_and_rotation(monkeypatch, ot, names, rotation):
+    freeze_orbit(monkeypatch, BETA_ORB, ot)
+    rng = np.random.default_rng(int(ot * 10))
+    chi = rng.uniform(0.1, np.pi - 0.1)
+    setup = setup_for(chi, rotation=rotation)
+    beta_l = OMEGA_EARTH_RAD_S * setup.site.axis_distance_m / C_M_S if rotation else 0.0
+    coef, _, labels = harmonics.harmonics_at(setup, 0.0, names=names)
+    beta = BETA_ORB + beta_l
+    for j, name in enumerate(labels):
+        closed = closed_form_sme(name, chi, ot, BETA_ORB, beta_l)
+        # physics.md §2.2-§2.4 are first order (ktr: second) in beta; fringe boosts exactly.
+        # Neglected: ~beta^2 relative to each column (test_sme measures constants <= 2.6);
+        # 10 beta^2 x the column's size. (ktr x beta_L cross terms are outside §2.4, hence
+        # the ktr column runs with the rotation velocity off.)
+        np.testing.assert_allclose(coef[:, j], closed, rtol=0,
+                                   atol=10 * beta ** 2 * np.abs(closed).max())
+
+
+# ---- structural checks (checks.md §2) -------------------------------------------------------
+
+def test_ke_zz_only_in_c0(monkeypatch):
+    freeze_orbit(monkeypatch, 0.0)
+    pair, _, _ = harmonics.harmonics_at(setup_for(CHI), 0.0, names=("ke_ZZ",))
+    single, _, _ = harmonics.harmonics_at(
+        setup_for(CHI, CavityVsReference(reference="atomic")), 0.0, names=("ke_ZZ",))
+    # checks.md §2, derived (checked numerically against an exact Lorentz transformation):
+    # weight 3/4 sin^2 chi = 0.27769 at 37.48 deg (5 figures: half a unit, 5e-6)
+    assert pair[IDX["C0"], 0] == pytest.approx(0.27769, abs=5e-6)
+    assert pair[IDX["C0"], 0] == pytest.approx(0.75 * np.sin(CHI) ** 2, rel=1e-14)
+    assert single[IDX["C0"], 0] == pytest.approx(0.375 * np.sin(CHI) ** 2, rel=1e-14)
+    others = [i for i in range(10) if i != IDX["C0"]]
+    np.testing.assert_allclose(pair[others, 0], 0.0, atol=FLOOR)
+    np.testing.assert_allclose(single[others, 0], 0.0, atol=FLOOR)
+
+
+def test_ke_xy_ratio_cs2_over_bc2(monkeypatch):
+    freeze_orbit(monkeypatch, 0.0)
+    coef, _, _ = harmonics.harmonics_at(setup_for(CHI), 0.0, names=("ke_XY",))
+    c = np.cos(CHI)
+    ratio = coef[IDX["Cs2"], 0] / coef[IDX["Bc2"], 0]
+    # checks.md §2, derived: (1 + cos^2 chi)/(2 cos chi) = 1.02685 at 37.48 deg (6 figures)
+    assert ratio == pytest.approx(1.02685, abs=5e-6)
+    assert ratio == pytest.approx((1 + c * c) / (2 * c), rel=1e-13)
+
+
+@pytest.mark.parametrize("chi_deg", [20.0, 37.48, 65.0, 121.98])
+def test_ke_xz_ratio_cc1_over_bs1(monkeypatch, chi_deg):
+    freeze_orbit(monkeypatch, 0.0)
+    chi = np.radians(chi_deg)
+    coef, _, _ = harmonics.harmonics_at(setup_for(chi), 0.0, names=("ke_XZ",))
+    # checks.md §2, derived: C_c1 / B_s1 = -cos chi
+    assert coef[IDX["Cc1"], 0] / coef[IDX["Bs1"], 0] == pytest.approx(-np.cos(chi), rel=1e-13)
+
+
+@pytest.mark.parametrize("theory, names", [(SME, SME_NAMES), (RMS, ("rms_mm", "rms_kt"))],
+                         ids=["sme", "rms"])
+def test_single_cavity_has_half_the_pair_amplitudes(theory, names):
+    """Real ephemeris and rotation velocity: the relation is exact (C9)."""
+    t_ref = 5.0e6
+    pair, _, _ = harmonics.harmonics_at(setup_for(CHI, theory=theory, rotation=True), t_ref,
+                                        names=names)
+    single, unc, _ = harmonics.harmonics_at(
+        setup_for(CHI, CavityVsReference(reference="atomic"), theory, rotation=True), t_ref,
+        names=names)
+    # checks.md §2, derived: a single rotating path gives half of every two-path 2theta amplitude
+    assert np.all(np.abs(single - 0.5 * pair) <= 1e-12 * np.abs(pair) + FLOOR)
+    # the non-rotating terms it also carries are outside the C10 model
+    assert unc[list(names).index("ke_ZZ" if theory is SME else "rms_mm")] > 0.0
+
+
+def fit_orbit(values, ot):
+    """Least-squares coefficients on (1, sin OT, cos OT, sin 2OT, cos 2OT)."""
+    design = np.stack([np.ones_like(ot), np.sin(ot), np.cos(ot), np.sin(2 * ot),
+                       np.cos(2 * ot)], axis=1)
+    return np.linalg.lstsq(design, values, rcond=None)[0]
+
+
+def harmonics_over_orbit(monkeypatch, names, beta_orbit, ots):
+    out = []
+    for ot in ots:
+        freeze_orbit(monkeypatch, beta_orbit, ot)
+        out.append(harmonics.harmonics_at(setup_for(CHI), 0.0, names=names)[0])
+    return np.stack(out)                                  # (m, 10, k)
+
+
+def test_ko_only_with_beta_factors(monkeypatch):
+    ots = np.arange(10) * 2 * np.pi / 10
+    none = harmonics_over_orbit(monkeypatch, KO_NAMES, 0.0, ots[:1])
+    assert np.all(none == 0.0)                            # no lab velocity: no ko signal at all
+    per = harmonics_over_orbit(monkeypatch, KO_NAMES, BETA_ORB, ots)
+    fit = fit_orbit(per.reshape(len(ots), -1), ots).reshape(5, 10, 3)
+    size = np.abs(per).max()
+    # checks.md §2: ko terms only with beta sin OT or beta cos OT. The constant and 2 OT parts
+    # are of the neglected order beta^3 (test_sme: ko's next order in ke' is beta^3)
+    assert size == pytest.approx(BETA_ORB, rel=1.0)          # first order in beta
+    assert np.abs(fit[[0, 3, 4]]).max() <= 10 * BETA_ORB ** 3
+    doubled = harmonics_over_orbit(monkeypatch, KO_NAMES, 2 * BETA_ORB, ots[:3])
+    np.testing.assert_allclose(doubled, 2 * per[:3], rtol=0, atol=10 * BETA_ORB ** 3)
+
+
+def test_ktr_only_with_beta_squared(monkeypatch):
+    ots = np.arange(10) * 2 * np.pi / 10
+    none = harmonics_over_orbit(monkeypatch, ("ktr",), 0.0, ots[:1])
+    np.testing.assert_allclose(none, 0.0, atol=FLOOR)     # isotropic at rest: no 2theta signal
+    per = harmonics_over_orbit(monkeypatch, ("ktr",), BETA_ORB, ots)
+    fit = fit_orbit(per.reshape(len(ots), -1), ots).reshape(5, 10, 1)
+    size = np.abs(per).max()
+    # checks.md §2: ktr only with beta^2 (sin 2OT, cos^2 OT or constant); no 1 OT terms
+    # (their order would be beta^3, absent by parity of the boost in beta)
+    assert size == pytest.approx(BETA_ORB ** 2, rel=1.0)
+    assert np.abs(fit[[1, 2]]).max() <= FLOOR
+    halved = harmonics_over_orbit(monkeypatch, ("ktr",), 0.5 * BETA_ORB, ots[:3])
+    np.testing.assert_allclose(halved, 0.25 * per[:3], rtol=0,
+                               atol=10 * BETA_ORB ** 2 * size + FLOOR)
+
+
+@pytest.mark.parametrize("theory, names", [(SME, SME_NAMES), (RMS, ("rms_mm",))],
+                         ids=["sme", "rms"])
+def test_b0_vanishes_without_rotation_velocity(theory, names):
+    coef, _, _ = harmonics.harmonics_at(setup_for(CHI, theory=theory), 2.0e7, names=names)
+    # checks.md §2: B0 = 0 to rounding with beta_L = 0 (real ephemeris orbit included)
+    assert np.all(np.abs(coef[IDX["B0"]]) <= FLOOR * np.maximum(np.abs(coef).max(axis=0), 1.0))
+
+
+@pytest.mark.parametrize("name", ["ke_XY", "ke_XXmYY"])
+@pytest.mark.parametrize("chi_deg, expected", [
+    # checks.md §2, derived (arithmetic): (1 + c)^2/(1 - c)^2 = 75.49 at 37.48 deg
+    (37.48, 75.49),
+    # checks.md §2: southern chi = 121.98 deg, the 2theta - 2phi line is larger by 10.57
+    (121.98, 1 / 10.57),
+])
+def test_northern_sideband_asymmetry(name, chi_deg, expected):
+    """Amplitude of the 2theta + 2phi line over the 2theta - 2phi line, by a 2-D DFT."""
+    chi = np.radians(chi_deg)
+    n_t, n_p = 16, 32
+    th, ph = np.meshgrid(2 * np.pi * np.arange(n_t) / n_t, 2 * np.pi * np.arange(n_p) / n_p,
+                         indexing="ij")
+    state = FrameState(ph.ravel(), chi, np.zeros((th.size, 3)))
+    g = basis(setup_for(chi), np.zeros(th.size), np.pi - th.ravel(), (name,), state=state)
+    spec = np.abs(np.fft.fft2(g[:, 0].reshape(n_t, n_p)))
+    ratio = spec[2, 2] / spec[2, n_p - 2]
+    c = np.cos(chi)
+    assert ratio == pytest.approx((1 + c) ** 2 / (1 - c) ** 2, rel=1e-12)
+    # 4 figures: half a unit in the last digit
+    if expected > 1:
+        assert ratio == pytest.approx(expected, abs=5e-3)
+    else:
+        assert 1 / ratio == pytest.approx(1 / expected, abs=5e-3)
+
+
+def test_azimuth_sign_rule():
+    """C7: theta = pi - A; in A the B terms change sign and the C terms do not (checks.md §2)."""
+    rng = np.random.default_rng(4)
+    params = {n: rng.normal() * 1e-17 for n in KE_NAMES}
+    state_one = FrameState(np.array([0.8]), CHI, circular_orbit_beta([0.3], BETA_ORB, ETA))
+    az = 2 * np.pi * np.arange(12) / 12
+    state = FrameState(np.full(12, 0.8), CHI, np.repeat(state_one.beta, 12, axis=0))
+    g = basis(setup_for(CHI), np.zeros(12), az, tuple(params), state=state)
+    s = g @ np.array(list(params.values()))
+    theta = theta_from_azimuth(az)
+    fit_theta = np.linalg.lstsq(np.stack([np.cos(2 * theta), np.sin(2 * theta)], 1), s,
+                                rcond=None)[0]
+    fit_az = np.linalg.lstsq(np.stack([np.cos(2 * az), np.sin(2 * az)], 1), s, rcond=None)[0]
+    np.testing.assert_allclose(fit_az, [fit_theta[0], -fit_theta[1]], rtol=1e-12)
+    np.testing.assert_allclose(azimuth_from_theta(theta), az, atol=1e-15)
+    # A = 0 (north) is -south, A = 90 deg is east, in lab axes (south, east, up)
+    np.testing.assert_allclose(horizontal_direction_lab([0.0, np.pi / 2]),
+                               [[-1, 0, 0], [0, 1, 0]], atol=1e-16)
+
+
+def test_harmonic_table_annual_modulation_and_dict():
+    table = harmonics.harmonic_table(setup_for(CHI, rotation=True), 0.0,
+                                     values={"ke_XY": 1e-17}, n_orbit=12)
+    # with the ephemeris orbit, only ko (first order) and ktr (second order) carry annual
+    # modulation; ke changes only at ~beta^2 = 1e-8 relative, below the 1e-6 threshold
+    assert sorted(table.annual_modulation_present()) == sorted(KO_NAMES + ("ktr",))
+    # the fitted mean of a ke column is its value at the reference instant (to ~beta^2)
+    j = table.labels.index("ke_XY")
+    np.testing.assert_allclose(table.orbit[0, :, j], table.at_ref[:, j], rtol=0, atol=1e-7)
+    json.dumps(table.to_dict())
+    assert "ke_XY" in table.summary()
