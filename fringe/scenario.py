@@ -184,7 +184,12 @@ def scenario_from_dict(doc: dict, source: str = "scenario") -> Scenario:
     start = camp.pop("start_utc", None)
     if start is None:
         raise ConfigError(f"{source}: [campaign] start_utc: missing (ISO 8601 UTC expected)")
-    epoch = _wrap(source, "campaign", Epoch, start, camp.pop("dut1_s", 0.0))
+    try:
+        epoch = Epoch(start, camp.pop("dut1_s", 0.0))
+        epoch.tai_jd                                   # validates the instant itself
+    except ConfigError as exc:
+        raise ConfigError(f"{source}: [campaign] "
+                          + str(exc).replace("epoch_utc", "start_utc")) from None
     if "duration_days" in camp and "duration_s" in camp:
         raise ConfigError(f"{source}: [campaign]: give duration_days or duration_s, not both")
     if "duration_days" in camp:
