@@ -7,7 +7,7 @@ phi), the basis signals are evaluated, and each is projected on
     S = B sin 2 theta + C cos 2 theta,  C = C0 + Cs1 sin phi + Cc1 cos phi + Cs2 sin 2 phi + ...
 
 Uniform grids make the projection exact for signals band-limited below half the grid sizes. The
-part of each basis signal the C10 model does not capture (1 theta from a tilt, non-rotating
+part of each basis signal the C10 model does not capture (non-rotating
 terms, higher harmonics) is reported as ``uncaptured_rms``.
 
 Annual modulation: the projection is repeated at instants spread over a sidereal year and each

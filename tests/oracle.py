@@ -44,7 +44,10 @@ def k_from_kappa(ke, ko_xy, ko_xz, ko_yz, ktr):          # k^{mu nu}, physics.md
     return k
 
 
-def beta_circular(orbital_phase, beta_orb=9.93e-5, eta=np.radians(23.4392794)):
+ETA_J2000 = np.radians(23.4392794)                        # checks.md common inputs: eta
+
+
+def beta_circular(orbital_phase, beta_orb=9.93e-5, eta=ETA_J2000):
     return beta_orb*np.array([np.sin(orbital_phase),
                               -np.cos(eta)*np.cos(orbital_phase),
                               -np.sin(eta)*np.cos(orbital_phase)])

@@ -3,6 +3,7 @@
 import json
 
 import numpy as np
+import oracle
 import pytest
 
 import fringe.harmonics as harmonics
@@ -19,8 +20,6 @@ from fringe.signal import Setup, basis
 from fringe.site import Site
 from fringe.theories import RobertsonMansouriSexl, SmePhoton
 from fringe.theories.sme import KE_NAMES, KO_NAMES, SME_NAMES
-
-import oracle
 
 CHI = np.radians(37.48)                                   # checks.md common inputs
 BETA_ORB = 9.93e-5                                        # checks.md common inputs

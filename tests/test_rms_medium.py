@@ -1,6 +1,7 @@
 """RMS test theory and the classical medium (checks.md §3 and §4)."""
 
 import numpy as np
+import oracle
 import pytest
 
 import fringe.harmonics as harmonics
@@ -11,8 +12,6 @@ from fringe.signal import Setup, basis, signal
 from fringe.site import Site
 from fringe.theories import ClassicalMedium, RobertsonMansouriSexl, SmePhoton
 from fringe.theories.sme import SME_NAMES, boost_matrix
-
-import oracle
 
 CHI = np.radians(37.48)                                   # checks.md common inputs
 BETA_ORB = 9.93e-5                                        # checks.md common inputs

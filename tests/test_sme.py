@@ -9,6 +9,7 @@ import itertools
 
 import mpmath
 import numpy as np
+import oracle
 import pytest
 
 from fringe.apparatus import CavityPair, CavityVsReference
@@ -19,8 +20,6 @@ from fringe.site import Site
 from fringe.theories import THEORIES, SmePhoton, make_theory
 from fringe.theories.base import Theory
 from fringe.theories.sme import SME_NAMES, boost_matrix, k_tensor, unit_k_tensor
-
-import oracle
 
 # Common inputs of checks.md §1 ("Common inputs").
 CHI = np.radians(37.48)                # checks.md common inputs: chi = 37.48 deg
@@ -267,7 +266,7 @@ def test_exact_boost_vs_first_order(part, speed):
         lam = boost_matrix(b[None])[0]
         exact = kappa_from_k(lam @ k @ lam.T)
         approx = first_order_boost(ke, w, ktr, b)
-        for got, ref, order in zip(exact, approx, NEGLECTED_ORDER[part]):
+        for got, ref, order in zip(exact, approx, NEGLECTED_ORDER[part], strict=True):
             # 3 x beta^order x coefficient: the neglected order (observed constants <= 2.6);
             # 1e-14 x coefficient covers float64 rounding where beta^order < 1e-14.
             bound = 3.0 * speed ** order * mag + 1e-14 * mag
@@ -280,7 +279,7 @@ def test_boost_matrix_is_lorentz_and_moves_with_beta():
     b[0] = 0.0
     b[1] = [0.6, 0.0, 0.0]
     lam = boost_matrix(b)
-    for lm, bv in zip(lam, b):
+    for lm, bv in zip(lam, b, strict=True):
         # Lambda^T eta Lambda = eta (exact in theory; 1e-15 float64 rounding)
         np.testing.assert_allclose(lm.T @ ETA_MINKOWSKI @ lm, ETA_MINKOWSKI, atol=1e-15)
         # a body moving with beta (4-velocity gamma (1, beta)) is at rest in the new frame
@@ -317,7 +316,7 @@ for _i, _j, _k in itertools.permutations(range(3)):
 
 
 def k_f_from_k(k):
-    """physics.md §1.4: (k_F)^{klmn} = 1/2 (eta^km k^ln - eta^kn k^lm - eta^lm k^kn + eta^ln k^km)."""
+    """physics.md §1.4: k_F^{klmn} = (eta^km k^ln - eta^kn k^lm - eta^lm k^kn + eta^ln k^km)/2."""
     e = ETA_MINKOWSKI
     return 0.5 * (np.einsum("km,ln->klmn", e, k) - np.einsum("kn,lm->klmn", e, k)
                   - np.einsum("lm,kn->klmn", e, k) + np.einsum("ln,km->klmn", e, k))
@@ -407,7 +406,7 @@ def test_effective_metric_round_trip_extended_precision():
         dirs /= np.linalg.norm(dirs, axis=-1, keepdims=True)
         prod = SME.path_shift(params, dirs, state)[0]
         k4 = k_tensor(params)
-        for d, got in zip(dirs[0], prod):
+        for d, got in zip(dirs[0], prod, strict=True):
             ref = mp_two_way_shift(k4, chi, phi, beta, d)
             # production is exact in beta and first order in k (~1e-16): the difference is
             # O(k^2) ~ 1e-32 plus float64 rounding of k' (~1e-16 x 1e-16); the boost terms being
