@@ -1,0 +1,449 @@
+"""Tables of a fit result: coefficients, C10 harmonics, correlations, earlier limits.
+
+Each ``*_table`` function turns plain numbers into a :class:`Table` (header and string cells,
+rounded by the Particle Data Group rule of :mod:`fringe.report.rounding`) in one text style;
+:func:`to_markdown`, :func:`to_latex` and :func:`to_html` render any table. Use
+``style="unicode"`` for Markdown and HTML, ``style="latex"`` for LaTeX.
+
+Intervals are Gaussian: 68 % = value +- 1 sigma, 95 % = value +- 1.96 sigma, both rounded to the
+decimal place the PDG rule chose for sigma and written in the value's power of ten. The "95 %
+bound" of a coefficient is max(|low|, |high|) of its 95 % interval = |value| + 1.96 sigma.
+"""
+
+from __future__ import annotations
+
+import html
+import math
+import re
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..errors import ConfigError
+from .rounding import STYLES, format_bound, format_interval, format_mantissas, pdg_place, pdg_round
+
+__all__ = ["Table", "Z68", "Z95", "bound95", "coefficient_label", "coefficient_table",
+           "comparison_table", "correlation_from_covariance", "correlation_table",
+           "cross_check_table", "harmonics_table", "latex_escape", "report_tables", "to_html",
+           "to_latex", "to_markdown", "value_table"]
+
+#: Half-widths of the Gaussian 68 % and 95 % intervals, in sigma (two-sided; 1.96 is the
+#: customary rounding of the 0.975 normal quantile 1.95996...).
+Z68 = 1.0
+Z95 = 1.96
+
+
+@dataclass(frozen=True)
+class Table:
+    """A rendered-ready table: header and rows of strings in one style.
+
+    Parameters
+    ----------
+    header : tuple of str
+    rows : tuple of tuple of str
+        Each row has ``len(header)`` cells.
+    caption : str
+        Caption (plain text, Unicode allowed; escaped by the LaTeX renderer).
+    label : str
+        LaTeX label (``tab:...``); empty for none.
+    style : str
+        The text style of the cells (``"unicode"`` or ``"latex"``).
+    """
+
+    header: tuple[str, ...]
+    rows: tuple[tuple[str, ...], ...]
+    caption: str = ""
+    label: str = ""
+    style: str = "unicode"
+
+    def __post_init__(self):
+        if self.style not in STYLES:
+            raise ConfigError(f"table: style: expected one of {STYLES}, got {self.style!r}")
+        for i, row in enumerate(self.rows):
+            if len(row) != len(self.header):
+                raise ConfigError(f"table: row {i}: expected {len(self.header)} cells, "
+                                  f"got {len(row)}")
+
+
+# ------------------------------------------------------------------------------ text helpers
+
+_LATEX_SPECIAL = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#",
+                  "_": r"\_", "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}",
+                  "^": r"\textasciicircum{}", "<": r"$<$", ">": r"$>$", "|": r"$|$"}
+_LATEX_UNICODE = {"±": r"$\pm$", "−": "-", "×": r"$\times$", "σ": r"$\sigma$",
+                  "χ": r"$\chi$", "²": r"$^2$", "θ": r"$\theta$", "φ": r"$\phi$",
+                  "ω": r"$\omega$", "α": r"$\alpha$", "β": r"$\beta$", "δ": r"$\delta$",
+                  "κ": r"$\kappa$", "Δ": r"$\Delta$", "≤": r"$\le$", "≥": r"$\ge$",
+                  "≈": r"$\approx$", "½": r"$\frac{1}{2}$", "°": r"$^\circ$", "µ": r"$\mu$",
+                  "–": "--", "—": "---", "’": "'", "“": "``", "”": "''", "…": r"\ldots{}",
+                  "\u0303": ""}
+
+
+def latex_escape(text: str) -> str:
+    """Plain (Unicode) text as LaTeX that compiles with pdflatex and no extra packages.
+
+    LaTeX specials are escaped, common physics symbols become math, any other non-ASCII
+    character becomes ``?``.
+    """
+    out = []
+    for ch in str(text):
+        if ch in _LATEX_SPECIAL:
+            out.append(_LATEX_SPECIAL[ch])
+        elif ch in _LATEX_UNICODE:
+            out.append(_LATEX_UNICODE[ch])
+        elif ord(ch) < 128:
+            out.append(ch)
+        else:
+            out.append("?")
+    return "".join(out)
+
+
+def _sup_latex(component: str) -> str:
+    return component.replace("XXmYY", "XX-YY")
+
+
+def coefficient_label(name: str, style: str = "unicode") -> str:
+    """Display label of a coefficient name: the name itself, or a LaTeX symbol.
+
+    ``ke_XY`` -> ``$\\tilde{\\kappa}_{e-}^{XY}$``, ``ko_XY`` -> ``$\\tilde{\\kappa}_{o+}^{XY}$``,
+    ``ktr`` -> ``$\\tilde{\\kappa}_{\\mathrm{tr}}$``, ``rms_mm`` -> ``$\\delta-\\beta+1/2$``, ...
+    (LaTeX style only; other styles return ``name``).
+    """
+    if style != "latex":
+        return name
+    m = re.fullmatch(r"(ke|ko|cq)_(XY|XZ|YZ|XXmYY|ZZ)", name)
+    if m:
+        base = {"ke": r"\tilde{\kappa}_{e-}", "ko": r"\tilde{\kappa}_{o+}",
+                "cq": r"c"}[m.group(1)]
+        return f"${base}^{{{_sup_latex(m.group(2))}}}$"
+    fixed = {"ktr": r"$\tilde{\kappa}_{\mathrm{tr}}$", "rms_mm": r"$\delta-\beta+\frac{1}{2}$",
+             "rms_kt": r"$\beta-\alpha-1$"}
+    if name in fixed:
+        return fixed[name]
+    m = re.fullmatch(r"sun_v([XYZ])_kms", name)
+    if m:
+        return f"$v_{m.group(1)}$"
+    return latex_escape(name)
+
+
+def _minus(text: str, style: str) -> str:
+    return text.replace("-", "−") if style == "unicode" else text
+
+
+def _signed2(x: float, style: str) -> str:
+    """Correlation coefficient with sign and two decimals (NaN -> 'n/a')."""
+    if not math.isfinite(x):
+        return "n/a"
+    text = f"{x:+.2f}"
+    if text in ("+0.00", "-0.00"):
+        text = "0.00"
+    text = _minus(text, style)
+    return f"${text}$" if style == "latex" else text
+
+
+def bound95(value: float, sigma: float) -> float:
+    """Absolute 95 % bound |value| + 1.96 sigma (the larger |end| of the 95 % interval)."""
+    return abs(float(value)) + Z95 * float(sigma)
+
+
+# --------------------------------------------------------------------------------- builders
+
+def _value_cells(value: float, sigma: float, style: str) -> tuple[str, str, str]:
+    """value ± 1σ, 68 % and 95 % intervals, rounded consistently."""
+    v_str, s_str, exp = pdg_round(value, sigma)
+    cell = format_mantissas(v_str, s_str, exp, style)
+    if sigma == 0:
+        return cell, "—" if style == "unicode" else "--", "—" if style == "unicode" else "--"
+    place, _ = pdg_place(sigma)
+    i68 = format_interval(value - Z68 * sigma, value + Z68 * sigma, place, exp, style)
+    i95 = format_interval(value - Z95 * sigma, value + Z95 * sigma, place, exp, style)
+    return cell, i68, i95
+
+
+def coefficient_table(coefficients: Mapping[str, Mapping[str, float]], *,
+                      style: str = "unicode", units: Mapping[str, str] | None = None,
+                      caption: str = "", label: str = "tab:coefficients") -> Table:
+    """Table of the free coefficients: value ± 1σ, 68 % and 95 % intervals.
+
+    Parameters
+    ----------
+    coefficients : mapping
+        ``{name: {"value": v, "sigma": s}}`` (the fit result's ``coefficients``), in table
+        order; units as given by ``units``.
+    style : {"unicode", "latex"}
+    units : mapping, optional
+        ``{name: unit}``; a unit column is added when any unit is not ``"1"``.
+    caption, label : str
+    """
+    units = dict(units or {})
+    with_units = any(units.get(n, "1") not in ("1", "") for n in coefficients)
+    if style == "latex":
+        header = ["coefficient", r"value $\pm\,1\sigma$", r"68\,\% interval",
+                  r"95\,\% interval"]
+    else:
+        header = ["coefficient", "value ± 1σ", "68 % interval", "95 % interval"]
+    if with_units:
+        header.append("unit")
+    rows = []
+    for name, entry in coefficients.items():
+        row = [coefficient_label(name, style),
+               *_value_cells(float(entry["value"]), float(entry["sigma"]), style)]
+        if with_units:
+            u = units.get(name, "1")
+            row.append(latex_escape(u) if style == "latex" else u)
+        rows.append(tuple(row))
+    return Table(tuple(header), tuple(rows), caption=caption, label=label, style=style)
+
+
+def harmonics_table(names: Sequence[str], values: Sequence[float], sigmas: Sequence[float], *,
+                    units: str, style: str = "unicode", caption: str = "",
+                    label: str = "tab:harmonics") -> Table:
+    """Table of the C10 harmonics: value ± 1σ and the ratio value/σ.
+
+    Parameters
+    ----------
+    names, values, sigmas : sequences of equal length
+        Harmonic names (C0, Cs1, ...), values and 1-sigma uncertainties, in ``units``.
+    units : str
+        Unit of the observable (``"Hz"``, ``"1"``, ``"fringe"``).
+    """
+    if not len(names) == len(values) == len(sigmas):
+        raise ConfigError("harmonics table: names, values, sigmas: expected equal lengths, got "
+                          f"{len(names)}, {len(values)}, {len(sigmas)}")
+    unit = latex_escape(units) if style == "latex" else units
+    if style == "latex":
+        header = ("harmonic", rf"value $\pm\,1\sigma$ [{unit}]", r"value/$\sigma$")
+    else:
+        header = ("harmonic", f"value ± 1σ [{unit}]", "value/σ")
+    rows = []
+    for n, v, s in zip(names, values, sigmas, strict=True):
+        v, s = float(v), float(s)
+        cell = format_mantissas(*pdg_round(v, s), style)
+        ratio = _minus(f"{v / s:+.1f}", style) if s > 0 else "—"
+        if style == "latex":
+            ratio = f"${ratio}$" if s > 0 else "--"
+        rows.append((latex_escape(n) if style == "latex" else n, cell, ratio))
+    return Table(header, tuple(rows), caption=caption, label=label, style=style)
+
+
+def correlation_from_covariance(covariance) -> np.ndarray:
+    """Correlation matrix rho_ij = C_ij / sqrt(C_ii C_jj) (NaN where a variance is <= 0)."""
+    c = np.asarray(covariance, dtype=float)
+    d = np.diag(c)
+    s = np.sqrt(np.where(d > 0, d, np.nan))
+    rho = c / np.outer(s, s)
+    np.fill_diagonal(rho, np.where(d > 0, 1.0, np.nan))
+    return rho
+
+
+def correlation_table(names: Sequence[str], covariance, *, style: str = "unicode",
+                      caption: str = "", label: str = "tab:correlation") -> Table:
+    """Correlation matrix of the free coefficients (two decimals, diagonal 1)."""
+    rho = correlation_from_covariance(covariance)
+    if rho.shape != (len(names), len(names)):
+        raise ConfigError(f"correlation table: covariance: expected shape "
+                          f"({len(names)}, {len(names)}), got {rho.shape}")
+    labels = [coefficient_label(n, style) for n in names]
+    rows = []
+    for i, n in enumerate(labels):
+        cells = ["1" if i == j and math.isfinite(rho[i, j]) else _signed2(rho[i, j], style)
+                 for j in range(len(names))]
+        rows.append((n, *cells))
+    return Table(("", *labels), tuple(rows), caption=caption, label=label, style=style)
+
+
+def comparison_table(ours: Mapping[str, Mapping[str, float]], earlier: Sequence[Mapping], *,
+                     style: str = "unicode", caption: str = "",
+                     label: str = "tab:comparison") -> Table:
+    """This work's coefficients beside user-supplied earlier results, with 95 % bounds.
+
+    Parameters
+    ----------
+    ours : mapping
+        ``{name: {"value": v, "sigma": s}}`` of this fit.
+    earlier : sequence of mapping
+        Rows ``{"name", "value", "sigma", "citation"}`` (a quoted bound |c| < L is entered as
+        value L, sigma 0).
+
+    The last column is the ratio earlier 95 % bound / this work's 95 % bound (the usual
+    "improvement factor"), for names this fit also determined.
+    """
+    dash = "—" if style == "unicode" else "--"
+    if style == "latex":
+        header = ("coefficient", r"value $\pm\,1\sigma$", r"95\,\% bound", "source",
+                  "earlier/this")
+    else:
+        header = ("coefficient", "value ± 1σ", "95 % bound", "source", "earlier/this")
+    names = list(ours) + [e["name"] for e in earlier if e["name"] not in ours]
+    names = list(dict.fromkeys(names))
+    rows = []
+    for name in names:
+        label_ = coefficient_label(name, style)
+        mine = ours.get(name)
+        if mine is not None:
+            v, s = float(mine["value"]), float(mine["sigma"])
+            rows.append((label_, format_mantissas(*pdg_round(v, s), style),
+                         format_bound(bound95(v, s), style), "this work", dash))
+        for e in earlier:
+            if e["name"] != name:
+                continue
+            v, s = float(e["value"]), float(e["sigma"])
+            b = bound95(v, s)
+            ratio = dash
+            if mine is not None and b > 0:
+                ratio = f"{b / bound95(mine['value'], mine['sigma']):.2g}"
+            cite = latex_escape(e["citation"]) if style == "latex" else e["citation"]
+            rows.append((label_, format_mantissas(*pdg_round(v, s), style),
+                         format_bound(b, style), cite, ratio))
+    return Table(header, tuple(rows), caption=caption, label=label, style=style)
+
+
+def value_table(entries: Mapping[str, Mapping[str, float]], *, first: str = "parameter",
+                style: str = "unicode", caption: str = "", label: str = "") -> Table:
+    """Two columns: name and value ± 1σ (PDG rounding), e.g. the fit's nuisance parameters."""
+    pm = r"value $\pm\,1\sigma$" if style == "latex" else "value ± 1σ"
+    rows = tuple((_esc_name(n, style), format_mantissas(*pdg_round(e["value"], e["sigma"]),
+                                                        style))
+                 for n, e in entries.items())
+    return Table((first, pm), rows, caption=caption, label=label, style=style)
+
+
+def cross_check_table(two_stage: Mapping[str, Mapping[str, float]],
+                      one_stage: Mapping[str, Mapping[str, float]], *, style: str = "unicode",
+                      caption: str = "", label: str = "tab:cross-check") -> Table:
+    """The fit's coefficients beside its one-stage cross-check, with the difference in units
+    of the larger of the two sigmas (names present in both)."""
+    if style == "latex":
+        header = ("coefficient", "two-stage", "one-stage", r"difference/$\sigma$")
+    else:
+        header = ("coefficient", "two-stage", "one-stage", "difference/σ")
+    rows = []
+    for n, a in two_stage.items():
+        b = one_stage.get(n)
+        if b is None:
+            continue
+        s = max(a["sigma"], b["sigma"])
+        diff = _minus(f"{(b['value'] - a['value']) / s:+.2f}", style) if s > 0 else "n/a"
+        if style == "latex" and s > 0:
+            diff = f"${diff}$"
+        rows.append((coefficient_label(n, style),
+                     format_mantissas(*pdg_round(a["value"], a["sigma"]), style),
+                     format_mantissas(*pdg_round(b["value"], b["sigma"]), style), diff))
+    return Table(header, tuple(rows), caption=caption, label=label, style=style)
+
+
+def _esc_name(name: str, style: str) -> str:
+    return latex_escape(name) if style == "latex" else name
+
+
+# -------------------------------------------------------------------------------- renderers
+
+def to_markdown(table: Table) -> str:
+    """GitHub-flavoured Markdown (caption, if any, as an italic line above)."""
+    def cell(text: str) -> str:
+        return text.replace("|", "\\|")
+
+    lines = []
+    if table.caption:
+        lines += [f"*{table.caption}*", ""]
+    lines.append("| " + " | ".join(cell(h) for h in table.header) + " |")
+    lines.append("|" + "|".join("---" for _ in table.header) + "|")
+    for row in table.rows:
+        lines.append("| " + " | ".join(cell(c) for c in row) + " |")
+    return "\n".join(lines) + "\n"
+
+
+def to_latex(table: Table) -> str:
+    """A plain ``tabular`` in a ``table`` float (no extra packages), caption and label.
+
+    The cells must already be LaTeX (build the table with ``style="latex"``); the caption is
+    escaped here.
+    """
+    if table.style != "latex":
+        raise ConfigError("table: style: expected 'latex' cells for the LaTeX renderer, got "
+                          f"{table.style!r}")
+    cols = "l" + "c" * (len(table.header) - 1)
+    lines = [r"\begin{table}[htbp]", r"\centering"]
+    if table.caption:
+        lines.append(rf"\caption{{{latex_escape(table.caption)}}}")
+    if table.label:
+        lines.append(rf"\label{{{table.label}}}")
+    lines += [rf"\begin{{tabular}}{{{cols}}}", r"\hline",
+              " & ".join(table.header) + r" \\", r"\hline"]
+    lines += [" & ".join(row) + r" \\" for row in table.rows]
+    lines += [r"\hline", r"\end{tabular}", r"\end{table}"]
+    return "\n".join(lines) + "\n"
+
+
+def to_html(table: Table) -> str:
+    """An HTML ``<table>`` (cells escaped; Unicode style expected)."""
+    e = html.escape
+    out = ["<table>"]
+    if table.caption:
+        out.append(f"<caption>{e(table.caption)}</caption>")
+    out.append("<thead><tr>" + "".join(f"<th>{e(h)}</th>" for h in table.header)
+               + "</tr></thead>")
+    out.append("<tbody>")
+    for row in table.rows:
+        out.append("<tr>" + "".join(f"<td>{e(c)}</td>" for c in row) + "</tr>")
+    out.append("</tbody></table>")
+    return "\n".join(out) + "\n"
+
+
+# ------------------------------------------------------------------------ a report's tables
+
+def _coefficient_units(theory: str) -> dict:
+    from ..theories import THEORIES
+
+    cls = THEORIES.get(theory)
+    return dict(cls.parameter_units) if cls is not None else {}
+
+
+def report_tables(fit: Mapping, comparison: Sequence[Mapping] = (), style: str = "unicode"
+                  ) -> dict[str, Table]:
+    """The tables of a report: ``coefficients`` always; ``harmonics``, ``correlation``,
+    ``nuisance``, ``cross_check`` and ``comparison`` when the fit (or the user's table) provides
+    them.
+
+    Parameters
+    ----------
+    fit : mapping
+        Validated fit result dict (``coefficients``, ``covariance``, optional ``harmonics``).
+    comparison : sequence of mapping
+        Earlier results ``{"name", "value", "sigma", "citation"}``.
+    style : {"unicode", "latex"}
+    """
+    out = {"coefficients": coefficient_table(
+        fit["coefficients"], style=style, units=_coefficient_units(fit["theory"]),
+        caption=f"Free coefficients of the {fit['theory']} fit: value ± 1σ (Particle Data Group "
+                "rounding) and Gaussian 68 % and 95 % intervals.")}
+    h = fit.get("harmonics")
+    if h:
+        chi = h.get("chi2_reduced")
+        out["harmonics"] = harmonics_table(
+            h["names"], h["value"], h["sigma"], units=h.get("units", fit["units"]),
+            style=style, caption="C10 harmonics (S = B sin 2θ + C cos 2θ, two-path "
+            "normalisation)" + (f"; reduced χ² = {chi:.3g}" if chi is not None else "") + ".")
+    cov = fit["covariance"]
+    if len(cov["names"]) >= 2:
+        out["correlation"] = correlation_table(cov["names"], cov["matrix"], style=style,
+                                               caption="Correlation matrix of the free "
+                                                       "coefficients.")
+    if fit.get("nuisance"):
+        out["nuisance"] = value_table(fit["nuisance"], style=style, label="tab:nuisance",
+                                      caption="Nuisance parameters fitted with the "
+                                              "coefficients (unit of the observable).")
+    one = (fit.get("one_stage") or {}).get("coefficients") or {}
+    if any(n in one for n in fit["coefficients"]):
+        out["cross_check"] = cross_check_table(
+            fit["coefficients"], one, style=style,
+            caption="Two-stage result beside the fit's one-stage cross-check (all samples "
+                    "fitted at once); difference in units of the larger σ.")
+    if comparison:
+        out["comparison"] = comparison_table(
+            fit["coefficients"], comparison, style=style,
+            caption="This work beside earlier results supplied by the user (citations as "
+                    "given, not checked; fringe bundles no reference values). earlier/this: "
+                    "ratio of the 95 % bounds.")
+    return out
