@@ -495,3 +495,58 @@ def _ar1_bank_avar(m, corner_times_tau0, var):
     g = np.expm1(-m * eps) / np.expm1(-eps)
     per = (m + 2.0 * tri - a * g**2) / m**2
     return (per * np.asarray(var)[None, :]).sum(axis=1)
+
+
+#: [noise] fields given as Allan-deviation levels -> PowerLawNoise.from_allan_deviation keyword.
+ADEV_FIELDS = {"white_pm_adev_1s": "white_pm_at_1s", "white_fm_adev_1s": "white_fm_at_1s",
+               "flicker_fm_adev": "flicker_fm_floor",
+               "random_walk_fm_adev_1s": "random_walk_fm_at_1s"}
+#: [noise] fields given as PSD coefficients of S_y (1/Hz convention, see fringe.noise).
+PSD_FIELDS = ("h2", "h0", "hm1", "hm2")
+
+def noise_from_section(section: dict | None, source: str = "scenario",
+                       sample_interval_s: float | None = None) -> PowerLawNoise:
+    """The ``[noise]`` section as a power-law model of fractional-frequency noise.
+
+    Either Allan-deviation levels (``white_fm_adev_1s``, ``flicker_fm_adev``,
+    ``random_walk_fm_adev_1s``, ``white_pm_adev_1s``; dimensionless) or the PSD coefficients
+    ``h2`` (Hz^-3), ``h0`` (Hz^-1), ``hm1`` (1), ``hm2`` (Hz) of S_y(f), not both; optional
+    ``f_h_hz`` (white-PM bandwidth, Hz; default 1 / (2 sample_interval_s)). The same fields as
+    ``fringe simulate`` reads. Conversion: :meth:`PowerLawNoise.from_allan_deviation`.
+
+    Raises
+    ------
+    ConfigError
+        One line naming ``source``, ``[noise]``, the field and what was expected.
+    """
+    where = f"{source}: [noise]"
+    if section is None:
+        raise ConfigError(f"{where}: section missing (a noise model is needed, e.g. "
+                          f"white_fm_adev_1s = 1e-15)")
+    if not isinstance(section, dict):
+        raise ConfigError(f"{where}: expected a table of noise levels")
+    known = set(ADEV_FIELDS) | set(PSD_FIELDS) | {"f_h_hz"}
+    for key in section:
+        if key not in known:
+            raise ConfigError(f"{where} {key}: unknown field (expected some of "
+                              f"{', '.join(sorted(known))})")
+    vals = {k: check_finite_number(v, where, k, minimum=0.0) for k, v in section.items()
+            if k != "f_h_hz"}
+    f_h = None
+    if "f_h_hz" in section:
+        f_h = check_finite_number(section["f_h_hz"], where, "f_h_hz", positive=True)
+    adev = {ADEV_FIELDS[k]: v for k, v in vals.items() if k in ADEV_FIELDS}
+    psd = {k: v for k, v in vals.items() if k in PSD_FIELDS}
+    if adev and psd:
+        raise ConfigError(f"{where}: give Allan-deviation levels ({', '.join(ADEV_FIELDS)}) or "
+                          f"PSD coefficients ({', '.join(PSD_FIELDS)}), not both")
+    if psd:
+        model = PowerLawNoise(f_h_hz=f_h, **psd)
+    else:
+        if adev.get("white_pm_at_1s", 0.0) > 0 and f_h is None and sample_interval_s is None:
+            raise ConfigError(f"{where} f_h_hz: white PM needs the measurement bandwidth, Hz")
+        model = PowerLawNoise.from_allan_deviation(f_h_hz=f_h,
+                                                   sample_interval_s=sample_interval_s, **adev)
+    if model.h2 == model.h0 == model.hm1 == model.hm2 == 0.0:
+        raise ConfigError(f"{where}: every noise level is zero (expected at least one > 0)")
+    return model

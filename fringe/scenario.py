@@ -10,7 +10,10 @@ here (``[noise]``, ``[systematics]``, ``[plan]``, ...) are kept verbatim in
 from __future__ import annotations
 
 import math
-import tomllib
+try:
+    import tomllib
+except ModuleNotFoundError:  # Python < 3.11
+    import tomli as tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 

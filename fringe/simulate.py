@@ -30,36 +30,17 @@ import numpy as np
 
 from . import __version__
 from .errors import ConfigError, check_finite_number
-from .noise import NoiseStream, PowerLawNoise
+from .noise import NoiseStream, PowerLawNoise, noise_from_section
 from .scenario import Scenario
 from .signal import CHUNK_SAMPLES, signal
 
-NOISE_ADEV_FIELDS = {"white_pm_adev_1s": "white_pm_at_1s", "white_fm_adev_1s": "white_fm_at_1s",
-                     "flicker_fm_adev": "flicker_fm_floor",
-                     "random_walk_fm_adev_1s": "random_walk_fm_at_1s"}
-NOISE_H_FIELDS = ("h2", "h0", "hm1", "hm2")
-
-
-def noise_model_from_section(section: dict, source: str, sample_interval_s: float
+def noise_model_from_section(section: dict | None, source: str, sample_interval_s: float
                              ) -> PowerLawNoise:
-    """The fractional-frequency noise model of a scenario's ``[noise]`` section."""
-    section = dict(section or {})
-    unknown = sorted(set(section) - set(NOISE_ADEV_FIELDS) - set(NOISE_H_FIELDS) - {"f_h_hz"})
-    if unknown:
-        raise ConfigError(f"{source}: [noise] {unknown[0]}: unknown field (expected "
-                          f"{', '.join(list(NOISE_ADEV_FIELDS) + list(NOISE_H_FIELDS))})")
-    adev = {v: check_finite_number(section[k], source, f"[noise] {k}", minimum=0.0)
-            for k, v in NOISE_ADEV_FIELDS.items() if k in section}
-    hs = {k: check_finite_number(section[k], source, f"[noise] {k}", minimum=0.0)
-          for k in NOISE_H_FIELDS if k in section}
-    if adev and hs:
-        raise ConfigError(f"{source}: [noise]: give Allan-deviation levels or h coefficients, "
-                          "not both")
-    f_h = section.get("f_h_hz")
-    if hs:
-        return PowerLawNoise(**hs, f_h_hz=f_h)
-    return PowerLawNoise.from_allan_deviation(**adev, f_h_hz=f_h,
-                                              sample_interval_s=sample_interval_s)
+    """The scenario's ``[noise]`` model (:func:`fringe.noise.noise_from_section`); no section,
+    or an empty one, means a noise-free record."""
+    if not section:
+        return PowerLawNoise()
+    return noise_from_section(section, source, sample_interval_s)
 
 
 @dataclass(frozen=True)

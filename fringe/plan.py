@@ -1,0 +1,791 @@
+"""Forecast bounds before taking data: the Fisher matrix of the per-turn 2 theta amplitudes.
+
+Which function for which job:
+
+* :func:`forecast` -- everything ``fringe plan`` reports for a scenario (with a ``[noise]``
+  section): the 1-sigma forecast of each free coefficient for the scenario's campaign, sigma
+  versus campaign length, the span from which ko_* decouple from ke_*, sigma versus rotation
+  period and (optionally) site latitude, and the days needed to reach target sigmas. Returns a
+  :class:`PlanResult`.
+* :func:`noise_from_section` -- the ``[noise]`` section as a :class:`~fringe.noise.PowerLawNoise`.
+* :func:`turn_amplitude_variance` -- variance of one turn's demodulated C (or B) amplitude.
+* :func:`monte_carlo_check` -- per-turn amplitudes simulated with the forecast noise and fitted
+  by least squares, many times; checks the Fisher algebra and the turn subsampling (not the
+  sample-level noise model).
+
+The model (docs/plan.md derives it). Turn i (duration T_R, mid-time t_i) gives amplitudes
+(C_i, B_i) = J_i p + nuisances + noise, J_i from :func:`fringe.signal.two_theta_amplitudes`.
+The noise of C_i and B_i is taken as independent, equal, and white from turn to turn, with
+
+    sigma_a^2 = k^2 S_y(f_0) / (d T_R),   f_0 = 2 / T_R,
+
+(one-sided S_y; k converts fractional frequency to the observable's units; d = 1 for
+continuous rotation, the dwell fraction for stepped rotation), so the Fisher matrix is
+F = sum_i (J_C,iᵀ J_C,i + J_B,iᵀ J_B,i) / sigma_a^2 and the forecast covariance is F^-1. For
+white FM this reproduces the sizing rule sigma_C = sqrt(h0 / T) (reference/checks.md §9).
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import warnings
+from collections.abc import Sequence
+from dataclasses import dataclass, field, replace
+from typing import TYPE_CHECKING
+
+import numpy as np
+from numpy.typing import NDArray
+
+from .constants import DAY_S, STELLAR_DAY_S
+from .errors import ConfigError, DegeneracyWarning, check_finite_number
+from .noise import ADEV_FIELDS, PSD_FIELDS, PowerLawNoise, noise_from_section  # noqa: F401
+from .schedule import SteppedRotation
+from .signal import two_theta_amplitudes
+from .theories import KE_NAMES, KO_NAMES
+
+if TYPE_CHECKING:
+    from .scenario import Scenario
+
+__all__ = ["PlanSettings", "PlanResult", "TargetAnswer", "MonteCarloCheck", "forecast",
+           "plan_scenario", "plan_settings", "noise_from_section", "noise_scale",
+           "turn_amplitude_variance", "monte_carlo_check", "NUISANCES"]
+
+_log = logging.getLogger(__name__)
+
+#: Nuisance columns (C row, B row) of the per-turn model: constant lab-fixed 2 theta offsets.
+NUISANCES: dict[str, tuple[float, float]] = {"lab_B0": (0.0, 1.0), "lab_C0": (1.0, 0.0)}
+#: Eigenvalues of the normalised Fisher matrix below this times the largest are null directions.
+RCOND = 1e-12
+#: Longest turn the per-turn model is used for, s (must be << a sidereal day).
+MAX_PERIOD_S = 3600.0
+
+
+def noise_scale(apparatus, units: str) -> float:
+    """Factor k from the ``[noise]`` levels to the observable's ``units`` (as ``fringe simulate``).
+
+    Cavity apparatus: the levels are fractional frequency, k = 1 for units "1" and
+    k = ``carrier_hz`` for Hz. Michelson ("fringe") and clock ("Hz") apparatus: k = 1, i.e. the
+    levels are read in the observable's own units (they have no carrier to scale by).
+    """
+    if apparatus.kind in ("michelson", "clock") or units not in ("Hz", "1"):
+        return 1.0
+    return float(apparatus.scale(units))
+
+
+def turn_amplitude_variance(noise: PowerLawNoise, period_s: float, duty: float = 1.0) -> float:
+    r"""Variance of one turn's least-squares 2 theta amplitude (C or B), fractional units.
+
+    .. math:: \sigma_a^2 = S_y(f_0) / (d\,T_R), \qquad f_0 = 2 / T_R
+
+    The whole-turn estimator C = (2/T_R) \int y cos 2 theta dt has the window W(f) with
+    \int_0^\infty |W|^2 df = 1/T_R, so Var C = \int_0^\infty S_y |W|^2 df = S_y(f_0) / T_R
+    when S_y is smooth near f_0 (exact for white FM: h0 / T_R). Offset, drift and 1 theta terms
+    of the per-turn fit are orthogonal to cos 2 theta over a whole turn and do not change it.
+
+    Parameters
+    ----------
+    noise : PowerLawNoise
+    period_s : float
+        Turn period T_R, s.
+    duty : float
+        Fraction of the turn whose samples are used (1 for continuous rotation; the dwell
+        fraction for stepped rotation, whose marks each average S_y(f_0) / (2 dwell)).
+
+    Returns
+    -------
+    float
+        sigma_a^2, dimensionless (fractional frequency squared).
+    """
+    period = check_finite_number(period_s, "plan", "period_s", positive=True)
+    d = check_finite_number(duty, "plan", "duty", positive=True, maximum=1.0)
+    return float(noise.psd(2.0 / period)) / (d * period)
+
+
+def _duty(motion, source: str) -> float:
+    if not isinstance(motion, SteppedRotation):
+        return 1.0
+    marks = 360.0 / motion.step_deg
+    k = round(marks)
+    if abs(marks - k) > 1e-9 or k < 3 or k == 4:
+        raise ConfigError(f"{source}: [turntable] step_deg: the plan needs marks that divide "
+                          f"the turn and resolve cos 2 theta and sin 2 theta (360/step an "
+                          f"integer >= 3, not 4), got {motion.step_deg!r}")
+    return motion.dwell_s / (motion.dwell_s + motion.move_s)
+
+
+# ----------------------------------------------------------------------------- settings
+
+@dataclass(frozen=True)
+class PlanSettings:
+    """What to forecast (the ``[plan]`` section, overridden by command-line options).
+
+    Parameters
+    ----------
+    free : tuple of str
+        Free coefficients.
+    nuisances : tuple of str
+        Nuisance terms fitted with them (keys of :data:`NUISANCES`; default lab_B0).
+    max_days : float
+        Longest campaign of the sigma-versus-days curve and of target searches, days.
+    n_days : int
+        Points of that curve (log-spaced from 1 day).
+    periods_s : tuple of float
+        Rotation periods of the sigma-versus-period curve, s (empty: 13 log-spaced from
+        T_R/10 to 10 T_R, clipped to [8 samples, 3600 s]).
+    latitudes_deg : tuple of float
+        Site latitudes for sigma versus latitude (empty: none).
+    decoupling_threshold : float
+        ko_* count as decoupled when the joint ke+ko sigma of every ke_* is within this
+        factor of its ke-only sigma (see docs/plan.md).
+    max_turn_points : int
+        Largest number of turns evaluated per grid; longer spans use every m-th turn, weighted m.
+    targets : dict
+        Coefficient -> target sigma (days needed are reported).
+    """
+
+    free: tuple[str, ...]
+    nuisances: tuple[str, ...] = ("lab_B0",)
+    max_days: float = 730.0
+    n_days: int = 25
+    periods_s: tuple[float, ...] = ()
+    latitudes_deg: tuple[float, ...] = ()
+    decoupling_threshold: float = 1.1
+    max_turn_points: int = 20000
+    targets: dict = field(default_factory=dict)
+
+    def __post_init__(self):
+        for n in self.nuisances:
+            if n not in NUISANCES:
+                raise ConfigError(f"plan: nuisances: unknown {n!r} (expected some of "
+                                  f"{', '.join(NUISANCES)})")
+        if "lab_C0" in self.nuisances and "ke_ZZ" in self.free:
+            raise ConfigError("plan: nuisances: lab_C0 (a constant C offset) is degenerate with "
+                              "ke_ZZ; drop lab_C0 or leave ke_ZZ out of free")
+        check_finite_number(self.max_days, "plan", "max_days", minimum=1.0)
+        check_finite_number(self.decoupling_threshold, "plan", "decoupling_threshold",
+                            minimum=1.0 + 1e-9)
+        for name, v, lo in (("n_days", self.n_days, 2), ("max_turn_points", self.max_turn_points,
+                                                           100)):
+            if isinstance(v, bool) or not isinstance(v, int) or v < lo:
+                raise ConfigError(f"plan: {name}: expected an integer >= {lo}, got {v!r}")
+        for p in self.periods_s:
+            check_finite_number(p, "plan", "periods_s", positive=True, maximum=MAX_PERIOD_S)
+        for lat in self.latitudes_deg:
+            check_finite_number(lat, "plan", "latitudes_deg", minimum=-90.0, maximum=90.0)
+        for k, v in self.targets.items():
+            if k not in self.free:
+                raise ConfigError(f"plan: target {k}: not a free coefficient (free: "
+                                  f"{', '.join(self.free)})")
+            check_finite_number(v, "plan", f"target {k}", positive=True)
+
+
+def _names(value, where: str) -> tuple[str, ...]:
+    if isinstance(value, str):
+        value = [s.strip() for s in value.split(",") if s.strip()]
+    if not isinstance(value, (list, tuple)) or not all(isinstance(s, str) for s in value):
+        raise ConfigError(f"{where}: expected a list of names")
+    return tuple(value)
+
+
+def plan_settings(scenario: Scenario, free: str | Sequence[str] | None = None,
+                  targets: dict[str, float] | None = None) -> PlanSettings:
+    """Settings from the scenario's ``[plan]`` section; ``free``/``targets`` override/add."""
+    where = f"{scenario.source}: [plan]"
+    sec = scenario.sections.get("plan", {})
+    if not isinstance(sec, dict):
+        raise ConfigError(f"{where}: expected a table")
+    sec = dict(sec)
+    theory = scenario.theory
+    if not theory.linear:
+        raise ConfigError(f"{scenario.source}: [theory] name: the plan needs a linear theory "
+                          f"(the Fisher forecast is for linear models), got {theory.name!r}")
+    where_free = "--free" if free is not None else f"{where} free"
+    if free is not None:
+        names = _names(free, where_free)
+        sec.pop("free", None)
+    elif "free" in sec:
+        names = _names(sec.pop("free"), where_free)
+    else:
+        names = {"sme": KE_NAMES, "rms": ("rms_mm",)}.get(theory.name, theory.parameter_names)
+    for n in names:
+        if n not in theory.parameter_names:
+            raise ConfigError(f"{where_free}: {n!r} is not a coefficient of theory "
+                              f"{theory.name!r} (expected some of "
+                              f"{', '.join(theory.parameter_names)})")
+    if not names or len(set(names)) != len(names):
+        raise ConfigError(f"{where_free}: expected distinct coefficient names")
+    tg = sec.pop("targets", {})
+    if not isinstance(tg, dict):
+        raise ConfigError(f"{where} targets: expected a table NAME = sigma")
+    tg = {**tg, **(targets or {})}
+    kw = {}
+    for key in ("max_days", "n_days", "decoupling_threshold", "max_turn_points"):
+        if key in sec:
+            kw[key] = sec.pop(key)
+    for key in ("nuisances",):
+        if key in sec:
+            kw[key] = _names(sec.pop(key), f"{where} {key}")
+    for key in ("periods_s", "latitudes_deg"):
+        if key in sec:
+            v = sec.pop(key)
+            if not isinstance(v, list):
+                raise ConfigError(f"{where} {key}: expected a list of numbers")
+            kw[key] = tuple(v)
+    if sec:
+        raise ConfigError(f"{where} {sorted(sec)[0]}: unknown field")
+    try:
+        return PlanSettings(free=tuple(names), targets=tg, **kw)
+    except ConfigError as exc:
+        msg = str(exc)
+        raise ConfigError(f"{where} {msg[6:] if msg.startswith('plan: ') else msg}") from None
+
+
+# ----------------------------------------------------------------------------- Fisher sums
+
+@dataclass(frozen=True)
+class _TurnSums:
+    """Cumulative unit-noise Fisher sums over turns, every ``stride``-th turn weighted stride.
+
+    Point j stands for turns [j stride, (j+1) stride) and is evaluated at their middle.
+    """
+
+    stride: int
+    outer: NDArray          # (M, k, k) per point, weight stride included
+    cum: NDArray            # (M + 1, k, k)
+
+    def fisher(self, n_turns: int) -> NDArray:
+        j, rem = divmod(int(n_turns), self.stride)
+        j = min(j, self.outer.shape[0])
+        f = self.cum[j].copy()
+        if rem and j < self.outer.shape[0]:
+            f += (rem / self.stride) * self.outer[j]
+        return f
+
+    @property
+    def n_turns(self) -> int:
+        return self.outer.shape[0] * self.stride
+
+
+def _turn_sums(setup, names, period_s, n_turns, max_points, stride=None) -> _TurnSums:
+    """Sums for turns 0 .. n_turns-1: every turn (stride 1) or every m-th, m set by
+    ``max_points`` but at most STELLAR_DAY_S / (32 T_R) (>= 32 points per sidereal day, so the
+    products of the up-to-2 phi harmonics are sampled well above their Nyquist rate)."""
+    if stride is None:
+        stride = max(1, min(math.ceil(n_turns / max_points),
+                            int(STELLAR_DAY_S // (32.0 * period_s))))
+    m = math.ceil(n_turns / stride)
+    t = (np.arange(m) * stride + 0.5 * stride) * period_s
+    c, b = two_theta_amplitudes(setup, t, [n for n in names if n not in NUISANCES])
+    cols_c, cols_b, j = [], [], 0
+    for n in names:
+        if n in NUISANCES:
+            cols_c.append(np.full(m, NUISANCES[n][0]))
+            cols_b.append(np.full(m, NUISANCES[n][1]))
+        else:
+            cols_c.append(c[:, j])
+            cols_b.append(b[:, j])
+            j += 1
+    jc, jb = np.stack(cols_c, 1), np.stack(cols_b, 1)
+    outer = stride * (np.einsum("ni,nj->nij", jc, jc) + np.einsum("ni,nj->nij", jb, jb))
+    cum = np.concatenate([np.zeros((1,) + outer.shape[1:]), np.cumsum(outer, axis=0)])
+    return _TurnSums(stride=stride, outer=outer, cum=cum)
+
+
+def _covariance(fisher: NDArray, idx: list[int]) -> NDArray:
+    """Covariance of the parameters ``idx`` (all fitted together); inf where unconstrained."""
+    f = fisher[np.ix_(idx, idx)]
+    d = np.sqrt(np.clip(np.diag(f), 0.0, None))
+    k = len(idx)
+    cov = np.full((k, k), np.nan)
+    ok = d > 0
+    if not ok.any():
+        np.fill_diagonal(cov, np.inf)
+        return cov
+    fn = f[np.ix_(ok, ok)] / np.outer(d[ok], d[ok])
+    w, v = np.linalg.eigh(fn)
+    good = w > RCOND * w.max()
+    sub = (v[:, good] / w[good]) @ v[:, good].T / np.outer(d[ok], d[ok])
+    loose = np.any(np.abs(v[:, ~good]) > 1e-6, axis=1)
+    io = np.flatnonzero(ok)
+    cov[np.ix_(io, io)] = sub
+    for i in list(io[loose]) + list(np.flatnonzero(~ok)):
+        cov[i, :] = cov[:, i] = np.nan
+        cov[i, i] = np.inf
+    return cov
+
+
+def _sigmas(fisher, idx):
+    return np.sqrt(np.diag(_covariance(fisher, idx)))
+
+
+# ----------------------------------------------------------------------------- forecast
+
+def _period_grid(period, tau0):
+    lo, hi = max(period / 10.0, 8.0 * tau0), min(10.0 * period, MAX_PERIOD_S)
+    if lo >= hi:
+        return (period,)
+    grid = np.geomspace(lo, hi, 13)
+    return tuple(sorted(set(np.round(grid, 6).tolist()) | {period}))
+
+
+def forecast(scenario: Scenario, free: str | Sequence[str] | None = None,
+             targets: dict[str, float] | None = None,
+             settings: PlanSettings | None = None) -> PlanResult:
+    """Forecast 1-sigma bounds for a scenario with a ``[noise]`` section (module docstring).
+
+    Parameters
+    ----------
+    scenario : Scenario
+    free : sequence of str or str, optional
+        Free coefficients (overrides ``[plan] free``; default the five ke_* for the SME).
+    targets : dict, optional
+        Coefficient -> target sigma (added to ``[plan.targets]``).
+    settings : PlanSettings, optional
+        Use these instead of reading ``[plan]``.
+
+    Returns
+    -------
+    PlanResult
+
+    Notes
+    -----
+    Cost: two evaluations of the per-turn amplitudes on at most ~``max_turn_points`` (or 32 per
+    sidereal day) instants each, plus one per requested latitude; a few seconds for two years.
+
+    References
+    ----------
+    Sizing rule sigma_C = sqrt(h0 / T): reference/checks.md §9 (derived, white FM). Fourier
+    model and which coefficients enter which amplitude: reference/physics.md §2.1-2.2.
+
+    Examples
+    --------
+    >>> res = forecast(load_scenario("examples/plan_cavity_pair.toml"))   # doctest: +SKIP
+    >>> res.sigma["ke_XY"], res.decoupling_days                             # doctest: +SKIP
+    """
+    st = settings or plan_settings(scenario, free, targets)
+    src = scenario.source
+    noise = noise_from_section(scenario.sections.get("noise"), src, scenario.sample_interval_s)
+    scale = noise_scale(scenario.apparatus, scenario.units)
+    period = float(scenario.motion.period_s)
+    if period > MAX_PERIOD_S or period < 8 * scenario.sample_interval_s:
+        raise ConfigError(f"{src}: [turntable] period: the plan's per-turn model needs "
+                          f"8 samples <= T_R <= {MAX_PERIOD_S:g} s, got {period:g} s")
+    duty = _duty(scenario.motion, src)
+    var_a = scale**2 * turn_amplitude_variance(noise, period, duty)
+    setup = scenario.setup()
+    sme = scenario.theory.name == "sme"
+    ke = tuple(n for n in KE_NAMES if not (n == "ke_ZZ" and "lab_C0" in st.nuisances))
+    names = list(st.free) + [n for n in (ke + KO_NAMES if sme else ()) if n not in st.free]
+    names += list(st.nuisances)
+    ix = {n: i for i, n in enumerate(names)}
+    camp_days = scenario.duration_s / DAY_S
+    top_days = max(st.max_days, camp_days)
+    n_top = int(top_days * DAY_S // period)
+    n_camp = int(scenario.duration_s // period)
+    if n_camp < 1:
+        raise ConfigError(f"{src}: [campaign] duration: shorter than one turn ({period:g} s)")
+    fine = _turn_sums(setup, names, period, min(n_top, st.max_turn_points), st.max_turn_points,
+                      stride=1)
+    coarse = fine if n_top <= fine.n_turns else _turn_sums(setup, names, period, n_top,
+                                                          st.max_turn_points)
+
+    def fisher(n):
+        return (fine if n <= fine.n_turns else coarse).fisher(n) / var_a
+
+    nuis = [ix[n] for n in st.nuisances]
+    free_idx = [ix[n] for n in st.free] + nuis
+    f_camp = fisher(n_camp)
+    cov = _covariance(f_camp, free_idx)[: len(st.free), : len(st.free)]
+    sig = np.sqrt(np.diag(cov))
+    if not np.all(np.isfinite(sig)):
+        warnings.warn(f"plan: no information on {', '.join(np.array(st.free)[~np.isfinite(sig)])}"
+                      f" in this campaign (sigma infinite)", DegeneracyWarning, stacklevel=2)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        corr = cov / np.outer(sig, sig)
+
+    days = np.geomspace(min(1.0, camp_days), top_days, st.n_days)
+    turns = np.maximum((days * DAY_S // period).astype(int), 1)
+    curve = np.array([_sigmas(fisher(n), free_idx)[: len(st.free)] for n in turns])
+    comp = {}
+    ratio = ()
+    dec_days = None
+    if sme:
+        ko_idx = [ix[n] for n in ke] + nuis
+        kk_idx = [ix[n] for n in ke + KO_NAMES] + nuis
+        a = np.array([_sigmas(fisher(n), ko_idx)[: len(ke)] for n in turns])
+        b = np.array([_sigmas(fisher(n), kk_idx)[: len(ke)] for n in turns])
+        comp = {"ke_only": {n: tuple(a[:, i]) for i, n in enumerate(ke)},
+                "ke_ko": {n: tuple(b[:, i]) for i, n in enumerate(ke)}}
+        r = np.max(b / a, axis=1)
+        ratio = tuple(r)
+        dec_days = _first_stay_below(days, r, st.decoupling_threshold)
+
+    periods = st.periods_s or _period_grid(period, scenario.sample_interval_s)
+    per = {}
+    for p in periods:
+        vp = scale**2 * turn_amplitude_variance(noise, p, duty)
+        factor = math.sqrt(vp / var_a * n_camp / max(int(scenario.duration_s // p), 1))
+        per[p] = factor
+    sig_per = {n: tuple(sig[i] * per[p] for p in periods) for i, n in enumerate(st.free)}
+
+    lat_sig = {}
+    if st.latitudes_deg:
+        rows = []
+        for lat in st.latitudes_deg:
+            s2 = replace(setup, site=replace(scenario.site, latitude_deg=float(lat)))
+            ts = _turn_sums(s2, names, period, n_camp, min(st.max_turn_points, 4000))
+            rows.append(_sigmas(ts.fisher(n_camp) / var_a, free_idx)[: len(st.free)])
+        lat_sig = {n: tuple(np.array(rows)[:, i]) for i, n in enumerate(st.free)}
+
+    answers = []
+    for name, value in st.targets.items():
+        i = st.free.index(name)
+        answers.append(TargetAnswer(name, float(value),
+                                    _days_to_reach(fisher, free_idx, i, value, n_top, period),
+                                    top_days))
+    _log.info("plan: %d turns, per-turn sigma %.3g %s", n_camp, math.sqrt(var_a), scenario.units)
+    return PlanResult(
+        title=scenario.title, source=src, theory=scenario.theory.name, units=scenario.units,
+        free=tuple(st.free), nuisances=tuple(st.nuisances), noise=noise.to_dict(),
+        noise_scale=scale, period_s=period, duty=duty, signal_frequency_hz=2.0 / period,
+        psd_at_signal=float(noise.psd(2.0 / period)), turn_sigma=math.sqrt(var_a),
+        start_utc=scenario.epoch.utc, campaign_days=camp_days, n_turns=n_camp,
+        sigma=dict(zip(st.free, sig.tolist(), strict=True)),
+        correlation=tuple(tuple(row) for row in corr.tolist()),
+        days=tuple(days.tolist()), sigma_vs_days={n: tuple(curve[:, i].tolist())
+                                                  for i, n in enumerate(st.free)},
+        comparison=comp, decoupling_ratio=tuple(float(x) for x in ratio),
+        decoupling_threshold=st.decoupling_threshold, decoupling_days=dec_days,
+        periods_s=tuple(float(p) for p in periods), sigma_vs_period=sig_per,
+        latitudes_deg=tuple(float(x) for x in st.latitudes_deg), sigma_vs_latitude=lat_sig,
+        targets=tuple(answers))
+
+
+#: The name ``fringe demo`` calls.
+plan_scenario = forecast
+
+
+def _first_stay_below(days, r, threshold):
+    """Smallest span (log-interpolated) from which r stays <= threshold on the grid."""
+    above = np.flatnonzero(~(r <= threshold))
+    if above.size == 0:
+        return float(days[0])
+    last = above[-1]
+    if last == days.size - 1:
+        return None
+    x0, x1 = math.log(days[last]), math.log(days[last + 1])
+    y0, y1 = math.log(r[last]) if np.isfinite(r[last]) else 50.0, math.log(r[last + 1])
+    frac = (y0 - math.log(threshold)) / (y0 - y1) if y0 != y1 else 1.0
+    return float(math.exp(x0 + min(max(frac, 0.0), 1.0) * (x1 - x0)))
+
+
+def _days_to_reach(fisher, idx, i, target, n_max, period):
+    """Days of turns after which sigma_i <= target (bisection on the turn count), or None."""
+    def sigma(n):
+        return _sigmas(fisher(n), idx)[i]
+
+    if not sigma(n_max) <= target:
+        return None
+    lo, hi = 0, n_max
+    while hi - lo > 1:
+        mid = (lo + hi) // 2
+        if sigma(max(mid, 1)) <= target:
+            hi = mid
+        else:
+            lo = mid
+    return hi * period / DAY_S
+
+
+# ----------------------------------------------------------------------------- Monte Carlo
+
+def monte_carlo_check(scenario: Scenario, n_campaigns: int, rng: np.random.Generator, *,
+                      free: str | Sequence[str] | None = None,
+                      settings: PlanSettings | None = None, duration_s: float | None = None,
+                      max_turns: int = 200_000, batch: int = 16) -> MonteCarloCheck:
+    """Fit simulated per-turn amplitudes ``n_campaigns`` times; compare scatter with forecast.
+
+    Every turn of the campaign is evaluated (no subsampling); (C_i, B_i) = J_i p + white noise
+    of the forecast per-turn variance, with p the scenario's values of the free coefficients
+    and zero nuisances, fitted by least squares. This checks the Fisher algebra, the turn
+    subsampling and the inversion; it does not test the per-turn noise model itself (that
+    needs sample-level simulation and demodulation).
+
+    Parameters
+    ----------
+    scenario : Scenario
+    n_campaigns : int
+        Number of simulated campaigns (>= 2).
+    rng : numpy.random.Generator
+    free : sequence of str, optional
+    settings : PlanSettings, optional
+    duration_s : float, optional
+        Campaign length, s (default the scenario's).
+    max_turns : int
+        Refuse campaigns with more turns than this (memory ~ 2 turns x coefficients doubles).
+    batch : int
+        Campaigns simulated at once.
+    """
+    if isinstance(n_campaigns, bool) or not isinstance(n_campaigns, int) or n_campaigns < 2:
+        raise ConfigError(f"monte carlo: n_campaigns: expected an integer >= 2, "
+                          f"got {n_campaigns!r}")
+    if duration_s is not None:
+        scenario = replace(scenario, duration_s=check_finite_number(
+            duration_s, "monte carlo", "duration_s", positive=True))
+    st = settings or plan_settings(scenario, free)
+    st = replace(st, targets={}, latitudes_deg=(), n_days=2,
+                 max_days=max(1.0, scenario.duration_s / DAY_S))
+    fc = forecast(scenario, settings=st)
+    n = fc.n_turns
+    if n > max_turns:
+        raise ConfigError(f"monte carlo: {n} turns exceed max_turns = {max_turns}")
+    t = (np.arange(n) + 0.5) * fc.period_s
+    c, b = two_theta_amplitudes(scenario.setup(), t, st.free)
+    extra_c = [np.full(n, NUISANCES[k][0]) for k in st.nuisances]
+    extra_b = [np.full(n, NUISANCES[k][1]) for k in st.nuisances]
+    a = np.concatenate([np.column_stack([c] + extra_c), np.column_stack([b] + extra_b)])
+    truth = np.array([scenario.coefficients.get(k, 0.0) for k in st.free]
+                     + [0.0] * len(st.nuisances))
+    colscale = np.sqrt(np.sum(a * a, axis=0))
+    q, r = np.linalg.qr(a / colscale)
+    y0 = a @ truth
+    est = []
+    for start in range(0, n_campaigns, batch):
+        m = min(batch, n_campaigns - start)
+        y = y0 + fc.turn_sigma * rng.standard_normal((m, a.shape[0]))
+        est.append(np.linalg.solve(r, (y @ q).T).T / colscale)
+    est = np.concatenate(est)[:, : len(st.free)]
+    k = len(st.free)
+    return MonteCarloCheck(names=tuple(st.free), truth=tuple(truth[:k].tolist()),
+                           sigma_forecast=tuple(fc.sigma[x] for x in st.free),
+                           sigma_scatter=tuple(np.std(est, axis=0, ddof=1).tolist()),
+                           mean_offset=tuple((est.mean(axis=0) - truth[:k]).tolist()),
+                           n_campaigns=n_campaigns, n_turns=n)
+
+
+# ----------------------------------------------------------------------------- results
+
+def _plain(x):
+    """Plain JSON: tuples to lists, non-finite floats to None."""
+    if isinstance(x, dict):
+        return {str(k): _plain(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_plain(v) for v in x]
+    if isinstance(x, float) and not math.isfinite(x):
+        return None
+    return x
+
+
+def _tup(values, none=math.inf):
+    return tuple(none if v is None else float(v) for v in values)
+
+
+def _fmt(x: float) -> str:
+    return "unconstrained" if not math.isfinite(x) else f"{x:.3g}"
+
+
+@dataclass(frozen=True)
+class TargetAnswer:
+    """Days of campaign (from the scenario's start) for sigma(name) to reach ``sigma_target``.
+
+    ``days`` is None when the target is not reached within ``horizon_days``.
+    """
+
+    name: str
+    sigma_target: float
+    days: float | None
+    horizon_days: float
+
+    def text(self) -> str:
+        if self.days is None:
+            return (f"{self.name}: sigma = {self.sigma_target:.3g} not reachable within "
+                    f"{self.horizon_days:.0f} d ({self.horizon_days / 365.25:.1f} yr)")
+        return f"{self.name}: sigma = {self.sigma_target:.3g} reached after {self.days:.3g} d"
+
+
+@dataclass(frozen=True)
+class PlanResult:
+    """The forecast of :func:`forecast`; fixed schema, plain-JSON round trip.
+
+    Attributes (units in the names or stated)
+    ----------
+    title, source, theory, units : str
+        Scenario title and file, theory name, observable units.
+    free, nuisances : tuple of str
+    noise : dict
+        The PowerLawNoise coefficients (h2 Hz^-3, h0 Hz^-1, hm1, hm2 Hz; f_h_hz).
+    noise_scale : float
+        Observable units per unit fractional frequency (k).
+    period_s, duty, signal_frequency_hz : float
+        Turn period T_R, fraction of the turn used, f_0 = 2 / T_R.
+    psd_at_signal : float
+        S_y(f_0), 1/Hz.
+    turn_sigma : float
+        Per-turn amplitude sigma_a, observable units.
+    start_utc : str
+    campaign_days : float
+    n_turns : int
+        Whole turns in the campaign.
+    sigma : dict
+        name -> 1-sigma forecast for the campaign (coefficient units; inf: unconstrained).
+    correlation : tuple of tuples
+        Correlation matrix of the free coefficients for the campaign (order of ``free``).
+    days : tuple of float
+        Campaign lengths of the sigma-versus-days curve, days.
+    sigma_vs_days : dict
+        name -> sigmas at ``days``.
+    comparison : dict
+        SME only: {"ke_only": {ke name: sigmas}, "ke_ko": {...}} at ``days`` (ke_* alone, and
+        ke_* with ko_* free), both with the nuisances.
+    decoupling_ratio : tuple of float
+        max over ke_* of sigma(ke+ko fit) / sigma(ke-only fit) at ``days`` (SME only).
+    decoupling_threshold : float
+    decoupling_days : float or None
+        Span from which that ratio stays <= the threshold (None: not within the curve).
+    periods_s : tuple of float
+    sigma_vs_period : dict
+        name -> sigma for the campaign at each rotation period.
+    latitudes_deg : tuple of float
+    sigma_vs_latitude : dict
+        name -> sigma for the campaign at each site latitude (empty when not asked for).
+    targets : tuple of TargetAnswer
+    """
+
+    title: str
+    source: str
+    theory: str
+    units: str
+    free: tuple
+    nuisances: tuple
+    noise: dict
+    noise_scale: float
+    period_s: float
+    duty: float
+    signal_frequency_hz: float
+    psd_at_signal: float
+    turn_sigma: float
+    start_utc: str
+    campaign_days: float
+    n_turns: int
+    sigma: dict
+    correlation: tuple
+    days: tuple
+    sigma_vs_days: dict
+    comparison: dict
+    decoupling_ratio: tuple
+    decoupling_threshold: float
+    decoupling_days: float | None
+    periods_s: tuple
+    sigma_vs_period: dict
+    latitudes_deg: tuple
+    sigma_vs_latitude: dict
+    targets: tuple
+
+    FORMAT = "plan"
+    VERSION = 1
+
+    def to_dict(self) -> dict:
+        """Plain JSON types (infinite sigmas and undefined correlations become null)."""
+        out = {"fringe_format": self.FORMAT, "fringe_format_version": self.VERSION}
+        for f in self.__dataclass_fields__:
+            v = getattr(self, f)
+            if f == "targets":
+                v = [{"name": a.name, "sigma_target": a.sigma_target, "days": a.days,
+                      "horizon_days": a.horizon_days} for a in v]
+            out[f] = _plain(v)
+        return out
+
+    @classmethod
+    def from_dict(cls, data: dict) -> PlanResult:
+        """Inverse of :meth:`to_dict`."""
+        if not isinstance(data, dict) or data.get("fringe_format") != cls.FORMAT:
+            raise ConfigError("plan result: expected a mapping with fringe_format = 'plan'")
+        d = {k: v for k, v in data.items() if k in cls.__dataclass_fields__}
+        missing = sorted(set(cls.__dataclass_fields__) - set(d))
+        if missing:
+            raise ConfigError(f"plan result: {missing[0]}: missing")
+
+        def curves(m):
+            return {k: _tup(v) for k, v in m.items()}
+
+        d["free"], d["nuisances"] = tuple(d["free"]), tuple(d["nuisances"])
+        d["sigma"] = {k: math.inf if v is None else float(v) for k, v in d["sigma"].items()}
+        d["correlation"] = tuple(_tup(row, math.nan) for row in d["correlation"])
+        for key in ("days", "decoupling_ratio", "periods_s", "latitudes_deg"):
+            d[key] = _tup(d[key])
+        for key in ("sigma_vs_days", "sigma_vs_period", "sigma_vs_latitude"):
+            d[key] = curves(d[key])
+        d["comparison"] = {k: curves(v) for k, v in d["comparison"].items()}
+        d["targets"] = tuple(TargetAnswer(**a) for a in d["targets"])
+        return cls(**d)
+
+    def __repr__(self) -> str:
+        best = min(self.sigma.values()) if self.sigma else math.nan
+        return (f"PlanResult(theory={self.theory!r}, free={list(self.free)}, "
+                f"campaign_days={self.campaign_days:.4g}, n_turns={self.n_turns}, "
+                f"best_sigma={best:.3g})")
+
+    def summary(self) -> str:
+        """Text for a person: the forecast, its curves and the answers to the targets."""
+        nz = {k: v for k, v in self.noise.items() if k != "f_h_hz" and v}
+        lines = [f"plan for {self.title or self.source}",
+                 f"theory {self.theory}; free: {' '.join(self.free)}; nuisances: "
+                 f"{' '.join(self.nuisances) or '(none)'}",
+                 "noise S_y(f): " + ", ".join(f"{k} = {v:.3g}" for k, v in nz.items())
+                 + f"; at f0 = 2/T_R = {self.signal_frequency_hz:.4g} Hz: "
+                 f"S_y = {self.psd_at_signal:.3g} /Hz",
+                 f"per-turn amplitude sigma: {self.turn_sigma:.3g} {self.units} "
+                 f"(T_R = {self.period_s:g} s, duty {self.duty:.3g})",
+                 f"campaign: {self.campaign_days:.4g} d from {self.start_utc}, "
+                 f"{self.n_turns} turns", "", "1-sigma forecast for the campaign:"]
+        lines += [f"  {k:<9} {_fmt(v)}" for k, v in self.sigma.items()]
+        lines += ["", "sigma versus campaign length:",
+                  "  days      " + " ".join(f"{n:>9}" for n in self.free)]
+        step = max(1, len(self.days) // 8)
+        for i in list(range(0, len(self.days), step))[:-1] + [len(self.days) - 1]:
+            lines.append(f"  {self.days[i]:<9.4g} " + " ".join(
+                f"{_fmt(self.sigma_vs_days[n][i]):>9}" for n in self.free))
+        if self.decoupling_ratio:
+            lines += ["", f"ko_*/ke_* decoupling (joint ke+ko sigma within "
+                      f"{self.decoupling_threshold:g}x of the ke-only sigma for every ke_*): "
+                      + (f"from {self.decoupling_days:.3g} d on" if self.decoupling_days
+                         else f"not within {self.days[-1]:.0f} d"),
+                      f"  ratio at {self.days[-1]:.0f} d: {self.decoupling_ratio[-1]:.3f}"]
+        lines += ["", "sigma versus rotation period (this campaign, this noise):",
+                  "  T_R [s]   " + " ".join(f"{n:>9}" for n in self.free)]
+        for i, p in enumerate(self.periods_s):
+            mark = " <" if abs(p - self.period_s) < 1e-9 * p else ""
+            lines.append(f"  {p:<9.4g} " + " ".join(
+                f"{_fmt(self.sigma_vs_period[n][i]):>9}" for n in self.free) + mark)
+        if self.latitudes_deg:
+            lines += ["", "sigma versus site latitude:",
+                      "  lat [deg] " + " ".join(f"{n:>9}" for n in self.free)]
+            for i, lat in enumerate(self.latitudes_deg):
+                lines.append(f"  {lat:<9.4g} " + " ".join(
+                    f"{_fmt(self.sigma_vs_latitude[n][i]):>9}" for n in self.free))
+        if self.targets:
+            lines += ["", "targets:"] + [f"  {a.text()}" for a in self.targets]
+        lines += ["", "approximations: per-turn amplitudes white across turns with the noise "
+                  "PSD at f0; statistical noise only (no systematics)."]
+        return "\n".join(lines)
+
+
+@dataclass(frozen=True)
+class MonteCarloCheck:
+    """Outcome of :func:`monte_carlo_check` (per-turn-amplitude Monte Carlo)."""
+
+    names: tuple
+    truth: tuple
+    sigma_forecast: tuple
+    sigma_scatter: tuple
+    mean_offset: tuple
+    n_campaigns: int
+    n_turns: int
+    method: str = ("per-turn amplitudes with white noise of the forecast variance, fitted by "
+                   "least squares (checks the Fisher algebra, not the sample-level noise model)")
+
+    def summary(self) -> str:
+        rows = [f"  {n:<9} {f:.4g}  {s:.4g}  {s / f:.3f}" for n, f, s in
+                zip(self.names, self.sigma_forecast, self.sigma_scatter, strict=True)]
+        return "\n".join([f"Monte Carlo check: {self.n_campaigns} campaigns of {self.n_turns} "
+                          f"turns; {self.method}", "  name      forecast  scatter  ratio"] + rows)
