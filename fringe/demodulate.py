@@ -12,6 +12,13 @@ chunk are solved in one pass: per-sample products are summed per block (``np.add
 into normal matrices and the batch is solved with ``np.linalg.solve``; no Python loop runs over
 blocks. Auxiliary channels are demodulated with the same design.
 
+Each block also records the (C, B) response of the fit to the slowly varying unit columns
+tau^j cos 2 theta, tau^j sin 2 theta (j = 1 ... LEAK_ORDER) and tau^j (drift order < j <=
+LEAK_ORDER) (``TurnTable.leak``, :func:`leak_terms`). Stage 3 uses them to model the per-turn
+amplitudes of a signal that changes during the turn (sidereal and orbital motion) exactly,
+instead of freezing it at the turn's mean time (which errs by about P_turn / P_sidereal of the
+signal, see :func:`fringe.fit.turn_model`).
+
 Rejection rules, counted in :class:`TurnTable`:
 
 * **partial**: fewer than ``min_samples`` valid samples, an angular gap (largest gap in
@@ -34,6 +41,9 @@ from numpy.typing import NDArray
 from .errors import ConfigError, FitError
 
 DRIFT_TERMS = {"offset": 1, "linear": 2, "quadratic": 3}
+
+#: Highest power of tau whose leakage into (C, B) is recorded per block (TurnTable.leak).
+LEAK_ORDER = 3
 
 
 @dataclass(frozen=True)
@@ -110,6 +120,7 @@ class TurnTable:
     angle_gap_deg : largest angular gap
     status : 0 accepted, 1 partial, 2 glitch
     aux : dict name -> (n_blocks, p) coefficients of auxiliary channels
+    leak : (n_blocks, 2, q) fitted (C, B) of the unit columns of :func:`leak_terms`, or None
     """
 
     t_mid_s: NDArray
@@ -123,6 +134,7 @@ class TurnTable:
     status: NDArray
     settings: DemodSettings
     aux: dict = field(default_factory=dict)
+    leak: NDArray | None = None
 
     ACCEPTED, PARTIAL, GLITCH = 0, 1, 2
 
@@ -159,9 +171,11 @@ class TurnTable:
         if not tables:
             raise FitError("demodulation: no complete turn found in the record")
         kw = {f.name: np.concatenate([getattr(t, f.name) for t in tables])
-              for f in fields(TurnTable) if f.name not in ("settings", "aux")}
+              for f in fields(TurnTable) if f.name not in ("settings", "aux", "leak")}
         aux = {k: np.concatenate([t.aux[k] for t in tables]) for k in tables[0].aux}
-        return TurnTable(settings=settings, aux=aux, **kw)
+        leak = (np.concatenate([t.leak for t in tables])
+                if all(t.leak is not None for t in tables) else None)
+        return TurnTable(settings=settings, aux=aux, leak=leak, **kw)
 
     def apply_glitch_rule(self) -> None:
         """Mark glitched blocks (module docstring rule) among the non-partial ones."""
@@ -173,6 +187,20 @@ class TurnTable:
         mad = 1.4826 * np.median(np.abs(r - med))
         limit = med + self.settings.glitch_threshold * max(mad, 1e-12 * med)
         self.status[good & (self.residual_rms > limit)] = self.GLITCH
+
+
+def leak_terms(settings: DemodSettings) -> tuple[tuple[str, int], ...]:
+    """The unit columns of ``TurnTable.leak``, in order.
+
+    ("C", j) is tau^j cos 2 theta, ("B", j) is tau^j sin 2 theta (j = 1 ... LEAK_ORDER) and
+    ("A", j) is tau^j for the powers above the drift polynomial (up to LEAK_ORDER); tau is the
+    block's normalised time (module docstring). Lower powers are in the block model, whose
+    (C, B) responses are exactly 1 (cos 2 theta -> C, sin 2 theta -> B) or 0.
+    """
+    nd = DRIFT_TERMS[settings.drift]
+    return (tuple(("C", j) for j in range(1, LEAK_ORDER + 1))
+            + tuple(("B", j) for j in range(1, LEAK_ORDER + 1))
+            + tuple(("A", j) for j in range(nd, LEAK_ORDER + 1)))
 
 
 def turn_boundaries(theta_rad: NDArray, theta0_rad: float, t_s: NDArray, max_gap_s: float,
@@ -260,7 +288,11 @@ def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_star
     for name in aux_names:
         rhs_list.append(np.add.reduceat(x * np.where(valid, aux[name], 0.0)[:, None], starts,
                                         axis=0))
-    rhs = np.stack(rhs_list, axis=2)                                  # (nb, p, 1 + n_aux)
+    unit = {"C": cols[nd + 2], "B": cols[nd + 3], "A": 1.0}
+    tpow = {1: tau, 2: tau * tau, 3: tau * tau * tau}
+    for kind, j in leak_terms(settings):
+        rhs_list.append(np.add.reduceat(x * (unit[kind] * tpow[j])[:, None], starts, axis=0))
+    rhs = np.stack(rhs_list, axis=2)                          # (nb, p, 1 + n_aux + n_leak)
 
     # angular coverage: largest gap of theta mod 2 pi among valid samples of each block
     psi = np.mod(theta, 2 * np.pi)
@@ -302,7 +334,9 @@ def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_star
     status = np.where(ok, TurnTable.ACCEPTED, TurnTable.PARTIAL).astype(np.int8)
     aux_out = {name: np.where(ok[:, None], sol[:, :, 1 + j], np.nan)
                for j, name in enumerate(aux_names)}
+    leak = sol[:, [ic, isn], 1 + len(aux_names):]
+    leak = np.where(ok[:, None, None], leak, np.nan)
     return TurnTable(t_mid_s=t_mid, t_start_s=np.where(vcount > 0, t_lo, np.nan),
                      t_stop_s=np.where(vcount > 0, t_hi, np.nan), n_valid=vcount.astype(np.int64),
                      coef=coef, ninv_2=ninv_2, residual_rms=rms, angle_gap_deg=gap_deg,
-                     status=status, settings=settings, aux=aux_out)
+                     status=status, settings=settings, aux=aux_out, leak=leak)

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .demodulate import DemodSettings, TurnTable, demodulate_blocks, turn_boundaries
+from .demodulate import DemodSettings, TurnTable, demodulate_blocks, leak_terms, turn_boundaries
 from .errors import ConfigError, FitError
 from .io.runfile import open_run
 
@@ -128,7 +128,8 @@ def _empty(settings: DemodSettings, info: RecordInfo) -> TurnTable:
     return TurnTable(t_mid_s=z, t_start_s=z, t_stop_s=z, n_valid=np.zeros(0, np.int64),
                      coef=np.zeros((0, p)), ninv_2=np.zeros((0, 2, 2)), residual_rms=z,
                      angle_gap_deg=z, status=np.zeros(0, np.int8), settings=settings,
-                     aux={c: np.zeros((0, p)) for c in info.aux_channels})
+                     aux={c: np.zeros((0, p)) for c in info.aux_channels},
+                     leak=np.zeros((0, 2, len(leak_terms(settings)))))
 
 
 def ranges(n_samples: int, range_samples: int = RANGE_SAMPLES) -> list[tuple[int, int]]:

@@ -6,7 +6,8 @@
   warning naming a lab-fixed 2 theta systematic.
 * Stage 3 (:func:`fit_coefficients`): weighted least squares of the same amplitudes against the
   per-turn 2 theta content of each free coefficient's basis signal, evaluated with the ephemeris
-  velocity at each turn (:func:`fringe.signal.two_theta_amplitudes`), plus nuisances: a constant
+  velocity and modelled as stage 1 measures it over the turn (:func:`turn_model`: the model's
+  change within the turn times the block fit's response to it), plus nuisances: a constant
   B offset (lab-fixed 2 theta systematic, on by default), optionally a constant C offset (only
   when ke_ZZ is not free: the two are degenerate) and regressions on the 2 theta amplitudes of
   auxiliary channels. The classical medium (nonlinear) is fitted with lmfit.
@@ -20,6 +21,7 @@ sigma for this record (per-sample noise = median per-turn residual RMS) / report
 from __future__ import annotations
 
 import logging
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -102,17 +104,10 @@ def default_free(setup: Setup, span_days: float) -> tuple[str, ...]:
     return setup.theory.parameter_names
 
 
-def turn_model(setup: Setup, t_s: NDArray, names: tuple[str, ...] | None = None,
-               params: dict | None = None) -> tuple[NDArray, NDArray, NDArray]:
-    """Non-rotating mean A, and 2 theta amplitudes C, B of the model at instants t_s.
-
-    For linear theories (``params`` None) each is (n, k) per unit coefficient; with ``params``
-    each is (n,) for the total signal (any theory). Evaluated on N_ANGLES table angles per
-    instant with the frames frozen at the instant.
-    """
+def _frozen_model(setup: Setup, t: NDArray, names, params) -> tuple[NDArray, NDArray, NDArray]:
+    """A, C, B of the model with frames frozen at each instant (each (n, k))."""
     from .frames import FrameState
 
-    t = np.atleast_1d(np.asarray(t_s, float))
     theta = 2.0 * np.pi * np.arange(N_ANGLES) / N_ANGLES
     state = setup.frames(t)
     rep = np.repeat(np.arange(t.size), N_ANGLES)
@@ -124,7 +119,67 @@ def turn_model(setup: Setup, t_s: NDArray, names: tuple[str, ...] | None = None,
         g = signal(setup, params, t[rep], az, state=st).reshape(t.size, N_ANGLES, 1)
     c = (2.0 / N_ANGLES) * np.einsum("nak,a->nk", g, np.cos(2 * theta))
     b = (2.0 / N_ANGLES) * np.einsum("nak,a->nk", g, np.sin(2 * theta))
-    a = g.mean(axis=1)
+    return g.mean(axis=1), c, b
+
+
+#: Step of the time grid on which turn_model interpolates the model's change within a turn, s.
+WITHIN_TURN_GRID_S = 120.0
+
+
+def _within_turn_terms(setup: Setup, t: NDArray, half: NDArray, names, params) -> list:
+    """tau^j coefficients (j = 1 ... LEAK_ORDER) of the frozen model's A, C, B at each turn.
+
+    From a cubic spline of the frozen model on a regular grid (step WITHIN_TURN_GRID_S, a
+    margin of four steps beyond the turns): the model changes on sidereal time scales (>= 12 h),
+    so the spline's derivatives err by ~(2 pi x 120 s / 12 h)^3 / 24 = 2e-7 relative, and the
+    terms themselves are ~1e-3 of the signal.
+    """
+    from scipy.interpolate import CubicSpline
+
+    from .demodulate import LEAK_ORDER
+
+    step = WITHIN_TURN_GRID_S
+    lo, hi = float(np.min(t) - np.max(half)) - 4 * step, float(np.max(t) + np.max(half)) + 4 * step
+    grid = np.linspace(lo, hi, max(int(np.ceil((hi - lo) / step)) + 1, 8))
+    out = []
+    for vals in _frozen_model(setup, grid, names, params):
+        spline = CubicSpline(grid, vals, axis=0)
+        out.append({j: spline(t, nu=j) * (half ** j / math.factorial(j))[:, None]
+                    for j in range(1, LEAK_ORDER + 1)})
+    return out
+
+
+def turn_model(setup: Setup, t_s: NDArray, names: tuple[str, ...] | None = None,
+               params: dict | None = None, *, table: TurnTable | None = None,
+               sel: NDArray | None = None) -> tuple[NDArray, NDArray, NDArray]:
+    """Non-rotating mean A, and 2 theta amplitudes C, B of the model for turns at t_s.
+
+    For linear theories (``params`` None) each is (n, k) per unit coefficient; with ``params``
+    each is (n,) for the total signal (any theory). At an instant the model's 2 theta content
+    comes from N_ANGLES table angles with the frames frozen at that instant.
+
+    Without ``table`` this is that content at t_s itself. With the stage-1 ``table`` (and
+    ``sel``, the boolean selection of its rows whose mean times t_s are), it is what stage 1
+    measures for the turn: the change of A, C and B within the turn, expanded in the turn's
+    normalised time tau to tau^LEAK_ORDER (t = t_mid + tau x half span;
+    :func:`_within_turn_terms`), times the block fit's response to each tau^j term
+    (``table.leak``), is added. Freezing the model at t_mid instead errs by about
+    (P_turn / P_sidereal) x the signal (the within-turn change of C leaks into B and back).
+    """
+    t = np.atleast_1d(np.asarray(t_s, float))
+    a, c, b = _frozen_model(setup, t, names, params)
+    if table is not None and table.leak is not None and t.size:
+        from .demodulate import leak_terms
+
+        rows = np.arange(table.n_blocks) if sel is None else np.flatnonzero(sel)
+        half = np.maximum(0.5 * (table.t_stop_s[rows] - table.t_start_s[rows]), 1e-9)
+        terms = _within_turn_terms(setup, t, half, names, params)
+        leak = table.leak[rows]
+        src = {"A": 0, "C": 1, "B": 2}
+        for q, (kind, j) in enumerate(leak_terms(table.settings)):
+            term = terms[src[kind]][j]
+            c = c + leak[:, 0, q, None] * term
+            b = b + leak[:, 1, q, None] * term
     if params is not None:
         return a[:, 0], c[:, 0], b[:, 0]
     return a, c, b
@@ -208,7 +263,7 @@ class CoefficientFit:
 
 def _design(setup, t, names, table, sel, settings):
     """Columns (jc, jb) for free coefficients and nuisances; and their labels."""
-    a, jc, jb = turn_model(setup, t, names)
+    a, jc, jb = turn_model(setup, t, names, table=table, sel=sel)
     labels = list(names)
     extra_c, extra_b = [], []
     if settings.lab_b0:
@@ -241,7 +296,7 @@ def fit_coefficients(setup: Setup, table: TurnTable, settings: FitSettings,
     c, b = table.C[sel].copy(), table.B[sel].copy()
     cov_i = table.formal_cov()[sel]
     if settings.fixed:
-        _, fc, fb = turn_model(setup, t, params=settings.fixed)
+        _, fc, fb = turn_model(setup, t, params=settings.fixed, table=table, sel=sel)
         c, b = c - fc, b - fb
     w = _whiten(cov_i)
     jc, jb, labels = _design(setup, t, free, table, sel, settings)
@@ -300,7 +355,7 @@ def fit_medium(setup: Setup, table: TurnTable, settings: FitSettings) -> Coeffic
 
     def model(p):
         vals = {n: p[n].value for n in MEDIUM_NAMES}
-        _, mc, mb = turn_model(setup, t, params=vals)
+        _, mc, mb = turn_model(setup, t, params=vals, table=table, sel=sel)
         if off:
             mb = mb + p["lab_B0"].value
         return mc, mb
