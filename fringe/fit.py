@@ -139,12 +139,14 @@ WITHIN_TURN_GRID_S = 120.0
 
 
 def _within_turn_terms(setup: Setup, t: NDArray, half: NDArray, names, params) -> list:
-    """tau^j coefficients (j = 1 ... LEAK_ORDER) of the frozen model's A, C, B at each turn.
+    """tau^j coefficients (j = 0 ... LEAK_ORDER) of the frozen model's A, C, B at each turn.
 
     From a cubic spline of the frozen model on a regular grid (step WITHIN_TURN_GRID_S, a
     margin of four steps beyond the turns): the model changes on sidereal time scales (>= 12 h),
-    so the spline's derivatives err by ~(2 pi x 120 s / 12 h)^3 / 24 = 2e-7 relative, and the
-    terms themselves are ~1e-3 of the signal.
+    so the spline's derivatives err by ~(2 pi x 120 s / 12 h)^3 / 24 = 2e-7 relative (the
+    terms themselves are ~1e-3 of the signal) and its values (j = 0) by
+    ~(2 pi x 120 s / 12 h)^4 / 384 = 2.4e-10 relative. Evaluating the model on the grid instead
+    of at every turn costs the same for any turn period (a year: 2.6e5 grid instants).
     """
     from scipy.interpolate import CubicSpline
 
@@ -157,7 +159,7 @@ def _within_turn_terms(setup: Setup, t: NDArray, half: NDArray, names, params) -
     for vals in _frozen_model(setup, grid, names, params):
         spline = CubicSpline(grid, vals, axis=0)
         out.append({j: spline(t, nu=j) * (half ** j / math.factorial(j))[:, None]
-                    for j in range(1, LEAK_ORDER + 1)})
+                    for j in range(0, LEAK_ORDER + 1)})
     return out
 
 
@@ -179,19 +181,21 @@ def turn_model(setup: Setup, t_s: NDArray, names: tuple[str, ...] | None = None,
     (P_turn / P_sidereal) x the signal (the within-turn change of C leaks into B and back).
     """
     t = np.atleast_1d(np.asarray(t_s, float))
-    a, c, b = _frozen_model(setup, t, names, params)
     if table is not None and table.leak is not None and t.size:
         from .demodulate import leak_terms
 
         rows = np.arange(table.n_blocks) if sel is None else np.flatnonzero(sel)
         half = np.maximum(0.5 * (table.t_stop_s[rows] - table.t_start_s[rows]), 1e-9)
         terms = _within_turn_terms(setup, t, half, names, params)
+        a, c, b = terms[0][0], terms[1][0], terms[2][0]
         leak = table.leak[rows]
         src = {"A": 0, "C": 1, "B": 2}
         for q, (kind, j) in enumerate(leak_terms(table.settings)):
             term = terms[src[kind]][j]
             c = c + leak[:, 0, q, None] * term
             b = b + leak[:, 1, q, None] * term
+    else:
+        a, c, b = _frozen_model(setup, t, names, params)
     if params is not None:
         return a[:, 0], c[:, 0], b[:, 0]
     return a, c, b
