@@ -142,6 +142,9 @@ class PlanSettings:
         Largest number of turns evaluated per grid; longer spans use every m-th turn, weighted m.
     targets : dict
         Coefficient -> target sigma (days needed are reported).
+    drift : {"offset", "linear", "quadratic"}
+        Per-turn drift model of the fit being forecast (default the fit's default, linear);
+        sets the per-turn (C, B) covariance shape (:func:`turn_shape_matrix`).
     """
 
     free: tuple[str, ...]
@@ -153,8 +156,14 @@ class PlanSettings:
     decoupling_threshold: float = 1.1
     max_turn_points: int = 20000
     targets: dict = field(default_factory=dict)
+    drift: str = "linear"
 
     def __post_init__(self):
+        from .demodulate import DRIFT_TERMS
+
+        if self.drift not in DRIFT_TERMS:
+            raise ConfigError(f"plan: drift: expected one of {', '.join(DRIFT_TERMS)}, "
+                              f"got {self.drift!r}")
         for n in self.nuisances:
             if n not in NUISANCES:
                 raise ConfigError(f"plan: nuisances: unknown {n!r} (expected some of "
@@ -220,7 +229,7 @@ def plan_settings(scenario: Scenario, free: str | Sequence[str] | None = None,
         raise ConfigError(f"{where} targets: expected a table NAME = sigma")
     tg = {**tg, **(targets or {})}
     kw = {}
-    for key in ("max_days", "n_days", "decoupling_threshold", "max_turn_points"):
+    for key in ("max_days", "n_days", "decoupling_threshold", "max_turn_points", "drift"):
         if key in sec:
             kw[key] = sec.pop(key)
     for key in ("nuisances",):
@@ -267,7 +276,31 @@ class _TurnSums:
         return self.outer.shape[0] * self.stride
 
 
-def _turn_sums(setup, names, period_s, n_turns, max_points, stride=None) -> _TurnSums:
+def turn_shape_matrix(scenario, drift: str = "linear") -> NDArray:
+    """Inflation F (2x2) of the per-turn (C, B) covariance by the stage-1 nuisance terms.
+
+    The covariance of one turn's (C, B) is sigma_a^2 F, with F = (n/2) (Xᵀ X)^-1 restricted to
+    (C, B), X the default stage-1 design (offset, linear drift, 1 theta, 2 theta; see
+    :class:`fringe.demodulate.DemodSettings`) on the turn's n samples, starting at the scenario's
+    start azimuth. F = 1 for an ideal whole-turn projection; the linear drift term correlates
+    with whichever 2 theta component is odd about the turn's middle (up to ~1.6x in variance).
+    Exact for white noise; used as the shape for coloured noise too (an approximation).
+    Stepped rotation: the identity (the dwell-mark averages are handled by the duty factor).
+    """
+    from .demodulate import DemodSettings, demodulate_blocks
+
+    motion = scenario.motion
+    if isinstance(motion, SteppedRotation):
+        return np.eye(2)
+    n = max(int(round(motion.period_s / scenario.sample_interval_s)), 8)
+    t = np.arange(n) * scenario.sample_interval_s
+    az = motion.azimuth_rad(t)
+    table = demodulate_blocks(t, az, np.zeros(n), np.array([0]), DemodSettings(drift=drift))
+    return 0.5 * n * table.ninv_2[0]
+
+
+def _turn_sums(setup, names, period_s, n_turns, max_points, stride=None,
+               shape_inv=None) -> _TurnSums:
     """Sums for turns 0 .. n_turns-1: every turn (stride 1) or every m-th, m set by
     ``max_points`` but at most STELLAR_DAY_S / (32 T_R) (>= 32 points per sidereal day, so the
     products of the up-to-2 phi harmonics are sampled well above their Nyquist rate)."""
@@ -287,7 +320,10 @@ def _turn_sums(setup, names, period_s, n_turns, max_points, stride=None) -> _Tur
             cols_b.append(b[:, j])
             j += 1
     jc, jb = np.stack(cols_c, 1), np.stack(cols_b, 1)
-    outer = stride * (np.einsum("ni,nj->nij", jc, jc) + np.einsum("ni,nj->nij", jb, jb))
+    g = np.eye(2) if shape_inv is None else shape_inv
+    cc, cb = np.einsum("ni,nj->nij", jc, jc), np.einsum("ni,nj->nij", jc, jb)
+    outer = stride * (g[0, 0] * cc + g[1, 1] * np.einsum("ni,nj->nij", jb, jb)
+                      + g[0, 1] * (cb + np.swapaxes(cb, 1, 2)))
     cum = np.concatenate([np.zeros((1,) + outer.shape[1:]), np.cumsum(outer, axis=0)])
     return _TurnSums(stride=stride, outer=outer, cum=cum)
 
@@ -385,10 +421,11 @@ def forecast(scenario: Scenario, free: str | Sequence[str] | None = None,
     n_camp = int(scenario.duration_s // period)
     if n_camp < 1:
         raise ConfigError(f"{src}: [campaign] duration: shorter than one turn ({period:g} s)")
+    g = np.linalg.inv(turn_shape_matrix(scenario, st.drift))
     fine = _turn_sums(setup, names, period, min(n_top, st.max_turn_points), st.max_turn_points,
-                      stride=1)
+                      stride=1, shape_inv=g)
     coarse = fine if n_top <= fine.n_turns else _turn_sums(setup, names, period, n_top,
-                                                          st.max_turn_points)
+                                                          st.max_turn_points, shape_inv=g)
 
     def fisher(n):
         return (fine if n <= fine.n_turns else coarse).fisher(n) / var_a
@@ -434,7 +471,8 @@ def forecast(scenario: Scenario, free: str | Sequence[str] | None = None,
         rows = []
         for lat in st.latitudes_deg:
             s2 = replace(setup, site=replace(scenario.site, latitude_deg=float(lat)))
-            ts = _turn_sums(s2, names, period, n_camp, min(st.max_turn_points, 4000))
+            ts = _turn_sums(s2, names, period, n_camp, min(st.max_turn_points, 4000),
+                            shape_inv=g)
             rows.append(_sigmas(ts.fisher(n_camp) / var_a, free_idx)[: len(st.free)])
         lat_sig = {n: tuple(np.array(rows)[:, i]) for i, n in enumerate(st.free)}
 
