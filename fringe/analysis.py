@@ -13,7 +13,7 @@ import platform
 import numpy as np
 
 from . import __version__
-from .apparatus import make_apparatus
+from .apparatus import APPARATUS_KINDS, make_apparatus
 from .demodulate import DemodSettings
 from .engine import run_stage1
 from .errors import ConfigError
@@ -26,8 +26,6 @@ from .theories import make_theory
 
 logger = logging.getLogger(__name__)
 
-#: Apparatus attributes that the run format allows but the apparatus classes do not take.
-_RUN_ONLY_ATTRS = ()
 
 
 def software_versions() -> dict:
@@ -46,7 +44,12 @@ def setup_from_run(path: str, theory: str, dut1_s: float = 0.0) -> tuple[Setup, 
         meta = run.to_dict()
         site = run.site
         attrs = dict(run.apparatus)
-    apparatus = make_apparatus({k: v for k, v in attrs.items() if k not in _RUN_ONLY_ATTRS},
+    cls = APPARATUS_KINDS.get(attrs.get("kind"))
+    fields = {f for f, d in cls.__dataclass_fields__.items() if d.init} if cls else set()
+    ignored = sorted(set(attrs) - fields - {"kind"})
+    if ignored:      # the run format passes other labs' extra attributes through
+        logger.info("%s: apparatus attributes not used by the model: %s", path, ignored)
+    apparatus = make_apparatus({k: v for k, v in attrs.items() if k in fields or k == "kind"},
                                source=f"{path}: apparatus")
     setup = Setup(site=site, epoch=Epoch(meta["epoch_utc"], dut1_s), apparatus=apparatus,
                   theory=make_theory(theory), units=meta["signal_units"])

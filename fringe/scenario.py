@@ -215,6 +215,9 @@ def scenario_from_dict(doc: dict, source: str = "scenario") -> Scenario:
     apparatus = _wrap(source, "apparatus", make_apparatus, app_spec, "apparatus")
     units = units or apparatus.default_units
     _wrap(source, "apparatus", apparatus.check_units, units)
+    if apparatus.kind in ("cavity-pair", "cavity-vs-reference") and not apparatus.carrier_hz:
+        raise ConfigError(f"{source}: [apparatus] carrier_hz: missing; cavity kinds need the "
+                          "carrier frequency in Hz (> 0), which run files record")
 
     tt = _table(doc, "turntable", source)
     tilt = _wrap(source, "turntable", AxisTilt,

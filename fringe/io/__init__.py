@@ -3,11 +3,29 @@
 * :func:`open_run` reads and validates a run file; :class:`RunWriter` writes one atomically.
 * :func:`import_csv` turns a CSV table plus metadata (TOML or keywords) into a run file.
 
-The run-file format is specified in ``docs/run-format.md``.
+The run-file format is specified in ``docs/run-format.md``. The names below are loaded on first
+use, so importing a light submodule (e.g. ``fringe.io.atomic``) does not import h5py.
 """
 
-from .csvimport import CsvImportSummary, import_csv, read_import_metadata
-from .runfile import APPARATUS_KINDS, FORMAT_VERSION, RunFile, RunWriter, open_run, sha256
+from __future__ import annotations
 
-__all__ = ["APPARATUS_KINDS", "FORMAT_VERSION", "CsvImportSummary", "RunFile", "RunWriter",
-           "import_csv", "open_run", "read_import_metadata", "sha256"]
+import importlib
+
+_EXPORTS = {
+    "APPARATUS_KINDS": "runfile", "FORMAT_VERSION": "runfile", "RunFile": "runfile",
+    "RunWriter": "runfile", "open_run": "runfile", "sha256": "runfile",
+    "CsvImportSummary": "csvimport", "import_csv": "csvimport",
+    "read_import_metadata": "csvimport",
+}
+
+__all__ = sorted(_EXPORTS)
+
+
+def __getattr__(name: str):
+    if name in _EXPORTS:
+        return getattr(importlib.import_module(f".{_EXPORTS[name]}", __name__), name)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_EXPORTS))

@@ -41,6 +41,9 @@ def write_atomic(path: str | os.PathLike, writer: Callable[[str], None], *,
     out = check_output_path(path, overwrite=overwrite, protect=protect)
     fd, tmp = tempfile.mkstemp(prefix=f".{out.name}.", suffix=".part", dir=out.parent)
     os.close(fd)
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)          # the mode an ordinary open() would give
     try:
         writer(tmp)
         os.replace(tmp, out)

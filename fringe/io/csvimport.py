@@ -52,6 +52,7 @@ __all__ = ["TIME_FORMATS", "CsvImportSummary", "import_csv", "read_import_metada
 TIME_FORMATS = ("s", "iso8601")
 _SECTIONS = ("epoch_utc", "site", "apparatus", "columns", "units", "csv")
 _ISO_HINT = "an ISO 8601 UTC time like '2027-02-03T00:00:00Z'"
+ZERO = datetime.timedelta(0)
 
 
 @dataclass(frozen=True)
@@ -89,6 +90,8 @@ def _table(value, err, name: str) -> dict:
 def _check_section(name: str, value, err):
     """Validate one metadata section on its own; cross-checks come after merging."""
     if name == "epoch_utc":
+        if isinstance(value, datetime.datetime) and value.utcoffset() in (None, ZERO):
+            value = value.replace(tzinfo=None).isoformat()  # an unquoted TOML date-time, UTC
         return check_epoch_utc(value, err, "epoch_utc", strict=False)
     if name == "site":
         return value if isinstance(value, Site) else check_site(_table(value, err, name), err)
@@ -228,9 +231,10 @@ class _Table:
                 row = next(self.reader)
             except StopIteration:
                 return
-            except UnicodeDecodeError:
-                raise InputFileError(self.path, f"line {self.reader.line_num + 1}",
-                                     "expected UTF-8 text") from None
+            except UnicodeDecodeError:  # text is decoded in blocks: the line is a lower bound
+                raise InputFileError(self.path, "file", f"expected UTF-8 text, got bytes that "
+                                     f"are not UTF-8 at or after line "
+                                     f"{self.reader.line_num + 1}") from None
             except csv.Error as exc:
                 raise InputFileError(self.path, f"line {self.reader.line_num}",
                                      f"expected valid CSV ({exc})") from None
@@ -390,7 +394,8 @@ def import_csv(csv_path: str | os.PathLike, out_path: str | os.PathLike, *,
     chunk_samples, compression
         Passed to :class:`~fringe.io.runfile.RunWriter`.
     progress : callable, optional
-        Called as ``progress(bytes_read, bytes_total)`` after each block.
+        Called as ``progress(rows_imported, bytes_read)`` after each block (the CSV's size,
+        ``os.path.getsize(csv_path)``, is the final ``bytes_read``).
 
     Returns
     -------
@@ -406,7 +411,6 @@ def import_csv(csv_path: str | os.PathLike, out_path: str | os.PathLike, *,
     _check_output_path(out_path, overwrite, protect)
     if not os.path.isfile(csv_path):
         raise InputFileError(csv_path, "file", "expected an existing file")
-    total = os.path.getsize(csv_path)
     epoch = meta.get("epoch_utc")
     writer, prev, first, e_parts = None, None, None, None
 
@@ -452,7 +456,7 @@ def import_csv(csv_path: str | os.PathLike, out_path: str | os.PathLike, *,
                     writer.__enter__()
                 writer.append(t_s, az, sig, **aux)
                 if progress is not None:
-                    progress(table.raw.count, total)
+                    progress(writer.n_samples, table.raw.count)
             if writer is None:
                 raise InputFileError(csv_path, "data", "expected at least one data row after "
                                      "the header, got none")

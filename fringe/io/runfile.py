@@ -21,7 +21,7 @@ import logging
 import math
 import os
 import re
-import tempfile
+import secrets
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass
 
@@ -71,6 +71,8 @@ def plain(value):
     """An HDF5/TOML attribute value as a plain Python value (arrays stay numpy arrays)."""
     if isinstance(value, np.ndarray) and value.ndim == 0:
         value = value[()]
+    if isinstance(value, np.ndarray) and value.dtype.kind == "S":  # fixed-length strings
+        return np.char.decode(value, "utf-8")
     if isinstance(value, np.generic):
         value = value.item()
     if isinstance(value, bytes):
@@ -93,6 +95,7 @@ def show(value) -> str:
 
 
 def to_string(value) -> str:
+    """The value as a str, or :class:`Invalid`."""
     v = plain(value)
     if not isinstance(v, str):
         raise Invalid(f"expected a string, got {show(value)}")
@@ -100,6 +103,7 @@ def to_string(value) -> str:
 
 
 def to_number(value) -> float:
+    """The value as a finite float (bools and strings refused), or :class:`Invalid`."""
     v = plain(value)
     if isinstance(v, bool) or not isinstance(v, (int, float)):
         raise Invalid(f"expected a number, got {show(value)}")
@@ -292,7 +296,8 @@ def _first(mask: NDArray[np.bool_]) -> int:
 
 def check_time_values(t_s: NDArray, start: int, prev_s: float | None,
                       obj: str = "samples/time") -> float | None:
-    """Finite and strictly increasing (also across the previous chunk); returns the last time."""
+    """Times t_s (s) must be finite and strictly increasing, also after ``prev_s`` (the last
+    time of the previous chunk); ``start`` is the index of ``t_s[0]``. Returns the last time."""
     bad = ~np.isfinite(t_s)
     if bad.any():
         i = _first(bad)
@@ -317,6 +322,7 @@ def _order_error(value: float, before: float, index: int, obj: str):
 
 
 def check_azimuth_values(azimuth: NDArray, start: int, obj: str = "samples/azimuth") -> None:
+    """Azimuth (any angle unit) must be finite; ``start`` is the index of ``azimuth[0]``."""
     bad = ~np.isfinite(azimuth)
     if bad.any():
         i = _first(bad)
@@ -325,6 +331,7 @@ def check_azimuth_values(azimuth: NDArray, start: int, obj: str = "samples/azimu
 
 
 def check_signal_values(signal: NDArray, start: int, obj: str = "samples/signal") -> None:
+    """Signal values must be finite or NaN (a dropped sample); ±inf is refused."""
     bad = np.isinf(signal)
     if bad.any():
         i = _first(bad)
@@ -464,9 +471,11 @@ class RunFile:
 
     @contextlib.contextmanager
     def _guard(self):
+        """Turn HDF5 read failures into one-line errors (h5py raises OSError, or KeyError when
+        an object header is damaged; only h5py calls run inside this guard)."""
         try:
             yield
-        except (OSError, RuntimeError) as exc:
+        except (OSError, RuntimeError, KeyError) as exc:
             logger.debug("HDF5 error reading %s: %s", self.path, exc)
             raise InputFileError(self.path, "file", _CORRUPT) from exc
 
@@ -720,18 +729,39 @@ def _check_output_path(path: str, overwrite: bool, protect: Sequence) -> None:
         raise OutputError(f"{path}: the output file exists (overwriting was not requested)")
 
 
+def _fixed_strings(values) -> np.ndarray:
+    """UTF-8 strings as fixed-length HDF5 strings: stored inside the (checksummed) object
+    header, not in the global heap, where damage can make the HDF5 library loop forever."""
+    encoded = np.asarray(np.char.encode(np.asarray(values, dtype=str), "utf-8"))
+    return encoded.astype(h5py.string_dtype("utf-8", max(1, encoded.dtype.itemsize)))
+
+
 def _attr_value(value, err, obj: str):
     """A value h5py can store as an attribute or small dataset, or ``err``."""
-    if isinstance(value, (str, bool, int, float, np.generic)):
+    if isinstance(value, str):
+        return _fixed_strings(value)
+    if isinstance(value, (bool, int, float, np.generic)):
         return value
     if isinstance(value, (list, tuple, np.ndarray)):
         arr = np.asarray(value)
         if arr.dtype.kind == "U":
-            return np.array(arr.tolist(), dtype=h5py.string_dtype())
+            return _fixed_strings(arr)
         if arr.dtype.kind in "biuf":
             return arr
     raise err(obj, f"expected a string, number, boolean or numeric array, got "
               f"{type(value).__name__}")
+
+
+def _create_temp(directory: str, name: str) -> str:
+    """Create an empty temporary file beside the output (mode from the umask, like any file)."""
+    for _ in range(100):
+        tmp = os.path.join(directory, f".{name}.{secrets.token_hex(6)}.tmp")
+        try:
+            os.close(os.open(tmp, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o666))
+            return tmp
+        except FileExistsError:
+            continue
+    raise OutputError(f"{os.path.join(directory, name)}: cannot create a temporary file")
 
 
 class RunWriter:
@@ -826,18 +856,16 @@ class RunWriter:
 
     def __enter__(self) -> RunWriter:
         directory = os.path.dirname(os.path.realpath(self.path))
-        fd, self._tmp = tempfile.mkstemp(prefix=f".{os.path.basename(self.path)}.",
-                                         suffix=".tmp", dir=directory)
-        os.close(fd)
+        self._tmp = _create_temp(directory, os.path.basename(self.path))
         try:
-            self._file = f = h5py.File(self._tmp, "w")
-            f.attrs["fringe_format"] = FORMAT_NAME
+            self._file = f = h5py.File(self._tmp, "w", libver=("v108", "latest"))
+            f.attrs["fringe_format"] = _fixed_strings(FORMAT_NAME)
             f.attrs["fringe_format_version"] = np.int64(FORMAT_VERSION)
-            f.attrs["written_by"] = f"fringe {__version__}"
+            f.attrs["written_by"] = _fixed_strings(f"fringe {__version__}")
             site = f.create_group("site")
             for key, value in self.site.to_dict().items():
                 if key != "name" or value:
-                    site.attrs[key] = value
+                    site.attrs[key] = _attr_value(value, self._config_err, f"site.{key}")
             app = f.create_group("apparatus")
             for key, value in self.apparatus.items():
                 app.attrs[key] = _attr_value(value, self._config_err, f"apparatus.{key}")
@@ -847,8 +875,8 @@ class RunWriter:
             for name, unit in units.items():
                 ds = samples.create_dataset(name, shape=(0,), maxshape=(None,), dtype="f8",
                                             chunks=(self._chunk,), compression=self._compression)
-                ds.attrs["units"] = unit
-            samples["time"].attrs["epoch_utc"] = self.epoch_utc
+                ds.attrs["units"] = _fixed_strings(unit)
+            samples["time"].attrs["epoch_utc"] = _fixed_strings(self.epoch_utc)
         except BaseException:
             self.abort()
             raise
