@@ -122,6 +122,8 @@ def _frozen_model_batch(setup, t, names, params):
 
     theta = 2.0 * np.pi * np.arange(N_ANGLES) / N_ANGLES
     state = setup.frames(t)
+    if params is None:
+        return _projected_basis(setup, state, theta, names)
     rep = np.repeat(np.arange(t.size), N_ANGLES)
     st = FrameState(state.phi_rad[rep], state.colatitude_rad, state.beta[rep])
     az = np.tile(np.pi - theta, t.size)
@@ -134,33 +136,68 @@ def _frozen_model_batch(setup, t, names, params):
     return g.mean(axis=1), c, b
 
 
+def _projected_basis(setup, state, theta, names):
+    """A, C, B per unit coefficient by projecting the apparatus tensor, not the signals.
+
+    The basis is linear in the apparatus's combined lab tensor W(theta) (fringe.signal), so the
+    cos 2 theta / sin 2 theta projections of the basis are the basis of the projected tensors
+    W_C = (2/N) sum_a cos 2 theta_a W(theta_a), W_B likewise, and A of the mean tensor: three
+    contractions per instant instead of N_ANGLES, with the frames evaluated once per instant.
+    """
+    from .signal import _combined_tensor
+
+    n = len(state)
+    az = np.pi - theta
+    w = np.stack([_combined_tensor(setup.apparatus, setup.units, np.full(n, a), setup.tilt)[0]
+                  for a in az], axis=1)                                # (n, N, 3, 3)
+    _, w_iso = _combined_tensor(setup.apparatus, setup.units, az[:1], setup.tilt)
+    cos2, sin2 = np.cos(2 * theta), np.sin(2 * theta)
+    w_a = w.mean(axis=1)
+    w_c = (2.0 / theta.size) * np.einsum("nakl,a->nkl", w, cos2)
+    w_b = (2.0 / theta.size) * np.einsum("nakl,a->nkl", w, sin2)
+    project = setup.theory.project
+    return (project(state, w_a, w_iso, names), project(state, w_c, 0.0, names),
+            project(state, w_b, 0.0, names))
+
+
 #: Step of the time grid on which turn_model interpolates the model's change within a turn, s.
 WITHIN_TURN_GRID_S = 120.0
 
 
-def _within_turn_terms(setup: Setup, t: NDArray, half: NDArray, names, params) -> list:
-    """tau^j coefficients (j = 0 ... LEAK_ORDER) of the frozen model's A, C, B at each turn.
+#: Turns per batch when evaluating the per-turn model (bounds the transient memory).
+TURN_BATCH = 65536
 
-    From a cubic spline of the frozen model on a regular grid (step WITHIN_TURN_GRID_S, a
-    margin of four steps beyond the turns): the model changes on sidereal time scales (>= 12 h),
-    so the spline's derivatives err by ~(2 pi x 120 s / 12 h)^3 / 24 = 2e-7 relative (the
-    terms themselves are ~1e-3 of the signal) and its values (j = 0) by
-    ~(2 pi x 120 s / 12 h)^4 / 384 = 2.4e-10 relative. Evaluating the model on the grid instead
-    of at every turn costs the same for any turn period (a year: 2.6e5 grid instants).
+
+def _model_splines(setup: Setup, t: NDArray, half: NDArray, names, params) -> list:
+    """Cubic splines of the frozen model's A, C, B on a regular grid around the turns.
+
+    Grid step WITHIN_TURN_GRID_S with a margin of four steps: the model changes on sidereal
+    time scales (>= 12 h), so the splines' derivatives err by ~(2 pi x 120 s / 12 h)^3 / 24 =
+    2e-7 relative (the within-turn terms themselves are ~1e-3 of the signal) and their values by
+    ~(2 pi x 120 s / 12 h)^4 / 384 = 2.4e-10 relative. The grid costs the same for any turn
+    period (a year: 2.6e5 grid instants).
     """
     from scipy.interpolate import CubicSpline
-
-    from .demodulate import LEAK_ORDER
 
     step = WITHIN_TURN_GRID_S
     lo, hi = float(np.min(t) - np.max(half)) - 4 * step, float(np.max(t) + np.max(half)) + 4 * step
     grid = np.linspace(lo, hi, max(int(np.ceil((hi - lo) / step)) + 1, 8))
-    out = []
-    for vals in _frozen_model(setup, grid, names, params):
-        spline = CubicSpline(grid, vals, axis=0)
-        out.append({j: spline(t, nu=j) * (half ** j / math.factorial(j))[:, None]
-                    for j in range(0, LEAK_ORDER + 1)})
-    return out
+    return [CubicSpline(grid, vals, axis=0) for vals in _frozen_model(setup, grid, names, params)]
+
+
+def _measured_model(splines, t, half, leak, settings):
+    """What stage 1 measures for turns (t, half span, leak responses): A, C, B (n, k)."""
+    from .demodulate import LEAK_ORDER, leak_terms
+
+    terms = [{j: sp(t, nu=j) * (half ** j / math.factorial(j))[:, None]
+              for j in range(LEAK_ORDER + 1)} for sp in splines]
+    a, c, b = terms[0][0], terms[1][0].copy(), terms[2][0].copy()
+    src = {"A": 0, "C": 1, "B": 2}
+    for q, (kind, j) in enumerate(leak_terms(settings)):
+        term = terms[src[kind]][j]
+        c += leak[:, 0, q, None] * term
+        b += leak[:, 1, q, None] * term
+    return a, c, b
 
 
 def turn_model(setup: Setup, t_s: NDArray, names: tuple[str, ...] | None = None,
@@ -175,25 +212,21 @@ def turn_model(setup: Setup, t_s: NDArray, names: tuple[str, ...] | None = None,
     Without ``table`` this is that content at t_s itself. With the stage-1 ``table`` (and
     ``sel``, the boolean selection of its rows whose mean times t_s are), it is what stage 1
     measures for the turn: the change of A, C and B within the turn, expanded in the turn's
-    normalised time tau to tau^LEAK_ORDER (t = t_mid + tau x half span;
-    :func:`_within_turn_terms`), times the block fit's response to each tau^j term
+    normalised time tau to tau^LEAK_ORDER (t = t_mid + tau x half span; from splines of the
+    model, :func:`_model_splines`), times the block fit's response to each tau^j term
     (``table.leak``), is added. Freezing the model at t_mid instead errs by about
     (P_turn / P_sidereal) x the signal (the within-turn change of C leaks into B and back).
+    Turns are processed in batches of TURN_BATCH.
     """
     t = np.atleast_1d(np.asarray(t_s, float))
     if table is not None and table.leak is not None and t.size:
-        from .demodulate import leak_terms
-
         rows = np.arange(table.n_blocks) if sel is None else np.flatnonzero(sel)
         half = np.maximum(0.5 * (table.t_stop_s[rows] - table.t_start_s[rows]), 1e-9)
-        terms = _within_turn_terms(setup, t, half, names, params)
-        a, c, b = terms[0][0], terms[1][0], terms[2][0]
-        leak = table.leak[rows]
-        src = {"A": 0, "C": 1, "B": 2}
-        for q, (kind, j) in enumerate(leak_terms(table.settings)):
-            term = terms[src[kind]][j]
-            c = c + leak[:, 0, q, None] * term
-            b = b + leak[:, 1, q, None] * term
+        splines = _model_splines(setup, t, half, names, params)
+        parts = [_measured_model(splines, t[i:i + TURN_BATCH], half[i:i + TURN_BATCH],
+                                 table.leak[rows[i:i + TURN_BATCH]], table.settings)
+                 for i in range(0, t.size, TURN_BATCH)]
+        a, c, b = (np.concatenate([p[x] for p in parts]) for x in range(3))
     else:
         a, c, b = _frozen_model(setup, t, names, params)
     if params is not None:
@@ -229,14 +262,37 @@ def _whiten(cov: NDArray) -> NDArray:
     return np.linalg.inv(chol)
 
 
-def _wls(jc: NDArray, jb: NDArray, c: NDArray, b: NDArray, w: NDArray
-         ) -> tuple[NDArray, NDArray, float, int, NDArray]:
-    """Weighted LS of stacked (C, B) rows; returns x, formal cov, chi2, dof, residuals (n, 2)."""
-    jw = np.einsum("nij,njk->nik", w, np.stack([jc, jb], axis=1))     # (n, 2, k)
-    yw = np.einsum("nij,nj->ni", w, np.stack([c, b], axis=1))          # (n, 2)
-    a = jw.reshape(-1, jw.shape[2])
-    y = yw.reshape(-1)
-    normal = a.T @ a
+def _whitened(rows):
+    jc, jb, c, b, w = rows
+    jw = np.einsum("nij,njk->nik", w, np.stack([jc, jb], axis=1))     # (m, 2, k)
+    yw = np.einsum("nij,nj->ni", w, np.stack([c, b], axis=1))          # (m, 2)
+    return jw.reshape(-1, jw.shape[2]), yw.reshape(-1)
+
+
+def _batches(n: int) -> list[slice]:
+    return [slice(i, i + TURN_BATCH) for i in range(0, n, TURN_BATCH)]
+
+
+def _normal_sums(provider, n: int, k: int, groups: NDArray | None = None):
+    """Whitened normal matrix and right-hand side, summed over batches (or per group)."""
+    if groups is None:
+        normal, rhs = np.zeros((k, k)), np.zeros(k)
+    else:
+        ng = int(groups.max()) + 1
+        normal, rhs = np.zeros((ng, k, k)), np.zeros((ng, k))
+    for sl in _batches(n):
+        a, y = _whitened(provider(sl))
+        if groups is None:
+            normal += a.T @ a
+            rhs += a.T @ y
+        else:
+            g = np.repeat(groups[sl], 2)
+            np.add.at(normal, g, a[:, :, None] * a[:, None, :])
+            np.add.at(rhs, g, a * y[:, None])
+    return normal, rhs
+
+
+def _solve(normal: NDArray, rhs: NDArray) -> tuple[NDArray, NDArray]:
     scale = np.sqrt(np.maximum(np.diag(normal), 1e-300))
     nn = normal / np.outer(scale, scale)
     try:
@@ -244,21 +300,34 @@ def _wls(jc: NDArray, jb: NDArray, c: NDArray, b: NDArray, w: NDArray
     except np.linalg.LinAlgError:
         raise FitError("stage 3: singular normal matrix (a free coefficient has no signal in "
                        "this record); fix it or free fewer coefficients") from None
-    x = inv @ (a.T @ y)
-    r = y - a @ x
-    dof = max(y.size - x.size, 1)
-    resid = np.stack([c, b], axis=1) - np.einsum("nik,k->ni", np.stack([jc, jb], axis=1), x)
-    return x, inv, float(r @ r), dof, resid
+    return inv @ rhs, inv
+
+
+def _wls_rows(provider, n: int, k: int) -> tuple[NDArray, NDArray, float, int]:
+    """Weighted LS over a row provider; returns x, formal cov, chi2, dof.
+
+    The normal equations are accumulated over batches of TURN_BATCH turns (bounded transient
+    memory), and chi^2 is summed from the whitened residuals in a second pass.
+    """
+    x, inv = _solve(*_normal_sums(provider, n, k))
+    chi2 = 0.0
+    for sl in _batches(n):
+        a, y = _whitened(provider(sl))
+        r = y - a @ x
+        chi2 += float(r @ r)
+    return x, inv, chi2, max(2 * n - k, 1)
 
 
 def fit_harmonics(phi_rad: NDArray, c: NDArray, b: NDArray, w: NDArray) -> dict:
     """Stage 2: C10 harmonics with covariance (scaled by the reduced chi^2)."""
-    f = np.stack([np.ones_like(phi_rad), np.sin(phi_rad), np.cos(phi_rad),
-                  np.sin(2 * phi_rad), np.cos(2 * phi_rad)], axis=1)
-    z = np.zeros_like(f)
-    jc = np.concatenate([f, z], axis=1)
-    jb = np.concatenate([z, f], axis=1)
-    x, cov, chi2, dof, _ = _wls(jc, jb, c, b, w)
+    def rows(sl):
+        p = phi_rad[sl]
+        f = np.stack([np.ones_like(p), np.sin(p), np.cos(p), np.sin(2 * p), np.cos(2 * p)], 1)
+        z = np.zeros_like(f)
+        return (np.concatenate([f, z], axis=1), np.concatenate([z, f], axis=1), c[sl], b[sl],
+                w[sl])
+
+    x, cov, chi2, dof = _wls_rows(rows, phi_rad.size, 10)
     red = chi2 / dof
     cov = cov * max(red, 0.0)
     return {"names": list(HARMONIC_NAMES), "value": x.tolist(),
@@ -266,19 +335,20 @@ def fit_harmonics(phi_rad: NDArray, c: NDArray, b: NDArray, w: NDArray) -> dict:
             "chi2_reduced": red}
 
 
-def _bootstrap(jc, jb, c, b, w, t_s, days, n_boot, rng):
+def _bootstrap(provider, n, k, t_s, days, n_boot, rng):
+    """Block bootstrap over days of turns: resample whole groups' normal equations."""
     groups = np.floor((t_s - t_s[0]) / (86400.0 * days)).astype(int)
     uniq, inv = np.unique(groups, return_inverse=True)
     if uniq.size < 5:
         raise FitError(f"--uncertainty bootstrap: only {uniq.size} blocks of {days} d; "
                        "need at least 5 (shorter --bootstrap-days)")
-    members = [np.flatnonzero(inv == g) for g in range(uniq.size)]
+    normal_g, rhs_g = _normal_sums(provider, n, k, groups=inv)
     draws = []
     for _ in range(n_boot):
-        pick = np.concatenate([members[i] for i in rng.integers(0, uniq.size, uniq.size)])
-        x, *_ = _wls(jc[pick], jb[pick], c[pick], b[pick], w[pick])
+        pick = rng.integers(0, uniq.size, uniq.size)
+        x, _ = _solve(normal_g[pick].sum(axis=0), rhs_g[pick].sum(axis=0))
         draws.append(x)
-    return np.cov(np.array(draws).T, ddof=1).reshape(jc.shape[1], jc.shape[1])
+    return np.cov(np.array(draws).T, ddof=1).reshape(k, k)
 
 
 @dataclass
@@ -300,30 +370,42 @@ class CoefficientFit:
 
 
 def _design(setup, t, names, table, sel, settings):
-    """Columns (jc, jb) for free coefficients and nuisances; and their labels."""
-    a, jc, jb = turn_model(setup, t, names, table=table, sel=sel)
+    """Per-turn model of the free coefficients and a row builder adding the nuisance columns.
+
+    Returns (jc, jb) of the coefficients (n, k), the labels of all columns, and
+    ``columns(sl, jc, jb)`` giving the full design rows of the turns ``sl``.
+    """
+    _, jc, jb = turn_model(setup, t, names, table=table, sel=sel)
     labels = list(names)
-    extra_c, extra_b = [], []
     if settings.lab_b0:
-        extra_c.append(np.zeros(t.size))
-        extra_b.append(np.ones(t.size))
         labels.append("lab_B0")
     if settings.lab_c0:
         if "ke_ZZ" in names:
             raise ConfigError("--lab-c0: a constant C offset is degenerate with ke_ZZ; fix "
                               "ke_ZZ or drop --lab-c0")
-        extra_c.append(np.ones(t.size))
-        extra_b.append(np.zeros(t.size))
         labels.append("lab_C0")
     ic, isn = table.settings.index("c2"), table.settings.index("s2")
-    for ch in settings.regress:
-        extra_c.append(table.aux[ch][sel, ic])
-        extra_b.append(table.aux[ch][sel, isn])
-        labels.append(f"aux_{ch}")
-    if extra_c:
-        jc = np.concatenate([jc, np.stack(extra_c, 1)], axis=1)
-        jb = np.concatenate([jb, np.stack(extra_b, 1)], axis=1)
-    return jc, jb, labels
+    aux = [(table.aux[ch][sel, ic], table.aux[ch][sel, isn]) for ch in settings.regress]
+    labels += [f"aux_{ch}" for ch in settings.regress]
+
+    def columns(sl, jc_sl, jb_sl):
+        m = jc_sl.shape[0]
+        extra_c, extra_b = [], []
+        if settings.lab_b0:
+            extra_c.append(np.zeros(m))
+            extra_b.append(np.ones(m))
+        if settings.lab_c0:
+            extra_c.append(np.ones(m))
+            extra_b.append(np.zeros(m))
+        for ac, ab in aux:
+            extra_c.append(ac[sl])
+            extra_b.append(ab[sl])
+        if not extra_c:
+            return jc_sl, jb_sl
+        return (np.concatenate([jc_sl, np.stack(extra_c, 1)], axis=1),
+                np.concatenate([jb_sl, np.stack(extra_b, 1)], axis=1))
+
+    return jc, jb, labels, columns
 
 
 def fit_coefficients(setup: Setup, table: TurnTable, settings: FitSettings,
@@ -332,30 +414,39 @@ def fit_coefficients(setup: Setup, table: TurnTable, settings: FitSettings,
     sel = table.accepted
     t = table.t_mid_s[sel]
     c, b = table.C[sel].copy(), table.B[sel].copy()
-    cov_i = turn_covariance(table, sel)
     if settings.fixed:
         _, fc, fb = turn_model(setup, t, params=settings.fixed, table=table, sel=sel)
         c, b = c - fc, b - fb
-    w = _whiten(cov_i)
-    jc, jb, labels = _design(setup, t, free, table, sel, settings)
-    x, cov, chi2, dof, resid = _wls(jc, jb, c, b, w)
+    w = _whiten(turn_covariance(table, sel))
+    jc0, jb0, labels, columns = _design(setup, t, free, table, sel, settings)
+    n, kk = t.size, len(labels)
+
+    def provider(weights):
+        def rows(sl):
+            jc_sl, jb_sl = columns(sl, jc0[sl], jb0[sl])
+            return jc_sl, jb_sl, c[sl], b[sl], weights[sl]
+        return rows
+
+    x, cov, chi2, dof = _wls_rows(provider(w), n, kk)
     red = chi2 / dof
     notes, warns = [], []
     if settings.uncertainty == "reduced-chi2":
         cov = cov * red
     elif settings.uncertainty == "bootstrap":
-        cov = _bootstrap(jc, jb, c, b, w, t, settings.bootstrap_days, settings.n_bootstrap,
+        cov = _bootstrap(provider(w), n, kk, t, settings.bootstrap_days, settings.n_bootstrap,
                          np.random.default_rng(settings.seed))
     # Cramer-Rao with the white per-sample level the data show
     sigma_white = float(np.median(table.residual_rms[sel]))
     w_cr = _whiten(sigma_white ** 2 * table.ninv_2[sel])
-    _, cov_cr, *_ = _wls(jc, jb, c, b, w_cr)
+    _, cov_cr = _solve(*_normal_sums(provider(w_cr), n, kk))
     k = len(free)
     sig = np.sqrt(np.diag(cov))
-    eff = {n: float(np.sqrt(cov_cr[i, i]) / sig[i]) for i, n in enumerate(free)}
+    eff = {nm: float(np.sqrt(cov_cr[i, i]) / sig[i]) for i, nm in enumerate(free)}
     warns += _degeneracy(labels, cov)
-    model_c = jc @ x            # the whole fitted model (coefficients and nuisances)
-    model_b = jb @ x
+    model_c, model_b = np.empty(n), np.empty(n)   # the whole fitted model (with nuisances)
+    for sl in _batches(n):
+        jc_sl, jb_sl = columns(sl, jc0[sl], jb0[sl])
+        model_c[sl], model_b[sl] = jc_sl @ x, jb_sl @ x
     nuis = {lab: {"value": float(x[i]), "sigma": float(sig[i])}
             for i, lab in enumerate(labels) if i >= k}
     return CoefficientFit(names=list(free), value=x[:k], cov=cov[:k, :k], nuisance=nuis,
