@@ -369,13 +369,9 @@ class CoefficientFit:
     upper_limits: dict = field(default_factory=dict)
 
 
-def _design(setup, t, names, table, sel, settings):
-    """Per-turn model of the free coefficients and a row builder adding the nuisance columns.
-
-    Returns (jc, jb) of the coefficients (n, k), the labels of all columns, and
-    ``columns(sl, jc, jb)`` giving the full design rows of the turns ``sl``.
-    """
-    _, jc, jb = turn_model(setup, t, names, table=table, sel=sel)
+def design_labels(names: tuple[str, ...], settings: FitSettings) -> list[str]:
+    """Labels of the stage-3 columns: the free coefficients, then the nuisances
+    (lab_B0, lab_C0, aux_CHANNEL) that ``settings`` asks for; shared with the one-stage fit."""
     labels = list(names)
     if settings.lab_b0:
         labels.append("lab_B0")
@@ -384,9 +380,19 @@ def _design(setup, t, names, table, sel, settings):
             raise ConfigError("--lab-c0: a constant C offset is degenerate with ke_ZZ; fix "
                               "ke_ZZ or drop --lab-c0")
         labels.append("lab_C0")
+    return labels + [f"aux_{ch}" for ch in settings.regress]
+
+
+def _design(setup, t, names, table, sel, settings):
+    """Per-turn model of the free coefficients and a row builder adding the nuisance columns.
+
+    Returns (jc, jb) of the coefficients (n, k), the labels of all columns, and
+    ``columns(sl, jc, jb)`` giving the full design rows of the turns ``sl``.
+    """
+    labels = design_labels(names, settings)
+    _, jc, jb = turn_model(setup, t, names, table=table, sel=sel)
     ic, isn = table.settings.index("c2"), table.settings.index("s2")
     aux = [(table.aux[ch][sel, ic], table.aux[ch][sel, isn]) for ch in settings.regress]
-    labels += [f"aux_{ch}" for ch in settings.regress]
 
     def columns(sl, jc_sl, jb_sl):
         m = jc_sl.shape[0]

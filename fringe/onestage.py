@@ -71,16 +71,9 @@ __all__ = ["one_stage_fit"]
 
 
 def _global_labels(names: tuple[str, ...], settings) -> list[str]:
-    labels = list(names)
-    if settings.lab_b0:
-        labels.append("lab_B0")
-    if settings.lab_c0:
-        if "ke_ZZ" in names:
-            raise ConfigError("--lab-c0: a constant C offset is degenerate with ke_ZZ; fix "
-                              "ke_ZZ or drop --lab-c0")
-        labels.append("lab_C0")
-    labels += [f"aux_{ch}" for ch in settings.regress]
-    return labels
+    from .fit import design_labels
+
+    return design_labels(names, settings)
 
 
 def _chunked(func, n: int, *arrays):
