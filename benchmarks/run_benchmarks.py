@@ -130,6 +130,21 @@ def peak_rss_of_fit(path: str) -> float:
     return int(out.stdout.strip().splitlines()[-1]) / 1024.0
 
 
+def simulate_in_subprocess(days: float, path: Path) -> tuple[float, float]:
+    """Simulate the benchmark scenario in a fresh process: (seconds, peak resident MiB)."""
+    code = ("import sys, time, tomllib; sys.path.insert(0, sys.argv[3]);"
+            "from run_benchmarks import SCENARIO;"
+            "from fringe.scenario import scenario_from_dict; from fringe.simulate import simulate;"
+            "sc = scenario_from_dict(tomllib.loads(SCENARIO.format(days=float(sys.argv[1]))),"
+            " 'benchmark'); t0 = time.perf_counter(); simulate(sc, sys.argv[2], seed=1);"
+            "print(time.perf_counter() - t0);"
+            "print([l for l in open('/proc/self/status') if l.startswith('VmHWM')][0].split()[1])")
+    out = subprocess.run([sys.executable, "-c", code, str(days), str(path),
+                          str(Path(__file__).resolve().parent)], check=True,
+                         capture_output=True, text=True).stdout.split()
+    return float(out[-2]), int(out[-1]) / 1024.0
+
+
 def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--days", type=float, default=365.0)
@@ -138,10 +153,9 @@ def main():
     args = ap.parse_args()
     work = Path(args.workdir)
     work.mkdir(parents=True, exist_ok=True)
-    from fringe.scenario import scenario_from_dict
-    from fringe.simulate import simulate
-
     import tomllib
+
+    from fringe.scenario import scenario_from_dict
 
     results = {"machine": {"python": platform.python_version(), "cpus": os.cpu_count(),
                            "platform": platform.platform()}, "days": args.days}
@@ -152,9 +166,8 @@ def main():
                                 "benchmark")
         path = work / f"run_{frac:g}.h5"
         if not path.exists():
-            t0 = time.perf_counter()
-            simulate(sc, path, seed=1)
-            dt = time.perf_counter() - t0
+            dt, peak = simulate_in_subprocess(args.days * frac, path)
+            results.setdefault("simulate_peak_rss_mib", {})[str(frac)] = peak
             if frac == 1.0:
                 results["simulate_samples_per_s"] = sc.n_samples / dt
         paths[frac] = str(path)
