@@ -8,8 +8,9 @@ at 1 theta and a lab-fixed 2 theta term, glitches (steps or spikes), gaps (no sa
 dropped samples (NaN). The injected truth, the noise model, the systematics and the scenario are
 stored in the file's ``truth``, ``settings`` and ``provenance`` groups.
 
-Scenario sections (all levels fractional, i.e. of Delta nu / nu; multiplied by the carrier for a
-signal in Hz):
+Scenario sections. For cavity kinds every level is fractional (of Delta nu / nu) and is multiplied
+by the carrier for a signal in Hz; for a Michelson ("fringe") or a clock ("Hz") the levels are in
+the observable's own units (there is no carrier to scale by), as in ``fringe plan``:
 
 ``[noise]``  ``white_pm_adev_1s``, ``white_fm_adev_1s``, ``flicker_fm_adev``,
 ``random_walk_fm_adev_1s`` (Allan-deviation levels) or ``h2``, ``h0``, ``hm1``, ``hm2``.
