@@ -25,8 +25,17 @@ def run_guarded(func):
             else:
                 click.echo(f"warning: {category.__name__}: {message}", err=True)
 
+        import signal as _signal
+
+        def on_term(signum, frame):          # batch schedulers stop jobs with SIGTERM
+            raise KeyboardInterrupt
+
         old = warnings.showwarning
         warnings.showwarning = show_warning
+        try:
+            old_term = _signal.signal(_signal.SIGTERM, on_term)
+        except ValueError:                   # not in the main thread
+            old_term = None
         try:
             return func(*args, **kwargs)
         except FringeError as exc:
@@ -37,6 +46,8 @@ def run_guarded(func):
             sys.exit(130)
         finally:
             warnings.showwarning = old
+            if old_term is not None:
+                _signal.signal(_signal.SIGTERM, old_term)
 
     return wrapper
 

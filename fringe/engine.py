@@ -58,7 +58,12 @@ def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = (
     if span_t <= 0 or span_theta < np.pi:
         raise FitError(f"{path}: samples/azimuth: the table turns less than half a turn in the "
                        f"first {t.size} samples; cannot demodulate a non-rotating record")
-    period = 2 * np.pi * span_t / span_theta
+    dt = np.diff(t)
+    rate = np.median(np.abs(np.diff(theta))[dt > 0] / dt[dt > 0])   # robust to long gaps
+    period = 2 * np.pi / rate if rate > 0 else np.inf
+    if not np.isfinite(period):
+        raise FitError(f"{path}: samples/azimuth: cannot estimate the turn period from the "
+                       "first samples")
     max_gap = settings.max_gap_s if settings.max_gap_s is not None else 0.25 * period
     return RecordInfo(path=str(path), n_samples=n, theta0_rad=float(theta[0] % (2 * np.pi)),
                       turn_period_s=float(period), max_gap_s=float(max_gap),
@@ -95,7 +100,8 @@ def range_samples_and_blocks(info: RecordInfo, start: int, stop: int
         if starts.size == 0:
             return None
         dt = np.median(np.diff(t)) if t.size > 1 else 1.0
-        step = max(int(4 * info.turn_period_s / max(dt, 1e-9)), 64)
+        ratio = 4 * info.turn_period_s / max(dt, 1e-9)
+        step = int(min(max(ratio, 64), 1 << 20)) if np.isfinite(ratio) else 1 << 16
         pos = stop
         while pos < info.n_samples:
             more = _read(run, pos, min(pos + step, info.n_samples), channels)

@@ -99,7 +99,9 @@ def default_free(setup: Setup, span_days: float) -> tuple[str, ...]:
     if name == "sme":
         return KE_NAMES + (KO_NAMES if span_days >= KO_DEFAULT_SPAN_DAYS else ())
     if name == "rms":
-        return ("rms_mm",)
+        atomic = (setup.apparatus.kind == "cavity-vs-reference"
+                  and getattr(setup.apparatus, "reference", None) == "atomic")
+        return ("rms_mm", "rms_kt") if atomic else ("rms_mm",)
     return setup.theory.parameter_names
 
 
@@ -406,6 +408,27 @@ def fit_medium(setup: Setup, table: TurnTable, settings: FitSettings) -> Coeffic
                           upper_limits={"speed_kms_95": speed95})
 
 
+def _add_rms_kt(setup: Setup, table: TurnTable, settings: FitSettings,
+                res: CoefficientFit) -> None:
+    """Append rms_kt from the per-turn offsets (:mod:`fringe.fit_offsets`) to ``res``."""
+    from .fit_offsets import OFFSET_DRIFT_DEGREE, fit_rms_kt
+
+    mm = float(res.value[res.names.index("rms_mm")])
+    kt, sig, red, _ = fit_rms_kt(setup, table, table.accepted, mm, settings.uncertainty,
+                                 settings.bootstrap_days, settings.n_bootstrap, settings.seed)
+    k = len(res.names)
+    cov = np.zeros((k + 1, k + 1))
+    cov[:k, :k] = res.cov
+    cov[k, k] = sig ** 2
+    res.names = res.names + ["rms_kt"]
+    res.value = np.append(res.value, kt)
+    res.cov = cov
+    res.notes.append(f"rms_kt from the per-turn offsets with a degree-{OFFSET_DRIFT_DEGREE} "
+                     f"polynomial drift (reduced chi2 {red:.3g}); its covariance with the "
+                     "2 theta coefficients is neglected (set to 0); with coloured cavity drift "
+                     "prefer --uncertainty bootstrap")
+
+
 def stage2_and_3(setup: Setup, table: TurnTable, settings: FitSettings,
                  span_days: float) -> tuple[dict, CoefficientFit, tuple]:
     """Run stage 2 (harmonics) and stage 3 (coefficients); also the systematics diagnostics."""
@@ -425,14 +448,16 @@ def stage2_and_3(setup: Setup, table: TurnTable, settings: FitSettings,
     theory.check_params(settings.fixed, source="--fix")
     if not free:
         raise ConfigError("--free: no free coefficient left")
-    if "rms_kt" in free:
-        raise ConfigError("--free rms_kt: the Kennedy-Thorndike combination lives in the "
-                          "non-rotating absolute frequency, which the 2 theta fit does not use; "
-                          "fix rms_kt (or leave it out)")
+    rotating = tuple(n for n in free if n != "rms_kt")
+    if "rms_kt" in free and not rotating:
+        raise ConfigError("--free rms_kt: free rms_mm as well (the offsets' model uses the "
+                          "2 theta estimate of rms_mm)")
     if theory.linear:
-        res = fit_coefficients(setup, table, settings, free)
+        res = fit_coefficients(setup, table, settings, rotating)
     else:
         res = fit_medium(setup, table, settings)
+    if "rms_kt" in free:
+        _add_rms_kt(setup, table, settings, res)
     import warnings
 
     if "lab_B0" in res.nuisance:      # B offset beyond the fitted coefficient model (stage 3)

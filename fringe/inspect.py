@@ -150,9 +150,13 @@ def inspect_run(path: str, demod: DemodSettings | None = None,
     # regular grid of the head of the record
     t = np.concatenate(head_t)
     y = np.concatenate(head_y) * _fractional_scale(meta)
-    idx = np.rint((t - t[0]) / tau0).astype(np.int64)
+    # grid cells of the head samples; cells beyond max_spectral_samples (after a long gap) are
+    # dropped, so the grid never grows past the sample budget
+    cell = (t - t[0]) / tau0
+    keep = cell < max_spectral_samples
+    idx = np.rint(cell[keep]).astype(np.int64)
     grid = np.full(int(idx[-1]) + 1, np.nan)
-    grid[idx] = y
+    grid[idx] = y[keep]
     allan = overlapping_adev(grid, tau0)
     filled = np.where(np.isfinite(grid), grid - np.nanmean(grid), 0.0)
     # remove a linear drift before the spectrum

@@ -72,7 +72,10 @@ def plain(value):
     if isinstance(value, np.ndarray) and value.ndim == 0:
         value = value[()]
     if isinstance(value, np.ndarray) and value.dtype.kind == "S":  # fixed-length strings
-        return np.char.decode(value, "utf-8")
+        try:
+            return np.char.decode(value, "utf-8")
+        except UnicodeDecodeError:  # not UTF-8: left as bytes (refused where text is needed)
+            return value
     if isinstance(value, np.generic):
         value = value.item()
     if isinstance(value, bytes):
@@ -494,13 +497,13 @@ class RunFile:
 
     def _validate_layout(self) -> None:
         f = self._file
-        fmt = self._attr(f, "fringe_format", "fringe_format",
-                         f"{FORMAT_NAME!r} (a fringe run file)")
-        if plain(fmt) != FORMAT_NAME:
+        fmt = plain(self._attr(f, "fringe_format", "fringe_format",
+                               f"{FORMAT_NAME!r} (a fringe run file)"))
+        if not isinstance(fmt, str) or fmt != FORMAT_NAME:
             raise self._err("fringe_format", f"expected {FORMAT_NAME!r}, got {show(fmt)}")
         version = plain(self._attr(f, "fringe_format_version", "fringe_format_version",
                                    f"the integer {FORMAT_VERSION}"))
-        if isinstance(version, bool) or version != FORMAT_VERSION or not isinstance(version, int):
+        if isinstance(version, bool) or not isinstance(version, int) or version != FORMAT_VERSION:
             raise self._err("fringe_format_version", f"expected the integer {FORMAT_VERSION} "
                             f"(this fringe reads run-file version 1), got {show(version)}")
         site = self._group("site", "attributes latitude_deg and longitude_deg")
@@ -514,7 +517,7 @@ class RunFile:
     def _units(self, ds: h5py.Dataset, label: str, allowed: Sequence[str]) -> str:
         shown = " or ".join(repr(u) for u in allowed)
         value = plain(self._attr(ds, f"{label}.units", "units", shown))
-        if value not in allowed:
+        if not isinstance(value, str) or value not in allowed:
             raise self._err(f"{label}.units", f"expected {shown}, got {show(value)}")
         return value
 
@@ -532,6 +535,9 @@ class RunFile:
             label = f"samples/{name}"
             if not isinstance(ds, h5py.Dataset):
                 raise self._err(label, "expected a one-dimensional dataset, got a group")
+            if ds.shape is None:  # an HDF5 null dataspace (h5py.Empty)
+                raise self._err(label, "expected a one-dimensional dataset, got an empty "
+                                "(null) dataspace")
             if len(ds.shape) != 1:
                 raise self._err(label, f"expected a one-dimensional dataset, got shape "
                                 f"{tuple(ds.shape)}")
@@ -671,9 +677,11 @@ class RunFile:
             out = {}
             for key, ds in group.items():
                 if isinstance(ds, h5py.Dataset):
-                    if h5py.check_string_dtype(ds.dtype) is not None:
-                        ds = ds.asstr()
-                    out[key] = np.asarray(ds[()])
+                    try:
+                        text = h5py.check_string_dtype(ds.dtype) is not None
+                        out[key] = np.asarray(ds.asstr()[()] if text else ds[()])
+                    except UnicodeDecodeError:  # strings that are not UTF-8: left as bytes
+                        out[key] = np.asarray(ds[()])
             return out
 
     def to_dict(self) -> dict:
