@@ -80,9 +80,10 @@ def floor_seconds(path: str) -> float:
 
 
 def fit_seconds(path: str) -> float:
+    import scipy.interpolate  # noqa: F401  (import cost is not part of the timing)
+
     from fringe.analysis import fit_run
     from fringe.fit import FitSettings
-    import scipy.interpolate  # noqa: F401  (import cost is not part of the timing)
 
     t0 = time.perf_counter()
     fit_run(path, FitSettings())

@@ -17,7 +17,8 @@ The IDs C1-C14 refer to the project's physics reference and to ``docs/convention
 * C10 Fourier model: S = B sin 2 theta + C cos 2 theta, C = C0 + Cs1 sin phi + Cc1 cos phi +
   Cs2 sin 2 phi + Cc2 cos 2 phi, and B likewise.
 * C11 kappa_o+ as a vector: w = (ko_YZ, -ko_XZ, ko_XY).
-* C13 RMS: rms_mm = delta - beta + 1/2, rms_kt = beta - alpha - 1 (Mansouri-Sexl alpha, beta, delta).
+* C13 RMS: rms_mm = delta - beta + 1/2, rms_kt = beta - alpha - 1 (Mansouri-Sexl alpha, beta,
+  delta).
 """
 
 from __future__ import annotations

@@ -46,8 +46,8 @@ class InspectReport:
                  f"gaps (> 2 x median interval): {s['n_gaps']}, total {s['gap_total_s']:.1f} s, "
                  f"longest {s['gap_longest_s']:.1f} s",
                  f"NaN samples: {s['n_nan']} ({100 * s['n_nan'] / max(s['n_samples'], 1):.3f} %)",
-                 f"turns: {s['n_turns']} (period {s['turn_period_s']:.6g} s, turn-to-turn period scatter "
-                 f"{s['turn_duration_rel_std']:.2e} relative rms); accepted "
+                 f"turns: {s['n_turns']} (period {s['turn_period_s']:.6g} s, turn-to-turn "
+                 f"period scatter {s['turn_duration_rel_std']:.2e} relative rms); accepted "
                  f"{s['n_accepted']}, glitch {s['n_glitch']}, partial {s['n_partial']}",
                  f"per-turn residual rms (median): {s['residual_rms']:.3g} {m['signal_units']}",
                  "Allan deviation of the fractional signal:"]

@@ -10,6 +10,7 @@ here (``[noise]``, ``[systematics]``, ``[plan]``, ...) are kept verbatim in
 from __future__ import annotations
 
 import math
+
 try:
     import tomllib
 except ModuleNotFoundError:  # Python < 3.11
@@ -189,7 +190,7 @@ def scenario_from_dict(doc: dict, source: str = "scenario") -> Scenario:
         raise ConfigError(f"{source}: [campaign] start_utc: missing (ISO 8601 UTC expected)")
     try:
         epoch = Epoch(start, camp.pop("dut1_s", 0.0))
-        epoch.tai_jd                                   # validates the instant itself
+        _ = epoch.tai_jd                               # validates the instant itself
     except ConfigError as exc:
         raise ConfigError(f"{source}: [campaign] "
                           + str(exc).replace("epoch_utc", "start_utc")) from None

@@ -35,6 +35,7 @@ from .noise import NoiseStream, PowerLawNoise, noise_from_section
 from .scenario import Scenario
 from .signal import CHUNK_SAMPLES, signal
 
+
 def noise_model_from_section(section: dict | None, source: str, sample_interval_s: float
                              ) -> PowerLawNoise:
     """The scenario's ``[noise]`` model (:func:`fringe.noise.noise_from_section`); no section,
