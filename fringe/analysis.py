@@ -13,7 +13,7 @@ import platform
 import numpy as np
 
 from . import __version__
-from .apparatus import APPARATUS_KINDS, make_apparatus
+from .apparatus import APPARATUS_KINDS, apparatus_fields, make_apparatus
 from .demodulate import DemodSettings
 from .engine import run_stage1
 from .errors import ConfigError
@@ -45,7 +45,7 @@ def setup_from_run(path: str, theory: str, dut1_s: float = 0.0) -> tuple[Setup, 
         site = run.site
         attrs = dict(run.apparatus)
     cls = APPARATUS_KINDS.get(attrs.get("kind"))
-    fields = {f for f, d in cls.__dataclass_fields__.items() if d.init} if cls else set()
+    fields = apparatus_fields(cls) if cls else set()
     ignored = sorted(set(attrs) - fields - {"kind"})
     if ignored:      # the run format passes other labs' extra attributes through
         logger.info("%s: apparatus attributes not used by the model: %s", path, ignored)

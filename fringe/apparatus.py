@@ -310,6 +310,16 @@ class OrientedClock(Apparatus):
         return {"kind": self.kind, "sensitivity_hz": self.sensitivity_hz, "axis": self.axis}
 
 
+#: Class-level constants of the apparatus classes (never constructor arguments).
+_CLASS_CONSTANTS = {"kind", "sector", "units_allowed", "modes", "weights"}
+
+
+def apparatus_fields(cls: type[Apparatus]) -> set[str]:
+    """The constructor fields of an apparatus class (what a run file or scenario may set)."""
+    return {f for f, d in cls.__dataclass_fields__.items()
+            if d.init and f not in _CLASS_CONSTANTS}
+
+
 APPARATUS_KINDS: dict[str, type[Apparatus]] = {
     cls.kind: cls for cls in (CavityPair, CavityVsReference, Michelson, OrientedClock)}
 
@@ -322,7 +332,7 @@ def make_apparatus(attrs: dict, source: str = "apparatus") -> Apparatus:
         raise ConfigError(f"{source}: kind: expected one of {', '.join(APPARATUS_KINDS)}, "
                           f"got {kind!r}")
     cls = APPARATUS_KINDS[kind]
-    allowed = {f for f in cls.__dataclass_fields__ if cls.__dataclass_fields__[f].init}
+    allowed = apparatus_fields(cls)
     unknown = sorted(set(attrs) - allowed)
     if unknown:
         raise ConfigError(f"{source}: {unknown[0]}: not a field of kind '{kind}' (expected "

@@ -26,6 +26,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import NDArray
 
+from .constants import C_M_S
 from .conventions import HARMONIC_NAMES
 from .demodulate import TurnTable
 from .errors import ConfigError, DegeneracyWarning, FitError, SystematicsWarning
@@ -294,7 +295,8 @@ def fit_coefficients(setup: Setup, table: TurnTable, settings: FitSettings,
     if settings.fixed:
         _, fc, fb = turn_model(setup, t, params=settings.fixed, table=table, sel=sel)
         c, b = c - fc, b - fb
-    w = _whiten(turn_covariance(table, sel))
+    cov_i = turn_covariance(table, sel)
+    w = _whiten(cov_i)
     jc0, jb0, labels, columns = _design(setup, t, free, table, sel, settings)
     n, kk = t.size, len(labels)
 
@@ -304,7 +306,28 @@ def fit_coefficients(setup: Setup, table: TurnTable, settings: FitSettings,
             return jc_sl, jb_sl, c[sl], b[sl], weights[sl]
         return rows
 
+    def fitted(xv):
+        out_c, out_b = np.empty(n), np.empty(n)
+        for sl in _batches(n):
+            jc_sl, jb_sl = columns(sl, jc0[sl], jb0[sl])
+            out_c[sl], out_b[sl] = jc_sl @ xv, jb_sl @ xv
+        return out_c, out_b
+
     x, cov, chi2, dof = _wls_rows(provider(w), n, kk)
+    row_scale = (1.0, 1.0)
+    if settings.uncertainty != "formal":
+        # Coloured noise inflates the C and B scatter differently (a turn's curvature leaks
+        # into the component even about its middle); one chi^2 factor for both would
+        # understate sigma of C-only coefficients (ke_ZZ). Scale each row family by its own
+        # reduced chi^2 and refit.
+        mc, mb = fitted(x)
+        r_c = float(np.mean((c - mc) ** 2 / cov_i[:, 0, 0]))
+        r_b = float(np.mean((b - mb) ** 2 / cov_i[:, 1, 1]))
+        row_scale = (r_c, r_b)
+        d = np.sqrt(np.array([r_c, r_b]))
+        cov_i = cov_i * np.outer(d, d)
+        w = _whiten(cov_i)
+        x, cov, chi2, dof = _wls_rows(provider(w), n, kk)
     red = chi2 / dof
     notes, warns = [], []
     if settings.uncertainty == "reduced-chi2":
@@ -320,10 +343,10 @@ def fit_coefficients(setup: Setup, table: TurnTable, settings: FitSettings,
     sig = np.sqrt(np.diag(cov))
     eff = {nm: float(np.sqrt(cov_cr[i, i]) / sig[i]) for i, nm in enumerate(free)}
     warns += _degeneracy(labels, cov)
-    model_c, model_b = np.empty(n), np.empty(n)   # the whole fitted model (with nuisances)
-    for sl in _batches(n):
-        jc_sl, jb_sl = columns(sl, jc0[sl], jb0[sl])
-        model_c[sl], model_b[sl] = jc_sl @ x, jb_sl @ x
+    model_c, model_b = fitted(x)                  # the whole fitted model (with nuisances)
+    if abs(row_scale[0] / row_scale[1] - 1.0) > 0.2:
+        notes.append(f"C and B rows scaled separately by their reduced chi2 "
+                     f"({row_scale[0]:.3g}, {row_scale[1]:.3g}): coloured noise")
     nuis = {lab: {"value": float(x[i]), "sigma": float(sig[i])}
             for i, lab in enumerate(labels) if i >= k}
     return CoefficientFit(names=list(free), value=x[:k], cov=cov[:k, :k], nuisance=nuis,
@@ -371,12 +394,28 @@ def fit_medium(setup: Setup, table: TurnTable, settings: FitSettings) -> Coeffic
         r = np.stack([c - mc, b - mb], axis=1)
         return np.einsum("nij,nj->ni", w, r).ravel()
 
-    params = lmfit.Parameters()
-    for n in MEDIUM_NAMES:
-        params.add(n, value=settings.fixed.get(n, 1.0), vary=n not in settings.fixed)
-    if off:
-        params.add("lab_B0", value=0.0)
-    out = lmfit.minimize(resid, params, method="leastsq")
+    if settings.uncertainty == "bootstrap":
+        raise ConfigError("--uncertainty bootstrap: not available for the nonlinear medium fit "
+                          "(use reduced-chi2 or formal)")
+
+    def start(v):
+        params = lmfit.Parameters()
+        for n, v0 in zip(MEDIUM_NAMES, v):
+            params.add(n, value=settings.fixed.get(n, float(v0)), vary=n not in settings.fixed)
+        if off:
+            params.add("lab_B0", value=0.0)
+        return lmfit.minimize(resid, params, method="leastsq")
+
+    # The signal is quadratic in the lab velocity u = v_sun + v_earth, so it barely changes under
+    # u -> -u, i.e. v_sun -> -v_sun - 2 v_earth: over spans short against a year this mirror is
+    # a second minimum. Start from both and keep the lower chi^2.
+    out = start(np.ones(3))
+    v_earth = np.mean(setup.frames(t[:: max(t.size // 64, 1)]).beta, axis=0) \
+        * C_M_S / 1e3                                                  # km/s, SCCEF
+    found = np.array([out.params[n].value for n in MEDIUM_NAMES])
+    mirror = start(-found - 2.0 * v_earth)
+    if mirror.covar is not None and (out.covar is None or mirror.chisqr < out.chisqr):
+        out = mirror
     names = [n for n in MEDIUM_NAMES if n not in settings.fixed]
     if out.covar is None:
         raise FitError("medium fit: no covariance (the fit did not converge or the data do "
@@ -403,8 +442,10 @@ def fit_medium(setup: Setup, table: TurnTable, settings: FitSettings) -> Coeffic
                           "sigma": float(np.sqrt(cov[i, i] * scale))}
     return CoefficientFit(names=names, value=x, cov=cov_v, nuisance=nuis, chi2_reduced=red,
                           dof=int(out.nfree), efficiency={}, model_c=mc, model_b=mb,
-                          warnings=[], notes=["medium: nonlinear fit with lmfit (leastsq); the "
-                                              "95 % speed limit samples the fit covariance"],
+                          warnings=[], notes=["medium: nonlinear fit with lmfit (leastsq) from "
+                                              "two starts (a solution and its mirror -v - 2 "
+                                              "v_earth); the 95 % speed limit samples the fit "
+                                              "covariance"],
                           upper_limits={"speed_kms_95": speed95})
 
 

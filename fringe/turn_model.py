@@ -16,7 +16,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from .demodulate import TurnTable
-from .signal import Setup, basis, signal
+from .signal import Setup, signal
 
 #: Table angles per instant at which the model is evaluated and projected on 2 theta.
 N_ANGLES = 8
@@ -44,10 +44,7 @@ def _frozen_model_batch(setup, t, names, params):
     rep = np.repeat(np.arange(t.size), N_ANGLES)
     st = FrameState(state.phi_rad[rep], state.colatitude_rad, state.beta[rep])
     az = np.tile(np.pi - theta, t.size)
-    if params is None:
-        g = basis(setup, t[rep], az, names, state=st).reshape(t.size, N_ANGLES, -1)
-    else:
-        g = signal(setup, params, t[rep], az, state=st).reshape(t.size, N_ANGLES, 1)
+    g = signal(setup, params, t[rep], az, state=st).reshape(t.size, N_ANGLES, 1)
     c = (2.0 / N_ANGLES) * np.einsum("nak,a->nk", g, np.cos(2 * theta))
     b = (2.0 / N_ANGLES) * np.einsum("nak,a->nk", g, np.sin(2 * theta))
     return g.mean(axis=1), c, b
