@@ -129,15 +129,32 @@ def turn_covariance(table: TurnTable, sel: NDArray) -> NDArray:
 
 
 def _whiten(cov: NDArray) -> NDArray:
-    """Per-turn 2x2 whitening matrices W with W cov Wᵀ = 1 (inverse Cholesky)."""
-    chol = np.linalg.cholesky(cov)
-    return np.linalg.inv(chol)
+    """Per-turn 2x2 whitening matrices W with W cov Wᵀ = 1 (inverse Cholesky, closed form).
+
+    cov = L Lᵀ with L = [[a, 0], [b, d]], a = sqrt(c00), b = c10/a, d = sqrt(c11 - b^2);
+    W = L^-1 = [[1/a, 0], [-b/(a d), 1/d]].
+    """
+    a = np.sqrt(cov[:, 0, 0])
+    b = cov[:, 1, 0] / a
+    d2 = cov[:, 1, 1] - b * b
+    if np.any(~(a > 0)) or np.any(~(d2 > 0)):
+        raise FitError("stage 3: a turn's (C, B) covariance is not positive definite")
+    d = np.sqrt(d2)
+    w = np.zeros_like(cov)
+    w[:, 0, 0] = 1.0 / a
+    w[:, 1, 0] = -b / (a * d)
+    w[:, 1, 1] = 1.0 / d
+    return w
 
 
 def _whitened(rows):
+    """Whitened design rows and data of a batch; W is lower triangular (see :func:`_whiten`)."""
     jc, jb, c, b, w = rows
-    jw = np.einsum("nij,njk->nik", w, np.stack([jc, jb], axis=1))     # (m, 2, k)
-    yw = np.einsum("nij,nj->ni", w, np.stack([c, b], axis=1))          # (m, 2)
+    w00, w10, w11 = w[:, 0, 0, None], w[:, 1, 0, None], w[:, 1, 1, None]
+    jw = np.empty((jc.shape[0], 2, jc.shape[1]))
+    jw[:, 0] = w00 * jc
+    jw[:, 1] = w10 * jc + w11 * jb
+    yw = np.stack([w00[:, 0] * c, w10[:, 0] * c + w11[:, 0] * b], axis=1)
     return jw.reshape(-1, jw.shape[2]), yw.reshape(-1)
 
 

@@ -27,18 +27,26 @@ MODEL_BATCH = 4096
 
 def _frozen_model(setup: Setup, t: NDArray, names, params) -> tuple[NDArray, NDArray, NDArray]:
     """A, C, B of the model with frames frozen at each instant (each (n, k)), in batches."""
+    state = setup.frames(t)            # once: the ephemeris spline is built once per call
     if t.size > MODEL_BATCH:
-        parts = [_frozen_model_batch(setup, t[i:i + MODEL_BATCH], names, params)
+        parts = [_frozen_model_batch(setup, t[i:i + MODEL_BATCH], names, params,
+                                     _slice_state(state, slice(i, i + MODEL_BATCH)))
                  for i in range(0, t.size, MODEL_BATCH)]
         return tuple(np.concatenate([p[j] for p in parts]) for j in range(3))
-    return _frozen_model_batch(setup, t, names, params)
+    return _frozen_model_batch(setup, t, names, params, state)
 
 
-def _frozen_model_batch(setup, t, names, params):
+def _slice_state(state, sl):
+    from .frames import FrameState
+
+    return FrameState(state.phi_rad[sl], state.colatitude_rad, state.beta[sl],
+                      None if state.orbital_phase_rad is None else state.orbital_phase_rad[sl])
+
+
+def _frozen_model_batch(setup, t, names, params, state):
     from .frames import FrameState
 
     theta = 2.0 * np.pi * np.arange(N_ANGLES) / N_ANGLES
-    state = setup.frames(t)
     if params is None:
         return _projected_basis(setup, state, theta, names)
     rep = np.repeat(np.arange(t.size), N_ANGLES)
