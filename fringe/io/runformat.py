@@ -1,0 +1,342 @@
+"""Run-file format rules (HDF5, format version 1): constants and value checks.
+
+This module holds what a run file must look like, shared by the reader
+(:mod:`fringe.io.runfile`) and the writer (:mod:`fringe.io.runwriter`): the format constants
+(name, version, allowed units, core channels, reserved groups, default chunk length), the
+apparatus-kind registry :data:`APPARATUS_KINDS`, the metadata checks (:func:`check_apparatus`,
+:func:`check_site`, :func:`check_epoch_utc`, :func:`parse_utc_iso`) and the streamed value checks
+of ``samples/time``, ``samples/azimuth`` and ``samples/signal``. Value rules raise
+:class:`Invalid`; the caller turns it into its own one-line error. The format itself is
+specified in ``docs/run-format.md``.
+"""
+
+from __future__ import annotations
+
+import datetime
+import math
+import re
+from collections.abc import Mapping
+from dataclasses import dataclass
+
+import h5py
+import numpy as np
+from numpy.typing import NDArray
+
+from ..conventions import DEFAULT_PATH_SEPARATION_DEG
+from ..errors import ConfigError
+from ..site import Site
+
+__all__ = ["APPARATUS_KINDS", "AZIMUTH_UNITS", "CORE_CHANNELS", "DEFAULT_CHUNK_SAMPLES",
+           "FORMAT_NAME", "FORMAT_VERSION", "RESERVED_GROUPS", "SIGNAL_UNITS", "TIME_UNITS",
+           "ApparatusKind", "Invalid", "check_apparatus", "check_azimuth_values",
+           "check_epoch_utc", "check_signal_values", "check_site", "check_time_values",
+           "parse_utc_iso", "plain", "show", "to_number", "to_string"]
+
+# -- the format, version 1 -------------------------------------------------------------------
+FORMAT_NAME = "run"
+FORMAT_VERSION = 1
+TIME_UNITS = ("s",)
+AZIMUTH_UNITS = ("rad", "deg")
+SIGNAL_UNITS = ("Hz", "1", "fringe")
+CORE_CHANNELS = ("time", "azimuth", "signal")
+RESERVED_GROUPS = ("site", "apparatus", "samples")
+#: 2**17 float64 samples = 1 MiB per channel (practice: 1 MiB chunks read at full speed).
+DEFAULT_CHUNK_SAMPLES = 2**17
+
+_UTC_RE = re.compile(r"(\d{4})-(\d{2})-(\d{2})T(\d{2}):(\d{2}):(\d{2}(?:\.\d+)?)(Z|\+00:00)")
+#: Also accepted where a person types the time (writer arguments, CSV cells): a space for T and
+#: no suffix or " UTC" (the time is then taken as UTC), as in :class:`fringe.frames.Epoch`.
+_UTC_LOOSE_RE = re.compile(
+    r"(\d{4})-(\d{2})-(\d{2})[T ](\d{2}):(\d{2}):(\d{2}(?:\.\d+)?)(Z|\+00:00| ?UTC)?")
+_EPOCH_HINT = "an ISO 8601 UTC time like '2027-02-03T00:00:00Z'"
+
+
+class Invalid(Exception):
+    """A value broke a format rule; ``expected`` is the text after ``OBJECT:``."""
+
+    def __init__(self, expected: str, obj: str = ""):
+        super().__init__(expected)
+        self.expected = expected
+        self.obj = obj
+
+
+def plain(value):
+    """An HDF5/TOML attribute value as a plain Python value (arrays stay numpy arrays)."""
+    if isinstance(value, np.ndarray) and value.ndim == 0:
+        value = value[()]
+    if isinstance(value, np.ndarray) and value.dtype.kind == "S":  # fixed-length strings
+        try:
+            return np.char.decode(value, "utf-8")
+        except UnicodeDecodeError:  # not UTF-8: left as bytes (refused where text is needed)
+            return value
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, bytes):
+        try:
+            value = value.decode("utf-8")
+        except UnicodeDecodeError:
+            pass
+    return value
+
+
+def show(value) -> str:
+    """Short text for a value in an error message."""
+    value = plain(value)
+    if isinstance(value, np.ndarray):
+        return f"an array of shape {value.shape}"
+    if isinstance(value, h5py.Empty):
+        return "an empty attribute"
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def to_string(value) -> str:
+    """The value as a str, or :class:`Invalid`."""
+    v = plain(value)
+    if not isinstance(v, str):
+        raise Invalid(f"expected a string, got {show(value)}")
+    return v
+
+
+def to_number(value) -> float:
+    """The value as a finite float (bools and strings refused), or :class:`Invalid`."""
+    v = plain(value)
+    if isinstance(v, bool) or not isinstance(v, (int, float)):
+        raise Invalid(f"expected a number, got {show(value)}")
+    x = float(v)
+    if not math.isfinite(x):
+        raise Invalid(f"expected a finite number, got {x!r}")
+    return x
+
+
+def _positive(value) -> float:
+    x = to_number(value)
+    if not x > 0:
+        raise Invalid(f"expected a positive number, got {x!r}")
+    return x
+
+
+def _nonzero(value) -> float:
+    x = to_number(value)
+    if x == 0:
+        raise Invalid("expected a non-zero number, got 0.0")
+    return x
+
+
+def _positive_int(value) -> int:
+    v = plain(value)
+    if isinstance(v, float) and v.is_integer():
+        v = int(v)
+    if isinstance(v, bool) or not isinstance(v, int) or v < 1:
+        raise Invalid(f"expected a positive integer, got {show(value)}")
+    return v
+
+
+def _passthrough(value):
+    """Type sanity for optional attributes: string, boolean, number or 1-D numeric array."""
+    v = plain(value)
+    if isinstance(v, (str, bool, int, float)):
+        return v
+    if isinstance(v, (list, tuple)):
+        v = np.asarray(v)
+    if isinstance(v, np.ndarray) and v.ndim == 1 and v.dtype.kind in "biuf":
+        return v.tolist()
+    raise Invalid(f"expected a string, number, boolean or one-dimensional numeric array, "
+                  f"got {show(value)}")
+
+
+@dataclass(frozen=True)
+class ApparatusKind:
+    """What the ``apparatus`` group of one kind must and may carry.
+
+    Attributes
+    ----------
+    name : str
+        The ``kind`` attribute value.
+    signal_units : tuple of str
+        Allowed ``samples/signal`` units.
+    required : tuple of (attribute, rule, description)
+    optional : tuple of (attribute, rule, default)
+    """
+
+    name: str
+    signal_units: tuple[str, ...]
+    required: tuple = ()
+    optional: tuple = ()
+
+
+_SEPARATION = ("path_separation_deg", to_number, DEFAULT_PATH_SEPARATION_DEG)
+_CARRIER = ("carrier_hz", _positive, "the carrier frequency in Hz, > 0")
+
+#: Registry of apparatus kinds (drives validation, messages and tests).
+APPARATUS_KINDS: dict[str, ApparatusKind] = {k.name: k for k in (
+    ApparatusKind("cavity-pair", ("Hz", "1"), (_CARRIER,), (_SEPARATION,)),
+    ApparatusKind("cavity-vs-reference", ("Hz", "1"), (_CARRIER,)),
+    ApparatusKind("michelson", ("fringe",),
+                  (("arm_length_m", _positive, "the arm length in m, > 0"),
+                   ("wavelength_m", _positive, "the optical wavelength in m, > 0")),
+                  (("passes", _positive_int, 1), _SEPARATION)),
+    ApparatusKind("clock", ("Hz",),
+                  (("sensitivity_hz", _nonzero, "the frequency response in Hz, non-zero"),)),
+)}
+
+
+def _kinds_text() -> str:
+    return ", ".join(repr(k) for k in APPARATUS_KINDS)
+
+
+def check_apparatus(attrs: Mapping, err, prefix: str = "apparatus") -> dict:
+    """Validate apparatus attributes; return them as plain Python types with defaults filled.
+
+    ``err(obj, expected)`` builds the exception to raise (file-specific).
+    """
+    if "kind" not in attrs:
+        raise err(f"{prefix}.kind", f"missing attribute; expected one of {_kinds_text()}")
+    kind = plain(attrs["kind"])
+    if not isinstance(kind, str) or kind not in APPARATUS_KINDS:
+        raise err(f"{prefix}.kind", f"expected one of {_kinds_text()}, got {show(kind)}")
+    spec = APPARATUS_KINDS[kind]
+    out: dict = {"kind": kind}
+    for name, _rule, what in spec.required:
+        if name not in attrs:
+            raise err(f"{prefix}.{name}", f"missing attribute; kind {kind!r} requires {what}")
+    checked = {name: rule for name, rule, _ in spec.required + spec.optional}
+    for name, value in attrs.items():
+        if name == "kind":
+            continue
+        try:
+            out[name] = checked.get(name, _passthrough)(value)
+        except Invalid as exc:
+            raise err(f"{prefix}.{name}", exc.expected) from None
+    for name, _, default in spec.optional:
+        out.setdefault(name, default)
+    return out
+
+
+def check_site(attrs: Mapping, err, prefix: str = "site") -> Site:
+    """Validate site attributes (latitude_deg, longitude_deg, optional height_m and name)."""
+    rules = (("latitude_deg", -90.0, 90.0, "geodetic latitude in degrees, north positive"),
+             ("longitude_deg", -360.0, 360.0, "east longitude in degrees"),
+             ("height_m", -12_000.0, 100_000.0, "height above the ellipsoid in m"))
+    values = {}
+    for name, lo, hi, what in rules:
+        if name not in attrs:
+            if name == "height_m":
+                continue
+            raise err(f"{prefix}.{name}", f"missing attribute; expected {what}")
+        try:
+            x = to_number(attrs[name])
+        except Invalid as exc:
+            raise err(f"{prefix}.{name}", exc.expected) from None
+        if not lo <= x <= hi:
+            raise err(f"{prefix}.{name}", f"expected a value in [{lo:g}, {hi:g}], got {x!r}")
+        values[name] = x
+    if "name" in attrs:
+        try:
+            values["name"] = to_string(attrs["name"])
+        except Invalid as exc:
+            raise err(f"{prefix}.name", exc.expected) from None
+    return Site(**values)
+
+
+def parse_utc_iso(text: str, *, strict: bool = True) -> tuple[int, int, int, int, int, float]:
+    """Split an ISO 8601 UTC time ``YYYY-MM-DDThh:mm:ss[.fff]Z`` (or ``+00:00``).
+
+    Parameters
+    ----------
+    text : str
+        The time.
+    strict : bool
+        If False, also accept a space for ``T`` and no suffix or ``UTC`` (taken as UTC).
+
+    Returns
+    -------
+    tuple
+        (year, month, day, hour, minute, second); second may be in [60, 61) only at 23:59 (a
+        leap second, not checked against the leap-second table here).
+
+    Raises
+    ------
+    ValueError
+        If the text is not such a time.
+    """
+    regex = _UTC_RE if strict else _UTC_LOOSE_RE
+    match = regex.fullmatch(text.strip()) if isinstance(text, str) else None
+    if match is None:
+        raise ValueError(text)
+    y, mo, d, h, mi = (int(g) for g in match.groups()[:5])
+    sec = float(match.group(6))
+    datetime.date(y, mo, d)  # raises ValueError for a day that does not exist
+    leap = h == 23 and mi == 59 and sec < 61.0
+    if h > 23 or mi > 59 or not (sec < 60.0 or leap):
+        raise ValueError(text)
+    return y, mo, d, h, mi, sec
+
+
+def check_epoch_utc(value, err, obj: str, *, strict: bool = True) -> str:
+    """Validate an epoch; return it (strict) or its canonical ``...Z`` form (not strict)."""
+    v = plain(value)
+    try:
+        parse_utc_iso(v, strict=strict)
+    except ValueError:
+        raise err(obj, f"expected {_EPOCH_HINT}, got {show(value)}") from None
+    if strict:
+        return v
+    m = _UTC_LOOSE_RE.fullmatch(v.strip())
+    return f"{m.group(1)}-{m.group(2)}-{m.group(3)}T{m.group(4)}:{m.group(5)}:{m.group(6)}Z"
+
+
+def _first(mask: NDArray[np.bool_]) -> int:
+    return int(np.argmax(mask))
+
+
+def check_time_values(t_s: NDArray, start: int, prev_s: float | None,
+                      obj: str = "samples/time") -> float | None:
+    """Times t_s (s) must be finite and strictly increasing, also after ``prev_s`` (the last
+    time of the previous chunk); ``start`` is the index of ``t_s[0]``. Returns the last time."""
+    bad = ~np.isfinite(t_s)
+    if bad.any():
+        i = _first(bad)
+        raise Invalid(f"expected finite values, got {float(t_s[i])!r} at index {start + i}", obj)
+    if t_s.size == 0:
+        return prev_s
+    if prev_s is not None and not t_s[0] > prev_s:
+        _order_error(float(t_s[0]), prev_s, start, obj)
+    step = t_s[1:] <= t_s[:-1]
+    if step.any():
+        i = _first(step) + 1
+        _order_error(float(t_s[i]), float(t_s[i - 1]), start + i, obj)
+    return float(t_s[-1])
+
+
+def _order_error(value: float, before: float, index: int, obj: str):
+    if value == before:
+        raise Invalid(f"expected strictly increasing values, got {value!r} repeated at index "
+                      f"{index}", obj)
+    raise Invalid(f"expected strictly increasing values, got {value!r} at index {index} after "
+                  f"{before!r}", obj)
+
+
+def check_azimuth_values(azimuth: NDArray, start: int, obj: str = "samples/azimuth") -> None:
+    """Azimuth (any angle unit) must be finite; ``start`` is the index of ``azimuth[0]``."""
+    bad = ~np.isfinite(azimuth)
+    if bad.any():
+        i = _first(bad)
+        raise Invalid(f"expected finite values (azimuth has no dropped samples), got "
+                      f"{float(azimuth[i])!r} at index {start + i}", obj)
+
+
+def check_signal_values(signal: NDArray, start: int, obj: str = "samples/signal") -> None:
+    """Signal values must be finite or NaN (a dropped sample); ±inf is refused."""
+    bad = np.isinf(signal)
+    if bad.any():
+        i = _first(bad)
+        raise Invalid(f"expected finite values or NaN (a dropped sample), got "
+                      f"{float(signal[i])!r} at index {start + i}", obj)
+
+
+def _check_chunk_size(chunk_samples) -> int:
+    if isinstance(chunk_samples, bool) or not isinstance(chunk_samples, (int, np.integer)) \
+            or chunk_samples < 1:
+        raise ConfigError(f"chunk_samples: expected a positive integer, got {chunk_samples!r}")
+    return int(chunk_samples)

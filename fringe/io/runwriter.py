@@ -1,0 +1,317 @@
+"""Run-file writer (HDF5, format version 1): :class:`RunWriter` and its private helpers.
+
+This module holds the atomic, chunk-by-chunk writer: :class:`RunWriter` validates the metadata
+with the rules of :mod:`fringe.io.runformat`, writes to a temporary file beside the output and
+renames it over the output only when the writer closes without error, so the output is whole or
+absent. The helpers refuse outputs that would replace an input or an existing file and store
+strings as fixed-length HDF5 strings. Read run files with :func:`fringe.io.runfile.open_run`.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import logging
+import os
+import secrets
+from collections.abc import Mapping, Sequence
+
+import h5py
+import numpy as np
+
+from .. import __version__
+from ..errors import ConfigError, OutputError
+from ..site import Site
+from .runformat import (
+    APPARATUS_KINDS,
+    AZIMUTH_UNITS,
+    CORE_CHANNELS,
+    DEFAULT_CHUNK_SAMPLES,
+    FORMAT_NAME,
+    FORMAT_VERSION,
+    RESERVED_GROUPS,
+    Invalid,
+    _check_chunk_size,
+    check_apparatus,
+    check_azimuth_values,
+    check_epoch_utc,
+    check_signal_values,
+    check_site,
+    check_time_values,
+    show,
+)
+
+__all__ = ["RunWriter"]
+
+logger = logging.getLogger(__name__)
+
+
+def _check_output_path(path: str, overwrite: bool, protect: Sequence) -> None:
+    """Refuse (OutputError) an output that would replace an input or an existing file."""
+    real = os.path.realpath(path)
+    for item in protect:
+        p = os.fspath(item)
+        same = os.path.realpath(p) == real
+        if not same and os.path.exists(p) and os.path.exists(path):
+            same = os.path.samefile(p, path)
+        if same:
+            raise OutputError(f"{path}: refusing to write over the input file {p}")
+    if os.path.isdir(path):
+        raise OutputError(f"{path}: expected an output file path, got a directory")
+    if not os.path.isdir(os.path.dirname(real)):
+        raise OutputError(f"{path}: the output directory does not exist")
+    if os.path.exists(path) and not overwrite:
+        raise OutputError(f"{path}: the output file exists (overwriting was not requested)")
+
+
+def _fixed_strings(values) -> np.ndarray:
+    """UTF-8 strings as fixed-length HDF5 strings: stored inside the (checksummed) object
+    header, not in the global heap, where damage can make the HDF5 library loop forever."""
+    encoded = np.asarray(np.char.encode(np.asarray(values, dtype=str), "utf-8"))
+    return encoded.astype(h5py.string_dtype("utf-8", max(1, encoded.dtype.itemsize)))
+
+
+def _attr_value(value, err, obj: str):
+    """A value h5py can store as an attribute or small dataset, or ``err``."""
+    if isinstance(value, str):
+        return _fixed_strings(value)
+    if isinstance(value, (bool, int, float, np.generic)):
+        return value
+    if isinstance(value, (list, tuple, np.ndarray)):
+        arr = np.asarray(value)
+        if arr.dtype.kind == "U":
+            return _fixed_strings(arr)
+        if arr.dtype.kind in "biuf":
+            return arr
+    raise err(obj, f"expected a string, number, boolean or numeric array, got "
+              f"{type(value).__name__}")
+
+
+def _create_temp(directory: str, name: str) -> str:
+    """Create an empty temporary file beside the output (mode from the umask, like any file)."""
+    for _ in range(100):
+        tmp = os.path.join(directory, f".{name}.{secrets.token_hex(6)}.tmp")
+        try:
+            os.close(os.open(tmp, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o666))
+            return tmp
+        except FileExistsError:
+            continue
+    raise OutputError(f"{os.path.join(directory, name)}: cannot create a temporary file")
+
+
+class RunWriter:
+    """Write a run file chunk by chunk; the output appears whole on success or not at all.
+
+    Data go to a temporary file in the output's directory, renamed over ``path`` (``os.replace``)
+    when the ``with`` block ends without an exception; an exception removes the temporary file.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        Output run file.
+    site : Site or mapping
+        Laboratory site (latitude_deg, longitude_deg, height_m, name).
+    apparatus : mapping
+        ``apparatus`` attributes: ``kind`` and the kind's attributes (see ``APPARATUS_KINDS``).
+    epoch_utc : str
+        ISO 8601 UTC epoch of the time axis, e.g. ``"2027-02-03T00:00:00Z"``.
+    signal_units : str
+        ``"Hz"``, ``"1"`` or ``"fringe"`` (as allowed for the kind).
+    azimuth_units : str
+        ``"rad"`` or ``"deg"``: units of the azimuths passed to :meth:`append` (stored as is).
+    aux_channels : mapping of str to str, optional
+        Auxiliary channel name -> units string; every :meth:`append` must give each of them.
+    overwrite : bool
+        Replace an existing output.
+    protect : sequence of path
+        Inputs that must never be written over (checked by resolved path and by file identity).
+    chunk_samples : int
+        HDF5 chunk length of the sample datasets.
+    compression : None, "lzf" or "gzip"
+        Dataset filter; None (default) is fastest to read and write, "gzip" is for archives.
+
+    Raises
+    ------
+    ConfigError
+        Invalid metadata (``PATH: apparatus.kind: expected ...``).
+    OutputError
+        Output exists, would replace an input, or appended data break the format.
+
+    Examples
+    --------
+    >>> with RunWriter("run.h5", site=Site(48.1, 11.6), epoch_utc="2027-02-03T00:00:00Z",
+    ...                apparatus={"kind": "cavity-pair", "carrier_hz": 2.8e14},
+    ...                signal_units="Hz") as w:                   # doctest: +SKIP
+    ...     w.append(t_s, azimuth_rad, beat_hz)
+    """
+
+    def __init__(self, path: str | os.PathLike, *, site: Site | Mapping, apparatus: Mapping,
+                 epoch_utc: str, signal_units: str, azimuth_units: str = "rad",
+                 aux_channels: Mapping[str, str] | None = None, overwrite: bool = False,
+                 protect: Sequence = (), chunk_samples: int = DEFAULT_CHUNK_SAMPLES,
+                 compression: str | None = None):
+        self.path = os.fspath(path)
+        cfg = self._config_err
+        self.site = site if isinstance(site, Site) else check_site(dict(site), cfg)
+        self.apparatus = check_apparatus(dict(apparatus), cfg)
+        self.epoch_utc = check_epoch_utc(epoch_utc, cfg, "samples/time.epoch_utc", strict=False)
+        allowed = APPARATUS_KINDS[self.apparatus["kind"]].signal_units
+        if signal_units not in allowed:
+            raise cfg("samples/signal.units", f"expected {' or '.join(map(repr, allowed))} "
+                      f"for kind {self.apparatus['kind']!r}, got {show(signal_units)}")
+        if azimuth_units not in AZIMUTH_UNITS:
+            raise cfg("samples/azimuth.units", f"expected 'rad' or 'deg', got "
+                      f"{show(azimuth_units)}")
+        self.signal_units, self.azimuth_units = signal_units, azimuth_units
+        self.aux_channels = dict(aux_channels or {})
+        for name, units in self.aux_channels.items():
+            if not isinstance(name, str) or not name or name in CORE_CHANNELS \
+                    or "/" in name or "." in name:
+                raise cfg("aux_channels", f"expected channel names other than time, azimuth "
+                          f"and signal, without '/' or '.', got {show(name)}")
+            if not isinstance(units, str) or not units.strip():
+                raise cfg(f"samples/{name}.units", f"expected a units string, got {show(units)}")
+        if compression not in (None, "lzf", "gzip"):
+            raise cfg("compression", f"expected None, 'lzf' or 'gzip', got {show(compression)}")
+        self._chunk = _check_chunk_size(chunk_samples)
+        self._compression = compression
+        self._overwrite, self._protect = overwrite, tuple(protect)
+        _check_output_path(self.path, overwrite, self._protect)
+        self._file: h5py.File | None = None
+        self._tmp: str | None = None
+        self._groups: set[str] = set()
+        self.n_samples = 0
+        self._last_t: float | None = None
+
+    def _config_err(self, obj: str, expected: str) -> ConfigError:
+        return ConfigError(f"{self.path}: {obj}: {expected}")
+
+    def _output_err(self, obj: str, expected: str) -> OutputError:
+        return OutputError(f"{self.path}: {obj}: {expected}")
+
+    def __enter__(self) -> RunWriter:
+        directory = os.path.dirname(os.path.realpath(self.path))
+        self._tmp = _create_temp(directory, os.path.basename(self.path))
+        try:
+            self._file = f = h5py.File(self._tmp, "w", libver=("v108", "latest"))
+            f.attrs["fringe_format"] = _fixed_strings(FORMAT_NAME)
+            f.attrs["fringe_format_version"] = np.int64(FORMAT_VERSION)
+            f.attrs["written_by"] = _fixed_strings(f"fringe {__version__}")
+            site = f.create_group("site")
+            for key, value in self.site.to_dict().items():
+                if key != "name" or value:
+                    site.attrs[key] = _attr_value(value, self._config_err, f"site.{key}")
+            app = f.create_group("apparatus")
+            for key, value in self.apparatus.items():
+                app.attrs[key] = _attr_value(value, self._config_err, f"apparatus.{key}")
+            samples = f.create_group("samples")
+            units = {"time": "s", "azimuth": self.azimuth_units, "signal": self.signal_units,
+                     **self.aux_channels}
+            for name, unit in units.items():
+                ds = samples.create_dataset(name, shape=(0,), maxshape=(None,), dtype="f8",
+                                            chunks=(self._chunk,), compression=self._compression)
+                ds.attrs["units"] = _fixed_strings(unit)
+            samples["time"].attrs["epoch_utc"] = _fixed_strings(self.epoch_utc)
+        except BaseException:
+            self.abort()
+            raise
+        return self
+
+    def __exit__(self, exc_type, exc, tb) -> None:
+        if exc_type is None:
+            self.close()
+        else:
+            self.abort()
+
+    def _require_open(self) -> h5py.File:
+        if self._file is None:
+            raise RuntimeError("RunWriter is not open: use it as a context manager")
+        return self._file
+
+    def append(self, time_s, azimuth, signal, **aux) -> None:
+        """Append samples: time (s since epoch), azimuth (``azimuth_units``), signal, aux.
+
+        All arrays are one-dimensional of one length. Time must be finite and strictly
+        increasing, also across calls; azimuth finite; signal finite or NaN.
+        """
+        f = self._require_open()
+        if set(aux) != set(self.aux_channels):
+            raise self._output_err("samples", f"expected auxiliary channels "
+                                   f"{sorted(self.aux_channels)}, got {sorted(aux)}")
+        arrays = {}
+        for name, value in {"time": time_s, "azimuth": azimuth, "signal": signal, **aux}.items():
+            try:
+                arr = np.ascontiguousarray(value, dtype=np.float64)
+            except (TypeError, ValueError):
+                raise self._output_err(f"samples/{name}", "expected numbers") from None
+            if arr.ndim != 1:
+                raise self._output_err(f"samples/{name}", f"expected a one-dimensional array, "
+                                       f"got shape {arr.shape}")
+            arrays[name] = arr
+        m = arrays["time"].size
+        for name, arr in arrays.items():
+            if arr.size != m:
+                raise self._output_err(f"samples/{name}", f"expected the length of time ({m}), "
+                                       f"got {arr.size}")
+        try:
+            last = check_time_values(arrays["time"], self.n_samples, self._last_t)
+            check_azimuth_values(arrays["azimuth"], self.n_samples)
+            check_signal_values(arrays["signal"], self.n_samples)
+        except Invalid as exc:
+            raise self._output_err(exc.obj, exc.expected) from None
+        if m == 0:
+            return
+        n = self.n_samples
+        for name, arr in arrays.items():
+            ds = f["samples"][name]
+            ds.resize((n + m,))
+            ds.write_direct(arr, dest_sel=np.s_[n:n + m])
+        self.n_samples, self._last_t = n + m, last
+
+    def write_group(self, name: str, attrs: Mapping, datasets: Mapping | None = None) -> None:
+        """Write an extra root group (e.g. ``truth``, ``settings``, ``provenance``).
+
+        Attribute values and datasets: strings, booleans, numbers or numeric/string arrays.
+        """
+        f = self._require_open()
+        if not isinstance(name, str) or not name or "/" in name or name in RESERVED_GROUPS \
+                or name in self._groups:
+            raise self._config_err("group", f"expected a new group name other than site, "
+                                   f"apparatus and samples, without '/', got {show(name)}")
+        group = f.create_group(name)
+        self._groups.add(name)
+        for key, value in dict(attrs).items():
+            group.attrs[key] = _attr_value(value, self._config_err, f"{name}.{key}")
+        for key, value in dict(datasets or {}).items():
+            group.create_dataset(key, data=_attr_value(value, self._config_err, f"{name}/{key}"))
+
+    def close(self) -> None:
+        """Finish the file and rename it over ``path`` (no-op if already closed)."""
+        if self._file is None:
+            return
+        try:
+            if self.n_samples == 0:
+                raise self._output_err("samples", "expected at least one sample, none appended")
+            self._file.close()
+            with open(self._tmp, "rb+") as fh:
+                os.fsync(fh.fileno())
+            if os.path.exists(self.path) and not self._overwrite:
+                raise OutputError(f"{self.path}: the output file exists (overwriting was not "
+                                  f"requested)")
+            os.replace(self._tmp, self.path)
+            self._file, self._tmp = None, None
+        except BaseException:
+            self.abort()
+            raise
+
+    def abort(self) -> None:
+        """Discard the temporary file; the output is left as it was."""
+        if self._file is not None:
+            try:
+                self._file.close()
+            except (OSError, RuntimeError) as exc:  # the file is discarded anyway
+                logger.debug("closing %s failed: %s", self._tmp, exc)
+            self._file = None
+        if self._tmp is not None:
+            with contextlib.suppress(FileNotFoundError):
+                os.remove(self._tmp)
+            self._tmp = None
