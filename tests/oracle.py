@@ -1,6 +1,6 @@
 """Independent reference oracle for the tests (checks.md §10).
 
-A direct transcription of physics.md §1.4 (dictionary), §1.6 (R), §1.9 (first-order boost),
+A direct implementation of physics.md §1.4 (dictionary), §1.6 (R), §1.9 (first-order boost),
 §1.10 (single cavity), §1.12 (two-path signal) and §3.5 (K_RMS). It shares no code with
 ``fringe`` and is used only by the tests, as a second implementation of the same formulas.
 """

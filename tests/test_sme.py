@@ -2,7 +2,7 @@
 
 Every number from outside the code names its source on the line beside it. The production route
 is ``SmePhoton.path_shift`` (and ``Setup``/``basis``/``signal``); ``oracle.py`` is an independent
-transcription of the first-order formulas of physics.md.
+implementation of the first-order formulas of physics.md.
 """
 
 import itertools
