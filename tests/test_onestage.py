@@ -15,7 +15,6 @@
 
 from __future__ import annotations
 
-import copy
 import dataclasses
 import json
 import math
@@ -23,6 +22,7 @@ import warnings
 
 import numpy as np
 import pytest
+from run_helpers import BASE, CARRIER_HZ, KE_TRUTH, WHITE_FM, simulate_run  # noqa: F401
 
 from fringe.analysis import fit_run, setup_from_run
 from fringe.demodulate import DRIFT_TERMS, DemodSettings
@@ -31,41 +31,13 @@ from fringe.errors import ConfigError, FitError, SystematicsWarning
 from fringe.fit import FitSettings, fit_coefficients
 from fringe.io.runfile import RunWriter
 from fringe.onestage import one_stage_fit
-from fringe.scenario import scenario_from_dict
 from fringe.signal import basis, signal
-from fringe.simulate import simulate
 from fringe.theories import KE_NAMES
 
-CARRIER_HZ = 2.82e14
 
-# An invented laboratory (no real site), as in examples/cavity_pair.toml.
-BASE = {
-    "title": "test scenario (invented)",
-    "site": {"name": "Kestrel Fen optics cellar (invented)", "latitude_deg": 47.62,
-             "longitude_deg": 11.38, "height_m": 610.0},
-    "campaign": {"start_utc": "2027-02-03T00:00:00Z", "duration_days": 1.0,
-                 "sample_interval_s": 1.0},
-    "apparatus": {"kind": "cavity-pair", "carrier_hz": CARRIER_HZ, "path_separation_deg": 90.0,
-                  "units": "Hz"},
-    "turntable": {"motion": "continuous", "period_s": 45.0, "sense": "ccw",
-                  "start_azimuth_deg": 0.0},
-    "theory": {"name": "sme"},
-    "noise": {"white_fm_adev_1s": 2e-15},
-}
-
-KE_TRUTH = {"ke_XY": 2.0e-16, "ke_XZ": -1.5e-16, "ke_YZ": 1.0e-16, "ke_XXmYY": -3.0e-16,
-            "ke_ZZ": 2.5e-16}
-
-
-def make_run(path, *, seed, days, period_s=45.0, interval_s=1.0, coefficients=None, **sections):
-    doc = copy.deepcopy(BASE)
-    doc["campaign"].update(duration_days=days, sample_interval_s=interval_s)
-    doc["turntable"]["period_s"] = period_s
-    doc["coefficients"] = dict(coefficients or {})
-    doc.update(sections)
-    sc = scenario_from_dict(doc, "test scenario")
-    simulate(sc, path, seed=seed)
-    return str(path)
+def make_run(path, *, seed, days, **kw):
+    """The run's path only (see run_helpers.simulate_run)."""
+    return simulate_run(path, seed=seed, days=days, **kw)[0]
 
 
 # ---------------------------------------------------------------------------------------------
