@@ -550,3 +550,15 @@ def noise_from_section(section: dict | None, source: str = "scenario",
     if model.h2 == model.h0 == model.hm1 == model.hm2 == 0.0:
         raise ConfigError(f"{where}: every noise level is zero (expected at least one > 0)")
     return model
+
+
+def noise_scale(apparatus, units: str) -> float:
+    """Factor k from the ``[noise]`` levels to the observable's ``units`` (simulate and plan).
+
+    Cavity apparatus: the levels are fractional frequency, k = 1 for units "1" and
+    k = ``carrier_hz`` for Hz. Michelson ("fringe") and clock ("Hz") apparatus: k = 1, i.e. the
+    levels are read in the observable's own units (they have no carrier to scale by).
+    """
+    if apparatus.kind in ("michelson", "clock") or units not in ("Hz", "1"):
+        return 1.0
+    return float(apparatus.scale(units))

@@ -43,7 +43,13 @@ from numpy.typing import NDArray
 
 from .constants import DAY_S, STELLAR_DAY_S
 from .errors import ConfigError, DegeneracyWarning, check_finite_number
-from .noise import ADEV_FIELDS, PSD_FIELDS, PowerLawNoise, noise_from_section  # noqa: F401
+from .noise import (  # noqa: F401  (re-exported)
+    ADEV_FIELDS,
+    PSD_FIELDS,
+    PowerLawNoise,
+    noise_from_section,
+    noise_scale,
+)
 from .plan_montecarlo import monte_carlo_check
 from .plan_result import MonteCarloCheck, PlanResult, TargetAnswer
 from .schedule import SteppedRotation
@@ -65,18 +71,6 @@ NUISANCES: dict[str, tuple[float, float]] = {"lab_B0": (0.0, 1.0), "lab_C0": (1.
 RCOND = 1e-12
 #: Longest turn the per-turn model is used for, s (must be << a sidereal day).
 MAX_PERIOD_S = 3600.0
-
-
-def noise_scale(apparatus, units: str) -> float:
-    """Factor k from the ``[noise]`` levels to the observable's ``units`` (as ``fringe simulate``).
-
-    Cavity apparatus: the levels are fractional frequency, k = 1 for units "1" and
-    k = ``carrier_hz`` for Hz. Michelson ("fringe") and clock ("Hz") apparatus: k = 1, i.e. the
-    levels are read in the observable's own units (they have no carrier to scale by).
-    """
-    if apparatus.kind in ("michelson", "clock") or units not in ("Hz", "1"):
-        return 1.0
-    return float(apparatus.scale(units))
 
 
 def turn_amplitude_variance(noise: PowerLawNoise, period_s: float, duty: float = 1.0) -> float:

@@ -31,7 +31,7 @@ import numpy as np
 
 from . import __version__
 from .errors import ConfigError, check_finite_number
-from .noise import NoiseStream, PowerLawNoise, noise_from_section
+from .noise import NoiseStream, PowerLawNoise, noise_from_section, noise_scale
 from .scenario import Scenario
 from .signal import CHUNK_SAMPLES, signal
 
@@ -43,6 +43,12 @@ def noise_model_from_section(section: dict | None, source: str, sample_interval_
     if not section:
         return PowerLawNoise()
     return noise_from_section(section, source, sample_interval_s)
+
+
+#: Amplitude of the recorded ``tilt_south`` auxiliary channel written alongside a 1 theta tilt
+#: coupling, rad (an invented tiltmeter reading of the wobbling axis; it only labels the
+#: coupling's phase for regression tests).
+TILT_CHANNEL_AMPLITUDE_RAD = 1e-6
 
 
 @dataclass(frozen=True)
@@ -125,9 +131,7 @@ def simulate(scenario: Scenario, out_path, *, seed: int, overwrite: bool = False
         noise, syst = PowerLawNoise(), Systematics()
     rng = np.random.default_rng(seed)
     setup = scenario.setup()
-    scale = setup.apparatus.scale(scenario.units) if scenario.units in ("Hz", "1") else 1.0
-    if setup.apparatus.kind in ("michelson", "clock"):
-        scale = 1.0
+    scale = noise_scale(setup.apparatus, scenario.units)
     duration = scenario.duration_s
     day = 86400.0
     n_gaps = rng.poisson(syst.gaps_per_day * duration / day)
@@ -197,7 +201,8 @@ def simulate(scenario: Scenario, out_path, *, seed: int, overwrite: bool = False
             keep = ~_gap_mask(t, gaps)
             aux = {}
             if syst.tilt_1theta:
-                aux["tilt_south"] = (1e-6 * np.cos(theta - (np.pi - a_t)))[keep]
+                aux["tilt_south"] = (TILT_CHANNEL_AMPLITUDE_RAD
+                                     * np.cos(theta - (np.pi - a_t)))[keep]
             if np.any(keep):
                 w.append(t[keep], az[keep], y[keep], **aux)
                 n_written += int(np.sum(keep))
