@@ -7,10 +7,10 @@ by linear least squares with
     y(t) = a0 + a1 tau [+ a2 tau^2] + c1 cos theta + s1 sin theta + C cos 2 theta + B sin 2 theta
            [+ 3 theta, 4 theta terms],      tau = (t - t_mid)/(half span of the block),
 
-using the recorded azimuth (not an assumed rate). NaN samples are left out. All blocks of a
-chunk are solved in one pass: per-sample products are summed per block (``np.add.reduceat``)
-into normal matrices and the batch is solved with ``np.linalg.solve``; no Python loop runs over
-blocks. Auxiliary channels are demodulated with the same design.
+using the recorded azimuth (not an assumed rate). NaN samples are left out. The blocks of a
+range are fitted by the compiled kernel :func:`fringe.demodulate_kernel.block_fits` (one block at
+a time, three passes over its samples while they are in cache; no Python loop over blocks).
+Auxiliary channels are demodulated with the same design.
 
 Each block also records the (C, B) response of the fit to the slowly varying unit columns
 tau^j cos 2 theta, tau^j sin 2 theta (j = 1 ... LEAK_ORDER) and tau^j (drift order < j <=
@@ -22,7 +22,8 @@ signal, see :func:`fringe.fit.turn_model`).
 Rejection rules, counted in :class:`TurnTable`:
 
 * **partial**: fewer than ``min_samples`` valid samples, an angular gap (largest gap in
-  theta mod 2 pi among the valid samples) above ``max_angle_gap_deg``, or a singular block;
+  theta mod 2 pi among the valid samples) above ``max_angle_gap_deg``, or a singular
+  block (the rank guard of :mod:`fringe.demodulate_kernel`);
 * **glitch**: residual RMS above median + ``glitch_threshold`` x 1.4826 x MAD of the residual
   RMS over all otherwise-good blocks (applied once the whole record is demodulated).
 
@@ -38,6 +39,8 @@ from dataclasses import dataclass, field, fields
 import numpy as np
 from numpy.typing import NDArray
 
+from .demodulate_kernel import LEAK_KIND_CODES, block_fits
+from .demodulate_kernel import block_starts as kernel_block_starts
 from .errors import ConfigError, FitError
 
 DRIFT_TERMS = {"offset": 1, "linear": 2, "quadratic": 3}
@@ -210,73 +213,17 @@ def turn_boundaries(theta_rad: NDArray, theta0_rad: float, t_s: NDArray, max_gap
     A block starts where theta - theta0 crosses a multiple of 2 pi (either sense), or after a time
     gap longer than ``max_gap_s``. ``theta_prev``/``t_prev`` give the sample before the first one.
     """
-    th = np.asarray(theta_rad, float)
-    if theta_prev is None:
-        prev_th, prev_t = np.concatenate([[th[0]], th[:-1]]), np.concatenate([[t_s[0]], t_s[:-1]])
-    else:
-        prev_th = np.concatenate([[theta_prev], th[:-1]])
-        prev_t = np.concatenate([[t_prev], t_s[:-1]])
-    psi_prev = np.mod(prev_th - theta0_rad, 2 * np.pi)
-    step = np.mod(th - prev_th + np.pi, 2 * np.pi) - np.pi
-    s = psi_prev + step
-    out = (s >= 2 * np.pi) | (s < 0.0) | ((t_s - prev_t) > max_gap_s)
-    if theta_prev is None:
-        out[0] = False
-    return out
-
-
-def _harmonics(theta: NDArray, max_harmonic: int) -> list[NDArray]:
-    z1 = np.exp(1j * theta)
-    cols, z = [], z1
-    for _ in range(max_harmonic):
-        cols += [z.real, z.imag]
-        z = z * z1
-    return cols
-
-
-def _padded_products(x, v, starts, counts):
-    lmax = int(counts.max())
-    offs = np.arange(lmax)
-    idx = starts[:, None] + offs[None, :]
-    pad = offs[None, :] >= counts[:, None]
-    idx[pad] = 0
-    xp = x[idx]
-    xp[pad] = 0.0
-    vp = v[idx]
-    vp[pad] = 0.0
-    xt = np.swapaxes(xp, 1, 2)
-    return np.matmul(xt, xp), np.matmul(xt, vp)
-
-
-def _block_sums(x: NDArray, v: NDArray, starts: NDArray, counts: NDArray
-                ) -> tuple[NDArray, NDArray]:
-    """Per-block X_bᵀ X_b and X_bᵀ V_b for contiguous blocks.
-
-    Blocks are laid into zero-padded (n_blocks, L, .) arrays and multiplied with batched matrix
-    products (BLAS), several times faster than summing per-sample outer products. Blocks of very
-    unequal lengths are grouped by length (powers of two) so padding stays below 2x. A block's
-    sums do not depend on its neighbours (trailing zeros add nothing), so any split of the
-    record into ranges gives the same numbers.
-    """
-    n, p = x.shape
-    nb = starts.size
-    if nb == 0:
-        return np.zeros((0, p, p)), np.zeros((0, p, v.shape[1]))
-    if nb * int(counts.max()) <= 2 * n + 64:
-        return _padded_products(x, v, starts, counts)
-    normal = np.zeros((nb, p, p))
-    rhs = np.zeros((nb, p, v.shape[1]))
-    octave = np.ceil(np.log2(np.maximum(counts, 1))).astype(int)
-    for o in np.unique(octave):
-        m = octave == o
-        normal[m], rhs[m] = _padded_products(x, v, starts[m], counts[m])
-    return normal, rhs
+    has_prev = theta_prev is not None
+    return kernel_block_starts(np.ascontiguousarray(theta_rad, float),
+                               np.ascontiguousarray(t_s, float), float(theta0_rad),
+                               float(max_gap_s), float(theta_prev) if has_prev else 0.0,
+                               float(t_prev) if has_prev else 0.0, has_prev)
 
 
 def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_starts: NDArray,
                       settings: DemodSettings, aux: dict[str, NDArray] | None = None
                       ) -> TurnTable:
-    """Fit every block of a contiguous sample range in one vectorised pass.
+    """Fit every block of a contiguous sample range (compiled kernel, module docstring).
 
     Parameters
     ----------
@@ -289,82 +236,22 @@ def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_star
         Auxiliary channels (name -> (n,) array) demodulated with the same design.
     """
     aux = aux or {}
+    names = list(aux)
     n = t_s.size
-    nb = block_starts.size
-    counts = np.diff(np.append(block_starts, n))
-    bid = np.repeat(np.arange(nb), counts)
-    valid = np.isfinite(y)
-    for a in aux.values():
-        valid &= np.isfinite(a)
-    theta = np.pi - azimuth_rad
-
-    # block time centre and half span from valid samples
-    vcount = np.bincount(bid, weights=valid, minlength=nb)
-    safe = np.maximum(vcount, 1)
-    t_mid = np.bincount(bid, weights=np.where(valid, t_s, 0.0), minlength=nb) / safe
-    t_lo = np.full(nb, np.inf)
-    t_hi = np.full(nb, -np.inf)
-    np.minimum.at(t_lo, bid[valid], t_s[valid])
-    np.maximum.at(t_hi, bid[valid], t_s[valid])
-    half = np.maximum(0.5 * (t_hi - t_lo), 1e-9)
-    tau = np.where(valid, (t_s - t_mid[bid]) / half[bid], 0.0)
-
-    nd = DRIFT_TERMS[settings.drift]
-    cols = [np.ones(n), tau, tau * tau][:nd] + _harmonics(theta, settings.max_harmonic)
-    x = np.stack(cols, axis=1) * valid[:, None]                      # (n, p)
-    p = x.shape[1]
-    starts = block_starts.astype(np.intp)
-    y0 = np.where(valid, y, 0.0)
-    aux_names = list(aux)
-    unit = {"C": cols[nd + 2], "B": cols[nd + 3], "A": 1.0}
-    tpow = {1: tau, 2: tau * tau, 3: tau * tau * tau}
-    vectors = np.stack([y0] + [np.where(valid, aux[name], 0.0) for name in aux_names]
-                       + [unit[kind] * tpow[j] for kind, j in leak_terms(settings)], axis=1)
-    normal, rhs = _block_sums(x, vectors, starts, counts)     # (nb, p, p), (nb, p, r)
-
-    # angular coverage: largest gap of theta mod 2 pi among valid samples of each block
-    psi = np.mod(theta, 2 * np.pi)
-    order = np.lexsort((psi, bid))
-    ob, op, ov = bid[order], psi[order], valid[order]
-    ob, op = ob[ov], op[ov]
-    gap = np.zeros(nb)
-    if ob.size:
-        d = np.diff(op)
-        same = ob[1:] == ob[:-1]
-        np.maximum.at(gap, ob[1:][same], d[same])
-        first = np.ones(ob.size, bool)
-        first[1:] = ~same
-        last = np.ones(ob.size, bool)
-        last[:-1] = ~same
-        wrap = op[first] + 2 * np.pi - op[last]
-        np.maximum.at(gap, ob[first], wrap)
-    gap_deg = np.degrees(np.where(vcount > 0, gap, 2 * np.pi))
-
-    # solve, with rank guard
-    scale = np.sqrt(np.maximum(np.einsum("bii->bi", normal), 1e-300))
-    nn = normal / scale[:, :, None] / scale[:, None, :]
-    ok = (vcount >= max(settings.min_samples, p + 2)) & (gap_deg <= settings.max_angle_gap_deg)
-    eig_min = np.full(nb, 0.0)
-    if np.any(ok):
-        eig_min[ok] = np.linalg.eigvalsh(nn[ok])[:, 0]
-    ok &= eig_min > 1e-8
-    nn_safe = np.where(ok[:, None, None], nn, np.eye(p))
-    inv = np.linalg.inv(nn_safe) / scale[:, :, None] / scale[:, None, :]
-    sol = np.einsum("bij,bjk->bik", inv, rhs)                         # (nb, p, 1 + n_aux)
-    coef = np.where(ok[:, None], sol[:, :, 0], np.nan)
-
-    resid = np.where(valid, y0 - np.einsum("np,np->n", x, np.nan_to_num(coef)[bid]), 0.0)
-    chi2 = np.bincount(bid, weights=resid * resid, minlength=nb)
-    dof = np.maximum(vcount - p, 1)
-    rms = np.where(ok, np.sqrt(chi2 / dof), np.nan)
+    aux_2d = (np.stack([np.asarray(aux[k], float) for k in names], axis=1) if names
+              else np.zeros((n, 0)))
+    kinds = leak_terms(settings)
+    (vcount, t_mid, t_lo, t_hi, sol, ninv_2, rms, gap_rad, ok) = block_fits(
+        np.ascontiguousarray(t_s, float), np.pi - np.asarray(azimuth_rad, float),
+        np.ascontiguousarray(y, float), aux_2d, np.asarray(block_starts, np.int64),
+        DRIFT_TERMS[settings.drift], settings.max_harmonic,
+        np.array([LEAK_KIND_CODES[k] for k, _ in kinds], np.int64),
+        np.array([j for _, j in kinds], np.int64), settings.min_samples,
+        np.radians(settings.max_angle_gap_deg))
     ic, isn = settings.index("c2"), settings.index("s2")
-    ninv_2 = inv[:, [ic, isn]][:, :, [ic, isn]]
     status = np.where(ok, TurnTable.ACCEPTED, TurnTable.PARTIAL).astype(np.int8)
-    aux_out = {name: np.where(ok[:, None], sol[:, :, 1 + j], np.nan)
-               for j, name in enumerate(aux_names)}
-    leak = sol[:, [ic, isn], 1 + len(aux_names):]
-    leak = np.where(ok[:, None, None], leak, np.nan)
-    return TurnTable(t_mid_s=t_mid, t_start_s=np.where(vcount > 0, t_lo, np.nan),
-                     t_stop_s=np.where(vcount > 0, t_hi, np.nan), n_valid=vcount.astype(np.int64),
-                     coef=coef, ninv_2=ninv_2, residual_rms=rms, angle_gap_deg=gap_deg,
-                     status=status, settings=settings, aux=aux_out, leak=leak)
+    return TurnTable(t_mid_s=t_mid, t_start_s=t_lo, t_stop_s=t_hi, n_valid=vcount,
+                     coef=sol[:, :, 0].copy(), ninv_2=ninv_2, residual_rms=rms,
+                     angle_gap_deg=np.degrees(gap_rad), status=status, settings=settings,
+                     aux={name: sol[:, :, 1 + j].copy() for j, name in enumerate(names)},
+                     leak=sol[:, [ic, isn], 1 + len(names):])

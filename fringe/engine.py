@@ -39,12 +39,13 @@ class RecordInfo:
     turn_period_s: float
     max_gap_s: float
     aux_channels: tuple[str, ...]
+    lookahead_samples: int = 1 << 16
 
 
 def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = ()
            ) -> RecordInfo:
     """Reference angle, turn period and gap threshold from the start of the record."""
-    with open_run(path) as run:
+    with open_run(path, check_values=False) as run:      # each range checks what it reads
         n = run.n_samples
         first = next(run.iter_chunks(min(n, 1 << 16), ("time", "azimuth"), copy=True))
         for name in aux_channels:
@@ -65,63 +66,74 @@ def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = (
         raise FitError(f"{path}: samples/azimuth: cannot estimate the turn period from the "
                        "first samples")
     max_gap = settings.max_gap_s if settings.max_gap_s is not None else 0.25 * period
+    ahead = 4 * period / max(float(np.median(dt)), 1e-9)       # about four turns of samples
     return RecordInfo(path=str(path), n_samples=n, theta0_rad=float(theta[0] % (2 * np.pi)),
                       turn_period_s=float(period), max_gap_s=float(max_gap),
-                      aux_channels=tuple(aux_channels))
+                      aux_channels=tuple(aux_channels),
+                      lookahead_samples=int(min(max(ahead, 64), 1 << 20)))
 
 
 def _read(run, start: int, stop: int, channels) -> dict:
-    parts = list(run.iter_chunks(max(stop - start, 1), channels, start=start, stop=stop,
-                                 copy=True))
-    return {c: np.concatenate([p[c] for p in parts]) if parts else np.zeros(0)
-            for c in channels}
+    """Samples [start, stop) of the channels, value-checked. One chunk spans the whole range and
+    iter_chunks allocates its buffers per call, so the arrays it yields are ours (no copy)."""
+    for chunk in run.iter_chunks(max(stop - start, 1), channels, start=start, stop=stop):
+        return chunk
+    return {c: np.zeros(0) for c in channels}
 
 
-def range_samples_and_blocks(info: RecordInfo, start: int, stop: int
+def range_samples_and_blocks(info: RecordInfo, start: int, stop: int, run=None
                              ) -> tuple[dict, np.ndarray] | None:
     """Samples of the blocks starting in [start, stop), read ahead to complete the last one.
 
+    ``run`` is an open :class:`~fringe.io.runfile.RunFile` of ``info.path`` to read from (it
+    may be shared between threads: h5py serialises its calls); None opens the file here.
     Returns (channel -> array, block start indices into those arrays), or None when no block
     starts in the range.
     """
+    if run is None:
+        with open_run(info.path, check_values=False) as own:
+            return range_samples_and_blocks(info, start, stop, own)
     channels = ("time", "azimuth", "signal") + info.aux_channels
-    with open_run(info.path, check_values=False) as run:
-        lo = max(start - 1, 0)
-        data = _read(run, lo, stop, channels)
-        t, th = data["time"], np.pi - data["azimuth"]
-        if start > 0:
-            bnd = turn_boundaries(th[1:], info.theta0_rad, t[1:], info.max_gap_s,
-                                  theta_prev=th[0], t_prev=t[0])
-            data = {c: v[1:] for c, v in data.items()}
-        else:
-            bnd = turn_boundaries(th, info.theta0_rad, t, info.max_gap_s)
-            bnd[0] = True
-        starts = np.flatnonzero(bnd)
-        if starts.size == 0:
-            return None
-        dt = np.median(np.diff(t)) if t.size > 1 else 1.0
-        ratio = 4 * info.turn_period_s / max(dt, 1e-9)
-        step = int(min(max(ratio, 64), 1 << 20)) if np.isfinite(ratio) else 1 << 16
-        pos = stop
-        while pos < info.n_samples:
-            more = _read(run, pos, min(pos + step, info.n_samples), channels)
-            tm, thm = more["time"], np.pi - more["azimuth"]
-            b = turn_boundaries(thm, info.theta0_rad, tm, info.max_gap_s,
-                                theta_prev=np.pi - data["azimuth"][-1], t_prev=data["time"][-1])
-            hit = np.flatnonzero(b)
-            cut = hit[0] if hit.size else tm.size
-            data = {c: np.concatenate([data[c], more[c][:cut]]) for c in channels}
-            if hit.size:
-                break
-            pos += tm.size
-    first = starts[0]
-    return {c: v[first:] for c, v in data.items()}, starts - first
+    n = info.n_samples
+    pos = min(stop + info.lookahead_samples, n)
+    lo = max(start - 1, 0)
+    data = _read(run, lo, pos, channels)
+    t, th = data["time"], np.pi - data["azimuth"]
+    if start > 0:
+        bnd = turn_boundaries(th[1:], info.theta0_rad, t[1:], info.max_gap_s,
+                              theta_prev=th[0], t_prev=t[0])
+        data = {c: v[1:] for c, v in data.items()}
+    else:
+        bnd = turn_boundaries(th, info.theta0_rad, t, info.max_gap_s)
+        bnd[0] = True
+    starts = np.flatnonzero(bnd)                       # sample indices after `start`
+    inside = starts[starts < stop - start]
+    if inside.size == 0:
+        return None
+    after = starts[starts >= stop - start]
+    parts, length = [data], data["time"].size
+    while after.size == 0 and pos < n:                 # the last block is longer: read on
+        more = _read(run, pos, min(pos + info.lookahead_samples, n), channels)
+        prev = parts[-1]
+        hit = np.flatnonzero(turn_boundaries(
+            np.pi - more["azimuth"], info.theta0_rad, more["time"], info.max_gap_s,
+            theta_prev=np.pi - prev["azimuth"][-1], t_prev=prev["time"][-1]))
+        after = hit + length
+        parts.append(more)
+        length += more["time"].size
+        pos += more["time"].size
+    if len(parts) > 1:
+        data = {c: np.concatenate([p[c] for p in parts]) for c in channels}
+    end = int(after[0]) if after.size else length
+    first = int(inside[0])
+    return {c: v[first:end] for c, v in data.items()}, inside - first
 
 
-def demodulate_range(info: RecordInfo, settings: DemodSettings, start: int, stop: int
-                     ) -> TurnTable:
-    """Stage 1 on the blocks starting in samples [start, stop) of ``info.path``."""
-    got = range_samples_and_blocks(info, start, stop)
+def demodulate_range(info: RecordInfo, settings: DemodSettings, start: int, stop: int,
+                     run=None) -> TurnTable:
+    """Stage 1 on the blocks starting in samples [start, stop) of ``info.path`` (``run``: an
+    open run file to read from, see :func:`range_samples_and_blocks`)."""
+    got = range_samples_and_blocks(info, start, stop, run)
     if got is None:
         return _empty(settings, info)
     data, block_starts = got
@@ -171,16 +183,17 @@ def _run_local(info, settings, parts, progress):
     """Ranges in order, two at a time in threads; results in range order (deterministic)."""
     from concurrent.futures import ThreadPoolExecutor
 
-    def one(ab):
-        table = demodulate_range(info, settings, *ab)
-        if progress:
-            progress(ab[1] - ab[0])
-        return table
+    with open_run(info.path, check_values=False) as run:
+        def one(ab):
+            table = demodulate_range(info, settings, *ab, run=run)
+            if progress:
+                progress(ab[1] - ab[0])
+            return table
 
-    if LOCAL_THREADS <= 1 or len(parts) < 2:
-        return [one(ab) for ab in parts]
-    with ThreadPoolExecutor(max_workers=LOCAL_THREADS) as pool:
-        return list(pool.map(one, parts))
+        if LOCAL_THREADS <= 1 or len(parts) < 2:
+            return [one(ab) for ab in parts]
+        with ThreadPoolExecutor(max_workers=LOCAL_THREADS) as pool:
+            return list(pool.map(one, parts))
 
 
 def _run_dask(info, settings, parts, scheduler):

@@ -1,26 +1,125 @@
-"""Stage-1 block sums: exact per-block products, independent of the other blocks."""
+"""Stage 1: the compiled block kernel against a plain per-block least-squares reference."""
 
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from fringe.demodulate import _block_sums
+from fringe.demodulate import DemodSettings, demodulate_blocks, leak_terms, turn_boundaries
 
 
-@pytest.mark.parametrize("counts", [[45, 44, 46, 45], [45, 44, 3000, 46, 45, 7, 45], [1, 2, 3]])
-def test_block_sums_equal_direct_products(counts):
-    rng = np.random.default_rng(1)
-    counts = np.array(counts)
-    starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
-    n = int(counts.sum())
-    x, v = rng.normal(size=(n, 6)), rng.normal(size=(n, 9))
-    normal, rhs = _block_sums(x, v, starts, counts)
-    for i, (s0, c) in enumerate(zip(starts, counts)):
-        xs = x[s0:s0 + c]
-        np.testing.assert_allclose(normal[i], xs.T @ xs, rtol=1e-12, atol=1e-12)
-        np.testing.assert_allclose(rhs[i], xs.T @ v[s0:s0 + c], rtol=1e-12, atol=1e-12)
-    # a block's sums do not depend on which other blocks share its range
-    for k in range(1, counts.size):
-        a, b = _block_sums(x, v, starts[:k], counts[:k])
-        assert np.array_equal(a, normal[:k]) and np.array_equal(b, rhs[:k])
+def reference_block_fit(t, az, y, aux, settings):
+    """One block by numpy.linalg.lstsq: the direct statement of the stage-1 model (module
+    docstring of fringe.demodulate), sharing no code with the kernel."""
+    theta = np.pi - az
+    good = np.isfinite(y)
+    for a in aux.values():
+        good &= np.isfinite(a)
+    t, theta, y = t[good], theta[good], y[good]
+    nd = {"offset": 1, "linear": 2, "quadratic": 3}[settings.drift]
+    half = max(0.5 * (t.max() - t.min()), 1e-9)
+    tau = (t - t.mean()) / half
+    cols = [tau ** j for j in range(nd)]
+    for m in range(1, settings.max_harmonic + 1):
+        cols += [np.cos(m * theta), np.sin(m * theta)]
+    x = np.stack(cols, axis=1)
+    coef, *_ = np.linalg.lstsq(x, y, rcond=None)
+    rms = np.sqrt(np.sum((y - x @ coef) ** 2) / max(y.size - x.shape[1], 1))
+    inv = np.linalg.inv(x.T @ x)
+    ic, isn = nd + 2, nd + 3
+    unit = {"C": np.cos(2 * theta), "B": np.sin(2 * theta), "A": np.ones_like(theta)}
+    leak = np.array([np.linalg.lstsq(x, unit[k] * tau ** j, rcond=None)[0][[ic, isn]]
+                     for k, j in leak_terms(settings)]).T
+    aux_coef = {k: np.linalg.lstsq(x, a[good], rcond=None)[0] for k, a in aux.items()}
+    psi = np.sort(np.mod(theta, 2 * np.pi))
+    gap = max(np.max(np.diff(psi), initial=0.0), psi[0] + 2 * np.pi - psi[-1])
+    return dict(coef=coef, rms=rms, ninv_2=inv[np.ix_([ic, isn], [ic, isn])], leak=leak,
+                aux=aux_coef, t_mid=t.mean(), gap_deg=np.degrees(gap), n=y.size)
+
+
+def _record(rng, n_blocks=12, per_turn=45, nan_fraction=0.05):
+    n = n_blocks * per_turn
+    t = np.arange(n) * 1.0 + rng.uniform(-0.05, 0.05, n)
+    az = np.mod(np.pi - 2 * np.pi * t / per_turn + 0.3, 2 * np.pi)
+    y = 3.0 + 1e-3 * t + 0.4 * np.cos(2 * (np.pi - az)) + rng.normal(0, 0.1, n)
+    y[rng.random(n) < nan_fraction] = np.nan
+    tilt = 0.2 * np.sin(np.pi - az) + rng.normal(0, 0.01, n)
+    starts = np.flatnonzero(turn_boundaries(np.pi - az, (np.pi - az[0]) % (2 * np.pi), t, 11.0))
+    return t, az, y, {"tilt": tilt}, np.concatenate([[0], starts])
+
+
+@pytest.mark.parametrize("settings", [DemodSettings(), DemodSettings(drift="offset"),
+                                      DemodSettings(drift="quadratic", max_harmonic=4)])
+def test_kernel_equals_per_block_lstsq(settings):
+    rng = np.random.default_rng(3)
+    t, az, y, aux, starts = _record(rng)
+    table = demodulate_blocks(t, az, y, starts, settings, aux=aux)
+    bounds = np.append(starts, t.size)
+    assert table.n_blocks == starts.size and np.all(table.accepted)
+    for b in range(table.n_blocks):
+        sl = slice(bounds[b], bounds[b + 1])
+        ref = reference_block_fit(t[sl], az[sl], y[sl], {k: v[sl] for k, v in aux.items()},
+                                  settings)
+        np.testing.assert_allclose(table.coef[b], ref["coef"], rtol=1e-9, atol=1e-12)
+        np.testing.assert_allclose(table.residual_rms[b], ref["rms"], rtol=1e-9)
+        np.testing.assert_allclose(table.ninv_2[b], ref["ninv_2"], rtol=1e-9, atol=1e-15)
+        np.testing.assert_allclose(table.leak[b], ref["leak"], rtol=1e-8, atol=1e-12)
+        np.testing.assert_allclose(table.aux["tilt"][b], ref["aux"]["tilt"], rtol=1e-9,
+                                   atol=1e-12)
+        assert table.t_mid_s[b] == pytest.approx(ref["t_mid"], abs=1e-9)
+        assert table.angle_gap_deg[b] == pytest.approx(ref["gap_deg"], abs=1e-9)
+        assert table.n_valid[b] == ref["n"]
+
+
+def test_rejection_rules_and_split_independence():
+    rng = np.random.default_rng(4)
+    t, az, y, aux, starts = _record(rng, nan_fraction=0.0)
+    bounds = np.append(starts, t.size)
+    y[bounds[2]:bounds[3] - 5] = np.nan             # block 2: 5 valid samples -> partial
+    sl = slice(bounds[4], bounds[5])                 # block 4: half a turn missing -> partial
+    y[sl][np.cos(np.pi - az[sl]) > 0] = np.nan
+    y[bounds[6]:bounds[7]] = np.nan                  # block 6: nothing valid
+    table = demodulate_blocks(t, az, y, starts, DemodSettings(), aux=aux)
+    assert list(np.flatnonzero(~table.accepted)) == [2, 4, 6]
+    assert table.angle_gap_deg[4] > 150 and table.angle_gap_deg[6] == 360.0
+    assert np.isnan(table.t_start_s[6]) and table.n_valid[6] == 0
+    assert np.all(np.isnan(table.coef[[2, 4, 6]]))
+    # a block's numbers do not depend on which other blocks share its range
+    k = 5
+    part = demodulate_blocks(t[:bounds[k]], az[:bounds[k]], y[:bounds[k]], starts[:k],
+                             DemodSettings(), aux={n: v[:bounds[k]] for n, v in aux.items()})
+    rest = demodulate_blocks(t[bounds[k]:], az[bounds[k]:], y[bounds[k]:],
+                             starts[k:] - bounds[k], DemodSettings(),
+                             aux={n: v[bounds[k]:] for n, v in aux.items()})
+    both = np.concatenate([part.coef, rest.coef])
+    assert np.array_equal(both, table.coef, equal_nan=True)
+
+
+def test_singular_block_is_rejected():
+    """Samples at only two table angles (0 and 180 deg) make every sin m theta column zero;
+    with the angular-coverage rule switched off (360 deg) the rank guard must reject the block."""
+    n = 60
+    t = np.arange(n, dtype=float)
+    az = np.where(np.arange(n) % 2 == 0, 0.0, np.pi)
+    y = np.ones(n)
+    table = demodulate_blocks(t, az, y, np.array([0]), DemodSettings(max_angle_gap_deg=360))
+    assert not table.accepted[0] and np.isnan(table.coef[0, 0])
+
+
+def test_turn_boundaries_reference():
+    """The compiled boundary rule equals its direct numpy statement."""
+    rng = np.random.default_rng(5)
+    t = np.cumsum(rng.uniform(0.5, 1.5, 500))
+    t[300:] += 40.0                                   # one long time gap
+    th = np.cumsum(rng.normal(2 * np.pi / 45, 0.02, 500)) * np.where(np.arange(500) < 250, 1, -1)
+    theta0, gap = 0.7, 11.0
+    for prev in (None, (th[0] - 0.1, t[0] - 1.0)):
+        got = turn_boundaries(th, theta0, t, gap, *(prev or ()))
+        pth = np.concatenate([[th[0] if prev is None else prev[0]], th[:-1]])
+        pt = np.concatenate([[t[0] if prev is None else prev[1]], t[:-1]])
+        s = np.mod(pth - theta0, 2 * np.pi) + np.mod(th - pth + np.pi, 2 * np.pi) - np.pi
+        want = (s >= 2 * np.pi) | (s < 0) | (t - pt > gap)
+        if prev is None:
+            want[0] = False
+        assert np.array_equal(got, want)
+        assert got[300] and 5 < np.sum(got) < 30

@@ -1,0 +1,297 @@
+"""Compiled stage-1 kernels (numba): the per-block least squares of :mod:`fringe.demodulate`.
+
+One call handles every block of a contiguous sample range, one block at a time, in three passes
+over the block's samples while they sit in the CPU cache: (1) valid-sample count, mean time and
+time span; (2) the design row of each valid sample, accumulated into the block's normal matrix
+and right-hand sides (signal, auxiliary channels and the unit leak columns); (3) the residuals.
+Between (2) and (3) the block's angular coverage is checked and the normal equations are solved
+by a Cholesky factorisation of the unit-diagonal (scaled) normal matrix.
+
+Rank guard: a block is singular when the Cholesky factorisation fails or when the trace of the
+inverse of the unit-diagonal normal matrix exceeds ``1 / MIN_EIGENVALUE``. The trace bounds the
+largest eigenvalue of the inverse from above and from below within a factor p (the number of
+block terms), so every block whose smallest eigenvalue is below MIN_EIGENVALUE is rejected, and
+blocks within a factor p above it may be too.
+
+The kernels use IEEE arithmetic in a fixed order (no fast-math), so the numbers do not depend on
+how the record is split into ranges or threads. ``cache=True`` stores the compiled code beside
+this module (or in numba's cache directory), so only the first run after an install compiles.
+The pure-numpy reference implementation against which these kernels are tested is in the test
+suite (``tests/oracle.py``).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+#: Smallest eigenvalue of the unit-diagonal block normal matrix below which a block is singular.
+MIN_EIGENVALUE = 1e-8
+
+#: Codes of the leak columns' unit factors (``fringe.demodulate.leak_terms``).
+LEAK_KIND_CODES = {"C": 0, "B": 1, "A": 2}
+
+TWO_PI = 2.0 * np.pi
+
+
+@njit(cache=True, nogil=True)
+def _mod_2pi(v):
+    """v mod 2 pi in [0, 2 pi), bit for bit as numpy.mod (the common cases skip the division)."""
+    if 0.0 <= v < TWO_PI:
+        return v
+    if -TWO_PI <= v < 0.0:
+        return v + TWO_PI
+    return v % TWO_PI
+
+
+@njit(cache=True, nogil=True)
+def _design_row(x, tau, c1, s1, nd, max_harmonic):
+    """Fill x with 1, tau[, tau^2], cos theta, sin theta, ..., cos m theta, sin m theta."""
+    x[0] = 1.0
+    if nd > 1:
+        x[1] = tau
+    if nd > 2:
+        x[2] = tau * tau
+    c, s = c1, s1
+    for m in range(max_harmonic):
+        x[nd + 2 * m] = c
+        x[nd + 2 * m + 1] = s
+        c, s = c * c1 - s * s1, c * s1 + s * c1
+
+
+@njit(cache=True, nogil=True)
+def _cholesky_inverse(a, p):
+    """Inverse of the symmetric positive-definite p x p matrix a (lower Cholesky); None-like
+    failure is signalled by a zero-size result."""
+    low = np.zeros((p, p))
+    for j in range(p):
+        d = a[j, j]
+        for k in range(j):
+            d -= low[j, k] * low[j, k]
+        if not d > 0.0:
+            return np.zeros((0, 0))
+        low[j, j] = np.sqrt(d)
+        for i in range(j + 1, p):
+            e = a[i, j]
+            for k in range(j):
+                e -= low[i, k] * low[j, k]
+            low[i, j] = e / low[j, j]
+    # inverse of the lower factor, then inv(a) = inv(L)^T inv(L)
+    li = np.zeros((p, p))
+    for j in range(p):
+        li[j, j] = 1.0 / low[j, j]
+        for i in range(j + 1, p):
+            e = 0.0
+            for k in range(j, i):
+                e -= low[i, k] * li[k, j]
+            li[i, j] = e / low[i, i]
+    inv = np.zeros((p, p))
+    for i in range(p):
+        for j in range(i + 1):
+            e = 0.0
+            for k in range(i, p):
+                e += li[k, i] * li[k, j]
+            inv[i, j] = e
+            inv[j, i] = e
+    return inv
+
+
+@njit(cache=True, nogil=True)
+def _largest_angle_gap(psi):
+    """Largest gap (rad) between consecutive angles psi (in [0, 2 pi)) around the circle."""
+    n = psi.size
+    if n == 0:
+        return TWO_PI
+    # angles in circular order (one sense or the other, the common case): the gaps are the
+    # steps between neighbours; otherwise sort
+    for sense in (1.0, -1.0):
+        total = 0.0
+        gap = 0.0
+        for i in range(n):
+            d = _mod_2pi(sense * (psi[(i + 1) % n] - psi[i])) if n > 1 else TWO_PI
+            total += d
+            gap = max(gap, d)
+        if abs(total - TWO_PI) < 1e-6:
+            return gap
+    srt = np.sort(psi)
+    gap = srt[0] + TWO_PI - srt[-1]
+    for i in range(1, srt.size):
+        d = srt[i] - srt[i - 1]
+        if d > gap:
+            gap = d
+    return gap
+
+
+@njit(cache=True, nogil=True)
+def block_fits(t, theta, y, aux, starts, nd, max_harmonic, leak_kind, leak_power,
+               min_samples, max_gap_rad):
+    """Fit every block of a range (see the module docstring).
+
+    Parameters
+    ----------
+    t, theta, y : (n,) float64
+        Times (s), turntable angles theta (rad, C7) and signal (NaN = missing).
+    aux : (n, n_aux) float64
+        Auxiliary channels (NaN = missing; a sample is valid only if all are finite).
+    starts : (nb,) int64
+        First sample of each block (increasing, the first 0); the last block ends at n.
+    nd : int
+        Drift terms (1, 2 or 3: offset, linear, quadratic).
+    max_harmonic : int
+        Highest harmonic of theta (>= 2).
+    leak_kind, leak_power : (q,) int64
+        Leak columns: unit factor (0 cos 2 theta, 1 sin 2 theta, 2 one) and power of tau (<= 3).
+    min_samples : int
+        Least number of valid samples of an accepted block.
+    max_gap_rad : float
+        Largest allowed angular gap, rad.
+
+    Returns
+    -------
+    vcount (nb,) int64, t_mid, t_lo, t_hi (nb,) s, sol (nb, p, 1 + n_aux + q), ninv_2
+    (nb, 2, 2), rms (nb,), gap_rad (nb,), ok (nb,) bool
+    """
+    n = t.size
+    nb = starts.size
+    p = nd + 2 * max_harmonic
+    n_aux = aux.shape[1]
+    q = leak_kind.size
+    r = 1 + n_aux + q
+    ic, isn = nd + 2, nd + 3
+    vcount = np.zeros(nb, np.int64)
+    t_mid = np.zeros(nb)
+    t_lo = np.full(nb, np.nan)
+    t_hi = np.full(nb, np.nan)
+    sol = np.full((nb, p, r), np.nan)
+    ninv_2 = np.full((nb, 2, 2), np.nan)
+    rms = np.full(nb, np.nan)
+    gap_rad = np.full(nb, TWO_PI)
+    ok = np.zeros(nb, np.bool_)
+    longest = 0
+    for b in range(nb):
+        stop = starts[b + 1] if b + 1 < nb else n
+        longest = max(longest, stop - starts[b])
+    rows = np.empty((longest, p))
+    vals = np.empty((longest, r))
+    psi = np.empty(longest)
+    x = np.empty(p)
+    normal = np.empty((p, p))
+    nn = np.empty((p, p))
+    rhs = np.empty((p, r))
+    scale = np.empty(p)
+    tpow = np.ones(4)
+    need = max(min_samples, p + 2)
+    for b in range(nb):
+        a0 = starts[b]
+        a1 = starts[b + 1] if b + 1 < nb else n
+        # pass 1: valid samples, mean time, span
+        cnt = 0
+        tsum = 0.0
+        lo = np.inf
+        hi = -np.inf
+        for i in range(a0, a1):
+            good = np.isfinite(y[i])
+            for k in range(n_aux):
+                good = good and np.isfinite(aux[i, k])
+            if good:
+                psi[cnt] = _mod_2pi(theta[i])
+                cnt += 1
+                tsum += t[i]
+                lo = min(lo, t[i])
+                hi = max(hi, t[i])
+        vcount[b] = cnt
+        if cnt == 0:
+            continue
+        tm = tsum / cnt
+        t_mid[b] = tm
+        t_lo[b] = lo
+        t_hi[b] = hi
+        gap_rad[b] = _largest_angle_gap(psi[:cnt])
+        if cnt < need or gap_rad[b] > max_gap_rad:
+            continue
+        half = max(0.5 * (hi - lo), 1e-9)
+        # pass 2: design rows and sums
+        normal[:, :] = 0.0
+        rhs[:, :] = 0.0
+        m = 0
+        for i in range(a0, a1):
+            good = np.isfinite(y[i])
+            for k in range(n_aux):
+                good = good and np.isfinite(aux[i, k])
+            if not good:
+                continue
+            tau = (t[i] - tm) / half
+            tpow[1] = tau
+            tpow[2] = tau * tau
+            tpow[3] = tau * tau * tau
+            _design_row(x, tau, np.cos(theta[i]), np.sin(theta[i]), nd, max_harmonic)
+            vals[m, 0] = y[i]
+            for k in range(n_aux):
+                vals[m, 1 + k] = aux[i, k]
+            for k in range(q):
+                unit = x[ic] if leak_kind[k] == 0 else (x[isn] if leak_kind[k] == 1 else 1.0)
+                vals[m, 1 + n_aux + k] = unit * tpow[leak_power[k]]
+            for j in range(p):
+                rows[m, j] = x[j]
+                for u in range(j + 1):
+                    normal[j, u] += x[j] * x[u]
+                for k in range(r):
+                    rhs[j, k] += x[j] * vals[m, k]
+            m += 1
+        for j in range(p):
+            scale[j] = np.sqrt(max(normal[j, j], 1e-300))
+        for j in range(p):
+            for u in range(j + 1):
+                nn[j, u] = normal[j, u] / scale[j] / scale[u]
+                nn[u, j] = nn[j, u]
+        inv = _cholesky_inverse(nn, p)
+        if inv.size == 0:
+            continue
+        trace = 0.0
+        for j in range(p):
+            trace += inv[j, j]
+        if not trace < 1.0 / MIN_EIGENVALUE:
+            continue
+        for j in range(p):
+            for u in range(p):
+                inv[j, u] = inv[j, u] / scale[j] / scale[u]
+        for j in range(p):
+            for k in range(r):
+                e = 0.0
+                for u in range(p):
+                    e += inv[j, u] * rhs[u, k]
+                sol[b, j, k] = e
+        ninv_2[b, 0, 0] = inv[ic, ic]
+        ninv_2[b, 0, 1] = inv[ic, isn]
+        ninv_2[b, 1, 0] = inv[isn, ic]
+        ninv_2[b, 1, 1] = inv[isn, isn]
+        # pass 3: residuals of the signal
+        chi2 = 0.0
+        for i in range(m):
+            e = vals[i, 0]
+            for j in range(p):
+                e -= rows[i, j] * sol[b, j, 0]
+            chi2 += e * e
+        rms[b] = np.sqrt(chi2 / max(cnt - p, 1))
+        ok[b] = True
+    return vcount, t_mid, t_lo, t_hi, sol, ninv_2, rms, gap_rad, ok
+
+
+@njit(cache=True, nogil=True)
+def block_starts(theta, t, theta0, max_gap_s, theta_prev, t_prev, has_prev):
+    """Boolean (n,): True where a new block starts before sample i (see
+    ``fringe.demodulate.turn_boundaries``)."""
+    n = theta.size
+    out = np.zeros(n, np.bool_)
+    for i in range(n):
+        if i == 0:
+            if not has_prev:
+                continue
+            pth, pt = theta_prev, t_prev
+        else:
+            pth, pt = theta[i - 1], t[i - 1]
+        psi_prev = _mod_2pi(pth - theta0)
+        step = _mod_2pi(theta[i] - pth + np.pi) - np.pi
+        s = psi_prev + step
+        out[i] = (s >= TWO_PI) or (s < 0.0) or ((t[i] - pt) > max_gap_s)
+    return out
