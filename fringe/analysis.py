@@ -9,6 +9,7 @@ from __future__ import annotations
 import datetime
 import logging
 import platform
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
@@ -91,7 +92,11 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
     table, info = run_stage1(path, demod, aux_channels=tuple(settings.regress), engine=engine,
                              scheduler=scheduler, progress=progress)
     span_s = float(meta["time_last_s"] - meta["time_first_s"])
-    harm, res, free = stage2_and_3(setup, table, settings, span_s / 86400.0)
+    # the input's hash (provenance) is read on the second core while stages 2-3 run
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        digest = pool.submit(sha256, path)
+        harm, res, free = stage2_and_3(setup, table, settings, span_s / 86400.0)
+        input_sha256 = digest.result()
     harm["units"] = setup.units
     sig = np.sqrt(np.diag(res.cov))
     counts = table.counts()
@@ -113,7 +118,7 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
         stage1=stage1, site=meta["site"], apparatus=meta["apparatus"],
         epoch_utc=meta["epoch_utc"], span_s=span_s,
         settings={"fit": settings.to_dict(), "engine": engine, "dut1_s": dut1_s},
-        input={"path": str(path), "sha256": sha256(path), "n_samples": meta["n_samples"]},
+        input={"path": str(path), "sha256": input_sha256, "n_samples": meta["n_samples"]},
         software=software_versions(),
         created_utc=datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
         nuisance=res.nuisance, notes=list(res.notes), upper_limits=res.upper_limits)

@@ -33,7 +33,17 @@ from .errors import ConfigError, DegeneracyWarning, FitError, SystematicsWarning
 from .frames import sidereal_angle_rad
 from .signal import Setup
 from .theories import KE_NAMES, KO_NAMES
-from .turn_model import TURN_BATCH, turn_model  # noqa: F401  (turn_model re-exported)
+from .turn_model import turn_model  # noqa: F401  (turn_model re-exported)
+from .turn_wls import (
+    PairWeights,
+    bootstrap_cov,
+    fitted,
+    normal_parts,
+    residual_chi2,
+    solve,
+    whitening,
+    wls,
+)
 
 logger = logging.getLogger(__name__)
 
@@ -128,95 +138,15 @@ def turn_covariance(table: TurnTable, sel: NDArray) -> NDArray:
     return level[:, None, None] ** 2 * table.ninv_2[sel]
 
 
-def _whiten(cov: NDArray) -> NDArray:
-    """Per-turn 2x2 whitening matrices W with W cov Wᵀ = 1 (inverse Cholesky, closed form).
-
-    cov = L Lᵀ with L = [[a, 0], [b, d]], a = sqrt(c00), b = c10/a, d = sqrt(c11 - b^2);
-    W = L^-1 = [[1/a, 0], [-b/(a d), 1/d]].
-    """
-    a = np.sqrt(cov[:, 0, 0])
-    b = cov[:, 1, 0] / a
-    d2 = cov[:, 1, 1] - b * b
-    if np.any(~(a > 0)) or np.any(~(d2 > 0)):
-        raise FitError("stage 3: a turn's (C, B) covariance is not positive definite")
-    d = np.sqrt(d2)
-    w = np.zeros_like(cov)
-    w[:, 0, 0] = 1.0 / a
-    w[:, 1, 0] = -b / (a * d)
-    w[:, 1, 1] = 1.0 / d
-    return w
-
-
-def _whitened(rows):
-    """Whitened design rows and data of a batch; W is lower triangular (see :func:`_whiten`)."""
-    jc, jb, c, b, w = rows
-    w00, w10, w11 = w[:, 0, 0, None], w[:, 1, 0, None], w[:, 1, 1, None]
-    jw = np.empty((jc.shape[0], 2, jc.shape[1]))
-    jw[:, 0] = w00 * jc
-    jw[:, 1] = w10 * jc + w11 * jb
-    yw = np.stack([w00[:, 0] * c, w10[:, 0] * c + w11[:, 0] * b], axis=1)
-    return jw.reshape(-1, jw.shape[2]), yw.reshape(-1)
-
-
-def _batches(n: int) -> list[slice]:
-    return [slice(i, i + TURN_BATCH) for i in range(0, n, TURN_BATCH)]
-
-
-def _normal_sums(provider, n: int, k: int, groups: NDArray | None = None):
-    """Whitened normal matrix and right-hand side, summed over batches (or per group)."""
-    if groups is None:
-        normal, rhs = np.zeros((k, k)), np.zeros(k)
-    else:
-        ng = int(groups.max()) + 1
-        normal, rhs = np.zeros((ng, k, k)), np.zeros((ng, k))
-    for sl in _batches(n):
-        a, y = _whitened(provider(sl))
-        if groups is None:
-            normal += a.T @ a
-            rhs += a.T @ y
-        else:
-            g = np.repeat(groups[sl], 2)
-            np.add.at(normal, g, a[:, :, None] * a[:, None, :])
-            np.add.at(rhs, g, a * y[:, None])
-    return normal, rhs
-
-
-def _solve(normal: NDArray, rhs: NDArray) -> tuple[NDArray, NDArray]:
-    scale = np.sqrt(np.maximum(np.diag(normal), 1e-300))
-    nn = normal / np.outer(scale, scale)
-    try:
-        inv = np.linalg.inv(nn) / np.outer(scale, scale)
-    except np.linalg.LinAlgError:
-        raise FitError("stage 3: singular normal matrix (a free coefficient has no signal in "
-                       "this record); fix it or free fewer coefficients") from None
-    return inv @ rhs, inv
-
-
-def _wls_rows(provider, n: int, k: int) -> tuple[NDArray, NDArray, float, int]:
-    """Weighted LS over a row provider; returns x, formal cov, chi2, dof.
-
-    The normal equations are accumulated over batches of TURN_BATCH turns (bounded transient
-    memory), and chi^2 is summed from the whitened residuals in a second pass.
-    """
-    x, inv = _solve(*_normal_sums(provider, n, k))
-    chi2 = 0.0
-    for sl in _batches(n):
-        a, y = _whitened(provider(sl))
-        r = y - a @ x
-        chi2 += float(r @ r)
-    return x, inv, chi2, max(2 * n - k, 1)
-
-
-def fit_harmonics(phi_rad: NDArray, c: NDArray, b: NDArray, w: NDArray) -> dict:
+def fit_harmonics(phi_rad: NDArray, c: NDArray, b: NDArray, w: PairWeights) -> dict:
     """Stage 2: C10 harmonics with covariance (scaled by the reduced chi^2)."""
     def rows(sl):
         p = phi_rad[sl]
         f = np.stack([np.ones_like(p), np.sin(p), np.cos(p), np.sin(2 * p), np.cos(2 * p)], 1)
         z = np.zeros_like(f)
-        return (np.concatenate([f, z], axis=1), np.concatenate([z, f], axis=1), c[sl], b[sl],
-                w[sl])
+        return np.concatenate([f, z], axis=1), np.concatenate([z, f], axis=1), c[sl], b[sl]
 
-    x, cov, chi2, dof = _wls_rows(rows, phi_rad.size, 10)
+    x, cov, chi2, dof = wls(rows, w, 10)
     red = chi2 / dof
     cov = cov * max(red, 0.0)
     return {"names": list(HARMONIC_NAMES), "value": x.tolist(),
@@ -224,20 +154,17 @@ def fit_harmonics(phi_rad: NDArray, c: NDArray, b: NDArray, w: NDArray) -> dict:
             "chi2_reduced": red}
 
 
-def _bootstrap(provider, n, k, t_s, days, n_boot, rng):
+def _bootstrap(provider, w, k, t_s, days, n_boot, rng, d_c, d_b):
     """Block bootstrap over days of turns: resample whole groups' normal equations."""
     groups = np.floor((t_s - t_s[0]) / (86400.0 * days)).astype(int)
-    uniq, inv = np.unique(groups, return_inverse=True)
-    if uniq.size < 5:
-        raise FitError(f"--uncertainty bootstrap: only {uniq.size} blocks of {days} d; "
+    edges = np.flatnonzero(np.diff(groups)) + 1             # turns are in time order
+    bounds = np.concatenate([[0], edges, [t_s.size]])
+    if bounds.size - 1 < 5:
+        raise FitError(f"--uncertainty bootstrap: only {bounds.size - 1} blocks of {days} d; "
                        "need at least 5 (shorter --bootstrap-days)")
-    normal_g, rhs_g = _normal_sums(provider, n, k, groups=inv)
-    draws = []
-    for _ in range(n_boot):
-        pick = rng.integers(0, uniq.size, uniq.size)
-        x, _ = _solve(normal_g[pick].sum(axis=0), rhs_g[pick].sum(axis=0))
-        draws.append(x)
-    return np.cov(np.array(draws).T, ddof=1).reshape(k, k)
+    parts = [normal_parts(provider, w, k, slice(int(lo), int(hi)))
+             for lo, hi in zip(bounds[:-1], bounds[1:])]
+    return bootstrap_cov(parts, n_boot, rng, d_c, d_b)
 
 
 @dataclass
@@ -273,97 +200,84 @@ def design_labels(names: tuple[str, ...], settings: FitSettings) -> list[str]:
 
 
 def _design(setup, t, names, table, sel, settings):
-    """Per-turn model of the free coefficients and a row builder adding the nuisance columns.
+    """Per-turn design of the free coefficients and the nuisance columns.
 
-    Returns (jc, jb) of the coefficients (n, k), the labels of all columns, and
-    ``columns(sl, jc, jb)`` giving the full design rows of the turns ``sl``.
+    Returns (jc, jb), each (n, k + nuisances), and the labels of the columns.
     """
     labels = design_labels(names, settings)
-    _, jc, jb = turn_model(setup, t, names, table=table, sel=sel)
+    _, jc, jb = turn_model(setup, t, names, table=table, sel=sel, mean=False)
     ic, isn = table.settings.index("c2"), table.settings.index("s2")
-    aux = [(table.aux[ch][sel, ic], table.aux[ch][sel, isn]) for ch in settings.regress]
-
-    def columns(sl, jc_sl, jb_sl):
-        m = jc_sl.shape[0]
-        extra_c, extra_b = [], []
-        if settings.lab_b0:
-            extra_c.append(np.zeros(m))
-            extra_b.append(np.ones(m))
-        if settings.lab_c0:
-            extra_c.append(np.ones(m))
-            extra_b.append(np.zeros(m))
-        for ac, ab in aux:
-            extra_c.append(ac[sl])
-            extra_b.append(ab[sl])
-        if not extra_c:
-            return jc_sl, jb_sl
-        return (np.concatenate([jc_sl, np.stack(extra_c, 1)], axis=1),
-                np.concatenate([jb_sl, np.stack(extra_b, 1)], axis=1))
-
-    return jc, jb, labels, columns
+    extra_c, extra_b = [], []
+    if settings.lab_b0:
+        extra_c.append(np.zeros(t.size))
+        extra_b.append(np.ones(t.size))
+    if settings.lab_c0:
+        extra_c.append(np.ones(t.size))
+        extra_b.append(np.zeros(t.size))
+    for ch in settings.regress:
+        extra_c.append(table.aux[ch][sel, ic])
+        extra_b.append(table.aux[ch][sel, isn])
+    if extra_c:
+        jc = np.concatenate([jc, np.stack(extra_c, 1)], axis=1)
+        jb = np.concatenate([jb, np.stack(extra_b, 1)], axis=1)
+    return jc, jb, labels
 
 
 def fit_coefficients(setup: Setup, table: TurnTable, settings: FitSettings,
-                     free: tuple[str, ...]) -> CoefficientFit:
-    """Stage 3 for a linear theory (see module docstring)."""
+                     free: tuple[str, ...], cov_turns: NDArray | None = None
+                     ) -> CoefficientFit:
+    """Stage 3 for a linear theory (see module docstring); ``cov_turns`` = the per-turn
+    covariances of :func:`turn_covariance` if already computed."""
     sel = table.accepted
     t = table.t_mid_s[sel]
     c, b = table.C[sel].copy(), table.B[sel].copy()
     if settings.fixed:
-        _, fc, fb = turn_model(setup, t, params=settings.fixed, table=table, sel=sel)
+        _, fc, fb = turn_model(setup, t, params=settings.fixed, table=table, sel=sel,
+                               mean=False)
         c, b = c - fc, b - fb
-    cov_i = turn_covariance(table, sel)
-    w = _whiten(cov_i)
-    jc0, jb0, labels, columns = _design(setup, t, free, table, sel, settings)
+    w = PairWeights.from_cov(turn_covariance(table, sel) if cov_turns is None else cov_turns)
+    jc, jb, labels = _design(setup, t, free, table, sel, settings)
     n, kk = t.size, len(labels)
 
-    def provider(weights):
-        def rows(sl):
-            jc_sl, jb_sl = columns(sl, jc0[sl], jb0[sl])
-            return jc_sl, jb_sl, c[sl], b[sl], weights[sl]
-        return rows
+    def rows(sl):
+        return jc[sl], jb[sl], c[sl], b[sl]
 
-    def fitted(xv):
-        out_c, out_b = np.empty(n), np.empty(n)
-        for sl in _batches(n):
-            jc_sl, jb_sl = columns(sl, jc0[sl], jb0[sl])
-            out_c[sl], out_b[sl] = jc_sl @ xv, jb_sl @ xv
-        return out_c, out_b
-
-    x, cov, chi2, dof = _wls_rows(provider(w), n, kk)
-    row_scale = (1.0, 1.0)
+    parts = normal_parts(rows, w, kk)
+    x, cov = solve(*parts.combine())
+    d_c = d_b = 1.0
     if settings.uncertainty != "formal":
         # Coloured noise inflates the C and B scatter differently (a turn's curvature leaks
         # into the component even about its middle); one chi^2 factor for both would
         # understate sigma of C-only coefficients (ke_ZZ). Scale each row family by its own
-        # reduced chi^2 and refit.
-        mc, mb = fitted(x)
-        r_c = float(np.mean((c - mc) ** 2 / cov_i[:, 0, 0]))
-        r_b = float(np.mean((b - mb) ** 2 / cov_i[:, 1, 1]))
-        row_scale = (r_c, r_b)
-        d = np.sqrt(np.array([r_c, r_b]))
-        cov_i = cov_i * np.outer(d, d)
-        w = _whiten(cov_i)
-        x, cov, chi2, dof = _wls_rows(provider(w), n, kk)
+        # reduced chi^2 and refit (same Gram matrices, rescaled).
+        _, r_c, r_b = residual_chi2(rows, w, x)
+        d_c, d_b = np.sqrt(r_c), np.sqrt(r_b)
+        if not (d_c > 0 and d_b > 0):
+            raise FitError("stage 3: the residuals of C or B vanish; cannot scale the weights "
+                           "by the scatter (use --uncertainty formal for noise-free data)")
+        x, cov = solve(*parts.combine(d_c, d_b))
+    chi2, _, _ = residual_chi2(rows, w, x, d_c, d_b)
+    dof = max(2 * n - kk, 1)
     red = chi2 / dof
     notes, warns = [], []
     if settings.uncertainty == "reduced-chi2":
         cov = cov * red
     elif settings.uncertainty == "bootstrap":
-        cov = _bootstrap(provider(w), n, kk, t, settings.bootstrap_days, settings.n_bootstrap,
-                         np.random.default_rng(settings.seed))
+        cov = _bootstrap(rows, w, kk, t, settings.bootstrap_days, settings.n_bootstrap,
+                         np.random.default_rng(settings.seed), d_c, d_b)
     # Cramer-Rao with the white per-sample level the data show
     sigma_white = float(np.median(table.residual_rms[sel]))
-    w_cr = _whiten(sigma_white ** 2 * table.ninv_2[sel])
-    _, cov_cr = _solve(*_normal_sums(provider(w_cr), n, kk))
+    w_cr = PairWeights.from_cov(sigma_white ** 2 * table.ninv_2[sel])
+    _, cov_cr = solve(*normal_parts(rows, w_cr, kk).combine())
     k = len(free)
     sig = np.sqrt(np.diag(cov))
     eff = {nm: float(np.sqrt(cov_cr[i, i]) / sig[i]) for i, nm in enumerate(free)}
     warns += _degeneracy(labels, cov)
-    model_c, model_b = fitted(x)                  # the whole fitted model (with nuisances)
-    if abs(row_scale[0] / row_scale[1] - 1.0) > 0.2:
+    model_c, model_b = fitted(rows, n, x)          # the whole fitted model (with nuisances)
+    r_c, r_b = d_c ** 2, d_b ** 2
+    if abs(r_c / r_b - 1.0) > 0.2:
         notes.append(f"C and B rows scaled separately by their reduced chi2 "
-                     f"({row_scale[0]:.3g}, {row_scale[1]:.3g}): coloured noise")
+                     f"({r_c:.3g}, {r_b:.3g}): coloured noise")
     nuis = {lab: {"value": float(x[i]), "sigma": float(sig[i])}
             for i, lab in enumerate(labels) if i >= k}
     return CoefficientFit(names=list(free), value=x[:k], cov=cov[:k, :k], nuisance=nuis,
@@ -396,12 +310,12 @@ def fit_medium(setup: Setup, table: TurnTable, settings: FitSettings) -> Coeffic
     sel = table.accepted
     t = table.t_mid_s[sel]
     c, b = table.C[sel], table.B[sel]
-    w = _whiten(turn_covariance(table, sel))
+    w = whitening(turn_covariance(table, sel))
     off = settings.lab_b0
 
     def model(p):
         vals = {n: p[n].value for n in MEDIUM_NAMES}
-        _, mc, mb = turn_model(setup, t, params=vals, table=table, sel=sel)
+        _, mc, mb = turn_model(setup, t, params=vals, table=table, sel=sel, mean=False)
         if off:
             mb = mb + p["lab_B0"].value
         return mc, mb
@@ -495,8 +409,8 @@ def stage2_and_3(setup: Setup, table: TurnTable, settings: FitSettings,
         raise FitError(f"fit: only {int(np.sum(sel))} accepted turns; need at least 12")
     t = table.t_mid_s[sel]
     phi = sidereal_angle_rad(setup.epoch, t, setup.site.east_longitude_rad)
-    w = _whiten(turn_covariance(table, sel))
-    harm = fit_harmonics(phi, table.C[sel], table.B[sel], w)
+    cov_turns = turn_covariance(table, sel)
+    harm = fit_harmonics(phi, table.C[sel], table.B[sel], PairWeights.from_cov(cov_turns))
     theory = setup.theory
     if settings.free is not None:
         free = tuple(settings.free)
@@ -511,7 +425,7 @@ def stage2_and_3(setup: Setup, table: TurnTable, settings: FitSettings,
         raise ConfigError("--free rms_kt: free rms_mm as well (the offsets' model uses the "
                           "2 theta estimate of rms_mm)")
     if theory.linear:
-        res = fit_coefficients(setup, table, settings, rotating)
+        res = fit_coefficients(setup, table, settings, rotating, cov_turns)
     else:
         res = fit_medium(setup, table, settings)
     if "rms_kt" in free:

@@ -11,6 +11,7 @@ it.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import NDArray
@@ -70,61 +71,118 @@ def _projected_basis(setup, state, theta, names):
 
     n = len(state)
     az = np.pi - theta
-    w = np.stack([_combined_tensor(setup.apparatus, setup.units, np.full(n, a), setup.tilt)[0]
-                  for a in az], axis=1)                                # (n, N, 3, 3)
-    _, w_iso = _combined_tensor(setup.apparatus, setup.units, az[:1], setup.tilt)
+    # the table-angle tensors do not depend on time: evaluate once, broadcast to the instants
+    w, w_iso = _combined_tensor(setup.apparatus, setup.units, az, setup.tilt)   # (N, 3, 3)
     cos2, sin2 = np.cos(2 * theta), np.sin(2 * theta)
-    w_a = w.mean(axis=1)
-    w_c = (2.0 / theta.size) * np.einsum("nakl,a->nkl", w, cos2)
-    w_b = (2.0 / theta.size) * np.einsum("nakl,a->nkl", w, sin2)
+    w_a = w.mean(axis=0)
+    w_c = (2.0 / theta.size) * np.einsum("akl,a->kl", w, cos2)
+    w_b = (2.0 / theta.size) * np.einsum("akl,a->kl", w, sin2)
     project = setup.theory.project
-    return (project(state, w_a, w_iso, names), project(state, w_c, 0.0, names),
-            project(state, w_b, 0.0, names))
+    return tuple(project(state, np.broadcast_to(x, (n, 3, 3)), iso, names)
+                 for x, iso in ((w_a, w_iso), (w_c, 0.0), (w_b, 0.0)))
 
 
-#: Step of the time grid on which turn_model interpolates the model's change within a turn, s.
-WITHIN_TURN_GRID_S = 120.0
+#: Step of the time grid on which turn_model interpolates the model within a turn, s.
+WITHIN_TURN_GRID_S = 300.0
 
+#: Grid offsets (in steps) of the interpolation stencil around a turn's grid interval.
+STENCIL = np.arange(-2, 4)
 
 #: Turns per batch when evaluating the per-turn model (bounds the transient memory).
 TURN_BATCH = 65536
 
 
-def _model_splines(setup: Setup, t: NDArray, half: NDArray, names, params) -> list:
-    """Cubic splines of the frozen model's A, C, B on a regular grid around the turns.
+@dataclass(frozen=True)
+class _ModelGrid:
+    """The frozen model's A, C, B (each (m, k)) on a regular time grid start + step x i."""
 
-    Grid step WITHIN_TURN_GRID_S with a margin of four steps: the model changes on sidereal
-    time scales (>= 12 h), so the splines' derivatives err by ~(2 pi x 120 s / 12 h)^3 / 24 =
-    2e-7 relative (the within-turn terms themselves are ~1e-3 of the signal) and their values by
-    ~(2 pi x 120 s / 12 h)^4 / 384 = 2.4e-10 relative. The grid costs the same for any turn
-    period (a year: 2.6e5 grid instants).
+    start_s: float
+    step_s: float
+    values: tuple
+
+    @property
+    def stacked(self) -> NDArray:
+        """A, C and B values stacked, (3 m, k) (computed once)."""
+        if "_stacked" not in self.__dict__:
+            object.__setattr__(self, "_stacked", np.concatenate(self.values, axis=0))
+        return self.__dict__["_stacked"]
+
+
+def _model_grid(setup: Setup, t: NDArray, half: NDArray, names, params) -> _ModelGrid:
+    """The frozen model on a regular grid covering the turns with a margin of four steps.
+
+    The model changes on sidereal time scales (its fastest common term has a 12 h period), and
+    the quintic through six grid values errs by at most (omega h)^6 x 3.52 / 6! = 3.5e-11
+    relative for h = WITHIN_TURN_GRID_S = 300 s and omega = 2 pi / 12 h (interpolation error
+    bound of the Lagrange polynomial at the middle interval); the within-turn terms (~1e-3 of
+    the signal) come from its derivatives, whose errors are of the same order relative to them.
+    A year costs 1.05e5 grid instants for any turn period.
     """
-    from scipy.interpolate import CubicSpline
-
     step = WITHIN_TURN_GRID_S
-    lo, hi = float(np.min(t) - np.max(half)) - 4 * step, float(np.max(t) + np.max(half)) + 4 * step
-    grid = np.linspace(lo, hi, max(int(np.ceil((hi - lo) / step)) + 1, 8))
-    return [CubicSpline(grid, vals, axis=0) for vals in _frozen_model(setup, grid, names, params)]
+    lo = float(np.min(t) - np.max(half)) - 4 * step
+    hi = float(np.max(t) + np.max(half)) + 4 * step
+    grid = lo + step * np.arange(max(int(np.ceil((hi - lo) / step)) + 1, STENCIL.size + 2))
+    return _ModelGrid(lo, step, _frozen_model(setup, grid, names, params))
 
 
-def _measured_model(splines, t, half, leak, settings):
-    """What stage 1 measures for turns (t, half span, leak responses): A, C, B (n, k)."""
+def _lagrange_derivative_weights(s: NDArray, step_s: float, max_order: int) -> list[NDArray]:
+    """Weights (n, 6) of the stencil values for the j-th time derivative (j = 0..max_order) of
+    the quintic through the six stencil points, at fractional positions s (in steps)."""
+    nodes = STENCIL.astype(float)
+    mono = np.linalg.inv(np.vander(nodes, increasing=True))   # row e: s^e coefficients
+    powers = np.stack([s ** e for e in range(nodes.size)], axis=1)
+    out = []
+    for j in range(max_order + 1):
+        e = np.arange(j, nodes.size)
+        factor = np.array([math.factorial(x) / math.factorial(x - j) for x in e])
+        out.append(powers[:, :nodes.size - j] @ (factor[:, None] * mono[e]) / step_s ** j)
+    return out
+
+
+def _measured_model(grid: _ModelGrid, t, half, leak, settings, with_a: bool = True):
+    """What stage 1 measures for turns (t, half span, leak responses): A (or None), C, B, each
+    (n, k).
+
+    The frozen model's value and derivatives at each turn come from the quintic through six grid
+    values around it (:data:`STENCIL`). What stage 1 measures for C (and B alike) is
+    C(t) + sum_q leak_q h^j / j! X_q^(j)(t) over the leak columns q (X_q the A, C or B model, j
+    its power of tau, h the half span), so it is a weighted sum of the 3 x 6 stencil values.
+    """
+    from scipy.sparse import csr_matrix
+
     from .demodulate import LEAK_ORDER, leak_terms
 
-    terms = [{j: sp(t, nu=j) * (half ** j / math.factorial(j))[:, None]
-              for j in range(LEAK_ORDER + 1)} for sp in splines]
-    a, c, b = terms[0][0], terms[1][0].copy(), terms[2][0].copy()
+    m = grid.values[0].shape[0]
+    pos = (t - grid.start_s) / grid.step_s
+    i = np.clip(np.floor(pos).astype(np.intp), -STENCIL[0], m - 1 - STENCIL[-1])
+    lw = np.stack(_lagrange_derivative_weights(pos - i, grid.step_s, LEAK_ORDER), axis=1)
+    n, ns = t.size, STENCIL.size
+    # coefficients of the j-th derivative of each source (A, C, B) in the measured C and B
+    k_rj = np.zeros((n, 2, 3, LEAK_ORDER + 1))
+    k_rj[:, 0, 1, 0] = 1.0
+    k_rj[:, 1, 2, 0] = 1.0
     src = {"A": 0, "C": 1, "B": 2}
     for q, (kind, j) in enumerate(leak_terms(settings)):
-        term = terms[src[kind]][j]
-        c += leak[:, 0, q, None] * term
-        b += leak[:, 1, q, None] * term
+        k_rj[:, :, src[kind], j] += leak[:, :, q] * (half ** j / math.factorial(j))[:, None]
+    w = np.matmul(k_rj.reshape(n, 6, LEAK_ORDER + 1), lw)          # (n, 2 x 3, stencil)
+    # what stage 1 measures = a sparse (2 n x stacked grid values) product, 18 per row
+    cols = (np.arange(3)[None, :, None] * m + i[:, None, None] + STENCIL[None, None, :])
+    cols = np.repeat(cols.reshape(n, 1, -1), 2, axis=1).ravel()
+    measure = csr_matrix((w.ravel(), cols, np.arange(0, 2 * n * 3 * ns + 1, 3 * ns)),
+                         shape=(2 * n, 3 * m))
+    cb = (measure @ grid.stacked).reshape(n, 2, -1)
+    c, b = cb[:, 0], cb[:, 1]
+    a = None
+    if with_a:
+        a = csr_matrix((lw[:, 0].ravel(), (i[:, None] + STENCIL[None, :]).ravel(),
+                        np.arange(0, n * ns + 1, ns)), shape=(n, m)) @ grid.values[0]
     return a, c, b
 
 
 def turn_model(setup: Setup, t_s: NDArray, names: tuple[str, ...] | None = None,
                params: dict | None = None, *, table: TurnTable | None = None,
-               sel: NDArray | None = None) -> tuple[NDArray, NDArray, NDArray]:
+               sel: NDArray | None = None, mean: bool = True
+               ) -> tuple[NDArray | None, NDArray, NDArray]:
     """Non-rotating mean A, and 2 theta amplitudes C, B of the model for turns at t_s.
 
     For linear theories (``params`` None) each is (n, k) per unit coefficient; with ``params``
@@ -134,23 +192,29 @@ def turn_model(setup: Setup, t_s: NDArray, names: tuple[str, ...] | None = None,
     Without ``table`` this is that content at t_s itself. With the stage-1 ``table`` (and
     ``sel``, the boolean selection of its rows whose mean times t_s are), it is what stage 1
     measures for the turn: the change of A, C and B within the turn, expanded in the turn's
-    normalised time tau to tau^LEAK_ORDER (t = t_mid + tau x half span; from splines of the
-    model, :func:`_model_splines`), times the block fit's response to each tau^j term
-    (``table.leak``), is added. Freezing the model at t_mid instead errs by about
-    (P_turn / P_sidereal) x the signal (the within-turn change of C leaks into B and back).
-    Turns are processed in batches of TURN_BATCH.
+    normalised time tau to tau^LEAK_ORDER (t = t_mid + tau x half span; from the model on a
+    regular grid, :func:`_model_grid`, :func:`_measured_model`), times the block fit's
+    response to each tau^j term (``table.leak``), is added. Freezing the model at t_mid instead
+    errs by about (P_turn / P_sidereal) x the signal (the within-turn change of C leaks into B
+    and back). Turns are processed in batches of TURN_BATCH. With ``mean=False`` (and a
+    table) A is not computed and None is returned in its place.
     """
     t = np.atleast_1d(np.asarray(t_s, float))
     if table is not None and table.leak is not None and t.size:
         rows = np.arange(table.n_blocks) if sel is None else np.flatnonzero(sel)
         half = np.maximum(0.5 * (table.t_stop_s[rows] - table.t_start_s[rows]), 1e-9)
-        splines = _model_splines(setup, t, half, names, params)
-        parts = [_measured_model(splines, t[i:i + TURN_BATCH], half[i:i + TURN_BATCH],
-                                 table.leak[rows[i:i + TURN_BATCH]], table.settings)
-                 for i in range(0, t.size, TURN_BATCH)]
-        a, c, b = (np.concatenate([p[x] for p in parts]) for x in range(3))
+        grid = _model_grid(setup, t, half, names, params)
+        k = grid.values[0].shape[1]
+        a = np.empty((t.size, k)) if mean else None
+        c, b = np.empty((t.size, k)), np.empty((t.size, k))
+        for i in range(0, t.size, TURN_BATCH):
+            sl = slice(i, i + TURN_BATCH)
+            pa, c[sl], b[sl] = _measured_model(grid, t[sl], half[sl], table.leak[rows[sl]],
+                                               table.settings, with_a=mean)
+            if mean:
+                a[sl] = pa
     else:
         a, c, b = _frozen_model(setup, t, names, params)
     if params is not None:
-        return a[:, 0], c[:, 0], b[:, 0]
+        return (None if a is None else a[:, 0]), c[:, 0], b[:, 0]
     return a, c, b
