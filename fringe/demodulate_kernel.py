@@ -34,17 +34,14 @@ LEAK_KIND_CODES = {"C": 0, "B": 1, "A": 2}
 TWO_PI = 2.0 * np.pi
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, inline="always")
 def _mod_2pi(v):
-    """v mod 2 pi in [0, 2 pi), bit for bit as numpy.mod (the common cases skip the division)."""
-    if 0.0 <= v < TWO_PI:
-        return v
-    if -TWO_PI <= v < 0.0:
-        return v + TWO_PI
-    return v % TWO_PI
+    """v mod 2 pi in [0, 2 pi] as v - 2 pi floor(v / 2 pi): branch-free (vectorises), and equal
+    to numpy.mod for |v| < 4 pi but for ties within an ulp."""
+    return v - TWO_PI * np.floor(v / TWO_PI)
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, inline="always")
 def _design_row(x, tau, c1, s1, nd, max_harmonic):
     """Fill x with 1, tau[, tau^2], cos theta, sin theta, ..., cos m theta, sin m theta."""
     x[0] = 1.0
@@ -60,16 +57,16 @@ def _design_row(x, tau, c1, s1, nd, max_harmonic):
 
 
 @njit(cache=True, nogil=True)
-def _cholesky_inverse(a, p):
-    """Inverse of the symmetric positive-definite p x p matrix a (lower Cholesky); None-like
-    failure is signalled by a zero-size result."""
-    low = np.zeros((p, p))
+def _cholesky_inverse(a, p, low, li, inv):
+    """inv = inverse of the symmetric positive-definite p x p matrix a (lower Cholesky factor
+    low, its inverse li: work arrays); returns False if a is not positive definite."""
+    low[:, :] = 0.0
     for j in range(p):
         d = a[j, j]
         for k in range(j):
             d -= low[j, k] * low[j, k]
         if not d > 0.0:
-            return np.zeros((0, 0))
+            return False
         low[j, j] = np.sqrt(d)
         for i in range(j + 1, p):
             e = a[i, j]
@@ -77,7 +74,7 @@ def _cholesky_inverse(a, p):
                 e -= low[i, k] * low[j, k]
             low[i, j] = e / low[j, j]
     # inverse of the lower factor, then inv(a) = inv(L)^T inv(L)
-    li = np.zeros((p, p))
+    li[:, :] = 0.0
     for j in range(p):
         li[j, j] = 1.0 / low[j, j]
         for i in range(j + 1, p):
@@ -85,7 +82,6 @@ def _cholesky_inverse(a, p):
             for k in range(j, i):
                 e -= low[i, k] * li[k, j]
             li[i, j] = e / low[i, i]
-    inv = np.zeros((p, p))
     for i in range(p):
         for j in range(i + 1):
             e = 0.0
@@ -93,7 +89,17 @@ def _cholesky_inverse(a, p):
                 e += li[k, i] * li[k, j]
             inv[i, j] = e
             inv[j, i] = e
-    return inv
+    return True
+
+
+@njit(cache=True, nogil=True, fastmath={"reassoc", "contract"})
+def _dot(a, b, m):
+    """sum a[:m] b[:m], reassociated (SIMD): the order is fixed by the code, so the result is
+    the same on every run and for any split of the record."""
+    acc = 0.0
+    for i in range(m):
+        acc += a[i] * b[i]
+    return acc
 
 
 @njit(cache=True, nogil=True)
@@ -105,10 +111,10 @@ def _largest_angle_gap(psi):
     # angles in circular order (one sense or the other, the common case): the gaps are the
     # steps between neighbours; otherwise sort
     for sense in (1.0, -1.0):
-        total = 0.0
-        gap = 0.0
-        for i in range(n):
-            d = _mod_2pi(sense * (psi[(i + 1) % n] - psi[i])) if n > 1 else TWO_PI
+        total = _mod_2pi(sense * (psi[0] - psi[n - 1])) if n > 1 else TWO_PI
+        gap = total
+        for i in range(n - 1):
+            d = _mod_2pi(sense * (psi[i + 1] - psi[i]))
             total += d
             gap = max(gap, d)
         if abs(total - TWO_PI) < 1e-6:
@@ -123,14 +129,17 @@ def _largest_angle_gap(psi):
 
 
 @njit(cache=True, nogil=True)
-def block_fits(t, theta, y, aux, starts, nd, max_harmonic, leak_kind, leak_power,
-               min_samples, max_gap_rad):
+def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd, max_harmonic, leak_kind,
+               leak_power, min_samples, max_gap_rad):
     """Fit every block of a range (see the module docstring).
 
     Parameters
     ----------
     t, theta, y : (n,) float64
         Times (s), turntable angles theta (rad, C7) and signal (NaN = missing).
+    cos_theta, sin_theta : (n,) float64
+        cos and sin of theta (computed by numpy's vectorised functions, several times faster
+        than per-sample calls here).
     aux : (n, n_aux) float64
         Auxiliary channels (NaN = missing; a sample is valid only if all are finite).
     starts : (nb,) int64
@@ -171,8 +180,8 @@ def block_fits(t, theta, y, aux, starts, nd, max_harmonic, leak_kind, leak_power
     for b in range(nb):
         stop = starts[b + 1] if b + 1 < nb else n
         longest = max(longest, stop - starts[b])
-    rows = np.empty((longest, p))
-    vals = np.empty((longest, r))
+    rows = np.empty((p, longest))           # design columns of the block's valid samples
+    vals = np.empty((r, longest))           # signal, aux and leak columns
     psi = np.empty(longest)
     x = np.empty(p)
     normal = np.empty((p, p))
@@ -180,7 +189,13 @@ def block_fits(t, theta, y, aux, starts, nd, max_harmonic, leak_kind, leak_power
     rhs = np.empty((p, r))
     scale = np.empty(p)
     tpow = np.ones(4)
+    low = np.empty((p, p))
+    li = np.empty((p, p))
+    inv = np.empty((p, p))
     need = max(min_samples, p + 2)
+    unit_col = np.zeros(q, np.int64)        # design column of each leak unit (x[0] = 1)
+    for k in range(q):
+        unit_col[k] = ic if leak_kind[k] == 0 else (isn if leak_kind[k] == 1 else 0)
     for b in range(nb):
         a0 = starts[b]
         a1 = starts[b + 1] if b + 1 < nb else n
@@ -210,9 +225,7 @@ def block_fits(t, theta, y, aux, starts, nd, max_harmonic, leak_kind, leak_power
         if cnt < need or gap_rad[b] > max_gap_rad:
             continue
         half = max(0.5 * (hi - lo), 1e-9)
-        # pass 2: design rows and sums
-        normal[:, :] = 0.0
-        rhs[:, :] = 0.0
+        # pass 2: design columns, then their products
         m = 0
         for i in range(a0, a1):
             good = np.isfinite(y[i])
@@ -224,28 +237,27 @@ def block_fits(t, theta, y, aux, starts, nd, max_harmonic, leak_kind, leak_power
             tpow[1] = tau
             tpow[2] = tau * tau
             tpow[3] = tau * tau * tau
-            _design_row(x, tau, np.cos(theta[i]), np.sin(theta[i]), nd, max_harmonic)
-            vals[m, 0] = y[i]
-            for k in range(n_aux):
-                vals[m, 1 + k] = aux[i, k]
-            for k in range(q):
-                unit = x[ic] if leak_kind[k] == 0 else (x[isn] if leak_kind[k] == 1 else 1.0)
-                vals[m, 1 + n_aux + k] = unit * tpow[leak_power[k]]
+            _design_row(x, tau, cos_theta[i], sin_theta[i], nd, max_harmonic)
             for j in range(p):
-                rows[m, j] = x[j]
-                for u in range(j + 1):
-                    normal[j, u] += x[j] * x[u]
-                for k in range(r):
-                    rhs[j, k] += x[j] * vals[m, k]
+                rows[j, m] = x[j]
+            vals[0, m] = y[i]
+            for k in range(n_aux):
+                vals[1 + k, m] = aux[i, k]
+            for k in range(q):
+                vals[1 + n_aux + k, m] = x[unit_col[k]] * tpow[leak_power[k]]
             m += 1
+        for j in range(p):
+            for u in range(j + 1):
+                normal[j, u] = _dot(rows[j], rows[u], m)
+            for k in range(r):
+                rhs[j, k] = _dot(rows[j], vals[k], m)
         for j in range(p):
             scale[j] = np.sqrt(max(normal[j, j], 1e-300))
         for j in range(p):
             for u in range(j + 1):
                 nn[j, u] = normal[j, u] / scale[j] / scale[u]
                 nn[u, j] = nn[j, u]
-        inv = _cholesky_inverse(nn, p)
-        if inv.size == 0:
+        if not _cholesky_inverse(nn, p, low, li, inv):
             continue
         trace = 0.0
         for j in range(p):
@@ -268,9 +280,9 @@ def block_fits(t, theta, y, aux, starts, nd, max_harmonic, leak_kind, leak_power
         # pass 3: residuals of the signal
         chi2 = 0.0
         for i in range(m):
-            e = vals[i, 0]
+            e = vals[0, i]
             for j in range(p):
-                e -= rows[i, j] * sol[b, j, 0]
+                e -= rows[j, i] * sol[b, j, 0]
             chi2 += e * e
         rms[b] = np.sqrt(chi2 / max(cnt - p, 1))
         ok[b] = True
