@@ -210,8 +210,10 @@ def turn_boundaries(theta_rad: NDArray, theta0_rad: float, t_s: NDArray, max_gap
                     theta_prev: float | None = None, t_prev: float | None = None) -> NDArray:
     """Boolean array: True where a new block starts at sample i (before sample i).
 
-    A block starts where theta - theta0 crosses a multiple of 2 pi (either sense), or after a time
-    gap longer than ``max_gap_s``. ``theta_prev``/``t_prev`` give the sample before the first one.
+    A block starts where theta - theta0 crosses a multiple of 2 pi (either sense: where
+    psi = (theta - theta0) mod 2 pi jumps by more than pi between neighbouring samples), or after
+    a time gap longer than ``max_gap_s``. ``theta_prev``/``t_prev`` give the sample before the
+    first one. Angles may be wrapped or unwrapped; steps between samples must stay below pi.
     """
     has_prev = theta_prev is not None
     return kernel_block_starts(np.ascontiguousarray(theta_rad, float),

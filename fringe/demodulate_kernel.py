@@ -36,8 +36,8 @@ TWO_PI = 2.0 * np.pi
 
 @njit(cache=True, nogil=True, inline="always")
 def _mod_2pi(v):
-    """v mod 2 pi in [0, 2 pi] as v - 2 pi floor(v / 2 pi): branch-free (vectorises), and equal
-    to numpy.mod for |v| < 4 pi but for ties within an ulp."""
+    """v mod 2 pi as v - 2 pi floor(v / 2 pi), in [0, 2 pi] to rounding (a value within an ulp of
+    a multiple of 2 pi may come out just below 0 or at 2 pi); branch-free, so loops vectorise."""
     return v - TWO_PI * np.floor(v / TWO_PI)
 
 
@@ -289,21 +289,39 @@ def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd, max_harmonic,
     return vcount, t_mid, t_lo, t_hi, sol, ninv_2, rms, gap_rad, ok
 
 
+#: Angles this close below theta0 + 2 pi k count as on it (block boundaries), rad. Far above the
+#: rounding of unwrapped angles (a year of 45 s turns reaches 4e6 rad, ulp 1e-9 rad).
+ANGLE_TIE_RAD = 1e-7
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _psi(theta, theta0):
+    """(theta - theta0) mod 2 pi, with values within ANGLE_TIE_RAD below 2 pi moved to ~0."""
+    psi = _mod_2pi(theta - theta0)
+    return psi - TWO_PI * (psi >= TWO_PI - ANGLE_TIE_RAD)
+
+
 @njit(cache=True, nogil=True)
 def block_starts(theta, t, theta0, max_gap_s, theta_prev, t_prev, has_prev):
     """Boolean (n,): True where a new block starts before sample i (see
-    ``fringe.demodulate.turn_boundaries``)."""
+    ``fringe.demodulate.turn_boundaries``).
+
+    psi = (theta - theta0) mod 2 pi is computed once per sample, and a crossing of theta0 is a
+    jump of psi by more than pi between neighbours (either sense; steps are below pi). Because
+    both neighbours of a sample see the same psi, every crossing starts exactly one block. A
+    sample within ANGLE_TIE_RAD below a multiple of 2 pi counts as on it (psi near 0), so a
+    sample lying on theta0 + 2 pi k (to rounding) is the first of a turn (psi in [0, 2 pi)):
+    it starts its block when theta increases and ends it when theta decreases, whatever the
+    rounding.
+    """
     n = theta.size
     out = np.zeros(n, np.bool_)
+    psi_prev = _psi(theta_prev, theta0)
+    pt = t_prev
     for i in range(n):
-        if i == 0:
-            if not has_prev:
-                continue
-            pth, pt = theta_prev, t_prev
-        else:
-            pth, pt = theta[i - 1], t[i - 1]
-        psi_prev = _mod_2pi(pth - theta0)
-        step = _mod_2pi(theta[i] - pth + np.pi) - np.pi
-        s = psi_prev + step
-        out[i] = (s >= TWO_PI) or (s < 0.0) or ((t[i] - pt) > max_gap_s)
+        psi = _psi(theta[i], theta0)
+        if i > 0 or has_prev:
+            out[i] = (abs(psi - psi_prev) > np.pi) | ((t[i] - pt) > max_gap_s)
+        psi_prev = psi
+        pt = t[i]
     return out

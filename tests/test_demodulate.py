@@ -107,19 +107,35 @@ def test_singular_block_is_rejected():
 
 
 def test_turn_boundaries_reference():
-    """The compiled boundary rule equals its direct numpy statement."""
+    """The compiled boundary rule equals its direct numpy statement (psi jumps by more than pi,
+    or a long time gap), for wrapped and unwrapped angles, both senses."""
     rng = np.random.default_rng(5)
     t = np.cumsum(rng.uniform(0.5, 1.5, 500))
     t[300:] += 40.0                                   # one long time gap
     th = np.cumsum(rng.normal(2 * np.pi / 45, 0.02, 500)) * np.where(np.arange(500) < 250, 1, -1)
     theta0, gap = 0.7, 11.0
-    for prev in (None, (th[0] - 0.1, t[0] - 1.0)):
-        got = turn_boundaries(th, theta0, t, gap, *(prev or ()))
-        pth = np.concatenate([[th[0] if prev is None else prev[0]], th[:-1]])
-        pt = np.concatenate([[t[0] if prev is None else prev[1]], t[:-1]])
-        s = np.mod(pth - theta0, 2 * np.pi) + np.mod(th - pth + np.pi, 2 * np.pi) - np.pi
-        want = (s >= 2 * np.pi) | (s < 0) | (t - pt > gap)
-        if prev is None:
-            want[0] = False
-        assert np.array_equal(got, want)
-        assert got[300] and 5 < np.sum(got) < 30
+    for angles in (th, np.mod(th + np.pi, 2 * np.pi) - np.pi):
+        for prev in (None, (angles[0] - 0.1, t[0] - 1.0)):
+            got = turn_boundaries(angles, theta0, t, gap, *(prev or ()))
+            psi = np.mod(np.concatenate([[angles[0] if prev is None else prev[0]], angles])
+                         - theta0, 2 * np.pi)
+            psi[psi >= 2 * np.pi - 1e-7] -= 2 * np.pi            # ANGLE_TIE_RAD
+            pt = np.concatenate([[t[0] if prev is None else prev[1]], t])
+            want = (np.abs(np.diff(psi)) > np.pi) | (np.diff(pt) > gap)
+            if prev is None:
+                want[0] = False
+            assert np.array_equal(got, want)
+            assert got[300] and 5 < np.sum(got) < 30
+
+
+def test_sample_on_the_reference_angle_starts_one_block():
+    """Samples exactly on theta0 + 2 pi k (to rounding) at large unwrapped angles: such a sample
+    has psi = 0, the first angle of a turn, so it starts its block when theta increases and
+    ends it when theta decreases; every block has exactly 45 samples in either sense."""
+    n = 45 * 400
+    t = np.arange(n, dtype=float)
+    for sense in (1.0, -1.0):
+        theta = np.pi + sense * 2 * np.pi * t / 45 + 5000.0 * 2 * np.pi   # unwrapped, ~3e4 rad
+        starts = np.flatnonzero(turn_boundaries(theta, np.pi, t, 11.0))
+        first = 45 if sense > 0 else 1
+        assert np.array_equal(starts, np.arange(first, n, 45)), sense

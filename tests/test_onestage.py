@@ -167,15 +167,22 @@ def white_day(tmp_path_factory):
 
 
 def test_pooled_two_stage_equals_one_stage(white_day):
+    """At one per-turn noise level the two-stage estimate is the one-stage estimate (the per-turn
+    (C, B) carry all the 2 theta information of a turn): equal to 0.01 sigma with equal row
+    weights (formal). The default refits with the C and B rows scaled by their own reduced
+    chi^2 (each uncertain by 1/sqrt(1920) = 2.3 % here), which moves the estimate by a few
+    hundredths of sigma; its sigmas are compared."""
     path, demod, table, info, setup = white_day
     settings = FitSettings()
     one = one_stage_fit(info, demod, setup, table, KE_NAMES, settings)
     level = float(np.median(table.residual_rms[table.accepted]))
     pooled = dataclasses.replace(table, residual_rms=np.full(table.n_blocks, level))
     two = fit_coefficients(setup, pooled, settings, KE_NAMES)
+    equal_rows = fit_coefficients(setup, pooled, FitSettings(uncertainty="formal"), KE_NAMES)
     sig = np.sqrt(np.diag(two.cov))
     for i, n in enumerate(KE_NAMES):
-        assert abs(two.value[i] - one["coefficients"][n]["value"]) < 0.01 * sig[i], n
+        assert abs(equal_rows.value[i] - one["coefficients"][n]["value"]) < 0.01 * sig[i], n
+        assert abs(two.value[i] - one["coefficients"][n]["value"]) < 0.1 * sig[i], n
         # noise level from 2 (C, B) residuals per turn vs from all samples: the ratio of the two
         # sigma estimates scatters by 1/sqrt(2 x 2 x 1920) = 1.1 %; band 5 %
         assert one["coefficients"][n]["sigma"] == pytest.approx(sig[i], rel=0.05), n
