@@ -170,15 +170,11 @@ class TurnTable:
 
     @staticmethod
     def concatenate(tables: list[TurnTable], settings: DemodSettings) -> TurnTable:
-        tables = [t for t in tables if t.n_blocks]
-        if not tables:
-            raise FitError("demodulation: no complete turn found in the record")
-        kw = {f.name: np.concatenate([getattr(t, f.name) for t in tables])
-              for f in fields(TurnTable) if f.name not in ("settings", "aux", "leak")}
-        aux = {k: np.concatenate([t.aux[k] for t in tables]) for k in tables[0].aux}
-        leak = (np.concatenate([t.leak for t in tables])
-                if all(t.leak is not None for t in tables) else None)
-        return TurnTable(settings=settings, aux=aux, leak=leak, **kw)
+        """Join tables in order (see :class:`TurnTableBuilder` to join while they arrive)."""
+        builder = TurnTableBuilder(settings, sum(t.n_blocks for t in tables))
+        for t in tables:
+            builder.append(t)
+        return builder.finish()
 
     def apply_glitch_rule(self) -> None:
         """Mark glitched blocks (module docstring rule) among the non-partial ones."""
@@ -190,6 +186,64 @@ class TurnTable:
         mad = 1.4826 * np.median(np.abs(r - med))
         limit = med + self.settings.glitch_threshold * max(mad, 1e-12 * med)
         self.status[good & (self.residual_rms > limit)] = self.GLITCH
+
+
+class TurnTableBuilder:
+    """Joins the turn tables of consecutive ranges as they arrive, into arrays allocated once
+    for about ``expected_blocks`` rows (grown by half when more arrive), so the per-range
+    tables can be dropped at once: the peak memory is the table itself, not twice it."""
+
+    _ROW_FIELDS = ("t_mid_s", "t_start_s", "t_stop_s", "n_valid", "coef", "ninv_2",
+                   "residual_rms", "angle_gap_deg", "status", "leak")
+
+    def __init__(self, settings: DemodSettings, expected_blocks: int):
+        self.settings = settings
+        self._capacity = max(int(expected_blocks), 16)
+        self._size = 0
+        self._arrays: dict | None = None
+        self._aux: dict = {}
+        self._has_leak = True
+
+    def _allocate(self, like: TurnTable, capacity: int) -> None:
+        def grow(old, part):
+            new = np.empty((capacity,) + part.shape[1:], part.dtype)
+            if old is not None:
+                new[:self._size] = old[:self._size]
+            return new
+
+        old = self._arrays or {}
+        self._arrays = {name: grow(old.get(name), getattr(like, name))
+                        for name in self._ROW_FIELDS if getattr(like, name) is not None}
+        self._aux = {k: grow(self._aux.get(k), v) for k, v in like.aux.items()}
+        self._capacity = capacity
+
+    def append(self, table: TurnTable) -> None:
+        n = table.n_blocks
+        if n == 0:
+            return
+        self._has_leak &= table.leak is not None
+        if self._arrays is None:
+            self._allocate(table, max(self._capacity, n))
+        elif self._size + n > self._capacity:
+            self._allocate(table, max(self._size + n, int(1.5 * self._capacity)))
+        sl = slice(self._size, self._size + n)
+        for name, arr in self._arrays.items():
+            part = getattr(table, name)
+            if part is not None:
+                arr[sl] = part
+        for k, arr in self._aux.items():
+            arr[sl] = table.aux[k]
+        self._size += n
+
+    def finish(self) -> TurnTable:
+        """The joined table (views of the allocated arrays, trimmed to the rows received)."""
+        if self._size == 0:
+            raise FitError("demodulation: no complete turn found in the record")
+        rows = {name: arr[:self._size] for name, arr in self._arrays.items()}
+        leak = rows.pop("leak", None) if self._has_leak else None
+        rows.pop("leak", None)
+        return TurnTable(settings=self.settings, leak=leak,
+                         aux={k: v[:self._size] for k, v in self._aux.items()}, **rows)
 
 
 def leak_terms(settings: DemodSettings) -> tuple[tuple[str, int], ...]:
@@ -244,17 +298,15 @@ def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_star
               else np.zeros((n, 0)))
     kinds = leak_terms(settings)
     theta = np.pi - np.asarray(azimuth_rad, float)
-    (vcount, t_mid, t_lo, t_hi, sol, ninv_2, rms, gap_rad, ok) = block_fits(
+    (vcount, t_mid, t_lo, t_hi, coef, aux_coef, leak, ninv_2, rms, gap_rad, ok) = block_fits(
         np.ascontiguousarray(t_s, float), theta, np.cos(theta), np.sin(theta),
         np.ascontiguousarray(y, float), aux_2d, np.asarray(block_starts, np.int64),
         DRIFT_TERMS[settings.drift], settings.max_harmonic,
         np.array([LEAK_KIND_CODES[k] for k, _ in kinds], np.int64),
         np.array([j for _, j in kinds], np.int64), settings.min_samples,
         np.radians(settings.max_angle_gap_deg))
-    ic, isn = settings.index("c2"), settings.index("s2")
     status = np.where(ok, TurnTable.ACCEPTED, TurnTable.PARTIAL).astype(np.int8)
-    return TurnTable(t_mid_s=t_mid, t_start_s=t_lo, t_stop_s=t_hi, n_valid=vcount,
-                     coef=sol[:, :, 0].copy(), ninv_2=ninv_2, residual_rms=rms,
-                     angle_gap_deg=np.degrees(gap_rad), status=status, settings=settings,
-                     aux={name: sol[:, :, 1 + j].copy() for j, name in enumerate(names)},
-                     leak=sol[:, [ic, isn], 1 + len(names):])
+    return TurnTable(t_mid_s=t_mid, t_start_s=t_lo, t_stop_s=t_hi, n_valid=vcount, coef=coef,
+                     ninv_2=ninv_2, residual_rms=rms, angle_gap_deg=np.degrees(gap_rad),
+                     status=status, settings=settings,
+                     aux={name: aux_coef[j] for j, name in enumerate(names)}, leak=leak)

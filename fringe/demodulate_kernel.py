@@ -157,8 +157,9 @@ def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd, max_harmonic,
 
     Returns
     -------
-    vcount (nb,) int64, t_mid, t_lo, t_hi (nb,) s, sol (nb, p, 1 + n_aux + q), ninv_2
-    (nb, 2, 2), rms (nb,), gap_rad (nb,), ok (nb,) bool
+    vcount (nb,) int64, t_mid, t_lo, t_hi (nb,) s, coef (nb, p), aux_coef (n_aux, nb, p),
+    leak (nb, 2, q) (the (C, B) rows of the leak columns' solutions), ninv_2 (nb, 2, 2),
+    rms (nb,), gap_rad (nb,), ok (nb,) bool; NaN for rejected blocks
     """
     n = t.size
     nb = starts.size
@@ -171,7 +172,9 @@ def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd, max_harmonic,
     t_mid = np.zeros(nb)
     t_lo = np.full(nb, np.nan)
     t_hi = np.full(nb, np.nan)
-    sol = np.full((nb, p, r), np.nan)
+    coef = np.full((nb, p), np.nan)
+    aux_coef = np.full((n_aux, nb, p), np.nan)
+    leak = np.full((nb, 2, q), np.nan)
     ninv_2 = np.full((nb, 2, 2), np.nan)
     rms = np.full(nb, np.nan)
     gap_rad = np.full(nb, TWO_PI)
@@ -268,11 +271,21 @@ def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd, max_harmonic,
             for u in range(p):
                 inv[j, u] = inv[j, u] / scale[j] / scale[u]
         for j in range(p):
-            for k in range(r):
+            for k in range(1 + n_aux):
                 e = 0.0
                 for u in range(p):
                     e += inv[j, u] * rhs[u, k]
-                sol[b, j, k] = e
+                if k == 0:
+                    coef[b, j] = e
+                else:
+                    aux_coef[k - 1, b, j] = e
+        for row in range(2):
+            j = ic if row == 0 else isn
+            for k in range(q):
+                e = 0.0
+                for u in range(p):
+                    e += inv[j, u] * rhs[u, 1 + n_aux + k]
+                leak[b, row, k] = e
         ninv_2[b, 0, 0] = inv[ic, ic]
         ninv_2[b, 0, 1] = inv[ic, isn]
         ninv_2[b, 1, 0] = inv[isn, ic]
@@ -282,11 +295,11 @@ def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd, max_harmonic,
         for i in range(m):
             e = vals[0, i]
             for j in range(p):
-                e -= rows[j, i] * sol[b, j, 0]
+                e -= rows[j, i] * coef[b, j]
             chi2 += e * e
         rms[b] = np.sqrt(chi2 / max(cnt - p, 1))
         ok[b] = True
-    return vcount, t_mid, t_lo, t_hi, sol, ninv_2, rms, gap_rad, ok
+    return vcount, t_mid, t_lo, t_hi, coef, aux_coef, leak, ninv_2, rms, gap_rad, ok
 
 
 #: Angles this close below theta0 + 2 pi k count as on it (block boundaries), rad. Far above the

@@ -17,7 +17,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .demodulate import DemodSettings, TurnTable, demodulate_blocks, leak_terms, turn_boundaries
+from .demodulate import (
+    DemodSettings,
+    TurnTable,
+    TurnTableBuilder,
+    demodulate_blocks,
+    leak_terms,
+    turn_boundaries,
+)
 from .errors import ConfigError, FitError
 from .io.runfile import open_run
 
@@ -40,6 +47,11 @@ class RecordInfo:
     max_gap_s: float
     aux_channels: tuple[str, ...]
     lookahead_samples: int = 1 << 16
+
+    def expected_blocks(self) -> int:
+        """About how many blocks the record holds (full turns, plus a margin for gaps)."""
+        per_turn = max(self.lookahead_samples / 4.0, 1.0)
+        return int(1.05 * self.n_samples / per_turn) + 64
 
 
 def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = ()
@@ -163,13 +175,14 @@ def run_stage1(path: str, settings: DemodSettings, *, aux_channels: tuple[str, .
         raise ConfigError(f"--engine: expected one of {', '.join(ENGINES)}, got {engine!r}")
     info = survey(path, settings, aux_channels)
     parts = ranges(info.n_samples, range_samples)
+    builder = TurnTableBuilder(settings, info.expected_blocks())
     if engine == "local":
-        tables = _run_local(info, settings, parts, progress)
+        _run_local(info, settings, parts, progress, builder.append)
     else:
-        tables = _run_dask(info, settings, parts, scheduler)
+        _run_dask(info, settings, parts, scheduler, builder.append)
         if progress:
             progress(info.n_samples)
-    table = TurnTable.concatenate(tables, settings)
+    table = builder.finish()
     table.apply_glitch_rule()
     logger.info("stage 1: %s", table.counts())
     return table, info
@@ -179,8 +192,9 @@ def run_stage1(path: str, settings: DemodSettings, *, aux_channels: tuple[str, .
 LOCAL_THREADS = min(2, os.cpu_count() or 1)
 
 
-def _run_local(info, settings, parts, progress):
-    """Ranges in order, two at a time in threads; results in range order (deterministic)."""
+def _run_local(info, settings, parts, progress, collect):
+    """Ranges in order, two at a time in threads; each range's table goes to ``collect`` in
+    range order (deterministic) as soon as it and its predecessors are done."""
     from concurrent.futures import ThreadPoolExecutor
 
     with open_run(info.path, check_values=False) as run:
@@ -191,12 +205,15 @@ def _run_local(info, settings, parts, progress):
             return table
 
         if LOCAL_THREADS <= 1 or len(parts) < 2:
-            return [one(ab) for ab in parts]
+            for ab in parts:
+                collect(one(ab))
+            return
         with ThreadPoolExecutor(max_workers=LOCAL_THREADS) as pool:
-            return list(pool.map(one, parts))
+            for table in pool.map(one, parts):
+                collect(table)
 
 
-def _run_dask(info, settings, parts, scheduler):
+def _run_dask(info, settings, parts, scheduler, collect):
     try:
         from distributed import Client
     except ImportError:
@@ -209,7 +226,9 @@ def _run_dask(info, settings, parts, scheduler):
     try:
         futures = [client.submit(demodulate_range, info, settings, a, b, pure=False)
                    for a, b in parts]
-        return client.gather(futures)
+        for future in futures:            # in range order; each result is dropped once joined
+            collect(future.result())
+            future.release()
     finally:
         if own:
             client.close()

@@ -140,9 +140,12 @@ def turn_covariance(table: TurnTable, sel: NDArray) -> NDArray:
 
 def fit_harmonics(phi_rad: NDArray, c: NDArray, b: NDArray, w: PairWeights) -> dict:
     """Stage 2: C10 harmonics with covariance (scaled by the reduced chi^2)."""
+    sin1, cos1 = np.sin(phi_rad), np.cos(phi_rad)
+    f_all = np.stack([np.ones_like(phi_rad), sin1, cos1, 2 * sin1 * cos1,
+                      cos1 * cos1 - sin1 * sin1], axis=1)       # 1, sin, cos phi, 2 phi
+
     def rows(sl):
-        p = phi_rad[sl]
-        f = np.stack([np.ones_like(p), np.sin(p), np.cos(p), np.sin(2 * p), np.cos(2 * p)], 1)
+        f = f_all[sl]
         z = np.zeros_like(f)
         return np.concatenate([f, z], axis=1), np.concatenate([z, f], axis=1), c[sl], b[sl]
 
@@ -205,21 +208,20 @@ def _design(setup, t, names, table, sel, settings):
     Returns (jc, jb), each (n, k + nuisances), and the labels of the columns.
     """
     labels = design_labels(names, settings)
-    _, jc, jb = turn_model(setup, t, names, table=table, sel=sel, mean=False)
+    k, kk = len(names), len(labels)
+    jc, jb = np.empty((t.size, kk)), np.empty((t.size, kk))
+    turn_model(setup, t, names, table=table, sel=sel, mean=False, out=(jc, jb))
     ic, isn = table.settings.index("c2"), table.settings.index("s2")
-    extra_c, extra_b = [], []
+    col = k
     if settings.lab_b0:
-        extra_c.append(np.zeros(t.size))
-        extra_b.append(np.ones(t.size))
+        jc[:, col], jb[:, col] = 0.0, 1.0
+        col += 1
     if settings.lab_c0:
-        extra_c.append(np.ones(t.size))
-        extra_b.append(np.zeros(t.size))
+        jc[:, col], jb[:, col] = 1.0, 0.0
+        col += 1
     for ch in settings.regress:
-        extra_c.append(table.aux[ch][sel, ic])
-        extra_b.append(table.aux[ch][sel, isn])
-    if extra_c:
-        jc = np.concatenate([jc, np.stack(extra_c, 1)], axis=1)
-        jb = np.concatenate([jb, np.stack(extra_b, 1)], axis=1)
+        jc[:, col], jb[:, col] = table.aux[ch][sel, ic], table.aux[ch][sel, isn]
+        col += 1
     return jc, jb, labels
 
 

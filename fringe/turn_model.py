@@ -11,6 +11,8 @@ it.
 from __future__ import annotations
 
 import math
+import os
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -89,7 +91,10 @@ WITHIN_TURN_GRID_S = 300.0
 STENCIL = np.arange(-2, 4)
 
 #: Turns per batch when evaluating the per-turn model (bounds the transient memory).
-TURN_BATCH = 65536
+TURN_BATCH = 16384
+
+#: Threads evaluating batches of turns (each writes its own rows of the result).
+MODEL_THREADS = min(2, os.cpu_count() or 1)
 
 
 @dataclass(frozen=True)
@@ -130,7 +135,10 @@ def _lagrange_derivative_weights(s: NDArray, step_s: float, max_order: int) -> l
     the quintic through the six stencil points, at fractional positions s (in steps)."""
     nodes = STENCIL.astype(float)
     mono = np.linalg.inv(np.vander(nodes, increasing=True))   # row e: s^e coefficients
-    powers = np.stack([s ** e for e in range(nodes.size)], axis=1)
+    powers = np.empty((s.size, nodes.size))
+    powers[:, 0] = 1.0
+    for e in range(1, nodes.size):
+        powers[:, e] = powers[:, e - 1] * s
     out = []
     for j in range(max_order + 1):
         e = np.arange(j, nodes.size)
@@ -181,7 +189,7 @@ def _measured_model(grid: _ModelGrid, t, half, leak, settings, with_a: bool = Tr
 
 def turn_model(setup: Setup, t_s: NDArray, names: tuple[str, ...] | None = None,
                params: dict | None = None, *, table: TurnTable | None = None,
-               sel: NDArray | None = None, mean: bool = True
+               sel: NDArray | None = None, mean: bool = True, out: tuple | None = None
                ) -> tuple[NDArray | None, NDArray, NDArray]:
     """Non-rotating mean A, and 2 theta amplitudes C, B of the model for turns at t_s.
 
@@ -197,7 +205,9 @@ def turn_model(setup: Setup, t_s: NDArray, names: tuple[str, ...] | None = None,
     response to each tau^j term (``table.leak``), is added. Freezing the model at t_mid instead
     errs by about (P_turn / P_sidereal) x the signal (the within-turn change of C leaks into B
     and back). Turns are processed in batches of TURN_BATCH. With ``mean=False`` (and a
-    table) A is not computed and None is returned in its place.
+    table) A is not computed and None is returned in its place. ``out`` = (C_out, B_out),
+    arrays (n, >= k), receives C and B in its first k columns (linear theories with a table;
+    the returned C and B are views of it).
     """
     t = np.atleast_1d(np.asarray(t_s, float))
     if table is not None and table.leak is not None and t.size:
@@ -206,15 +216,30 @@ def turn_model(setup: Setup, t_s: NDArray, names: tuple[str, ...] | None = None,
         grid = _model_grid(setup, t, half, names, params)
         k = grid.values[0].shape[1]
         a = np.empty((t.size, k)) if mean else None
-        c, b = np.empty((t.size, k)), np.empty((t.size, k))
-        for i in range(0, t.size, TURN_BATCH):
+        if out is not None:
+            c, b = out[0][:, :k], out[1][:, :k]
+        else:
+            c, b = np.empty((t.size, k)), np.empty((t.size, k))
+
+        def batch(i):
             sl = slice(i, i + TURN_BATCH)
             pa, c[sl], b[sl] = _measured_model(grid, t[sl], half[sl], table.leak[rows[sl]],
                                                table.settings, with_a=mean)
             if mean:
                 a[sl] = pa
+
+        starts = range(0, t.size, TURN_BATCH)
+        if len(starts) > 1:        # numpy and scipy.sparse release the GIL in the heavy parts
+            with ThreadPoolExecutor(max_workers=MODEL_THREADS) as pool:
+                list(pool.map(batch, starts))
+        else:
+            batch(0)
     else:
         a, c, b = _frozen_model(setup, t, names, params)
+        if out is not None:
+            k = c.shape[1]
+            out[0][:, :k], out[1][:, :k] = c, b
+            c, b = out[0][:, :k], out[1][:, :k]
     if params is not None:
         return (None if a is None else a[:, 0]), c[:, 0], b[:, 0]
     return a, c, b
