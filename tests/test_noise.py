@@ -11,7 +11,8 @@ import pytest
 
 from fringe.allan import overlapping_adev
 from fringe.errors import ConfigError
-from fringe.noise import NoiseStream, PowerLawNoise, _ar1_bank_avar
+from fringe.noise import NoiseStream, PowerLawNoise
+from fringe.noise_stream import _ar1_bank_avar
 
 TAU0 = 1.0
 N = 2**20
