@@ -139,3 +139,26 @@ def test_sample_on_the_reference_angle_starts_one_block():
         starts = np.flatnonzero(turn_boundaries(theta, np.pi, t, 11.0))
         first = 45 if sense > 0 else 1
         assert np.array_equal(starts, np.arange(first, n, 45)), sense
+
+
+def test_table_builder_joins_ranges_and_grows():
+    """Joining range tables as they arrive (TurnTableBuilder) equals demodulating at once, also
+    when the expected size is far too small (the arrays grow)."""
+    from fringe.demodulate import TurnTableBuilder
+
+    rng = np.random.default_rng(6)
+    t, az, y, aux, starts = _record(rng, n_blocks=30)
+    whole = demodulate_blocks(t, az, y, starts, DemodSettings(), aux=aux)
+    bounds = np.append(starts, t.size)
+    for expected in (2, 1000):
+        builder = TurnTableBuilder(DemodSettings(), expected)
+        for lo, hi in ((0, 7), (7, 8), (8, 8), (8, 30)):
+            sl = slice(bounds[lo], bounds[hi])
+            part = demodulate_blocks(t[sl], az[sl], y[sl], starts[lo:hi] - bounds[lo],
+                                     DemodSettings(), aux={k: v[sl] for k, v in aux.items()})
+            builder.append(part)
+        joined = builder.finish()
+        assert joined.n_blocks == whole.n_blocks
+        for name in ("t_mid_s", "coef", "ninv_2", "residual_rms", "leak", "status"):
+            assert np.array_equal(getattr(joined, name), getattr(whole, name), equal_nan=True)
+        assert np.array_equal(joined.aux["tilt"], whole.aux["tilt"], equal_nan=True)
