@@ -208,9 +208,16 @@ def _run_local(info, settings, parts, progress, collect):
             for ab in parts:
                 collect(one(ab))
             return
-        with ThreadPoolExecutor(max_workers=LOCAL_THREADS) as pool:
+        pool = ThreadPoolExecutor(max_workers=LOCAL_THREADS)
+        try:
             for table in pool.map(one, parts):
                 collect(table)
+        except BaseException:
+            # a bad range (or an interrupt) stops the rest at once instead of after every
+            # queued range has run
+            pool.shutdown(wait=True, cancel_futures=True)
+            raise
+        pool.shutdown(wait=True)
 
 
 def _run_dask(info, settings, parts, scheduler, collect):
