@@ -226,10 +226,10 @@ def _design(setup, t, names, table, sel, settings):
 
 
 def fit_coefficients(setup: Setup, table: TurnTable, settings: FitSettings,
-                     free: tuple[str, ...], cov_turns: NDArray | None = None
+                     free: tuple[str, ...], weights: PairWeights | None = None
                      ) -> CoefficientFit:
-    """Stage 3 for a linear theory (see module docstring); ``cov_turns`` = the per-turn
-    covariances of :func:`turn_covariance` if already computed."""
+    """Stage 3 for a linear theory (see module docstring); ``weights`` = the per-turn weights
+    from :func:`turn_covariance` if already computed."""
     sel = table.accepted
     t = table.t_mid_s[sel]
     c, b = table.C[sel].copy(), table.B[sel].copy()
@@ -237,7 +237,7 @@ def fit_coefficients(setup: Setup, table: TurnTable, settings: FitSettings,
         _, fc, fb = turn_model(setup, t, params=settings.fixed, table=table, sel=sel,
                                mean=False)
         c, b = c - fc, b - fb
-    w = PairWeights.from_cov(turn_covariance(table, sel) if cov_turns is None else cov_turns)
+    w = weights if weights is not None else PairWeights.from_cov(turn_covariance(table, sel))
     jc, jb, labels = _design(setup, t, free, table, sel, settings)
     n, kk = t.size, len(labels)
 
@@ -269,7 +269,7 @@ def fit_coefficients(setup: Setup, table: TurnTable, settings: FitSettings,
                          np.random.default_rng(settings.seed), d_c, d_b)
     # Cramer-Rao with the white per-sample level the data show
     sigma_white = float(np.median(table.residual_rms[sel]))
-    w_cr = PairWeights.from_cov(sigma_white ** 2 * table.ninv_2[sel])
+    w_cr = PairWeights.from_cov(table.ninv_2[sel], scale=sigma_white ** 2)
     _, cov_cr = solve(*normal_parts(rows, w_cr, kk).combine())
     k = len(free)
     sig = np.sqrt(np.diag(cov))
@@ -411,8 +411,8 @@ def stage2_and_3(setup: Setup, table: TurnTable, settings: FitSettings,
         raise FitError(f"fit: only {int(np.sum(sel))} accepted turns; need at least 12")
     t = table.t_mid_s[sel]
     phi = sidereal_angle_rad(setup.epoch, t, setup.site.east_longitude_rad)
-    cov_turns = turn_covariance(table, sel)
-    harm = fit_harmonics(phi, table.C[sel], table.B[sel], PairWeights.from_cov(cov_turns))
+    weights = PairWeights.from_cov(turn_covariance(table, sel))
+    harm = fit_harmonics(phi, table.C[sel], table.B[sel], weights)
     theory = setup.theory
     if settings.free is not None:
         free = tuple(settings.free)
@@ -427,7 +427,7 @@ def stage2_and_3(setup: Setup, table: TurnTable, settings: FitSettings,
         raise ConfigError("--free rms_kt: free rms_mm as well (the offsets' model uses the "
                           "2 theta estimate of rms_mm)")
     if theory.linear:
-        res = fit_coefficients(setup, table, settings, rotating, cov_turns)
+        res = fit_coefficients(setup, table, settings, rotating, weights)
     else:
         res = fit_medium(setup, table, settings)
     if "rms_kt" in free:

@@ -38,13 +38,14 @@ class PairWeights:
     p11: NDArray
 
     @classmethod
-    def from_cov(cls, cov: NDArray) -> PairWeights:
-        """From per-turn covariances (n, 2, 2); raises FitError if one is not positive
-        definite."""
+    def from_cov(cls, cov: NDArray, scale: float = 1.0) -> PairWeights:
+        """From per-turn covariances ``scale`` x cov (cov (n, 2, 2)); raises FitError if one
+        is not positive definite."""
         c00, c01, c11 = cov[:, 0, 0], 0.5 * (cov[:, 0, 1] + cov[:, 1, 0]), cov[:, 1, 1]
         det = c00 * c11 - c01 * c01
-        if np.any(~(c00 > 0)) or np.any(~(det > 0)):
+        if np.any(~(c00 > 0)) or np.any(~(det > 0)) or not scale > 0:
             raise FitError("stage 3: a turn's (C, B) covariance is not positive definite")
+        det *= scale
         return cls(c11 / det, -c01 / det, c00 / det)
 
     @property
