@@ -104,13 +104,7 @@ class _ModelGrid:
     start_s: float
     step_s: float
     values: tuple
-
-    @property
-    def stacked(self) -> NDArray:
-        """A, C and B values stacked, (3 m, k) (computed once)."""
-        if "_stacked" not in self.__dict__:
-            object.__setattr__(self, "_stacked", np.concatenate(self.values, axis=0))
-        return self.__dict__["_stacked"]
+    stacked: NDArray            # the three stacked, (3 m, k)
 
 
 def _model_grid(setup: Setup, t: NDArray, half: NDArray, names, params) -> _ModelGrid:
@@ -127,7 +121,8 @@ def _model_grid(setup: Setup, t: NDArray, half: NDArray, names, params) -> _Mode
     lo = float(np.min(t) - np.max(half)) - 4 * step
     hi = float(np.max(t) + np.max(half)) + 4 * step
     grid = lo + step * np.arange(max(int(np.ceil((hi - lo) / step)) + 1, STENCIL.size + 2))
-    return _ModelGrid(lo, step, _frozen_model(setup, grid, names, params))
+    values = _frozen_model(setup, grid, names, params)
+    return _ModelGrid(lo, step, values, np.concatenate(values, axis=0))
 
 
 def _lagrange_derivative_weights(s: NDArray, step_s: float, max_order: int) -> list[NDArray]:
