@@ -31,7 +31,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from .conventions import DEFAULT_PATH_SEPARATION_DEG
-from .errors import ConfigError, check_finite_number
+from .errors import ConfigError, check_finite_number, reject_unknown_fields
 
 
 @dataclass(frozen=True)
@@ -333,10 +333,7 @@ def make_apparatus(attrs: dict, source: str = "apparatus") -> Apparatus:
                           f"got {kind!r}")
     cls = APPARATUS_KINDS[kind]
     allowed = apparatus_fields(cls)
-    unknown = sorted(set(attrs) - allowed)
-    if unknown:
-        raise ConfigError(f"{source}: {unknown[0]}: not a field of kind '{kind}' (expected "
-                          f"some of {', '.join(sorted(allowed))})")
+    reject_unknown_fields(attrs, allowed, f"{source}:", f"not a field of kind '{kind}'")
     if "passes" in attrs and isinstance(attrs["passes"], float) and attrs["passes"].is_integer():
         attrs["passes"] = int(attrs["passes"])
     return cls(**attrs)

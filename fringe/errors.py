@@ -88,3 +88,12 @@ def check_finite_number(value, source: str, field: str, *, positive: bool = Fals
     if maximum is not None and x > maximum:
         raise ConfigError(f"{source}: {field}: expected a value <= {maximum}, got {value!r}")
     return x
+
+
+def reject_unknown_fields(given, allowed, where: str, what: str = "unknown field") -> None:
+    """Raise ConfigError "WHERE NAME: WHAT (expected some of ...)" for the first (sorted) name
+    of ``given`` that is not in ``allowed``; ``where`` ends with ":" or a section label."""
+    unknown = sorted(set(given) - set(allowed))
+    if unknown:
+        raise ConfigError(f"{where} {unknown[0]}: {what} (expected some of "
+                          f"{', '.join(sorted(allowed))})")

@@ -26,7 +26,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from .errors import ConfigError, check_finite_number
+from .errors import ConfigError, check_finite_number, reject_unknown_fields
 
 __all__ = ["NoiseStream", "PowerLawNoise"]
 
@@ -212,10 +212,7 @@ class PowerLawNoise:
         error."""
         if not isinstance(data, dict):
             raise ConfigError(f"noise: expected a mapping, got {type(data).__name__}")
-        unknown = sorted(set(data) - set(_FIELDS))
-        if unknown:
-            raise ConfigError(f"noise: {unknown[0]}: unknown field; expected one of "
-                              f"{', '.join(_FIELDS)}")
+        reject_unknown_fields(data, _FIELDS, "noise:")
         return cls(**data)
 
 
@@ -256,10 +253,7 @@ def noise_from_section(section: dict | None, source: str = "scenario",
     if not isinstance(section, dict):
         raise ConfigError(f"{where}: expected a table of noise levels")
     known = set(ADEV_FIELDS) | set(PSD_FIELDS) | {"f_h_hz"}
-    for key in section:
-        if key not in known:
-            raise ConfigError(f"{where} {key}: unknown field (expected some of "
-                              f"{', '.join(sorted(known))})")
+    reject_unknown_fields(section, known, where)
     vals = {k: check_finite_number(v, where, k, minimum=0.0) for k, v in section.items()
             if k != "f_h_hz"}
     f_h = None

@@ -19,7 +19,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from .conventions import theta_from_azimuth
-from .errors import ConfigError, check_finite_number
+from .errors import ConfigError, check_finite_number, reject_unknown_fields
 
 SENSES = {"ccw": 1.0, "cw": -1.0}
 
@@ -212,10 +212,8 @@ def make_motion(spec: dict, source: str = "turntable"):
         raise ConfigError(f"{source}: motion: expected 'continuous' or 'stepped', "
                           f"got {motion!r}")
     cls = classes[motion]
-    unknown = sorted(set(spec) - set(cls.__dataclass_fields__))
-    if unknown:
-        raise ConfigError(f"{source}: {unknown[0]}: not a field of {motion} motion (expected "
-                          f"some of {', '.join(cls.__dataclass_fields__)})")
+    reject_unknown_fields(spec, cls.__dataclass_fields__, f"{source}:",
+                          f"not a field of {motion} motion")
     try:
         return cls(**spec)
     except TypeError as exc:

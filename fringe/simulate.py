@@ -30,7 +30,7 @@ from dataclasses import dataclass, fields
 import numpy as np
 
 from . import __version__
-from .errors import ConfigError, check_finite_number
+from .errors import ConfigError, check_finite_number, reject_unknown_fields
 from .noise import NoiseStream, PowerLawNoise, noise_from_section, noise_scale
 from .scenario import Scenario
 from .signal import CHUNK_SAMPLES, signal
@@ -82,11 +82,7 @@ class Systematics:
     @classmethod
     def from_section(cls, section: dict, source: str) -> Systematics:
         section = dict(section or {})
-        names = {f.name for f in fields(cls)}
-        unknown = sorted(set(section) - names)
-        if unknown:
-            raise ConfigError(f"{source}: [systematics] {unknown[0]}: unknown field (expected "
-                              f"some of {', '.join(sorted(names))})")
+        reject_unknown_fields(section, {f.name for f in fields(cls)}, f"{source}: [systematics]")
         try:
             return cls(**section)
         except ConfigError as exc:
