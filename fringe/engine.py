@@ -25,13 +25,17 @@ from .demodulate import (
     leak_terms,
     turn_boundaries,
 )
-from .errors import ConfigError, FitError
+from .errors import ConfigError, FitError, InputFileError
 from .io.runfile import open_run
 
 logger = logging.getLogger(__name__)
 
 #: Samples per range of stage 1 (memory ~ 350 bytes per sample for the default model).
 RANGE_SAMPLES = 1 << 17
+
+#: Longest block read ahead, samples (or 256 turns, if more): a table that stops turning with
+#: no time gap would otherwise make one block of the rest of the record, all of it in memory.
+MAX_BLOCK_SAMPLES = 1 << 21
 
 ENGINES = ("local", "dask")
 
@@ -125,6 +129,13 @@ def range_samples_and_blocks(info: RecordInfo, start: int, stop: int, run=None
     after = starts[starts >= stop - start]
     parts, length = [data], data["time"].size
     while after.size == 0 and pos < n:                 # the last block is longer: read on
+        longest = max(MAX_BLOCK_SAMPLES, 64 * info.lookahead_samples)
+        if length - int(inside[-1]) > longest:
+            raise InputFileError(
+                info.path, "samples/azimuth",
+                f"a turn within {longest} samples; from sample {start + int(inside[-1])} the "
+                "table does not pass its starting angle (stopped turning?): cut the record "
+                "there or split it")
         more = _read(run, pos, min(pos + info.lookahead_samples, n), channels)
         prev = parts[-1]
         hit = np.flatnonzero(turn_boundaries(

@@ -162,3 +162,32 @@ def test_table_builder_joins_ranges_and_grows():
         for name in ("t_mid_s", "coef", "ninv_2", "residual_rms", "leak", "status"):
             assert np.array_equal(getattr(joined, name), getattr(whole, name), equal_nan=True)
         assert np.array_equal(joined.aux["tilt"], whole.aux["tilt"], equal_nan=True)
+
+
+def test_stalled_table_is_a_one_line_error(tmp_path, monkeypatch):
+    """A table that stops turning (no time gap) would make the rest of the record one block in
+    memory; beyond the read-ahead limit the fit stops with the file's one-line error."""
+    import fringe.engine as engine
+    from fringe.engine import run_stage1
+    from fringe.errors import InputFileError
+    from fringe.io.runfile import RunWriter
+
+    n = 150_000
+    t = np.arange(n, dtype=float)
+    az = np.where(t < 100_000, np.mod(-2 * np.pi * t / 45, 2 * np.pi), 1.0)   # turns, stops
+    y = np.random.default_rng(7).normal(size=n)
+    path = tmp_path / "stall.h5"
+    with RunWriter(path, site={"latitude_deg": 47.6, "longitude_deg": 11.4},
+                   apparatus={"kind": "cavity-pair", "carrier_hz": 2.8e14},
+                   epoch_utc="2027-02-03T00:00:00Z", signal_units="Hz") as w:
+        w.append(t, az, y)
+    monkeypatch.setattr(engine, "MAX_BLOCK_SAMPLES", 2_000)    # 64 x 180 samples apply here
+    with pytest.raises(InputFileError) as err:
+        run_stage1(str(path), DemodSettings(), range_samples=1 << 14)
+    message = str(err.value)
+    assert message.startswith(f"{path}: samples/azimuth: ") and "\n" not in message
+    assert "stopped turning" in message
+    # with the default limit the same record is fitted (the stall is one rejected block)
+    monkeypatch.setattr(engine, "MAX_BLOCK_SAMPLES", 1 << 21)
+    table, _ = run_stage1(str(path), DemodSettings(), range_samples=1 << 14)
+    assert table.n_blocks >= 2000 and not table.accepted[-1] and table.n_valid[-1] > 40_000
