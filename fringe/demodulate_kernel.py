@@ -1,11 +1,11 @@
 """Compiled stage-1 kernels (numba): the per-block least squares of :mod:`fringe.demodulate`.
 
-One call handles every block of a contiguous sample range, one block at a time, in three passes
-over the block's samples while they sit in the CPU cache: (1) valid-sample count, mean time and
-time span; (2) the design row of each valid sample, accumulated into the block's normal matrix
-and right-hand sides (signal, auxiliary channels and the unit leak columns); (3) the residuals.
-Between (2) and (3) the block's angular coverage is checked and the normal equations are solved
-by a Cholesky factorisation of the unit-diagonal (scaled) normal matrix.
+One call handles every block of a contiguous sample range, one block at a time, in passes over
+the block's samples while they sit in the CPU cache: (1) valid-sample count, mean time, time span
+and the angles for the coverage check; (2) the design columns of the valid samples (stored
+column by column) and the signal, auxiliary and unit leak columns, whose products give the
+block's normal matrix and right-hand sides; (3) the residuals. Between (2) and (3) the normal
+equations are solved by a Cholesky factorisation of the unit-diagonal (scaled) normal matrix.
 
 Rank guard: a block is singular when the Cholesky factorisation fails or when the trace of the
 inverse of the unit-diagonal normal matrix exceeds ``1 / MIN_EIGENVALUE``. The trace bounds the
@@ -13,11 +13,13 @@ largest eigenvalue of the inverse from above and from below within a factor p (t
 block terms), so every block whose smallest eigenvalue is below MIN_EIGENVALUE is rejected, and
 blocks within a factor p above it may be too.
 
-The kernels use IEEE arithmetic in a fixed order (no fast-math), so the numbers do not depend on
+Arithmetic: IEEE double precision; only the dot products of (2) may be reassociated and fused
+(numba ``fastmath`` flags ``reassoc`` and ``contract``, for SIMD), never the NaN/inf handling.
+A block's numbers depend only on its own samples and the fixed code, so they do not depend on
 how the record is split into ranges or threads. ``cache=True`` stores the compiled code beside
 this module (or in numba's cache directory), so only the first run after an install compiles.
-The pure-numpy reference implementation against which these kernels are tested is in the test
-suite (``tests/oracle.py``).
+The kernels are tested against a plain per-block ``numpy.linalg.lstsq`` statement of the model
+(``tests/test_demodulate.py``).
 """
 
 from __future__ import annotations
