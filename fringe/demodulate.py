@@ -168,14 +168,6 @@ class TurnTable:
                 "n_rejected_partial": int(np.sum(self.status == 1)),
                 "n_rejected_glitch": int(np.sum(self.status == 2))}
 
-    @staticmethod
-    def concatenate(tables: list[TurnTable], settings: DemodSettings) -> TurnTable:
-        """Join tables in order (see :class:`TurnTableBuilder` to join while they arrive)."""
-        builder = TurnTableBuilder(settings, sum(t.n_blocks for t in tables))
-        for t in tables:
-            builder.append(t)
-        return builder.finish()
-
     def apply_glitch_rule(self) -> None:
         """Mark glitched blocks (module docstring rule) among the non-partial ones."""
         good = self.status == self.ACCEPTED
@@ -240,9 +232,8 @@ class TurnTableBuilder:
         if self._size == 0:
             raise FitError("demodulation: no complete turn found in the record")
         rows = {name: arr[:self._size] for name, arr in self._arrays.items()}
-        leak = rows.pop("leak", None) if self._has_leak else None
-        rows.pop("leak", None)
-        return TurnTable(settings=self.settings, leak=leak,
+        leak = rows.pop("leak", None)
+        return TurnTable(settings=self.settings, leak=leak if self._has_leak else None,
                          aux={k: v[:self._size] for k, v in self._aux.items()}, **rows)
 
 

@@ -111,7 +111,8 @@ def _largest_angle_gap(psi):
     if n == 0:
         return TWO_PI
     # angles in circular order (one sense or the other, the common case): the gaps are the
-    # steps between neighbours; otherwise sort
+    # steps between neighbours, which then add up to 2 pi (any other order adds up to a
+    # multiple >= 4 pi, so 1e-6 rad of rounding separates the cases); otherwise sort
     for sense in (1.0, -1.0):
         total = _mod_2pi(sense * (psi[0] - psi[n - 1])) if n > 1 else TWO_PI
         gap = total

@@ -30,7 +30,8 @@ from .io.runfile import open_run
 
 logger = logging.getLogger(__name__)
 
-#: Samples per range of stage 1 (memory ~ 350 bytes per sample for the default model).
+#: Samples per range of stage 1 (transient memory about 50 bytes per sample: the channels read,
+#: theta with its cos and sin, and the boundary flags; two ranges are in flight).
 RANGE_SAMPLES = 1 << 17
 
 #: Longest block read ahead, samples (or 256 turns, if more): a table that stops turning with
@@ -50,12 +51,16 @@ class RecordInfo:
     turn_period_s: float
     max_gap_s: float
     aux_channels: tuple[str, ...]
-    lookahead_samples: int = 1 << 16
+    samples_per_turn: float = 16384.0
+
+    @property
+    def lookahead_samples(self) -> int:
+        """Samples read ahead at a time to complete a range's last block (about four turns)."""
+        return int(min(max(4.0 * self.samples_per_turn, 64), 1 << 20))
 
     def expected_blocks(self) -> int:
         """About how many blocks the record holds (full turns, plus a margin for gaps)."""
-        per_turn = max(self.lookahead_samples / 4.0, 1.0)
-        return int(1.05 * self.n_samples / per_turn) + 64
+        return int(1.05 * self.n_samples / max(self.samples_per_turn, 1.0)) + 64
 
 
 def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = ()
@@ -82,11 +87,10 @@ def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = (
         raise FitError(f"{path}: samples/azimuth: cannot estimate the turn period from the "
                        "first samples")
     max_gap = settings.max_gap_s if settings.max_gap_s is not None else 0.25 * period
-    ahead = 4 * period / max(float(np.median(dt)), 1e-9)       # about four turns of samples
     return RecordInfo(path=str(path), n_samples=n, theta0_rad=float(theta[0] % (2 * np.pi)),
                       turn_period_s=float(period), max_gap_s=float(max_gap),
                       aux_channels=tuple(aux_channels),
-                      lookahead_samples=int(min(max(ahead, 64), 1 << 20)))
+                      samples_per_turn=float(period / max(float(np.median(dt)), 1e-9)))
 
 
 def _read(run, start: int, stop: int, channels) -> dict:
@@ -128,8 +132,8 @@ def range_samples_and_blocks(info: RecordInfo, start: int, stop: int, run=None
         return None
     after = starts[starts >= stop - start]
     parts, length = [data], data["time"].size
+    longest = max(MAX_BLOCK_SAMPLES, 64 * info.lookahead_samples)
     while after.size == 0 and pos < n:                 # the last block is longer: read on
-        longest = max(MAX_BLOCK_SAMPLES, 64 * info.lookahead_samples)
         if length - int(inside[-1]) > longest:
             raise InputFileError(
                 info.path, "samples/azimuth",

@@ -246,18 +246,18 @@ def fit_coefficients(setup: Setup, table: TurnTable, settings: FitSettings,
 
     parts = normal_parts(rows, w, kk)
     x, cov = solve(*parts.combine())
-    d_c = d_b = 1.0
+    r_c = r_b = 1.0                               # reduced chi^2 of the C and B rows
     if settings.uncertainty != "formal":
         # Coloured noise inflates the C and B scatter differently (a turn's curvature leaks
         # into the component even about its middle); one chi^2 factor for both would
         # understate sigma of C-only coefficients (ke_ZZ). Scale each row family by its own
         # reduced chi^2 and refit (same Gram matrices, rescaled).
         _, r_c, r_b = residual_chi2(rows, w, x)
-        d_c, d_b = np.sqrt(r_c), np.sqrt(r_b)
-        if not (d_c > 0 and d_b > 0):
+        if not (r_c > 0 and r_b > 0):
             raise FitError("stage 3: the residuals of C or B vanish; cannot scale the weights "
                            "by the scatter (use --uncertainty formal for noise-free data)")
-        x, cov = solve(*parts.combine(d_c, d_b))
+        x, cov = solve(*parts.combine(np.sqrt(r_c), np.sqrt(r_b)))
+    d_c, d_b = np.sqrt(r_c), np.sqrt(r_b)          # row scales of the covariances
     chi2, _, _ = residual_chi2(rows, w, x, d_c, d_b)
     dof = max(2 * n - kk, 1)
     red = chi2 / dof
@@ -276,7 +276,6 @@ def fit_coefficients(setup: Setup, table: TurnTable, settings: FitSettings,
     eff = {nm: float(np.sqrt(cov_cr[i, i]) / sig[i]) for i, nm in enumerate(free)}
     warns += _degeneracy(labels, cov)
     model_c, model_b = fitted(rows, n, x)          # the whole fitted model (with nuisances)
-    r_c, r_b = d_c ** 2, d_b ** 2
     if abs(r_c / r_b - 1.0) > 0.2:
         notes.append(f"C and B rows scaled separately by their reduced chi2 "
                      f"({r_c:.3g}, {r_b:.3g}): coloured noise")

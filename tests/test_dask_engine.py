@@ -8,48 +8,30 @@ are compared exactly (np.array_equal, NaN equal to NaN).
 
 from __future__ import annotations
 
-import copy
 import dataclasses
 
 import numpy as np
 import pytest
+from run_helpers import BASE, simulate_run
 
 from fringe.analysis import fit_run
 from fringe.demodulate import DemodSettings, TurnTable
 from fringe.engine import run_stage1
 from fringe.errors import ConfigError
 from fringe.fit import FitSettings
-from fringe.scenario import scenario_from_dict
-from fringe.simulate import simulate
 
 distributed = pytest.importorskip("distributed")
 
-# An invented laboratory (no real site), as in examples/cavity_pair.toml.
-SCENARIO = {
-    "title": "test scenario (invented)",
-    "site": {"name": "Kestrel Fen optics cellar (invented)", "latitude_deg": 47.62,
-             "longitude_deg": 11.38, "height_m": 610.0},
-    "campaign": {"start_utc": "2027-02-03T00:00:00Z", "duration_days": 0.3,
-                 "sample_interval_s": 1.0},
-    "apparatus": {"kind": "cavity-pair", "carrier_hz": 2.82e14, "path_separation_deg": 90.0,
-                  "units": "Hz"},
-    "turntable": {"motion": "continuous", "period_s": 45.0, "sense": "ccw",
-                  "start_azimuth_deg": 0.0, "tilt_south_urad": 0.0},
-    "theory": {"name": "sme"},
-    "coefficients": {"ke_XY": 5e-16},
-    "noise": {"white_fm_adev_1s": 2e-15},
-    # gaps, NaN samples and glitches exercise the block bookkeeping at range edges
-    "systematics": {"gaps_per_day": 10.0, "gap_length_s": 300.0, "dropout_fraction": 0.02,
-                    "glitches_per_day": 20.0, "glitch_size": 2e-13, "tilt_1theta": 1e-15},
-}
-
-
 @pytest.fixture(scope="module")
 def run_path(tmp_path_factory):
-    sc = scenario_from_dict(copy.deepcopy(SCENARIO), "test scenario")
-    path = tmp_path_factory.mktemp("dask") / "run.h5"
-    simulate(sc, path, seed=8)
-    return str(path)
+    # gaps, NaN samples and glitches exercise the block bookkeeping at range edges
+    path, _, _ = simulate_run(
+        tmp_path_factory.mktemp("dask") / "run.h5", seed=8, days=0.3,
+        coefficients={"ke_XY": 5e-16},
+        turntable={**BASE["turntable"], "tilt_south_urad": 0.0},
+        systematics={"gaps_per_day": 10.0, "gap_length_s": 300.0, "dropout_fraction": 0.02,
+                     "glitches_per_day": 20.0, "glitch_size": 2e-13, "tilt_1theta": 1e-15})
+    return path
 
 
 @pytest.fixture(scope="module")
