@@ -16,14 +16,15 @@ import numpy as np
 from . import __version__
 from .apparatus import APPARATUS_KINDS, apparatus_fields, make_apparatus
 from .demodulate import DemodSettings
-from .engine import run_stage1
+from .engine import stage1_store
 from .errors import ConfigError
 from .fit import FitSettings, stage2_and_3
-from .frames import Epoch, sidereal_angle_rad
+from .frames import Epoch
 from .io.runfile import open_run, sha256
-from .result import FitResult
+from .result import FitResult, TurnColumns
 from .signal import Setup
 from .theories import make_theory
+from .turn_store import Scratch
 
 logger = logging.getLogger(__name__)
 
@@ -59,7 +60,8 @@ def setup_from_run(path: str, theory: str, dut1_s: float = 0.0) -> tuple[Setup, 
 
 def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None, *,
             engine: str = "local", scheduler=None, dut1_s: float = 0.0, progress=None,
-            one_stage: bool = False) -> tuple[FitResult, dict]:
+            one_stage: bool = False, scratch_dir: str | None = None
+            ) -> tuple[FitResult, TurnColumns]:
     """Fit a run file end to end.
 
     Parameters
@@ -76,12 +78,18 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
     progress : callable, optional
         Called with the number of samples processed.
     one_stage : bool
-        Also run the one-stage global least-squares cross-check (a second pass).
+        Also run the one-stage global least-squares cross-check (a second pass; it holds the
+        whole turn table in memory).
+    scratch_dir : str, optional
+        Where a record of more than SEGMENT_TURNS turns keeps its turn table and fit rows
+        while it is fitted (:mod:`fringe.turn_store`; default: the system's temporary
+        directory). Shorter records are fitted in memory.
 
     Returns
     -------
-    (FitResult, dict)
-        The result and the per-turn columns (for :func:`fringe.result.write_turns`).
+    (FitResult, TurnColumns)
+        The result and the per-turn columns (for :func:`fringe.result.write_turns`); close
+        the columns (or use them as a context manager) to remove the scratch files.
     """
     demod = demod or DemodSettings()
     setup, meta = setup_from_run(path, settings.theory, dut1_s)
@@ -89,24 +97,41 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
         if ch not in meta["aux_channels"]:
             raise ConfigError(f"--regress {ch}: {path} has no auxiliary channel {ch!r} "
                               f"(has {', '.join(meta['aux_channels']) or 'none'})")
-    table, info = run_stage1(path, demod, aux_channels=tuple(settings.regress), engine=engine,
-                             scheduler=scheduler, progress=progress)
-    span_s = float(meta["time_last_s"] - meta["time_first_s"])
-    # the input's hash (provenance) is read on the second core while stages 2-3 run
-    with ThreadPoolExecutor(max_workers=1) as pool:
-        digest = pool.submit(sha256, path)
-        harm, res, free = stage2_and_3(setup, table, settings, span_s / 86400.0)
-        input_sha256 = digest.result()
+    scratch = Scratch(scratch_dir)
+    try:
+        store, info = stage1_store(path, demod, aux_channels=tuple(settings.regress),
+                                   engine=engine, scheduler=scheduler, progress=progress,
+                                   scratch=scratch)
+        span_s = float(meta["time_last_s"] - meta["time_first_s"])
+        # the input's hash (provenance) is read on the second core while stages 2-3 run
+        with ThreadPoolExecutor(max_workers=1) as pool:
+            digest = pool.submit(sha256, path)
+            harm, res, free, models = stage2_and_3(setup, store, settings, span_s / 86400.0,
+                                                   scratch)
+            input_sha256 = digest.result()
+        result = _package(path, setup, meta, settings, demod, info, store, harm, res, span_s,
+                          input_sha256, engine, dut1_s)
+        if one_stage and setup.theory.linear:
+            from .onestage import one_stage_fit
+
+            result.one_stage = one_stage_fit(info, demod, setup, store.load(), res.names,
+                                             settings)
+    except BaseException:
+        scratch.close()
+        raise
+    return result, TurnColumns(setup, store, models, scratch)
+
+
+def _package(path, setup, meta, settings, demod, info, store, harm, res, span_s, input_sha256,
+             engine, dut1_s) -> FitResult:
     harm["units"] = setup.units
     sig = np.sqrt(np.diag(res.cov))
-    counts = table.counts()
-    sel = table.accepted
-    stage1 = dict(counts, turn_period_s=info.turn_period_s,
-                  residual_rms=float(np.median(table.residual_rms[sel])),
-                  white_noise_per_sample=float(np.median(table.residual_rms[sel])),
-                  settings=demod.to_dict(), glitch_rule=(
+    sel = store.accepted
+    rms_med = store.median_accepted_rms()
+    stage1 = dict(store.counts(), turn_period_s=info.turn_period_s, residual_rms=rms_med,
+                  white_noise_per_sample=rms_med, settings=demod.to_dict(), glitch_rule=(
                       f"residual RMS > median + {demod.glitch_threshold} x 1.4826 x MAD"))
-    result = FitResult(
+    return FitResult(
         theory=setup.theory.name, units=setup.units,
         coefficients={n: {"value": float(v), "sigma": float(s)}
                       for n, v, s in zip(res.names, res.value, sig)},
@@ -118,24 +143,8 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
         stage1=stage1, site=meta["site"], apparatus=meta["apparatus"],
         epoch_utc=meta["epoch_utc"], span_s=span_s,
         settings={"fit": settings.to_dict(), "engine": engine, "dut1_s": dut1_s},
-        input={"path": str(path), "sha256": input_sha256, "n_samples": meta["n_samples"]},
+        input={"path": str(path), "sha256": input_sha256,
+               "n_samples": meta["n_samples"]},
         software=software_versions(),
         created_utc=datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
         nuisance=res.nuisance, notes=list(res.notes), upper_limits=res.upper_limits)
-    t = table.t_mid_s
-    model_c = np.full(t.size, np.nan)
-    model_b = np.full(t.size, np.nan)
-    model_c[sel], model_b[sel] = res.model_c, res.model_b
-    columns = {"t_mid_s": t,
-               "phi_rad": sidereal_angle_rad(setup.epoch, t, setup.site.east_longitude_rad),
-               "C": table.C, "B": table.B,
-               "sigma_C": np.sqrt(table.formal_cov()[:, 0, 0]),
-               "sigma_B": np.sqrt(table.formal_cov()[:, 1, 1]),
-               "accepted": sel.astype(np.int8), "status": table.status,
-               "model_C": model_c, "model_B": model_b, "n_valid": table.n_valid,
-               "residual_rms": table.residual_rms}
-    if one_stage and setup.theory.linear:
-        from .onestage import one_stage_fit
-
-        result.one_stage = one_stage_fit(info, demod, setup, table, res.names, settings)
-    return result, columns

@@ -69,10 +69,11 @@ def command(out, seed, overwrite):
 
     click.echo("[3/5] fit (theory sme, free ke_*)")
     fit_path = d / "fit.json"
-    result, columns = fit_run(str(run_path), FitSettings(), one_stage=True)
+    result, columns = fit_run(str(run_path), FitSettings(), one_stage=True, scratch_dir=str(d))
     result.amplitudes_file = "fit.turns.h5"
-    write_turns(d / "fit.turns.h5", units=result.units, epoch_utc=result.epoch_utc,
-                columns=columns, overwrite=overwrite)
+    with columns:
+        write_turns(d / "fit.turns.h5", units=result.units, epoch_utc=result.epoch_utc,
+                    columns=columns, overwrite=overwrite)
     write_json_atomic(fit_path, result.to_dict(), overwrite=overwrite)
     click.echo(result.summary())
     truth = sc.coefficients

@@ -38,14 +38,17 @@ def _names(text: str | None) -> tuple[str, ...] | None:
 @click.option("--cross-check", is_flag=True, help="Also run the one-stage global fit.")
 @click.option("--engine", type=click.Choice(["local", "dask"]), default="local",
               show_default=True)
+@click.option("--scratch-dir", "scratch_dir", type=click.Path(file_okay=False), default=None,
+              help="Where a long record keeps its turn table while it is fitted (removed "
+                   "afterwards; default: the directory of --out).")
 @click.option("--scheduler", default=None, help="dask scheduler address (with --engine dask).")
 @click.option("--dut1", "dut1_s", type=float, default=0.0, show_default=True,
               help="UT1 - UTC at the record's epoch, s.")
 @click.option("--overwrite", is_flag=True, help="Replace existing outputs.")
 @run_guarded
 def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days, drift,
-            max_harmonic, regress, no_lab_b0, lab_c0, cross_check, engine, scheduler, dut1_s,
-            overwrite):
+            max_harmonic, regress, no_lab_b0, lab_c0, cross_check, engine, scratch_dir, scheduler,
+            dut1_s, overwrite):
     """Fit RUN_FILE: per-turn demodulation, sidereal harmonics, coefficients with sigma."""
     from .analysis import fit_run
     from .demodulate import DemodSettings
@@ -68,10 +71,12 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
         n = run.n_samples
     with progress(n, "fit") as bar:
         result, columns = fit_run(run_file, settings, demod, engine=engine, scheduler=scheduler,
-                                  dut1_s=dut1_s, progress=bar.update, one_stage=cross_check)
+                                  dut1_s=dut1_s, progress=bar.update, one_stage=cross_check,
+                                  scratch_dir=scratch_dir or str(out.resolve().parent))
     result.amplitudes_file = turns_path.name
-    write_turns(turns_path, units=result.units, epoch_utc=result.epoch_utc, columns=columns,
-                overwrite=overwrite, protect=[run_file])
+    with columns:
+        write_turns(turns_path, units=result.units, epoch_utc=result.epoch_utc,
+                    columns=columns, overwrite=overwrite, protect=[run_file])
     write_json_atomic(out, result.to_dict(), overwrite=overwrite, protect=[run_file])
     click.echo(result.summary())
     click.echo(f"\nwrote {out}\nwrote {turns_path}")

@@ -170,14 +170,31 @@ class TurnTable:
 
     def apply_glitch_rule(self) -> None:
         """Mark glitched blocks (module docstring rule) among the non-partial ones."""
-        good = self.status == self.ACCEPTED
-        if np.sum(good) < 5:
-            return
-        r = self.residual_rms[good]
-        med = np.median(r)
-        mad = 1.4826 * np.median(np.abs(r - med))
-        limit = med + self.settings.glitch_threshold * max(mad, 1e-12 * med)
-        self.status[good & (self.residual_rms > limit)] = self.GLITCH
+        glitch_status(self.status, self.residual_rms, self.settings.glitch_threshold)
+
+    def rows(self, lo: int, hi: int) -> TurnTable:
+        """Rows [lo, hi) as a table of views."""
+        sl = slice(lo, hi)
+        return TurnTable(t_mid_s=self.t_mid_s[sl], t_start_s=self.t_start_s[sl],
+                         t_stop_s=self.t_stop_s[sl], n_valid=self.n_valid[sl],
+                         coef=self.coef[sl], ninv_2=self.ninv_2[sl],
+                         residual_rms=self.residual_rms[sl], angle_gap_deg=self.angle_gap_deg[sl],
+                         status=self.status[sl], settings=self.settings,
+                         aux={k: v[sl] for k, v in self.aux.items()},
+                         leak=None if self.leak is None else self.leak[sl])
+
+
+def glitch_status(status: NDArray, residual_rms: NDArray, threshold: float) -> None:
+    """Set status GLITCH (in place) where the residual RMS exceeds median + threshold x
+    1.4826 x MAD of the residual RMS of the accepted blocks (module docstring rule)."""
+    good = status == TurnTable.ACCEPTED
+    if np.sum(good) < 5:
+        return
+    r = residual_rms[good]
+    med = np.median(r)
+    mad = 1.4826 * np.median(np.abs(r - med))
+    limit = med + threshold * max(mad, 1e-12 * med)
+    status[good & (residual_rms > limit)] = TurnTable.GLITCH
 
 
 class TurnTableBuilder:
@@ -226,6 +243,16 @@ class TurnTableBuilder:
         for k, arr in self._aux.items():
             arr[sl] = table.aux[k]
         self._size += n
+
+    @property
+    def size(self) -> int:
+        """Rows received so far."""
+        return self._size
+
+    def clear(self) -> None:
+        """Drop the rows received (the arrays are kept and refilled; tables from
+        :meth:`finish` are views of them)."""
+        self._size = 0
 
     def finish(self) -> TurnTable:
         """The joined table (views of the allocated arrays, trimmed to the rows received)."""

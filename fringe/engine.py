@@ -20,13 +20,13 @@ import numpy as np
 from .demodulate import (
     DemodSettings,
     TurnTable,
-    TurnTableBuilder,
     demodulate_blocks,
     leak_terms,
     turn_boundaries,
 )
 from .errors import ConfigError, FitError, InputFileError
 from .io.runfile import open_run
+from .turn_store import Scratch, SpillingTurnBuilder, TurnStore
 
 logger = logging.getLogger(__name__)
 
@@ -186,21 +186,34 @@ def run_stage1(path: str, settings: DemodSettings, *, aux_channels: tuple[str, .
                engine: str = "local", scheduler=None, range_samples: int = RANGE_SAMPLES,
                progress: Callable[[int], None] | None = None) -> tuple[TurnTable, RecordInfo]:
     """Demodulate the whole record; returns the turn table (glitch rule applied) and info."""
+    store, info = stage1_store(path, settings, aux_channels=aux_channels, engine=engine,
+                               scheduler=scheduler, range_samples=range_samples,
+                               progress=progress)
+    return store.load(), info
+
+
+def stage1_store(path: str, settings: DemodSettings, *, aux_channels: tuple[str, ...] = (),
+                 engine: str = "local", scheduler=None, range_samples: int = RANGE_SAMPLES,
+                 progress: Callable[[int], None] | None = None, scratch: Scratch | None = None
+                 ) -> tuple[TurnStore, RecordInfo]:
+    """As :func:`run_stage1`, but the table goes to a :class:`~fringe.turn_store.TurnStore`:
+    with a ``scratch`` directory, a record of more than SEGMENT_TURNS turns is kept in a
+    scratch file instead of in memory (:mod:`fringe.turn_store`)."""
     if engine not in ENGINES:
         raise ConfigError(f"--engine: expected one of {', '.join(ENGINES)}, got {engine!r}")
     info = survey(path, settings, aux_channels)
     parts = ranges(info.n_samples, range_samples)
-    builder = TurnTableBuilder(settings, info.expected_blocks())
+    builder = SpillingTurnBuilder(settings, info.expected_blocks(), scratch)
     if engine == "local":
         _run_local(info, settings, parts, progress, builder.append)
     else:
         _run_dask(info, settings, parts, scheduler, builder.append)
         if progress:
             progress(info.n_samples)
-    table = builder.finish()
-    table.apply_glitch_rule()
-    logger.info("stage 1: %s", table.counts())
-    return table, info
+    store = builder.finish()
+    store.apply_glitch_rule()
+    logger.info("stage 1: %s", store.counts())
+    return store, info
 
 
 #: Threads of the local engine (numpy and HDF5 reads release the GIL for the heavy parts).

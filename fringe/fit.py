@@ -1,9 +1,9 @@
 """Stages 2 and 3: from per-turn 2 theta amplitudes to harmonics and coefficients.
 
-* Stage 2 (:func:`fit_harmonics`): weighted least squares of the per-turn (C_i, B_i) against the
-  C10 model in the sidereal angle phi_i; gives C0 ... Bc2 with covariance. B0 is zero for every
-  photon-sector signal (up to the tiny Earth-rotation ko_XY term), so a B0 beyond 3 sigma raises a
-  warning naming a lab-fixed 2 theta systematic.
+* Stage 2 (harmonics, in :func:`fringe.fit_passes.run_passes`): weighted least squares of the
+  per-turn (C_i, B_i) against the C10 model in the sidereal angle phi_i; gives C0 ... Bc2 with
+  covariance. B0 is zero for every photon-sector signal (up to the tiny Earth-rotation ko_XY
+  term), so a B0 beyond 3 sigma raises a warning naming a lab-fixed 2 theta systematic.
 * Stage 3 (:func:`fit_coefficients`): weighted least squares of the same amplitudes against the
   per-turn 2 theta content of each free coefficient's basis signal, evaluated with the ephemeris
   velocity and modelled as stage 1 measures it over the turn (:func:`turn_model`: the model's
@@ -16,6 +16,10 @@ Uncertainties: per-turn weights from the stage-1 formal covariance; the coeffici
 is scaled by the reduced chi^2 (default, the observed scatter), or replaced by a block bootstrap
 over days of turns (correlated noise), or left formal. ``efficiency`` = white-noise Cramer-Rao
 sigma for this record (per-sample noise = median per-turn residual RMS) / reported sigma.
+
+The linear fits visit the turn table a segment at a time (:mod:`fringe.fit_passes`), so a
+table kept in a scratch file (:mod:`fringe.turn_store`) is never whole in memory; the medium
+and rms_kt fits load it whole.
 """
 
 from __future__ import annotations
@@ -27,23 +31,14 @@ import numpy as np
 from numpy.typing import NDArray
 
 from .constants import C_M_S
-from .conventions import HARMONIC_NAMES
 from .demodulate import TurnTable
 from .errors import ConfigError, DegeneracyWarning, FitError, SystematicsWarning
-from .frames import sidereal_angle_rad
+from .fit_passes import RowCache, noise_level, run_passes
 from .signal import Setup
 from .theories import KE_NAMES, KO_NAMES
 from .turn_model import turn_model  # noqa: F401  (turn_model re-exported)
-from .turn_wls import (
-    PairWeights,
-    bootstrap_cov,
-    fitted,
-    normal_parts,
-    residual_chi2,
-    solve,
-    whitening,
-    wls,
-)
+from .turn_store import Scratch, TurnStore
+from .turn_wls import bootstrap_cov, whitening
 
 logger = logging.getLogger(__name__)
 
@@ -116,58 +111,12 @@ def default_free(setup: Setup, span_days: float) -> tuple[str, ...]:
     return setup.theory.parameter_names
 
 
-#: Turns in the running median that sets each turn's noise level (odd).
-NOISE_WINDOW_TURNS = 101
-
-
 def turn_covariance(table: TurnTable, sel: NDArray) -> NDArray:
-    """Per-turn covariance of (C, B) used as weights, (n, 2, 2), for the rows ``sel``.
-
-    s_i^2 x ninv_i, where s_i is the running median of the per-turn residual RMS over
-    NOISE_WINDOW_TURNS accepted turns (a local per-sample noise level that follows slow changes
-    of the noise but not each turn's own scatter: weighting by a turn's own residual variance,
-    with nu ~ 40 degrees of freedom, would inflate the estimator's variance by
-    (nu - 2)/(nu - 4) and correlate weights with the data). The overall level is then set by
-    the reduced chi^2 (or the bootstrap).
-    """
-    from scipy.ndimage import median_filter
-
-    rms = table.residual_rms[sel]
-    size = min(NOISE_WINDOW_TURNS, rms.size if rms.size % 2 else max(rms.size - 1, 1))
-    level = median_filter(rms, size=size, mode="nearest")
+    """Per-turn covariance of (C, B) used as weights, (n, 2, 2), for the rows ``sel``:
+    s_i^2 x ninv_i with s_i from :func:`fringe.fit_passes.noise_level`. The overall level is
+    then set by the reduced chi^2 (or the bootstrap)."""
+    level = noise_level(table.residual_rms[sel])
     return level[:, None, None] ** 2 * table.ninv_2[sel]
-
-
-def fit_harmonics(phi_rad: NDArray, c: NDArray, b: NDArray, w: PairWeights) -> dict:
-    """Stage 2: C10 harmonics with covariance (scaled by the reduced chi^2)."""
-    sin1, cos1 = np.sin(phi_rad), np.cos(phi_rad)
-    f_all = np.stack([np.ones_like(phi_rad), sin1, cos1, 2 * sin1 * cos1,
-                      cos1 * cos1 - sin1 * sin1], axis=1)       # 1, sin, cos phi, 2 phi
-
-    def rows(sl):
-        f = f_all[sl]
-        z = np.zeros_like(f)
-        return np.concatenate([f, z], axis=1), np.concatenate([z, f], axis=1), c[sl], b[sl]
-
-    x, cov, chi2, dof = wls(rows, w, 10)
-    red = chi2 / dof
-    cov = cov * max(red, 0.0)
-    return {"names": list(HARMONIC_NAMES), "value": x.tolist(),
-            "sigma": np.sqrt(np.diag(cov)).tolist(), "covariance": cov.tolist(),
-            "chi2_reduced": red}
-
-
-def _bootstrap(provider, w, k, t_s, days, n_boot, rng, d_c, d_b):
-    """Block bootstrap over days of turns: resample whole groups' normal equations."""
-    groups = np.floor((t_s - t_s[0]) / (86400.0 * days)).astype(int)
-    edges = np.flatnonzero(np.diff(groups)) + 1             # turns are in time order
-    bounds = np.concatenate([[0], edges, [t_s.size]])
-    if bounds.size - 1 < 5:
-        raise FitError(f"--uncertainty bootstrap: only {bounds.size - 1} blocks of {days} d; "
-                       "need at least 5 (shorter --bootstrap-days)")
-    parts = [normal_parts(provider, w, k, slice(int(lo), int(hi)))
-             for lo, hi in zip(bounds[:-1], bounds[1:])]
-    return bootstrap_cov(parts, n_boot, rng, d_c, d_b)
 
 
 @dataclass
@@ -188,6 +137,31 @@ class CoefficientFit:
     upper_limits: dict = field(default_factory=dict)
 
 
+@dataclass
+class TurnModels:
+    """The fitted model (C, B) of the accepted turns, per segment of the turn table
+    (:func:`fringe.turn_store.segment_bounds`): from a row cache (linear fits) or whole
+    arrays (medium)."""
+
+    cache: RowCache | None = None
+    model_c: NDArray | None = None
+    model_b: NDArray | None = None
+
+    def segment(self, i: int, first: int, n: int) -> tuple[NDArray, NDArray]:
+        """Model C and B of the n accepted turns of segment i (``first``: accepted turns
+        before it)."""
+        if self.cache is not None:
+            got = self.cache.get(i, ("model_c", "model_b"))
+            if "model_c" not in got:
+                return np.full(n, np.nan), np.full(n, np.nan)
+            return got["model_c"], got["model_b"]
+        return self.model_c[first:first + n], self.model_b[first:first + n]
+
+    def close(self) -> None:
+        if self.cache is not None:
+            self.cache.close()
+
+
 def design_labels(names: tuple[str, ...], settings: FitSettings) -> list[str]:
     """Labels of the stage-3 columns: the free coefficients, then the nuisances
     (lab_B0, lab_C0, aux_CHANNEL) that ``settings`` asks for; shared with the one-stage fit."""
@@ -202,11 +176,10 @@ def design_labels(names: tuple[str, ...], settings: FitSettings) -> list[str]:
     return labels + [f"aux_{ch}" for ch in settings.regress]
 
 
-def _design(setup, t, names, table, sel, settings):
-    """Per-turn design of the free coefficients and the nuisance columns.
-
-    Returns (jc, jb), each (n, k + nuisances), and the labels of the columns.
-    """
+def design_columns(setup, t, names, table, sel, settings) -> tuple[NDArray, NDArray]:
+    """Per-turn design of the free coefficients and the nuisance columns
+    (:func:`design_labels`) for the rows ``sel`` of ``table`` (mean times t): (jc, jb), each
+    (n, number of labels)."""
     labels = design_labels(names, settings)
     k, kk = len(names), len(labels)
     jc, jb = np.empty((t.size, kk)), np.empty((t.size, kk))
@@ -222,68 +195,47 @@ def _design(setup, t, names, table, sel, settings):
     for ch in settings.regress:
         jc[:, col], jb[:, col] = table.aux[ch][sel, ic], table.aux[ch][sel, isn]
         col += 1
-    return jc, jb, labels
+    return jc, jb
 
 
-def fit_coefficients(setup: Setup, table: TurnTable, settings: FitSettings,
-                     free: tuple[str, ...], weights: PairWeights | None = None
-                     ) -> CoefficientFit:
-    """Stage 3 for a linear theory (see module docstring); ``weights`` = the per-turn weights
-    from :func:`turn_covariance` if already computed."""
-    sel = table.accepted
-    t = table.t_mid_s[sel]
-    c, b = table.C[sel].copy(), table.B[sel].copy()
-    if settings.fixed:
-        _, fc, fb = turn_model(setup, t, params=settings.fixed, table=table, sel=sel,
-                               mean=False)
-        c, b = c - fc, b - fb
-    w = weights if weights is not None else PairWeights.from_cov(turn_covariance(table, sel))
-    jc, jb, labels = _design(setup, t, free, table, sel, settings)
-    n, kk = t.size, len(labels)
-
-    def rows(sl):
-        return jc[sl], jb[sl], c[sl], b[sl]
-
-    parts = normal_parts(rows, w, kk)
-    x, cov = solve(*parts.combine())
-    r_c = r_b = 1.0                               # reduced chi^2 of the C and B rows
-    if settings.uncertainty != "formal":
-        # Coloured noise inflates the C and B scatter differently (a turn's curvature leaks
-        # into the component even about its middle); one chi^2 factor for both would
-        # understate sigma of C-only coefficients (ke_ZZ). Scale each row family by its own
-        # reduced chi^2 and refit (same Gram matrices, rescaled).
-        _, r_c, r_b = residual_chi2(rows, w, x)
-        if not (r_c > 0 and r_b > 0):
-            raise FitError("stage 3: the residuals of C or B vanish; cannot scale the weights "
-                           "by the scatter (use --uncertainty formal for noise-free data)")
-        x, cov = solve(*parts.combine(np.sqrt(r_c), np.sqrt(r_b)))
-    d_c, d_b = np.sqrt(r_c), np.sqrt(r_b)          # row scales of the covariances
-    chi2, _, _ = residual_chi2(rows, w, x, d_c, d_b)
+def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSettings,
+                     free: tuple[str, ...], scratch: Scratch | None = None
+                     ) -> tuple[dict, CoefficientFit, RowCache]:
+    """Stages 2 and 3 for a linear theory (see module docstring) over the turn table (in
+    memory, or a :class:`~fringe.turn_store.TurnStore` read a segment at a time); returns the
+    harmonics, the coefficients and the row cache that holds each segment's fitted model
+    (``model_c``, ``model_b``)."""
+    store = table if isinstance(table, TurnStore) else TurnStore.in_memory(table)
+    labels = design_labels(free, settings)
+    p = run_passes(setup, store, settings, free, scratch)
+    n, kk, x, cov = p.n, len(labels), p.x, p.cov_formal
     dof = max(2 * n - kk, 1)
-    red = chi2 / dof
+    red = p.chi2 / dof
     notes, warns = [], []
     if settings.uncertainty == "reduced-chi2":
         cov = cov * red
     elif settings.uncertainty == "bootstrap":
-        cov = _bootstrap(rows, w, kk, t, settings.bootstrap_days, settings.n_bootstrap,
-                         np.random.default_rng(settings.seed), d_c, d_b)
-    # Cramer-Rao with the white per-sample level the data show
-    sigma_white = float(np.median(table.residual_rms[sel]))
-    w_cr = PairWeights.from_cov(table.ninv_2[sel], scale=sigma_white ** 2)
-    _, cov_cr = solve(*normal_parts(rows, w_cr, kk).combine())
+        if len(p.group_parts) < 5:
+            raise FitError(f"--uncertainty bootstrap: only {len(p.group_parts)} blocks of "
+                           f"{settings.bootstrap_days} d; need at least 5 (shorter "
+                           "--bootstrap-days)")
+        cov = bootstrap_cov(p.group_parts, settings.n_bootstrap,
+                            np.random.default_rng(settings.seed), np.sqrt(p.r_c),
+                            np.sqrt(p.r_b))
     k = len(free)
     sig = np.sqrt(np.diag(cov))
-    eff = {nm: float(np.sqrt(cov_cr[i, i]) / sig[i]) for i, nm in enumerate(free)}
+    # Cramer-Rao with the white per-sample level the data show
+    eff = {nm: float(np.sqrt(p.cov_cr[i, i]) / sig[i]) for i, nm in enumerate(free)}
     warns += _degeneracy(labels, cov)
-    model_c, model_b = fitted(rows, n, x)          # the whole fitted model (with nuisances)
-    if abs(r_c / r_b - 1.0) > 0.2:
+    if abs(p.r_c / p.r_b - 1.0) > 0.2:
         notes.append(f"C and B rows scaled separately by their reduced chi2 "
-                     f"({r_c:.3g}, {r_b:.3g}): coloured noise")
+                     f"({p.r_c:.3g}, {p.r_b:.3g}): coloured noise")
     nuis = {lab: {"value": float(x[i]), "sigma": float(sig[i])}
             for i, lab in enumerate(labels) if i >= k}
-    return CoefficientFit(names=list(free), value=x[:k], cov=cov[:k, :k], nuisance=nuis,
-                          chi2_reduced=red, dof=dof, efficiency=eff, model_c=model_c,
-                          model_b=model_b, warnings=warns, notes=notes)
+    res = CoefficientFit(names=list(free), value=x[:k], cov=cov[:k, :k], nuisance=nuis,
+                         chi2_reduced=red, dof=dof, efficiency=eff, model_c=None,
+                         model_b=None, warnings=warns, notes=notes)
+    return p.harmonics, res, p.cache
 
 
 def _degeneracy(labels, cov, limit: float = 0.95) -> list[str]:
@@ -402,16 +354,20 @@ def _add_rms_kt(setup: Setup, table: TurnTable, settings: FitSettings,
                      "prefer --uncertainty bootstrap")
 
 
-def stage2_and_3(setup: Setup, table: TurnTable, settings: FitSettings,
-                 span_days: float) -> tuple[dict, CoefficientFit, tuple]:
-    """Run stage 2 (harmonics) and stage 3 (coefficients); also the systematics diagnostics."""
-    sel = table.accepted
-    if np.sum(sel) < 12:
-        raise FitError(f"fit: only {int(np.sum(sel))} accepted turns; need at least 12")
-    t = table.t_mid_s[sel]
-    phi = sidereal_angle_rad(setup.epoch, t, setup.site.east_longitude_rad)
-    weights = PairWeights.from_cov(turn_covariance(table, sel))
-    harm = fit_harmonics(phi, table.C[sel], table.B[sel], weights)
+def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettings,
+                 span_days: float, scratch: Scratch | None = None
+                 ) -> tuple[dict, CoefficientFit, tuple, TurnModels]:
+    """Run stage 2 (harmonics) and stage 3 (coefficients); also the systematics diagnostics.
+
+    ``table``: the stage-1 table, or its :class:`~fringe.turn_store.TurnStore` (the linear
+    fits read it a segment at a time; the medium and rms_kt fits load it whole). Returns the
+    harmonics, the coefficients, the free names and the fitted model per turn
+    (:class:`TurnModels`).
+    """
+    store = table if isinstance(table, TurnStore) else TurnStore.in_memory(table)
+    n_acc = int(np.sum(store.accepted))
+    if n_acc < 12:
+        raise FitError(f"fit: only {n_acc} accepted turns; need at least 12")
     theory = setup.theory
     if settings.free is not None:
         free = tuple(settings.free)
@@ -426,11 +382,14 @@ def stage2_and_3(setup: Setup, table: TurnTable, settings: FitSettings,
         raise ConfigError("--free rms_kt: free rms_mm as well (the offsets' model uses the "
                           "2 theta estimate of rms_mm)")
     if theory.linear:
-        res = fit_coefficients(setup, table, settings, rotating, weights)
+        harm, res, cache = fit_coefficients(setup, store, settings, rotating, scratch)
+        models = TurnModels(cache=cache)
     else:
-        res = fit_medium(setup, table, settings)
+        harm = run_passes(setup, store, settings, None).harmonics
+        res = fit_medium(setup, store.load(), settings)
+        models = TurnModels(model_c=res.model_c, model_b=res.model_b)
     if "rms_kt" in free:
-        _add_rms_kt(setup, table, settings, res)
+        _add_rms_kt(setup, store.load(), settings, res)
     import warnings
 
     if "lab_B0" in res.nuisance:      # B offset beyond the fitted coefficient model (stage 3)
@@ -456,4 +415,4 @@ def stage2_and_3(setup: Setup, table: TurnTable, settings: FitSettings,
                    "systematic")
             res.warnings.append(msg)
             warnings.warn(msg, SystematicsWarning, stacklevel=2)
-    return harm, res, free
+    return harm, res, free, models
