@@ -140,7 +140,7 @@ class CoefficientFit:
 @dataclass
 class TurnModels:
     """The fitted model (C, B) of the accepted turns, per segment of the turn table
-    (:func:`fringe.turn_store.segment_bounds`): from a row cache (linear fits) or whole
+    (:meth:`fringe.turn_store.TurnStore.bounds`): from a row cache (linear fits) or whole
     arrays (medium)."""
 
     cache: RowCache | None = None

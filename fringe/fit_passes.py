@@ -46,8 +46,8 @@ def noise_level(residual_rms: NDArray) -> NDArray:
     return median_filter(rms, size=size, mode="nearest")
 
 
-def segment_noise_levels(status: NDArray, residual_rms: NDArray):
-    """:func:`noise_level` of all accepted turns, one segment (:func:`segment_bounds`) at a
+def segment_noise_levels(status: NDArray, residual_rms: NDArray, segment_turns: int):
+    """:func:`noise_level` of all accepted turns, one segment of ``segment_turns`` rows at a
     time: yields each segment's accepted turns' levels. Each segment is filtered with at least
     half a window of accepted turns on each side (or up to the record's end), so the values
     equal those of the whole-record filter while only a segment's worth is in memory."""
@@ -57,7 +57,7 @@ def segment_noise_levels(status: NDArray, residual_rms: NDArray):
     n_acc = int(np.count_nonzero(good))
     size = min(NOISE_WINDOW_TURNS, n_acc if n_acc % 2 else max(n_acc - 1, 1))
     half, n = size // 2, status.size
-    for lo, hi in segment_bounds(n):
+    for lo, hi in segment_bounds(n, segment_turns):
         start, end, reach = lo, hi, 2 * half + 16
         while start > 0 and np.count_nonzero(good[start:lo]) < half:
             start, reach = max(0, lo - reach), 2 * reach
@@ -155,9 +155,9 @@ def run_passes(setup, store: TurnStore, settings, free: tuple[str, ...] | None,
     """
     from .fit import design_labels
 
-    levels = segment_noise_levels(store.status, store.residual_rms)
+    levels = segment_noise_levels(store.status, store.residual_rms, store.segment_turns)
     sigma_white = store.median_accepted_rms()
-    on_disk = store.on_disk and len(segment_bounds(store.n_blocks)) > 1
+    on_disk = store.on_disk and len(store.bounds()) > 1
     cache = RowCache(scratch if on_disk else None)
     kk = len(design_labels(free, settings)) if free is not None else 0
     sums = _Sums(kk)

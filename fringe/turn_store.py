@@ -76,9 +76,8 @@ class Scratch:
         self.close()
 
 
-def segment_bounds(n: int, size: int | None = None) -> list[tuple[int, int]]:
-    """Row ranges [lo, hi) of the segments of a table of n rows."""
-    size = size or SEGMENT_TURNS
+def segment_bounds(n: int, size: int) -> list[tuple[int, int]]:
+    """Row ranges [lo, hi) of the segments of ``size`` rows of a table of n rows."""
     return [(lo, min(lo + size, n)) for lo in range(0, n, size)] or [(0, 0)]
 
 
@@ -110,8 +109,11 @@ class TurnStore:
 
     def __init__(self, settings: DemodSettings, status: NDArray, residual_rms: NDArray, *,
                  table: TurnTable | None = None, scratch: Scratch | None = None,
-                 aux_names: tuple[str, ...] = (), has_leak: bool = True):
+                 aux_names: tuple[str, ...] = (), has_leak: bool = True,
+                 segment_turns: int | None = None):
         self.settings = settings
+        #: rows per segment, fixed when the store is made (the scratch files are laid out so)
+        self.segment_turns = int(segment_turns or SEGMENT_TURNS)
         self.status = status
         self.residual_rms = residual_rms
         self.aux_names = tuple(table.aux) if table is not None else tuple(aux_names)
@@ -120,8 +122,9 @@ class TurnStore:
         self._scratch = scratch
 
     @classmethod
-    def in_memory(cls, table: TurnTable) -> TurnStore:
-        return cls(table.settings, table.status, table.residual_rms, table=table)
+    def in_memory(cls, table: TurnTable, segment_turns: int | None = None) -> TurnStore:
+        return cls(table.settings, table.status, table.residual_rms, table=table,
+                   segment_turns=segment_turns)
 
     @property
     def on_disk(self) -> bool:
@@ -152,6 +155,10 @@ class TurnStore:
                                            overwrite_input=True))
         return self._median
 
+    def bounds(self) -> list[tuple[int, int]]:
+        """Row ranges of the segments."""
+        return segment_bounds(self.n_blocks, self.segment_turns)
+
     def _segment(self, i: int, lo: int, hi: int) -> TurnTable:
         if self._table is not None:
             return self._table.rows(lo, hi)
@@ -162,8 +169,8 @@ class TurnStore:
                          leak=got.pop("leak", None) if self.has_leak else None, **got)
 
     def segments(self) -> Iterator[tuple[int, TurnTable]]:
-        """(first row, rows) of each segment of SEGMENT_TURNS rows, in order."""
-        for i, (lo, hi) in enumerate(segment_bounds(self.n_blocks)):
+        """(first row, rows) of each segment of ``segment_turns`` rows, in order."""
+        for i, (lo, hi) in enumerate(self.bounds()):
             yield lo, self._segment(i, lo, hi)
 
     def load(self) -> TurnTable:
@@ -193,8 +200,9 @@ class SpillingTurnBuilder:
                  scratch: Scratch | None = None):
         self.settings = settings
         self._scratch = scratch
-        spill = scratch is not None and expected_blocks > SEGMENT_TURNS
-        self._buffer = TurnTableBuilder(settings, min(expected_blocks, SEGMENT_TURNS + 4096)
+        self._size = size = SEGMENT_TURNS
+        spill = scratch is not None and expected_blocks > size
+        self._buffer = TurnTableBuilder(settings, min(expected_blocks, size + 4096)
                                         if spill else expected_blocks)
         self._segments = 0
         self._kept = _GrowingColumns(expected_blocks if spill else 0)   # status, rms
@@ -203,10 +211,10 @@ class SpillingTurnBuilder:
 
     def append(self, table: TurnTable) -> None:
         self._buffer.append(table)
-        while self._scratch is not None and self._buffer.size >= SEGMENT_TURNS:
+        while self._scratch is not None and self._buffer.size >= self._size:
             whole = self._buffer.finish()
-            self._write(whole.rows(0, SEGMENT_TURNS))
-            rest = _copy(whole.rows(SEGMENT_TURNS, whole.n_blocks))
+            self._write(whole.rows(0, self._size))
+            rest = _copy(whole.rows(self._size, whole.n_blocks))
             self._buffer.clear()
             self._buffer.append(rest)
 
@@ -223,12 +231,13 @@ class SpillingTurnBuilder:
 
     def finish(self) -> TurnStore:
         if self._segments == 0:
-            return TurnStore.in_memory(self._buffer.finish())
+            return TurnStore.in_memory(self._buffer.finish(), self._size)
         if self._buffer.size:
             self._write(self._buffer.finish())
         status, rms = self._kept.finish()
         return TurnStore(self.settings, status, rms, scratch=self._scratch,
-                         aux_names=self._aux_names, has_leak=self._has_leak)
+                         aux_names=self._aux_names, has_leak=self._has_leak,
+                         segment_turns=self._size)
 
 
 def _copy(table: TurnTable) -> TurnTable:
