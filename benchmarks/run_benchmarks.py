@@ -8,13 +8,14 @@ Writes BENCH_DIR/results.json and prints a Markdown table for docs/performance.m
 ratio against a floor measured in the same run:
 
 * floor: one h5py read of time, azimuth and signal plus one sin/cos pass over the azimuth;
-* ``fringe fit`` end to end (stage 1 + stages 2-3 + result), as a multiple of the floor (best
+* ``fringe fit`` end to end (stage 1 + stages 2-3 + result + the per-turn amplitudes file;
+  scratch files of long records in the work directory), as a multiple of the floor (best
   of three interleaved runs of each; the first fit of a process, which loads the compiled
   stage-1 kernels from numba's cache, and the command in a fresh process are reported too);
 * the baseline a user would otherwise write: one lmfit fit per turn, timed on a sample of turns
   and extrapolated to all turns; reported as the speed-up of ``fringe fit``;
-* peak resident memory of ``fringe fit`` at 1/8, 1/4, 1/2 and the whole record (each in a fresh
-  subprocess, ru_maxrss);
+* peak resident memory of ``fringe fit`` (fit and amplitudes file) at 1/8, 1/4, 1/2 and the
+  whole record (each in a fresh subprocess, VmHWM);
 * ``simulate`` and ``predict`` throughput (samples per second) and ``plan`` time.
 """
 
@@ -81,14 +82,24 @@ def floor_seconds(path: str) -> float:
     return time.perf_counter() - t0
 
 
-def fit_seconds(path: str) -> float:
-    import scipy.interpolate  # noqa: F401  (import cost is not part of the timing)
-
+def fit_and_write(path: str, work) -> None:
+    """What ``fringe fit`` computes and writes, without the process start and the JSON: the fit
+    (scratch files in ``work``) and the per-turn amplitudes file."""
     from fringe.analysis import fit_run
     from fringe.fit import FitSettings
+    from fringe.result import write_turns
+
+    result, columns = fit_run(path, FitSettings(), scratch_dir=str(work))
+    with columns:
+        write_turns(Path(work) / "bench.turns.h5", units=result.units,
+                    epoch_utc=result.epoch_utc, columns=columns, overwrite=True)
+
+
+def fit_seconds(path: str, work: Path) -> float:
+    import scipy.interpolate  # noqa: F401  (import cost is not part of the timing)
 
     t0 = time.perf_counter()
-    fit_run(path, FitSettings())
+    fit_and_write(path, work)
     return time.perf_counter() - t0
 
 
@@ -130,17 +141,18 @@ def lmfit_loop_seconds_per_turn(path: str, n_turns: int = 200) -> float:
     return (time.perf_counter() - t0) / max(done, 1)
 
 
-def peak_rss_of_fit(path: str) -> float:
-    """Peak resident memory (MiB) of a fit in a fresh subprocess.
+def peak_rss_of_fit(path: str, work: Path) -> float:
+    """Peak resident memory (MiB) of a fit and its amplitudes file in a fresh subprocess.
 
     Read from the child's own /proc/self/status VmHWM (ru_maxrss would include the parent's
     peak, which survives fork + exec on Linux).
     """
-    code = ("import sys; from fringe.analysis import fit_run; "
-            "from fringe.fit import FitSettings; fit_run(sys.argv[1], FitSettings()); "
+    code = ("import sys; sys.path.insert(0, sys.argv[3]); from run_benchmarks import "
+            "fit_and_write; fit_and_write(sys.argv[1], sys.argv[2]); "
             "print([l for l in open('/proc/self/status') if l.startswith('VmHWM')][0].split()[1])")
-    out = subprocess.run([sys.executable, "-c", code, path], check=True, capture_output=True,
-                         text=True)
+    out = subprocess.run([sys.executable, "-c", code, path, str(work),
+                          str(Path(__file__).resolve().parent)], check=True,
+                         capture_output=True, text=True)
     return int(out.stdout.strip().splitlines()[-1]) / 1024.0
 
 
@@ -204,11 +216,11 @@ def main():
             except ImportError:
                 pass
     full = paths[1.0]
-    cold = fit_seconds(full)          # first fit in this process: loads the compiled kernels
+    cold = fit_seconds(full, work)          # first fit in this process: loads the compiled kernels
     floors, fits = [], []
     for _ in range(3):                # interleaved, best of three (the machine's noise)
         floors.append(floor_seconds(full))
-        fits.append(fit_seconds(full))
+        fits.append(fit_seconds(full, work))
     floor, fit = min(floors), min(fits)
     per_turn = lmfit_loop_seconds_per_turn(full)
     n_turns = args.days * 86400 / 45.0
@@ -218,7 +230,7 @@ def main():
                     "speedup_vs_lmfit_loop": per_turn * n_turns / fit,
                     "cli_fit_wall_s": cli_fit_seconds(full, work)})
     if not args.skip_memory:
-        results["peak_rss_mib"] = {str(f): peak_rss_of_fit(p) for f, p in paths.items()}
+        results["peak_rss_mib"] = {str(f): peak_rss_of_fit(p, work) for f, p in paths.items()}
     results["benchmark_process_peak_rss_mib"] = (
         resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024)
     (work / "results.json").write_text(json.dumps(results, indent=2))

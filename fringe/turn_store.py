@@ -26,7 +26,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from .demodulate import DemodSettings, TurnTable, TurnTableBuilder, glitch_status
-from .errors import FitError
+from .errors import OutputError
 
 #: Turns per segment of stages 2-3 and per write of the scratch table (65536 turns: 34 days of
 #: 45 s turns; about 17 MB of table and 15 MB of design per segment).
@@ -59,8 +59,10 @@ class Scratch:
                     prefix=".fringe-scratch-",
                     dir=None if self.parent is None else str(self.parent)))
             except OSError as exc:
-                raise FitError(f"scratch directory {self.parent}: cannot create a temporary "
-                               f"directory there ({exc.strerror})") from None
+                where = self.parent if self.parent is not None else tempfile.gettempdir()
+                raise OutputError(f"{where}: scratch directory: expected a writable directory "
+                                  f"for the fit's temporary files ({exc.strerror}); choose "
+                                  "another with --scratch-dir") from None
             self._cleanup = weakref.finalize(self, shutil.rmtree, str(self.path), True)
         return self.path / name
 
@@ -85,8 +87,13 @@ def save_arrays(scratch: Scratch, prefix: str, arrays: dict) -> None:
     """Write each array to its own raw .npy file ``prefix-NAME.npy`` in the scratch directory
     (plain writes: cheaper than HDF5 for data read back once or twice, whole)."""
     for name, arr in arrays.items():
-        np.save(scratch.file(f"{prefix}-{name.replace('/', '~')}.npy"), arr,
-                allow_pickle=False)
+        path = scratch.file(f"{prefix}-{name.replace('/', '~')}.npy")
+        try:
+            np.save(path, arr, allow_pickle=False)
+        except OSError as exc:
+            raise OutputError(f"{path.parent}: scratch file {path.name}: cannot be written "
+                              f"({exc.strerror}); free space there or choose another "
+                              "--scratch-dir") from None
 
 
 def load_arrays(scratch: Scratch, prefix: str, names) -> dict:

@@ -19,7 +19,7 @@ from fringe.analysis import fit_run, setup_from_run
 from fringe.cli import main
 from fringe.demodulate import DemodSettings, TurnTable
 from fringe.engine import run_stage1, stage1_store
-from fringe.errors import FitError
+from fringe.errors import FitError, OutputError
 from fringe.fit import FitSettings, stage2_and_3
 from fringe.fit_passes import noise_level, segment_noise_levels
 from fringe.result import read_turns, write_turns
@@ -180,3 +180,44 @@ def test_cli_fit_leaves_only_its_outputs(run_path, small_segments, tmp_path):
     a, b = read_turns(out / "r.turns.h5"), read_turns(out / "s.turns.h5")
     assert all(np.array_equal(a[k], b[k], equal_nan=True) for k in a if k not in
                ("units", "epoch_utc"))
+
+
+def test_unusable_scratch_dir_is_a_one_line_error(run_path, small_segments, tmp_path):
+    out = tmp_path / "out"
+    out.mkdir()
+    missing = tmp_path / "no-such-dir"
+    got = CliRunner().invoke(main, ["fit", run_path, "--out", str(out / "r.json"),
+                                    "--scratch-dir", str(missing)])
+    assert got.exit_code == 2, got.output          # a user error (FringeError.exit_code)
+    lines = [ln for ln in got.output.splitlines() if ln.startswith("error:")]
+    assert len(lines) == 1 and "scratch directory" in lines[0] and str(missing) in lines[0]
+    assert "Traceback" not in got.output
+    assert list(out.iterdir()) == []
+
+
+def test_full_disk_while_spilling_is_an_output_error(run_path, small_segments, tmp_path,
+                                                     monkeypatch):
+    import errno
+
+    def no_space(*args, **kwargs):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(turn_store.np, "save", no_space)
+    with pytest.raises(OutputError, match="No space left on device"):
+        fit_run(run_path, FitSettings(), scratch_dir=str(tmp_path))
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_dask_stage1_spills_the_same_table(run_path, small_segments, tmp_path):
+    distributed = pytest.importorskip("distributed")
+    cluster = distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False,
+                                       dashboard_address=None)
+    client = distributed.Client(cluster)
+    try:
+        store, _ = stage1_store(run_path, DemodSettings(), engine="dask", scheduler=client,
+                                scratch=Scratch(tmp_path))
+    finally:
+        client.close()
+        cluster.close()
+    assert store.on_disk
+    assert_tables_equal(store.load(), run_stage1(run_path, DemodSettings())[0])
