@@ -33,7 +33,13 @@ from numpy.typing import NDArray
 from .constants import C_M_S
 from .demodulate import TurnTable
 from .errors import ConfigError, DegeneracyWarning, FitError, SystematicsWarning
-from .fit_passes import RowCache, noise_level, run_passes
+from .fit_passes import (  # noqa: F401  (design_columns, design_labels re-exported)
+    RowCache,
+    design_columns,
+    design_labels,
+    noise_level,
+    run_passes,
+)
 from .signal import Setup
 from .theories import KE_NAMES, KO_NAMES
 from .turn_model import turn_model  # noqa: F401  (turn_model re-exported)
@@ -160,42 +166,6 @@ class TurnModels:
     def close(self) -> None:
         if self.cache is not None:
             self.cache.close()
-
-
-def design_labels(names: tuple[str, ...], settings: FitSettings) -> list[str]:
-    """Labels of the stage-3 columns: the free coefficients, then the nuisances
-    (lab_B0, lab_C0, aux_CHANNEL) that ``settings`` asks for; shared with the one-stage fit."""
-    labels = list(names)
-    if settings.lab_b0:
-        labels.append("lab_B0")
-    if settings.lab_c0:
-        if "ke_ZZ" in names:
-            raise ConfigError("--lab-c0: a constant C offset is degenerate with ke_ZZ; fix "
-                              "ke_ZZ or drop --lab-c0")
-        labels.append("lab_C0")
-    return labels + [f"aux_{ch}" for ch in settings.regress]
-
-
-def design_columns(setup, t, names, table, sel, settings) -> tuple[NDArray, NDArray]:
-    """Per-turn design of the free coefficients and the nuisance columns
-    (:func:`design_labels`) for the rows ``sel`` of ``table`` (mean times t): (jc, jb), each
-    (n, number of labels)."""
-    labels = design_labels(names, settings)
-    k, kk = len(names), len(labels)
-    jc, jb = np.empty((t.size, kk)), np.empty((t.size, kk))
-    turn_model(setup, t, names, table=table, sel=sel, mean=False, out=(jc, jb))
-    ic, isn = table.settings.index("c2"), table.settings.index("s2")
-    col = k
-    if settings.lab_b0:
-        jc[:, col], jb[:, col] = 0.0, 1.0
-        col += 1
-    if settings.lab_c0:
-        jc[:, col], jb[:, col] = 1.0, 0.0
-        col += 1
-    for ch in settings.regress:
-        jc[:, col], jb[:, col] = table.aux[ch][sel, ic], table.aux[ch][sel, isn]
-        col += 1
-    return jc, jb
 
 
 def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSettings,

@@ -1,7 +1,7 @@
 """Stages 2 and 3 of a linear theory as passes over the turn table, a segment at a time.
 
 The per-turn rows of both stages (sidereal angle, amplitudes, weights and, for stage 3, the
-design of :func:`fringe.fit.design_columns`) are built once, in pass 1, from each segment of the
+design of :func:`design_columns`) are built once, in pass 1, from each segment of the
 :class:`~fringe.turn_store.TurnStore`, and kept in a :class:`RowCache`: in memory for a record
 of one segment, in the fit's scratch files otherwise (so the peak memory is one segment's, for
 any record length). The passes:
@@ -24,8 +24,9 @@ import numpy as np
 from numpy.typing import NDArray
 
 from .conventions import HARMONIC_NAMES
-from .errors import FitError
+from .errors import ConfigError, FitError
 from .frames import sidereal_angle_rad
+from .turn_model import turn_model
 from .turn_store import Scratch, TurnStore, load_arrays, save_arrays, segment_bounds
 from .turn_wls import NormalParts, PairWeights, fitted, normal_parts, residual_chi2, solve
 
@@ -93,6 +94,43 @@ def _design_rows(jc, jb, c, b):
     return rows
 
 
+def design_labels(names: tuple[str, ...], settings) -> list[str]:
+    """Labels of the stage-3 columns: the free coefficients, then the nuisances
+    (lab_B0, lab_C0, aux_CHANNEL) that ``settings`` (a :class:`fringe.fit.FitSettings`) asks
+    for; shared with the one-stage fit."""
+    labels = list(names)
+    if settings.lab_b0:
+        labels.append("lab_B0")
+    if settings.lab_c0:
+        if "ke_ZZ" in names:
+            raise ConfigError("--lab-c0: a constant C offset is degenerate with ke_ZZ; fix "
+                              "ke_ZZ or drop --lab-c0")
+        labels.append("lab_C0")
+    return labels + [f"aux_{ch}" for ch in settings.regress]
+
+
+def design_columns(setup, t, names, table, sel, settings) -> tuple[NDArray, NDArray]:
+    """Per-turn design of the free coefficients and the nuisance columns
+    (:func:`design_labels`) for the rows ``sel`` of ``table`` (mean times t): (jc, jb), each
+    (n, number of labels)."""
+    labels = design_labels(names, settings)
+    k, kk = len(names), len(labels)
+    jc, jb = np.empty((t.size, kk)), np.empty((t.size, kk))
+    turn_model(setup, t, names, table=table, sel=sel, mean=False, out=(jc, jb))
+    ic, isn = table.settings.index("c2"), table.settings.index("s2")
+    col = k
+    if settings.lab_b0:
+        jc[:, col], jb[:, col] = 0.0, 1.0
+        col += 1
+    if settings.lab_c0:
+        jc[:, col], jb[:, col] = 1.0, 0.0
+        col += 1
+    for ch in settings.regress:
+        jc[:, col], jb[:, col] = table.aux[ch][sel, ic], table.aux[ch][sel, isn]
+        col += 1
+    return jc, jb
+
+
 class RowCache:
     """Per-segment arrays (name -> array), in memory or in scratch files."""
 
@@ -153,8 +191,6 @@ def run_passes(setup, store: TurnStore, settings, free: tuple[str, ...] | None,
 
     ``free`` None: stage 2 only (the medium fit runs on the whole table instead).
     """
-    from .fit import design_labels
-
     levels = segment_noise_levels(store.status, store.residual_rms, store.segment_turns)
     sigma_white = store.median_accepted_rms()
     on_disk = store.on_disk and len(store.bounds()) > 1
@@ -236,9 +272,6 @@ class _Sums:
 
 def _first_pass_rows(setup, tab, level, settings, free, kk, sigma_white, sums: _Sums) -> dict:
     """Rows of one segment's accepted turns (for the cache), their parts added to ``sums``."""
-    from .fit import design_columns
-    from .turn_model import turn_model
-
     sel = tab.accepted
     t = tab.t_mid_s[sel]
     rows = {"c": tab.C[sel], "b": tab.B[sel]}
