@@ -221,3 +221,23 @@ def test_dask_stage1_spills_the_same_table(run_path, small_segments, tmp_path):
         cluster.close()
     assert store.on_disk
     assert_tables_equal(store.load(), run_stage1(run_path, DemodSettings())[0])
+
+
+def test_interrupted_fit_removes_its_scratch(run_path, small_segments, tmp_path, monkeypatch):
+    """Ctrl-C (or SIGTERM, which the command line turns into the same KeyboardInterrupt) in
+    stage 3, when the table and the first segment's rows are in the scratch files."""
+    import fringe.fit_passes as fit_passes
+
+    real, calls = fit_passes.design_columns, []
+
+    def interrupted(*args, **kwargs):
+        calls.append(1)
+        if len(calls) == 2:
+            assert any(p.name.startswith(".fringe-scratch-") for p in tmp_path.iterdir())
+            raise KeyboardInterrupt
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(fit_passes, "design_columns", interrupted)
+    with pytest.raises(KeyboardInterrupt):
+        fit_run(run_path, FitSettings(), scratch_dir=str(tmp_path))
+    assert len(calls) == 2 and list(tmp_path.iterdir()) == []
