@@ -241,3 +241,22 @@ def test_interrupted_fit_removes_its_scratch(run_path, small_segments, tmp_path,
     with pytest.raises(KeyboardInterrupt):
         fit_run(run_path, FitSettings(), scratch_dir=str(tmp_path))
     assert len(calls) == 2 and list(tmp_path.iterdir()) == []
+
+
+@pytest.mark.filterwarnings("ignore::fringe.errors.SystematicsWarning")  # SME data, medium fit
+@pytest.mark.parametrize("theory", ["medium", "rms"])
+def test_other_theories_fit_the_same_from_the_scratch_table(run_path, monkeypatch, tmp_path,
+                                                            theory):
+    """The medium fit loads the spilled table whole; rms is linear and runs in segments."""
+    whole, whole_cols = fit_run(run_path, FitSettings(theory=theory))
+    monkeypatch.setattr(turn_store, "SEGMENT_TURNS", SMALL_SEGMENT)
+    parts, part_cols = fit_run(run_path, FitSettings(theory=theory), scratch_dir=str(tmp_path))
+    for name, v in whole.coefficients.items():
+        w = parts.coefficients[name]
+        assert abs(w["value"] - v["value"]) < 1e-9 * v["sigma"], name
+        assert w["sigma"] == pytest.approx(v["sigma"], rel=1e-9), name
+    a, b = whole_cols.to_dict(), part_cols.to_dict()
+    scale = np.nanmax(np.abs(a["model_C"]))
+    assert np.allclose(a["model_C"], b["model_C"], rtol=0, atol=1e-9 * scale, equal_nan=True)
+    part_cols.close()
+    assert list(tmp_path.iterdir()) == []
