@@ -1,4 +1,4 @@
-"""Where the stage-1 turn table lives while stages 2-3 run: in memory, or in a scratch file.
+"""Where the stage-1 turn table lives while stages 2-3 run: in memory, or in scratch files.
 
 A record of up to :data:`SEGMENT_TURNS` turns keeps its :class:`~fringe.demodulate.TurnTable`
 in memory. A longer one, when the fit is given a scratch directory, is written to scratch
@@ -29,7 +29,7 @@ from .demodulate import DemodSettings, TurnTable, TurnTableBuilder, glitch_statu
 from .errors import OutputError
 
 #: Turns per segment of stages 2-3 and per write of the scratch table (65536 turns: 34 days of
-#: 45 s turns; about 17 MB of table and 15 MB of design per segment).
+#: 45 s turns; about 17 MB of table and 14 MB of stage 2-3 rows per segment).
 SEGMENT_TURNS = 1 << 16
 
 #: Row fields of TurnTable stored per turn (aux channels and leak are stored as well).
