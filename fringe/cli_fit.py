@@ -38,7 +38,8 @@ def _names(text: str | None) -> tuple[str, ...] | None:
 @click.option("--cross-check", is_flag=True, help="Also run the one-stage global fit.")
 @click.option("--engine", type=click.Choice(["local", "dask"]), default="local",
               show_default=True)
-@click.option("--scratch-dir", "scratch_dir", type=click.Path(file_okay=False), default=None,
+@click.option("--scratch-dir", "scratch_dir", default=None,
+              type=click.Path(exists=True, file_okay=False, writable=True),
               help="Where a long record keeps its turn table while it is fitted (removed "
                    "afterwards; default: the directory of --out).")
 @click.option("--scheduler", default=None, help="dask scheduler address (with --engine dask).")

@@ -186,13 +186,18 @@ def test_unusable_scratch_dir_is_a_one_line_error(run_path, small_segments, tmp_
     out = tmp_path / "out"
     out.mkdir()
     missing = tmp_path / "no-such-dir"
+    # the command checks the option before any work
     got = CliRunner().invoke(main, ["fit", run_path, "--out", str(out / "r.json"),
                                     "--scratch-dir", str(missing)])
-    assert got.exit_code == 2, got.output          # a user error (FringeError.exit_code)
-    lines = [ln for ln in got.output.splitlines() if ln.startswith("error:")]
-    assert len(lines) == 1 and "scratch directory" in lines[0] and str(missing) in lines[0]
+    assert got.exit_code == 2, got.output
+    lines = [ln for ln in got.output.splitlines() if ln.lower().startswith("error")]
+    assert len(lines) == 1 and "--scratch-dir" in lines[0] and str(missing) in lines[0]
     assert "Traceback" not in got.output
     assert list(out.iterdir()) == []
+    # the library, when it first needs the directory
+    with pytest.raises(OutputError, match="scratch directory: expected a writable directory"):
+        fit_run(run_path, FitSettings(), scratch_dir=str(missing))
+    assert not missing.exists()
 
 
 def test_full_disk_while_spilling_is_an_output_error(run_path, small_segments, tmp_path,
