@@ -198,7 +198,7 @@ def stage1_store(path: str, settings: DemodSettings, *, aux_channels: tuple[str,
                  ) -> tuple[TurnStore, RecordInfo]:
     """As :func:`run_stage1`, but the table goes to a :class:`~fringe.turn_store.TurnStore`:
     with a ``scratch`` directory, a record of more than SEGMENT_TURNS turns is kept in a
-    scratch file instead of in memory (:mod:`fringe.turn_store`)."""
+    scratch files instead of in memory (:mod:`fringe.turn_store`)."""
     if engine not in ENGINES:
         raise ConfigError(f"--engine: expected one of {', '.join(ENGINES)}, got {engine!r}")
     info = survey(path, settings, aux_channels)

@@ -136,7 +136,7 @@ TURN_COLUMNS = ("t_mid_s", "phi_rad", "C", "B", "sigma_C", "sigma_B", "accepted"
 
 class TurnColumns:
     """The per-turn columns of a fit (:data:`TURN_COLUMNS`), made a segment of the turn table
-    at a time (so a table kept in a scratch file is never whole in memory).
+    at a time (so a table kept in scratch files is never whole in memory).
 
     ``segments()`` yields one dict of columns per segment; ``to_dict()`` (or indexing by a
     column name) joins them. ``close()`` (or leaving a ``with`` block) removes the fit's
