@@ -164,9 +164,7 @@ class TurnTable:
         return self.residual_rms[:, None, None] ** 2 * self.ninv_2
 
     def counts(self) -> dict:
-        return {"n_blocks": self.n_blocks, "n_accepted": int(np.sum(self.status == 0)),
-                "n_rejected_partial": int(np.sum(self.status == 1)),
-                "n_rejected_glitch": int(np.sum(self.status == 2))}
+        return status_counts(self.status)
 
     def apply_glitch_rule(self) -> None:
         """Mark glitched blocks (module docstring rule) among the non-partial ones."""
@@ -182,6 +180,14 @@ class TurnTable:
                          status=self.status[sl], settings=self.settings,
                          aux={k: v[sl] for k, v in self.aux.items()},
                          leak=None if self.leak is None else self.leak[sl])
+
+
+def status_counts(status: NDArray) -> dict:
+    """Blocks in all and per status (the ``stage1`` counts of a fit result)."""
+    return {"n_blocks": int(status.size),
+            "n_accepted": int(np.sum(status == TurnTable.ACCEPTED)),
+            "n_rejected_partial": int(np.sum(status == TurnTable.PARTIAL)),
+            "n_rejected_glitch": int(np.sum(status == TurnTable.GLITCH))}
 
 
 def glitch_status(status: NDArray, residual_rms: NDArray, threshold: float) -> None:

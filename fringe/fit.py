@@ -18,7 +18,7 @@ over days of turns (correlated noise), or left formal. ``efficiency`` = white-no
 sigma for this record (per-sample noise = median per-turn residual RMS) / reported sigma.
 
 The linear fits visit the turn table a segment at a time (:mod:`fringe.fit_passes`), so a
-table kept in a scratch file (:mod:`fringe.turn_store`) is never whole in memory; the medium
+table kept in scratch files (:mod:`fringe.turn_store`) is never whole in memory; the medium
 and rms_kt fits load it whole.
 """
 
@@ -162,10 +162,6 @@ class TurnModels:
                 return np.full(n, np.nan), np.full(n, np.nan)
             return got["model_c"], got["model_b"]
         return self.model_c[first:first + n], self.model_b[first:first + n]
-
-    def close(self) -> None:
-        if self.cache is not None:
-            self.cache.close()
 
 
 def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSettings,

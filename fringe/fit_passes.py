@@ -161,9 +161,6 @@ class RowCache:
             return {k: self._memory[i][k] for k in names}
         return load_arrays(self._scratch, f"rows-{i}", names)
 
-    def close(self) -> None:
-        """Nothing to release (the scratch directory belongs to the fit)."""
-
 
 @dataclass
 class PassesResult:

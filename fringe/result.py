@@ -179,8 +179,6 @@ class TurnColumns:
         return np.concatenate([p[name] for p in self.segments()])
 
     def close(self) -> None:
-        self._store.close()
-        self._models.close()
         if self._scratch is not None:
             self._scratch.close()
 

@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 from numpy.typing import NDArray
 
-from .demodulate import DemodSettings, TurnTable, TurnTableBuilder, glitch_status
+from .demodulate import DemodSettings, TurnTable, TurnTableBuilder, glitch_status, status_counts
 from .errors import OutputError
 
 #: Turns per segment of stages 2-3 and per write of the scratch table (65536 turns: 34 days of
@@ -127,6 +127,7 @@ class TurnStore:
         self.has_leak = (table.leak is not None) if table is not None else has_leak
         self._table = table
         self._scratch = scratch
+        self._median: float | None = None        # median_accepted_rms, once computed
 
     @classmethod
     def in_memory(cls, table: TurnTable, segment_turns: int | None = None) -> TurnStore:
@@ -146,9 +147,7 @@ class TurnStore:
         return self.status == TurnTable.ACCEPTED
 
     def counts(self) -> dict:
-        return {"n_blocks": self.n_blocks, "n_accepted": int(np.sum(self.status == 0)),
-                "n_rejected_partial": int(np.sum(self.status == 1)),
-                "n_rejected_glitch": int(np.sum(self.status == 2))}
+        return status_counts(self.status)
 
     def apply_glitch_rule(self) -> None:
         glitch_status(self.status, self.residual_rms, self.settings.glitch_threshold)
@@ -157,7 +156,7 @@ class TurnStore:
     def median_accepted_rms(self) -> float:
         """Median residual RMS of the accepted turns (the white per-sample level), signal
         units."""
-        if getattr(self, "_median", None) is None:
+        if self._median is None:
             self._median = float(np.median(self.residual_rms[self.accepted],
                                            overwrite_input=True))
         return self._median
@@ -186,14 +185,9 @@ class TurnStore:
         if self._table is not None:
             return self._table
         builder = TurnTableBuilder(self.settings, self.n_blocks)
-        for _, part in self.segments():
+        for _, part in self.segments():           # each takes its status from self.status
             builder.append(part)
-        table = builder.finish()
-        table.status[:] = self.status
-        return table
-
-    def close(self) -> None:
-        """Nothing to release (the scratch directory belongs to the fit)."""
+        return builder.finish()
 
 
 class SpillingTurnBuilder:
