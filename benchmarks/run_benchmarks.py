@@ -85,9 +85,9 @@ def floor_seconds(path: str) -> float:
 def fit_and_write(path: str, work) -> None:
     """What ``fringe fit`` computes and writes, without the process start and the JSON: the fit
     (scratch files in ``work``) and the per-turn amplitudes file."""
-    from fringe.analysis import fit_run
-    from fringe.fit import FitSettings
-    from fringe.result import write_turns
+    from fringe.fit.run import fit_run
+    from fringe.fit.stages import FitSettings
+    from fringe.io.fit_result import write_turns
 
     result, columns = fit_run(path, FitSettings(), scratch_dir=str(work))
     with columns:
@@ -118,7 +118,7 @@ def lmfit_loop_seconds_per_turn(path: str, n_turns: int = 200) -> float:
     """One lmfit Model.fit per turn (offset + slope + 1theta + 2theta), as a user might write."""
     import lmfit
 
-    from fringe.io.runfile import open_run
+    from fringe.io.runreader import open_run
 
     with open_run(path) as run:
         d = next(run.iter_chunks(n_turns * 45 + 100, copy=True))
@@ -160,7 +160,7 @@ def simulate_in_subprocess(days: float, path: Path) -> tuple[float, float]:
     """Simulate the benchmark scenario in a fresh process: (seconds, peak resident MiB)."""
     code = ("import sys, time, tomllib; sys.path.insert(0, sys.argv[3]);"
             "from run_benchmarks import SCENARIO;"
-            "from fringe.scenario import scenario_from_dict; from fringe.simulate import simulate;"
+            "from fringe.experiment.scenario import scenario_from_dict; from fringe.simulation.campaign import simulate;"
             "sc = scenario_from_dict(tomllib.loads(SCENARIO.format(days=float(sys.argv[1]))),"
             " 'benchmark'); t0 = time.perf_counter(); simulate(sc, sys.argv[2], seed=1);"
             "print(time.perf_counter() - t0);"
@@ -181,7 +181,7 @@ def main():
     work.mkdir(parents=True, exist_ok=True)
     import tomllib
 
-    from fringe.scenario import scenario_from_dict
+    from fringe.experiment.scenario import scenario_from_dict
 
     results = {"machine": {"python": platform.python_version(), "cpus": os.cpu_count(),
                            "platform": platform.platform()}, "days": args.days}
@@ -198,7 +198,7 @@ def main():
                 results["simulate_samples_per_s"] = sc.n_samples / dt
         paths[frac] = str(path)
         if frac == 1.0:
-            from fringe.predict import iter_prediction_chunks
+            from fringe.experiment.prediction import iter_prediction_chunks
 
             t0 = time.perf_counter()
             n = 0
@@ -208,7 +208,7 @@ def main():
                     break
             results["predict_samples_per_s"] = n / (time.perf_counter() - t0)
             try:
-                from fringe.plan import plan_scenario
+                from fringe.plan.forecast import plan_scenario
 
                 t0 = time.perf_counter()
                 plan_scenario(sc)

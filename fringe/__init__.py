@@ -4,4 +4,4 @@ The data path (see DEVELOPERS.md): scenario or run file -> schedule -> frames ->
 apparatus -> signal basis -> predict / simulate / fit / plan -> report.
 """
 
-__version__ = "0.1.0"
+from fringe.version import __version__  # noqa: F401

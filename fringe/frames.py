@@ -30,7 +30,7 @@ import erfa
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from .constants import (
+from fringe.constants import (
     AU_M,
     C_M_S,
     DAY_S,
@@ -38,8 +38,8 @@ from .constants import (
     OMEGA_ORBIT_RAD_S,
     ORBIT_ORIGIN_JD,
 )
-from .errors import ConfigError, TimeScaleWarning
-from .site import Site
+from fringe.errors import ConfigError, TimeScaleWarning
+from fringe.site import Site
 
 #: Seconds TT - TAI, exact by definition (IAU 1991).
 TT_MINUS_TAI_S = 32.184

@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from .errors import ConfigError, check_finite_number
+from fringe.errors import ConfigError, check_finite_number
 
 
 @dataclass(frozen=True)

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import copy
 
-from fringe.scenario import scenario_from_dict
-from fringe.simulate import simulate
+from fringe.experiment.scenario import scenario_from_dict
+from fringe.simulation.campaign import simulate
 
 CARRIER_HZ = 2.82e14
 WHITE_FM = 2e-15     # Allan deviation at 1 s (fractional); invented test level

@@ -1,4 +1,4 @@
-"""Tests of fringe.allan: published test-suite values, allantools, the white-FM law, NaN rule."""
+"""Tests of fringe.noise.allan: published test-suite values, allantools, the white-FM law, NaN rule."""
 
 from __future__ import annotations
 
@@ -8,8 +8,8 @@ import math
 import numpy as np
 import pytest
 
-from fringe.allan import AllanResult, adev, default_averaging_factors, overlapping_adev
 from fringe.errors import ConfigError
+from fringe.noise.allan import AllanResult, adev, default_averaging_factors, overlapping_adev
 
 # ---------------------------------------------------------------------------------------------
 # (a) The 1000-point test data set of W. J. Riley, "Handbook of Frequency Stability Analysis",

@@ -4,7 +4,9 @@ import numpy as np
 import oracle
 import pytest
 
-from fringe.apparatus import (
+from fringe.constants import C_M_S
+from fringe.errors import ConfigError
+from fringe.experiment.apparatus import (
     APPARATUS_KINDS,
     CavityPair,
     CavityVsReference,
@@ -12,20 +14,19 @@ from fringe.apparatus import (
     OrientedClock,
     make_apparatus,
 )
-from fringe.constants import C_M_S
-from fringe.errors import ConfigError
-from fringe.frames import Epoch, FrameState, circular_orbit_beta
-from fringe.schedule import (
+from fringe.experiment.basis import Setup, basis, signal
+from fringe.experiment.turntable import (
     AxisTilt,
     ContinuousRotation,
     SteppedRotation,
     table_to_lab,
     tilt_matrix,
 )
-from fringe.signal import Setup, basis, signal
+from fringe.frames import Epoch, FrameState, circular_orbit_beta
 from fringe.site import Site
-from fringe.theories import ClassicalMedium, DirectionalClock, SmePhoton
-from fringe.theories.sme import SME_NAMES
+from fringe.theories.clock import DirectionalClock
+from fringe.theories.medium import ClassicalMedium
+from fringe.theories.sme import SME_NAMES, SmePhoton
 
 CHI = np.radians(37.48)                                   # checks.md common inputs
 ETA = np.radians(23.4392794)                              # checks.md common inputs

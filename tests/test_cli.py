@@ -12,7 +12,7 @@ import pytest
 from click.testing import CliRunner
 
 from fringe.cli import main
-from fringe.io.runfile import open_run
+from fringe.io.runreader import open_run
 
 EXAMPLE = Path(__file__).resolve().parents[1] / "examples" / "cavity_pair.toml"
 

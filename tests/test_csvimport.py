@@ -10,7 +10,7 @@ import pytest
 
 from fringe.errors import ConfigError, InputFileError, OutputError, TimeScaleWarning
 from fringe.io.csvimport import import_csv, read_import_metadata
-from fringe.io.runfile import open_run
+from fringe.io.runreader import open_run
 from fringe.site import Site
 
 GOOD = """# invented test run, 1 Hz logger

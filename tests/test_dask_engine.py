@@ -14,11 +14,11 @@ import numpy as np
 import pytest
 from run_helpers import BASE, simulate_run
 
-from fringe.analysis import fit_run
-from fringe.demodulate import DemodSettings, TurnTable
-from fringe.engine import run_stage1
+from fringe.demodulate.blocks import DemodSettings, TurnTable
+from fringe.demodulate.engine import run_stage1
 from fringe.errors import ConfigError
-from fringe.fit import FitSettings
+from fringe.fit.run import fit_run
+from fringe.fit.stages import FitSettings
 
 distributed = pytest.importorskip("distributed")
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from fringe.demodulate import DemodSettings, demodulate_blocks, leak_terms, turn_boundaries
+from fringe.demodulate.blocks import DemodSettings, demodulate_blocks, leak_terms, turn_boundaries
 
 
 def reference_block_fit(t, az, y, aux, settings):
@@ -144,7 +144,7 @@ def test_sample_on_the_reference_angle_starts_one_block():
 def test_table_builder_joins_ranges_and_grows():
     """Joining range tables as they arrive (TurnTableBuilder) equals demodulating at once, also
     when the expected size is far too small (the arrays grow)."""
-    from fringe.demodulate import TurnTableBuilder
+    from fringe.demodulate.blocks import TurnTableBuilder
 
     rng = np.random.default_rng(6)
     t, az, y, aux, starts = _record(rng, n_blocks=30)
@@ -167,10 +167,10 @@ def test_table_builder_joins_ranges_and_grows():
 def test_stalled_table_is_a_one_line_error(tmp_path, monkeypatch):
     """A table that stops turning (no time gap) would make the rest of the record one block in
     memory; beyond the read-ahead limit the fit stops with the file's one-line error."""
-    import fringe.engine as engine
-    from fringe.engine import run_stage1
+    import fringe.demodulate.engine as engine
+    from fringe.demodulate.engine import run_stage1
     from fringe.errors import InputFileError
-    from fringe.io.runfile import RunWriter
+    from fringe.io.runwriter import RunWriter
 
     n = 150_000
     t = np.arange(n, dtype=float)

@@ -1,4 +1,4 @@
-"""Tests of the fit (stages 1-3 through fringe.analysis.fit_run) on simulated runs.
+"""Tests of the fit (stages 1-3 through fringe.fit.run.fit_run) on simulated runs.
 
 Statistical bands. Each estimate is compared with the injected truth through its pull
 (estimate - truth) / reported sigma, which is N(0, 1) for an unbiased estimator with an honest
@@ -22,20 +22,22 @@ import numpy as np
 import pytest
 from run_helpers import BASE, CARRIER_HZ, KE_TRUTH, WHITE_FM, simulate_run  # noqa: F401
 
-from fringe.analysis import fit_run, setup_from_run
-from fringe.demodulate import DemodSettings, TurnTable
-from fringe.engine import run_stage1
+from fringe.demodulate.blocks import DemodSettings, TurnTable
+from fringe.demodulate.engine import run_stage1
 from fringe.errors import (
     ConfigError,
     DegeneracyWarning,
     FitError,
     SystematicsWarning,
 )
-from fringe.fit import FitSettings, turn_model
-from fringe.io.runfile import RunWriter, open_run
-from fringe.scenario import scenario_from_dict
-from fringe.simulate import simulate
-from fringe.theories import KE_NAMES, KO_NAMES
+from fringe.experiment.scenario import scenario_from_dict
+from fringe.fit.run import fit_run, setup_from_run
+from fringe.fit.stages import FitSettings
+from fringe.fit.turn_model import turn_model
+from fringe.io.runreader import open_run
+from fringe.io.runwriter import RunWriter
+from fringe.simulation.campaign import simulate
+from fringe.theories.sme import KE_NAMES, KO_NAMES
 
 PULL_BAND = 4.0      # two-sided 4 sigma: false-failure rate 6.3e-5 per coefficient (see above)
 make_run = simulate_run

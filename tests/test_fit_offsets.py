@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import pytest
 
-from fringe.analysis import fit_run
-from fringe.fit import FitSettings
-from fringe.scenario import scenario_from_dict
-from fringe.simulate import simulate
+from fringe.experiment.scenario import scenario_from_dict
+from fringe.fit.run import fit_run
+from fringe.fit.stages import FitSettings
+from fringe.simulation.campaign import simulate
 
 
 def _run(tmp_path, coefficients, systematics=None, days=3.0):

@@ -6,8 +6,7 @@ import numpy as np
 import oracle
 import pytest
 
-import fringe.harmonics as harmonics
-from fringe.apparatus import CavityPair, CavityVsReference
+import fringe.experiment.harmonics as harmonics
 from fringe.constants import C_M_S, OMEGA_EARTH_RAD_S
 from fringe.conventions import (
     HARMONIC_NAMES,
@@ -15,11 +14,12 @@ from fringe.conventions import (
     horizontal_direction_lab,
     theta_from_azimuth,
 )
+from fringe.experiment.apparatus import CavityPair, CavityVsReference
+from fringe.experiment.basis import Setup, basis
 from fringe.frames import Epoch, FrameState, circular_orbit_beta
-from fringe.signal import Setup, basis
 from fringe.site import Site
-from fringe.theories import RobertsonMansouriSexl, SmePhoton
-from fringe.theories.sme import KE_NAMES, KO_NAMES, SME_NAMES
+from fringe.theories.rms import RobertsonMansouriSexl
+from fringe.theories.sme import KE_NAMES, KO_NAMES, SME_NAMES, SmePhoton
 
 CHI = np.radians(37.48)                                   # checks.md common inputs
 BETA_ORB = 9.93e-5                                        # checks.md common inputs

@@ -31,7 +31,8 @@ from hypothesis.extra import numpy as hnp
 
 from fringe.cli import main
 from fringe.errors import InputFileError
-from fringe.io.runfile import APPARATUS_KINDS, open_run, parse_utc_iso
+from fringe.io.runformat import APPARATUS_KINDS, parse_utc_iso
+from fringe.io.runreader import open_run
 
 
 # == 1. the run-file reader ==================================================================
@@ -451,7 +452,7 @@ def check_reader(directory: Path, case: dict) -> None:
     path.unlink()
 
 
-# explicit examples: what the property tests found in fringe/io/runfile.py (each raised
+# explicit examples: what the property tests found in fringe/io/runreader.py (each raised
 # ValueError, TypeError or UnicodeDecodeError, or, for a one-element array as units, was
 # accepted with an array for signal_units), all fixed there
 BAD_UTF8_ARRAY = np.array([b"\xff"])

@@ -19,7 +19,7 @@ from hypothesis import strategies as st
 
 from fringe.errors import FringeError, InputFileError, TimeScaleWarning
 from fringe.io.csvimport import import_csv
-from fringe.io.runfile import open_run
+from fringe.io.runreader import open_run
 
 # == 3. CSV import ===========================================================================
 # A generated table (known values) and a metadata TOML that matches it, then perturbations of

@@ -15,7 +15,8 @@ import numpy as np
 import pytest
 from hostile_common import EPOCH, digest
 
-from fringe.io.runfile import RunWriter, open_run
+from fringe.io.runreader import open_run
+from fringe.io.runwriter import RunWriter
 
 # == 4. writers killed mid-way ===============================================================
 # A child process writes a run file with RunWriter, append by append, reporting each append on
@@ -24,7 +25,7 @@ from fringe.io.runfile import RunWriter, open_run
 WRITER_CHILD = r"""
 import sys
 import numpy as np
-from fringe.io.runfile import RunWriter
+from fringe.io.runwriter import RunWriter
 path, overwrite, mode = sys.argv[1], sys.argv[2] == "1", sys.argv[3]
 m = 8192
 with RunWriter(path, site={"latitude_deg": 10.0, "longitude_deg": 20.0},
@@ -101,7 +102,7 @@ def test_stale_temporary_files_accumulate_and_are_refused(tmp_path):
     leftovers = sorted(os.listdir(tmp_path))
     assert len(leftovers) == 2 and all(TEMP_NAME.fullmatch(p) for p in leftovers)
     probe = ("import sys\nfrom fringe.errors import InputFileError\n"
-             "from fringe.io.runfile import open_run\n"
+             "from fringe.io.runreader import open_run\n"
              "try:\n    open_run(sys.argv[1]).close()\n    print('ok')\n"
              "except InputFileError as exc:\n    print(exc)\n")
     stale = tmp_path / leftovers[0]

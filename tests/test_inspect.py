@@ -7,9 +7,9 @@ import math
 import numpy as np
 import pytest
 
-from fringe.inspect import inspect_run
-from fringe.scenario import scenario_from_dict
-from fringe.simulate import simulate
+from fringe.demodulate.quality import inspect_run
+from fringe.experiment.scenario import scenario_from_dict
+from fringe.simulation.campaign import simulate
 
 
 def _scenario(**systematics):

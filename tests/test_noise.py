@@ -9,10 +9,10 @@ import math
 import numpy as np
 import pytest
 
-from fringe.allan import overlapping_adev
 from fringe.errors import ConfigError
-from fringe.noise import NoiseStream, PowerLawNoise
-from fringe.noise_stream import _ar1_bank_avar
+from fringe.noise.allan import overlapping_adev
+from fringe.noise.powerlaw import PowerLawNoise
+from fringe.noise.stream import NoiseStream, _ar1_bank_avar
 
 TAU0 = 1.0
 N = 2**20

@@ -1,4 +1,4 @@
-"""Tests of the one-stage global least-squares cross-check (fringe.onestage).
+"""Tests of the one-stage global least-squares cross-check (fringe.fit.onestage).
 
 1. Exactness: on a small record the Schur-complement accumulation equals the least-squares fit
    with explicit per-turn nuisance columns (solved turn by turn with ``np.linalg.lstsq``), for
@@ -24,15 +24,15 @@ import numpy as np
 import pytest
 from run_helpers import BASE, CARRIER_HZ, KE_TRUTH, WHITE_FM, simulate_run  # noqa: F401
 
-from fringe.analysis import fit_run, setup_from_run
-from fringe.demodulate import DRIFT_TERMS, DemodSettings
-from fringe.engine import range_samples_and_blocks, run_stage1
+from fringe.demodulate.blocks import DRIFT_TERMS, DemodSettings
+from fringe.demodulate.engine import range_samples_and_blocks, run_stage1
 from fringe.errors import ConfigError, FitError, SystematicsWarning
-from fringe.fit import FitSettings, fit_coefficients
-from fringe.io.runfile import RunWriter
-from fringe.onestage import one_stage_fit
-from fringe.signal import basis, signal
-from fringe.theories import KE_NAMES
+from fringe.experiment.basis import basis, signal
+from fringe.fit.onestage import one_stage_fit
+from fringe.fit.run import fit_run, setup_from_run
+from fringe.fit.stages import FitSettings, fit_coefficients
+from fringe.io.runwriter import RunWriter
+from fringe.theories.sme import KE_NAMES
 
 
 def make_run(path, *, seed, days, **kw):

@@ -15,17 +15,14 @@ from scipy.stats import chi2
 
 from fringe.constants import STELLAR_DAY_S
 from fringe.errors import ConfigError
-from fringe.noise import NoiseStream, PowerLawNoise
-from fringe.plan import (
-    PlanResult,
-    forecast,
-    monte_carlo_check,
-    noise_from_section,
-    plan_settings,
-    turn_amplitude_variance,
-)
-from fringe.scenario import scenario_from_dict
-from fringe.theories import KE_NAMES, KO_NAMES
+from fringe.experiment.scenario import scenario_from_dict
+from fringe.noise.powerlaw import PowerLawNoise, noise_from_section
+from fringe.noise.stream import NoiseStream
+from fringe.plan.forecast import forecast, turn_amplitude_variance
+from fringe.plan.montecarlo import monte_carlo_check
+from fringe.plan.result import PlanResult
+from fringe.plan.settings import plan_settings
+from fringe.theories.sme import KE_NAMES, KO_NAMES
 
 BASE = {
     "title": "test lab (invented)",
@@ -77,8 +74,8 @@ def test_turn_shape_matches_demodulated_white_noise():
     # The per-turn (C, B) covariance shape F of plan.turn_shape_matrix against the sample
     # covariance of stage-1 amplitudes of white noise (4000 simulated turns, linear drift):
     # the relative standard error of a variance from N = 4000 is sqrt(2/N) = 2.2 %; band 5x.
-    from fringe.demodulate import DemodSettings, demodulate_blocks
-    from fringe.plan import turn_shape_matrix
+    from fringe.demodulate.blocks import DemodSettings, demodulate_blocks
+    from fringe.plan.forecast import turn_shape_matrix
 
     sc = _white_fm_scenario(1.0, drift="linear")
     f = turn_shape_matrix(sc, "linear")

@@ -23,8 +23,9 @@ from hypothesis import strategies as st
 
 from fringe.cli import main
 from fringe.errors import ConfigError, InputFileError
-from fringe.report.build import headline, load_comparison, load_fit
-from fringe.report.figures import amplitude_spectrum, binned_by_phase, regular_grid
+from fringe.report.documents import headline
+from fringe.report.figures.fit import amplitude_spectrum, binned_by_phase, regular_grid
+from fringe.report.inputs import load_comparison, load_fit
 from fringe.report.rms_solve import FORWARD_MATRIX, combinations_from_deviations, solve_rms
 from fringe.report.rounding import format_bound, format_interval, format_value, pdg_round
 from fringe.report.tables import coefficient_table, to_markdown

@@ -4,14 +4,15 @@ import numpy as np
 import oracle
 import pytest
 
-import fringe.harmonics as harmonics
-from fringe.apparatus import CavityPair, CavityVsReference, Michelson
+import fringe.experiment.harmonics as harmonics
 from fringe.constants import C_M_S, OMEGA_EARTH_RAD_S
+from fringe.experiment.apparatus import CavityPair, CavityVsReference, Michelson
+from fringe.experiment.basis import Setup, basis, signal
 from fringe.frames import Epoch, FrameState, circular_orbit_beta
-from fringe.signal import Setup, basis, signal
 from fringe.site import Site
-from fringe.theories import ClassicalMedium, RobertsonMansouriSexl, SmePhoton
-from fringe.theories.sme import SME_NAMES, boost_matrix
+from fringe.theories.medium import ClassicalMedium
+from fringe.theories.rms import RobertsonMansouriSexl
+from fringe.theories.sme import SME_NAMES, SmePhoton, boost_matrix
 
 CHI = np.radians(37.48)                                   # checks.md common inputs
 BETA_ORB = 9.93e-5                                        # checks.md common inputs

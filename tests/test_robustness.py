@@ -82,10 +82,10 @@ def test_sidereal_angle_continuous_across_leap_second():
 def test_fit_across_leap_second(tmp_path):
     # A short simulated run spanning the 2016-12-31 leap second fits like any other: every turn
     # is accepted (none is partial or glitched by the leap second) and ke_XY is recovered.
-    from fringe.analysis import fit_run
-    from fringe.fit import FitSettings
-    from fringe.scenario import scenario_from_dict
-    from fringe.simulate import simulate
+    from fringe.experiment.scenario import scenario_from_dict
+    from fringe.fit.run import fit_run
+    from fringe.fit.stages import FitSettings
+    from fringe.simulation.campaign import simulate
 
     doc = {"site": {"latitude_deg": 40.0, "longitude_deg": -3.7},
            "campaign": {"start_utc": "2016-12-31T12:00:00Z", "duration_days": 1.0},

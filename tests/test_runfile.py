@@ -14,7 +14,9 @@ import numpy as np
 import pytest
 
 from fringe.errors import ConfigError, InputFileError, OutputError
-from fringe.io.runfile import APPARATUS_KINDS, RunWriter, open_run, parse_utc_iso, sha256
+from fringe.io.runformat import APPARATUS_KINDS, parse_utc_iso
+from fringe.io.runreader import open_run, sha256
+from fringe.io.runwriter import RunWriter
 from fringe.site import Site
 
 N = 40  # samples in the hand-built files
@@ -332,7 +334,7 @@ _DAMAGE_SWEEP = r"""
 import sys
 from pathlib import Path
 from fringe.errors import InputFileError
-from fringe.io.runfile import open_run
+from fringe.io.runreader import open_run
 src, work = Path(sys.argv[1]), Path(sys.argv[2])
 data = src.read_bytes()
 counts = [0, 0]
@@ -562,7 +564,7 @@ def test_parse_utc_iso_rejects(text):
 
 
 def test_format_kinds_match_the_apparatus_models():
-    from fringe.apparatus import APPARATUS_KINDS as MODELS
+    from fringe.experiment.apparatus import APPARATUS_KINDS as MODELS
 
     assert set(APPARATUS_KINDS) == set(MODELS)
     for kind, spec in APPARATUS_KINDS.items():

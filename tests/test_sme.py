@@ -12,14 +12,14 @@ import numpy as np
 import oracle
 import pytest
 
-from fringe.apparatus import CavityPair, CavityVsReference
 from fringe.constants import C_M_S, OMEGA_EARTH_RAD_S
+from fringe.experiment.apparatus import CavityPair, CavityVsReference
+from fringe.experiment.basis import Setup, basis, signal
 from fringe.frames import Epoch, FrameState, circular_orbit_beta, rotation_velocity_beta
-from fringe.signal import Setup, basis, signal
 from fringe.site import Site
-from fringe.theories import THEORIES, SmePhoton, make_theory
+from fringe.theories import THEORIES, make_theory
 from fringe.theories.base import Theory
-from fringe.theories.sme import SME_NAMES, boost_matrix, k_tensor, unit_k_tensor
+from fringe.theories.sme import SME_NAMES, SmePhoton, boost_matrix, k_tensor, unit_k_tensor
 
 # Common inputs of checks.md §1 ("Common inputs").
 CHI = np.radians(37.48)                # checks.md common inputs: chi = 37.48 deg

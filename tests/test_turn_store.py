@@ -1,5 +1,5 @@
-"""The turn table in scratch files and stages 2-3 in segments (fringe.turn_store,
-fringe.fit_passes): the same numbers as the in-memory fit, and nothing left behind.
+"""The turn table in scratch files and stages 2-3 in segments (fringe.demodulate.turn_store,
+fringe.fit.passes): the same numbers as the in-memory fit, and nothing left behind.
 
 The segment size is lowered (SEGMENT_TURNS = 300 turns) so that a short simulated record
 (invented scenario, tests/run_helpers.py) is spilled to disk and fitted in several segments.
@@ -14,16 +14,16 @@ import pytest
 from click.testing import CliRunner
 from run_helpers import BASE, simulate_run
 
-import fringe.turn_store as turn_store
-from fringe.analysis import fit_run, setup_from_run
+import fringe.demodulate.turn_store as turn_store
 from fringe.cli import main
-from fringe.demodulate import DemodSettings, TurnTable
-from fringe.engine import run_stage1, stage1_store
+from fringe.demodulate.blocks import DemodSettings, TurnTable
+from fringe.demodulate.engine import run_stage1, stage1_store
+from fringe.demodulate.turn_store import Scratch, TurnStore
 from fringe.errors import FitError, OutputError
-from fringe.fit import FitSettings, stage2_and_3
-from fringe.fit_passes import noise_level, segment_noise_levels
-from fringe.result import read_turns, write_turns
-from fringe.turn_store import Scratch, TurnStore
+from fringe.fit.passes import noise_level, segment_noise_levels
+from fringe.fit.run import fit_run, setup_from_run
+from fringe.fit.stages import FitSettings, stage2_and_3
+from fringe.io.fit_result import read_turns, write_turns
 
 SMALL_SEGMENT = 300
 
@@ -231,7 +231,7 @@ def test_dask_stage1_spills_the_same_table(run_path, small_segments, tmp_path):
 def test_interrupted_fit_removes_its_scratch(run_path, small_segments, tmp_path, monkeypatch):
     """Ctrl-C (or SIGTERM, which the command line turns into the same KeyboardInterrupt) in
     stage 3, when the table and the first segment's rows are in the scratch files."""
-    import fringe.fit_passes as fit_passes
+    import fringe.fit.passes as fit_passes
 
     real, calls = fit_passes.design_columns, []
 

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from fringe.errors import FitError
-from fringe.turn_wls import (
+from fringe.fit.solver import (
     PairWeights,
     bootstrap_cov,
     fitted,

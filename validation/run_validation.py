@@ -1,7 +1,7 @@
 """Statistical validation of ``fringe fit``: coverage, null tests and efficiency.
 
 Many small simulated campaigns with a known injected truth are written with
-:func:`fringe.simulate.simulate` and fitted with :func:`fringe.analysis.fit_run`, exactly as a
+:func:`fringe.simulation.campaign.simulate` and fitted with :func:`fringe.fit.run.fit_run`, exactly as a
 user would. For every coefficient the study reports the coverage of the reported 1 sigma and
 1.96 sigma intervals, the mean and standard deviation of the pulls (estimate - truth)/sigma, the
 efficiency (white-noise Cramer-Rao sigma / reported sigma, the result's ``efficiency``) and the
@@ -263,9 +263,9 @@ def rotate_ke(v: dict, delta_rad: float) -> dict:
 
 
 def _fit_record(path: str, cfg: Config, fit: Fit) -> dict:
-    from fringe.analysis import fit_run
-    from fringe.demodulate import DemodSettings
-    from fringe.fit import FitSettings
+    from fringe.demodulate.blocks import DemodSettings
+    from fringe.fit.run import fit_run
+    from fringe.fit.stages import FitSettings
 
     t0 = time.perf_counter()
     with warnings.catch_warnings(record=True) as caught:
@@ -291,8 +291,8 @@ def run_campaign(job: tuple, workdir: str | os.PathLike | None = None) -> dict:
     The run files live in a temporary directory under ``workdir`` (default: the system's) and
     are deleted afterwards. ``days`` overrides the campaign length (days).
     """
-    from fringe.scenario import scenario_from_dict
-    from fringe.simulate import simulate
+    from fringe.experiment.scenario import scenario_from_dict
+    from fringe.simulation.campaign import simulate
 
     name, index, study_seed = job[:3]
     days = job[3] if len(job) > 3 else None

@@ -12,8 +12,8 @@ from __future__ import annotations
 import importlib
 
 _EXPORTS = {
-    "APPARATUS_KINDS": "runfile", "FORMAT_VERSION": "runfile", "RunFile": "runfile",
-    "RunWriter": "runfile", "open_run": "runfile", "sha256": "runfile",
+    "APPARATUS_KINDS": "runformat", "FORMAT_VERSION": "runformat", "RunFile": "runreader",
+    "RunWriter": "runwriter", "open_run": "runreader", "sha256": "runreader",
     "CsvImportSummary": "csvimport", "import_csv": "csvimport",
     "read_import_metadata": "csvimport",
 }

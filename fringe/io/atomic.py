@@ -13,7 +13,7 @@ import tempfile
 from collections.abc import Callable, Iterable
 from pathlib import Path
 
-from ..errors import OutputError
+from fringe.errors import OutputError
 
 
 def check_output_path(path: str | os.PathLike, *, overwrite: bool = False,

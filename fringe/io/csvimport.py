@@ -3,7 +3,7 @@
 Use :func:`import_csv` with a metadata TOML file (read by :func:`read_import_metadata`; format in
 ``docs/run-format.md``), with keyword arguments, or both (a keyword replaces the whole TOML
 section of that name). The CSV is streamed in blocks of ``block_rows`` rows and written with
-:class:`~fringe.io.runfile.RunWriter`, so the output is whole or absent and memory stays bounded.
+:class:`~fringe.io.runreader.RunWriter`, so the output is whole or absent and memory stays bounded.
 
 Time is either seconds since ``epoch_utc`` (units ``"s"``) or ISO 8601 UTC timestamps (units
 ``"iso8601"``), converted to elapsed SI seconds since ``epoch_utc`` (default: the first
@@ -32,20 +32,19 @@ try:
 except ModuleNotFoundError:  # Python 3.10
     import tomli as tomllib
 
-from ..errors import ConfigError, InputFileError, TimeScaleWarning
-from ..site import Site
-from .runfile import (
+from fringe.errors import ConfigError, InputFileError, TimeScaleWarning
+from fringe.io.runformat import (
     APPARATUS_KINDS,
     AZIMUTH_UNITS,
     CORE_CHANNELS,
     DEFAULT_CHUNK_SAMPLES,
-    RunWriter,
-    _check_output_path,
     check_apparatus,
     check_epoch_utc,
     check_site,
     parse_utc_iso,
 )
+from fringe.io.runwriter import RunWriter, _check_output_path
+from fringe.site import Site
 
 __all__ = ["TIME_FORMATS", "CsvImportSummary", "import_csv", "read_import_metadata"]
 
@@ -392,7 +391,7 @@ def import_csv(csv_path: str | os.PathLike, out_path: str | os.PathLike, *,
     block_rows : int
         Rows converted per block (bounds memory).
     chunk_samples, compression
-        Passed to :class:`~fringe.io.runfile.RunWriter`.
+        Passed to :class:`~fringe.io.runreader.RunWriter`.
     progress : callable, optional
         Called as ``progress(rows_imported, bytes_read)`` after each block (the CSV's size,
         ``os.path.getsize(csv_path)``, is the final ``bytes_read``).

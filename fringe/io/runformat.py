@@ -1,7 +1,7 @@
 """Run-file format rules (HDF5, format version 1): constants and value checks.
 
 This module holds what a run file must look like, shared by the reader
-(:mod:`fringe.io.runfile`) and the writer (:mod:`fringe.io.runwriter`): the format constants
+(:mod:`fringe.io.runreader`) and the writer (:mod:`fringe.io.runwriter`): the format constants
 (name, version, allowed units, core channels, reserved groups, default chunk length), the
 apparatus-kind registry :data:`APPARATUS_KINDS`, the metadata checks (:func:`check_apparatus`,
 :func:`check_site`, :func:`check_epoch_utc`, :func:`parse_utc_iso`) and the streamed value checks
@@ -22,9 +22,9 @@ import h5py
 import numpy as np
 from numpy.typing import NDArray
 
-from ..conventions import DEFAULT_PATH_SEPARATION_DEG
-from ..errors import ConfigError
-from ..site import Site
+from fringe.conventions import DEFAULT_PATH_SEPARATION_DEG
+from fringe.errors import ConfigError
+from fringe.site import Site
 
 __all__ = ["APPARATUS_KINDS", "AZIMUTH_UNITS", "CORE_CHANNELS", "DEFAULT_CHUNK_SAMPLES",
            "FORMAT_NAME", "FORMAT_VERSION", "RESERVED_GROUPS", "SIGNAL_UNITS", "TIME_UNITS",

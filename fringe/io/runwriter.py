@@ -4,7 +4,7 @@ This module holds the atomic, chunk-by-chunk writer: :class:`RunWriter` validate
 with the rules of :mod:`fringe.io.runformat`, writes to a temporary file beside the output and
 renames it over the output only when the writer closes without error, so the output is whole or
 absent. The helpers refuse outputs that would replace an input or an existing file and store
-strings as fixed-length HDF5 strings. Read run files with :func:`fringe.io.runfile.open_run`.
+strings as fixed-length HDF5 strings. Read run files with :func:`fringe.io.runreader.open_run`.
 """
 
 from __future__ import annotations
@@ -18,10 +18,8 @@ from collections.abc import Mapping, Sequence
 import h5py
 import numpy as np
 
-from .. import __version__
-from ..errors import ConfigError, OutputError
-from ..site import Site
-from .runformat import (
+from fringe.errors import ConfigError, OutputError
+from fringe.io.runformat import (
     APPARATUS_KINDS,
     AZIMUTH_UNITS,
     CORE_CHANNELS,
@@ -39,6 +37,8 @@ from .runformat import (
     check_time_values,
     show,
 )
+from fringe.site import Site
+from fringe.version import __version__
 
 __all__ = ["RunWriter"]
 

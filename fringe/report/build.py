@@ -26,12 +26,10 @@ from pathlib import Path
 
 import numpy as np
 
-from .. import __version__
-from ..errors import ConfigError, OutputError
-from ..io.atomic import save_figure_atomic, write_json_atomic, write_text_atomic
-from . import figures as F
-from .documents import EXTRA_TABLES as EXTRA_TABLES
-from .documents import (
+import fringe.report.figures.fit as F
+from fringe.errors import ConfigError, OutputError
+from fringe.io.atomic import save_figure_atomic, write_json_atomic, write_text_atomic
+from fringe.report.documents import (
     FIGURE_DIR,
     headline,
     html_report,
@@ -39,14 +37,11 @@ from .documents import (
     markdown_report,
     summary,
 )
-from .inputs import COMPARE_COLUMNS as COMPARE_COLUMNS
-from .inputs import TURN_FIELDS as TURN_FIELDS
-from .inputs import load_comparison, load_fit, load_turns
-from .rms_solve import RmsSolution, solve_rms
+from fringe.report.inputs import load_comparison, load_fit, load_turns
+from fringe.report.rms_solve import RmsSolution, solve_rms
+from fringe.version import __version__
 
-__all__ = ["FIGURE_DIR", "OUTPUT_FILES", "ReportContent", "assemble_report", "build_report",
-           "headline", "html_report", "latex_report", "load_comparison", "load_fit",
-           "load_turns", "markdown_report", "summary", "write_report"]
+__all__ = ["OUTPUT_FILES", "ReportContent", "assemble_report", "build_report", "write_report"]
 
 OUTPUT_FILES = ("report.md", "report.tex", "report.html", "summary.json")
 
@@ -95,7 +90,7 @@ def _software() -> dict:
 
 
 def _file_entry(path) -> dict:
-    from ..io.runfile import sha256
+    from fringe.io.runreader import sha256
 
     return {"path": str(path), "sha256": sha256(path)}
 

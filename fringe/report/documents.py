@@ -14,12 +14,26 @@ import json
 from collections.abc import Sequence
 from typing import TYPE_CHECKING
 
-from .rms_solve import RmsSolution
-from .rounding import format_bound, format_interval, format_mantissas, pdg_place, pdg_round
-from .tables import Z95, bound95, latex_escape, report_tables, to_html, to_latex, to_markdown
+from fringe.report.rms_solve import RmsSolution
+from fringe.report.rounding import (
+    format_bound,
+    format_interval,
+    format_mantissas,
+    pdg_place,
+    pdg_round,
+)
+from fringe.report.tables import (
+    Z95,
+    bound95,
+    latex_escape,
+    report_tables,
+    to_html,
+    to_latex,
+    to_markdown,
+)
 
 if TYPE_CHECKING:                      # annotations only: build imports this module
-    from .build import ReportContent
+    from fringe.report.build import ReportContent
 
 __all__ = ["EXTRA_TABLES", "FIGURE_DIR", "headline", "html_report", "latex_report",
            "markdown_report", "summary"]
@@ -187,7 +201,7 @@ def html_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) -> str
     """report.html: one self-contained page (:func:`fringe.report.html.html_page`)."""
     import html as _html
 
-    from .html import html_page
+    from fringe.report.html import html_page
 
     tables = report_tables(c.fit, c.comparison, "unicode")
     sections = [("Coefficients", to_html(tables["coefficients"]))]

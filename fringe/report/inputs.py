@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import InputFileError
+from fringe.errors import InputFileError
 
 __all__ = ["COMPARE_COLUMNS", "TURN_FIELDS", "load_comparison", "load_fit", "load_turns"]
 

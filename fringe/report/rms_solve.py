@@ -30,7 +30,7 @@ from fractions import Fraction
 import numpy as np
 from numpy.typing import NDArray
 
-from ..errors import ConfigError
+from fringe.errors import ConfigError
 
 __all__ = ["COMBINATION_NAMES", "DEVIATION_NAMES", "FORWARD_MATRIX", "INVERSE_MATRIX",
            "RmsSolution", "SR_VALUES", "combinations_from_deviations", "solve_rms"]

@@ -26,7 +26,7 @@ from __future__ import annotations
 import math
 from decimal import ROUND_CEILING, ROUND_FLOOR, ROUND_HALF_UP, Decimal, localcontext
 
-from ..errors import ConfigError
+from fringe.errors import ConfigError
 
 __all__ = ["PLAIN_EXPONENTS", "STYLES", "ZERO_SIGMA_DIGITS", "format_bound", "format_interval",
            "format_mantissas", "format_value", "mantissa_str", "pdg_place", "pdg_round",

@@ -20,8 +20,15 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import ConfigError
-from .rounding import STYLES, format_bound, format_interval, format_mantissas, pdg_place, pdg_round
+from fringe.errors import ConfigError
+from fringe.report.rounding import (
+    STYLES,
+    format_bound,
+    format_interval,
+    format_mantissas,
+    pdg_place,
+    pdg_round,
+)
 
 __all__ = ["Table", "Z68", "Z95", "bound95", "coefficient_label", "coefficient_table",
            "comparison_table", "correlation_from_covariance", "correlation_table",
@@ -394,7 +401,7 @@ def to_html(table: Table) -> str:
 # ------------------------------------------------------------------------ a report's tables
 
 def _coefficient_units(theory: str) -> dict:
-    from ..theories import THEORIES
+    from fringe.theories import THEORIES
 
     cls = THEORIES.get(theory)
     return dict(cls.parameter_units) if cls is not None else {}

@@ -13,12 +13,12 @@ clock    :class:`~.clock.DirectionalClock`     cq_XY cq_XZ cq_YZ cq_XXmYY cq_ZZ
 
 from __future__ import annotations
 
-from ..errors import ConfigError
-from .base import Theory
-from .clock import CLOCK_NAMES, DirectionalClock
-from .medium import MEDIUM_NAMES, ClassicalMedium, cmb_rest_medium
-from .rms import RMS_NAMES, RobertsonMansouriSexl
-from .sme import KE_NAMES, KO_NAMES, SME_NAMES, SmePhoton
+from fringe.errors import ConfigError
+from fringe.theories.base import Theory
+from fringe.theories.clock import CLOCK_NAMES, DirectionalClock
+from fringe.theories.medium import MEDIUM_NAMES, ClassicalMedium, cmb_rest_medium
+from fringe.theories.rms import RMS_NAMES, RobertsonMansouriSexl
+from fringe.theories.sme import KE_NAMES, KO_NAMES, SME_NAMES, SmePhoton
 
 THEORIES: dict[str, type[Theory]] = {
     cls.name: cls for cls in (SmePhoton, RobertsonMansouriSexl, ClassicalMedium, DirectionalClock)

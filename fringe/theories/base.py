@@ -16,8 +16,8 @@ from typing import ClassVar
 import numpy as np
 from numpy.typing import NDArray
 
-from ..errors import ConfigError
-from ..frames import FrameState
+from fringe.errors import ConfigError
+from fringe.frames import FrameState
 
 
 def traceless(t: NDArray) -> NDArray:

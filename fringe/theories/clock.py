@@ -15,8 +15,8 @@ from typing import ClassVar
 
 import numpy as np
 
-from ..conventions import traceless_from_components
-from .base import Theory, rotate_to_lab
+from fringe.conventions import traceless_from_components
+from fringe.theories.base import Theory, rotate_to_lab
 
 CLOCK_NAMES = ("cq_XY", "cq_XZ", "cq_YZ", "cq_XXmYY", "cq_ZZ")
 

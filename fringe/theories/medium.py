@@ -21,9 +21,9 @@ from typing import ClassVar
 
 import numpy as np
 
-from ..constants import C_M_S, sun_cmb_beta
-from ..errors import ConfigError, check_finite_number
-from .base import Theory
+from fringe.constants import C_M_S, sun_cmb_beta
+from fringe.errors import ConfigError, check_finite_number
+from fringe.theories.base import Theory
 
 MEDIUM_NAMES = ("sun_vX_kms", "sun_vY_kms", "sun_vZ_kms")
 

@@ -23,9 +23,9 @@ from typing import ClassVar
 
 import numpy as np
 
-from ..constants import sun_cmb_beta
-from ..errors import ConfigError
-from .base import Theory
+from fringe.constants import sun_cmb_beta
+from fringe.errors import ConfigError
+from fringe.theories.base import Theory
 
 RMS_NAMES = ("rms_mm", "rms_kt")
 

@@ -27,8 +27,8 @@ from typing import ClassVar
 import numpy as np
 from numpy.typing import NDArray
 
-from ..frames import FrameState
-from .base import Theory
+from fringe.frames import FrameState
+from fringe.theories.base import Theory
 
 KE_NAMES = ("ke_XY", "ke_XZ", "ke_YZ", "ke_XXmYY", "ke_ZZ")
 KO_NAMES = ("ko_XY", "ko_XZ", "ko_YZ")

@@ -1,0 +1,75 @@
+"""Shared helpers of the command-line modules (``fringe/cli*.py``): error guard, output
+directory, progress bar. No physics here."""
+
+from __future__ import annotations
+
+import functools
+import sys
+from pathlib import Path
+
+import click
+
+from fringe.errors import FringeError, FringeWarning
+
+
+def run_guarded(func):
+    """Turn user errors into a one-line message and exit status 2."""
+
+    @functools.wraps(func)
+    def wrapper(*args, **kwargs):
+        import warnings
+
+        def show_warning(message, category, filename, lineno, file=None, line=None):
+            if issubclass(category, FringeWarning):
+                click.echo(f"warning: {message}", err=True)
+            else:
+                click.echo(f"warning: {category.__name__}: {message}", err=True)
+
+        import signal as _signal
+
+        def on_term(signum, frame):          # batch schedulers stop jobs with SIGTERM
+            raise KeyboardInterrupt
+
+        old = warnings.showwarning
+        warnings.showwarning = show_warning
+        try:
+            old_term = _signal.signal(_signal.SIGTERM, on_term)
+        except ValueError:                   # not in the main thread
+            old_term = None
+        try:
+            return func(*args, **kwargs)
+        except FringeError as exc:
+            click.echo(f"error: {exc}", err=True)
+            sys.exit(exc.exit_code)
+        except KeyboardInterrupt:
+            click.echo("error: interrupted; no partial output was kept", err=True)
+            sys.exit(130)
+        finally:
+            warnings.showwarning = old
+            if old_term is not None:
+                _signal.signal(_signal.SIGTERM, old_term)
+
+    return wrapper
+
+
+def out_dir(path: str) -> Path:
+    out = Path(path)
+    out.mkdir(parents=True, exist_ok=True)
+    return out
+
+
+def progress(total: int, label: str):
+    """A click progress bar on stderr when the job is long, else a no-op context."""
+    import contextlib
+
+    if total < 2_000_000 or not sys.stderr.isatty():
+        @contextlib.contextmanager
+        def _null():
+            class _P:
+                def update(self, n):
+                    pass
+            yield _P()
+        return _null()
+    return click.progressbar(length=total, label=label, file=sys.stderr)
+
+

@@ -1,0 +1,83 @@
+"""``fringe fit``: anisotropy coefficients from a recorded (or simulated) run file."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from fringe.cli.common import progress, run_guarded
+
+
+def _names(text: str | None) -> tuple[str, ...] | None:
+    if not text:
+        return None
+    return tuple(n.strip() for n in text.split(",") if n.strip())
+
+
+@click.command("fit")
+@click.argument("run_file", type=click.Path(dir_okay=False))
+@click.option("--out", "out_path", required=True, help="Result file to write (JSON).")
+@click.option("--theory", type=click.Choice(["sme", "rms", "medium", "clock"]), default="sme",
+              show_default=True)
+@click.option("--free", "free", default=None, metavar="NAMES",
+              help="Comma-separated free coefficients (default: the theory's usual set).")
+@click.option("--fix", "fixes", multiple=True, metavar="NAME=VALUE",
+              help="Hold a coefficient at a value (repeatable).")
+@click.option("--uncertainty", type=click.Choice(["reduced-chi2", "bootstrap", "formal"]),
+              default="reduced-chi2", show_default=True)
+@click.option("--bootstrap-days", type=float, default=1.0, show_default=True)
+@click.option("--drift", type=click.Choice(["offset", "linear", "quadratic"]), default="linear",
+              show_default=True, help="Per-turn drift polynomial.")
+@click.option("--max-harmonic", type=click.IntRange(2, 4), default=2, show_default=True,
+              help="Highest harmonic of the table angle in the per-turn model.")
+@click.option("--regress", multiple=True, metavar="CHANNEL",
+              help="Regress out the 2-theta part of an auxiliary channel (repeatable).")
+@click.option("--no-lab-b0", is_flag=True, help="Do not fit a constant B offset.")
+@click.option("--lab-c0", is_flag=True, help="Fit a constant C offset (needs ke_ZZ fixed).")
+@click.option("--cross-check", is_flag=True, help="Also run the one-stage global fit.")
+@click.option("--engine", type=click.Choice(["local", "dask"]), default="local",
+              show_default=True)
+@click.option("--scratch-dir", "scratch_dir", default=None,
+              type=click.Path(exists=True, file_okay=False, writable=True),
+              help="Where a long record keeps its turn table while it is fitted (removed "
+                   "afterwards; default: the directory of --out).")
+@click.option("--scheduler", default=None, help="dask scheduler address (with --engine dask).")
+@click.option("--dut1", "dut1_s", type=float, default=0.0, show_default=True,
+              help="UT1 - UTC at the record's epoch, s.")
+@click.option("--overwrite", is_flag=True, help="Replace existing outputs.")
+@run_guarded
+def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days, drift,
+            max_harmonic, regress, no_lab_b0, lab_c0, cross_check, engine, scratch_dir, scheduler,
+            dut1_s, overwrite):
+    """Fit RUN_FILE: per-turn demodulation, sidereal harmonics, coefficients with sigma."""
+    from fringe.demodulate.blocks import DemodSettings
+    from fringe.experiment.scenario import parse_assignments
+    from fringe.fit.run import fit_run
+    from fringe.fit.stages import FitSettings
+    from fringe.io.atomic import check_output_path, write_json_atomic
+    from fringe.io.fit_result import write_turns
+    from fringe.io.runreader import open_run
+
+    out = Path(out_path)
+    turns_path = out.with_suffix(".turns.h5")
+    for p in (out, turns_path):
+        check_output_path(p, overwrite=overwrite, protect=[run_file])
+    settings = FitSettings(theory=theory, free=_names(free),
+                           fixed=parse_assignments(fixes, "--fix"), uncertainty=uncertainty,
+                           bootstrap_days=bootstrap_days, lab_b0=not no_lab_b0, lab_c0=lab_c0,
+                           regress=tuple(regress))
+    demod = DemodSettings(drift=drift, max_harmonic=max_harmonic)
+    with open_run(run_file, check_values=False) as run:
+        n = run.n_samples
+    with progress(n, "fit") as bar:
+        result, columns = fit_run(run_file, settings, demod, engine=engine, scheduler=scheduler,
+                                  dut1_s=dut1_s, progress=bar.update, one_stage=cross_check,
+                                  scratch_dir=scratch_dir or str(out.resolve().parent))
+    result.amplitudes_file = turns_path.name
+    with columns:
+        write_turns(turns_path, units=result.units, epoch_utc=result.epoch_utc,
+                    columns=columns, overwrite=overwrite, protect=[run_file])
+    write_json_atomic(out, result.to_dict(), overwrite=overwrite, protect=[run_file])
+    click.echo(result.summary())
+    click.echo(f"\nwrote {out}\nwrote {turns_path}")

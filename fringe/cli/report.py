@@ -1,0 +1,64 @@
+"""``fringe report FIT.json --out DIR``: a publishable statement of limits from a fit result.
+
+No physics here: parse the options, call :func:`fringe.report.build.assemble_report` and
+:func:`~fringe.report.build.write_report`, print the headline, the fit's warnings and the files
+written.
+"""
+
+from __future__ import annotations
+
+import math
+
+import click
+
+from fringe.cli.common import out_dir as _out_dir
+from fringe.cli.common import run_guarded as _run_guarded
+from fringe.errors import ConfigError
+
+
+def parse_value_sigma(text: str | None, option: str) -> tuple[float, float] | None:
+    """``"VALUE,SIGMA"`` -> (value, sigma); None for None. ConfigError names the option."""
+    if text is None:
+        return None
+    parts = [p.strip() for p in str(text).split(",")]
+    try:
+        if len(parts) != 2:
+            raise ValueError
+        value, sigma = float(parts[0]), float(parts[1])
+    except ValueError:
+        raise ConfigError(f"{option}: expected VALUE,SIGMA (two numbers, e.g. -4.8e-8,3.7e-8), "
+                          f"got {text!r}") from None
+    if not (math.isfinite(value) and math.isfinite(sigma)) or sigma < 0:
+        raise ConfigError(f"{option}: expected a finite VALUE and a finite SIGMA >= 0, "
+                          f"got {text!r}")
+    return value, sigma
+
+
+@click.command("report")
+@click.argument("fit_json", type=click.Path(dir_okay=False))
+@click.option("--out", "out", default="fringe-report", show_default=True,
+              help="Directory for report.md, report.tex, report.html, figures/, summary.json.")
+@click.option("--compare", type=click.Path(dir_okay=False), default=None,
+              help="CSV or TOML table of earlier results (name, value, sigma, citation).")
+@click.option("--kt", default=None, metavar="VALUE,SIGMA",
+              help="Kennedy-Thorndike result beta - alpha - 1 (RMS fits: solve alpha, beta, "
+                   "delta).")
+@click.option("--is", "is_", default=None, metavar="VALUE,SIGMA",
+              help="Ives-Stilwell result alpha + 1/2 (with --kt).")
+@click.option("--overwrite", is_flag=True, help="Replace existing outputs.")
+@_run_guarded
+def command(fit_json, out, compare, kt, is_, overwrite):
+    """Tables, figures and a self-contained HTML page stating the limits in FIT_JSON."""
+    from fringe.report.build import assemble_report, write_report
+
+    content = assemble_report(fit_json, compare=compare, kt=parse_value_sigma(kt, "--kt"),
+                              is_=parse_value_sigma(is_, "--is"))
+    written = write_report(content, _out_dir(out), overwrite=overwrite)
+    click.echo(content.headline["text"])
+    for w in content.warnings:
+        click.echo(f"warning (from the fit): {w}", err=True)
+    if content.rms is not None:
+        click.echo(content.rms.summary())
+    click.echo("")
+    for p in written:
+        click.echo(f"wrote {p}")

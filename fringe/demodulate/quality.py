@@ -1,0 +1,180 @@
+"""The quality summary of a run file, read before fitting (``fringe inspect``).
+
+:func:`inspect_run` streams the record once for the sample statistics (span, rate, gaps, NaNs),
+runs stage 1 (:func:`fringe.demodulate.engine.run_stage1`) for the turns (count, period, rate stability,
+glitches), and computes, on the first ``max_spectral_samples`` samples laid on a regular grid
+(missing samples NaN), the overlapping Allan deviation of the fractional signal and its amplitude
+spectrum around twice the rotation frequency, where the sidereal sidebands
+2 f_R +- f_sid, 2 f_R +- 2 f_sid are marked.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from fringe.constants import STELLAR_DAY_S
+from fringe.demodulate.blocks import DemodSettings
+from fringe.demodulate.engine import run_stage1
+from fringe.io.runreader import open_run
+from fringe.noise.allan import AllanResult, overlapping_adev
+
+MAX_SPECTRAL_SAMPLES = 1 << 22
+
+
+@dataclass(frozen=True)
+class InspectReport:
+    """What ``fringe inspect`` prints and plots (plain numbers; arrays for the figures)."""
+
+    meta: dict
+    stats: dict
+    allan: AllanResult
+    spectrum_f_hz: np.ndarray
+    spectrum_amp: np.ndarray
+    lines_hz: dict
+
+    def summary(self) -> str:
+        s, m = self.stats, self.meta
+        lines = [f"run file {m['path']}",
+                 f"site: lat {m['site']['latitude_deg']:.4f} deg, lon "
+                 f"{m['site']['longitude_deg']:.4f} deg; apparatus {m['apparatus']['kind']}; "
+                 f"signal units {m['signal_units']}",
+                 f"epoch {m['epoch_utc']}; span {s['span_s'] / 86400:.3f} d "
+                 f"({s['span_s']:.1f} s); {s['n_samples']} samples at "
+                 f"{s['sample_interval_s']:.4g} s (median)",
+                 f"gaps (> 2 x median interval): {s['n_gaps']}, total {s['gap_total_s']:.1f} s, "
+                 f"longest {s['gap_longest_s']:.1f} s",
+                 f"NaN samples: {s['n_nan']} ({100 * s['n_nan'] / max(s['n_samples'], 1):.3f} %)",
+                 f"turns: {s['n_turns']} (period {s['turn_period_s']:.6g} s, turn-to-turn "
+                 f"period scatter {s['turn_duration_rel_std']:.2e} relative rms); accepted "
+                 f"{s['n_accepted']}, glitch {s['n_glitch']}, partial {s['n_partial']}",
+                 f"per-turn residual rms (median): {s['residual_rms']:.3g} {m['signal_units']}",
+                 "Allan deviation of the fractional signal:"]
+        for tau, dev in zip(self.allan.tau_s, self.allan.adev):
+            if np.isfinite(dev):
+                lines.append(f"  tau {tau:10.4g} s  sigma_y {dev:.3e}")
+        return "\n".join(lines)
+
+    def to_dict(self) -> dict:
+        return {"meta": self.meta, "stats": self.stats, "allan": self.allan.to_dict(),
+                "lines_hz": self.lines_hz}
+
+
+class _TurnClock:
+    """Instants at which the unwrapped table angle passes whole turns, streamed over chunks.
+
+    Crossing instants are interpolated linearly between the two samples around each crossing,
+    so the turn periods they give are not limited by the sampling interval.
+    """
+
+    def __init__(self):
+        self.prev = None          # (t, unwrapped theta) of the last sample seen
+        self.ref = None
+        self.sign = 1.0
+        self.times = []
+
+    def feed(self, t: np.ndarray, azimuth_rad: np.ndarray) -> None:
+        th = np.unwrap(np.pi - azimuth_rad)
+        if self.prev is None:
+            self.ref = th[0]
+            self.sign = 1.0 if th[-1] >= th[0] else -1.0
+            tt, tht = t, th
+        else:
+            th = th + (self.prev[1] + np.angle(np.exp(1j * (th[0] - self.prev[1]))) - th[0])
+            tt, tht = np.concatenate([[self.prev[0]], t]), np.concatenate([[self.prev[1]], th])
+        u = self.sign * (tht - self.ref) / (2 * np.pi)
+        k = np.floor(u)
+        i = np.flatnonzero(np.diff(k) > 0)
+        level = k[i + 1]
+        frac = (level - u[i]) / np.maximum(u[i + 1] - u[i], 1e-300)
+        self.times.append(tt[i] + frac * (tt[i + 1] - tt[i]))
+        self.prev = (float(t[-1]), float(th[-1]))
+
+    def periods(self) -> np.ndarray:
+        c = np.concatenate(self.times) if self.times else np.zeros(0)
+        p = np.diff(c)
+        if p.size:
+            p = p[p < 1.5 * np.median(p)]        # drop periods spanning a gap
+        return p
+
+
+def _fractional_scale(meta: dict) -> float:
+    if meta["signal_units"] == "Hz" and meta["apparatus"].get("carrier_hz"):
+        return 1.0 / float(meta["apparatus"]["carrier_hz"])
+    return 1.0
+
+
+def inspect_run(path: str, demod: DemodSettings | None = None,
+                max_spectral_samples: int = MAX_SPECTRAL_SAMPLES) -> InspectReport:
+    """Build the :class:`InspectReport` of a run file."""
+    demod = demod or DemodSettings()
+    with open_run(path) as run:
+        meta = run.to_dict()
+        n_nan = 0
+        gaps = []
+        last_t = None
+        dts = []
+        head_t, head_y = [], []
+        kept = 0
+        clock = _TurnClock()
+        for ch in run.iter_chunks(channels=("time", "signal", "azimuth")):
+            t, y = ch["time"], ch["signal"]
+            clock.feed(t, ch["azimuth"])
+            n_nan += int(np.sum(~np.isfinite(y)))
+            d = np.diff(t) if last_t is None else np.diff(np.concatenate([[last_t], t]))
+            dts.append(d[: 10000])
+            gaps.append(d)
+            last_t = float(t[-1])
+            if kept < max_spectral_samples:
+                take = min(t.size, max_spectral_samples - kept)
+                head_t.append(t[:take].copy())
+                head_y.append(y[:take].copy())
+                kept += take
+        dt_all = np.concatenate(gaps) if gaps else np.zeros(0)
+    tau0 = float(np.median(np.concatenate(dts))) if dts else 1.0
+    big = dt_all[dt_all > 2 * tau0]
+    table, info = run_stage1(path, demod)
+    ok = table.accepted
+    dur = clock.periods()
+    stats = {"n_samples": meta["n_samples"], "span_s": meta["time_last_s"] - meta["time_first_s"],
+             "sample_interval_s": tau0, "n_gaps": int(big.size),
+             "gap_total_s": float(np.sum(big - tau0)),
+             "gap_longest_s": float(big.max()) if big.size else 0.0, "n_nan": n_nan,
+             "n_turns": table.n_blocks,
+             "turn_period_s": float(np.mean(dur)) if dur.size else info.turn_period_s,
+             "turn_duration_rel_std": float(np.std(dur) / np.mean(dur)) if dur.size > 1 else 0.0,
+             "n_accepted": int(np.sum(ok)), "n_glitch": int(np.sum(table.status == 2)),
+             "n_partial": int(np.sum(table.status == 1)),
+             "residual_rms": float(np.median(table.residual_rms[ok])) if np.any(ok) else np.nan}
+    # regular grid of the head of the record
+    t = np.concatenate(head_t)
+    y = np.concatenate(head_y) * _fractional_scale(meta)
+    # grid cells of the head samples; cells beyond max_spectral_samples (after a long gap) are
+    # dropped, so the grid never grows past the sample budget
+    cell = (t - t[0]) / tau0
+    keep = cell < max_spectral_samples
+    idx = np.rint(cell[keep]).astype(np.int64)
+    grid = np.full(int(idx[-1]) + 1, np.nan)
+    grid[idx] = y[keep]
+    allan = overlapping_adev(grid, tau0)
+    filled = np.where(np.isfinite(grid), grid - np.nanmean(grid), 0.0)
+    # remove a linear drift before the spectrum
+    x = np.arange(filled.size)
+    good = np.isfinite(grid)
+    if good.sum() > 2:
+        coef = np.polyfit(x[good], filled[good], 1)
+        filled = np.where(good, filled - np.polyval(coef, x), 0.0)
+    win = np.hanning(filled.size)
+    spec = np.fft.rfft(filled * win)
+    amp = 2.0 * np.abs(spec) / max(np.sum(win), 1.0)
+    f = np.fft.rfftfreq(filled.size, tau0)
+    f_r = 1.0 / info.turn_period_s
+    f_s = 1.0 / STELLAR_DAY_S
+    lines = {"2f_R": 2 * f_r, "2f_R-f_sid": 2 * f_r - f_s, "2f_R+f_sid": 2 * f_r + f_s,
+             "2f_R-2f_sid": 2 * f_r - 2 * f_s, "2f_R+2f_sid": 2 * f_r + 2 * f_s, "f_R": f_r}
+    band = (f > 2 * f_r - 6 * f_s) & (f < 2 * f_r + 6 * f_s)
+    if np.sum(band) < 16:
+        band = (f > 1.5 * f_r) & (f < 2.5 * f_r)
+    return InspectReport(meta=meta, stats=stats, allan=allan, spectrum_f_hz=f[band],
+                         spectrum_amp=amp[band], lines_hz=lines)

@@ -1,0 +1,188 @@
+"""The sidereal harmonic table (convention C10) of each coefficient, by projection.
+
+For an instant t_ref the lab's orbital velocity is frozen at its ephemeris value, the sidereal
+angle phi and turntable angle theta are laid on uniform grids (the Earth-rotation velocity follows
+phi), the basis signals are evaluated, and each is projected on
+
+    S = B sin 2 theta + C cos 2 theta,  C = C0 + Cs1 sin phi + Cc1 cos phi + Cs2 sin 2 phi + ...
+
+Uniform grids make the projection exact for signals band-limited below half the grid sizes. The
+part of each basis signal the C10 model does not capture (non-rotating
+terms, higher harmonics) is reported as ``uncaptured_rms``.
+
+Annual modulation: the projection is repeated at instants spread over a sidereal year and each
+harmonic coefficient is fitted against the orbital phase Omega T (C3) with
+{1, sin OT, cos OT, sin 2 OT, cos 2 OT}.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+from fringe.constants import DAY_S, SIDEREAL_YEAR_DAYS
+from fringe.conventions import HARMONIC_NAMES
+from fringe.experiment.basis import Setup, basis, signal
+from fringe.frames import FrameState, earth_velocity_beta, orbital_phase_rad, rotation_velocity_beta
+
+ORBIT_TERMS = ("mean", "sin_OT", "cos_OT", "sin_2OT", "cos_2OT")
+
+N_THETA = 16
+N_PHI = 32
+
+
+def _grid_state(setup: Setup, t_ref_s: float):
+    theta = 2.0 * np.pi * np.arange(N_THETA) / N_THETA
+    phi = 2.0 * np.pi * np.arange(N_PHI) / N_PHI
+    th, ph = np.meshgrid(theta, phi, indexing="ij")          # (N_THETA, N_PHI)
+    th, ph = th.ravel(), ph.ravel()
+    beta = np.repeat(earth_velocity_beta(setup.epoch, [t_ref_s]), th.size, axis=0)
+    if setup.include_rotation_velocity:
+        beta = beta + rotation_velocity_beta(ph, setup.site.axis_distance_m)
+    state = FrameState(ph, setup.site.colatitude_rad, beta)
+    return th, ph, state
+
+
+def _project(g: NDArray, th: NDArray, ph: NDArray) -> tuple[NDArray, NDArray]:
+    """C10 coefficients (10, k) of signals g (n, k) on the grid, and the uncaptured rms (k,)."""
+    funcs = [np.ones_like(ph), np.sin(ph), np.cos(ph), np.sin(2 * ph), np.cos(2 * ph)]
+    design = np.stack([np.cos(2 * th) * f for f in funcs] + [np.sin(2 * th) * f for f in funcs],
+                      axis=1)
+    coef, *_ = np.linalg.lstsq(design, g, rcond=None)
+    resid = g - design @ coef
+    return coef, np.sqrt(np.mean(resid ** 2, axis=0))
+
+
+def harmonics_at(setup: Setup, t_ref_s: float, params: dict[str, float] | None = None,
+                 names: tuple[str, ...] | None = None) -> tuple[NDArray, NDArray, tuple]:
+    """C10 coefficients at one instant.
+
+    Returns
+    -------
+    coef : ndarray, shape (10, k)
+        Harmonics (order of :data:`~fringe.conventions.HARMONIC_NAMES`) per unit coefficient, in
+        ``setup.units``; for a nonlinear theory (or when ``params`` is given) one column, the
+        total signal of ``params``.
+    uncaptured : ndarray, shape (k,)
+    labels : tuple of str
+        The column labels.
+    """
+    th, ph, state = _grid_state(setup, t_ref_s)
+    az = np.pi - th
+    if params is not None or not setup.theory.linear:
+        g = signal(setup, params or {}, np.zeros_like(th), az, state=state)[:, None]
+        labels = ("total",)
+    else:
+        labels = tuple(names) if names is not None else setup.theory.parameter_names
+        g = basis(setup, np.zeros_like(th), az, labels, state=state)
+    coef, unc = _project(g, th, ph)
+    return coef, unc, labels
+
+
+@dataclass(frozen=True)
+class HarmonicTable:
+    """Per-coefficient C10 harmonics at a reference instant, with their annual modulation.
+
+    Attributes
+    ----------
+    labels : tuple of str
+        Coefficient names (or ``("total",)``).
+    units : str
+        Units of the harmonics per unit coefficient (the observable's units).
+    t_ref_utc : str
+        The reference instant.
+    at_ref : ndarray, shape (10, k)
+        Harmonics at the reference instant.
+    orbit : ndarray, shape (5, 10, k)
+        Fit of each harmonic against orbital phase, terms :data:`ORBIT_TERMS`.
+    uncaptured_rms : ndarray, shape (k,)
+        RMS of the part of each basis signal outside the C10 model.
+    values : dict
+        Coefficient values used for the ``contribution`` view (may be empty).
+    """
+
+    labels: tuple
+    units: str
+    t_ref_utc: str
+    orbital_phase_ref_rad: float
+    at_ref: NDArray
+    orbit: NDArray
+    uncaptured_rms: NDArray
+    values: dict
+
+    def contribution(self) -> dict[str, dict[str, float]]:
+        """Each coefficient's contribution (value x unit harmonic) at the reference instant."""
+        out = {}
+        for j, name in enumerate(self.labels):
+            scale = self.values.get(name, 1.0) if name != "total" else 1.0
+            out[name] = {h: float(scale * self.at_ref[i, j]) for i, h in enumerate(HARMONIC_NAMES)}
+        return out
+
+    def annual_modulation_present(self, rtol: float = 1e-6) -> list[str]:
+        """Labels whose harmonics vary with the orbital phase beyond ``rtol`` of their size."""
+        out = []
+        for j, name in enumerate(self.labels):
+            size = max(np.abs(self.orbit[:, :, j]).max(), 1e-300)
+            if np.abs(self.orbit[1:, :, j]).max() > rtol * size:
+                out.append(name)
+        return out
+
+    def to_dict(self) -> dict:
+        return {
+            "units": self.units, "t_ref_utc": self.t_ref_utc,
+            "orbital_phase_ref_rad": self.orbital_phase_ref_rad,
+            "harmonic_names": list(HARMONIC_NAMES), "orbit_terms": list(ORBIT_TERMS),
+            "values": dict(self.values),
+            "per_unit": {name: {h: float(self.at_ref[i, j]) for i, h in enumerate(HARMONIC_NAMES)}
+                         for j, name in enumerate(self.labels)},
+            "contribution": self.contribution(),
+            "annual": {name: {h: {term: float(self.orbit[m, i, j])
+                                  for m, term in enumerate(ORBIT_TERMS)}
+                              for i, h in enumerate(HARMONIC_NAMES)}
+                       for j, name in enumerate(self.labels)},
+            "uncaptured_rms": {name: float(self.uncaptured_rms[j])
+                               for j, name in enumerate(self.labels)},
+        }
+
+    def summary(self, nonzero_only: bool = True) -> str:
+        """Readable table of contributions at the reference instant."""
+        contrib = self.contribution()
+        rows = [n for n in self.labels if not nonzero_only or self.values.get(n, 0.0) != 0.0
+                or n == "total"] or list(self.labels)
+        head = f"{'coefficient':<12}" + "".join(f"{h:>11}" for h in HARMONIC_NAMES)
+        lines = [f"C10 harmonics [{self.units}] at {self.t_ref_utc} "
+                 f"(orbital phase {np.degrees(self.orbital_phase_ref_rad) % 360:.1f} deg)",
+                 head, "-" * len(head)]
+        for n in rows:
+            lines.append(f"{n:<12}" + "".join(f"{contrib[n][h]:>11.3e}" for h in HARMONIC_NAMES))
+        annual = [n for n in self.annual_modulation_present() if n in rows]
+        if annual:
+            lines.append("annual modulation present for: " + ", ".join(annual))
+        return "\n".join(lines)
+
+
+def harmonic_table(setup: Setup, t_ref_s: float, values: dict[str, float] | None = None,
+                   n_orbit: int = 24) -> HarmonicTable:
+    """Build the :class:`HarmonicTable` at ``t_ref_s`` (seconds after ``setup.epoch``).
+
+    For a linear theory the table holds one column per coefficient (unit value), and the
+    ``values`` scale the contribution view; for the nonlinear medium it holds the total signal
+    of ``values``.
+    """
+    values = dict(values or {})
+    params = values if not setup.theory.linear else None
+    at_ref, unc, labels = harmonics_at(setup, t_ref_s, params)
+    year_s = SIDEREAL_YEAR_DAYS * DAY_S
+    t_orb = t_ref_s + year_s * np.arange(n_orbit) / n_orbit
+    per = np.stack([harmonics_at(setup, float(t), params)[0] for t in t_orb])   # (m, 10, k)
+    op = orbital_phase_rad(setup.epoch, t_orb)
+    design = np.stack([np.ones_like(op), np.sin(op), np.cos(op), np.sin(2 * op),
+                       np.cos(2 * op)], axis=1)
+    coef, *_ = np.linalg.lstsq(design, per.reshape(n_orbit, -1), rcond=None)
+    orbit = coef.reshape(5, *at_ref.shape)
+    return HarmonicTable(labels=labels, units=setup.units,
+                         t_ref_utc=setup.epoch.utc_iso(t_ref_s),
+                         orbital_phase_ref_rad=float(orbital_phase_rad(setup.epoch, [t_ref_s])[0]),
+                         at_ref=at_ref, orbit=orbit, uncaptured_rms=unc, values=values)

@@ -1,0 +1,260 @@
+"""Scenario files (TOML): site, campaign calendar, apparatus, turntable, theory, coefficients.
+
+A scenario describes an experiment that has not (necessarily) happened: ``fringe predict``,
+``fringe simulate`` and ``fringe plan`` read it. The format is documented in
+``docs/scenario.md``; ``examples/`` holds an invented example. Sections other than those parsed
+here (``[noise]``, ``[systematics]``, ``[plan]``, ...) are kept verbatim in
+:attr:`Scenario.sections` for the stages that use them.
+"""
+
+from __future__ import annotations
+
+import math
+
+try:
+    import tomllib
+except ModuleNotFoundError:  # Python < 3.11
+    import tomli as tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from fringe.errors import ConfigError, InputFileError, check_finite_number
+from fringe.experiment.apparatus import Apparatus, make_apparatus
+from fringe.experiment.basis import Setup
+from fringe.experiment.turntable import AxisTilt, make_motion
+from fringe.frames import Epoch
+from fringe.site import Site
+from fringe.theories import make_theory
+from fringe.theories.base import Theory
+from fringe.theories.medium import cmb_rest_medium
+
+KNOWN_SECTIONS = {"title", "site", "campaign", "apparatus", "turntable", "theory",
+                  "coefficients"}
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """A parsed scenario file.
+
+    Attributes
+    ----------
+    title : str
+    source : str
+        File the scenario was read from (for messages).
+    site : Site
+    epoch : Epoch
+        Campaign start (sample times are seconds after it).
+    duration_s : float
+        Campaign length, s.
+    sample_interval_s : float
+        Sampling interval, s.
+    apparatus : Apparatus
+    units : str
+        Observable units.
+    motion : ContinuousRotation or SteppedRotation
+    tilt : AxisTilt
+    theory : Theory
+    coefficients : dict
+        Hypothetical (or injected) coefficient values.
+    include_rotation_velocity : bool
+    sections : dict
+        The other sections, as parsed TOML.
+    """
+
+    title: str
+    source: str
+    site: Site
+    epoch: Epoch
+    duration_s: float
+    sample_interval_s: float
+    apparatus: Apparatus
+    units: str
+    motion: object
+    tilt: AxisTilt
+    theory: Theory
+    coefficients: dict
+    include_rotation_velocity: bool = True
+    sections: dict = field(default_factory=dict)
+
+    @property
+    def n_samples(self) -> int:
+        return int(math.floor(self.duration_s / self.sample_interval_s + 1e-9))
+
+    def setup(self) -> Setup:
+        return Setup(site=self.site, epoch=self.epoch, apparatus=self.apparatus,
+                     theory=self.theory, units=self.units, tilt=self.tilt,
+                     include_rotation_velocity=self.include_rotation_velocity)
+
+    def sample_times(self, start: int = 0, stop: int | None = None) -> np.ndarray:
+        """Sample times (s after the epoch) with indices in [start, stop)."""
+        stop = self.n_samples if stop is None else min(stop, self.n_samples)
+        return np.arange(start, stop, dtype=float) * self.sample_interval_s
+
+    def with_coefficients(self, values: dict) -> Scenario:
+        """A copy with some coefficient values replaced (validated against the theory)."""
+        merged = dict(self.coefficients)
+        merged.update(self.theory.check_params(values, source="--set"))
+        return _replace(self, coefficients=merged)
+
+    def to_dict(self) -> dict:
+        """Plain-JSON description (for provenance)."""
+        return {"title": self.title, "source": self.source, "site": self.site.to_dict(),
+                "start_utc": self.epoch.utc, "dut1_s": self.epoch.dut1_s,
+                "duration_s": self.duration_s, "sample_interval_s": self.sample_interval_s,
+                "apparatus": self.apparatus.attributes(), "units": self.units,
+                "turntable": self.motion.to_dict(),
+                "tilt_rad": [self.tilt.south_rad, self.tilt.east_rad],
+                "theory": self.theory.to_dict(), "coefficients": dict(self.coefficients),
+                "include_rotation_velocity": self.include_rotation_velocity}
+
+
+def _replace(sc: Scenario, **changes) -> Scenario:
+    from dataclasses import replace
+
+    return replace(sc, **changes)
+
+
+def _table(doc: dict, key: str, source: str, required: bool = True) -> dict:
+    value = doc.get(key)
+    if value is None:
+        if required:
+            raise ConfigError(f"{source}: [{key}]: section missing")
+        return {}
+    if not isinstance(value, dict):
+        raise ConfigError(f"{source}: [{key}]: expected a table")
+    return dict(value)
+
+
+def _wrap(source: str, section: str, func, *args, **kwargs):
+    """Call a constructor, prefixing ConfigError messages with the file and section."""
+    try:
+        return func(*args, **kwargs)
+    except ConfigError as exc:
+        raise ConfigError(f"{source}: [{section}] {exc}") from None
+    except TypeError as exc:
+        raise ConfigError(f"{source}: [{section}]: {exc}") from None
+
+
+def _theory_from(doc: dict, source: str) -> tuple[Theory, bool]:
+    spec = _table(doc, "theory", source)
+    name = spec.pop("name", "sme")
+    rotation_velocity = spec.pop("rotation_velocity", True)
+    if not isinstance(rotation_velocity, bool):
+        raise ConfigError(f"{source}: [theory] rotation_velocity: expected true or false")
+    options = {}
+    if name == "rms":
+        frame = spec.pop("preferred_frame", "cmb")
+        if frame == "cmb":
+            pass
+        elif isinstance(frame, list) and len(frame) == 3:
+            from fringe.constants import C_M_S
+
+            options["sun_velocity_beta"] = np.array(
+                [check_finite_number(v, source, "[theory] preferred_frame") for v in frame]
+            ) * 1e3 / C_M_S
+        else:
+            raise ConfigError(f"{source}: [theory] preferred_frame: expected \"cmb\" or the "
+                              f"Sun's velocity relative to it [vX, vY, vZ] in km/s, got {frame!r}")
+    elif name == "medium":
+        if "wave_speed_m_s" in spec:
+            options["wave_speed_m_s"] = spec.pop("wave_speed_m_s")
+    if spec:
+        raise ConfigError(f"{source}: [theory] {sorted(spec)[0]}: unknown option for theory "
+                          f"{name!r}")
+    return _wrap(source, "theory", make_theory, name, **options), rotation_velocity
+
+
+def load_scenario(path: str | Path) -> Scenario:
+    """Read and validate a scenario TOML file; errors name the file, section and field."""
+    path = Path(path)
+    source = str(path)
+    try:
+        with open(path, "rb") as fh:
+            doc = tomllib.load(fh)
+    except FileNotFoundError:
+        raise InputFileError(path, "file", "not found") from None
+    except OSError as exc:
+        raise InputFileError(path, "file", f"cannot be read ({exc.strerror})") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise InputFileError(path, "TOML", f"not valid TOML ({exc})") from None
+    return scenario_from_dict(doc, source)
+
+
+def scenario_from_dict(doc: dict, source: str = "scenario") -> Scenario:
+    """Build a :class:`Scenario` from parsed TOML."""
+    site = _wrap(source, "site", Site, **_table(doc, "site", source))
+
+    camp = _table(doc, "campaign", source)
+    start = camp.pop("start_utc", None)
+    if start is None:
+        raise ConfigError(f"{source}: [campaign] start_utc: missing (ISO 8601 UTC expected)")
+    try:
+        epoch = Epoch(start, camp.pop("dut1_s", 0.0))
+        _ = epoch.tai_jd                               # validates the instant itself
+    except ConfigError as exc:
+        raise ConfigError(f"{source}: [campaign] "
+                          + str(exc).replace("epoch_utc", "start_utc")) from None
+    if "duration_days" in camp and "duration_s" in camp:
+        raise ConfigError(f"{source}: [campaign]: give duration_days or duration_s, not both")
+    if "duration_days" in camp:
+        duration = 86400.0 * _wrap(source, "campaign", check_finite_number,
+                                   camp.pop("duration_days"), "campaign", "duration_days",
+                                   positive=True)
+    else:
+        duration = _wrap(source, "campaign", check_finite_number, camp.pop("duration_s", None),
+                         "campaign", "duration_s", positive=True)
+    interval = _wrap(source, "campaign", check_finite_number,
+                     camp.pop("sample_interval_s", 1.0), "campaign", "sample_interval_s",
+                     positive=True)
+    if camp:
+        raise ConfigError(f"{source}: [campaign] {sorted(camp)[0]}: unknown field")
+    if duration < 2 * interval:
+        raise ConfigError(f"{source}: [campaign] duration: expected at least two samples")
+
+    app_spec = _table(doc, "apparatus", source)
+    units = app_spec.pop("units", None)
+    apparatus = _wrap(source, "apparatus", make_apparatus, app_spec, "apparatus")
+    units = units or apparatus.default_units
+    _wrap(source, "apparatus", apparatus.check_units, units)
+    if apparatus.kind in ("cavity-pair", "cavity-vs-reference") and not apparatus.carrier_hz:
+        raise ConfigError(f"{source}: [apparatus] carrier_hz: missing; cavity kinds need the "
+                          "carrier frequency in Hz (> 0), which run files record")
+
+    tt = _table(doc, "turntable", source)
+    tilt = _wrap(source, "turntable", AxisTilt,
+                 1e-6 * tt.get("tilt_south_urad", 0.0), 1e-6 * tt.get("tilt_east_urad", 0.0))
+    motion = _wrap(source, "turntable", make_motion, tt, "turntable")
+
+    theory, rot = _theory_from(doc, source)
+    coeff_spec = _table(doc, "coefficients", source, required=False)
+    if theory.name == "medium" and coeff_spec.pop("rest_frame", None) == "cmb":
+        coeff_spec = {**cmb_rest_medium(), **coeff_spec}
+    coefficients = theory.check_params(coeff_spec, source=f"{source}: [coefficients]")
+
+    title = doc.get("title", "")
+    if not isinstance(title, str):
+        raise ConfigError(f"{source}: title: expected a string")
+    sections = {k: v for k, v in doc.items() if k not in KNOWN_SECTIONS}
+    sc = Scenario(title=title, source=source, site=site, epoch=epoch, duration_s=duration,
+                  sample_interval_s=interval, apparatus=apparatus, units=units, motion=motion,
+                  tilt=tilt, theory=theory, coefficients=coefficients,
+                  include_rotation_velocity=rot, sections=sections)
+    _wrap(source, "theory", sc.setup)          # sector / units compatibility
+    return sc
+
+
+def parse_assignments(items: tuple[str, ...], source: str = "--set") -> dict[str, float]:
+    """Parse ``NAME=VALUE`` strings (command line) into a dict of floats."""
+    out = {}
+    for item in items:
+        name, sep, value = item.partition("=")
+        if not sep or not name.strip():
+            raise ConfigError(f"{source}: {item!r}: expected NAME=VALUE, e.g. ke_XY=1e-17")
+        try:
+            out[name.strip()] = float(value)
+        except ValueError:
+            raise ConfigError(f"{source}: {name.strip()}: expected a number, "
+                              f"got {value!r}") from None
+    return out

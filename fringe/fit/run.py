@@ -1,0 +1,150 @@
+"""The whole fit of a run file: stage 1 (engine), stages 2-3 (fit), packaging (result).
+
+:func:`fit_run` is what ``fringe fit`` calls; it returns a :class:`~fringe.io.fit_result.FitResult`
+and the per-turn columns for the amplitudes file.
+"""
+
+from __future__ import annotations
+
+import datetime
+import logging
+import platform
+from concurrent.futures import ThreadPoolExecutor
+
+import numpy as np
+
+from fringe.demodulate.blocks import DemodSettings
+from fringe.demodulate.engine import stage1_store
+from fringe.demodulate.turn_store import Scratch
+from fringe.errors import ConfigError
+from fringe.experiment.apparatus import APPARATUS_KINDS, apparatus_fields, make_apparatus
+from fringe.experiment.basis import Setup
+from fringe.fit.stages import FitSettings, stage2_and_3
+from fringe.frames import Epoch
+from fringe.io.fit_result import FitResult, TurnColumns
+from fringe.io.runreader import open_run, sha256
+from fringe.theories import make_theory
+from fringe.version import __version__
+
+logger = logging.getLogger(__name__)
+
+
+
+def software_versions() -> dict:
+    import erfa
+    import h5py
+    import scipy
+
+    return {"fringe": __version__, "python": platform.python_version(),
+            "numpy": np.__version__, "scipy": scipy.__version__, "h5py": h5py.__version__,
+            "pyerfa": erfa.__version__}
+
+
+def setup_from_run(path: str, theory: str, dut1_s: float = 0.0) -> tuple[Setup, dict]:
+    """Build the Setup (site, epoch, apparatus, theory, units) from a run file's metadata."""
+    with open_run(path, check_values=False) as run:
+        meta = run.to_dict()
+        site = run.site
+        attrs = dict(run.apparatus)
+    cls = APPARATUS_KINDS.get(attrs.get("kind"))
+    fields = apparatus_fields(cls) if cls else set()
+    ignored = sorted(set(attrs) - fields - {"kind"})
+    if ignored:      # the run format passes other labs' extra attributes through
+        logger.info("%s: apparatus attributes not used by the model: %s", path, ignored)
+    apparatus = make_apparatus({k: v for k, v in attrs.items() if k in fields or k == "kind"},
+                               source=f"{path}: apparatus")
+    setup = Setup(site=site, epoch=Epoch(meta["epoch_utc"], dut1_s), apparatus=apparatus,
+                  theory=make_theory(theory), units=meta["signal_units"])
+    return setup, meta
+
+
+def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None, *,
+            engine: str = "local", scheduler=None, dut1_s: float = 0.0, progress=None,
+            one_stage: bool = False, scratch_dir: str | None = None
+            ) -> tuple[FitResult, TurnColumns]:
+    """Fit a run file end to end.
+
+    Parameters
+    ----------
+    path : str
+        Run file (format version 1).
+    settings : FitSettings
+    demod : DemodSettings, optional
+    engine : {"local", "dask"}
+    scheduler : str or distributed.Client, optional
+        For ``engine="dask"``.
+    dut1_s : float
+        UT1 - UTC at the record's epoch, s.
+    progress : callable, optional
+        Called with the number of samples processed.
+    one_stage : bool
+        Also run the one-stage global least-squares cross-check (a second pass; it holds the
+        whole turn table in memory).
+    scratch_dir : str, optional
+        Where a record of more than SEGMENT_TURNS turns keeps its turn table and fit rows
+        while it is fitted (:mod:`fringe.demodulate.turn_store`; default: the system's temporary
+        directory). Shorter records are fitted in memory.
+
+    Returns
+    -------
+    (FitResult, TurnColumns)
+        The result and the per-turn columns (for :func:`fringe.io.fit_result.write_turns`); close
+        the columns (or use them as a context manager) to remove the scratch files.
+    """
+    demod = demod or DemodSettings()
+    setup, meta = setup_from_run(path, settings.theory, dut1_s)
+    for ch in settings.regress:
+        if ch not in meta["aux_channels"]:
+            raise ConfigError(f"--regress {ch}: {path} has no auxiliary channel {ch!r} "
+                              f"(has {', '.join(meta['aux_channels']) or 'none'})")
+    scratch = Scratch(scratch_dir)
+    try:
+        store, info = stage1_store(path, demod, aux_channels=tuple(settings.regress),
+                                   engine=engine, scheduler=scheduler, progress=progress,
+                                   scratch=scratch)
+        span_s = float(meta["time_last_s"] - meta["time_first_s"])
+        # the input's hash (provenance) is read on the second core while stages 2-3 run
+        with ThreadPoolExecutor(max_workers=1) as pool:
+            digest = pool.submit(sha256, path)
+            harm, res, free, models = stage2_and_3(setup, store, settings, span_s / 86400.0,
+                                                   scratch)
+            input_sha256 = digest.result()
+        result = _package(path, setup, meta, settings, demod, info, store, harm, res, span_s,
+                          input_sha256, engine, dut1_s)
+        if one_stage and setup.theory.linear:
+            from fringe.fit.onestage import one_stage_fit
+
+            result.one_stage = one_stage_fit(info, demod, setup, store.load(), res.names,
+                                             settings)
+    except BaseException:
+        scratch.close()
+        raise
+    return result, TurnColumns(setup, store, models, scratch)
+
+
+def _package(path, setup, meta, settings, demod, info, store, harm, res, span_s, input_sha256,
+             engine, dut1_s) -> FitResult:
+    harm["units"] = setup.units
+    sig = np.sqrt(np.diag(res.cov))
+    sel = store.accepted
+    rms_med = store.median_accepted_rms()
+    stage1 = dict(store.counts(), turn_period_s=info.turn_period_s, residual_rms=rms_med,
+                  white_noise_per_sample=rms_med, settings=demod.to_dict(), glitch_rule=(
+                      f"residual RMS > median + {demod.glitch_threshold} x 1.4826 x MAD"))
+    return FitResult(
+        theory=setup.theory.name, units=setup.units,
+        coefficients={n: {"value": float(v), "sigma": float(s)}
+                      for n, v, s in zip(res.names, res.value, sig)},
+        fixed=dict(settings.fixed),
+        covariance={"names": list(res.names), "matrix": res.cov.tolist()},
+        harmonics=harm, warnings=list(res.warnings), efficiency=res.efficiency,
+        statistics={"chi2_reduced": res.chi2_reduced, "dof": res.dof,
+                    "uncertainty": settings.uncertainty, "n_turns_used": int(np.sum(sel))},
+        stage1=stage1, site=meta["site"], apparatus=meta["apparatus"],
+        epoch_utc=meta["epoch_utc"], span_s=span_s,
+        settings={"fit": settings.to_dict(), "engine": engine, "dut1_s": dut1_s},
+        input={"path": str(path), "sha256": input_sha256,
+               "n_samples": meta["n_samples"]},
+        software=software_versions(),
+        created_utc=datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+        nuisance=res.nuisance, notes=list(res.notes), upper_limits=res.upper_limits)

@@ -1,0 +1,383 @@
+"""Stages 2 and 3: from per-turn 2 theta amplitudes to harmonics and coefficients.
+
+* Stage 2 (harmonics, in :func:`fringe.fit.passes.run_passes`): weighted least squares of the
+  per-turn (C_i, B_i) against the C10 model in the sidereal angle phi_i; gives C0 ... Bc2 with
+  covariance. B0 is zero for every photon-sector signal (up to the tiny Earth-rotation ko_XY
+  term), so a B0 beyond 3 sigma raises a warning naming a lab-fixed 2 theta systematic.
+* Stage 3 (:func:`fit_coefficients`): weighted least squares of the same amplitudes against the
+  per-turn 2 theta content of each free coefficient's basis signal, evaluated with the ephemeris
+  velocity and modelled as stage 1 measures it over the turn (:func:`turn_model`: the model's
+  change within the turn times the block fit's response to it), plus nuisances: a constant
+  B offset (lab-fixed 2 theta systematic, on by default), optionally a constant C offset (only
+  when ke_ZZ is not free: the two are degenerate) and regressions on the 2 theta amplitudes of
+  auxiliary channels. The classical medium (nonlinear) is fitted with lmfit.
+
+Uncertainties: per-turn weights from the stage-1 formal covariance; the coefficient covariance
+is scaled by the reduced chi^2 (default, the observed scatter), or replaced by a block bootstrap
+over days of turns (correlated noise), or left formal. ``efficiency`` = white-noise Cramer-Rao
+sigma for this record (per-sample noise = median per-turn residual RMS) / reported sigma.
+
+The linear fits visit the turn table a segment at a time (:mod:`fringe.fit.passes`), so a
+table kept in scratch files (:mod:`fringe.demodulate.turn_store`) is never whole in memory; the medium
+and rms_kt fits load it whole.
+"""
+
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.typing import NDArray
+
+from fringe.constants import C_M_S
+from fringe.demodulate.blocks import TurnTable
+from fringe.demodulate.turn_store import Scratch, TurnStore
+from fringe.errors import ConfigError, DegeneracyWarning, FitError, SystematicsWarning
+from fringe.experiment.basis import Setup
+from fringe.fit.passes import (
+    RowCache,
+    design_labels,
+    noise_level,
+    run_passes,
+)
+from fringe.fit.solver import bootstrap_cov, whitening
+from fringe.fit.turn_model import turn_model
+from fringe.theories.sme import KE_NAMES, KO_NAMES
+
+logger = logging.getLogger(__name__)
+
+UNCERTAINTY_MODES = ("reduced-chi2", "bootstrap", "formal")
+
+#: Span from which ko_* join the default SME free set, days (half a sidereal year: the annual
+#: modulation that separates ko_* from ke_* is then sampled over half a cycle). Common practice
+#: reading of practice.md §6 (a year or more separates them fully).
+KO_DEFAULT_SPAN_DAYS = 182.6
+
+
+
+@dataclass(frozen=True)
+class FitSettings:
+    """Settings of stages 2-3 (see module docstring).
+
+    Parameters
+    ----------
+    theory : str
+    free : tuple of str or None
+        Free coefficients (None: the theory's default set).
+    fixed : dict
+        Coefficients held at given values.
+    uncertainty : {"reduced-chi2", "bootstrap", "formal"}
+    lab_b0 : bool
+        Fit a constant B offset (lab-fixed 2 theta systematic).
+    lab_c0 : bool
+        Fit a constant C offset (not allowed with ke_ZZ free).
+    regress : tuple of str
+        Auxiliary channels whose 2 theta amplitudes are regressed out.
+    bootstrap_days : float
+        Length of the resampled blocks of turns, days.
+    n_bootstrap : int
+    seed : int
+    """
+
+    theory: str = "sme"
+    free: tuple | None = None
+    fixed: dict = field(default_factory=dict)
+    uncertainty: str = "reduced-chi2"
+    lab_b0: bool = True
+    lab_c0: bool = False
+    regress: tuple = ()
+    bootstrap_days: float = 1.0
+    n_bootstrap: int = 200
+    seed: int = 12345
+
+    def __post_init__(self):
+        if self.uncertainty not in UNCERTAINTY_MODES:
+            raise ConfigError(f"--uncertainty: expected one of {', '.join(UNCERTAINTY_MODES)}, "
+                              f"got {self.uncertainty!r}")
+
+    def to_dict(self) -> dict:
+        return {"theory": self.theory, "free": list(self.free) if self.free else None,
+                "fixed": dict(self.fixed), "uncertainty": self.uncertainty,
+                "lab_b0": self.lab_b0, "lab_c0": self.lab_c0, "regress": list(self.regress),
+                "bootstrap_days": self.bootstrap_days, "n_bootstrap": self.n_bootstrap,
+                "seed": self.seed}
+
+
+def default_free(setup: Setup, span_days: float) -> tuple[str, ...]:
+    """The default free coefficients of a theory for a record of ``span_days``."""
+    name = setup.theory.name
+    if name == "sme":
+        return KE_NAMES + (KO_NAMES if span_days >= KO_DEFAULT_SPAN_DAYS else ())
+    if name == "rms":
+        atomic = (setup.apparatus.kind == "cavity-vs-reference"
+                  and getattr(setup.apparatus, "reference", None) == "atomic")
+        return ("rms_mm", "rms_kt") if atomic else ("rms_mm",)
+    return setup.theory.parameter_names
+
+
+def turn_covariance(table: TurnTable, sel: NDArray) -> NDArray:
+    """Per-turn covariance of (C, B) used as weights, (n, 2, 2), for the rows ``sel``:
+    s_i^2 x ninv_i with s_i from :func:`fringe.fit.passes.noise_level`. The overall level is
+    then set by the reduced chi^2 (or the bootstrap)."""
+    level = noise_level(table.residual_rms[sel])
+    return level[:, None, None] ** 2 * table.ninv_2[sel]
+
+
+@dataclass
+class CoefficientFit:
+    """Stage-3 outcome before packaging (see :class:`fringe.io.fit_result.FitResult`)."""
+
+    names: list
+    value: NDArray
+    cov: NDArray
+    nuisance: dict
+    chi2_reduced: float
+    dof: int
+    efficiency: dict
+    model_c: NDArray
+    model_b: NDArray
+    warnings: list
+    notes: list
+    upper_limits: dict = field(default_factory=dict)
+
+
+@dataclass
+class TurnModels:
+    """The fitted model (C, B) of the accepted turns, per segment of the turn table
+    (:meth:`fringe.demodulate.turn_store.TurnStore.bounds`): from a row cache (linear fits) or whole
+    arrays (medium)."""
+
+    cache: RowCache | None = None
+    model_c: NDArray | None = None
+    model_b: NDArray | None = None
+
+    def segment(self, i: int, first: int, n: int) -> tuple[NDArray, NDArray]:
+        """Model C and B of the n accepted turns of segment i (``first``: accepted turns
+        before it)."""
+        if self.cache is not None:
+            got = self.cache.get(i, ("model_c", "model_b"))
+            if "model_c" not in got:
+                return np.full(n, np.nan), np.full(n, np.nan)
+            return got["model_c"], got["model_b"]
+        return self.model_c[first:first + n], self.model_b[first:first + n]
+
+
+def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSettings,
+                     free: tuple[str, ...], scratch: Scratch | None = None
+                     ) -> tuple[dict, CoefficientFit, RowCache]:
+    """Stages 2 and 3 for a linear theory (see module docstring) over the turn table (in
+    memory, or a :class:`~fringe.demodulate.turn_store.TurnStore` read a segment at a time); returns the
+    harmonics, the coefficients and the row cache that holds each segment's fitted model
+    (``model_c``, ``model_b``)."""
+    store = table if isinstance(table, TurnStore) else TurnStore.in_memory(table)
+    labels = design_labels(free, settings)
+    p = run_passes(setup, store, settings, free, scratch)
+    n, kk, x, cov = p.n, len(labels), p.x, p.cov_formal
+    dof = max(2 * n - kk, 1)
+    red = p.chi2 / dof
+    notes, warns = [], []
+    if settings.uncertainty == "reduced-chi2":
+        cov = cov * red
+    elif settings.uncertainty == "bootstrap":
+        if len(p.group_parts) < 5:
+            raise FitError(f"--uncertainty bootstrap: only {len(p.group_parts)} blocks of "
+                           f"{settings.bootstrap_days} d; need at least 5 (shorter "
+                           "--bootstrap-days)")
+        cov = bootstrap_cov(p.group_parts, settings.n_bootstrap,
+                            np.random.default_rng(settings.seed), np.sqrt(p.r_c),
+                            np.sqrt(p.r_b))
+    k = len(free)
+    sig = np.sqrt(np.diag(cov))
+    # Cramer-Rao with the white per-sample level the data show
+    eff = {nm: float(np.sqrt(p.cov_cr[i, i]) / sig[i]) for i, nm in enumerate(free)}
+    warns += _degeneracy(labels, cov)
+    if abs(p.r_c / p.r_b - 1.0) > 0.2:
+        notes.append(f"C and B rows scaled separately by their reduced chi2 "
+                     f"({p.r_c:.3g}, {p.r_b:.3g}): coloured noise")
+    nuis = {lab: {"value": float(x[i]), "sigma": float(sig[i])}
+            for i, lab in enumerate(labels) if i >= k}
+    res = CoefficientFit(names=list(free), value=x[:k], cov=cov[:k, :k], nuisance=nuis,
+                         chi2_reduced=red, dof=dof, efficiency=eff, model_c=None,
+                         model_b=None, warnings=warns, notes=notes)
+    return p.harmonics, res, p.cache
+
+
+def _degeneracy(labels, cov, limit: float = 0.95) -> list[str]:
+    sig = np.sqrt(np.diag(cov))
+    corr = cov / np.outer(sig, sig)
+    out = []
+    pairs = [(labels[i], labels[j], corr[i, j]) for i in range(len(labels))
+             for j in range(i + 1, len(labels)) if abs(corr[i, j]) > limit]
+    if pairs:
+        text = ", ".join(f"{a}/{b} (r = {r:+.3f})" for a, b, r in pairs[:6])
+        out.append(f"near-degenerate coefficients: {text}; the record does not separate them "
+                   "(a longer span, or fix some of them)")
+        import warnings
+
+        warnings.warn(out[-1], DegeneracyWarning, stacklevel=3)
+    return out
+
+
+def fit_medium(setup: Setup, table: TurnTable, settings: FitSettings) -> CoefficientFit:
+    """Nonlinear fit of the Sun's velocity through a classical medium (lmfit), 95 % speed limit."""
+    import lmfit
+
+    from fringe.theories.medium import MEDIUM_NAMES
+
+    sel = table.accepted
+    t = table.t_mid_s[sel]
+    c, b = table.C[sel], table.B[sel]
+    w = whitening(turn_covariance(table, sel))
+    off = settings.lab_b0
+
+    def model(p):
+        vals = {n: p[n].value for n in MEDIUM_NAMES}
+        _, mc, mb = turn_model(setup, t, params=vals, table=table, sel=sel, mean=False)
+        if off:
+            mb = mb + p["lab_B0"].value
+        return mc, mb
+
+    def resid(p):
+        mc, mb = model(p)
+        r = np.stack([c - mc, b - mb], axis=1)
+        return np.einsum("nij,nj->ni", w, r).ravel()
+
+    if settings.uncertainty == "bootstrap":
+        raise ConfigError("--uncertainty bootstrap: not available for the nonlinear medium fit "
+                          "(use reduced-chi2 or formal)")
+
+    def start(v):
+        params = lmfit.Parameters()
+        for n, v0 in zip(MEDIUM_NAMES, v):
+            params.add(n, value=settings.fixed.get(n, float(v0)), vary=n not in settings.fixed)
+        if off:
+            params.add("lab_B0", value=0.0)
+        return lmfit.minimize(resid, params, method="leastsq")
+
+    # The signal is quadratic in the lab velocity u = v_sun + v_earth, so it barely changes under
+    # u -> -u, i.e. v_sun -> -v_sun - 2 v_earth: over spans short against a year this mirror is
+    # a second minimum. Start from both and keep the lower chi^2.
+    out = start(np.ones(3))
+    v_earth = np.mean(setup.frames(t[:: max(t.size // 64, 1)]).beta, axis=0) \
+        * C_M_S / 1e3                                                  # km/s, SCCEF
+    found = np.array([out.params[n].value for n in MEDIUM_NAMES])
+    mirror = start(-found - 2.0 * v_earth)
+    if mirror.covar is not None and (out.covar is None or mirror.chisqr < out.chisqr):
+        out = mirror
+    names = [n for n in MEDIUM_NAMES if n not in settings.fixed]
+    if out.covar is None:
+        raise FitError("medium fit: no covariance (the fit did not converge or the data do "
+                       "not constrain the velocity)")
+    cov = np.array(out.covar)
+    red = float(out.redchi)
+    order = list(out.var_names)
+    idx = [order.index(n) for n in names]
+    cov_v = cov[np.ix_(idx, idx)]
+    if settings.uncertainty == "formal":
+        cov_v = cov_v / red
+    x = np.array([out.params[n].value for n in names])
+    rng = np.random.default_rng(settings.seed)
+    full = np.array([out.params[n].value for n in MEDIUM_NAMES])
+    draws = np.tile(full, (20000, 1))
+    draws[:, [MEDIUM_NAMES.index(n) for n in names]] = rng.multivariate_normal(x, cov_v, 20000)
+    speed95 = float(np.percentile(np.linalg.norm(draws, axis=1), 95))
+    mc, mb = model(out.params)
+    nuis = {}
+    if off:
+        i = order.index("lab_B0")
+        scale = 1.0 / red if settings.uncertainty == "formal" else 1.0
+        nuis["lab_B0"] = {"value": float(out.params["lab_B0"].value),
+                          "sigma": float(np.sqrt(cov[i, i] * scale))}
+    return CoefficientFit(names=names, value=x, cov=cov_v, nuisance=nuis, chi2_reduced=red,
+                          dof=int(out.nfree), efficiency={}, model_c=mc, model_b=mb,
+                          warnings=[], notes=["medium: nonlinear fit with lmfit (leastsq) from "
+                                              "two starts (a solution and its mirror -v - 2 "
+                                              "v_earth); the 95 % speed limit samples the fit "
+                                              "covariance"],
+                          upper_limits={"speed_kms_95": speed95})
+
+
+def _add_rms_kt(setup: Setup, table: TurnTable, settings: FitSettings,
+                res: CoefficientFit) -> None:
+    """Append rms_kt from the per-turn offsets (:mod:`fringe.fit.offsets`) to ``res``."""
+    from fringe.fit.offsets import OFFSET_DRIFT_DEGREE, fit_rms_kt
+
+    mm = float(res.value[res.names.index("rms_mm")])
+    kt, sig, red, _ = fit_rms_kt(setup, table, table.accepted, mm, settings.uncertainty,
+                                 settings.bootstrap_days, settings.n_bootstrap, settings.seed)
+    k = len(res.names)
+    cov = np.zeros((k + 1, k + 1))
+    cov[:k, :k] = res.cov
+    cov[k, k] = sig ** 2
+    res.names = res.names + ["rms_kt"]
+    res.value = np.append(res.value, kt)
+    res.cov = cov
+    res.notes.append(f"rms_kt from the per-turn offsets with a degree-{OFFSET_DRIFT_DEGREE} "
+                     f"polynomial drift (reduced chi2 {red:.3g}); its covariance with the "
+                     "2 theta coefficients is neglected (set to 0); with coloured cavity drift "
+                     "prefer --uncertainty bootstrap")
+
+
+def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettings,
+                 span_days: float, scratch: Scratch | None = None
+                 ) -> tuple[dict, CoefficientFit, tuple, TurnModels]:
+    """Run stage 2 (harmonics) and stage 3 (coefficients); also the systematics diagnostics.
+
+    ``table``: the stage-1 table, or its :class:`~fringe.demodulate.turn_store.TurnStore` (the linear
+    fits read it a segment at a time; the medium and rms_kt fits load it whole). Returns the
+    harmonics, the coefficients, the free names and the fitted model per turn
+    (:class:`TurnModels`).
+    """
+    store = table if isinstance(table, TurnStore) else TurnStore.in_memory(table)
+    n_acc = int(np.sum(store.accepted))
+    if n_acc < 12:
+        raise FitError(f"fit: only {n_acc} accepted turns; need at least 12")
+    theory = setup.theory
+    if settings.free is not None:
+        free = tuple(settings.free)
+        theory.check_params({n: 0.0 for n in free}, source="--free")
+    else:
+        free = tuple(n for n in default_free(setup, span_days) if n not in settings.fixed)
+    theory.check_params(settings.fixed, source="--fix")
+    if not free:
+        raise ConfigError("--free: no free coefficient left")
+    rotating = tuple(n for n in free if n != "rms_kt")
+    if "rms_kt" in free and not rotating:
+        raise ConfigError("--free rms_kt: free rms_mm as well (the offsets' model uses the "
+                          "2 theta estimate of rms_mm)")
+    if theory.linear:
+        harm, res, cache = fit_coefficients(setup, store, settings, rotating, scratch)
+        models = TurnModels(cache=cache)
+    else:
+        harm = run_passes(setup, store, settings, None).harmonics
+        res = fit_medium(setup, store.load(), settings)
+        models = TurnModels(model_c=res.model_c, model_b=res.model_b)
+    if "rms_kt" in free:
+        _add_rms_kt(setup, store.load(), settings, res)
+    import warnings
+
+    if "lab_B0" in res.nuisance:      # B offset beyond the fitted coefficient model (stage 3)
+        b0, sb0 = res.nuisance["lab_B0"]["value"], res.nuisance["lab_B0"]["sigma"]
+        what = "B0 beyond the coefficient model (lab_B0)"
+    else:                             # stage-2 harmonic
+        b0, sb0 = harm["value"][5], harm["sigma"][5]
+        what = "B0"
+    if theory.sector == "photon" and sb0 > 0 and abs(b0) > 3 * sb0:
+        msg = (f"{what} = {b0:.3g} ± {sb0:.2g} {setup.units} is inconsistent with zero "
+               f"({abs(b0) / sb0:.1f} sigma): photon-sector signals give B0 = 0, so this points "
+               "to a lab-fixed 2 theta systematic (tilt, gravity or centrifugal deformation, "
+               "magnetics)")
+        res.warnings.append(msg)
+        warnings.warn(msg, SystematicsWarning, stacklevel=2)
+    c0, sc0 = harm["value"][0], harm["sigma"][0]
+    if "ke_ZZ" in res.names:
+        res.notes.append("ke_ZZ is determined by C0 alone, the unmodulated 2 theta term, which "
+                         "is exposed to the same lab-fixed systematics as B0")
+        if sc0 > 0 and abs(c0) > 3 * sc0:
+            msg = (f"C0 = {c0:.3g} ± {sc0:.2g} {setup.units} is inconsistent with zero "
+                   f"({abs(c0) / sc0:.1f} sigma); ke_ZZ (C0 only) may carry a lab-fixed "
+                   "systematic")
+            res.warnings.append(msg)
+            warnings.warn(msg, SystematicsWarning, stacklevel=2)
+    return harm, res, free, models

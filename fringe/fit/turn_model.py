@@ -1,0 +1,240 @@
+"""The per-turn model: what stage 1 measures for each turn, per unit coefficient.
+
+:func:`turn_model` gives, for turns at given mean times, the non-rotating mean A and the 2 theta
+amplitudes C, B of the model (per unit coefficient, or for given coefficient values). With the
+stage-1 turn table it includes the model's change within each turn times the block fit's
+response to it, so that it equals what :func:`fringe.demodulate.demodulate_blocks` measures from
+a noise-free record (to ~1e-9 relative). Stage 3 (:mod:`fringe.fit`), the plan and the tests use
+it.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+from fringe.demodulate.blocks import TurnTable
+from fringe.experiment.basis import Setup, signal
+
+#: Table angles per instant at which the model is evaluated and projected on 2 theta.
+N_ANGLES = 8
+
+#: Instants per batch in :func:`_frozen_model` (bounds memory on year-long records).
+MODEL_BATCH = 4096
+
+
+def _frozen_model(setup: Setup, t: NDArray, names, params) -> tuple[NDArray, NDArray, NDArray]:
+    """A, C, B of the model with frames frozen at each instant (each (n, k)), in batches."""
+    state = setup.frames(t)            # once: the ephemeris spline is built once per call
+    if t.size > MODEL_BATCH:
+        parts = [_frozen_model_batch(setup, t[i:i + MODEL_BATCH], names, params,
+                                     _slice_state(state, slice(i, i + MODEL_BATCH)))
+                 for i in range(0, t.size, MODEL_BATCH)]
+        return tuple(np.concatenate([p[j] for p in parts]) for j in range(3))
+    return _frozen_model_batch(setup, t, names, params, state)
+
+
+def _slice_state(state, sl):
+    from fringe.frames import FrameState
+
+    return FrameState(state.phi_rad[sl], state.colatitude_rad, state.beta[sl],
+                      None if state.orbital_phase_rad is None else state.orbital_phase_rad[sl])
+
+
+def _frozen_model_batch(setup, t, names, params, state):
+    from fringe.frames import FrameState
+
+    theta = 2.0 * np.pi * np.arange(N_ANGLES) / N_ANGLES
+    if params is None:
+        return _projected_basis(setup, state, theta, names)
+    rep = np.repeat(np.arange(t.size), N_ANGLES)
+    st = FrameState(state.phi_rad[rep], state.colatitude_rad, state.beta[rep])
+    az = np.tile(np.pi - theta, t.size)
+    g = signal(setup, params, t[rep], az, state=st).reshape(t.size, N_ANGLES, 1)
+    c = (2.0 / N_ANGLES) * np.einsum("nak,a->nk", g, np.cos(2 * theta))
+    b = (2.0 / N_ANGLES) * np.einsum("nak,a->nk", g, np.sin(2 * theta))
+    return g.mean(axis=1), c, b
+
+
+def _projected_basis(setup, state, theta, names):
+    """A, C, B per unit coefficient by projecting the apparatus tensor, not the signals.
+
+    The basis is linear in the apparatus's combined lab tensor W(theta) (fringe.experiment.basis), so the
+    cos 2 theta / sin 2 theta projections of the basis are the basis of the projected tensors
+    W_C = (2/N) sum_a cos 2 theta_a W(theta_a), W_B likewise, and A of the mean tensor: three
+    contractions per instant instead of N_ANGLES, with the frames evaluated once per instant.
+    """
+    from fringe.experiment.basis import _combined_tensor
+
+    n = len(state)
+    az = np.pi - theta
+    # the table-angle tensors do not depend on time: evaluate once, broadcast to the instants
+    w, w_iso = _combined_tensor(setup.apparatus, setup.units, az, setup.tilt)   # (N, 3, 3)
+    cos2, sin2 = np.cos(2 * theta), np.sin(2 * theta)
+    w_a = w.mean(axis=0)
+    w_c = (2.0 / theta.size) * np.einsum("akl,a->kl", w, cos2)
+    w_b = (2.0 / theta.size) * np.einsum("akl,a->kl", w, sin2)
+    project = setup.theory.project
+    return tuple(project(state, np.broadcast_to(x, (n, 3, 3)), iso, names)
+                 for x, iso in ((w_a, w_iso), (w_c, 0.0), (w_b, 0.0)))
+
+
+#: Step of the time grid on which turn_model interpolates the model within a turn, s.
+WITHIN_TURN_GRID_S = 300.0
+
+#: Grid offsets (in steps) of the interpolation stencil around a turn's grid interval.
+STENCIL = np.arange(-2, 4)
+
+#: Turns per batch when evaluating the per-turn model (bounds the transient memory).
+TURN_BATCH = 16384
+
+#: Threads evaluating batches of turns (each writes its own rows of the result).
+MODEL_THREADS = min(2, os.cpu_count() or 1)
+
+
+@dataclass(frozen=True)
+class _ModelGrid:
+    """The frozen model's A, C, B (each (m, k)) on a regular time grid start + step x i."""
+
+    start_s: float
+    step_s: float
+    values: tuple
+    stacked: NDArray            # the three stacked, (3 m, k)
+
+
+def _model_grid(setup: Setup, t: NDArray, half: NDArray, names, params) -> _ModelGrid:
+    """The frozen model on a regular grid covering the turns with a margin of four steps.
+
+    The model changes on sidereal time scales (its fastest common term has a 12 h period), and
+    the quintic through six grid values errs by at most (omega h)^6 x 3.52 / 6! = 3.5e-11
+    relative for h = WITHIN_TURN_GRID_S = 300 s and omega = 2 pi / 12 h (interpolation error
+    bound of the Lagrange polynomial at the middle interval); the within-turn terms (~1e-3 of
+    the signal) come from its derivatives, whose errors are of the same order relative to them.
+    A year costs 1.05e5 grid instants for any turn period.
+    """
+    step = WITHIN_TURN_GRID_S
+    lo = float(np.min(t) - np.max(half)) - 4 * step
+    hi = float(np.max(t) + np.max(half)) + 4 * step
+    grid = lo + step * np.arange(max(int(np.ceil((hi - lo) / step)) + 1, STENCIL.size + 2))
+    values = _frozen_model(setup, grid, names, params)
+    return _ModelGrid(lo, step, values, np.concatenate(values, axis=0))
+
+
+def _lagrange_derivative_weights(s: NDArray, step_s: float, max_order: int) -> list[NDArray]:
+    """Weights (n, 6) of the stencil values for the j-th time derivative (j = 0..max_order) of
+    the quintic through the six stencil points, at fractional positions s (in steps)."""
+    nodes = STENCIL.astype(float)
+    mono = np.linalg.inv(np.vander(nodes, increasing=True))   # row e: s^e coefficients
+    powers = np.empty((s.size, nodes.size))
+    powers[:, 0] = 1.0
+    for e in range(1, nodes.size):
+        powers[:, e] = powers[:, e - 1] * s
+    out = []
+    for j in range(max_order + 1):
+        e = np.arange(j, nodes.size)
+        factor = np.array([math.factorial(x) / math.factorial(x - j) for x in e])
+        out.append(powers[:, :nodes.size - j] @ (factor[:, None] * mono[e]) / step_s ** j)
+    return out
+
+
+def _measured_model(grid: _ModelGrid, t, half, leak, settings, with_a: bool = True):
+    """What stage 1 measures for turns (t, half span, leak responses): A (or None), C, B, each
+    (n, k).
+
+    The frozen model's value and derivatives at each turn come from the quintic through six grid
+    values around it (:data:`STENCIL`). What stage 1 measures for C (and B alike) is
+    C(t) + sum_q leak_q h^j / j! X_q^(j)(t) over the leak columns q (X_q the A, C or B model, j
+    its power of tau, h the half span), so it is a weighted sum of the 3 x 6 stencil values.
+    """
+    from scipy.sparse import csr_matrix
+
+    from fringe.demodulate.blocks import LEAK_ORDER, leak_terms
+
+    m = grid.values[0].shape[0]
+    pos = (t - grid.start_s) / grid.step_s
+    i = np.clip(np.floor(pos).astype(np.intp), -STENCIL[0], m - 1 - STENCIL[-1])
+    lw = np.stack(_lagrange_derivative_weights(pos - i, grid.step_s, LEAK_ORDER), axis=1)
+    n, ns = t.size, STENCIL.size
+    # coefficients of the j-th derivative of each source (A, C, B) in the measured C and B
+    k_rj = np.zeros((n, 2, 3, LEAK_ORDER + 1))
+    k_rj[:, 0, 1, 0] = 1.0
+    k_rj[:, 1, 2, 0] = 1.0
+    src = {"A": 0, "C": 1, "B": 2}
+    for q, (kind, j) in enumerate(leak_terms(settings)):
+        k_rj[:, :, src[kind], j] += leak[:, :, q] * (half ** j / math.factorial(j))[:, None]
+    w = np.matmul(k_rj.reshape(n, 6, LEAK_ORDER + 1), lw)          # (n, 2 x 3, stencil)
+    # what stage 1 measures = a sparse (2 n x stacked grid values) product, 18 per row
+    cols = (np.arange(3)[None, :, None] * m + i[:, None, None] + STENCIL[None, None, :])
+    cols = np.repeat(cols.reshape(n, 1, -1), 2, axis=1).ravel()
+    measure = csr_matrix((w.ravel(), cols, np.arange(0, 2 * n * 3 * ns + 1, 3 * ns)),
+                         shape=(2 * n, 3 * m))
+    cb = (measure @ grid.stacked).reshape(n, 2, -1)
+    c, b = cb[:, 0], cb[:, 1]
+    a = None
+    if with_a:
+        a = csr_matrix((lw[:, 0].ravel(), (i[:, None] + STENCIL[None, :]).ravel(),
+                        np.arange(0, n * ns + 1, ns)), shape=(n, m)) @ grid.values[0]
+    return a, c, b
+
+
+def turn_model(setup: Setup, t_s: NDArray, names: tuple[str, ...] | None = None,
+               params: dict | None = None, *, table: TurnTable | None = None,
+               sel: NDArray | None = None, mean: bool = True, out: tuple | None = None
+               ) -> tuple[NDArray | None, NDArray, NDArray]:
+    """Non-rotating mean A, and 2 theta amplitudes C, B of the model for turns at t_s.
+
+    For linear theories (``params`` None) each is (n, k) per unit coefficient; with ``params``
+    each is (n,) for the total signal (any theory). At an instant the model's 2 theta content
+    comes from N_ANGLES table angles with the frames frozen at that instant.
+
+    Without ``table`` this is that content at t_s itself. With the stage-1 ``table`` (and
+    ``sel``, the boolean selection of its rows whose mean times t_s are), it is what stage 1
+    measures for the turn: the change of A, C and B within the turn, expanded in the turn's
+    normalised time tau to tau^LEAK_ORDER (t = t_mid + tau x half span; from the model on a
+    regular grid, :func:`_model_grid`, :func:`_measured_model`), times the block fit's
+    response to each tau^j term (``table.leak``), is added. Freezing the model at t_mid instead
+    errs by about (P_turn / P_sidereal) x the signal (the within-turn change of C leaks into B
+    and back). Turns are processed in batches of TURN_BATCH. With ``mean=False`` (and a
+    table) A is not computed and None is returned in its place. ``out`` = (C_out, B_out),
+    arrays (n, >= k), receives C and B in its first k columns (linear theories with a table;
+    the returned C and B are views of it).
+    """
+    t = np.atleast_1d(np.asarray(t_s, float))
+    if table is not None and table.leak is not None and t.size:
+        rows = np.arange(table.n_blocks) if sel is None else np.flatnonzero(sel)
+        half = np.maximum(0.5 * (table.t_stop_s[rows] - table.t_start_s[rows]), 1e-9)
+        grid = _model_grid(setup, t, half, names, params)
+        k = grid.values[0].shape[1]
+        a = np.empty((t.size, k)) if mean else None
+        if out is not None:
+            c, b = out[0][:, :k], out[1][:, :k]
+        else:
+            c, b = np.empty((t.size, k)), np.empty((t.size, k))
+
+        def batch(i):
+            sl = slice(i, i + TURN_BATCH)
+            pa, c[sl], b[sl] = _measured_model(grid, t[sl], half[sl], table.leak[rows[sl]],
+                                               table.settings, with_a=mean)
+            if mean:
+                a[sl] = pa
+
+        starts = range(0, t.size, TURN_BATCH)
+        if len(starts) > 1:        # numpy and scipy.sparse release the GIL in the heavy parts
+            with ThreadPoolExecutor(max_workers=MODEL_THREADS) as pool:
+                list(pool.map(batch, starts))
+        else:
+            batch(0)
+    else:
+        a, c, b = _frozen_model(setup, t, names, params)
+        if out is not None:
+            k = c.shape[1]
+            out[0][:, :k], out[1][:, :k] = c, b
+            c, b = out[0][:, :k], out[1][:, :k]
+    if params is not None:
+        return (None if a is None else a[:, 0]), c[:, 0], b[:, 0]
+    return a, c, b

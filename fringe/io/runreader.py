@@ -1,0 +1,426 @@
+"""Run files (HDF5, format version 1): the validating reader.
+
+Use :func:`open_run` to read a run file: it checks the whole layout, the metadata and (in a
+streamed, chunk-by-chunk pass) the values of ``samples/time``, ``samples/azimuth`` and
+``samples/signal``, then hands out validated metadata and chunked arrays
+(:meth:`RunFile.iter_chunks`, azimuth always in radians). :func:`sha256` fingerprints any file.
+The format itself is specified in ``docs/run-format.md``.
+
+The format rules (constants, :data:`APPARATUS_KINDS`, metadata and value checks) live in
+:mod:`fringe.io.runformat`; the atomic writer :class:`RunWriter` lives in
+:mod:`fringe.io.runwriter`. Both are re-exported here, so ``from fringe.io.runreader import X``
+works for every name that was defined here before the split.
+
+Every violation of the format raises :class:`~fringe.errors.InputFileError` with one line
+``PATH: OBJECT: EXPECTED``, where OBJECT is a dataset path (``samples/time``), a group attribute
+(``site.latitude_deg``) or a dataset attribute (``samples/time.units``).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import logging
+import os
+from collections.abc import Iterator, Sequence
+
+import h5py
+import numpy as np
+from numpy.typing import NDArray
+
+from fringe.errors import ConfigError, InputFileError
+from fringe.io.runformat import (
+    APPARATUS_KINDS,
+    AZIMUTH_UNITS,
+    CORE_CHANNELS,
+    DEFAULT_CHUNK_SAMPLES,
+    FORMAT_NAME,
+    FORMAT_VERSION,
+    RESERVED_GROUPS,
+    TIME_UNITS,
+    Invalid,
+    _check_chunk_size,
+    check_apparatus,
+    check_azimuth_values,
+    check_epoch_utc,
+    check_signal_values,
+    check_site,
+    check_time_values,
+    plain,
+    show,
+    to_string,
+)
+from fringe.site import Site
+
+__all__ = ["RunFile", "open_run", "sha256"]
+
+logger = logging.getLogger(__name__)
+
+
+_CORRUPT = "expected a readable HDF5 file, got a corrupt one (HDF5 could not read its contents)"
+
+
+def sha256(path: str | os.PathLike, *, block_bytes: int = 1 << 20) -> str:
+    """SHA-256 of a file's bytes, read in blocks of ``block_bytes`` (hexadecimal string)."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(block_bytes), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def open_run(path: str | os.PathLike, *, check_values: bool = True,
+             chunk_samples: int = DEFAULT_CHUNK_SAMPLES) -> RunFile:
+    """Open and validate a run file (read-only); use as a context manager.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The run file.
+    check_values : bool
+        Check the values of time, azimuth and signal in a streamed pass at open time (bounded
+        memory: ``chunk_samples`` samples per channel). If False, the same checks run lazily on
+        every chunk that :meth:`RunFile.iter_chunks` or :meth:`RunFile.read_all` returns.
+    chunk_samples : int
+        Samples per read in the open-time pass.
+
+    Returns
+    -------
+    RunFile
+
+    Raises
+    ------
+    InputFileError
+        One line naming the file, the object and what was expected.
+
+    Examples
+    --------
+    >>> with open_run("run.h5") as run:                       # doctest: +SKIP
+    ...     for chunk in run.iter_chunks():
+    ...         t_s, azimuth_rad = chunk["time"], chunk["azimuth"]
+    """
+    return RunFile(path, check_values=check_values, chunk_samples=chunk_samples)
+
+
+def _open_hdf5(path: str) -> h5py.File:
+    if not os.path.exists(path):
+        raise InputFileError(path, "file", "expected an existing file")
+    if os.path.isdir(path):
+        raise InputFileError(path, "file", "expected a file, got a directory")
+    try:
+        is_hdf5 = h5py.is_hdf5(path)
+    except OSError as exc:
+        raise InputFileError(path, "file", "expected a readable file") from exc
+    if not is_hdf5:
+        raise InputFileError(path, "file", "expected an HDF5 file (no HDF5 signature found)")
+    try:
+        return h5py.File(path, "r")
+    except OSError as exc:
+        logger.debug("h5py could not open %s: %s", path, exc)
+        if "truncated" in str(exc):
+            raise InputFileError(path, "file", "expected a complete HDF5 file, got a truncated "
+                                 "one (shorter than its header records)") from exc
+        raise InputFileError(path, "file", _CORRUPT) from exc
+
+
+class RunFile:
+    """A validated, open run file (read-only). Create it with :func:`open_run`.
+
+    Attributes
+    ----------
+    path : str
+        The file as given.
+    site : Site
+        Laboratory site (geodetic latitude and east longitude, degrees; height, m).
+    apparatus : dict
+        Validated ``apparatus`` attributes as plain Python types, with defaults filled in
+        (``path_separation_deg`` = 90 for cavity-pair and michelson, ``passes`` = 1 for michelson).
+    epoch_utc : str
+        ISO 8601 UTC epoch of ``samples/time`` (as stored).
+    n_samples : int
+        Number of samples.
+    time_first_s, time_last_s : float
+        First and last time, seconds since ``epoch_utc``.
+    signal_units : str
+        ``"Hz"``, ``"1"`` or ``"fringe"``.
+    azimuth_units : str
+        Stored azimuth units, ``"rad"`` or ``"deg"`` (chunks are always in radians).
+    aux_channels : dict[str, str]
+        Auxiliary channel name -> units.
+    extra_groups : tuple[str, ...]
+        Names of root groups other than site, apparatus and samples.
+    """
+
+    def __init__(self, path: str | os.PathLike, *, check_values: bool = True,
+                 chunk_samples: int = DEFAULT_CHUNK_SAMPLES):
+        self.path = os.fspath(path)
+        self._file = _open_hdf5(self.path)
+        self._values_checked = False
+        try:
+            with self._guard():
+                self._validate_layout()
+                if check_values:
+                    for _ in self._chunks(_check_chunk_size(chunk_samples), CORE_CHANNELS,
+                                          0, self.n_samples, check=True, copy=False):
+                        pass
+                    self._values_checked = True
+        except BaseException:
+            self._file.close()
+            raise
+
+    # -- context manager -------------------------------------------------------------------
+    def __enter__(self) -> RunFile:
+        return self
+
+    def __exit__(self, exc_type, exc, tb) -> None:
+        self.close()
+
+    def close(self) -> None:
+        """Close the underlying HDF5 file."""
+        self._file.close()
+
+    def __repr__(self) -> str:
+        return (f"RunFile({self.path!r}, kind={self.apparatus['kind']!r}, "
+                f"n_samples={self.n_samples}, epoch_utc={self.epoch_utc!r})")
+
+    # -- validation ------------------------------------------------------------------------
+    def _err(self, obj: str, expected: str) -> InputFileError:
+        return InputFileError(self.path, obj, expected)
+
+    @contextlib.contextmanager
+    def _guard(self):
+        """Turn HDF5 read failures into one-line errors (h5py raises OSError, or KeyError when
+        an object header is damaged; only h5py calls run inside this guard)."""
+        try:
+            yield
+        except (OSError, RuntimeError, KeyError) as exc:
+            logger.debug("HDF5 error reading %s: %s", self.path, exc)
+            raise InputFileError(self.path, "file", _CORRUPT) from exc
+
+    def _group(self, name: str, what: str) -> h5py.Group:
+        if name not in self._file:
+            raise self._err(name, f"missing group; expected {what}")
+        obj = self._file[name]
+        if not isinstance(obj, h5py.Group):
+            raise self._err(name, "expected a group, got a dataset")
+        return obj
+
+    def _attr(self, obj, label: str, name: str, what: str):
+        if name not in obj.attrs:
+            raise self._err(label, f"missing attribute; expected {what}")
+        return obj.attrs[name]
+
+    def _validate_layout(self) -> None:
+        f = self._file
+        fmt = plain(self._attr(f, "fringe_format", "fringe_format",
+                               f"{FORMAT_NAME!r} (a fringe run file)"))
+        if not isinstance(fmt, str) or fmt != FORMAT_NAME:
+            raise self._err("fringe_format", f"expected {FORMAT_NAME!r}, got {show(fmt)}")
+        version = plain(self._attr(f, "fringe_format_version", "fringe_format_version",
+                                   f"the integer {FORMAT_VERSION}"))
+        if isinstance(version, bool) or not isinstance(version, int) or version != FORMAT_VERSION:
+            raise self._err("fringe_format_version", f"expected the integer {FORMAT_VERSION} "
+                            f"(this fringe reads run-file version 1), got {show(version)}")
+        site = self._group("site", "attributes latitude_deg and longitude_deg")
+        self.site: Site = check_site(dict(site.attrs), self._err)
+        apparatus = self._group("apparatus", "an attribute 'kind'")
+        self.apparatus: dict = check_apparatus(dict(apparatus.attrs), self._err)
+        self._validate_samples(self._group("samples", "datasets time, azimuth and signal"))
+        self.extra_groups: tuple[str, ...] = tuple(
+            k for k, v in f.items() if k not in RESERVED_GROUPS and isinstance(v, h5py.Group))
+
+    def _units(self, ds: h5py.Dataset, label: str, allowed: Sequence[str]) -> str:
+        shown = " or ".join(repr(u) for u in allowed)
+        value = plain(self._attr(ds, f"{label}.units", "units", shown))
+        if not isinstance(value, str) or value not in allowed:
+            raise self._err(f"{label}.units", f"expected {shown}, got {show(value)}")
+        return value
+
+    def _validate_samples(self, samples: h5py.Group) -> None:
+        self._datasets: dict[str, h5py.Dataset] = {}
+        what = {"time": "seconds since samples/time.epoch_utc",
+                "azimuth": "the azimuth of path 1 from north toward east",
+                "signal": "the recorded signal"}
+        for name in CORE_CHANNELS:
+            if name not in samples:
+                raise self._err(f"samples/{name}", f"missing dataset; expected {what[name]}")
+        names = list(CORE_CHANNELS) + sorted(k for k in samples if k not in CORE_CHANNELS)
+        for name in names:
+            ds = samples[name]
+            label = f"samples/{name}"
+            if not isinstance(ds, h5py.Dataset):
+                raise self._err(label, "expected a one-dimensional dataset, got a group")
+            if ds.shape is None:  # an HDF5 null dataspace (h5py.Empty)
+                raise self._err(label, "expected a one-dimensional dataset, got an empty "
+                                "(null) dataspace")
+            if len(ds.shape) != 1:
+                raise self._err(label, f"expected a one-dimensional dataset, got shape "
+                                f"{tuple(ds.shape)}")
+            if name == "time":
+                self.n_samples = int(ds.shape[0])
+                if self.n_samples == 0:
+                    raise self._err(label, "expected at least one sample, got an empty dataset")
+            elif ds.shape[0] != self.n_samples:
+                raise self._err(label, f"expected the length of samples/time "
+                                f"({self.n_samples}), got {ds.shape[0]}")
+            _check_dtype(ds.dtype, name, lambda exp, lab=label: self._err(lab, exp))
+            self._datasets[name] = ds
+        time = self._datasets["time"]
+        self._units(time, "samples/time", TIME_UNITS)
+        self.epoch_utc: str = check_epoch_utc(
+            self._attr(time, "samples/time.epoch_utc", "epoch_utc",
+                       "an ISO 8601 UTC time like '2027-02-03T00:00:00Z'"),
+            self._err, "samples/time.epoch_utc")
+        self.azimuth_units: str = self._units(self._datasets["azimuth"], "samples/azimuth",
+                                              AZIMUTH_UNITS)
+        kind_units = APPARATUS_KINDS[self.apparatus["kind"]].signal_units
+        self.signal_units: str = self._units(self._datasets["signal"], "samples/signal",
+                                             kind_units)
+        self.aux_channels: dict[str, str] = {}
+        for name in names[3:]:
+            label = f"samples/{name}.units"
+            raw = self._attr(self._datasets[name], label, "units",
+                             "a units string for this auxiliary channel")
+            try:
+                units = to_string(raw)
+            except Invalid as exc:
+                raise self._err(label, exc.expected) from None
+            if not units.strip():
+                raise self._err(label, "expected a non-empty units string, got ''")
+            self.aux_channels[name] = units
+        self.time_first_s = float(time[0])
+        self.time_last_s = float(time[self.n_samples - 1])
+
+    # -- reading ---------------------------------------------------------------------------
+    @property
+    def channels(self) -> tuple[str, ...]:
+        """Names of every channel: time, azimuth, signal, then the auxiliary channels."""
+        return CORE_CHANNELS + tuple(self.aux_channels)
+
+    def _check_channels(self, channels: Sequence[str]) -> tuple[str, ...]:
+        if isinstance(channels, str):
+            channels = (channels,)
+        for name in channels:
+            if name not in self._datasets:
+                raise ConfigError(f"{self.path}: channels: expected names among "
+                                  f"{', '.join(self.channels)}, got {name!r}")
+        return tuple(channels)
+
+    def _chunks(self, chunk: int, channels: tuple[str, ...], start: int, stop: int, *,
+                check: bool, copy: bool) -> Iterator[dict[str, NDArray[np.float64]]]:
+        buffers = {name: np.empty(min(chunk, max(stop - start, 1))) for name in channels}
+        prev_t = None
+        if check and "time" in channels and start > 0:
+            with self._guard():
+                prev_t = float(self._datasets["time"][start - 1])
+        for i in range(start, stop, chunk):
+            m = min(chunk, stop - i)
+            out = {}
+            for name in channels:
+                view = buffers[name][:m]
+                with self._guard():
+                    self._datasets[name].read_direct(view, np.s_[i:i + m], np.s_[0:m])
+                if name == "azimuth" and self.azimuth_units == "deg":
+                    np.radians(view, out=view)
+                out[name] = view.copy() if copy else view
+            if check:
+                try:
+                    if "time" in out:
+                        prev_t = check_time_values(out["time"], i, prev_t)
+                    if "azimuth" in out:
+                        check_azimuth_values(out["azimuth"], i)
+                    if "signal" in out:
+                        check_signal_values(out["signal"], i)
+                except Invalid as exc:
+                    raise self._err(exc.obj, exc.expected) from None
+            yield out
+
+    def iter_chunks(self, chunk_samples: int = DEFAULT_CHUNK_SAMPLES,
+                    channels: Sequence[str] = CORE_CHANNELS, *, start: int = 0,
+                    stop: int | None = None,
+                    copy: bool = False) -> Iterator[dict[str, NDArray[np.float64]]]:
+        """Iterate over the samples in chunks, read into preallocated float64 buffers.
+
+        Parameters
+        ----------
+        chunk_samples : int
+            Samples per chunk (the last chunk may be shorter).
+        channels : sequence of str
+            Channels to read: ``"time"`` (s since ``epoch_utc``), ``"azimuth"`` (rad, always
+            converted from the stored units), ``"signal"`` (``signal_units``), or auxiliary names.
+        start, stop : int
+            Sample range ``[start, stop)``; ``stop=None`` means the end.
+        copy : bool
+            If False (default) the yielded arrays are views into buffers that the next
+            iteration overwrites; copy them (or pass True) to keep them.
+
+        Yields
+        ------
+        dict[str, numpy.ndarray]
+            Channel name -> float64 array of shape (m,), m <= chunk_samples.
+        """
+        chunk = _check_chunk_size(chunk_samples)
+        names = self._check_channels(channels)
+        stop = self.n_samples if stop is None else stop
+        if not 0 <= start <= stop <= self.n_samples:
+            raise ConfigError(f"{self.path}: start, stop: expected 0 <= start <= stop <= "
+                              f"{self.n_samples}, got {start}, {stop}")
+        yield from self._chunks(chunk, names, start, stop, check=not self._values_checked,
+                                copy=copy)
+
+    def read_all(self, channels: Sequence[str] = CORE_CHANNELS) -> dict[str, NDArray[np.float64]]:
+        """Read whole channels (for small files): name -> float64 array of shape (n_samples,).
+
+        Azimuth is returned in radians; see :meth:`iter_chunks` for the channel names.
+        """
+        names = self._check_channels(channels)
+        chunks = self._chunks(self.n_samples, names, 0, self.n_samples,
+                              check=not self._values_checked, copy=False)
+        return next(chunks)
+
+    def read_group_attrs(self, name: str) -> dict:
+        """Attributes of group ``name`` (e.g. ``"truth"``): scalars as Python numbers/strings,
+        arrays as numpy arrays."""
+        with self._guard():
+            group = self._group(name, "a group of that name")
+            return {k: plain(v) for k, v in group.attrs.items()}
+
+    def read_group_datasets(self, name: str) -> dict[str, np.ndarray]:
+        """Datasets directly inside group ``name`` (for small extra groups), read whole."""
+        with self._guard():
+            group = self._group(name, "a group of that name")
+            out = {}
+            for key, ds in group.items():
+                if isinstance(ds, h5py.Dataset):
+                    try:
+                        text = h5py.check_string_dtype(ds.dtype) is not None
+                        out[key] = np.asarray(ds.asstr()[()] if text else ds[()])
+                    except UnicodeDecodeError:  # strings that are not UTF-8: left as bytes
+                        out[key] = np.asarray(ds[()])
+            return out
+
+    def to_dict(self) -> dict:
+        """The validated metadata in plain JSON types (for ``fringe inspect``)."""
+        return {"path": self.path, "fringe_format_version": FORMAT_VERSION,
+                "site": self.site.to_dict(), "apparatus": dict(self.apparatus),
+                "epoch_utc": self.epoch_utc, "n_samples": self.n_samples,
+                "time_first_s": self.time_first_s, "time_last_s": self.time_last_s,
+                "signal_units": self.signal_units, "azimuth_units": self.azimuth_units,
+                "aux_channels": dict(self.aux_channels), "extra_groups": list(self.extra_groups)}
+
+
+def _check_dtype(dtype: np.dtype, name: str, err) -> None:
+    """Storage types: time float64 or integer; azimuth float64; signal float32/float64;
+    auxiliary channels any integer or float32/float64."""
+    kind, size = dtype.kind, dtype.itemsize
+    if name == "time":
+        if not ((kind == "f" and size >= 8) or kind in "iu"):
+            raise err(f"expected float64 or integer seconds, got {dtype.name}")
+    elif name == "azimuth":
+        if not (kind == "f" and size >= 8):
+            raise err(f"expected float64 values, got {dtype.name}")
+    elif name == "signal":
+        if not (kind == "f" and size >= 4):
+            raise err(f"expected float32 or float64 values, got {dtype.name}")
+    elif not ((kind == "f" and size >= 4) or kind in "iu"):
+        raise err(f"expected integer, float32 or float64 values, got {dtype.name}")
