@@ -86,8 +86,8 @@ def fit_and_write(path: str, work) -> None:
     """What ``fringe fit`` computes and writes, without the process start and the JSON: the fit
     (scratch files in ``work``) and the per-turn amplitudes file."""
     from fringe.fit.run import fit_run
-    from fringe.fit.stages import FitSettings
-    from fringe.io.fit_result import write_turns
+    from fringe.fit.settings import FitSettings
+    from fringe.io.turns_file import write_turns
 
     result, columns = fit_run(path, FitSettings(), scratch_dir=str(work))
     with columns:
@@ -208,10 +208,10 @@ def main():
                     break
             results["predict_samples_per_s"] = n / (time.perf_counter() - t0)
             try:
-                from fringe.plan.forecast import plan_scenario
+                from fringe.plan.forecast import forecast
 
                 t0 = time.perf_counter()
-                plan_scenario(sc)
+                forecast(sc)
                 results["plan_s"] = time.perf_counter() - t0
             except ImportError:
                 pass

@@ -14,11 +14,12 @@ import numpy as np
 import pytest
 from run_helpers import BASE, simulate_run
 
-from fringe.demodulate.blocks import DemodSettings, TurnTable
 from fringe.demodulate.engine import run_stage1
+from fringe.demodulate.settings import DemodSettings
+from fringe.demodulate.turns import TurnTable
 from fringe.errors import ConfigError
 from fringe.fit.run import fit_run
-from fringe.fit.stages import FitSettings
+from fringe.fit.settings import FitSettings
 
 distributed = pytest.importorskip("distributed")
 

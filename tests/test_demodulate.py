@@ -5,7 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from fringe.demodulate.blocks import DemodSettings, demodulate_blocks, leak_terms, turn_boundaries
+from fringe.demodulate.blocks import demodulate_blocks, turn_boundaries
+from fringe.demodulate.settings import DemodSettings, leak_terms
 
 
 def reference_block_fit(t, az, y, aux, settings):
@@ -144,7 +145,7 @@ def test_sample_on_the_reference_angle_starts_one_block():
 def test_table_builder_joins_ranges_and_grows():
     """Joining range tables as they arrive (TurnTableBuilder) equals demodulating at once, also
     when the expected size is far too small (the arrays grow)."""
-    from fringe.demodulate.blocks import TurnTableBuilder
+    from fringe.demodulate.turns import TurnTableBuilder
 
     rng = np.random.default_rng(6)
     t, az, y, aux, starts = _record(rng, n_blocks=30)

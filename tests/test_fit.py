@@ -22,8 +22,9 @@ import numpy as np
 import pytest
 from run_helpers import BASE, CARRIER_HZ, KE_TRUTH, WHITE_FM, simulate_run  # noqa: F401
 
-from fringe.demodulate.blocks import DemodSettings, TurnTable
 from fringe.demodulate.engine import run_stage1
+from fringe.demodulate.settings import DemodSettings
+from fringe.demodulate.turns import TurnTable
 from fringe.errors import (
     ConfigError,
     DegeneracyWarning,
@@ -32,7 +33,7 @@ from fringe.errors import (
 )
 from fringe.experiment.scenario import scenario_from_dict
 from fringe.fit.run import fit_run, setup_from_run
-from fringe.fit.stages import FitSettings
+from fringe.fit.settings import FitSettings
 from fringe.fit.turn_model import turn_model
 from fringe.io.runreader import open_run
 from fringe.io.runwriter import RunWriter

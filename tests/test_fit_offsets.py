@@ -6,7 +6,7 @@ import pytest
 
 from fringe.experiment.scenario import scenario_from_dict
 from fringe.fit.run import fit_run
-from fringe.fit.stages import FitSettings
+from fringe.fit.settings import FitSettings
 from fringe.simulation.campaign import simulate
 
 

@@ -24,13 +24,14 @@ import numpy as np
 import pytest
 from run_helpers import BASE, CARRIER_HZ, KE_TRUTH, WHITE_FM, simulate_run  # noqa: F401
 
-from fringe.demodulate.blocks import DRIFT_TERMS, DemodSettings
 from fringe.demodulate.engine import range_samples_and_blocks, run_stage1
+from fringe.demodulate.settings import DRIFT_TERMS, DemodSettings
 from fringe.errors import ConfigError, FitError, SystematicsWarning
 from fringe.experiment.basis import basis, signal
 from fringe.fit.onestage import one_stage_fit
 from fringe.fit.run import fit_run, setup_from_run
-from fringe.fit.stages import FitSettings, fit_coefficients
+from fringe.fit.settings import FitSettings
+from fringe.fit.stages import fit_coefficients
 from fringe.io.runwriter import RunWriter
 from fringe.theories.sme import KE_NAMES
 

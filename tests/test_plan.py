@@ -74,7 +74,8 @@ def test_turn_shape_matches_demodulated_white_noise():
     # The per-turn (C, B) covariance shape F of plan.turn_shape_matrix against the sample
     # covariance of stage-1 amplitudes of white noise (4000 simulated turns, linear drift):
     # the relative standard error of a variance from N = 4000 is sqrt(2/N) = 2.2 %; band 5x.
-    from fringe.demodulate.blocks import DemodSettings, demodulate_blocks
+    from fringe.demodulate.blocks import demodulate_blocks
+    from fringe.demodulate.settings import DemodSettings
     from fringe.plan.forecast import turn_shape_matrix
 
     sc = _white_fm_scenario(1.0, drift="linear")

@@ -84,7 +84,7 @@ def test_fit_across_leap_second(tmp_path):
     # is accepted (none is partial or glitched by the leap second) and ke_XY is recovered.
     from fringe.experiment.scenario import scenario_from_dict
     from fringe.fit.run import fit_run
-    from fringe.fit.stages import FitSettings
+    from fringe.fit.settings import FitSettings
     from fringe.simulation.campaign import simulate
 
     doc = {"site": {"latitude_deg": 40.0, "longitude_deg": -3.7},

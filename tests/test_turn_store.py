@@ -16,14 +16,16 @@ from run_helpers import BASE, simulate_run
 
 import fringe.demodulate.turn_store as turn_store
 from fringe.cli import main
-from fringe.demodulate.blocks import DemodSettings, TurnTable
 from fringe.demodulate.engine import run_stage1, stage1_store
+from fringe.demodulate.settings import DemodSettings
 from fringe.demodulate.turn_store import Scratch, TurnStore
+from fringe.demodulate.turns import TurnTable
 from fringe.errors import FitError, OutputError
 from fringe.fit.passes import noise_level, segment_noise_levels
 from fringe.fit.run import fit_run, setup_from_run
-from fringe.fit.stages import FitSettings, stage2_and_3
-from fringe.io.fit_result import read_turns, write_turns
+from fringe.fit.settings import FitSettings
+from fringe.fit.stages import stage2_and_3
+from fringe.io.turns_file import read_turns, write_turns
 
 SMALL_SEGMENT = 300
 

@@ -263,9 +263,9 @@ def rotate_ke(v: dict, delta_rad: float) -> dict:
 
 
 def _fit_record(path: str, cfg: Config, fit: Fit) -> dict:
-    from fringe.demodulate.blocks import DemodSettings
+    from fringe.demodulate.settings import DemodSettings
     from fringe.fit.run import fit_run
-    from fringe.fit.stages import FitSettings
+    from fringe.fit.settings import FitSettings
 
     t0 = time.perf_counter()
     with warnings.catch_warnings(record=True) as caught:

@@ -30,9 +30,9 @@ def command(out, seed, overwrite):
 
     from fringe.experiment.scenario import load_scenario
     from fringe.fit.run import fit_run
-    from fringe.fit.stages import FitSettings
+    from fringe.fit.settings import FitSettings
     from fringe.io.atomic import write_json_atomic, write_text_atomic
-    from fringe.io.fit_result import write_turns
+    from fringe.io.turns_file import write_turns
     from fringe.simulation.campaign import simulate
 
     d = out_dir(out)
@@ -86,9 +86,9 @@ def command(out, seed, overwrite):
     report_files = build_report(fit_path, report_dir, overwrite=overwrite)
 
     click.echo("[5/5] plan (forecast for this scenario; days to reach 1e-18 on ke_XY)")
-    from fringe.plan.forecast import plan_scenario
+    from fringe.plan.forecast import forecast
 
-    plan = plan_scenario(sc, targets={"ke_XY": 1e-18})
+    plan = forecast(sc, targets={"ke_XY": 1e-18})
     write_json_atomic(d / "plan.json", plan.to_dict(), overwrite=overwrite)
     write_text_atomic(d / "plan.txt", plan.summary() + "\n", overwrite=overwrite)
     click.echo(plan.summary())

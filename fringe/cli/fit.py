@@ -51,13 +51,13 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
             max_harmonic, regress, no_lab_b0, lab_c0, cross_check, engine, scratch_dir, scheduler,
             dut1_s, overwrite):
     """Fit RUN_FILE: per-turn demodulation, sidereal harmonics, coefficients with sigma."""
-    from fringe.demodulate.blocks import DemodSettings
+    from fringe.demodulate.settings import DemodSettings
     from fringe.experiment.scenario import parse_assignments
     from fringe.fit.run import fit_run
-    from fringe.fit.stages import FitSettings
+    from fringe.fit.settings import FitSettings
     from fringe.io.atomic import check_output_path, write_json_atomic
-    from fringe.io.fit_result import write_turns
     from fringe.io.runreader import open_run
+    from fringe.io.turns_file import write_turns
 
     out = Path(out_path)
     turns_path = out.with_suffix(".turns.h5")

@@ -17,14 +17,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from fringe.demodulate.blocks import (
-    DemodSettings,
-    TurnTable,
-    demodulate_blocks,
-    leak_terms,
-    turn_boundaries,
-)
+from fringe.demodulate.blocks import demodulate_blocks, turn_boundaries
+from fringe.demodulate.settings import DemodSettings, leak_terms
 from fringe.demodulate.turn_store import Scratch, SpillingTurnBuilder, TurnStore
+from fringe.demodulate.turns import TurnTable
 from fringe.errors import ConfigError, FitError, InputFileError
 from fringe.io.runreader import open_run
 

@@ -15,8 +15,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from fringe.constants import STELLAR_DAY_S
-from fringe.demodulate.blocks import DemodSettings
 from fringe.demodulate.engine import run_stage1
+from fringe.demodulate.settings import DemodSettings
 from fringe.io.runreader import open_run
 from fringe.noise.allan import AllanResult, overlapping_adev
 

@@ -25,13 +25,8 @@ from pathlib import Path
 import numpy as np
 from numpy.typing import NDArray
 
-from fringe.demodulate.blocks import (
-    DemodSettings,
-    TurnTable,
-    TurnTableBuilder,
-    glitch_status,
-    status_counts,
-)
+from fringe.demodulate.settings import DemodSettings
+from fringe.demodulate.turns import TurnTable, TurnTableBuilder, glitch_status, status_counts
 from fringe.errors import OutputError
 
 #: Turns per segment of stages 2-3 and per write of the scratch table (65536 turns: 34 days of

@@ -26,7 +26,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import NDArray
 
-from fringe.demodulate.blocks import TurnTable
+from fringe.demodulate.turns import TurnTable
 from fringe.errors import ConfigError, FitError
 from fringe.experiment.basis import Setup
 from fringe.fit.turn_model import turn_model

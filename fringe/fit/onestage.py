@@ -60,8 +60,9 @@ import logging
 import numpy as np
 from numpy.typing import NDArray
 
-from fringe.demodulate.blocks import DRIFT_TERMS, DemodSettings, TurnTable
 from fringe.demodulate.engine import RANGE_SAMPLES, RecordInfo, range_samples_and_blocks, ranges
+from fringe.demodulate.settings import DRIFT_TERMS, DemodSettings
+from fringe.demodulate.turns import TurnTable
 from fringe.errors import ConfigError, FitError
 from fringe.experiment.basis import CHUNK_SAMPLES, Setup, basis, signal
 

@@ -8,36 +8,28 @@ from __future__ import annotations
 
 import datetime
 import logging
-import platform
 from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
-from fringe.demodulate.blocks import DemodSettings
 from fringe.demodulate.engine import stage1_store
+from fringe.demodulate.settings import DemodSettings
 from fringe.demodulate.turn_store import Scratch
 from fringe.errors import ConfigError
 from fringe.experiment.apparatus import APPARATUS_KINDS, apparatus_fields, make_apparatus
 from fringe.experiment.basis import Setup
-from fringe.fit.stages import FitSettings, stage2_and_3
+from fringe.fit.settings import FitSettings
+from fringe.fit.stages import stage2_and_3
 from fringe.frames import Epoch
-from fringe.io.fit_result import FitResult, TurnColumns
+from fringe.io.fit_result import FitResult
 from fringe.io.runreader import open_run, sha256
+from fringe.io.turns_file import TurnColumns
 from fringe.theories import make_theory
-from fringe.version import __version__
+from fringe.version import software_versions
 
 logger = logging.getLogger(__name__)
 
 
-
-def software_versions() -> dict:
-    import erfa
-    import h5py
-    import scipy
-
-    return {"fringe": __version__, "python": platform.python_version(),
-            "numpy": np.__version__, "scipy": scipy.__version__, "h5py": h5py.__version__,
-            "pyerfa": erfa.__version__}
 
 
 def setup_from_run(path: str, theory: str, dut1_s: float = 0.0) -> tuple[Setup, dict]:

@@ -25,121 +25,26 @@ and rms_kt fits load it whole.
 from __future__ import annotations
 
 import logging
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import NDArray
 
-from fringe.constants import C_M_S
-from fringe.demodulate.blocks import TurnTable
 from fringe.demodulate.turn_store import Scratch, TurnStore
+from fringe.demodulate.turns import TurnTable
 from fringe.errors import ConfigError, DegeneracyWarning, FitError, SystematicsWarning
 from fringe.experiment.basis import Setup
+from fringe.fit.coefficient_fit import CoefficientFit
+from fringe.fit.medium import fit_medium
 from fringe.fit.passes import (
     RowCache,
     design_labels,
-    noise_level,
     run_passes,
 )
-from fringe.fit.solver import bootstrap_cov, whitening
-from fringe.fit.turn_model import turn_model
-from fringe.theories.sme import KE_NAMES, KO_NAMES
+from fringe.fit.settings import FitSettings, default_free
+from fringe.fit.solver import bootstrap_cov
 
 logger = logging.getLogger(__name__)
-
-UNCERTAINTY_MODES = ("reduced-chi2", "bootstrap", "formal")
-
-#: Span from which ko_* join the default SME free set, days (half a sidereal year: the annual
-#: modulation that separates ko_* from ke_* is then sampled over half a cycle). Common practice
-#: reading of practice.md §6 (a year or more separates them fully).
-KO_DEFAULT_SPAN_DAYS = 182.6
-
-
-
-@dataclass(frozen=True)
-class FitSettings:
-    """Settings of stages 2-3 (see module docstring).
-
-    Parameters
-    ----------
-    theory : str
-    free : tuple of str or None
-        Free coefficients (None: the theory's default set).
-    fixed : dict
-        Coefficients held at given values.
-    uncertainty : {"reduced-chi2", "bootstrap", "formal"}
-    lab_b0 : bool
-        Fit a constant B offset (lab-fixed 2 theta systematic).
-    lab_c0 : bool
-        Fit a constant C offset (not allowed with ke_ZZ free).
-    regress : tuple of str
-        Auxiliary channels whose 2 theta amplitudes are regressed out.
-    bootstrap_days : float
-        Length of the resampled blocks of turns, days.
-    n_bootstrap : int
-    seed : int
-    """
-
-    theory: str = "sme"
-    free: tuple | None = None
-    fixed: dict = field(default_factory=dict)
-    uncertainty: str = "reduced-chi2"
-    lab_b0: bool = True
-    lab_c0: bool = False
-    regress: tuple = ()
-    bootstrap_days: float = 1.0
-    n_bootstrap: int = 200
-    seed: int = 12345
-
-    def __post_init__(self):
-        if self.uncertainty not in UNCERTAINTY_MODES:
-            raise ConfigError(f"--uncertainty: expected one of {', '.join(UNCERTAINTY_MODES)}, "
-                              f"got {self.uncertainty!r}")
-
-    def to_dict(self) -> dict:
-        return {"theory": self.theory, "free": list(self.free) if self.free else None,
-                "fixed": dict(self.fixed), "uncertainty": self.uncertainty,
-                "lab_b0": self.lab_b0, "lab_c0": self.lab_c0, "regress": list(self.regress),
-                "bootstrap_days": self.bootstrap_days, "n_bootstrap": self.n_bootstrap,
-                "seed": self.seed}
-
-
-def default_free(setup: Setup, span_days: float) -> tuple[str, ...]:
-    """The default free coefficients of a theory for a record of ``span_days``."""
-    name = setup.theory.name
-    if name == "sme":
-        return KE_NAMES + (KO_NAMES if span_days >= KO_DEFAULT_SPAN_DAYS else ())
-    if name == "rms":
-        atomic = (setup.apparatus.kind == "cavity-vs-reference"
-                  and getattr(setup.apparatus, "reference", None) == "atomic")
-        return ("rms_mm", "rms_kt") if atomic else ("rms_mm",)
-    return setup.theory.parameter_names
-
-
-def turn_covariance(table: TurnTable, sel: NDArray) -> NDArray:
-    """Per-turn covariance of (C, B) used as weights, (n, 2, 2), for the rows ``sel``:
-    s_i^2 x ninv_i with s_i from :func:`fringe.fit.passes.noise_level`. The overall level is
-    then set by the reduced chi^2 (or the bootstrap)."""
-    level = noise_level(table.residual_rms[sel])
-    return level[:, None, None] ** 2 * table.ninv_2[sel]
-
-
-@dataclass
-class CoefficientFit:
-    """Stage-3 outcome before packaging (see :class:`fringe.io.fit_result.FitResult`)."""
-
-    names: list
-    value: NDArray
-    cov: NDArray
-    nuisance: dict
-    chi2_reduced: float
-    dof: int
-    efficiency: dict
-    model_c: NDArray
-    model_b: NDArray
-    warnings: list
-    notes: list
-    upper_limits: dict = field(default_factory=dict)
 
 
 @dataclass
@@ -217,85 +122,6 @@ def _degeneracy(labels, cov, limit: float = 0.95) -> list[str]:
 
         warnings.warn(out[-1], DegeneracyWarning, stacklevel=3)
     return out
-
-
-def fit_medium(setup: Setup, table: TurnTable, settings: FitSettings) -> CoefficientFit:
-    """Nonlinear fit of the Sun's velocity through a classical medium (lmfit), 95 % speed limit."""
-    import lmfit
-
-    from fringe.theories.medium import MEDIUM_NAMES
-
-    sel = table.accepted
-    t = table.t_mid_s[sel]
-    c, b = table.C[sel], table.B[sel]
-    w = whitening(turn_covariance(table, sel))
-    off = settings.lab_b0
-
-    def model(p):
-        vals = {n: p[n].value for n in MEDIUM_NAMES}
-        _, mc, mb = turn_model(setup, t, params=vals, table=table, sel=sel, mean=False)
-        if off:
-            mb = mb + p["lab_B0"].value
-        return mc, mb
-
-    def resid(p):
-        mc, mb = model(p)
-        r = np.stack([c - mc, b - mb], axis=1)
-        return np.einsum("nij,nj->ni", w, r).ravel()
-
-    if settings.uncertainty == "bootstrap":
-        raise ConfigError("--uncertainty bootstrap: not available for the nonlinear medium fit "
-                          "(use reduced-chi2 or formal)")
-
-    def start(v):
-        params = lmfit.Parameters()
-        for n, v0 in zip(MEDIUM_NAMES, v):
-            params.add(n, value=settings.fixed.get(n, float(v0)), vary=n not in settings.fixed)
-        if off:
-            params.add("lab_B0", value=0.0)
-        return lmfit.minimize(resid, params, method="leastsq")
-
-    # The signal is quadratic in the lab velocity u = v_sun + v_earth, so it barely changes under
-    # u -> -u, i.e. v_sun -> -v_sun - 2 v_earth: over spans short against a year this mirror is
-    # a second minimum. Start from both and keep the lower chi^2.
-    out = start(np.ones(3))
-    v_earth = np.mean(setup.frames(t[:: max(t.size // 64, 1)]).beta, axis=0) \
-        * C_M_S / 1e3                                                  # km/s, SCCEF
-    found = np.array([out.params[n].value for n in MEDIUM_NAMES])
-    mirror = start(-found - 2.0 * v_earth)
-    if mirror.covar is not None and (out.covar is None or mirror.chisqr < out.chisqr):
-        out = mirror
-    names = [n for n in MEDIUM_NAMES if n not in settings.fixed]
-    if out.covar is None:
-        raise FitError("medium fit: no covariance (the fit did not converge or the data do "
-                       "not constrain the velocity)")
-    cov = np.array(out.covar)
-    red = float(out.redchi)
-    order = list(out.var_names)
-    idx = [order.index(n) for n in names]
-    cov_v = cov[np.ix_(idx, idx)]
-    if settings.uncertainty == "formal":
-        cov_v = cov_v / red
-    x = np.array([out.params[n].value for n in names])
-    rng = np.random.default_rng(settings.seed)
-    full = np.array([out.params[n].value for n in MEDIUM_NAMES])
-    draws = np.tile(full, (20000, 1))
-    draws[:, [MEDIUM_NAMES.index(n) for n in names]] = rng.multivariate_normal(x, cov_v, 20000)
-    speed95 = float(np.percentile(np.linalg.norm(draws, axis=1), 95))
-    mc, mb = model(out.params)
-    nuis = {}
-    if off:
-        i = order.index("lab_B0")
-        scale = 1.0 / red if settings.uncertainty == "formal" else 1.0
-        nuis["lab_B0"] = {"value": float(out.params["lab_B0"].value),
-                          "sigma": float(np.sqrt(cov[i, i] * scale))}
-    return CoefficientFit(names=names, value=x, cov=cov_v, nuisance=nuis, chi2_reduced=red,
-                          dof=int(out.nfree), efficiency={}, model_c=mc, model_b=mb,
-                          warnings=[], notes=["medium: nonlinear fit with lmfit (leastsq) from "
-                                              "two starts (a solution and its mirror -v - 2 "
-                                              "v_earth); the 95 % speed limit samples the fit "
-                                              "covariance"],
-                          upper_limits={"speed_kms_95": speed95})
 
 
 def _add_rms_kt(setup: Setup, table: TurnTable, settings: FitSettings,

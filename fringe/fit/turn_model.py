@@ -18,7 +18,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from fringe.demodulate.blocks import TurnTable
+from fringe.demodulate.turns import TurnTable
 from fringe.experiment.basis import Setup, signal
 
 #: Table angles per instant at which the model is evaluated and projected on 2 theta.
@@ -153,7 +153,7 @@ def _measured_model(grid: _ModelGrid, t, half, leak, settings, with_a: bool = Tr
     """
     from scipy.sparse import csr_matrix
 
-    from fringe.demodulate.blocks import LEAK_ORDER, leak_terms
+    from fringe.demodulate.settings import LEAK_ORDER, leak_terms
 
     m = grid.values[0].shape[0]
     pos = (t - grid.start_s) / grid.step_s

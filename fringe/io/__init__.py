@@ -1,10 +1,16 @@
-"""File formats: run files (HDF5) and CSV import.
+"""File formats: run files (HDF5), CSV import, fit-result and per-turn files, atomic writes.
 
-* :func:`open_run` reads and validates a run file; :class:`RunWriter` writes one atomically.
+Layer 4 of the data path.
+
+* :func:`open_run` reads and validates a run file; :class:`RunWriter` writes one atomically; the
+  format's rules are in :mod:`fringe.io.runformat` (specified in ``docs/run-format.md``).
 * :func:`import_csv` turns a CSV table plus metadata (TOML or keywords) into a run file.
+* :class:`FitResult` is the fit-result file (JSON); :func:`write_turns` and :func:`read_turns`
+  write and read the per-turn amplitudes beside it (:class:`TurnColumns`).
+* :func:`write_atomic` and its text, JSON and figure forms write a file whole or not at all.
 
-The run-file format is specified in ``docs/run-format.md``. The names below are loaded on first
-use, so importing a light submodule (e.g. ``fringe.io.atomic``) does not import h5py.
+The names below are loaded on first use, so importing a light submodule (e.g.
+``fringe.io.atomic``) does not import h5py.
 """
 
 from __future__ import annotations
@@ -12,10 +18,15 @@ from __future__ import annotations
 import importlib
 
 _EXPORTS = {
-    "APPARATUS_KINDS": "runformat", "FORMAT_VERSION": "runformat", "RunFile": "runreader",
-    "RunWriter": "runwriter", "open_run": "runreader", "sha256": "runreader",
+    "APPARATUS_KINDS": "runformat", "FORMAT_VERSION": "runformat",
+    "RunFile": "runreader", "open_run": "runreader", "sha256": "runreader",
+    "RunWriter": "runwriter",
     "CsvImportSummary": "csvimport", "import_csv": "csvimport",
     "read_import_metadata": "csvimport",
+    "FitResult": "fit_result",
+    "TurnColumns": "turns_file", "read_turns": "turns_file", "write_turns": "turns_file",
+    "check_output_path": "atomic", "write_atomic": "atomic", "write_text_atomic": "atomic",
+    "write_json_atomic": "atomic", "save_figure_atomic": "atomic",
 }
 
 __all__ = sorted(_EXPORTS)

@@ -62,7 +62,7 @@ from fringe.theories.sme import KE_NAMES, KO_NAMES
 if TYPE_CHECKING:
     from fringe.experiment.scenario import Scenario
 
-__all__ = ["forecast", "plan_scenario", "turn_amplitude_variance"]
+__all__ = ["forecast", "turn_amplitude_variance"]
 
 _log = logging.getLogger(__name__)
 
@@ -148,7 +148,8 @@ def turn_shape_matrix(scenario, drift: str = "linear") -> NDArray:
     Exact for white noise; used as the shape for coloured noise too (an approximation).
     Stepped rotation: the identity (the dwell-mark averages are handled by the duty factor).
     """
-    from fringe.demodulate.blocks import DemodSettings, demodulate_blocks
+    from fringe.demodulate.blocks import demodulate_blocks
+    from fringe.demodulate.settings import DemodSettings
 
     motion = scenario.motion
     if isinstance(motion, SteppedRotation):
@@ -362,7 +363,6 @@ def forecast(scenario: Scenario, free: str | Sequence[str] | None = None,
 
 
 #: The name ``fringe demo`` calls.
-plan_scenario = forecast
 
 
 def _first_stay_below(days, r, threshold):

@@ -62,7 +62,7 @@ class PlanSettings:
     drift: str = "linear"
 
     def __post_init__(self):
-        from fringe.demodulate.blocks import DRIFT_TERMS
+        from fringe.demodulate.settings import DRIFT_TERMS
 
         if self.drift not in DRIFT_TERMS:
             raise ConfigError(f"plan: drift: expected one of {', '.join(DRIFT_TERMS)}, "

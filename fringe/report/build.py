@@ -19,9 +19,7 @@ from __future__ import annotations
 
 import datetime
 import os
-import platform
 from collections.abc import Sequence
-from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -29,6 +27,7 @@ import numpy as np
 import fringe.report.figures.fit as F
 from fringe.errors import ConfigError, OutputError
 from fringe.io.atomic import save_figure_atomic, write_json_atomic, write_text_atomic
+from fringe.report.content import ReportContent
 from fringe.report.documents import (
     FIGURE_DIR,
     headline,
@@ -38,8 +37,8 @@ from fringe.report.documents import (
     summary,
 )
 from fringe.report.inputs import load_comparison, load_fit, load_turns
-from fringe.report.rms_solve import RmsSolution, solve_rms
-from fringe.version import __version__
+from fringe.report.rms_solve import solve_rms
+from fringe.version import software_versions
 
 __all__ = ["OUTPUT_FILES", "ReportContent", "assemble_report", "build_report", "write_report"]
 
@@ -48,45 +47,6 @@ OUTPUT_FILES = ("report.md", "report.tex", "report.html", "summary.json")
 
 # ------------------------------------------------------------------------------- assemble
 
-@dataclass(frozen=True, eq=False)
-class ReportContent:
-    """Everything a report states, computed from the inputs; nothing written yet.
-
-    ``fit`` is the validated fit dict (covariance filled in), ``turns`` the accepted per-turn
-    arrays (:func:`load_turns`) or None, ``comparison`` the user's earlier results, ``rms`` the
-    alpha, beta, delta solution or None, ``headline`` as :func:`headline`.
-    """
-
-    fit: dict
-    fit_path: Path
-    turns: dict | None = None
-    turns_path: Path | None = None
-    comparison: tuple = ()
-    compare_path: Path | None = None
-    rms: RmsSolution | None = None
-    headline: dict = field(default_factory=dict)
-    notes: tuple[str, ...] = ()
-    provenance: dict = field(default_factory=dict)
-
-    @property
-    def warnings(self) -> tuple[str, ...]:
-        """Every warning the fit raised."""
-        return tuple(self.fit.get("warnings", ()))
-
-    @property
-    def inputs(self) -> list[Path]:
-        """The input files (never written over)."""
-        return [p for p in (self.fit_path, self.turns_path, self.compare_path) if p]
-
-
-def _software() -> dict:
-    import h5py
-    import matplotlib
-    import scipy
-
-    return {"fringe": __version__, "python": platform.python_version(),
-            "numpy": np.__version__, "scipy": scipy.__version__,
-            "matplotlib": matplotlib.__version__, "h5py": h5py.__version__}
 
 
 def _file_entry(path) -> dict:
@@ -161,7 +121,7 @@ def assemble_report(fit_json_path, *, compare=None, kt: tuple[float, float] | No
             "rms": "Mansouri–Sexl α, β, δ (SR: −½, ½, 0); P_MM = δ − β + ½ (C13)",
             "harmonics": "C10: S = B sin 2θ + C cos 2θ, two-path normalisation (C9)"},
         "software of the fit": fit.get("software"),
-        "software of this report": _software(),
+        "software of this report": software_versions("matplotlib"),
     }
     return ReportContent(fit=fit, fit_path=fit_path, turns=turns, turns_path=turns_path,
                          comparison=comparison,

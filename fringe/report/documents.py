@@ -33,7 +33,7 @@ from fringe.report.tables import (
 )
 
 if TYPE_CHECKING:                      # annotations only: build imports this module
-    from fringe.report.build import ReportContent
+    from fringe.report.content import ReportContent
 
 __all__ = ["EXTRA_TABLES", "FIGURE_DIR", "headline", "html_report", "latex_report",
            "markdown_report", "summary"]
@@ -198,10 +198,10 @@ def latex_report(c: ReportContent) -> str:
 
 
 def html_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) -> str:
-    """report.html: one self-contained page (:func:`fringe.report.html.html_page`)."""
+    """report.html: one self-contained page (:func:`fringe.report.page.html_page`)."""
     import html as _html
 
-    from fringe.report.html import html_page
+    from fringe.report.page import html_page
 
     tables = report_tables(c.fit, c.comparison, "unicode")
     sections = [("Coefficients", to_html(tables["coefficients"]))]

@@ -1,0 +1,86 @@
+"""Stage-1 settings: the per-turn model (drift polynomial, harmonics), the rejection rules and the leakage columns recorded per turn."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, fields
+
+from fringe.errors import ConfigError
+
+DRIFT_TERMS = {"offset": 1, "linear": 2, "quadratic": 3}
+
+
+#: Highest power of tau whose leakage into (C, B) is recorded per block (TurnTable.leak).
+LEAK_ORDER = 3
+
+
+@dataclass(frozen=True)
+class DemodSettings:
+    """Stage-1 settings.
+
+    Parameters
+    ----------
+    drift : {"offset", "linear", "quadratic"}
+        Per-block drift polynomial.
+    max_harmonic : int
+        Highest harmonic of theta in the block model (2, 3 or 4); 1 theta is always included.
+    max_angle_gap_deg : float
+        Largest allowed gap in turntable angle within a block, degrees.
+    min_samples : int
+        Least number of valid samples in a block.
+    max_gap_s : float or None
+        A time gap longer than this starts a new block, s (default: a quarter of the estimated
+        turn period).
+    glitch_threshold : float
+        Robust rejection threshold in units of the MAD-estimated sigma (see module docstring).
+    """
+
+    drift: str = "linear"
+    max_harmonic: int = 2
+    max_angle_gap_deg: float = 60.0
+    min_samples: int = 12
+    max_gap_s: float | None = None
+    glitch_threshold: float = 5.0
+
+    def __post_init__(self):
+        if self.drift not in DRIFT_TERMS:
+            raise ConfigError(f"demodulation: drift: expected one of {', '.join(DRIFT_TERMS)}, "
+                              f"got {self.drift!r}")
+        if self.max_harmonic not in (2, 3, 4):
+            raise ConfigError(f"demodulation: max_harmonic: expected 2, 3 or 4, "
+                              f"got {self.max_harmonic!r}")
+        if not 0 < self.max_angle_gap_deg <= 360:
+            raise ConfigError("demodulation: max_angle_gap_deg: expected a value in (0, 360]")
+        if self.glitch_threshold <= 0:
+            raise ConfigError("demodulation: glitch_threshold: expected a positive number")
+
+    @property
+    def term_names(self) -> tuple[str, ...]:
+        drift = ("a0", "a1", "a2")[:DRIFT_TERMS[self.drift]]
+        harm = []
+        for m in range(1, self.max_harmonic + 1):
+            harm += [f"c{m}", f"s{m}"]
+        return drift + tuple(harm)
+
+    @property
+    def n_terms(self) -> int:
+        return len(self.term_names)
+
+    def index(self, name: str) -> int:
+        return self.term_names.index(name)
+
+    def to_dict(self) -> dict:
+        return {f.name: getattr(self, f.name) for f in fields(self)}
+
+
+def leak_terms(settings: DemodSettings) -> tuple[tuple[str, int], ...]:
+    """The unit columns of ``TurnTable.leak``, in order.
+
+    ("C", j) is tau^j cos 2 theta, ("B", j) is tau^j sin 2 theta (j = 1 ... LEAK_ORDER) and
+    ("A", j) is tau^j for the powers above the drift polynomial (up to LEAK_ORDER); tau is the
+    block's normalised time (module docstring). Lower powers are in the block model, whose
+    (C, B) responses are exactly 1 (cos 2 theta -> C, sin 2 theta -> B) or 0.
+    """
+    nd = DRIFT_TERMS[settings.drift]
+    return (tuple(("C", j) for j in range(1, LEAK_ORDER + 1))
+            + tuple(("B", j) for j in range(1, LEAK_ORDER + 1))
+            + tuple(("A", j) for j in range(nd, LEAK_ORDER + 1)))
