@@ -1,6 +1,6 @@
 """Every sign, frame and normalisation convention fringe uses, defined once.
 
-The IDs C1-C14 refer to the project's physics reference and to ``docs/conventions.md``.
+The IDs C1-C14 are those of ``docs/conventions.md``, where each convention is stated in full.
 
 * C2 coefficient frame: the Sun-centred celestial equatorial frame (SCCEF), X to the vernal
   equinox, Z along the Earth's rotation axis, Y = Z x X (ICRS axes in practice).

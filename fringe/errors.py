@@ -91,8 +91,11 @@ def check_finite_number(value, source: str, field: str, *, positive: bool = Fals
 
 
 def reject_unknown_fields(given, allowed, where: str, what: str = "unknown field") -> None:
-    """Raise ConfigError "WHERE NAME: WHAT (expected some of ...)" for the first (sorted) name
-    of ``given`` that is not in ``allowed``; ``where`` ends with ":" or a section label."""
+    """Raise ConfigError for the first (sorted) name of ``given`` that is not in ``allowed``.
+
+    The message reads "WHERE NAME: WHAT (expected some of ...)"; ``where`` ends with ":" or a
+    section label.
+    """
     unknown = sorted(set(given) - set(allowed))
     if unknown:
         raise ConfigError(f"{where} {unknown[0]}: {what} (expected some of "

@@ -62,5 +62,6 @@ class Site:
         return float(math.hypot(xyz[0], xyz[1]))
 
     def to_dict(self) -> dict:
+        """Latitude and longitude (deg), height (m) and name, as stored in a run file."""
         return {"latitude_deg": self.latitude_deg, "longitude_deg": self.longitude_deg,
                 "height_m": self.height_m, "name": self.name}

@@ -1,5 +1,8 @@
-"""The version of fringe, in one place (the packaging metadata reads it too), and the versions
-of the software a result was made with (recorded in every result file for provenance)."""
+"""The version of fringe, in one place, and the versions of the software a result was made with.
+
+The packaging metadata reads ``__version__`` too; the software versions are recorded in every
+result file for provenance.
+"""
 
 from __future__ import annotations
 

@@ -1,5 +1,7 @@
-"""Shared helpers of the command-line modules (``fringe/cli*.py``): error guard, output
-directory, progress bar. No physics here."""
+"""Shared helpers of the command-line modules: error guard, output directory, progress bar.
+
+The helpers serve the modules of ``fringe/cli/``. No physics here.
+"""
 
 from __future__ import annotations
 
@@ -53,6 +55,7 @@ def run_guarded(func):
 
 
 def out_dir(path: str) -> Path:
+    """Return ``path`` as a Path, creating the directory (and its parents) if missing."""
     out = Path(path)
     out.mkdir(parents=True, exist_ok=True)
     return out

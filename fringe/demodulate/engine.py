@@ -90,8 +90,11 @@ def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = (
 
 
 def _read(run, start: int, stop: int, channels) -> dict:
-    """Samples [start, stop) of the channels, value-checked. One chunk spans the whole range and
-    iter_chunks allocates its buffers per call, so the arrays it yields are ours (no copy)."""
+    """Samples [start, stop) of the channels, value-checked.
+
+    One chunk spans the whole range and iter_chunks allocates its buffers per call, so the
+    arrays it yields are ours (no copy).
+    """
     for chunk in run.iter_chunks(max(stop - start, 1), channels, start=start, stop=stop):
         return chunk
     return {c: np.zeros(0) for c in channels}
@@ -154,8 +157,11 @@ def range_samples_and_blocks(info: RecordInfo, start: int, stop: int, run=None
 
 def demodulate_range(info: RecordInfo, settings: DemodSettings, start: int, stop: int,
                      run=None) -> TurnTable:
-    """Stage 1 on the blocks starting in samples [start, stop) of ``info.path`` (``run``: an
-    open run file to read from, see :func:`range_samples_and_blocks`)."""
+    """Stage 1 on the blocks starting in samples [start, stop) of ``info.path``.
+
+    ``run`` is an open run file to read from, see :func:`range_samples_and_blocks`; None opens
+    the file here. Returns the turn table of those blocks (empty if none starts in the range).
+    """
     got = range_samples_and_blocks(info, start, stop, run)
     if got is None:
         return _empty(settings, info)
@@ -175,6 +181,20 @@ def _empty(settings: DemodSettings, info: RecordInfo) -> TurnTable:
 
 
 def ranges(n_samples: int, range_samples: int = RANGE_SAMPLES) -> list[tuple[int, int]]:
+    """Split samples [0, n_samples) into consecutive [start, stop) ranges.
+
+    Parameters
+    ----------
+    n_samples : int
+        Samples in the record.
+    range_samples : int
+        Samples per range; the last range holds the remainder.
+
+    Returns
+    -------
+    list of (int, int)
+        The (start, stop) sample indices of each range, in order.
+    """
     return [(a, min(a + range_samples, n_samples)) for a in range(0, n_samples, range_samples)]
 
 
@@ -192,9 +212,12 @@ def stage1_store(path: str, settings: DemodSettings, *, aux_channels: tuple[str,
                  engine: str = "local", scheduler=None, range_samples: int = RANGE_SAMPLES,
                  progress: Callable[[int], None] | None = None, scratch: Scratch | None = None
                  ) -> tuple[TurnStore, RecordInfo]:
-    """As :func:`run_stage1`, but the table goes to a :class:`~fringe.demodulate.turn_store.TurnStore`:
-    with a ``scratch`` directory, a record of more than SEGMENT_TURNS turns is kept in a
-    scratch files instead of in memory (:mod:`fringe.demodulate.turn_store`)."""
+    """As :func:`run_stage1`, but the table goes to a turn store; returns (store, info).
+
+    The store is a :class:`~fringe.demodulate.turn_store.TurnStore`. With a ``scratch``
+    directory, a record of more than SEGMENT_TURNS turns is kept in scratch files instead of in
+    memory (:mod:`fringe.demodulate.turn_store`).
+    """
     if engine not in ENGINES:
         raise ConfigError(f"--engine: expected one of {', '.join(ENGINES)}, got {engine!r}")
     info = survey(path, settings, aux_channels)
@@ -217,8 +240,11 @@ LOCAL_THREADS = min(2, os.cpu_count() or 1)
 
 
 def _run_local(info, settings, parts, progress, collect):
-    """Ranges in order, two at a time in threads; each range's table goes to ``collect`` in
-    range order (deterministic) as soon as it and its predecessors are done."""
+    """Run the ranges in order, two at a time in threads.
+
+    Each range's table goes to ``collect`` in range order (deterministic) as soon as it and its
+    predecessors are done.
+    """
     from concurrent.futures import ThreadPoolExecutor
 
     with open_run(info.path, check_values=False) as run:

@@ -38,8 +38,11 @@ TWO_PI = 2.0 * np.pi
 
 @njit(cache=True, nogil=True, inline="always")
 def _mod_2pi(v):
-    """v mod 2 pi as v - 2 pi floor(v / 2 pi), in [0, 2 pi] to rounding (a value within an ulp of
-    a multiple of 2 pi may come out just below 0 or at 2 pi); branch-free, so loops vectorise."""
+    """Return v mod 2 pi as v - 2 pi floor(v / 2 pi), in [0, 2 pi] to rounding.
+
+    A value within an ulp of a multiple of 2 pi may come out just below 0 or at 2 pi.
+    Branch-free, so loops vectorise.
+    """
     return v - TWO_PI * np.floor(v / TWO_PI)
 
 
@@ -60,8 +63,11 @@ def _design_row(x, tau, c1, s1, nd, max_harmonic):
 
 @njit(cache=True, nogil=True)
 def _cholesky_inverse(a, p, low, li, inv):
-    """inv = inverse of the symmetric positive-definite p x p matrix a (lower Cholesky factor
-    low, its inverse li: work arrays); returns False if a is not positive definite."""
+    """Set inv to the inverse of the symmetric positive-definite p x p matrix a.
+
+    ``low`` (the lower Cholesky factor) and ``li`` (its inverse) are work arrays. Returns True,
+    or False if a is not positive definite.
+    """
     low[:, :] = 0.0
     for j in range(p):
         d = a[j, j]
@@ -96,8 +102,11 @@ def _cholesky_inverse(a, p, low, li, inv):
 
 @njit(cache=True, nogil=True, fastmath={"reassoc", "contract"})
 def _dot(a, b, m):
-    """sum a[:m] b[:m], reassociated (SIMD): the order is fixed by the code, so the result is
-    the same on every run and for any split of the record."""
+    """Return the sum of a[:m] b[:m], reassociated (SIMD).
+
+    The order is fixed by the code, so the result is the same on every run and for any split of
+    the record.
+    """
     acc = 0.0
     for i in range(m):
         acc += a[i] * b[i]
@@ -319,16 +328,15 @@ def _psi(theta, theta0):
 
 @njit(cache=True, nogil=True)
 def block_starts(theta, t, theta0, max_gap_s, theta_prev, t_prev, has_prev):
-    """Boolean (n,): True where a new block starts before sample i (see
-    ``fringe.demodulate.turn_boundaries``).
+    """Boolean (n,): True where a new block starts before sample i.
 
-    psi = (theta - theta0) mod 2 pi is computed once per sample, and a crossing of theta0 is a
-    jump of psi by more than pi between neighbours (either sense; steps are below pi). Because
-    both neighbours of a sample see the same psi, every crossing starts exactly one block. A
-    sample within ANGLE_TIE_RAD below a multiple of 2 pi counts as on it (psi near 0), so a
-    sample lying on theta0 + 2 pi k (to rounding) is the first of a turn (psi in [0, 2 pi)):
-    it starts its block when theta increases and ends it when theta decreases, whatever the
-    rounding.
+    See ``fringe.demodulate.turn_boundaries``. psi = (theta - theta0) mod 2 pi is computed once
+    per sample, and a crossing of theta0 is a jump of psi by more than pi between neighbours
+    (either sense; steps are below pi). Because both neighbours of a sample see the same psi,
+    every crossing starts exactly one block. A sample within ANGLE_TIE_RAD below a multiple of
+    2 pi counts as on it (psi near 0), so a sample lying on theta0 + 2 pi k (to rounding) is the
+    first of a turn (psi in [0, 2 pi)): it starts its block when theta increases and ends it
+    when theta decreases, whatever the rounding.
     """
     n = theta.size
     out = np.zeros(n, np.bool_)

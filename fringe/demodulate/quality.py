@@ -1,10 +1,10 @@
 """The quality summary of a run file, read before fitting (``fringe inspect``).
 
 :func:`inspect_run` streams the record once for the sample statistics (span, rate, gaps, NaNs),
-runs stage 1 (:func:`fringe.demodulate.engine.run_stage1`) for the turns (count, period, rate stability,
-glitches), and computes, on the first ``max_spectral_samples`` samples laid on a regular grid
-(missing samples NaN), the overlapping Allan deviation of the fractional signal and its amplitude
-spectrum around twice the rotation frequency, where the sidereal sidebands
+runs stage 1 (:func:`fringe.demodulate.engine.run_stage1`) for the turns (count, period, rate
+stability, glitches), and computes, on the first ``max_spectral_samples`` samples laid on a
+regular grid (missing samples NaN), the overlapping Allan deviation of the fractional signal and
+its amplitude spectrum around twice the rotation frequency, where the sidereal sidebands
 2 f_R +- f_sid, 2 f_R +- 2 f_sid are marked.
 """
 
@@ -35,6 +35,12 @@ class InspectReport:
     lines_hz: dict
 
     def summary(self) -> str:
+        """The report as plain text lines.
+
+        Site, apparatus, epoch and span; sampling, gaps and NaN samples; turns (period, scatter,
+        accepted/glitch/partial); median per-turn residual RMS in signal units; and the Allan
+        deviation of the fractional signal per averaging time tau (s).
+        """
         s, m = self.stats, self.meta
         lines = [f"run file {m['path']}",
                  f"site: lat {m['site']['latitude_deg']:.4f} deg, lon "
@@ -57,6 +63,10 @@ class InspectReport:
         return "\n".join(lines)
 
     def to_dict(self) -> dict:
+        """The run's metadata, sample and turn statistics, Allan deviation and marked lines (Hz).
+
+        Plain JSON-ready types; the spectrum arrays are left out.
+        """
         return {"meta": self.meta, "stats": self.stats, "allan": self.allan.to_dict(),
                 "lines_hz": self.lines_hz}
 

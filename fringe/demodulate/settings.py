@@ -1,4 +1,8 @@
-"""Stage-1 settings: the per-turn model (drift polynomial, harmonics), the rejection rules and the leakage columns recorded per turn."""
+"""Stage-1 settings: the per-turn model, the rejection rules and the leakage columns per turn.
+
+The per-turn model is a drift polynomial plus harmonics of the turntable angle; the leakage
+columns are recorded per turn (``TurnTable.leak``).
+"""
 
 from __future__ import annotations
 
@@ -31,7 +35,8 @@ class DemodSettings:
         A time gap longer than this starts a new block, s (default: a quarter of the estimated
         turn period).
     glitch_threshold : float
-        Robust rejection threshold in units of the MAD-estimated sigma (see module docstring).
+        Robust rejection threshold in units of the MAD-estimated sigma (see the glitch rule in
+        :mod:`fringe.demodulate.blocks`).
     """
 
     drift: str = "linear"
@@ -55,6 +60,11 @@ class DemodSettings:
 
     @property
     def term_names(self) -> tuple[str, ...]:
+        """Names of the block-model terms, in column order.
+
+        Drift terms a0, a1[, a2] (powers of tau), then c1, s1, ..., cM, sM (cos and sin of
+        m theta up to ``max_harmonic``).
+        """
         drift = ("a0", "a1", "a2")[:DRIFT_TERMS[self.drift]]
         harm = []
         for m in range(1, self.max_harmonic + 1):
@@ -63,12 +73,15 @@ class DemodSettings:
 
     @property
     def n_terms(self) -> int:
+        """Number of block-model terms (columns of ``TurnTable.coef``)."""
         return len(self.term_names)
 
     def index(self, name: str) -> int:
+        """Column of the term ``name`` (one of :attr:`term_names`) in the block model."""
         return self.term_names.index(name)
 
     def to_dict(self) -> dict:
+        """The settings as a dict field name -> value."""
         return {f.name: getattr(self, f.name) for f in fields(self)}
 
 
@@ -77,8 +90,8 @@ def leak_terms(settings: DemodSettings) -> tuple[tuple[str, int], ...]:
 
     ("C", j) is tau^j cos 2 theta, ("B", j) is tau^j sin 2 theta (j = 1 ... LEAK_ORDER) and
     ("A", j) is tau^j for the powers above the drift polynomial (up to LEAK_ORDER); tau is the
-    block's normalised time (module docstring). Lower powers are in the block model, whose
-    (C, B) responses are exactly 1 (cos 2 theta -> C, sin 2 theta -> B) or 0.
+    block's normalised time (:mod:`fringe.demodulate.blocks`). Lower powers are in the block
+    model, whose (C, B) responses are exactly 1 (cos 2 theta -> C, sin 2 theta -> B) or 0.
     """
     nd = DRIFT_TERMS[settings.drift]
     return (tuple(("C", j) for j in range(1, LEAK_ORDER + 1))

@@ -85,8 +85,10 @@ def segment_bounds(n: int, size: int) -> list[tuple[int, int]]:
 
 
 def save_arrays(scratch: Scratch, prefix: str, arrays: dict) -> None:
-    """Write each array to its own raw .npy file ``prefix-NAME.npy`` in the scratch directory
-    (plain writes: cheaper than HDF5 for data read back once or twice, whole)."""
+    """Write each array to its own raw .npy file ``prefix-NAME.npy`` in the scratch directory.
+
+    Plain writes: cheaper than HDF5 for data read back once or twice, whole.
+    """
     for name, arr in arrays.items():
         path = scratch.file(f"{prefix}-{name.replace('/', '~')}.npy")
         try:
@@ -132,31 +134,44 @@ class TurnStore:
 
     @classmethod
     def in_memory(cls, table: TurnTable, segment_turns: int | None = None) -> TurnStore:
+        """A store that keeps ``table`` in memory.
+
+        Parameters
+        ----------
+        table : TurnTable
+            The whole stage-1 table (kept, not copied).
+        segment_turns : int, optional
+            Rows per segment of :meth:`segments` (default :data:`SEGMENT_TURNS`).
+        """
         return cls(table.settings, table.status, table.residual_rms, table=table,
                    segment_turns=segment_turns)
 
     @property
     def on_disk(self) -> bool:
+        """True when the table is in scratch files rather than in memory."""
         return self._table is None
 
     @property
     def n_blocks(self) -> int:
+        """Number of blocks (turns) in the table."""
         return int(self.status.size)
 
     @property
     def accepted(self) -> NDArray:
+        """Boolean mask of the accepted blocks (status ACCEPTED), shape (n_blocks,)."""
         return self.status == TurnTable.ACCEPTED
 
     def counts(self) -> dict:
+        """Blocks in all and per status, as :func:`~fringe.demodulate.turns.status_counts`."""
         return status_counts(self.status)
 
     def apply_glitch_rule(self) -> None:
+        """Mark glitched blocks in ``status`` (:func:`~fringe.demodulate.turns.glitch_status`)."""
         glitch_status(self.status, self.residual_rms, self.settings.glitch_threshold)
         self._median = None
 
     def median_accepted_rms(self) -> float:
-        """Median residual RMS of the accepted turns (the white per-sample level), signal
-        units."""
+        """Median residual RMS of the accepted turns (the white per-sample level), signal units."""
         if self._median is None:
             self._median = float(np.median(self.residual_rms[self.accepted],
                                            overwrite_input=True))
@@ -181,8 +196,10 @@ class TurnStore:
             yield lo, self._segment(i, lo, hi)
 
     def load(self) -> TurnTable:
-        """The whole table in memory (for the fits that need it whole: medium, rms_kt,
-        the one-stage cross-check)."""
+        """The whole table in memory.
+
+        For the fits that need it whole: medium, rms_kt, the one-stage cross-check.
+        """
         if self._table is not None:
             return self._table
         builder = TurnTableBuilder(self.settings, self.n_blocks)
@@ -192,10 +209,11 @@ class TurnStore:
 
 
 class SpillingTurnBuilder:
-    """Joins stage 1's range tables; past SEGMENT_TURNS rows (and with a ``scratch``), writes
-    each full segment of SEGMENT_TURNS rows to scratch files instead of keeping it.
+    """Joins stage 1's range tables, spilling full segments to scratch files.
 
-    ``append`` takes the range tables in order; ``finish`` gives the :class:`TurnStore`.
+    Past SEGMENT_TURNS rows (and with a ``scratch``), each full segment of SEGMENT_TURNS rows is
+    written to scratch files instead of kept. ``append`` takes the range tables in order;
+    ``finish`` gives the :class:`TurnStore`.
     """
 
     def __init__(self, settings: DemodSettings, expected_blocks: int,
@@ -212,6 +230,7 @@ class SpillingTurnBuilder:
         self._has_leak = True
 
     def append(self, table: TurnTable) -> None:
+        """Add the next range's table; with a scratch, write out every full segment."""
         self._buffer.append(table)
         while self._scratch is not None and self._buffer.size >= self._size:
             whole = self._buffer.finish()
@@ -232,6 +251,11 @@ class SpillingTurnBuilder:
         self._segments += 1
 
     def finish(self) -> TurnStore:
+        """The :class:`TurnStore` of the rows appended.
+
+        In memory if no segment was written, else in scratch files (the last, partial segment
+        is written too).
+        """
         if self._segments == 0:
             return TurnStore.in_memory(self._buffer.finish(), self._size)
         if self._buffer.size:
@@ -250,8 +274,11 @@ def _copy(table: TurnTable) -> TurnTable:
 
 
 class _GrowingColumns:
-    """Status (int8) and residual RMS (float64) of the rows written, in arrays allocated for
-    about the expected rows and grown by half when more come (no joined copy at the end)."""
+    """Status (int8) and residual RMS (float64) of the rows written.
+
+    The arrays are allocated for about the expected rows and grown by half when more come (no
+    joined copy at the end).
+    """
 
     def __init__(self, expected: int):
         self._status = np.empty(max(int(expected), 16), np.int8)

@@ -46,20 +46,22 @@ class TurnTable:
 
     @property
     def n_blocks(self) -> int:
+        """Number of blocks (turns) in the table."""
         return int(self.t_mid_s.size)
 
     @property
     def accepted(self) -> NDArray:
+        """Boolean mask of the accepted blocks (status ACCEPTED), shape (n_blocks,)."""
         return self.status == self.ACCEPTED
 
     @property
     def C(self) -> NDArray:
-        """cos 2 theta amplitudes, signal units."""
+        """Cos 2 theta amplitudes, signal units."""
         return self.coef[:, self.settings.index("c2")]
 
     @property
     def B(self) -> NDArray:
-        """sin 2 theta amplitudes, signal units."""
+        """Sin 2 theta amplitudes, signal units."""
         return self.coef[:, self.settings.index("s2")]
 
     def formal_cov(self) -> NDArray:
@@ -67,10 +69,11 @@ class TurnTable:
         return self.residual_rms[:, None, None] ** 2 * self.ninv_2
 
     def counts(self) -> dict:
+        """Blocks in all and per status, as :func:`status_counts`."""
         return status_counts(self.status)
 
     def apply_glitch_rule(self) -> None:
-        """Mark glitched blocks (module docstring rule) among the non-partial ones."""
+        """Mark glitched blocks among the non-partial ones (rule of :func:`glitch_status`)."""
         glitch_status(self.status, self.residual_rms, self.settings.glitch_threshold)
 
     def rows(self, lo: int, hi: int) -> TurnTable:
@@ -94,8 +97,12 @@ def status_counts(status: NDArray) -> dict:
 
 
 def glitch_status(status: NDArray, residual_rms: NDArray, threshold: float) -> None:
-    """Set status GLITCH (in place) where the residual RMS exceeds median + threshold x
-    1.4826 x MAD of the residual RMS of the accepted blocks (module docstring rule)."""
+    """Set status GLITCH (in place) on accepted blocks whose residual RMS is too large.
+
+    The limit is median + ``threshold`` x 1.4826 x MAD of the residual RMS of the accepted blocks
+    (the rule stated in :mod:`fringe.demodulate.blocks`). Fewer than 5 accepted blocks: nothing
+    is marked.
+    """
     good = status == TurnTable.ACCEPTED
     if np.sum(good) < 5:
         return
@@ -107,9 +114,11 @@ def glitch_status(status: NDArray, residual_rms: NDArray, threshold: float) -> N
 
 
 class TurnTableBuilder:
-    """Joins the turn tables of consecutive ranges as they arrive, into arrays allocated once
-    for about ``expected_blocks`` rows (grown by half when more arrive), so the per-range
-    tables can be dropped at once: the peak memory is the table itself, not twice it."""
+    """Joins the turn tables of consecutive ranges as they arrive, into arrays allocated once.
+
+    The arrays hold about ``expected_blocks`` rows (grown by half when more arrive), so the
+    per-range tables can be dropped at once: the peak memory is the table itself, not twice it.
+    """
 
     _ROW_FIELDS = ("t_mid_s", "t_start_s", "t_stop_s", "n_valid", "coef", "ninv_2",
                    "residual_rms", "angle_gap_deg", "status", "leak")
@@ -136,6 +145,7 @@ class TurnTableBuilder:
         self._capacity = capacity
 
     def append(self, table: TurnTable) -> None:
+        """Copy the rows of ``table`` after those received so far (growing the arrays if full)."""
         n = table.n_blocks
         if n == 0:
             return
@@ -159,8 +169,10 @@ class TurnTableBuilder:
         return self._size
 
     def clear(self) -> None:
-        """Drop the rows received (the arrays are kept and refilled; tables from
-        :meth:`finish` are views of them)."""
+        """Drop the rows received.
+
+        The arrays are kept and refilled; tables from :meth:`finish` are views of them.
+        """
         self._size = 0
 
     def finish(self) -> TurnTable:

@@ -2,11 +2,12 @@
 
 Every apparatus is a set of *modes*. A mode has a sensitivity tensor ``M`` (the projector n n of
 its axis for a Fabry-Perot cavity or an interferometer arm, or a general tensor from the mode
-integrals, physics reference §1.11) given in the **turntable frame** (x' = path 1, y' = 90 deg
-counter-clockwise from it seen from above, z' = table axis) or, for a lab-fixed mode, in the lab
-frame. The two-way fractional change of a mode is ``M_lab : T + tr(M) s`` (see
-:mod:`fringe.theories.base`) and the observable is a weighted sum over modes (linear kinds) or an
-exact function of the per-mode changes (the Michelson fringe count).
+integrals, docs/theory.md, "General mode-sensitivity tensor") given in the **turntable frame**
+(x' = path 1, y' = 90 deg counter-clockwise from it seen from above, z' = table axis) or, for a
+lab-fixed mode, in the lab frame. The two-way fractional change of a mode is
+``M_lab : T + tr(M) s`` (see :mod:`fringe.theories.base`) and the observable is a weighted sum
+over modes (linear kinds) or an exact function of the per-mode changes (the Michelson fringe
+count).
 
 ======================= ==================================================== =============
 kind                    observable                                           units
@@ -85,9 +86,11 @@ class Apparatus:
 
     @property
     def default_units(self) -> str:
+        """Signal units used when a run file or scenario names none (the first allowed)."""
         return self.units_allowed[0]
 
     def check_units(self, units: str) -> str:
+        """Return ``units`` if this kind allows them, else raise :class:`ConfigError`."""
         if units not in self.units_allowed:
             raise ConfigError(f"apparatus {self.kind}: signal units: expected one of "
                               f"{', '.join(repr(u) for u in self.units_allowed)}, got {units!r}")
@@ -148,9 +151,14 @@ class CavityPair(Apparatus):
 
     @property
     def default_units(self):
+        """Signal units used when none are named: "Hz" with a carrier frequency, else "1"."""
         return "Hz" if self.carrier_hz else "1"
 
     def scale(self, units):
+        """Factor from the fractional difference to ``units``: the carrier in Hz for "Hz", else 1.
+
+        Raises :class:`ConfigError` for "Hz" without ``carrier_hz``.
+        """
         self.check_units(units)
         if units == "Hz":
             if not self.carrier_hz:
@@ -159,6 +167,7 @@ class CavityPair(Apparatus):
         return 1.0
 
     def attributes(self):
+        """Kind, path separation (deg) and carrier (Hz, if set), as in a run file."""
         out = {"kind": self.kind, "path_separation_deg": self.path_separation_deg}
         if self.carrier_hz:
             out["carrier_hz"] = self.carrier_hz
@@ -199,6 +208,7 @@ class CavityVsReference(CavityPair):
         object.__setattr__(self, "weights", weights)
 
     def attributes(self):
+        """Kind, reference ("atomic" or azimuth, deg) and carrier (Hz, if set), as in a run file."""
         out = {"kind": self.kind, "reference": self.reference}
         if self.carrier_hz:
             out["carrier_hz"] = self.carrier_hz
@@ -253,18 +263,22 @@ class Michelson(Apparatus):
 
     @property
     def arm_lengths_m(self) -> NDArray:
+        """Lengths of arms 1 and 2 (one way, per pass), m; arm 2 defaults to arm 1."""
         l2 = self.arm_length_2_m if self.arm_length_2_m is not None else self.arm_length_m
         return np.array([self.arm_length_m, l2])
 
     def linear_weights(self, units):
+        """Fringes per unit two-way fractional change of arms 1, 2: -(2 passes/lambda) (L1, -L2)."""
         self.check_units(units)
         return -(2.0 * self.passes / self.wavelength_m) * self.arm_lengths_m * np.array([1, -1])
 
     def combine(self, mode_shifts, units):
+        """Exact fringe count Delta N from the per-arm changes delta, (n, 2) -> (n,); see Notes."""
         self.check_units(units)
         return (mode_shifts / (1.0 + mode_shifts)) @ self.linear_weights(units)
 
     def attributes(self):
+        """Kind, arm lengths (m), wavelength (m), passes, arm separation (deg), as in a run file."""
         out = {"kind": self.kind, "arm_length_m": self.arm_length_m,
                "wavelength_m": self.wavelength_m, "passes": self.passes,
                "path_separation_deg": self.path_separation_deg}
@@ -303,10 +317,12 @@ class OrientedClock(Apparatus):
         object.__setattr__(self, "modes", (mode,))
 
     def scale(self, units):
+        """Factor to the signal in Hz: ``sensitivity_hz``."""
         self.check_units(units)
         return float(self.sensitivity_hz)
 
     def attributes(self):
+        """Kind, sensitivity (Hz) and axis, as in a run file."""
         return {"kind": self.kind, "sensitivity_hz": self.sensitivity_hz, "axis": self.axis}
 
 

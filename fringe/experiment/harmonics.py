@@ -130,6 +130,12 @@ class HarmonicTable:
         return out
 
     def to_dict(self) -> dict:
+        """The table as plain JSON (harmonics in ``units`` per unit coefficient).
+
+        Keys: units, reference instant and orbital phase (rad), the harmonic and orbit-term
+        names, the coefficient values, the harmonics per unit coefficient (``per_unit``), the
+        :meth:`contribution` view, the annual-modulation fit (``annual``) and the uncaptured RMS.
+        """
         return {
             "units": self.units, "t_ref_utc": self.t_ref_utc,
             "orbital_phase_ref_rad": self.orbital_phase_ref_rad,

@@ -46,6 +46,7 @@ class Prediction:
     peak_to_peak: float
 
     def summary(self) -> str:
+        """Readable text: theory and nonzero coefficients, map peak-to-peak and harmonic table."""
         c = self.scenario["coefficients"]
         vals = ", ".join(f"{k}={v:.3g}" for k, v in c.items() if v) or "(all zero)"
         return (f"prediction for {self.scenario['title'] or self.scenario['source']}\n"
@@ -54,6 +55,11 @@ class Prediction:
                 f"{self.units}\n\n" + self.table.summary())
 
     def to_dict(self) -> dict:
+        """The prediction as plain JSON; the signal map is left out.
+
+        Keys: format tag and version, scenario, units, peak-to-peak (in ``units``) and the
+        harmonic table (:meth:`HarmonicTable.to_dict`).
+        """
         return {"fringe_format": "prediction", "fringe_format_version": 1,
                 "scenario": self.scenario, "units": self.units,
                 "peak_to_peak": self.peak_to_peak, "harmonics": self.table.to_dict()}

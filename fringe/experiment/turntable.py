@@ -56,7 +56,7 @@ class ContinuousRotation:
 
     @property
     def rate_rad_s(self) -> float:
-        """d theta / dt, rad/s (positive for ccw)."""
+        """Rate d theta / dt, rad/s (positive for ccw)."""
         return SENSES[self.sense] * 2.0 * math.pi / self.period_s
 
     def azimuth_rad(self, t_s: ArrayLike) -> NDArray:
@@ -64,9 +64,11 @@ class ContinuousRotation:
         return math.radians(self.start_azimuth_deg) - self.rate_rad_s * np.asarray(t_s, float)
 
     def dwelling(self, t_s: ArrayLike) -> NDArray:
+        """All False, shape of ``t_s``: a continuously turning table never rests at a mark."""
         return np.zeros(np.shape(t_s), dtype=bool)
 
     def to_dict(self) -> dict:
+        """The motion as a scenario table (``motion = "continuous"`` plus its fields)."""
         return {"motion": "continuous", "period_s": self.period_s, "sense": self.sense,
                 "start_azimuth_deg": self.start_azimuth_deg}
 
@@ -117,6 +119,7 @@ class SteppedRotation:
         return k + frac, into < self.dwell_s
 
     def azimuth_rad(self, t_s: ArrayLike) -> NDArray:
+        """Unwrapped azimuth of path 1 at times ``t_s`` (s), radians."""
         steps, _ = self._phase(t_s)
         return (math.radians(self.start_azimuth_deg)
                 - SENSES[self.sense] * math.radians(self.step_deg) * steps)
@@ -126,6 +129,7 @@ class SteppedRotation:
         return self._phase(t_s)[1]
 
     def to_dict(self) -> dict:
+        """The motion as a scenario table (``motion = "stepped"`` plus its fields)."""
         return {"motion": "stepped", "step_deg": self.step_deg, "dwell_s": self.dwell_s,
                 "move_s": self.move_s, "sense": self.sense,
                 "start_azimuth_deg": self.start_azimuth_deg}
@@ -139,13 +143,16 @@ class RecordedAzimuth:
     azimuth_rad_samples: NDArray
 
     def azimuth_rad(self, t_s: ArrayLike) -> NDArray:
+        """Azimuth of path 1 at times ``t_s`` (s), radians, interpolated in unwrapped azimuth."""
         return np.interp(np.asarray(t_s, float), self.t_s,
                          np.unwrap(self.azimuth_rad_samples))
 
     def dwelling(self, t_s: ArrayLike) -> NDArray:
+        """All False, shape of ``t_s``: recorded motion has no dwell marks."""
         return np.zeros(np.shape(t_s), dtype=bool)
 
     def to_dict(self) -> dict:
+        """A summary for metadata: ``motion = "recorded"`` and the number of samples."""
         return {"motion": "recorded", "n_samples": int(np.size(self.t_s))}
 
 
@@ -165,6 +172,7 @@ class AxisTilt:
 
     @property
     def is_zero(self) -> bool:
+        """True when both tilt components are exactly zero."""
         return self.south_rad == 0.0 and self.east_rad == 0.0
 
 

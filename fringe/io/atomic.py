@@ -55,6 +55,17 @@ def write_atomic(path: str | os.PathLike, writer: Callable[[str], None], *,
 
 
 def write_text_atomic(path, text: str, **kw) -> Path:
+    """Write ``text`` (UTF-8) to ``path`` whole or not at all; return the path written.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The target file.
+    text : str
+        The full contents.
+    **kw
+        ``overwrite`` and ``protect``, as for :func:`write_atomic`.
+    """
     def _w(tmp):
         with open(tmp, "w", encoding="utf-8") as fh:
             fh.write(text)
@@ -62,6 +73,10 @@ def write_text_atomic(path, text: str, **kw) -> Path:
 
 
 def write_json_atomic(path, obj, **kw) -> Path:
+    """Write ``obj`` as indented JSON (keys in their given order) to ``path``, whole or not at all.
+
+    ``**kw`` are ``overwrite`` and ``protect``, as for :func:`write_atomic`; returns the path.
+    """
     return write_text_atomic(path, json.dumps(obj, indent=2, sort_keys=False) + "\n", **kw)
 
 

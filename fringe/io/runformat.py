@@ -292,8 +292,12 @@ def _first(mask: NDArray[np.bool_]) -> int:
 
 def check_time_values(t_s: NDArray, start: int, prev_s: float | None,
                       obj: str = "samples/time") -> float | None:
-    """Times t_s (s) must be finite and strictly increasing, also after ``prev_s`` (the last
-    time of the previous chunk); ``start`` is the index of ``t_s[0]``. Returns the last time."""
+    """Check that times t_s (s) are finite and strictly increasing; return the last time (s).
+
+    The first time must also come after ``prev_s`` (the last time of the previous chunk, s);
+    ``start`` is the index of ``t_s[0]`` in the record, for the message. An empty chunk returns
+    ``prev_s``. A broken rule raises :class:`Invalid` naming ``obj`` and the index.
+    """
     bad = ~np.isfinite(t_s)
     if bad.any():
         i = _first(bad)

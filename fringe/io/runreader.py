@@ -189,8 +189,11 @@ class RunFile:
 
     @contextlib.contextmanager
     def _guard(self):
-        """Turn HDF5 read failures into one-line errors (h5py raises OSError, or KeyError when
-        an object header is damaged; only h5py calls run inside this guard)."""
+        """Turn HDF5 read failures into one-line errors.
+
+        h5py raises OSError, or KeyError when an object header is damaged; only h5py calls run
+        inside this guard.
+        """
         try:
             yield
         except (OSError, RuntimeError, KeyError) as exc:
@@ -379,8 +382,10 @@ class RunFile:
         return next(chunks)
 
     def read_group_attrs(self, name: str) -> dict:
-        """Attributes of group ``name`` (e.g. ``"truth"``): scalars as Python numbers/strings,
-        arrays as numpy arrays."""
+        """Attributes of group ``name`` (e.g. ``"truth"``), as a dict.
+
+        Scalars come back as Python numbers/strings, arrays as numpy arrays.
+        """
         with self._guard():
             group = self._group(name, "a group of that name")
             return {k: plain(v) for k, v in group.attrs.items()}
@@ -410,8 +415,11 @@ class RunFile:
 
 
 def _check_dtype(dtype: np.dtype, name: str, err) -> None:
-    """Storage types: time float64 or integer; azimuth float64; signal float32/float64;
-    auxiliary channels any integer or float32/float64."""
+    """Check a channel's storage type, raising ``err(expected)`` if it is not allowed.
+
+    Time float64 or integer; azimuth float64; signal float32/float64; auxiliary channels any
+    integer or float32/float64.
+    """
     kind, size = dtype.kind, dtype.itemsize
     if name == "time":
         if not ((kind == "f" and size >= 8) or kind in "iu"):

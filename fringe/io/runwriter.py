@@ -64,8 +64,11 @@ def _check_output_path(path: str, overwrite: bool, protect: Sequence) -> None:
 
 
 def _fixed_strings(values) -> np.ndarray:
-    """UTF-8 strings as fixed-length HDF5 strings: stored inside the (checksummed) object
-    header, not in the global heap, where damage can make the HDF5 library loop forever."""
+    """UTF-8 strings as fixed-length HDF5 strings.
+
+    They are stored inside the (checksummed) object header, not in the global heap, where damage
+    can make the HDF5 library loop forever.
+    """
     encoded = np.asarray(np.char.encode(np.asarray(values, dtype=str), "utf-8"))
     return encoded.astype(h5py.string_dtype("utf-8", max(1, encoded.dtype.itemsize)))
 

@@ -338,8 +338,11 @@ def adev(y: ArrayLike, sample_interval_s: float, m: ArrayLike | None = None) -> 
 
 
 def _prepare(y, sample_interval_s, m, name):
-    """Validate inputs; return (mean-removed y with NaN -> 0, NaN running count or None,
-    tau0, averaging factors, number of NaN samples)."""
+    """Validate the inputs of a deviation and prepare them.
+
+    Returns (mean-removed y with NaN -> 0, NaN running count or None, tau0, averaging factors,
+    number of NaN samples).
+    """
     tau0 = check_finite_number(sample_interval_s, name, "sample_interval_s", positive=True)
     try:
         arr = np.asarray(y, dtype=float)

@@ -147,8 +147,7 @@ class PowerLawNoise:
                    f_h_hz=f_h)
 
     def bandwidth_hz(self, sample_interval_s: float | None = None) -> float | None:
-        """White-PM bandwidth f_h, Hz: ``f_h_hz`` if set, else 1 / (2 sample_interval_s),
-        else None."""
+        """White-PM bandwidth f_h, Hz: ``f_h_hz`` if set, else 1/(2 sample_interval_s), or None."""
         return _bandwidth(self.f_h_hz, sample_interval_s)
 
     def psd(self, f_hz: ArrayLike) -> NDArray[np.float64]:
@@ -208,8 +207,7 @@ class PowerLawNoise:
 
     @classmethod
     def from_dict(cls, data: dict) -> PowerLawNoise:
-        """Model from :meth:`to_dict` output; missing coefficients are 0, unknown keys an
-        error."""
+        """Model from :meth:`to_dict` output; missing coefficients are 0, unknown keys an error."""
         if not isinstance(data, dict):
             raise ConfigError(f"noise: expected a mapping, got {type(data).__name__}")
         reject_unknown_fields(data, _FIELDS, "noise:")

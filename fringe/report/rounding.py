@@ -1,11 +1,11 @@
-"""Round a value to its uncertainty (Particle Data Group rule) and format it.
+r"""Round a value to its uncertainty (Particle Data Group rule) and format it.
 
 Which function for which job:
 
 * :func:`pdg_round` -- the rounded pair as mantissa strings and a common power of ten,
   ``(value_str, sigma_str, exponent)``; the building block of every table.
 * :func:`format_value` -- one string, ``"(1.2 ± 3.4)×10⁻¹⁷"`` (``style="unicode"``),
-  ``"$(1.2 \\pm 3.4)\\times10^{-17}$"`` (``"latex"``) or ``"1.2e-17 ± 3.4e-17"`` (``"plain"``).
+  ``"$(1.2 \pm 3.4)\times10^{-17}$"`` (``"latex"``) or ``"1.2e-17 ± 3.4e-17"`` (``"plain"``).
 * :func:`pdg_place` and :func:`format_interval` -- round other numbers (interval ends) to the
   decimal place the rule chose for the uncertainty, so a table row is rounded consistently.
 * :func:`format_bound` -- a one-sided bound (``|value| + k sigma``), rounded *up* to two
@@ -236,14 +236,14 @@ def format_mantissas(value_str: str, sigma_str: str, exponent: int, style: str =
 
 def format_value(value: float, sigma: float, style: str = "unicode", *,
                  exponent: int | None = None) -> str:
-    """``value ± sigma`` rounded by the PDG rule, as one string.
+    r"""``value ± sigma`` rounded by the PDG rule, as one string.
 
     Parameters
     ----------
     value, sigma : float
         Central value and 1-sigma uncertainty (same unit).
     style : {"unicode", "latex", "plain"}
-        ``"(1.2 ± 3.4)×10⁻¹⁷"``, ``"$(1.2 \\pm 3.4)\\times10^{-17}$"`` or
+        ``"(1.2 ± 3.4)×10⁻¹⁷"``, ``"$(1.2 \pm 3.4)\times10^{-17}$"`` or
         ``"1.2e-17 ± 3.4e-17"``.
     exponent : int, optional
         Power of ten to display (default as in :func:`pdg_round`).
@@ -253,7 +253,7 @@ def format_value(value: float, sigma: float, style: str = "unicode", *,
     >>> format_value(1.234e-17, 0.345e-17)
     '(1.23 ± 0.35)×10⁻¹⁷'
     >>> format_value(1.234e-17, 0.345e-17, "latex")
-    '$(1.23 \\\\pm 0.35)\\\\times10^{-17}$'
+    '$(1.23 \\pm 0.35)\\times10^{-17}$'
     >>> format_value(1.234e-17, 0.345e-17, "plain")
     '1.23e-17 ± 0.35e-17'
     """

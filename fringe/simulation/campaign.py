@@ -2,11 +2,11 @@
 
 :func:`simulate` writes a run file chunk by chunk (a year at 1 Hz never sits whole in memory).
 Per chunk: the turntable azimuth (with optional rate jitter: a random walk of the table angle),
-the noise-free signal of the scenario's coefficients (:func:`fringe.experiment.basis.signal`), power-law
-frequency noise (:class:`fringe.noise.NoiseStream`), linear and quadratic drift, a tilt coupling
-at 1 theta and a lab-fixed 2 theta term, glitches (steps or spikes), gaps (no samples) and
-dropped samples (NaN). The injected truth, the noise model, the systematics and the scenario are
-stored in the file's ``truth``, ``settings`` and ``provenance`` groups.
+the noise-free signal of the scenario's coefficients (:func:`fringe.experiment.basis.signal`),
+power-law frequency noise (:class:`fringe.noise.NoiseStream`), linear and quadratic drift, a tilt
+coupling at 1 theta and a lab-fixed 2 theta term, glitches (steps or spikes), gaps (no samples)
+and dropped samples (NaN). The injected truth, the noise model, the systematics and the scenario
+are stored in the file's ``truth``, ``settings`` and ``provenance`` groups.
 
 Scenario sections. For cavity kinds every level is fractional (of Delta nu / nu) and is multiplied
 by the carrier for a signal in Hz; for a Michelson ("fringe") or a clock ("Hz") the levels are in
@@ -39,8 +39,10 @@ from fringe.version import __version__
 
 def noise_model_from_section(section: dict | None, source: str, sample_interval_s: float
                              ) -> PowerLawNoise:
-    """The scenario's ``[noise]`` model (:func:`fringe.noise.noise_from_section`); no section,
-    or an empty one, means a noise-free record."""
+    """The scenario's ``[noise]`` model (:func:`fringe.noise.noise_from_section`).
+
+    No section, or an empty one, means a noise-free record.
+    """
     if not section:
         return PowerLawNoise()
     return noise_from_section(section, source, sample_interval_s)
@@ -82,6 +84,15 @@ class Systematics:
 
     @classmethod
     def from_section(cls, section: dict, source: str) -> Systematics:
+        """Build from a scenario's ``[systematics]`` table (missing fields take their defaults).
+
+        Parameters
+        ----------
+        section : dict or None
+            The table; unknown fields are an error.
+        source : str
+            The scenario file, for the messages.
+        """
         section = dict(section or {})
         reject_unknown_fields(section, {f.name for f in fields(cls)}, f"{source}: [systematics]")
         try:
@@ -90,6 +101,7 @@ class Systematics:
             raise ConfigError(f"{source}: {exc}") from None
 
     def to_dict(self) -> dict:
+        """The fields as a dict name -> value (stored as JSON in the run file's ``settings``)."""
         return {f.name: getattr(self, f.name) for f in fields(self)}
 
 

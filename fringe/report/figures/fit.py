@@ -316,9 +316,9 @@ def plot_residual_adev(t_s: ArrayLike, residuals: Mapping[str, ArrayLike], turn_
     """Overlapping Allan deviation of per-turn residuals (``{"C − model": r, ...}``).
 
     The residuals are laid on the turn grid (tau0 = ``turn_period_s``; rejected or missing turns
-    are NaN and excluded by :func:`fringe.noise.allan.overlapping_adev`). A dotted tau^-1/2 line from
-    the first point shows white noise; vertical lines mark half a sidereal day and a sidereal
-    day.
+    are NaN and excluded by :func:`fringe.noise.allan.overlapping_adev`). A dotted tau^-1/2 line
+    from the first point shows white noise; vertical lines mark half a sidereal day and a
+    sidereal day.
     """
     if ax is None:
         ax = new_axes()

@@ -1,6 +1,8 @@
-"""Figures of a forecast (:class:`fringe.plan.PlanResult`): sigma versus campaign length,
-rotation period and site latitude. Each function takes ``ax=None`` and returns the axes; only
-the command line saves figures."""
+"""Figures of a forecast: sigma versus campaign length, rotation period and site latitude.
+
+The forecast is a :class:`fringe.plan.PlanResult`. Each function takes ``ax=None`` and returns
+the axes; only the command line saves figures.
+"""
 
 from __future__ import annotations
 
