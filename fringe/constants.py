@@ -1,7 +1,7 @@
 """Physical and astronomical constants, each with its source.
 
 Values are SI unless the name says otherwise. Angles in radians unless the name ends in ``_deg``.
-The status labels follow the project's physics reference: "source" (a document or reference
+The status labels are those of docs/references.md [R-labels]: "source" (a document or reference
 library), "derived" (arithmetic on other entries) or "from memory" (standard, not checked
 against the document; verify before citing).
 """
