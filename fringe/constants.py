@@ -1,9 +1,9 @@
 """Physical and astronomical constants, each with its source.
 
 Values are SI unless the name says otherwise. Angles in radians unless the name ends in ``_deg``.
-Each entry carries one status label: "source" (a document or reference library), "derived"
-(arithmetic on other entries) or "from memory" (standard, not checked against the document;
-verify before citing).
+The status labels are those of docs/references.md [R-labels]: "source" (a document or reference
+library), "derived" (arithmetic on other entries) or "from memory" (standard, not checked
+against the document; verify before citing).
 """
 
 from __future__ import annotations

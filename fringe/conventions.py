@@ -1,6 +1,7 @@
 """Every sign, frame and normalisation convention fringe uses, defined once.
 
-The IDs C1-C14 are those of ``docs/conventions.md``, where each convention is stated in full.
+The IDs C1-C14 are explained in ``docs/conventions.md``; their sources are in
+``docs/references.md`` ([R-C1] ... [R-C14]).
 
 * C2 coefficient frame: the Sun-centred celestial equatorial frame (SCCEF), X to the vernal
   equinox, Z along the Earth's rotation axis, Y = Z x X (ICRS axes in practice).

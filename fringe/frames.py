@@ -9,7 +9,8 @@ Which function for which job:
 * :func:`earth_velocity_beta` gives the Earth's heliocentric velocity / c in SCCEF axes, from
   ERFA ``epv00`` on a coarse grid, interpolated with a cubic spline.
 * :func:`rotation_velocity_beta` gives the site's Earth-rotation velocity / c (C12).
-* :func:`rotation_sccef_to_lab` gives R such that v_lab = R v_SCCEF (C5, ``docs/conventions.md``).
+* :func:`rotation_sccef_to_lab` gives R such that v_lab = R v_SCCEF (docs/references.md
+  [R-lab-R]).
 * :func:`frame_state` bundles phi, chi and beta for a set of samples; it is what theories use.
 
 Time model: TAI(sample) = TAI(epoch) + t_s. UT1 is TAI + (UT1 - TAI), with UT1 - TAI held at
@@ -45,7 +46,8 @@ from fringe.site import Site
 TT_MINUS_TAI_S = 32.184
 
 #: Grid step for the ephemeris velocity, s. The cubic spline on a 1 h grid agrees with direct
-#: epv00 to <= 3e-9 m/s (project measurement with pyerfa 2.0.1.5; tests/test_frames.py).
+#: epv00 to <= 3e-9 m/s (project measurement with pyerfa 2.0.1.5, docs/references.md
+#: [R-astro-A10]).
 EPHEMERIS_GRID_S = 3600.0
 
 _ISO_RE = re.compile(
@@ -163,7 +165,8 @@ def sidereal_angle_rad(epoch: Epoch, t_s: ArrayLike, east_longitude_rad: float) 
 def orbital_phase_rad(epoch: Epoch, t_s: ArrayLike) -> NDArray[np.float64]:
     """Orbital phase Omega_earth T, T counted from 2000-03-20 07:35 UT (C3), radians (unwrapped).
 
-    Uses UT1 days; the difference from TT is ~1e-5 rad (C14, ``docs/conventions.md``).
+    Uses UT1 days; the difference from TT is ~1e-5 rad (docs/references.md
+    [R-time-orbital-phase]).
     """
     a, b = epoch.ut1_jd(t_s)
     days = (a - ORBIT_ORIGIN_JD) + b
@@ -204,7 +207,8 @@ def rotation_velocity_beta(phi_rad: ArrayLike, axis_distance_m: float) -> NDArra
 def rotation_sccef_to_lab(colatitude_rad: float, phi_rad: ArrayLike) -> NDArray[np.float64]:
     """Rotation matrix R (v_lab = R v_SCCEF), lab axes (south, east, up), shape (n, 3, 3).
 
-    Rows: local south, local east, zenith (Dec 90 deg - chi, RA phi); C5, ``docs/conventions.md``.
+    Rows: local south, local east, zenith (Dec 90 deg - chi, RA phi); docs/references.md
+    [R-lab-R].
     """
     phi = np.asarray(phi_rad, dtype=float)
     c, s = np.cos(phi), np.sin(phi)
@@ -259,7 +263,9 @@ def frame_state(epoch: Epoch, t_s: ArrayLike, site: Site, *,
 
 def circular_orbit_beta(orbital_phase: ArrayLike, beta_orbit: float,
                         obliquity_rad: float) -> NDArray[np.float64]:
-    """Circular-orbit model of the Earth's velocity over c, SCCEF axes (``docs/theory.md``).
+    """Circular-orbit model of the Earth's velocity over c, SCCEF axes.
+
+    docs/references.md [R-astro-circular-orbit].
 
     beta = beta_orbit (sin OT, -cos eta cos OT, -sin eta cos OT). For design and closed forms.
     """

@@ -96,7 +96,8 @@ def test_matches_allantools(ours, theirs):
 
 # ---------------------------------------------------------------------------------------------
 # (c) White FM: sigma_y(tau) = sqrt(h0 / (2 tau)), h0 = 2 sigma^2 tau0 for white samples of
-# standard deviation sigma (IEEE Std 1139-2008 Table B.2; checks.md section 9 sizing rule).
+# standard deviation sigma (IEEE Std 1139-2008 Table B.2; docs/references.md [R-noise-powerlaw],
+# [R-noise-sizing]).
 # Band: the relative 1-sigma scatter of the Allan deviation estimate is at most 1/sqrt(N/m)
 # (edf >= N/(2m) for white FM with either estimator; Howe, Allan & Barnes 1981 and Lesage &
 # Audoin 1973 give about 0.58/sqrt(N/m) overlapping and 0.87/sqrt(M) non-overlapping, from

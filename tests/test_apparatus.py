@@ -1,4 +1,5 @@
-"""Apparatus kinds, turntable schedules and the tilt (physics.md §1.11-§1.12, §5; C6-C9)."""
+"""Apparatus kinds, turntable schedules and the tilt ([R-SME-modes], [R-SME-two-path],
+[R-clock-projection]; C6-C9). Anchors [R-...] are entries of docs/references.md."""
 
 import numpy as np
 import oracle
@@ -28,8 +29,8 @@ from fringe.theories.clock import DirectionalClock
 from fringe.theories.medium import ClassicalMedium
 from fringe.theories.sme import SME_NAMES, SmePhoton
 
-CHI = np.radians(37.48)                                   # checks.md common inputs
-ETA = np.radians(23.4392794)                              # checks.md common inputs
+CHI = np.radians(37.48)                                   # [R-vec-common]
+ETA = np.radians(23.4392794)                              # [R-vec-common]
 SUN_MEDIUM = {"sun_vX_kms": -359.0, "sun_vY_kms": 76.7, "sun_vZ_kms": -44.7}   # ~CMB, invented
 SME = SmePhoton()
 # float64 floor of an SME signal: a ktr is an O(1) isotropic rest-frame tensor whose boosted
@@ -64,7 +65,7 @@ def test_michelson_is_minus_two_l_over_lambda_times_s():
     pair = basis(setup_for(CavityPair()), np.zeros(20), az, state=state)
     mich = basis(setup_for(Michelson(arm_length_m=length, wavelength_m=wavelength)),
                  np.zeros(20), az, state=state)
-    # physics.md §1.12: Delta N = -(2L/lambda) S, linearised (exact for the basis)
+    # [R-SME-two-path]: Delta N = -(2L/lambda) S, linearised (exact for the basis)
     np.testing.assert_allclose(mich, -(2 * length / wavelength) * pair, rtol=1e-13,
                                atol=1e-13 * np.abs(mich).max())
 
@@ -127,10 +128,11 @@ def test_second_path_sign_and_swap(theory, params):
 
     ref = s(90.0, az)
     tol = 1e-14 * np.abs(ref).max() + KTR_ROUNDING * abs(params.get("ktr", 0.0))
-    # checks.md §2, derived (arithmetic): second path at +90 deg or -90 deg (270): S unchanged
+    # [R-struct-second-path], derived (arithmetic): second path at +90 deg or
+    # -90 deg (270): S unchanged
     np.testing.assert_allclose(s(-90.0, az), ref, rtol=1e-12, atol=tol)
     np.testing.assert_allclose(s(270.0, az), ref, rtol=1e-12, atol=tol)
-    # checks.md §2, derived: swapping the two paths (or the beat nu2 - nu1): S -> -S
+    # [R-struct-swap], derived: swapping the two paths (or the beat nu2 - nu1): S -> -S
     np.testing.assert_allclose(s(-90.0, az + np.pi / 2), -ref, rtol=1e-12, atol=tol)
 
 
@@ -169,7 +171,7 @@ def test_fixed_reference_cavity():
 
 
 def test_ring_mode_is_minus_half_fabry_perot():
-    """physics.md §1.11: a ring mode circulating in the plane normal to a responds with
+    """[R-SME-modes]: a ring mode circulating in the plane normal to a responds with
     -1/2 of the Fabry-Perot response along a. In fringe's trace-1 normalisation (T = K/2) the
     ring tensor is 1/2 (1 - a a) (the reference's 1/4 (1 - a a) is in the K normalisation)."""
     rng = np.random.default_rng(7)
@@ -330,7 +332,7 @@ def test_clock_table_axis(chi_deg):
         c_lab = r @ c @ r.T
         t = np.pi - a
         q = np.array([np.cos(t), np.sin(t), 0.0])
-        # physics.md §5: delta nu = S q.c_lab.q = S [B_c sin 2t + C_c cos 2t - c_lab^zz / 2]
+        # [R-clock-projection]: delta nu = S q.c_lab.q = S [B_c sin 2t + C_c cos 2t - c_lab^zz / 2]
         assert g == pytest.approx(2.5 * q @ c_lab @ q, rel=1e-12)
         split = (c_lab[0, 1] * np.sin(2 * t) + 0.5 * (c_lab[0, 0] - c_lab[1, 1]) * np.cos(2 * t)
                  - 0.5 * c_lab[2, 2])
@@ -346,7 +348,7 @@ def test_clock_vertical_axis_formula():
     got = signal(setup, CLOCK_PARAMS, np.zeros(8), rng.uniform(0, 6, 8), state=state)
     c = clock_tensor(CLOCK_PARAMS)
     s2, sin2chi, c2 = np.sin(chi) ** 2, np.sin(2 * chi), np.cos(chi) ** 2
-    # physics.md §5, derived: c_lab^zz = sin^2 chi [-1/2 c^ZZ + 1/2 (c^XX - c^YY) cos 2phi +
+    # [R-clock-zz], derived: c_lab^zz = sin^2 chi [-1/2 c^ZZ + 1/2 (c^XX - c^YY) cos 2phi +
     # c^XY sin 2phi] + sin 2chi (c^XZ cos phi + c^YZ sin phi) + cos^2 chi c^ZZ
     czz = (s2 * (-0.5 * c[2, 2] + 0.5 * (c[0, 0] - c[1, 1]) * np.cos(2 * phi)
                  + c[0, 1] * np.sin(2 * phi))

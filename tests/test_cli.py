@@ -40,7 +40,8 @@ def test_predict_writes_table_figure_and_series(tmp_path):
     assert _sha(sc) == before                                   # input untouched
     d = json.loads((tmp_path / "p" / "harmonics.json").read_text())
     chi = math.radians(90.0 - 47.62)
-    # physics.md §2.1 table (derived): C_s2 = 1/2 (1 + cos^2 chi) K^XY, B_c2 = cos chi K^XY;
+    # docs/references.md [R-lab-fourier] (derived): C_s2 = 1/2 (1 + cos^2 chi) K^XY,
+    # B_c2 = cos chi K^XY;
     # the table is in Hz (carrier 2.82e14 Hz); rtol 1e-6 covers the O(beta^2) boost terms
     cs2 = d["harmonics"]["contribution"]["ke_XY"]["Cs2"]
     bc2 = d["harmonics"]["contribution"]["ke_XY"]["Bc2"]

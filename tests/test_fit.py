@@ -6,8 +6,9 @@ sigma. The band is |pull| < 4: two-sided, a per-coefficient false-failure probab
 2 (1 - Phi(4)) = 6.3e-5 (normal tail, scipy.stats.norm.sf(4) = 3.17e-5). All records are
 simulated with fixed seeds, so every run is reproducible.
 
-Noise levels follow the sizing rule of checks.md §9 (white FM, sigma_y(tau) = sqrt(h0 / (2 tau)),
-a 2 theta amplitude over a span T has sigma_C = sqrt(h0 / T)); injected values are tens of sigma.
+Noise levels follow the sizing rule of docs/references.md [R-noise-sizing] (white FM,
+sigma_y(tau) = sqrt(h0 / (2 tau)), a 2 theta amplitude over a span T has sigma_C = sqrt(h0 / T));
+injected values are tens of sigma.
 """
 
 from __future__ import annotations
@@ -118,10 +119,10 @@ def _turn_variance_factors() -> tuple[float, float]:
 
 
 def test_sigma_matches_sizing_rule(sme_white):
-    """Stage-2 sigmas against checks.md §9 with the injected h0 (not the data's noise level).
+    """Stage-2 sigmas against [R-noise-sizing] with the injected h0 (not the data's noise level).
 
     sigma_y(tau) = sqrt(h0 / (2 tau)) gives h0 = 2 (2e-15)^2 s; an amplitude of cos 2 theta over
-    the span T has sigma = sqrt(h0 / T) (checks.md §9, "Rule for sizing synthetic-data tests");
+    the span T has sigma = sqrt(h0 / T) (docs/references.md [R-noise-sizing]);
     a sidereal harmonic of it (C sin phi) carries half the power, so sqrt(2 h0 / T). The B
     (sin 2 theta) terms carry the per-turn variance factor of :func:`_turn_variance_factors`
     (the per-turn drift costs them precision). Band 10 %: the reported sigma is scaled by the
@@ -172,8 +173,8 @@ def test_result_serialises(sme_white):
 
 
 def test_rms_injection_recovery(tmp_path):
-    # P_MM sensitivity ~1.2e-6 per unit (practice.md §7), sigma_C ~ 5.6e-18 over 3 days:
-    # sigma(rms_mm) ~ 5e-12, so 2e-10 is ~40 sigma.
+    # P_MM sensitivity ~1.2e-6 per unit (docs/references.md [R-practice-stage3]),
+    # sigma_C ~ 5.6e-18 over 3 days: sigma(rms_mm) ~ 5e-12, so 2e-10 is ~40 sigma.
     truth = {"rms_mm": 2e-10}
     path, *_ = make_run(tmp_path / "rms.h5", seed=21, days=3.0, theory={"name": "rms"},
                         coefficients=truth)

@@ -1,7 +1,9 @@
-"""Time scales, sidereal angle, Earth velocity and the SCCEF -> lab rotation (checks.md §6-§7).
+"""Time scales, sidereal angle, Earth velocity and the SCCEF -> lab rotation.
 
-astropy is a test-only reference here; it runs with offline IERS data (practice.md §11.4:
-auto_download off and auto_max_age None) and only at dates inside the bundled table.
+Reference values cite their entries of docs/references.md by anchor ([R-time-T1] ... [R-time-T13],
+[R-astro-A1] ... [R-astro-A12]). astropy is a test-only reference here; it runs with offline IERS
+data ([R-lib-astropy-iers]: auto_download off and auto_max_age None) and only at dates inside the
+bundled table.
 """
 
 import math
@@ -45,7 +47,7 @@ def wrap_pi(x):
 
 @pytest.fixture
 def offline_iers():
-    """astropy with the bundled IERS tables only (practice.md §11.4)."""
+    """astropy with the bundled IERS tables only ([R-lib-astropy-iers])."""
     iers = pytest.importorskip("astropy.utils.iers")
     with iers.conf.set_temp("auto_download", False), iers.conf.set_temp("auto_max_age", None):
         yield
@@ -56,10 +58,10 @@ def offline_iers():
 MEEUS = [
     # (UTC, Meeus GMST in seconds of time, ERA - Meeus GMST in seconds of time)
     # Meeus, Astronomical Algorithms 2nd ed. (1998), Example 12.a: 13h10m46.3668s;
-    # checks.md §6 T5 (source: pyerfa 2.0.1.5): ERA - GMST = +39.14 s
+    # [R-time-T5] (source: pyerfa 2.0.1.5): ERA - GMST = +39.14 s
     ("1987-04-10T00:00:00Z", hms_s(13, 10, 46.3668), 39.14),
     # Meeus, Astronomical Algorithms 2nd ed. (1998), Example 12.b: 8h34m57.0896s;
-    # checks.md §6 T5 (source: pyerfa 2.0.1.5): +39.13 s
+    # [R-time-T5] (source: pyerfa 2.0.1.5): +39.13 s
     ("1987-04-10T19:21:00Z", hms_s(8, 34, 57.0896), 39.13),
 ]
 
@@ -69,7 +71,7 @@ def test_gmst82_on_fringe_ut1_matches_meeus(utc, gmst_s, era_minus_gmst_s):
     epoch = Epoch(utc, dut1_s=0.0)                 # Meeus: UT1 := UTC for these examples
     a, b = epoch.ut1_jd([0.0])
     got_s = erfa.gmst82(a[0], b[0]) * SECONDS_OF_TIME_PER_RAD
-    # checks.md §6 T3 (source: pyerfa 2.0.1.5): |gmst82 - Meeus| <= 1e-4 s (Meeus uses IAU 1982)
+    # [R-time-T3] (source: pyerfa 2.0.1.5): |gmst82 - Meeus| <= 1e-4 s (Meeus uses IAU 1982)
     assert abs(got_s - gmst_s) <= 1e-4
 
 
@@ -78,13 +80,13 @@ def test_era_is_not_gmst(utc, gmst_s, era_minus_gmst_s):
     epoch = Epoch(utc, dut1_s=0.0)
     era_s = era_rad(epoch, [0.0])[0] * SECONDS_OF_TIME_PER_RAD
     diff = (era_s - gmst_s + 43_200.0) % 86_400.0 - 43_200.0
-    # checks.md §6 T5 tolerance 0.01 s (values given to 0.01 s)
+    # [R-time-T5] tolerance 0.01 s (values given to 0.01 s)
     assert diff == pytest.approx(era_minus_gmst_s, abs=0.01)
 
 
 def test_era_at_sccef_origin():
     epoch = Epoch("2000-03-20T07:35:00Z", dut1_s=0.0)       # C3 origin, UT1 := UTC
-    # checks.md §6 T7, derived (era00): 291.8926 deg, tol 1e-4 deg
+    # [R-time-T7], derived (era00): 291.8926 deg, tol 1e-4 deg
     assert math.degrees(era_rad(epoch, [0.0])[0]) == pytest.approx(291.8926, abs=1e-4)
     # the orbital phase starts there (C3); UTC vs TT/TAI offsets are < 1e-9 rad here
     assert orbital_phase_rad(epoch, [0.0])[0] == pytest.approx(0.0, abs=1e-9)
@@ -110,12 +112,12 @@ def test_numpy_era_matches_fringe(utc, dut1_s):
     for t, g in zip(t_s, got, strict=True):
         # an independent UT1 from ERFA (no leap second inside these spans)
         a, b = erfa.utcut1(u1, u2 + t / 86_400.0, dut1_s)
-        # checks.md §6 T8 (source: pyerfa 2.0.1.5, measured <= 3e-14 rad): tol 1e-12 rad
+        # [R-time-T8] (source: pyerfa 2.0.1.5, measured <= 3e-14 rad): tol 1e-12 rad
         assert abs(wrap_pi(numpy_era(a, b) - g)) <= 1e-12
 
 
 def test_earth_rotation_rate():
-    # checks.md §6 T9, derived: omega = 7.2921151467e-5 rad/s, stellar day 86 164.09890 s
+    # [R-time-T9], derived: omega = 7.2921151467e-5 rad/s, stellar day 86 164.09890 s
     assert OMEGA_EARTH_RAD_S == pytest.approx(7.2921151467e-5, rel=1e-10)
     assert STELLAR_DAY_S == pytest.approx(86_164.09890, rel=1e-10)
     epoch = Epoch("2026-05-01T00:00:00Z")
@@ -128,13 +130,13 @@ def test_earth_rotation_rate():
 
 def test_leap_second_2016():
     epoch = Epoch("2016-12-31T23:59:59.5Z", dut1_s=-0.4)
-    # checks.md §6 T10 (source: pyerfa 2.0.1.5): 23:59:60.5 exists and is 1.000 s later
+    # [R-time-T10] (source: pyerfa 2.0.1.5): 23:59:60.5 exists and is 1.000 s later
     assert epoch.utc_iso(0.0) == "2016-12-31T23:59:59.500Z"
     assert epoch.utc_iso(1.0) == "2016-12-31T23:59:60.500Z"
     assert epoch.utc_iso(2.0) == "2017-01-01T00:00:00.500Z"
     leap = Epoch("2016-12-31T23:59:60.5Z")
     dt_s = ((leap.tai_jd[0] - epoch.tai_jd[0]) + (leap.tai_jd[1] - epoch.tai_jd[1])) * 86_400.0
-    assert dt_s == pytest.approx(1.0, abs=1e-9)           # checks.md §6 T10 tol 1e-9 s
+    assert dt_s == pytest.approx(1.0, abs=1e-9)           # [R-time-T10] tol 1e-9 s
     # the sidereal angle runs on through the leap second at omega (no 1 s jump)
     t_s = np.array([0.0, 0.5, 1.0, 1.5, 2.0, 3.0])
     phi = np.unwrap(sidereal_angle_rad(epoch, t_s, 0.3))
@@ -159,7 +161,7 @@ def test_tai_minus_utc_on_a_leap_second_day(hms):
 
 
 def test_tai_minus_utc_2026():
-    # checks.md §6 T11 (source: pyerfa leap-second table): 37 s, exact
+    # [R-time-T11] (source: pyerfa leap-second table): 37 s, exact
     assert Epoch("2026-06-01T00:00:00Z").tai_minus_utc_s == 37.0
 
 
@@ -180,7 +182,7 @@ def test_ut1_minus_utc_bundled(offline_iers):
     from astropy.time import Time
 
     d = Time("2020-01-01T00:00:00", scale="utc").get_delta_ut1_utc().to_value("s")
-    # checks.md §6 T13 (source: IERS data bundled with astropy 8.0.2): -0.17717 s, tol 1e-4 s
+    # [R-time-T13] (source: IERS data bundled with astropy 8.0.2): -0.17717 s, tol 1e-4 s
     assert d == pytest.approx(-0.17717, abs=1e-4)
 
 
@@ -215,10 +217,10 @@ def test_cmb_direction_against_astropy():
 
     n = cmb_dipole_unit_vector()
     ra, dec = math.degrees(math.atan2(n[1], n[0])) % 360.0, math.degrees(math.asin(n[2]))
-    # checks.md §7 A1 (source: astropy 8.0.2): RA 167.9419 deg, Dec -6.9443 deg, tol 1e-4 deg
+    # [R-astro-A1] (source: astropy 8.0.2): RA 167.9419 deg, Dec -6.9443 deg, tol 1e-4 deg
     assert ra == pytest.approx(167.9419, abs=1e-4)
     assert dec == pytest.approx(-6.9443, abs=1e-4)
-    # checks.md §7 A3, derived: n = (-0.970762, 0.207371, -0.120904), tol 1e-6
+    # [R-astro-A3], derived: n = (-0.970762, 0.207371, -0.120904), tol 1e-6
     np.testing.assert_allclose(n, [-0.970762, 0.207371, -0.120904], atol=1e-6)
     # reference: astropy 8.0.2 Galactic -> ICRS of the Planck 2018 direction (l, b) =
     # (264.021, 48.253) deg; fringe uses erfa.g2icrs, the same rotation (tol 1e-4 deg = 1.7e-6)
@@ -236,12 +238,12 @@ HOURS_2026 = np.arange(365 * 24) * 3600.0            # 2026-01-01 00:00 ... 2026
 def test_heliocentric_speed_2026():
     v = earth_velocity_beta(YEAR_2026, HOURS_2026)
     speed = np.linalg.norm(v, axis=1) * C_M_S / 1e3
-    # checks.md §7 A5 (source: pyerfa 2.0.1.5 epv00): min 29.2826, max 30.2877 km/s (tol 1e-4)
+    # [R-astro-A5] (source: pyerfa 2.0.1.5 epv00): min 29.2826, max 30.2877 km/s (tol 1e-4)
     assert speed.min() == pytest.approx(29.2826, abs=1e-4)
     assert speed.max() == pytest.approx(30.2877, abs=1e-4)
     # mean 29.782 km/s, given to 3 decimals: half a unit in the last digit
     assert speed.mean() == pytest.approx(29.782, abs=5e-4)
-    # checks.md §7 A5: the minimum falls on 2026-07-01, near aphelion
+    # [R-astro-A5]: the minimum falls on 2026-07-01, near aphelion
     assert YEAR_2026.utc_iso(HOURS_2026[np.argmin(speed)]).startswith("2026-07-01")
 
 
@@ -254,7 +256,7 @@ def test_earth_velocity_against_astropy(offline_iers):
     _, v_earth = get_body_barycentric_posvel("earth", t)
     bary = v_earth.xyz.to_value(u.km / u.s).T
     speed = np.linalg.norm(bary, axis=1)
-    # checks.md §7 A6 (source: pyerfa 2.0.1.5 epv00; reference: astropy 8.0.2 builtin
+    # [R-astro-A6] (source: pyerfa 2.0.1.5 epv00; reference: astropy 8.0.2 builtin
     # ephemeris, which calls epv00): barycentric min 29.2942, max 30.2772 km/s (tol 1e-4),
     # mean 29.783 km/s (3 decimals: tol 5e-4)
     assert speed.min() == pytest.approx(29.2942, abs=1e-4)
@@ -277,15 +279,15 @@ def test_spline_against_direct_epv00(grid_s, tol_m_s):
     a, b = YEAR_2026.tt_jd(t_s)
     pvh, _ = erfa.epv00(a, b)
     direct = pvh["v"] * (149_597_870_700.0 / 86_400.0)   # au/day -> m/s (IAU 2012 au)
-    # checks.md §7 A10 (source: pyerfa 2.0.1.5, measured): <= 3e-9 m/s (1 h grid),
+    # [R-astro-A10] (source: pyerfa 2.0.1.5, measured): <= 3e-9 m/s (1 h grid),
     # <= 2e-9 m/s (10 min grid)
     assert np.abs(got - direct).max() <= tol_m_s
 
 
 def test_circular_orbit_geometry():
-    eta = np.radians(23.4392794)                      # checks.md common inputs
+    eta = np.radians(23.4392794)                      # [R-vec-common]
     b = circular_orbit_beta([0.0, np.pi / 2], 1.0, eta)
-    # physics.md §1.8 geometry: at the March equinox toward ecliptic longitude 270 deg,
+    # [R-astro-circular-orbit] geometry: at the March equinox toward ecliptic longitude 270 deg,
     # (0, -cos eta, -sin eta); at the June solstice along +X (derived)
     np.testing.assert_allclose(b[0], [0.0, -np.cos(eta), -np.sin(eta)], atol=1e-15)
     np.testing.assert_allclose(b[1], [1.0, 0.0, 0.0], atol=1e-15)
@@ -313,7 +315,7 @@ def test_rotation_matrix_properties(chi_deg):
         np.testing.assert_allclose(ri @ ri.T, np.eye(3), atol=1e-15)
         assert np.linalg.det(ri) == pytest.approx(1.0, abs=1e-15)
         np.testing.assert_allclose(ri, oracle.rot_sccef_to_lab(chi, p), atol=1e-15)
-        # physics.md §1.6: row 3 = zenith at RA phi, Dec 90 deg - chi
+        # [R-lab-R]: row 3 = zenith at RA phi, Dec 90 deg - chi
         dec = np.pi / 2 - chi
         np.testing.assert_allclose(ri[2], [np.cos(dec) * np.cos(p), np.cos(dec) * np.sin(p),
                                            np.sin(dec)], atol=1e-15)
@@ -336,11 +338,11 @@ def test_rotation_velocity_along_east(latitude_deg):
     orbit_only = frame_state(epoch, t_s, site, include_rotation_velocity=False)
     rot_lab = np.einsum("nij,nj->ni", state.rotation, state.beta - orbit_only.beta)
     beta_l = OMEGA_EARTH_RAD_S * site.axis_distance_m / C_M_S
-    # physics.md §1.8: beta_rot = +beta_L along lab east (lab south/up components vanish)
+    # [R-astro-velocity]: beta_rot = +beta_L along lab east (lab south/up components vanish)
     np.testing.assert_allclose(rot_lab[:, 1], beta_l, rtol=1e-9)
     # (the difference of two ~1e-4 velocities carries ~1e-20 of float64 rounding)
     np.testing.assert_allclose(rot_lab[:, [0, 2]], 0.0, atol=1e-15 * np.abs(state.beta).max())
-    # physics.md §1.8: beta_L = 1.5514e-6 sin(chi) with rho = r sin chi; the geodetic rho differs
+    # [R-astro-velocity]: beta_L = 1.5514e-6 sin(chi) with rho = r sin chi; the geodetic rho differs
     # by < 0.4 % (from memory radius; derived arithmetic): rtol 4e-3
     chi = site.colatitude_rad
     assert beta_l == pytest.approx(1.5514e-6 * math.sin(chi), rel=4e-3)

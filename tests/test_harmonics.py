@@ -1,4 +1,7 @@
-"""The C10 harmonic table by projection vs the closed forms of physics.md §2 (checks.md §2)."""
+"""The C10 harmonic table by projection vs the closed forms ([R-lab-fourier] ... [R-lab-ktr]).
+
+Anchors [R-...] are entries of docs/references.md.
+"""
 
 import json
 
@@ -21,10 +24,10 @@ from fringe.site import Site
 from fringe.theories.rms import RobertsonMansouriSexl
 from fringe.theories.sme import KE_NAMES, KO_NAMES, SME_NAMES, SmePhoton
 
-CHI = np.radians(37.48)                                   # checks.md common inputs
-BETA_ORB = 9.93e-5                                        # checks.md common inputs
-ETA = np.radians(23.4392794)                              # checks.md common inputs
-V_SUN_BETA = 369.82e3 / C_M_S * np.array([-0.970762, 0.207371, -0.120904])  # checks.md §3
+CHI = np.radians(37.48)                                   # [R-vec-common]
+BETA_ORB = 9.93e-5                                        # [R-vec-common]
+ETA = np.radians(23.4392794)                              # [R-vec-common]
+V_SUN_BETA = 369.82e3 / C_M_S * np.array([-0.970762, 0.207371, -0.120904])  # [R-RMS-inputs]
 EPOCH = Epoch("2026-04-01T00:00:00Z")
 IDX = {name: i for i, name in enumerate(HARMONIC_NAMES)}
 # Rounding floor of a projected harmonic per unit coefficient: the least-squares projection of
@@ -62,7 +65,7 @@ def unit_ke(name):
 
 
 def fourier_table(kxy, kxz, kyz, kxx_m_yy, kzz, chi):
-    """physics.md §2.1 (two-path normalisation), in HARMONIC_NAMES order."""
+    """[R-lab-fourier] (two-path normalisation), in HARMONIC_NAMES order."""
     s, c = np.sin(chi), np.cos(chi)
     return np.array([0.75 * s * s * kzz, -s * c * kyz, -s * c * kxz,
                      0.5 * (1 + c * c) * kxy, 0.25 * (1 + c * c) * kxx_m_yy,
@@ -74,7 +77,7 @@ def k_components(k):
 
 
 def closed_form_sme(name, chi, ot, beta_orbit, beta_l):
-    """physics.md §2.1-§2.4 for a unit value of one SME coefficient (circular orbit)."""
+    """[R-lab-fourier] ... [R-lab-ktr] for a unit value of one SME coefficient (circular orbit)."""
     v = {n: 0.0 for n in SME_NAMES}
     v[name] = 1.0
     ke = np.zeros((3, 3))
@@ -83,7 +86,7 @@ def closed_form_sme(name, chi, ot, beta_orbit, beta_l):
     kxy, kxz, kyz, kdd, kzz = k_components(ke)
     oxy, oxz, oyz, ktr = v["ko_XY"], v["ko_XZ"], v["ko_YZ"], v["ktr"]
     b, so, co, se, ce = beta_orbit, np.sin(ot), np.cos(ot), np.sin(ETA), np.cos(ETA)
-    # §2.2 (orbital boost) and §2.4 (ktr, O(beta^2))
+    # [R-lab-orbital] (orbital boost) and [R-lab-ktr] (ktr, O(beta^2))
     kxy += b * (oxz * so + oyz * ce * co) + ktr * b * b * ce * np.sin(2 * ot)
     kdd += 2 * b * (oxz * ce * co - oyz * so) - 2 * ktr * b * b * (so * so - ce * ce * co * co)
     kxz += -b * (oxy * so - oyz * se * co) + ktr * b * b * se * np.sin(2 * ot)
@@ -91,7 +94,7 @@ def closed_form_sme(name, chi, ot, beta_orbit, beta_l):
     kzz += (2 / 3 * b * (2 * oxy * se * co + oxz * ce * co + oyz * so)
             - 2 * ktr * b * b * (se * se * co * co - 1 / 3))
     table = fourier_table(kxy, kxz, kyz, kdd, kzz, chi)
-    # §2.3 (Earth-rotation terms, first order in beta_L)
+    # [R-lab-rotation] (Earth-rotation terms, first order in beta_L)
     s, c = np.sin(chi), np.cos(chi)
     table[IDX["B0"]] += beta_l * s * oxy
     table[IDX["Bs1"]] += beta_l * c * oxz
@@ -111,10 +114,10 @@ def test_fourier_table_machine_precision_random_chi(monkeypatch):
         coef, unc, labels = harmonics.harmonics_at(setup_for(chi), 0.0, names=KE_NAMES)
         for j, name in enumerate(labels):
             closed = fourier_table(*k_components(unit_ke(name)), chi)
-            # checks.md §2 "Fourier table vs direct matrix formula": machine precision
+            # [R-struct-table-matrix] "Fourier table vs direct matrix formula": machine precision
             np.testing.assert_allclose(coef[:, j], closed, rtol=0, atol=FLOOR)
         assert np.all(unc <= FLOOR)
-        # RMS through the same table with K_RMS (physics.md §3.5): also exact
+        # RMS through the same table with K_RMS ([R-RMS-signal]): also exact
         rms_coef, _, _ = harmonics.harmonics_at(setup_for(chi, theory=RMS), 0.0,
                                                 names=("rms_mm",))
         closed = fourier_table(*k_components(oracle.k_rms(1.0, V_SUN_BETA)), chi)
@@ -135,22 +138,22 @@ def test_closed_forms_with_orbit_and_rotation(monkeypatch, ot, names, rotation):
     beta = BETA_ORB + beta_l
     for j, name in enumerate(labels):
         closed = closed_form_sme(name, chi, ot, BETA_ORB, beta_l)
-        # physics.md §2.2-§2.4 are first order (ktr: second) in beta; fringe boosts exactly.
+        # [R-lab-orbital]-[R-lab-ktr] are first order (ktr: second) in beta; fringe boosts exactly.
         # Neglected: ~beta^2 relative to each column (test_sme measures constants <= 2.6);
-        # 10 beta^2 x the column's size. (ktr x beta_L cross terms are outside §2.4, hence
+        # 10 beta^2 x the column's size. (ktr x beta_L cross terms are outside [R-lab-ktr], hence
         # the ktr column runs with the rotation velocity off.)
         np.testing.assert_allclose(coef[:, j], closed, rtol=0,
                                    atol=10 * beta ** 2 * np.abs(closed).max())
 
 
-# ---- structural checks (checks.md §2) -------------------------------------------------------
+# ---- structural checks (the [R-struct-...] entries) -----------------------------------------
 
 def test_ke_zz_only_in_c0(monkeypatch):
     freeze_orbit(monkeypatch, 0.0)
     pair, _, _ = harmonics.harmonics_at(setup_for(CHI), 0.0, names=("ke_ZZ",))
     single, _, _ = harmonics.harmonics_at(
         setup_for(CHI, CavityVsReference(reference="atomic")), 0.0, names=("ke_ZZ",))
-    # checks.md §2, derived (checked numerically against an exact Lorentz transformation):
+    # [R-struct-ZZ], derived (checked numerically against an exact Lorentz transformation):
     # weight 3/4 sin^2 chi = 0.27769 at 37.48 deg (5 figures: half a unit, 5e-6)
     assert pair[IDX["C0"], 0] == pytest.approx(0.27769, abs=5e-6)
     assert pair[IDX["C0"], 0] == pytest.approx(0.75 * np.sin(CHI) ** 2, rel=1e-14)
@@ -165,7 +168,7 @@ def test_ke_xy_ratio_cs2_over_bc2(monkeypatch):
     coef, _, _ = harmonics.harmonics_at(setup_for(CHI), 0.0, names=("ke_XY",))
     c = np.cos(CHI)
     ratio = coef[IDX["Cs2"], 0] / coef[IDX["Bc2"], 0]
-    # checks.md §2, derived: (1 + cos^2 chi)/(2 cos chi) = 1.02685 at 37.48 deg (6 figures)
+    # [R-struct-XY], derived: (1 + cos^2 chi)/(2 cos chi) = 1.02685 at 37.48 deg (6 figures)
     assert ratio == pytest.approx(1.02685, abs=5e-6)
     assert ratio == pytest.approx((1 + c * c) / (2 * c), rel=1e-13)
 
@@ -175,7 +178,7 @@ def test_ke_xz_ratio_cc1_over_bs1(monkeypatch, chi_deg):
     freeze_orbit(monkeypatch, 0.0)
     chi = np.radians(chi_deg)
     coef, _, _ = harmonics.harmonics_at(setup_for(chi), 0.0, names=("ke_XZ",))
-    # checks.md §2, derived: C_c1 / B_s1 = -cos chi
+    # [R-struct-XZ], derived: C_c1 / B_s1 = -cos chi
     assert coef[IDX["Cc1"], 0] / coef[IDX["Bs1"], 0] == pytest.approx(-np.cos(chi), rel=1e-13)
 
 
@@ -189,7 +192,8 @@ def test_single_cavity_has_half_the_pair_amplitudes(theory, names):
     single, unc, _ = harmonics.harmonics_at(
         setup_for(CHI, CavityVsReference(reference="atomic"), theory, rotation=True), t_ref,
         names=names)
-    # checks.md §2, derived: a single rotating path gives half of every two-path 2theta amplitude
+    # [R-struct-single-path], derived: a single rotating path gives half of every two-path
+    # 2theta amplitude
     assert np.all(np.abs(single - 0.5 * pair) <= 1e-12 * np.abs(pair) + FLOOR)
     # the non-rotating terms it also carries are outside the C10 model
     assert unc[list(names).index("ke_ZZ" if theory is SME else "rms_mm")] > 0.0
@@ -217,7 +221,7 @@ def test_ko_only_with_beta_factors(monkeypatch):
     per = harmonics_over_orbit(monkeypatch, KO_NAMES, BETA_ORB, ots)
     fit = fit_orbit(per.reshape(len(ots), -1), ots).reshape(5, 10, 3)
     size = np.abs(per).max()
-    # checks.md §2: ko terms only with beta sin OT or beta cos OT. The constant and 2 OT parts
+    # [R-struct-ko]: ko terms only with beta sin OT or beta cos OT. The constant and 2 OT parts
     # are of the neglected order beta^3 (test_sme: ko's next order in ke' is beta^3)
     assert size == pytest.approx(BETA_ORB, rel=1.0)          # first order in beta
     assert np.abs(fit[[0, 3, 4]]).max() <= 10 * BETA_ORB ** 3
@@ -232,7 +236,7 @@ def test_ktr_only_with_beta_squared(monkeypatch):
     per = harmonics_over_orbit(monkeypatch, ("ktr",), BETA_ORB, ots)
     fit = fit_orbit(per.reshape(len(ots), -1), ots).reshape(5, 10, 1)
     size = np.abs(per).max()
-    # checks.md §2: ktr only with beta^2 (sin 2OT, cos^2 OT or constant); no 1 OT terms
+    # [R-struct-ktr]: ktr only with beta^2 (sin 2OT, cos^2 OT or constant); no 1 OT terms
     # (their order would be beta^3, absent by parity of the boost in beta)
     assert size == pytest.approx(BETA_ORB ** 2, rel=1.0)
     assert np.abs(fit[[1, 2]]).max() <= FLOOR
@@ -245,15 +249,15 @@ def test_ktr_only_with_beta_squared(monkeypatch):
                          ids=["sme", "rms"])
 def test_b0_vanishes_without_rotation_velocity(theory, names):
     coef, _, _ = harmonics.harmonics_at(setup_for(CHI, theory=theory), 2.0e7, names=names)
-    # checks.md §2: B0 = 0 to rounding with beta_L = 0 (real ephemeris orbit included)
+    # [R-struct-B0]: B0 = 0 to rounding with beta_L = 0 (real ephemeris orbit included)
     assert np.all(np.abs(coef[IDX["B0"]]) <= FLOOR * np.maximum(np.abs(coef).max(axis=0), 1.0))
 
 
 @pytest.mark.parametrize("name", ["ke_XY", "ke_XXmYY"])
 @pytest.mark.parametrize("chi_deg, expected", [
-    # checks.md §2, derived (arithmetic): (1 + c)^2/(1 - c)^2 = 75.49 at 37.48 deg
+    # [R-struct-asymmetry], derived (arithmetic): (1 + c)^2/(1 - c)^2 = 75.49 at 37.48 deg
     (37.48, 75.49),
-    # checks.md §2: southern chi = 121.98 deg, the 2theta - 2phi line is larger by 10.57
+    # [R-struct-asymmetry]: southern chi = 121.98 deg, the 2theta - 2phi line is larger by 10.57
     (121.98, 1 / 10.57),
 ])
 def test_northern_sideband_asymmetry(name, chi_deg, expected):
@@ -276,7 +280,8 @@ def test_northern_sideband_asymmetry(name, chi_deg, expected):
 
 
 def test_azimuth_sign_rule():
-    """C7: theta = pi - A; in A the B terms change sign and the C terms do not (checks.md §2)."""
+    """C7: theta = pi - A; in A the B terms change sign and the C terms do not
+    ([R-struct-azimuth])."""
     rng = np.random.default_rng(4)
     params = {n: rng.normal() * 1e-17 for n in KE_NAMES}
     state_one = FrameState(np.array([0.8]), CHI, circular_orbit_beta([0.3], BETA_ORB, ETA))

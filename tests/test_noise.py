@@ -198,7 +198,7 @@ def test_levels_round_trip_and_white_fm_sizing_rule():
     total = math.sqrt(4e-15**2 + 3e-15**2 + 2e-16**2 + 1e-17**2)
     assert model.adev(1.0) == pytest.approx(total, rel=1e-12, abs=0)
     white = PowerLawNoise(h0=2e-30)
-    # checks.md section 9: sigma_y(tau) = sqrt(h0 / (2 tau))
+    # docs/references.md [R-noise-sizing]: sigma_y(tau) = sqrt(h0 / (2 tau))
     assert white.adev(100.0) == pytest.approx(math.sqrt(2e-30 / 200.0), rel=1e-14, abs=0)
     back = PowerLawNoise.from_dict(json.loads(json.dumps(model.to_dict())))
     assert back == model

@@ -93,8 +93,8 @@ def test_turn_shape_matches_demodulated_white_noise():
 
 
 def test_sizing_rule_c0_line():
-    # checks.md §9 "Rule for sizing synthetic-data tests": sigma_C = sqrt(h0 / T) for white FM;
-    # physics.md §2.1 table: C0 = 3/4 sin^2 chi K^ZZ (ke_ZZ enters C0 only). With ke_ZZ alone
+    # docs/references.md [R-noise-sizing]: sigma_C = sqrt(h0 / T) for white FM;
+    # [R-lab-fourier]: C0 = 3/4 sin^2 chi K^ZZ (ke_ZZ enters C0 only). With ke_ZZ alone
     # (and the B offset, which is orthogonal) sigma(ke_ZZ) = sqrt(h0 / T) / (3/4 sin^2 chi),
     # T = whole turns x T_R. Tolerance 1e-6: the exact boost adds O(beta^2) ~ 1e-8 terms
     # (measured residual 2e-9).
@@ -102,30 +102,33 @@ def test_sizing_rule_c0_line():
     res = forecast(sc, free=["ke_ZZ"])
     t_span = res.n_turns * 45.0
     s2 = math.sin(sc.site.colatitude_rad) ** 2
-    expected = math.sqrt(2e-30 / t_span) / (0.75 * s2)  # checks.md §9 rule; physics.md §2.1 C0
+    expected = math.sqrt(2e-30 / t_span) / (0.75 * s2)  # [R-noise-sizing]; [R-lab-fourier] C0
     assert res.sigma["ke_ZZ"] == pytest.approx(expected, rel=1e-6, abs=0.0)  # abs=0: tiny values
 
 
 def test_sizing_rule_sidereal_line():
-    # checks.md §9 sizing rule + physics.md §2.1: ke_XY gives Cs2 = 1/2 (1 + c^2) K^XY and
-    # Bc2 = c K^XY; over whole sidereal days <sin^2 2phi> = <cos^2 2phi> = 1/2, so
+    # docs/references.md [R-noise-sizing] + [R-lab-fourier]: ke_XY gives
+    # Cs2 = 1/2 (1 + c^2) K^XY and Bc2 = c K^XY; over whole sidereal days
+    # <sin^2 2phi> = <cos^2 2phi> = 1/2, so
     # sigma(ke_XY) = sqrt(h0 / T) sqrt(2 / (Cs2^2 + Bc2^2)). Ten stellar days: the partial turn
     # at the end and the turn discretisation leave 5e-7 (measured); tolerance 1e-5.
     sc = _white_fm_scenario(10.0 * STELLAR_DAY_S / 86400.0)
     res = forecast(sc, free=["ke_XY"])
     c = math.cos(sc.site.colatitude_rad)
     a, b = 0.5 * (1 + c * c), c
-    expected = math.sqrt(2e-30 / (res.n_turns * 45.0)) * math.sqrt(2.0 / (a * a + b * b))  # §9
+    # sizing rule, docs/references.md [R-noise-sizing]:
+    expected = math.sqrt(2e-30 / (res.n_turns * 45.0)) * math.sqrt(2.0 / (a * a + b * b))
     assert res.sigma["ke_XY"] == pytest.approx(expected, rel=1e-5, abs=0.0)
 
 
 def test_white_fm_sigma_independent_of_period():
-    # checks.md §9 sizing rule: sigma_C = sqrt(h0 / T) does not involve the rotation period.
+    # docs/references.md [R-noise-sizing]: sigma_C = sqrt(h0 / T) does not involve the
+    # rotation period.
     # Residual: whole-turn rounding of T / T_R, < 1e-4 for 20 days; tolerance 1e-3.
     res = forecast(_white_fm_scenario(20.0), free=["ke_XY", "ke_ZZ"])
     for name in res.free:
         assert np.allclose(res.sigma_vs_period[name], res.sigma[name], rtol=1e-3,
-                           atol=0.0)  # checks.md §9: sqrt(h0 / T) has no T_R in it
+                           atol=0.0)  # [R-noise-sizing]: sqrt(h0 / T) has no T_R in it
 
 
 def test_flicker_sigma_grows_as_sqrt_period():
@@ -153,8 +156,8 @@ def test_ke_only_scales_as_inverse_sqrt_span(long_plan):
 
 def test_joint_ke_ko_departs_from_inverse_sqrt_span(long_plan):
     # Fitted together with ko_*, ke_* are nearly degenerate until the annual modulation is
-    # sampled (physics.md §2.2; a year separates them, checks.md §9 Stanwix 2006 row): sigma
-    # sqrt(T) of the joint fit falls by far more than the 2 % of the ke-only curve between 3
+    # sampled (docs/references.md [R-lab-orbital]; a year separates them, [R-pub-Stanwix2006]):
+    # sigma sqrt(T) of the joint fit falls by far more than the 2 % of the ke-only curve between 3
     # days and 150 days, and the joint/ke-only ratio reaches ~1 by two years.
     days = np.array(long_plan.days)
     i3, i150 = np.argmin(abs(days - 3)), np.argmin(abs(days - 150))
@@ -265,7 +268,8 @@ def test_result_round_trip_and_views(long_plan):
 
 
 def test_lab_c0_with_ke_zz_is_refused():
-    # ke_ZZ enters C0 only (physics.md §2.1), so a constant C offset makes it degenerate.
+    # ke_ZZ enters C0 only (docs/references.md [R-lab-fourier]), so a constant C offset makes
+    # it degenerate.
     with pytest.raises(ConfigError, match="lab_C0.*degenerate with ke_ZZ"):
         plan_settings(make(plan={"nuisances": ["lab_C0"]}))
 

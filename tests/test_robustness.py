@@ -44,8 +44,9 @@ def test_era_phase_precision_over_five_years(utc):
 
 
 def test_far_future_epoch_warns_and_keeps_precision():
-    # pyerfa's leap-second table is not authoritative after 2028 (practice.md §11.3): fringe
-    # surfaces ERFA's 'dubious year' warning as a TimeScaleWarning instead of hiding it.
+    # pyerfa's leap-second table is not authoritative after 2028 (docs/references.md
+    # [R-lib-erfa-leap]): fringe surfaces ERFA's 'dubious year' warning as a TimeScaleWarning
+    # instead of hiding it.
     ep = Epoch("2041-03-01T00:00:00Z")
     with pytest.warns(TimeScaleWarning):
         got = era_rad(ep, np.array([0.0, 3.0e7]))
@@ -65,9 +66,9 @@ def test_orbital_phase_is_linear_and_continuous_over_years():
 
 
 def test_sidereal_angle_continuous_across_leap_second():
-    # 2016-12-31 ends with 23:59:60 (TAI - UTC 36 -> 37 s; checks.md §6 T10). Sample times are
-    # elapsed SI seconds, and UT1 is continuous, so phi advances by omega_earth per second,
-    # with no 1 s (7.3e-5 rad) jump at the leap second.
+    # 2016-12-31 ends with 23:59:60 (TAI - UTC 36 -> 37 s; docs/references.md [R-time-T10]).
+    # Sample times are elapsed SI seconds, and UT1 is continuous, so phi advances by omega_earth
+    # per second, with no 1 s (7.3e-5 rad) jump at the leap second.
     ep = Epoch("2016-12-31T23:59:00Z")
     t = np.arange(0.0, 180.0, 1.0)
     phi = np.unwrap(sidereal_angle_rad(ep, t, 0.3))
@@ -76,7 +77,7 @@ def test_sidereal_angle_continuous_across_leap_second():
     assert np.max(np.abs(step - omega)) < 1e-11
     assert ep.utc_iso(60.5) == "2016-12-31T23:59:60.500Z"          # the leap second itself
     assert ep.utc_iso(61.0) == "2017-01-01T00:00:00.000Z"
-    assert Epoch("2017-01-01T00:00:10Z").tai_minus_utc_s == 37.0  # checks.md §6 T10/T11
+    assert Epoch("2017-01-01T00:00:10Z").tai_minus_utc_s == 37.0  # [R-time-T10]/[R-time-T11]
 
 
 def test_fit_across_leap_second(tmp_path):

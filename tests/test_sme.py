@@ -1,8 +1,9 @@
-"""SME photon sector: the check vectors of checks.md §1, the exact boost, the dictionary.
+"""SME photon sector: the check vectors ([R-vec-A] ... [R-vec-G]), the exact boost, the dictionary.
 
-Every number from outside the code names its source on the line beside it. The production route
-is ``SmePhoton.path_shift`` (and ``Setup``/``basis``/``signal``); ``oracle.py`` is an independent
-implementation of the first-order formulas of physics.md.
+Every number from outside the code names its source on the line beside it, by its anchor [R-...]
+in docs/references.md. The production route is ``SmePhoton.path_shift`` (and
+``Setup``/``basis``/``signal``); ``oracle.py`` is an independent implementation of the first-order
+formulas ([R-oracle]).
 """
 
 import itertools
@@ -21,14 +22,14 @@ from fringe.theories import THEORIES, make_theory
 from fringe.theories.base import Theory
 from fringe.theories.sme import SME_NAMES, SmePhoton, boost_matrix, k_tensor, unit_k_tensor
 
-# Common inputs of checks.md §1 ("Common inputs").
-CHI = np.radians(37.48)                # checks.md common inputs: chi = 37.48 deg
-BETA_ORB = 9.93e-5                     # checks.md common inputs: beta_earth = 9.93e-5
-ETA = np.radians(23.4392794)           # checks.md common inputs: eta = 23.4392794 deg
-EARTH_RADIUS_M = 6_378_137.0           # checks.md §1 E1 input: r = 6378.137 km
-ETA_MINKOWSKI = np.diag([1.0, -1.0, -1.0, -1.0])   # physics.md C1: signature (+,-,-,-)
+# Common inputs [R-vec-common].
+CHI = np.radians(37.48)                # [R-vec-common]: chi = 37.48 deg
+BETA_ORB = 9.93e-5                     # [R-vec-common]: beta_earth = 9.93e-5
+ETA = np.radians(23.4392794)           # [R-vec-common]: eta = 23.4392794 deg
+EARTH_RADIUS_M = 6_378_137.0           # [R-vec-E1] input: r = 6378.137 km
+ETA_MINKOWSKI = np.diag([1.0, -1.0, -1.0, -1.0])   # [R-C1]: signature (+,-,-,-)
 
-# Coefficients of vectors C1-C4 (checks.md §1 C1): ke XX=3, YY=-1, ZZ=-2, XY=1, XZ=2, YZ=-1
+# Coefficients of vectors C1-C4 ([R-vec-C1]): ke XX=3, YY=-1, ZZ=-2, XY=1, XZ=2, YZ=-1
 # (x1e-17); ko (XY, XZ, YZ) = (1, -2, 3) x 1e-13. XXmYY = XX - YY = 4.
 C_PARAMS = {"ke_XXmYY": 4e-17, "ke_ZZ": -2e-17, "ke_XY": 1e-17, "ke_XZ": 2e-17,
             "ke_YZ": -1e-17, "ko_XY": 1e-13, "ko_XZ": -2e-13, "ko_YZ": 3e-13}
@@ -37,7 +38,7 @@ SME = SmePhoton()
 
 
 def beta_l(chi):
-    """Rotation speed over c of checks.md §1 E1: omega r sin(chi) / c."""
+    """Rotation speed over c of [R-vec-E1]: omega r sin(chi) / c."""
     return OMEGA_EARTH_RAD_S * EARTH_RADIUS_M * np.sin(chi) / C_M_S
 
 
@@ -73,29 +74,29 @@ def vector_state(phi, ot, chi, orbit, rotation):
 
 # (id, params, theta, phi, Omega T, chi, orbit on, rotation on, expected S)
 VECTORS = [
-    # checks.md §1 vector A, derived (checked numerically against an exact Lorentz transformation)
+    # [R-vec-A], derived (checked numerically against an exact Lorentz transformation)
     ("A", {"ke_XY": 1e-17}, np.pi / 8, np.pi / 8, 0.3, CHI, True, False, 8.042196e-18),
-    # checks.md §1 vector B, derived (checked numerically against an exact Lorentz transformation)
+    # [R-vec-B], derived (checked numerically against an exact Lorentz transformation)
     ("B", {"ko_XY": 1e-13}, np.pi / 4, np.pi / 2, np.pi / 2, CHI, True, False, -6.042251e-18),
-    # checks.md §1 vectors C1-C4, derived (checked numerically against an exact Lorentz transf.)
+    # [R-vec-C1] ... [R-vec-C4], derived (checked numerically against an exact Lorentz transf.)
     ("C1", C_PARAMS, 0.0, 0.0, 0.0, CHI, True, False, -2.139444e-17),
     ("C2", C_PARAMS, np.pi / 8, 1.0, 0.5, CHI, True, False, 1.355774e-17),
     ("C3", C_PARAMS, 0.3, 2.0, 4.0, CHI, True, False, -4.126853e-18),
     ("C4", C_PARAMS, 1.2, 5.5, 2.2, CHI, True, False, 8.292995e-19),
-    # checks.md §1 vectors C1'-C4' (chi = 37.50 deg), derived (checked numerically against an
+    # [R-vec-C-primed] (C1'-C4', chi = 37.50 deg), derived (checked numerically against an
     # exact Lorentz transformation)
     ("C1'", C_PARAMS, 0.0, 0.0, 0.0, np.radians(37.5), True, False, -2.140441e-17),
     ("C2'", C_PARAMS, np.pi / 8, 1.0, 0.5, np.radians(37.5), True, False, 1.355430e-17),
     ("C3'", C_PARAMS, 0.3, 2.0, 4.0, np.radians(37.5), True, False, -4.128415e-18),
     ("C4'", C_PARAMS, 1.2, 5.5, 2.2, np.radians(37.5), True, False, 8.342684e-19),
-    # checks.md §1 vectors D1, D2, derived (checked numerically against an exact Lorentz transf.)
+    # [R-vec-D1], [R-vec-D2], derived (checked numerically against an exact Lorentz transf.)
     ("D1", {"ktr": 1e-9}, 0.7, 0.2, 1.0, CHI, True, False, 8.849981e-18),
     ("D2", {"ktr": 1e-9}, 0.0, 0.0, np.pi / 4, CHI, True, False, -1.137448e-18),
-    # checks.md §1 vector E1 (any phi: two values), derived (checked numerically against an
+    # [R-vec-E1] (any phi: two values), derived (checked numerically against an
     # exact Lorentz transformation)
     ("E1", {"ko_XY": 1e-13}, np.pi / 4, 0.0, 0.0, CHI, False, True, 5.744148e-20),
     ("E1-phi", {"ko_XY": 1e-13}, np.pi / 4, 2.1, 0.0, CHI, False, True, 5.744148e-20),
-    # checks.md §1 vector E2, derived (checked numerically against an exact Lorentz transf.)
+    # [R-vec-E2], derived (checked numerically against an exact Lorentz transf.)
     ("E2", {"ko_XZ": 2e-13, "ko_YZ": -1e-13}, 0.2, 0.9, 0.0, CHI, False, True, 2.385016e-20),
 ]
 VECTOR_IDS = [v[0] for v in VECTORS]
@@ -108,7 +109,7 @@ def test_two_path_vectors_path_shift(vid, params, theta, phi, ot, chi, orbit, ro
     state = vector_state(phi, ot, chi, orbit, rotation)
     shift = SME.path_shift(params, pair_directions(theta), state)
     s = shift[0, 0] - shift[0, 1]
-    # rtol 1e-6: the values are given to 7 significant figures (checks.md tolerance advice)
+    # rtol 1e-6: the values are given to 7 significant figures ([R-tol])
     assert s == pytest.approx(expected, rel=1e-6)
 
 
@@ -124,7 +125,7 @@ def test_two_path_vectors_setup_basis(vid, params, theta, phi, ot, chi, orbit, r
     g = basis(setup, [0.0], azimuth, names, state=state)
     via_basis = float(g[0] @ np.array([params[n] for n in names]))
     via_signal = float(signal(setup, params, [0.0], azimuth, state=state)[0])
-    # rtol 1e-6: 7 significant figures (checks.md tolerance advice)
+    # rtol 1e-6: 7 significant figures ([R-tol])
     assert via_basis == pytest.approx(expected, rel=1e-6)
     assert via_signal == pytest.approx(expected, rel=1e-6)
 
@@ -135,20 +136,20 @@ def test_two_path_vectors_oracle(vid, params, theta, phi, ot, chi, orbit, rotati
     """The first-order oracle reproduces the same check values (it is a valid reference)."""
     beta = vector_state(phi, ot, chi, orbit, rotation).beta[0]
     k = oracle.boosted_kappa_e(*oracle_inputs(params), beta)
-    # rtol 1e-6: 7 significant figures (checks.md tolerance advice)
+    # rtol 1e-6: 7 significant figures ([R-tol])
     assert oracle.two_path_signal(theta, chi, phi, k) == pytest.approx(expected, rel=1e-6)
 
 
 def test_beta_l_of_e1():
-    # checks.md §1 E1: beta_L = 9.440090e-7; rtol 1e-6 (7 figures)
+    # [R-vec-E1]: beta_L = 9.440090e-7; rtol 1e-6 (7 figures)
     assert beta_l(CHI) == pytest.approx(9.440090e-7, rel=1e-6)
     b = rotation_velocity_beta([0.4], EARTH_RADIUS_M * np.sin(CHI))[0]
     assert np.linalg.norm(b) == pytest.approx(9.440090e-7, rel=1e-6)
 
 
-# ---- single cavity, checks.md §1 F and G ---------------------------------------------------
+# ---- single cavity, [R-vec-F] and [R-vec-G] ------------------------------------------------
 
-F_PHI, F_OT, F_THETA = 1.0, 0.5, 0.3          # checks.md §1 F inputs
+F_PHI, F_OT, F_THETA = 1.0, 0.5, 0.3          # [R-vec-F] inputs
 
 
 def f_state():
@@ -168,10 +169,10 @@ def single_via_setup(params):
 
 def test_single_cavity_f():
     state = f_state()
-    expected = 8.529105e-18       # checks.md §1 F, derived (checked numerically against an exact
+    expected = 8.529105e-18       # [R-vec-F], derived (checked numerically against an exact
     #                               Lorentz transformation)
     direct = SME.path_shift(C_PARAMS, single_direction(), state)[0, 0]
-    # rtol 1e-6: 7 significant figures (checks.md tolerance advice)
+    # rtol 1e-6: 7 significant figures ([R-tol])
     assert direct == pytest.approx(expected, rel=1e-6)
     assert single_via_setup(C_PARAMS) == pytest.approx(expected, rel=1e-6)
     n_sccef = state.rotation[0].T @ single_direction()[0, 0]        # N = R^T N_lab
@@ -181,16 +182,16 @@ def test_single_cavity_f():
 
 def test_single_cavity_g():
     state = f_state()
-    ktr = 1e-12                                                    # checks.md §1 G input
+    ktr = 1e-12                                                    # [R-vec-G] input
     beta = state.beta[0]
     n_sccef = state.rotation[0].T @ single_direction()[0, 0]
-    # checks.md §1 G: beta^2 = 9.704187e-9, N.beta = -3.567982e-5; rtol 1e-6 (7 figures)
+    # [R-vec-G]: beta^2 = 9.704187e-9, N.beta = -3.567982e-5; rtol 1e-6 (7 figures)
     assert beta @ beta == pytest.approx(9.704187e-9, rel=1e-6)
     assert n_sccef @ beta == pytest.approx(-3.567982e-5, rel=1e-6)
-    expected = -1.097724e-20      # checks.md §1 G, -ktr (beta^2 + (N.beta)^2), derived (checked
+    expected = -1.097724e-20      # [R-vec-G], -ktr (beta^2 + (N.beta)^2), derived (checked
     #                               numerically against an exact Lorentz transformation)
     o_beta2 = SME.path_shift({"ktr": ktr}, single_direction(), state)[0, 0] + ktr
-    # rtol 1e-4 as checks.md suggests (an exact boost differs at O(ktr^2)); the subtraction of
+    # rtol 1e-4 as [R-vec-G] suggests (an exact boost differs at O(ktr^2)); the subtraction of
     # ktr = 1e-12 costs ~1e-28 absolute, 1e-8 relative
     assert o_beta2 == pytest.approx(expected, rel=1e-4)
     assert single_via_setup({"ktr": ktr}) + ktr == pytest.approx(expected, rel=1e-4)
@@ -221,22 +222,22 @@ def test_oracle_agrees_with_production_random():
         ref = oracle.two_path_signal(theta, chi, phi,
                                      oracle.boosted_kappa_e(ke, kxy, kxz, kyz, ktr, beta))
         b2 = beta @ beta
-        # The oracle is first order (physics.md §1.9): it neglects ~beta^2 relative to each
+        # The oracle is first order ([R-SME-boost]): it neglects ~beta^2 relative to each
         # coefficient's own first-order signal (ke, beta ko, beta^2 ktr); factor 3 of margin.
         scale = np.abs(ke).max() + np.sqrt(b2) * max(map(abs, (kxy, kxz, kyz))) + b2 * abs(ktr)
         assert abs(prod - ref) <= 3.0 * b2 * scale
 
 
-# ---- exact boost vs the first-order formulas of physics.md §1.9 ----------------------------
+# ---- exact boost vs the first-order formulas of [R-SME-boost] -----------------------------
 
 def kappa_from_k(k):
-    """physics.md §1.4 dictionary: (ktr, ke tensor, w) from k^{mu nu}."""
+    """[R-SME-dictionary]: (ktr, ke tensor, w) from k^{mu nu}."""
     sp = k[1:, 1:]
     return 2.0 / 3.0 * k[0, 0], -(sp - np.trace(sp) / 3 * np.eye(3)), -k[0, 1:]
 
 
 def first_order_boost(ke, w, ktr, b):
-    """physics.md §1.9 (ktr terms to O(beta^2))."""
+    """[R-SME-boost] (ktr terms to O(beta^2))."""
     bb = b @ b
     ke1 = (ke - np.outer(b, w) - np.outer(w, b) + 2 / 3 * np.eye(3) * (b @ w)
            - 2 * ktr * (np.outer(b, b) - np.eye(3) * bb / 3))
@@ -300,7 +301,7 @@ def test_eta_trace_is_invariant_and_isotropic_shift_is_minus_ktr_prime():
         kp = lm @ k @ lm.T
         # eta_{mu nu} k'^{mu nu} = eta_{mu nu} k^{mu nu} = 0 (Lambda^T eta Lambda = eta)
         assert np.einsum("ij,ij", ETA_MINKOWSKI, kp) == pytest.approx(0.0, abs=1e-14)
-    # the response's isotropic shift is -ktr' = -(2/3) k'^{00} (physics.md §1.10, lab route)
+    # the response's isotropic shift is -ktr' = -(2/3) k'^{00} ([R-SME-cavity], lab route)
     state = make_state(rng.uniform(0, 6, 5), 0.7, betas)
     t, s = SME.response(state, ("ktr", "ko_XY"))
     kp00 = np.einsum("na,ab,nb->n", lam[:, 0, :], k_tensor({"ktr": 1.0}), lam[:, 0, :])
@@ -308,7 +309,7 @@ def test_eta_trace_is_invariant_and_isotropic_shift_is_minus_ktr_prime():
     np.testing.assert_allclose(np.trace(t, axis1=-2, axis2=-1), 0.0, atol=1e-15)
 
 
-# ---- dictionary k -> k_F -> kappa (physics.md §1.2-§1.4) ---------------------------------
+# ---- dictionary k -> k_F -> kappa ([R-SME-EB], [R-SME-kappa], [R-SME-dictionary]) ---------
 
 EPS3 = np.zeros((3, 3, 3))
 for _i, _j, _k in itertools.permutations(range(3)):
@@ -316,14 +317,15 @@ for _i, _j, _k in itertools.permutations(range(3)):
 
 
 def k_f_from_k(k):
-    """physics.md §1.4: k_F^{klmn} = (eta^km k^ln - eta^kn k^lm - eta^lm k^kn + eta^ln k^km)/2."""
+    """[R-SME-dictionary]: k_F^{klmn} = (eta^km k^ln - eta^kn k^lm - eta^lm k^kn + eta^ln
+    k^km)/2."""
     e = ETA_MINKOWSKI
     return 0.5 * (np.einsum("km,ln->klmn", e, k) - np.einsum("kn,lm->klmn", e, k)
                   - np.einsum("lm,kn->klmn", e, k) + np.einsum("ln,km->klmn", e, k))
 
 
 def kappas_from_k_f(kf):
-    """physics.md §1.2-§1.3: (ktr, ke+, ke-, ko+, ko-) from k_F."""
+    """[R-SME-EB], [R-SME-kappa]: (ktr, ke+, ke-, ko+, ko-) from k_F."""
     k_de = -2.0 * kf[0, 1:, 0, 1:]
     k_hb = 0.5 * np.einsum("jpq,klm,pqlm->jk", EPS3, EPS3, kf[1:, 1:, 1:, 1:])
     k_db = np.einsum("kpq,jpq->jk", EPS3, kf[0, 1:, 1:, 1:])
@@ -338,16 +340,16 @@ def test_dictionary_round_trip(name):
     k = unit_k_tensor(name)
     assert np.allclose(k, k.T)
     ke, kxy, kxz, kyz, ktr = oracle_inputs({name: 1.0})
-    # production unit tensor = physics.md §1.4 inverse dictionary (oracle)
+    # production unit tensor = [R-SME-dictionary] inverse dictionary (oracle)
     np.testing.assert_allclose(k, oracle.k_from_kappa(ke, kxy, kxz, kyz, ktr), atol=1e-15)
     kf = k_f_from_k(k)
-    # Riemann symmetries and the cyclic identity of k_F (physics.md §1.4)
+    # Riemann symmetries and the cyclic identity of k_F ([R-SME-dictionary])
     np.testing.assert_allclose(kf, -kf.transpose(1, 0, 2, 3), atol=1e-15)
     np.testing.assert_allclose(kf, kf.transpose(2, 3, 0, 1), atol=1e-15)
     np.testing.assert_allclose(kf + kf.transpose(0, 2, 3, 1) + kf.transpose(0, 3, 1, 2), 0.0,
                                atol=1e-15)
     got_ktr, ke_plus, ke_minus, ko_plus, ko_minus = kappas_from_k_f(kf)
-    # checks.md §2 dictionary: ke+ = ko- = 0 and the inputs come back (exact arithmetic)
+    # [R-struct-dictionary]: ke+ = ko- = 0 and the inputs come back (exact arithmetic)
     np.testing.assert_allclose(ke_plus, 0.0, atol=1e-15)
     np.testing.assert_allclose(ko_minus, 0.0, atol=1e-15)
     assert got_ktr == pytest.approx(ktr, abs=1e-15)
@@ -356,7 +358,7 @@ def test_dictionary_round_trip(name):
     np.testing.assert_allclose(ko_plus, ko_ref, atol=1e-15)
 
 
-# ---- extended-precision round trip on the effective metric (checks.md §10 notes) -------------
+# ---- extended-precision round trip on the effective metric ([R-struct-exact-boost]) ---------
 
 def mp_two_way_shift(k4, chi, phi, beta, n_lab):
     """Exact two-way fractional speed change on eta + k' (40 digits), k' boosted and rotated.
@@ -396,7 +398,7 @@ def mp_two_way_shift(k4, chi, phi, beta, n_lab):
 
 def test_effective_metric_round_trip_extended_precision():
     rng = np.random.default_rng(42)
-    v_sun = 369.82e3 / C_M_S * np.array([-0.970762, 0.207371, -0.120904])  # checks.md §3 inputs
+    v_sun = 369.82e3 / C_M_S * np.array([-0.970762, 0.207371, -0.120904])  # [R-RMS-inputs]
     for _ in range(3):
         params = random_params(rng, 1e-16, 1e-16, 1e-16)
         chi, phi, ot = rng.uniform(0, np.pi), *rng.uniform(0, 2 * np.pi, 2)

@@ -101,9 +101,10 @@ def test_epoch_shift_rotates_the_signal_instead_of_removing_it(tmp_path):
     """Moving the epoch by a constant rotates the sidereal phase by delta (not a null).
 
     The shifted fit must equal the unshifted one with (ke_YZ, ke_XZ) rotated by delta,
-    (ke_XY, ke_XXmYY/2) by 2 delta and ke_ZZ unchanged (C10 table, physics reference §2.1;
-    derived). The same data are fitted twice, so the only differences are the orbital velocity
-    at the other epoch (no ko_* injected: no effect on ke_*) and rounding: 1e-3 sigma.
+    (ke_XY, ke_XXmYY/2) by 2 delta and ke_ZZ unchanged (C10 table, docs/references.md
+    [R-lab-fourier]; derived). The same data are fitted twice, so the only differences are the
+    orbital velocity at the other epoch (no ko_* injected: no effect on ke_*) and rounding: 1e-3
+    sigma.
     """
     rec = rv.run_campaign(("epoch-shift", 0, SEED, 1.0 * ONE_SIDEREAL_DAY_D), workdir=tmp_path)
     shifted = rec["fits"]["epoch-shifted"]

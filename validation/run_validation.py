@@ -50,7 +50,7 @@ SIDEREAL_DAY_S = 86164.0905          # mean sidereal day, s (IERS Conventions 20
 KE = ("ke_XY", "ke_XZ", "ke_YZ", "ke_XXmYY", "ke_ZZ")
 CQ = ("cq_XY", "cq_XZ", "cq_YZ", "cq_XXmYY", "cq_ZZ")
 SUN = ("sun_vX_kms", "sun_vY_kms", "sun_vZ_kms")
-MODULATED = KE[:4]                   # ke_ZZ lives in C0 (physics reference §2.1)
+MODULATED = KE[:4]                   # ke_ZZ lives in C0 (docs/references.md [R-lab-fourier])
 
 # An invented laboratory, as in examples/cavity_pair.toml.
 BASE_DOC = {
@@ -250,7 +250,7 @@ def sidereal_rotation_rad(epoch_a: str, epoch_b: str, lon_deg: float) -> float:
 def rotate_ke(v: dict, delta_rad: float) -> dict:
     """ke_* that a fit in phi' = phi + delta reports for a signal of ``v`` in phi.
 
-    From the C10 table (physics reference §2.1): (C_s1, C_c1) ~ -sc (K^YZ, K^XZ) and
+    From the C10 table (docs/references.md [R-lab-fourier]): (C_s1, C_c1) ~ -sc (K^YZ, K^XZ) and
     (B_s1, B_c1) ~ s (K^XZ, -K^YZ) rotate by delta; (C_s2, C_c2) ~ (K^XY, (K^XX - K^YY)/2)
     rotate by 2 delta; C0 (K^ZZ) is unchanged (derived).
     """

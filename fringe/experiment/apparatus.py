@@ -2,12 +2,11 @@
 
 Every apparatus is a set of *modes*. A mode has a sensitivity tensor ``M`` (the projector n n of
 its axis for a Fabry-Perot cavity or an interferometer arm, or a general tensor from the mode
-integrals, docs/theory.md, "General mode-sensitivity tensor") given in the **turntable frame**
-(x' = path 1, y' = 90 deg counter-clockwise from it seen from above, z' = table axis) or, for a
-lab-fixed mode, in the lab frame. The two-way fractional change of a mode is
-``M_lab : T + tr(M) s`` (see :mod:`fringe.theories.base`) and the observable is a weighted sum
-over modes (linear kinds) or an exact function of the per-mode changes (the Michelson fringe
-count).
+integrals, docs/references.md [R-SME-modes]) given in the **turntable frame** (x' = path 1,
+y' = 90 deg counter-clockwise from it seen from above, z' = table axis) or, for a lab-fixed mode,
+in the lab frame. The two-way fractional change of a mode is ``M_lab : T + tr(M) s`` (see
+:mod:`fringe.theories.base`) and the observable is a weighted sum over modes (linear kinds) or an
+exact function of the per-mode changes (the Michelson fringe count).
 
 ======================= ==================================================== =============
 kind                    observable                                           units

@@ -2,9 +2,9 @@
 
 A cavity compared with an atomic reference shifts isotropically by rms_kt v^2/c^2 (plus the
 isotropic part (2/3) rms_mm v^2/c^2 of the orientation term), where v is the lab velocity relative
-to the preferred frame (physics reference §3.2). That shift does not rotate with the table: it
-lives in each turn's offset a0 (the block model's constant at the turn's middle), which also
-carries the cavity's drift. The offsets are fitted by weighted least squares with
+to the preferred frame (docs/references.md [R-RMS-two-way]). That shift does not rotate with the
+table: it lives in each turn's offset a0 (the block model's constant at the turn's middle), which
+also carries the cavity's drift. The offsets are fitted by weighted least squares with
 
     a0_i = rms_kt A_kt(t_i) + [rms_mm A_mm(t_i), with rms_mm from the 2 theta fit] + P(t_i),
 
@@ -18,7 +18,7 @@ correlated residuals, for which ``--uncertainty bootstrap`` is the honest choice
 References
 ----------
 Kennedy-Thorndike-type analyses of a cavity against an atomic standard: Wolf et al. 2003, 2004
-(practice reference §10.1).
+(docs/references.md [R-practice-stage3], [R-pub-Wolf2003-2004]).
 """
 
 from __future__ import annotations

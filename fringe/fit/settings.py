@@ -13,7 +13,7 @@ UNCERTAINTY_MODES = ("reduced-chi2", "bootstrap", "formal")
 
 #: Span from which ko_* join the default SME free set, days (half a sidereal year: the annual
 #: modulation that separates ko_* from ke_* is then sampled over half a cycle). Common practice
-#: reading of practice.md §6 (a year or more separates them fully).
+#: reading of docs/references.md [R-practice-stage2] (a year or more separates them fully).
 KO_DEFAULT_SPAN_DAYS = 182.6
 
 

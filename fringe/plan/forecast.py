@@ -26,7 +26,8 @@ The noise of C_i and B_i is taken as independent, equal, and white from turn to 
 (one-sided S_y; k converts fractional frequency to the observable's units; d = 1 for
 continuous rotation, the dwell fraction for stepped rotation), so the Fisher matrix is
 F = sum_i (J_C,iᵀ J_C,i + J_B,iᵀ J_B,i) / sigma_a^2 and the forecast covariance is F^-1. For
-white FM this reproduces the sizing rule sigma_C = sqrt(h0 / T) (reference/checks.md §9).
+white FM this reproduces the sizing rule sigma_C = sqrt(h0 / T) (docs/references.md
+[R-noise-sizing]).
 """
 
 from __future__ import annotations
@@ -253,8 +254,9 @@ def forecast(scenario: Scenario, free: str | Sequence[str] | None = None,
 
     References
     ----------
-    Sizing rule sigma_C = sqrt(h0 / T): reference/checks.md §9 (derived, white FM). Fourier
-    model and which coefficients enter which amplitude: reference/physics.md §2.1-2.2.
+    Sizing rule sigma_C = sqrt(h0 / T): docs/references.md [R-noise-sizing] (derived, white FM).
+    Fourier model and which coefficients enter which amplitude: docs/references.md
+    [R-lab-fourier], [R-lab-orbital].
 
     Examples
     --------

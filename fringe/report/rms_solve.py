@@ -2,7 +2,7 @@
 
 A rotation experiment measures P_MM = delta - beta + 1/2 (Michelson-Morley type); a
 Kennedy-Thorndike experiment measures P_KT = beta - alpha - 1 and an Ives-Stilwell experiment
-P_IS = alpha + 1/2 (physics reference section 3.4, convention C13). With the deviations from
+P_IS = alpha + 1/2 (docs/references.md [R-RMS-tests], convention C13). With the deviations from
 special relativity (SR: alpha = -1/2, beta = 1/2, delta = 0)
 
     d_alpha = alpha + 1/2,  d_beta = beta - 1/2,  d_delta = delta,
@@ -171,8 +171,9 @@ def solve_rms(mm: tuple[float, float], kt: tuple[float, float], is_: tuple[float
 
     References
     ----------
-    Physics reference section 3.4 (the combinations) and 3.1 (the other convention; Mattingly,
-    Living Rev. Relativity 8, 5 (2005), sec. "Robertson-Mansouri-Sexl framework").
+    docs/references.md [R-RMS-tests] (the combinations) and [R-RMS-transformation] (the other
+    convention; Mattingly, Living Rev. Relativity 8, 5 (2005), sec. "Robertson-Mansouri-Sexl
+    framework").
 
     Examples
     --------

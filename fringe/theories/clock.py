@@ -1,9 +1,9 @@
 """Direction-dependent clock (matter sector): a symmetric traceless SCCEF tensor c.
 
 The fractional shift of a transition with quantization axis q (unit, lab axes) is
-q . c_lab . q with c_lab = R c Rᵀ (physics reference §5); the apparatus multiplies it by the
-transition's sensitivity in Hz per unit coefficient. Matter-sector boost terms are not included:
-give the tensor in the frame in which it is to be bounded.
+q . c_lab . q with c_lab = R c Rᵀ (docs/references.md [R-clock-projection]); the apparatus
+multiplies it by the transition's sensitivity in Hz per unit coefficient. Matter-sector boost
+terms are not included: give the tensor in the frame in which it is to be bounded.
 
 Coefficients ``cq_XY cq_XZ cq_YZ cq_XXmYY cq_ZZ`` (dimensionless), with XX = (XXmYY - ZZ)/2,
 YY = -(XXmYY + ZZ)/2 as for the ke_* names.

@@ -1,7 +1,8 @@
 """Classical medium: waves of speed w in a medium through which the lab moves (nonlinear).
 
 For a round trip of length L at angle psi to the lab's velocity u through the medium
-(b = |u|/w), the exact Galilean travel time is (physics reference §4.1; Michelson & Morley 1887)
+(b = |u|/w), the exact Galilean travel time is (docs/references.md [R-medium-vacuum];
+Michelson & Morley 1887)
 
     t(psi) = (2L/w) sqrt(1 - b^2 sin^2 psi) / (1 - b^2),
 

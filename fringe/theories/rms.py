@@ -1,7 +1,7 @@
 """Robertson-Mansouri-Sexl test theory: rms_mm = delta - beta + 1/2, rms_kt = beta - alpha - 1.
 
 Two-way speed of light along a direction at angle psi to the lab's velocity v relative to the
-preferred frame, to O(v^2/c^2) (physics reference §3.2):
+preferred frame, to O(v^2/c^2) (docs/references.md [R-RMS-two-way]):
 
     c_2(psi)/c = 1 + rms_kt v^2/c^2 + rms_mm (v^2/c^2) sin^2 psi.
 
@@ -9,7 +9,7 @@ In the response form (T, s) of :mod:`fringe.theories.base`: for rms_mm, T = -(v 
 s = (2/3) v^2; for rms_kt, T = 0 and s = v^2 (v in units of c, lab axes). The lab velocity is
 v = v_pf (the Sun's velocity relative to the preferred frame; default the CMB dipole, Planck
 2018) + beta (orbit + rotation), added as 3-vectors (Galilean; exact boosts differ at ~v^2
-relative, physics reference §3.6).
+relative, docs/references.md [R-RMS-SME]).
 
 References
 ----------

@@ -1,7 +1,8 @@
 """SME nonbirefringent photon sector: ke_* (kappa_e-), ko_* (kappa_o+), ktr (kappa_tr).
 
-The nine coefficients are carried by one symmetric, eta-traceless tensor k^{mu nu} (physics
-reference §1.4):  k^{00} = (3/2) ktr,  k^{jk} = -ke^{jk} + (1/2) ktr delta^{jk},  k^{0l} = -w^l
+The nine coefficients are carried by one symmetric, eta-traceless tensor k^{mu nu}
+(docs/references.md [R-SME-dictionary]):
+k^{00} = (3/2) ktr,  k^{jk} = -ke^{jk} + (1/2) ktr delta^{jk},  k^{0l} = -w^l
 with w = (ko_YZ, -ko_XZ, ko_XY) (C11). To first order in the coefficients the photon moves on the
 effective metric eta + k, so the two-way fractional speed change along a unit lab direction n is
 
