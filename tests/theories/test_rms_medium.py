@@ -1,7 +1,6 @@
 """RMS test theory and the classical medium (checks.md §3 and §4)."""
 
 import numpy as np
-import oracle
 import pytest
 
 import fringe.experiment.harmonics as harmonics
@@ -13,6 +12,7 @@ from fringe.site import Site
 from fringe.theories.medium import ClassicalMedium
 from fringe.theories.rms import RobertsonMansouriSexl
 from fringe.theories.sme import SME_NAMES, SmePhoton, boost_matrix
+from tests.helpers import oracle
 
 CHI = np.radians(37.48)                                   # checks.md common inputs
 BETA_ORB = 9.93e-5                                        # checks.md common inputs

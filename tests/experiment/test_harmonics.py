@@ -3,7 +3,6 @@
 import json
 
 import numpy as np
-import oracle
 import pytest
 
 import fringe.experiment.harmonics as harmonics
@@ -20,6 +19,7 @@ from fringe.frames import Epoch, FrameState, circular_orbit_beta
 from fringe.site import Site
 from fringe.theories.rms import RobertsonMansouriSexl
 from fringe.theories.sme import KE_NAMES, KO_NAMES, SME_NAMES, SmePhoton
+from tests.helpers import oracle
 
 CHI = np.radians(37.48)                                   # checks.md common inputs
 BETA_ORB = 9.93e-5                                        # checks.md common inputs

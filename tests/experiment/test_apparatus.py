@@ -1,7 +1,6 @@
 """Apparatus kinds, turntable schedules and the tilt (physics.md §1.11-§1.12, §5; C6-C9)."""
 
 import numpy as np
-import oracle
 import pytest
 
 from fringe.constants import C_M_S
@@ -27,6 +26,7 @@ from fringe.site import Site
 from fringe.theories.clock import DirectionalClock
 from fringe.theories.medium import ClassicalMedium
 from fringe.theories.sme import SME_NAMES, SmePhoton
+from tests.helpers import oracle
 
 CHI = np.radians(37.48)                                   # checks.md common inputs
 ETA = np.radians(23.4392794)                              # checks.md common inputs
