@@ -37,7 +37,7 @@ from tests.helpers.runs import BASE, CARRIER_HZ, KE_TRUTH, WHITE_FM, simulate_ru
 
 
 def make_run(path, *, seed, days, **kw):
-    """The run's path only (see run_helpers.simulate_run)."""
+    """The run's path only (see tests.helpers.runs.simulate_run)."""
     return simulate_run(path, seed=seed, days=days, **kw)[0]
 
 
