@@ -112,9 +112,9 @@ class Epoch:
     @cached_property
     def tai_minus_utc_s(self) -> float:
         """TAI - UTC at the epoch, s (from ERFA's leap-second table, ``erfa.dat``)."""
-        # Fix (found by tests/test_frames.py): this was (TAI JD - UTC quasi-JD) x 86 400, which is
-        # wrong on a day that ends with a leap second (ERFA's quasi-JD day then lasts 86 401 s),
-        # by up to 1 s at the end of that day; UT1 and phi were off by up to 7.3e-5 rad.
+        # Fix (found by tests/ground/test_frames.py): this was (TAI JD - UTC quasi-JD) x 86 400,
+        # which is wrong on a day that ends with a leap second (ERFA's quasi-JD day then lasts
+        # 86 401 s), by up to 1 s at the end of that day; UT1 and phi were off by up to 7.3e-5 rad.
         _ = self.utc_jd  # validates the instant
         y, mo, d, h, mi, s, _ = _ISO_RE.match(self.utc.strip()).groups()
         fd = min((int(h) * 3600 + int(mi) * 60 + float(s)) / DAY_S, 1.0 - 1e-12)  # 23:59:60.x

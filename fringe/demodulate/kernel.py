@@ -19,7 +19,7 @@ A block's numbers depend only on its own samples and the fixed code, so they do 
 how the record is split into ranges or threads. ``cache=True`` stores the compiled code beside
 this module (or in numba's cache directory), so only the first run after an install compiles.
 The kernels are tested against a plain per-block ``numpy.linalg.lstsq`` statement of the model
-(``tests/test_demodulate.py``).
+(``tests/demodulate/test_demodulate.py``).
 """
 
 from __future__ import annotations

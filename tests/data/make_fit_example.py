@@ -1,4 +1,4 @@
-"""Write the small stored fit result used by tests/test_report.py (invented numbers).
+"""Write the small stored fit result used by tests/report/ (invented numbers).
 
     python tests/data/make_fit_example.py
 

@@ -1,5 +1,5 @@
 """Hostile input: property tests of the CSV import (all files under tmp_path;
-docs/hostile-input.md). The contract is that of tests/test_hostile.py."""
+docs/hostile-input.md). The contract is that of tests/hostile/test_hostile.py."""
 
 from __future__ import annotations
 
@@ -13,13 +13,13 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from hostile_common import _settings, assert_one_line_naming, digest
 from hypothesis import given
 from hypothesis import strategies as st
 
 from fringe.errors import FringeError, InputFileError, TimeScaleWarning
 from fringe.io.csvimport import import_csv
 from fringe.io.runreader import open_run
+from tests.helpers.hostile import _settings, assert_one_line_naming, digest
 
 # == 3. CSV import ===========================================================================
 # A generated table (known values) and a metadata TOML that matches it, then perturbations of

@@ -10,7 +10,6 @@ import itertools
 
 import mpmath
 import numpy as np
-import oracle
 import pytest
 
 from fringe.constants import C_M_S, OMEGA_EARTH_RAD_S
@@ -21,6 +20,7 @@ from fringe.site import Site
 from fringe.theories import THEORIES, make_theory
 from fringe.theories.base import Theory
 from fringe.theories.sme import SME_NAMES, SmePhoton, boost_matrix, k_tensor, unit_k_tensor
+from tests.helpers import oracle
 
 # Common inputs [R-vec-common].
 CHI = np.radians(37.48)                # [R-vec-common]: chi = 37.48 deg

@@ -2,7 +2,7 @@
 fringe.fit.passes): the same numbers as the in-memory fit, and nothing left behind.
 
 The segment size is lowered (SEGMENT_TURNS = 300 turns) so that a short simulated record
-(invented scenario, tests/run_helpers.py) is spilled to disk and fitted in several segments.
+(invented scenario, tests/helpers/runs.py) is spilled to disk and fitted in several segments.
 """
 
 from __future__ import annotations
@@ -12,7 +12,6 @@ import dataclasses
 import numpy as np
 import pytest
 from click.testing import CliRunner
-from run_helpers import BASE, simulate_run
 
 import fringe.demodulate.turn_store as turn_store
 from fringe.cli import main
@@ -26,6 +25,7 @@ from fringe.fit.run import fit_run, setup_from_run
 from fringe.fit.settings import FitSettings
 from fringe.fit.stages import stage2_and_3
 from fringe.io.turns_file import read_turns, write_turns
+from tests.helpers.runs import BASE, simulate_run
 
 SMALL_SEGMENT = 300
 

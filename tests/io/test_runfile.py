@@ -85,7 +85,7 @@ def test_spec_file_written_with_h5py_is_read(tmp_path):
 
 
 def test_documented_h5py_example_is_valid(tmp_path, monkeypatch):
-    text = (Path(__file__).parents[1] / "docs" / "run-format.md").read_text(encoding="utf-8")
+    text = (Path(__file__).parents[2] / "docs" / "run-format.md").read_text(encoding="utf-8")
     block = text.split("## Writing a run file with h5py alone", 1)[1]
     code = re.search(r"```python\n(.*?)```", block, re.S).group(1)
     monkeypatch.chdir(tmp_path)

@@ -10,7 +10,6 @@ import math
 
 import erfa
 import numpy as np
-import oracle
 import pytest
 
 from fringe.constants import (
@@ -33,6 +32,7 @@ from fringe.frames import (
     sidereal_angle_rad,
 )
 from fringe.site import Site
+from tests.helpers import oracle
 
 SECONDS_OF_TIME_PER_RAD = 86_400.0 / (2.0 * math.pi)   # 24 h of angle = 2 pi (definition)
 

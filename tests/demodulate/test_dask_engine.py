@@ -12,7 +12,6 @@ import dataclasses
 
 import numpy as np
 import pytest
-from run_helpers import BASE, simulate_run
 
 from fringe.demodulate.engine import run_stage1
 from fringe.demodulate.settings import DemodSettings
@@ -20,6 +19,7 @@ from fringe.demodulate.turns import TurnTable
 from fringe.errors import ConfigError
 from fringe.fit.run import fit_run
 from fringe.fit.settings import FitSettings
+from tests.helpers.runs import BASE, simulate_run
 
 distributed = pytest.importorskip("distributed")
 

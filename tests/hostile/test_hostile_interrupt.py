@@ -13,10 +13,10 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from hostile_common import EPOCH, digest
 
 from fringe.io.runreader import open_run
 from fringe.io.runwriter import RunWriter
+from tests.helpers.hostile import EPOCH, digest
 
 # == 4. writers killed mid-way ===============================================================
 # A child process writes a run file with RunWriter, append by append, reporting each append on
@@ -129,7 +129,7 @@ def wait_for(condition, proc: subprocess.Popen, timeout_s: float = 120.0) -> Non
 
 
 def long_scenario(tmp_path: Path, days: float) -> Path:
-    text = (Path(__file__).resolve().parents[1] / "examples" / "cavity_pair.toml").read_text()
+    text = (Path(__file__).resolve().parents[2] / "examples" / "cavity_pair.toml").read_text()
     assert "duration_days = 2.0" in text
     path = tmp_path / "long.toml"
     path.write_text(text.replace("duration_days = 2.0", f"duration_days = {days}"))

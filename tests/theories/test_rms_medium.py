@@ -4,7 +4,6 @@ Anchors [R-...] are entries of docs/references.md.
 """
 
 import numpy as np
-import oracle
 import pytest
 
 import fringe.experiment.harmonics as harmonics
@@ -16,6 +15,7 @@ from fringe.site import Site
 from fringe.theories.medium import ClassicalMedium
 from fringe.theories.rms import RobertsonMansouriSexl
 from fringe.theories.sme import SME_NAMES, SmePhoton, boost_matrix
+from tests.helpers import oracle
 
 CHI = np.radians(37.48)                                   # [R-vec-common]
 BETA_ORB = 9.93e-5                                        # [R-vec-common]

@@ -22,7 +22,6 @@ import warnings
 
 import numpy as np
 import pytest
-from run_helpers import BASE, CARRIER_HZ, KE_TRUTH, WHITE_FM, simulate_run  # noqa: F401
 
 from fringe.demodulate.engine import range_samples_and_blocks, run_stage1
 from fringe.demodulate.settings import DRIFT_TERMS, DemodSettings
@@ -34,10 +33,11 @@ from fringe.fit.settings import FitSettings
 from fringe.fit.stages import fit_coefficients
 from fringe.io.runwriter import RunWriter
 from fringe.theories.sme import KE_NAMES
+from tests.helpers.runs import BASE, CARRIER_HZ, KE_TRUTH, WHITE_FM, simulate_run  # noqa: F401
 
 
 def make_run(path, *, seed, days, **kw):
-    """The run's path only (see run_helpers.simulate_run)."""
+    """The run's path only (see tests.helpers.runs.simulate_run)."""
     return simulate_run(path, seed=seed, days=days, **kw)[0]
 
 

@@ -14,7 +14,7 @@ from click.testing import CliRunner
 from fringe.cli import main
 from fringe.io.runreader import open_run
 
-EXAMPLE = Path(__file__).resolve().parents[1] / "examples" / "cavity_pair.toml"
+EXAMPLE = Path(__file__).resolve().parents[2] / "examples" / "cavity_pair.toml"
 
 
 def _sha(path):

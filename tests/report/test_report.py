@@ -30,7 +30,7 @@ from fringe.report.rms_solve import FORWARD_MATRIX, combinations_from_deviations
 from fringe.report.rounding import format_bound, format_interval, format_value, pdg_round
 from fringe.report.tables import coefficient_table, to_markdown
 
-DATA = Path(__file__).parent / "data"
+DATA = Path(__file__).resolve().parents[1] / "data"
 FIT = DATA / "fit_example.json"
 TURNS = DATA / "fit_example.turns.h5"
 

@@ -2,7 +2,6 @@
 [R-clock-projection]; C6-C9). Anchors [R-...] are entries of docs/references.md."""
 
 import numpy as np
-import oracle
 import pytest
 
 from fringe.constants import C_M_S
@@ -28,6 +27,7 @@ from fringe.site import Site
 from fringe.theories.clock import DirectionalClock
 from fringe.theories.medium import ClassicalMedium
 from fringe.theories.sme import SME_NAMES, SmePhoton
+from tests.helpers import oracle
 
 CHI = np.radians(37.48)                                   # [R-vec-common]
 ETA = np.radians(23.4392794)                              # [R-vec-common]

@@ -1,13 +1,13 @@
 """Hostile input: property tests of the run-file reader and ``fringe inspect`` (all files under
-tmp_path; docs/hostile-input.md). The CSV import is in tests/test_hostile_csv.py, killed writers
-and commands in tests/test_hostile_interrupt.py.
+tmp_path; docs/hostile-input.md). The CSV import is in tests/hostile/test_hostile_csv.py, killed
+writers and commands in tests/hostile/test_hostile_interrupt.py.
 
 The contract under test (fringe/errors.py, docs/run-format.md): every bad input gives a
 :class:`~fringe.errors.FringeError` whose message is one line naming the file; never another
 exception; inputs are never modified; outputs appear whole or not at all.
 
 The fast tests run a fixed (derandomized) set of examples in CI; the ``slow`` variants draw
-many more random examples: ``pytest -m slow tests/test_hostile*.py``.
+many more random examples: ``pytest -m slow tests/hostile/test_hostile*.py``.
 """
 
 from __future__ import annotations
@@ -24,7 +24,6 @@ import h5py
 import numpy as np
 import pytest
 from click.testing import CliRunner
-from hostile_common import CORE, EPOCH, N, _settings, assert_one_line_naming, digest
 from hypothesis import assume, example, given
 from hypothesis import strategies as st
 from hypothesis.extra import numpy as hnp
@@ -33,10 +32,11 @@ from fringe.cli import main
 from fringe.errors import InputFileError
 from fringe.io.runformat import APPARATUS_KINDS, parse_utc_iso
 from fringe.io.runreader import open_run
+from tests.helpers.hostile import CORE, EPOCH, N, _settings, assert_one_line_naming, digest
 
 
 # == 1. the run-file reader ==================================================================
-# A valid base file (as in tests/test_runfile.py, written with h5py alone), then a list of
+# A valid base file (as in tests/io/test_runfile.py, written with h5py alone), then a list of
 # perturbations. Each perturbation is a small dataclass, so a failing example prints readably.
 def write_base_file(path: Path, *, n: int = N, fixed_strings: bool = False,
                     deg_per_sample: float = 10.0) -> Path:

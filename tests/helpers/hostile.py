@@ -1,4 +1,4 @@
-"""Shared pieces of the hostile-input tests (tests/test_hostile*.py): hypothesis settings,
+"""Shared pieces of the hostile-input tests (tests/hostile/test_hostile*.py): hypothesis settings,
 file digests and the one-line error check."""
 
 from __future__ import annotations

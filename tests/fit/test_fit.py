@@ -21,7 +21,6 @@ import warnings
 
 import numpy as np
 import pytest
-from run_helpers import BASE, CARRIER_HZ, KE_TRUTH, WHITE_FM, simulate_run  # noqa: F401
 
 from fringe.demodulate.engine import run_stage1
 from fringe.demodulate.settings import DemodSettings
@@ -40,6 +39,7 @@ from fringe.io.runreader import open_run
 from fringe.io.runwriter import RunWriter
 from fringe.simulation.campaign import simulate
 from fringe.theories.sme import KE_NAMES, KO_NAMES
+from tests.helpers.runs import BASE, CARRIER_HZ, KE_TRUTH, WHITE_FM, simulate_run  # noqa: F401
 
 PULL_BAND = 4.0      # two-sided 4 sigma: false-failure rate 6.3e-5 per coefficient (see above)
 make_run = simulate_run

@@ -32,7 +32,7 @@ import pytest
 from scipy import stats
 
 _SPEC = importlib.util.spec_from_file_location(
-    "run_validation", Path(__file__).resolve().parent.parent / "validation" / "run_validation.py")
+    "run_validation", Path(__file__).resolve().parents[2] / "validation" / "run_validation.py")
 rv = importlib.util.module_from_spec(_SPEC)
 sys.modules.setdefault("run_validation", rv)     # dataclasses look the module up by name
 _SPEC.loader.exec_module(rv)

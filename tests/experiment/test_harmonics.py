@@ -6,7 +6,6 @@ Anchors [R-...] are entries of docs/references.md.
 import json
 
 import numpy as np
-import oracle
 import pytest
 
 import fringe.experiment.harmonics as harmonics
@@ -23,6 +22,7 @@ from fringe.frames import Epoch, FrameState, circular_orbit_beta
 from fringe.site import Site
 from fringe.theories.rms import RobertsonMansouriSexl
 from fringe.theories.sme import KE_NAMES, KO_NAMES, SME_NAMES, SmePhoton
+from tests.helpers import oracle
 
 CHI = np.radians(37.48)                                   # [R-vec-common]
 BETA_ORB = 9.93e-5                                        # [R-vec-common]
