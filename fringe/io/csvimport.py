@@ -168,6 +168,16 @@ def _merge(metadata, kwargs: dict) -> tuple[dict, Callable]:
                        ("units", "units of time, azimuth and signal")):
         if name not in merged:
             raise err_for(name)(name, f"missing table; expected {what}")
+    merged["units"] = _checked_units(merged, err_for)
+    return merged, err_for
+
+
+def _checked_units(merged: dict, err_for: Callable) -> dict:
+    """The ``[units]`` of ``merged``, checked against ``[columns]`` and the apparatus kind.
+
+    Every core channel needs a column, every column its units (time defaults to "s") and no
+    units without a column; seconds need an ``epoch_utc``. Errors come from ``err_for(section)``.
+    """
     columns, units = merged["columns"], dict(merged["units"])
     for key in CORE_CHANNELS:
         if key not in columns:
@@ -189,8 +199,7 @@ def _merge(metadata, kwargs: dict) -> tuple[dict, Callable]:
     if units["time"] == "s" and "epoch_utc" not in merged:
         raise err_for("epoch_utc")("epoch_utc", f"missing; expected {_ISO_HINT} (required when "
                                    "time is in seconds)")
-    merged["units"] = units
-    return merged, err_for
+    return units
 
 
 class _HashingReader(io.RawIOBase):
