@@ -64,8 +64,8 @@ def _frozen_model_batch(setup, t, names, params, state):
 def _projected_basis(setup, state, theta, names):
     """A, C, B per unit coefficient by projecting the apparatus tensor, not the signals.
 
-    The basis is linear in the apparatus's combined lab tensor W(theta) (fringe.experiment.basis), so the
-    cos 2 theta / sin 2 theta projections of the basis are the basis of the projected tensors
+    The basis is linear in the apparatus's combined lab tensor W(theta)
+    (:mod:`fringe.experiment.basis`), so the cos 2 theta / sin 2 theta projections of the basis are the basis of the projected tensors
     W_C = (2/N) sum_a cos 2 theta_a W(theta_a), W_B likewise, and A of the mean tensor: three
     contractions per instant instead of N_ANGLES, with the frames evaluated once per instant.
     """
@@ -126,8 +126,12 @@ def _model_grid(setup: Setup, t: NDArray, half: NDArray, names, params) -> _Mode
 
 
 def _lagrange_derivative_weights(s: NDArray, step_s: float, max_order: int) -> list[NDArray]:
-    """Weights (n, 6) of the stencil values for the j-th time derivative (j = 0..max_order) of
-    the quintic through the six stencil points, at fractional positions s (in steps)."""
+    """Weights (n, 6) of the stencil values for the time derivatives of the stencil's quintic.
+
+    One array per derivative order j = 0 ... max_order: the weights of the six stencil values
+    for the j-th time derivative (per s^j) of the quintic through them, at the fractional
+    positions s (in grid steps of ``step_s`` seconds).
+    """
     nodes = STENCIL.astype(float)
     mono = np.linalg.inv(np.vander(nodes, increasing=True))   # row e: s^e coefficients
     powers = np.empty((s.size, nodes.size))
@@ -143,8 +147,9 @@ def _lagrange_derivative_weights(s: NDArray, step_s: float, max_order: int) -> l
 
 
 def _measured_model(grid: _ModelGrid, t, half, leak, settings, with_a: bool = True):
-    """What stage 1 measures for turns (t, half span, leak responses): A (or None), C, B, each
-    (n, k).
+    """What stage 1 measures for turns (t, half span, leak responses): A (or None), C, B.
+
+    Each is an array of shape (n, k): n turns, k coefficients.
 
     The frozen model's value and derivatives at each turn come from the quintic through six grid
     values around it (:data:`STENCIL`). What stage 1 measures for C (and B alike) is
