@@ -66,8 +66,9 @@ def _projected_basis(setup, state, theta, names):
 
     The basis is linear in the apparatus's combined lab tensor W(theta)
     (:mod:`fringe.experiment.basis`), so the cos 2 theta / sin 2 theta projections of the basis
-    are the basis of the projected tensors W_C = (2/N) sum_a cos 2 theta_a W(theta_a), W_B likewise, and A of the mean tensor: three
-    contractions per instant instead of N_ANGLES, with the frames evaluated once per instant.
+    are the basis of the projected tensors W_C = (2/N) sum_a cos 2 theta_a W(theta_a), W_B
+    likewise, and A of the mean tensor: three contractions per instant instead of N_ANGLES, with
+    the frames evaluated once per instant.
     """
     from fringe.experiment.basis import _combined_tensor
 
