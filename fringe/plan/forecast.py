@@ -45,6 +45,7 @@ from fringe.constants import DAY_S, STELLAR_DAY_S
 from fringe.errors import ConfigError, DegeneracyWarning, check_finite_number
 from fringe.experiment.basis import two_theta_amplitudes
 from fringe.experiment.turntable import SteppedRotation
+from fringe.linalg import correlation_from_covariance, invert_normal
 from fringe.noise.powerlaw import (
     PowerLawNoise,
     noise_from_section,
@@ -65,9 +66,6 @@ if TYPE_CHECKING:
 __all__ = ["forecast", "turn_amplitude_variance"]
 
 _log = logging.getLogger(__name__)
-
-#: Eigenvalues of the normalised Fisher matrix below this times the largest are null directions.
-RCOND = 1e-12
 
 
 def turn_amplitude_variance(noise: PowerLawNoise, period_s: float, duty: float = 1.0) -> float:
@@ -191,26 +189,14 @@ def _turn_sums(setup, names, period_s, n_turns, max_points, stride=None,
 
 
 def _covariance(fisher: NDArray, idx: list[int]) -> NDArray:
-    """Covariance of the parameters ``idx`` (all fitted together); inf where unconstrained."""
-    f = fisher[np.ix_(idx, idx)]
-    d = np.sqrt(np.clip(np.diag(f), 0.0, None))
-    k = len(idx)
-    cov = np.full((k, k), np.nan)
-    ok = d > 0
-    if not ok.any():
-        np.fill_diagonal(cov, np.inf)
-        return cov
-    fn = f[np.ix_(ok, ok)] / np.outer(d[ok], d[ok])
-    w, v = np.linalg.eigh(fn)
-    good = w > RCOND * w.max()
-    sub = (v[:, good] / w[good]) @ v[:, good].T / np.outer(d[ok], d[ok])
-    loose = np.any(np.abs(v[:, ~good]) > 1e-6, axis=1)
-    io = np.flatnonzero(ok)
-    cov[np.ix_(io, io)] = sub
-    for i in list(io[loose]) + list(np.flatnonzero(~ok)):
-        cov[i, :] = cov[:, i] = np.nan
-        cov[i, i] = np.inf
-    return cov
+    """Covariance of the parameters ``idx`` (all fitted together); inf where unconstrained.
+
+    A forecast keeps going where the campaign leaves a direction undetermined and says which
+    parameters it cannot bound: :func:`fringe.linalg.invert_normal` with ``null="drop"`` (null
+    directions: eigenvalues of the equilibrated Fisher matrix below :data:`fringe.linalg.RCOND`
+    times the largest).
+    """
+    return invert_normal(fisher[np.ix_(idx, idx)], null="drop")
 
 
 def _sigmas(fisher, idx):
@@ -300,8 +286,7 @@ def forecast(scenario: Scenario, free: str | Sequence[str] | None = None,
     if not np.all(np.isfinite(sig)):
         warnings.warn(f"plan: no information on {', '.join(np.array(st.free)[~np.isfinite(sig)])}"
                       f" in this campaign (sigma infinite)", DegeneracyWarning, stacklevel=2)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        corr = cov / np.outer(sig, sig)
+    corr = correlation_from_covariance(cov)
 
     days = np.geomspace(min(1.0, camp_days), top_days, st.n_days)
     turns = np.maximum((days * DAY_S // period).astype(int), 1)
