@@ -87,6 +87,12 @@ class Apparatus:
     def default_units(self) -> str:
         return self.units_allowed[0]
 
+    @property
+    def isotropic_reference(self) -> bool:
+        """True when the observable compares against a reference with no anisotropy (an atomic
+        clock), so an isotropic change of the light speed (e.g. rms_kt) stays visible."""
+        return False
+
     def check_units(self, units: str) -> str:
         if units not in self.units_allowed:
             raise ConfigError(f"apparatus {self.kind}: signal units: expected one of "
@@ -130,7 +136,7 @@ class CavityPair(Apparatus):
     path_separation_deg: float = DEFAULT_PATH_SEPARATION_DEG
     mode_tensors: tuple | None = None
     kind: ClassVar[str] = "cavity-pair"
-    units_allowed: ClassVar[tuple[str, ...]] = ("1", "Hz")
+    units_allowed: ClassVar[tuple[str, ...]] = ("Hz", "1")
     modes: tuple[Mode, ...] = field(init=False, repr=False)
     weights: tuple[float, ...] = field(init=False, repr=False, default=(1.0, -1.0))
 
@@ -180,6 +186,10 @@ class CavityVsReference(CavityPair):
 
     reference: str | float = "atomic"
     kind: ClassVar[str] = "cavity-vs-reference"
+
+    @property
+    def isotropic_reference(self) -> bool:
+        return self.reference == "atomic"
 
     def __post_init__(self):
         if self.carrier_hz is not None:

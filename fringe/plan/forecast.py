@@ -58,7 +58,6 @@ from fringe.plan.settings import (
     PlanSettings,
     plan_settings,
 )
-from fringe.theories.sme import KE_NAMES, KO_NAMES
 
 if TYPE_CHECKING:
     from fringe.experiment.scenario import Scenario
@@ -258,9 +257,12 @@ def forecast(scenario: Scenario, free: str | Sequence[str] | None = None,
     duty = _duty(scenario.motion, src)
     var_a = scale**2 * turn_amplitude_variance(noise, period, duty)
     setup = scenario.setup()
-    sme = scenario.theory.name == "sme"
-    ke = tuple(n for n in KE_NAMES if not (n == "ke_ZZ" and "lab_C0" in st.nuisances))
-    names = list(st.free) + [n for n in (ke + KO_NAMES if sme else ()) if n not in st.free]
+    # the decoupling forecast: the primary coefficients (SME: ke_*) alone and together with
+    # those that separate from them only through the annual modulation (SME: ko_*)
+    annual = scenario.theory.annual_names
+    lead = tuple(n for n in scenario.theory.primary_names
+                 if not (n == "ke_ZZ" and "lab_C0" in st.nuisances)) if annual else ()
+    names = list(st.free) + [n for n in lead + annual if n not in st.free]
     names += list(st.nuisances)
     ix = {n: i for i, n in enumerate(names)}
     camp_days = scenario.duration_s / DAY_S
@@ -294,13 +296,13 @@ def forecast(scenario: Scenario, free: str | Sequence[str] | None = None,
     comp = {}
     ratio = ()
     dec_days = None
-    if sme:
-        ko_idx = [ix[n] for n in ke] + nuis
-        kk_idx = [ix[n] for n in ke + KO_NAMES] + nuis
-        a = np.array([_sigmas(fisher(n), ko_idx)[: len(ke)] for n in turns])
-        b = np.array([_sigmas(fisher(n), kk_idx)[: len(ke)] for n in turns])
-        comp = {"ke_only": {n: tuple(a[:, i]) for i, n in enumerate(ke)},
-                "ke_ko": {n: tuple(b[:, i]) for i, n in enumerate(ke)}}
+    if annual:
+        lead_idx = [ix[n] for n in lead] + nuis
+        both_idx = [ix[n] for n in lead + annual] + nuis
+        a = np.array([_sigmas(fisher(n), lead_idx)[: len(lead)] for n in turns])
+        b = np.array([_sigmas(fisher(n), both_idx)[: len(lead)] for n in turns])
+        comp = {"ke_only": {n: tuple(a[:, i]) for i, n in enumerate(lead)},
+                "ke_ko": {n: tuple(b[:, i]) for i, n in enumerate(lead)}}
         r = np.max(b / a, axis=1)
         ratio = tuple(r)
         dec_days = _first_stay_below(days, r, st.decoupling_threshold)
