@@ -1,11 +1,13 @@
 """Shared helpers of the command-line modules: error guard, output directory, progress bar.
 
-The helpers serve the modules of ``fringe/cli/``. No physics here.
+The helpers serve the modules of ``fringe/cli/``: the error guard, the output directory, the
+progress bar and the choices drawn from a registry. No physics here.
 """
 
 from __future__ import annotations
 
 import functools
+import importlib
 import sys
 from pathlib import Path
 
@@ -76,3 +78,21 @@ def progress(total: int, label: str):
     return click.progressbar(length=total, label=label, file=sys.stderr)
 
 
+
+
+class RegistryChoice(click.Choice):
+    """A :class:`click.Choice` whose names are the keys of a registry of the library.
+
+    The registry (``module`` and ``attribute``, e.g. ``"fringe.theories", "THEORIES"``) is
+    imported when click first needs the names (help, parsing, completion), so ``fringe --help``
+    and the other commands do not import the fit or the demodulation.
+    """
+
+    def __init__(self, module: str, attribute: str, case_sensitive: bool = True):
+        self.registry = (module, attribute)
+        self.case_sensitive = case_sensitive
+
+    @property
+    def choices(self) -> tuple[str, ...]:
+        module, attribute = self.registry
+        return tuple(getattr(importlib.import_module(module), attribute))

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from fringe.cli.common import progress, run_guarded
+from fringe.cli.common import RegistryChoice, progress, run_guarded
 
 
 def _names(text: str | None) -> tuple[str, ...] | None:
@@ -18,17 +18,17 @@ def _names(text: str | None) -> tuple[str, ...] | None:
 @click.command("fit")
 @click.argument("run_file", type=click.Path(dir_okay=False))
 @click.option("--out", "out_path", required=True, help="Result file to write (JSON).")
-@click.option("--theory", type=click.Choice(["sme", "rms", "medium", "clock"]), default="sme",
+@click.option("--theory", type=RegistryChoice("fringe.theories", "THEORIES"), default="sme",
               show_default=True)
 @click.option("--free", "free", default=None, metavar="NAMES",
               help="Comma-separated free coefficients (default: the theory's usual set).")
 @click.option("--fix", "fixes", multiple=True, metavar="NAME=VALUE",
               help="Hold a coefficient at a value (repeatable).")
-@click.option("--uncertainty", type=click.Choice(["reduced-chi2", "bootstrap", "formal"]),
+@click.option("--uncertainty", type=RegistryChoice("fringe.fit.settings", "UNCERTAINTY_MODES"),
               default="reduced-chi2", show_default=True)
 @click.option("--bootstrap-days", type=float, default=1.0, show_default=True)
-@click.option("--drift", type=click.Choice(["offset", "linear", "quadratic"]), default="linear",
-              show_default=True, help="Per-turn drift polynomial.")
+@click.option("--drift", type=RegistryChoice("fringe.demodulate.settings", "DRIFT_TERMS"),
+              default="linear", show_default=True, help="Per-turn drift polynomial.")
 @click.option("--max-harmonic", type=click.IntRange(2, 4), default=2, show_default=True,
               help="Highest harmonic of the table angle in the per-turn model.")
 @click.option("--regress", multiple=True, metavar="CHANNEL",
@@ -36,8 +36,8 @@ def _names(text: str | None) -> tuple[str, ...] | None:
 @click.option("--no-lab-b0", is_flag=True, help="Do not fit a constant B offset.")
 @click.option("--lab-c0", is_flag=True, help="Fit a constant C offset (needs ke_ZZ fixed).")
 @click.option("--cross-check", is_flag=True, help="Also run the one-stage global fit.")
-@click.option("--engine", type=click.Choice(["local", "dask"]), default="local",
-              show_default=True)
+@click.option("--engine", type=RegistryChoice("fringe.demodulate.engine", "ENGINES"),
+              default="local", show_default=True)
 @click.option("--scratch-dir", "scratch_dir", default=None,
               type=click.Path(exists=True, file_okay=False, writable=True),
               help="Where a long record keeps its turn table while it is fitted (removed "

@@ -34,6 +34,7 @@ RANGE_SAMPLES = 1 << 17
 #: no time gap would otherwise make one block of the rest of the record, all of it in memory.
 MAX_BLOCK_SAMPLES = 1 << 21
 
+#: Registry of the engines of stage 1 (also the CLI's choices).
 ENGINES = ("local", "dask")
 
 

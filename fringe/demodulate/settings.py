@@ -10,6 +10,7 @@ from dataclasses import dataclass, fields
 
 from fringe.errors import ConfigError
 
+#: Registry of the per-turn drift polynomials: name -> number of terms (also the CLI's choices).
 DRIFT_TERMS = {"offset": 1, "linear": 2, "quadratic": 3}
 
 

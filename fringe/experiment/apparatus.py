@@ -88,6 +88,12 @@ class Apparatus:
         """Signal units used when a run file or scenario names none (the first allowed)."""
         return self.units_allowed[0]
 
+    @property
+    def isotropic_reference(self) -> bool:
+        """True when the observable compares against a reference with no anisotropy (an atomic
+        clock), so an isotropic change of the light speed (e.g. rms_kt) stays visible."""
+        return False
+
     def check_units(self, units: str) -> str:
         """Return ``units`` if this kind allows them, else raise :class:`ConfigError`."""
         if units not in self.units_allowed:
@@ -132,7 +138,7 @@ class CavityPair(Apparatus):
     path_separation_deg: float = DEFAULT_PATH_SEPARATION_DEG
     mode_tensors: tuple | None = None
     kind: ClassVar[str] = "cavity-pair"
-    units_allowed: ClassVar[tuple[str, ...]] = ("1", "Hz")
+    units_allowed: ClassVar[tuple[str, ...]] = ("Hz", "1")
     modes: tuple[Mode, ...] = field(init=False, repr=False)
     weights: tuple[float, ...] = field(init=False, repr=False, default=(1.0, -1.0))
 
@@ -188,6 +194,10 @@ class CavityVsReference(CavityPair):
 
     reference: str | float = "atomic"
     kind: ClassVar[str] = "cavity-vs-reference"
+
+    @property
+    def isotropic_reference(self) -> bool:
+        return self.reference == "atomic"
 
     def __post_init__(self):
         if self.carrier_hz is not None:

@@ -26,9 +26,8 @@ from fringe.experiment.basis import Setup
 from fringe.experiment.turntable import AxisTilt, make_motion
 from fringe.frames import Epoch
 from fringe.site import Site
-from fringe.theories import make_theory
+from fringe.theories import THEORIES, make_theory
 from fringe.theories.base import Theory
-from fringe.theories.medium import cmb_rest_medium
 
 KNOWN_SECTIONS = {"title", "site", "campaign", "apparatus", "turntable", "theory",
                   "coefficients"}
@@ -143,27 +142,25 @@ def _theory_from(doc: dict, source: str) -> tuple[Theory, bool]:
     rotation_velocity = spec.pop("rotation_velocity", True)
     if not isinstance(rotation_velocity, bool):
         raise ConfigError(f"{source}: [theory] rotation_velocity: expected true or false")
-    options = {}
-    if name == "rms":
-        frame = spec.pop("preferred_frame", "cmb")
-        if frame == "cmb":
-            pass
-        elif isinstance(frame, list) and len(frame) == 3:
-            from fringe.constants import C_M_S
-
-            options["sun_velocity_beta"] = np.array(
-                [check_finite_number(v, source, "[theory] preferred_frame") for v in frame]
-            ) * 1e3 / C_M_S
-        else:
-            raise ConfigError(f"{source}: [theory] preferred_frame: expected \"cmb\" or the "
-                              f"Sun's velocity relative to it [vX, vY, vZ] in km/s, got {frame!r}")
-    elif name == "medium":
-        if "wave_speed_m_s" in spec:
-            options["wave_speed_m_s"] = spec.pop("wave_speed_m_s")
+    cls = THEORIES.get(name)
+    options = cls.scenario_options(spec, source) if cls is not None else {}
     if spec:
         raise ConfigError(f"{source}: [theory] {sorted(spec)[0]}: unknown option for theory "
                           f"{name!r}")
     return _wrap(source, "theory", make_theory, name, **options), rotation_velocity
+
+
+def _coefficients_from(doc: dict, source: str, theory: Theory) -> dict[str, float]:
+    """The ``[coefficients]`` table, with a theory's named ``rest_frame`` filled in."""
+    spec = _table(doc, "coefficients", source, required=False)
+    if theory.rest_frames and "rest_frame" in spec:
+        frame = spec.pop("rest_frame")
+        if frame not in theory.rest_frames:
+            raise ConfigError(f"{source}: [coefficients] rest_frame: expected one of "
+                              f"{', '.join(repr(f) for f in theory.rest_frames)} for theory "
+                              f"{theory.name!r}, got {frame!r}")
+        spec = {**theory.rest_frames[frame](), **spec}
+    return theory.check_params(spec, source=f"{source}: [coefficients]")
 
 
 def load_scenario(path: str | Path) -> Scenario:
@@ -228,10 +225,7 @@ def scenario_from_dict(doc: dict, source: str = "scenario") -> Scenario:
     motion = _wrap(source, "turntable", make_motion, tt, "turntable")
 
     theory, rot = _theory_from(doc, source)
-    coeff_spec = _table(doc, "coefficients", source, required=False)
-    if theory.name == "medium" and coeff_spec.pop("rest_frame", None) == "cmb":
-        coeff_spec = {**cmb_rest_medium(), **coeff_spec}
-    coefficients = theory.check_params(coeff_spec, source=f"{source}: [coefficients]")
+    coefficients = _coefficients_from(doc, source, theory)
 
     title = doc.get("title", "")
     if not isinstance(title, str):

@@ -65,6 +65,7 @@ from fringe.demodulate.settings import DRIFT_TERMS, DemodSettings
 from fringe.demodulate.turns import TurnTable
 from fringe.errors import ConfigError, FitError
 from fringe.experiment.basis import CHUNK_SAMPLES, Setup, basis, signal
+from fringe.linalg import SingularMatrixError, invert_normal
 
 logger = logging.getLogger(__name__)
 
@@ -272,13 +273,11 @@ def one_stage_fit(info: RecordInfo, demod: DemodSettings, setup: Setup, table: T
     dof = n_samples - n_turns * m - k
     if dof < 1:
         raise FitError(f"{info.path}: one-stage fit: no degrees of freedom left")
-    scale = np.sqrt(np.maximum(np.diag(normal), 1e-300))
-    nn = normal / np.outer(scale, scale)
-    eig = np.linalg.eigvalsh(nn)
-    if not eig[0] > 1e-12 * eig[-1]:
+    try:
+        inv = invert_normal(normal, null="raise")
+    except SingularMatrixError:
         raise FitError(f"{info.path}: one-stage fit: singular normal matrix (a free coefficient "
-                       "or nuisance has no signal in this record)")
-    inv = np.linalg.inv(nn) / np.outer(scale, scale)
+                       "or nuisance has no signal in this record)") from None
     x = inv @ proj
     chi2 = max(yy - float(proj @ x), 0.0)
     var = chi2 / dof

@@ -6,15 +6,9 @@ from dataclasses import dataclass, field
 
 from fringe.errors import ConfigError
 from fringe.experiment.basis import Setup
-from fringe.theories.sme import KE_NAMES, KO_NAMES
 
+#: Registry of the ways stage 3 forms the coefficient covariance (also the CLI's choices).
 UNCERTAINTY_MODES = ("reduced-chi2", "bootstrap", "formal")
-
-
-#: Span from which ko_* join the default SME free set, days (half a sidereal year: the annual
-#: modulation that separates ko_* from ke_* is then sampled over half a cycle). Common practice
-#: reading of docs/references.md [R-practice-stage2] (a year or more separates them fully).
-KO_DEFAULT_SPAN_DAYS = 182.6
 
 
 @dataclass(frozen=True)
@@ -66,12 +60,6 @@ class FitSettings:
 
 
 def default_free(setup: Setup, span_days: float) -> tuple[str, ...]:
-    """The default free coefficients of a theory for a record of ``span_days``."""
-    name = setup.theory.name
-    if name == "sme":
-        return KE_NAMES + (KO_NAMES if span_days >= KO_DEFAULT_SPAN_DAYS else ())
-    if name == "rms":
-        atomic = (setup.apparatus.kind == "cavity-vs-reference"
-                  and getattr(setup.apparatus, "reference", None) == "atomic")
-        return ("rms_mm", "rms_kt") if atomic else ("rms_mm",)
-    return setup.theory.parameter_names
+    """The default free coefficients of a theory for a record of ``span_days``
+    (:meth:`fringe.theories.base.Theory.default_free`)."""
+    return setup.theory.default_free(span_days, setup.apparatus)

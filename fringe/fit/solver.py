@@ -24,6 +24,7 @@ from numpy.typing import NDArray
 
 from fringe.errors import FitError
 from fringe.fit.turn_model import TURN_BATCH
+from fringe.linalg import SingularMatrixError, invert_normal
 
 #: provider(slice) -> (jc (m, k), jb (m, k), C (m,), B (m,)) for the turns of the slice.
 RowProvider = Callable[[slice], tuple]
@@ -99,12 +100,12 @@ def normal_parts(provider: RowProvider, w: PairWeights, k: int,
 
 
 def solve(normal: NDArray, rhs: NDArray) -> tuple[NDArray, NDArray]:
-    """Solution and inverse of the normal equations (equilibrated); FitError if singular."""
-    scale = np.sqrt(np.maximum(np.diag(normal), 1e-300))
-    nn = normal / np.outer(scale, scale)
+    """Solution and inverse of the normal equations (:func:`fringe.linalg.invert_normal`,
+    equilibrated); FitError if N fails the rank criterion (a fit reports no number for an
+    undetermined parameter)."""
     try:
-        inv = np.linalg.inv(nn) / np.outer(scale, scale)
-    except np.linalg.LinAlgError:
+        inv = invert_normal(normal, null="raise")
+    except SingularMatrixError:
         raise FitError("stage 3: singular normal matrix (a free coefficient has no signal in "
                        "this record); fix it or free fewer coefficients") from None
     return inv @ rhs, inv

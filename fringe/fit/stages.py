@@ -43,6 +43,7 @@ from fringe.fit.passes import (
 )
 from fringe.fit.settings import FitSettings, default_free
 from fringe.fit.solver import bootstrap_cov
+from fringe.linalg import correlation_from_covariance
 
 logger = logging.getLogger(__name__)
 
@@ -109,8 +110,7 @@ def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSe
 
 
 def _degeneracy(labels, cov, limit: float = 0.95) -> list[str]:
-    sig = np.sqrt(np.diag(cov))
-    corr = cov / np.outer(sig, sig)
+    corr = correlation_from_covariance(cov)
     out = []
     pairs = [(labels[i], labels[j], corr[i, j]) for i in range(len(labels))
              for j in range(i + 1, len(labels)) if abs(corr[i, j]) > limit]

@@ -3,7 +3,9 @@
 This module holds what a run file must look like, shared by the reader
 (:mod:`fringe.io.runreader`) and the writer (:mod:`fringe.io.runwriter`): the format constants
 (name, version, allowed units, core channels, reserved groups, default chunk length), the
-apparatus-kind registry :data:`APPARATUS_KINDS`, the metadata checks (:func:`check_apparatus`,
+apparatus-kind registry :data:`APPARATUS_KINDS` (the kinds and signal units of the apparatus
+models, :data:`fringe.experiment.apparatus.APPARATUS_KINDS`, with the attributes a file must and
+may carry), the metadata checks (:func:`check_apparatus`,
 :func:`check_site`, :func:`check_epoch_utc`, :func:`parse_utc_iso`) and the streamed value checks
 of ``samples/time``, ``samples/azimuth`` and ``samples/signal``. Value rules raise
 :class:`Invalid`; the caller turns it into its own one-line error. The format itself is
@@ -24,6 +26,7 @@ from numpy.typing import NDArray
 
 from fringe.conventions import DEFAULT_PATH_SEPARATION_DEG
 from fringe.errors import ConfigError
+from fringe.experiment.apparatus import APPARATUS_KINDS as APPARATUS_MODELS
 from fringe.site import Site
 
 __all__ = ["APPARATUS_KINDS", "AZIMUTH_UNITS", "CORE_CHANNELS", "DEFAULT_CHUNK_SAMPLES",
@@ -168,17 +171,25 @@ class ApparatusKind:
 _SEPARATION = ("path_separation_deg", to_number, DEFAULT_PATH_SEPARATION_DEG)
 _CARRIER = ("carrier_hz", _positive, "the carrier frequency in Hz, > 0")
 
-#: Registry of apparatus kinds (drives validation, messages and tests).
-APPARATUS_KINDS: dict[str, ApparatusKind] = {k.name: k for k in (
-    ApparatusKind("cavity-pair", ("Hz", "1"), (_CARRIER,), (_SEPARATION,)),
-    ApparatusKind("cavity-vs-reference", ("Hz", "1"), (_CARRIER,)),
-    ApparatusKind("michelson", ("fringe",),
-                  (("arm_length_m", _positive, "the arm length in m, > 0"),
+#: The format's rules for the attributes of each kind: (required, optional), see ApparatusKind.
+_ATTRIBUTE_RULES: dict[str, tuple[tuple, tuple]] = {
+    "cavity-pair": ((_CARRIER,), (_SEPARATION,)),
+    "cavity-vs-reference": ((_CARRIER,), ()),
+    "michelson": ((("arm_length_m", _positive, "the arm length in m, > 0"),
                    ("wavelength_m", _positive, "the optical wavelength in m, > 0")),
                   (("passes", _positive_int, 1), _SEPARATION)),
-    ApparatusKind("clock", ("Hz",),
-                  (("sensitivity_hz", _nonzero, "the frequency response in Hz, non-zero"),)),
-)}
+    "clock": ((("sensitivity_hz", _nonzero, "the frequency response in Hz, non-zero"),), ()),
+}
+if set(_ATTRIBUTE_RULES) != set(APPARATUS_MODELS):    # pragma: no cover - a developer's slip
+    raise ImportError("fringe.io.runformat: the attribute rules must name exactly the apparatus "
+                      f"kinds {sorted(APPARATUS_MODELS)}, got {sorted(_ATTRIBUTE_RULES)}")
+
+#: Registry of apparatus kinds in run files (drives validation, messages and tests): one per
+#: apparatus model of :data:`fringe.experiment.apparatus.APPARATUS_KINDS`, with that model's
+#: name and signal units and the format's attribute rules.
+APPARATUS_KINDS: dict[str, ApparatusKind] = {
+    kind: ApparatusKind(kind, model.units_allowed, *_ATTRIBUTE_RULES[kind])
+    for kind, model in APPARATUS_MODELS.items()}
 
 
 def _kinds_text() -> str:

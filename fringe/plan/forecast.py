@@ -46,6 +46,7 @@ from fringe.constants import DAY_S, STELLAR_DAY_S
 from fringe.errors import ConfigError, DegeneracyWarning, check_finite_number
 from fringe.experiment.basis import two_theta_amplitudes
 from fringe.experiment.turntable import SteppedRotation
+from fringe.linalg import correlation_from_covariance, invert_normal
 from fringe.noise.powerlaw import (
     PowerLawNoise,
     noise_from_section,
@@ -58,7 +59,6 @@ from fringe.plan.settings import (
     PlanSettings,
     plan_settings,
 )
-from fringe.theories.sme import KE_NAMES, KO_NAMES
 
 if TYPE_CHECKING:
     from fringe.experiment.scenario import Scenario
@@ -66,9 +66,6 @@ if TYPE_CHECKING:
 __all__ = ["forecast", "turn_amplitude_variance"]
 
 _log = logging.getLogger(__name__)
-
-#: Eigenvalues of the normalised Fisher matrix below this times the largest are null directions.
-RCOND = 1e-12
 
 
 def turn_amplitude_variance(noise: PowerLawNoise, period_s: float, duty: float = 1.0) -> float:
@@ -192,26 +189,14 @@ def _turn_sums(setup, names, period_s, n_turns, max_points, stride=None,
 
 
 def _covariance(fisher: NDArray, idx: list[int]) -> NDArray:
-    """Covariance of the parameters ``idx`` (all fitted together); inf where unconstrained."""
-    f = fisher[np.ix_(idx, idx)]
-    d = np.sqrt(np.clip(np.diag(f), 0.0, None))
-    k = len(idx)
-    cov = np.full((k, k), np.nan)
-    ok = d > 0
-    if not ok.any():
-        np.fill_diagonal(cov, np.inf)
-        return cov
-    fn = f[np.ix_(ok, ok)] / np.outer(d[ok], d[ok])
-    w, v = np.linalg.eigh(fn)
-    good = w > RCOND * w.max()
-    sub = (v[:, good] / w[good]) @ v[:, good].T / np.outer(d[ok], d[ok])
-    loose = np.any(np.abs(v[:, ~good]) > 1e-6, axis=1)
-    io = np.flatnonzero(ok)
-    cov[np.ix_(io, io)] = sub
-    for i in list(io[loose]) + list(np.flatnonzero(~ok)):
-        cov[i, :] = cov[:, i] = np.nan
-        cov[i, i] = np.inf
-    return cov
+    """Covariance of the parameters ``idx`` (all fitted together); inf where unconstrained.
+
+    A forecast keeps going where the campaign leaves a direction undetermined and says which
+    parameters it cannot bound: :func:`fringe.linalg.invert_normal` with ``null="drop"`` (null
+    directions: eigenvalues of the equilibrated Fisher matrix below :data:`fringe.linalg.RCOND`
+    times the largest).
+    """
+    return invert_normal(fisher[np.ix_(idx, idx)], null="drop")
 
 
 def _sigmas(fisher, idx):
@@ -274,9 +259,12 @@ def forecast(scenario: Scenario, free: str | Sequence[str] | None = None,
     duty = _duty(scenario.motion, src)
     var_a = scale**2 * turn_amplitude_variance(noise, period, duty)
     setup = scenario.setup()
-    sme = scenario.theory.name == "sme"
-    ke = tuple(n for n in KE_NAMES if not (n == "ke_ZZ" and "lab_C0" in st.nuisances))
-    names = list(st.free) + [n for n in (ke + KO_NAMES if sme else ()) if n not in st.free]
+    # the decoupling forecast: the primary coefficients (SME: ke_*) alone and together with
+    # those that separate from them only through the annual modulation (SME: ko_*)
+    annual = scenario.theory.annual_names
+    lead = tuple(n for n in scenario.theory.primary_names
+                 if not (n == "ke_ZZ" and "lab_C0" in st.nuisances)) if annual else ()
+    names = list(st.free) + [n for n in lead + annual if n not in st.free]
     names += list(st.nuisances)
     ix = {n: i for i, n in enumerate(names)}
     camp_days = scenario.duration_s / DAY_S
@@ -302,8 +290,7 @@ def forecast(scenario: Scenario, free: str | Sequence[str] | None = None,
     if not np.all(np.isfinite(sig)):
         warnings.warn(f"plan: no information on {', '.join(np.array(st.free)[~np.isfinite(sig)])}"
                       f" in this campaign (sigma infinite)", DegeneracyWarning, stacklevel=2)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        corr = cov / np.outer(sig, sig)
+    corr = correlation_from_covariance(cov)
 
     days = np.geomspace(min(1.0, camp_days), top_days, st.n_days)
     turns = np.maximum((days * DAY_S // period).astype(int), 1)
@@ -311,13 +298,13 @@ def forecast(scenario: Scenario, free: str | Sequence[str] | None = None,
     comp = {}
     ratio = ()
     dec_days = None
-    if sme:
-        ko_idx = [ix[n] for n in ke] + nuis
-        kk_idx = [ix[n] for n in ke + KO_NAMES] + nuis
-        a = np.array([_sigmas(fisher(n), ko_idx)[: len(ke)] for n in turns])
-        b = np.array([_sigmas(fisher(n), kk_idx)[: len(ke)] for n in turns])
-        comp = {"ke_only": {n: tuple(a[:, i]) for i, n in enumerate(ke)},
-                "ke_ko": {n: tuple(b[:, i]) for i, n in enumerate(ke)}}
+    if annual:
+        lead_idx = [ix[n] for n in lead] + nuis
+        both_idx = [ix[n] for n in lead + annual] + nuis
+        a = np.array([_sigmas(fisher(n), lead_idx)[: len(lead)] for n in turns])
+        b = np.array([_sigmas(fisher(n), both_idx)[: len(lead)] for n in turns])
+        comp = {"ke_only": {n: tuple(a[:, i]) for i, n in enumerate(lead)},
+                "ke_ko": {n: tuple(b[:, i]) for i, n in enumerate(lead)}}
         r = np.max(b / a, axis=1)
         ratio = tuple(r)
         dec_days = _first_stay_below(days, r, st.decoupling_threshold)

@@ -8,7 +8,6 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
 from fringe.errors import ConfigError, check_finite_number
-from fringe.theories.sme import KE_NAMES
 
 if TYPE_CHECKING:
     from fringe.experiment.scenario import Scenario
@@ -119,7 +118,7 @@ def plan_settings(scenario: Scenario, free: str | Sequence[str] | None = None,
     elif "free" in sec:
         names = _names(sec.pop("free"), where_free)
     else:
-        names = {"sme": KE_NAMES, "rms": ("rms_mm",)}.get(theory.name, theory.parameter_names)
+        names = theory.primary_names
     for n in names:
         if n not in theory.parameter_names:
             raise ConfigError(f"{where_free}: {n!r} is not a coefficient of theory "

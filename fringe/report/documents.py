@@ -11,8 +11,9 @@ types). Nothing is written here: :func:`fringe.report.build.write_report` writes
 from __future__ import annotations
 
 import json
-from collections.abc import Sequence
-from typing import TYPE_CHECKING
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, NamedTuple
 
 from fringe.report.rms_solve import RmsSolution
 from fringe.report.rounding import (
@@ -30,6 +31,14 @@ from fringe.report.tables import (
     to_html,
     to_latex,
     to_markdown,
+)
+from fringe.theories import (
+    THEORIES,
+    ClassicalMedium,
+    DirectionalClock,
+    RobertsonMansouriSexl,
+    SmePhoton,
+    Theory,
 )
 
 if TYPE_CHECKING:                      # annotations only: build imports this module
@@ -54,60 +63,112 @@ def headline(fit: dict, style: str = "unicode") -> dict:
     """The result in the trade's terms.
 
     * theory ``sme``: the orientation-dependent Delta c / c bound, stated as the largest 95 %
-      bound |value| + 1.96 sigma among the free ke_* coefficients;
+      bound |value| + 1.96 sigma among the free primary coefficients (ke_*,
+      :attr:`~fringe.theories.base.Theory.primary_names`);
     * ``rms``: delta - beta + 1/2 with 1 sigma, its 95 % interval and bound;
     * ``medium``: ``upper_limits.speed_kms_95`` when present;
     * otherwise (and ``clock``): the largest 95 % bound among the free coefficients.
 
+    The theory named by the fit is looked up in :data:`fringe.theories.THEORIES`; each theory
+    class has its statement in ``_HEADLINES`` (a theory without one gets the largest bound).
+
     Returns ``{"text", "quantity", "bound_95", "statement"}``, text in ``style``
     (``"unicode"`` or ``"latex"``).
     """
-    coefs, theory = fit["coefficients"], fit["theory"]
     unc = fit.get("statistics", {}).get("uncertainty")
     tail = _esc(f" Uncertainties: {unc}.", style) if unc else ""
-    lat = style == "latex"
-    pct, sig, lt = (r"95\,\%", r"$\sigma$", "$<$") if lat else ("95 %", "σ", "<")
-    absval = r"$|$value$|$" if lat else "|value|"
-    ke = [n for n in coefs if n.startswith("ke_")]
-    if theory == "rms" and "rms_mm" in coefs:
-        v, s = coefs["rms_mm"]["value"], coefs["rms_mm"]["sigma"]
-        q, qabs = ((r"$\delta-\beta+\frac{1}{2}$", r"$|\delta-\beta+\frac{1}{2}|$") if lat
-                   else ("δ − β + ½", "|δ − β + ½|"))
-        exp = pdg_round(v, s)[2]
-        iv = format_interval(v - Z95 * s, v + Z95 * s, pdg_place(s)[0], exp, style) \
-            if s > 0 else "n/a"
-        b = bound95(v, s)
-        text = (_esc("Orientation dependence of the speed of light (Robertson–Mansouri–Sexl): ",
-                     style) + f"{q} = {format_mantissas(*pdg_round(v, s), style)} (1{sig}), "
-                f"{pct} interval {iv}, i.e. {qabs} {lt} {format_bound(b, style)} at {pct}.")
-        return {"text": text + tail, "quantity": "rms_mm", "bound_95": b,
-                "statement": "|delta - beta + 1/2| + 1.96 sigma"}
-    if theory == "medium" and "speed_kms_95" in (fit.get("upper_limits") or {}):
-        x = float(fit["upper_limits"]["speed_kms_95"])
-        text = _esc(f"Speed of the laboratory through a stationary medium: < {x:.3g} km/s "
-                    "(95 % upper limit).", style)
-        return {"text": text + tail, "quantity": "speed_kms_95", "bound_95": x,
-                "statement": "upper_limits.speed_kms_95 of the fit"}
-    names = ke if theory == "sme" and ke else list(coefs)
+    render = _HEADLINES.get(THEORIES.get(fit["theory"]), _largest_bound_headline)
+    out = render(fit, _Marks.of(style))
+    return {**out, "text": out["text"] + tail}
+
+
+@dataclass(frozen=True)
+class _Marks:
+    """The typographic pieces of a headline in one style."""
+
+    style: str
+    pct: str
+    sig: str
+    lt: str
+    absval: str
+
+    @classmethod
+    def of(cls, style: str) -> _Marks:
+        if style == "latex":
+            return cls(style, r"95\,\%", r"$\sigma$", "$<$", r"$|$value$|$")
+        return cls(style, "95 %", "σ", "<", "|value|")
+
+
+def _largest_bound_headline(fit: dict, m: _Marks, what: str = "Largest bound") -> dict:
+    """The largest 95 % bound among all free coefficients, introduced by ``what``."""
+    coefs = fit["coefficients"]
+    name, bound = _largest_bound(coefs, list(coefs))
+    text = (_esc(f"{what}: |{name}| < ", m.style) + f"{format_bound(bound, m.style)} ({m.pct}), "
+            f"the largest {m.pct} bound {m.absval} + 1.96{m.sig} among the free coefficients.")
+    return {"text": text, "quantity": name, "bound_95": bound,
+            "statement": "largest |value| + 1.96 sigma among the free coefficients"}
+
+
+def _largest_bound(coefs: dict, names: list[str]) -> tuple[str, float]:
     bounds = {n: bound95(coefs[n]["value"], coefs[n]["sigma"]) for n in names}
     name = max(bounds, key=bounds.get)
-    b = format_bound(bounds[name], style)
-    if theory == "sme" and ke:
-        dcc = r"$\Delta c/c$" if lat else "Δc/c"
-        kappa = r"$\tilde{\kappa}_{e-}$" if lat else "κ̃_e−"
-        text = (f"Orientation-dependent {dcc} {lt} {b} ({pct}), stated as the largest {pct} "
-                f"bound {absval} + 1.96{sig} among the {len(ke)} free {kappa} coefficients ("
-                + _esc(", ".join(ke), style) + "), here " + _esc(name, style) + ".")
-        statement = "largest |value| + 1.96 sigma among the free ke_* coefficients"
-    else:
-        what = {"clock": "Orientation-dependent clock shift",
-                "sme": "No ke_* coefficient was free; largest bound"}.get(theory,
-                                                                          "Largest bound")
-        text = (_esc(f"{what}: |{name}| < ", style) + f"{b} ({pct}), the largest {pct} bound "
-                f"{absval} + 1.96{sig} among the free coefficients.")
-        statement = "largest |value| + 1.96 sigma among the free coefficients"
-    return {"text": text + tail, "quantity": name, "bound_95": bounds[name],
-            "statement": statement}
+    return name, bounds[name]
+
+
+def _sme_headline(fit: dict, m: _Marks) -> dict:
+    coefs = fit["coefficients"]
+    ke = [n for n in coefs if n in SmePhoton.primary_names]
+    if not ke:
+        return _largest_bound_headline(fit, m, "No ke_* coefficient was free; largest bound")
+    name, bound = _largest_bound(coefs, ke)
+    lat = m.style == "latex"
+    dcc = r"$\Delta c/c$" if lat else "Δc/c"
+    kappa = r"$\tilde{\kappa}_{e-}$" if lat else "κ̃_e−"
+    text = (f"Orientation-dependent {dcc} {m.lt} {format_bound(bound, m.style)} ({m.pct}), "
+            f"stated as the largest {m.pct} bound {m.absval} + 1.96{m.sig} among the {len(ke)} "
+            f"free {kappa} coefficients (" + _esc(", ".join(ke), m.style) + "), here "
+            + _esc(name, m.style) + ".")
+    return {"text": text, "quantity": name, "bound_95": bound,
+            "statement": "largest |value| + 1.96 sigma among the free ke_* coefficients"}
+
+
+def _rms_headline(fit: dict, m: _Marks) -> dict:
+    coefs = fit["coefficients"]
+    lead = RobertsonMansouriSexl.primary_names[0]          # rms_mm = delta - beta + 1/2
+    if lead not in coefs:
+        return _largest_bound_headline(fit, m)
+    v, s = coefs[lead]["value"], coefs[lead]["sigma"]
+    q, qabs = ((r"$\delta-\beta+\frac{1}{2}$", r"$|\delta-\beta+\frac{1}{2}|$")
+               if m.style == "latex" else ("δ − β + ½", "|δ − β + ½|"))
+    exp = pdg_round(v, s)[2]
+    iv = format_interval(v - Z95 * s, v + Z95 * s, pdg_place(s)[0], exp, m.style) \
+        if s > 0 else "n/a"
+    b = bound95(v, s)
+    text = (_esc("Orientation dependence of the speed of light (Robertson–Mansouri–Sexl): ",
+                 m.style) + f"{q} = {format_mantissas(*pdg_round(v, s), m.style)} (1{m.sig}), "
+            f"{m.pct} interval {iv}, i.e. {qabs} {m.lt} {format_bound(b, m.style)} at {m.pct}.")
+    return {"text": text, "quantity": lead, "bound_95": b,
+            "statement": "|delta - beta + 1/2| + 1.96 sigma"}
+
+
+def _medium_headline(fit: dict, m: _Marks) -> dict:
+    if "speed_kms_95" not in (fit.get("upper_limits") or {}):
+        return _largest_bound_headline(fit, m)
+    x = float(fit["upper_limits"]["speed_kms_95"])
+    text = _esc(f"Speed of the laboratory through a stationary medium: < {x:.3g} km/s "
+                "(95 % upper limit).", m.style)
+    return {"text": text, "quantity": "speed_kms_95", "bound_95": x,
+            "statement": "upper_limits.speed_kms_95 of the fit"}
+
+
+def _clock_headline(fit: dict, m: _Marks) -> dict:
+    return _largest_bound_headline(fit, m, "Orientation-dependent clock shift")
+
+
+#: The headline of each theory class (a theory missing here gets the largest bound).
+_HEADLINES: dict[type[Theory], Callable[[dict, _Marks], dict]] = {
+    SmePhoton: _sme_headline, RobertsonMansouriSexl: _rms_headline,
+    ClassicalMedium: _medium_headline, DirectionalClock: _clock_headline}
 
 
 # ------------------------------------------------------------------------------ render
@@ -140,6 +201,35 @@ def _rms_text(c: ReportContent) -> list[str]:
     return out
 
 
+def _rms_html(c: ReportContent) -> str:
+    """HTML body of the RMS section (theory rms only)."""
+    import html as _html
+
+    body = "".join(f"<p>{_html.escape(p)}</p>" for p in _rms_text(c)
+                   if p and not p.startswith("- "))
+    if c.rms is not None:
+        body += "<ul>" + "".join(f"<li>{_html.escape(x)}</li>"
+                                 for x in _rms_lines(c.rms, "unicode")) + "</ul>"
+    return body
+
+
+class _Section(NamedTuple):
+    """A report section of one theory: heading, Markdown lines and HTML body."""
+
+    title: str
+    markdown: Callable[[ReportContent], list[str]]
+    html: Callable[[ReportContent], str]
+
+
+#: Sections of their own for some theory classes (after the comparison table).
+_THEORY_SECTIONS: dict[type[Theory], _Section] = {
+    RobertsonMansouriSexl: _Section("Robertson–Mansouri–Sexl parameters", _rms_text, _rms_html)}
+
+
+def _theory_section(fit: dict) -> _Section | None:
+    return _THEORY_SECTIONS.get(THEORIES.get(fit["theory"]))
+
+
 def _fixed_text(fit: dict) -> str:
     return ", ".join(f"{k} = {v:g}" for k, v in fit.get("fixed", {}).items())
 
@@ -161,8 +251,9 @@ def markdown_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) ->
         out += [f"Fixed: {_fixed_text(fit)}.", ""]
     if "comparison" in tables:
         out += ["## Comparison with earlier results", "", to_markdown(tables["comparison"])]
-    if fit["theory"] == "rms":
-        out += ["## Robertson–Mansouri–Sexl parameters", ""] + _rms_text(c)
+    section = _theory_section(fit)
+    if section is not None:
+        out += [f"## {section.title}", ""] + section.markdown(c)
     for key, title in EXTRA_TABLES:
         if key in tables:
             out += [f"## {title}", "", to_markdown(tables[key])]
@@ -209,13 +300,9 @@ def html_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) -> str
         sections.append(("Fixed coefficients", f"<p>{_html.escape(_fixed_text(c.fit))}</p>"))
     if "comparison" in tables:
         sections.append(("Comparison with earlier results", to_html(tables["comparison"])))
-    if c.fit["theory"] == "rms":
-        body = "".join(f"<p>{_html.escape(p)}</p>" for p in _rms_text(c)
-                       if p and not p.startswith("- "))
-        if c.rms is not None:
-            body += "<ul>" + "".join(f"<li>{_html.escape(x)}</li>"
-                                     for x in _rms_lines(c.rms, "unicode")) + "</ul>"
-        sections.append(("Robertson–Mansouri–Sexl parameters", body))
+    section = _theory_section(c.fit)
+    if section is not None:
+        sections.append((section.title, section.html(c)))
     for key, title in EXTRA_TABLES:
         if key in tables:
             sections.append((title, to_html(tables[key])))

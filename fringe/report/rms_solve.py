@@ -31,6 +31,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from fringe.errors import ConfigError
+from fringe.linalg import correlation_from_covariance
 
 __all__ = ["COMBINATION_NAMES", "DEVIATION_NAMES", "FORWARD_MATRIX", "INVERSE_MATRIX",
            "RmsSolution", "SR_VALUES", "combinations_from_deviations", "solve_rms"]
@@ -88,10 +89,9 @@ class RmsSolution:
 
     @property
     def correlation(self) -> NDArray[np.float64]:
-        """Correlation matrix of the deviations (NaN where a variance is zero)."""
-        s = np.sqrt(np.diag(self.covariance))
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return self.covariance / np.outer(s, s)
+        """Correlation matrix of the deviations (NaN where a variance is zero;
+        :func:`fringe.linalg.correlation_from_covariance`)."""
+        return correlation_from_covariance(self.covariance)
 
     def to_dict(self) -> dict:
         """Plain JSON types."""

@@ -18,9 +18,8 @@ import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
-import numpy as np
-
 from fringe.errors import ConfigError
+from fringe.linalg import correlation_from_covariance
 from fringe.report.rounding import (
     STYLES,
     format_bound,
@@ -31,7 +30,7 @@ from fringe.report.rounding import (
 )
 
 __all__ = ["Table", "Z68", "Z95", "bound95", "coefficient_label", "coefficient_table",
-           "comparison_table", "correlation_from_covariance", "correlation_table",
+           "comparison_table", "correlation_table",
            "cross_check_table", "harmonics_table", "latex_escape", "report_tables", "to_html",
            "to_latex", "to_markdown", "value_table"]
 
@@ -234,20 +233,10 @@ def harmonics_table(names: Sequence[str], values: Sequence[float], sigmas: Seque
     return Table(header, tuple(rows), caption=caption, label=label, style=style)
 
 
-def correlation_from_covariance(covariance) -> np.ndarray:
-    """Correlation matrix rho_ij = C_ij / sqrt(C_ii C_jj) (NaN where a variance is <= 0)."""
-    c = np.asarray(covariance, dtype=float)
-    d = np.diag(c)
-    s = np.sqrt(np.where(d > 0, d, np.nan))
-    rho = c / np.outer(s, s)
-    np.fill_diagonal(rho, np.where(d > 0, 1.0, np.nan))
-    return rho
-
-
 def correlation_table(names: Sequence[str], covariance, *, style: str = "unicode",
                       caption: str = "", label: str = "tab:correlation") -> Table:
     """Correlation matrix of the free coefficients (two decimals, diagonal 1)."""
-    rho = correlation_from_covariance(covariance)
+    rho = correlation_from_covariance(covariance, unit_diagonal=True)
     if rho.shape != (len(names), len(names)):
         raise ConfigError(f"correlation table: covariance: expected shape "
                           f"({len(names)}, {len(names)}), got {rho.shape}")

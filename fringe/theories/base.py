@@ -10,7 +10,8 @@ the whole basis: every observable is linear in it.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+import math
+from collections.abc import Callable, Mapping
 from typing import ClassVar
 
 import numpy as np
@@ -37,6 +38,12 @@ def rotate_to_lab(tensor_sccef: NDArray, state: FrameState) -> NDArray:
 class Theory:
     """Base class: subclasses set ``name``, ``sector``, ``parameter_names``, ``parameter_units``.
 
+    What the rest of fringe asks of a theory is asked here, never by its name: the fit's
+    default free set (:meth:`default_free`), the scenario options of the ``[theory]`` section
+    (:meth:`scenario_options`), named rest frames of the coefficients (``rest_frames``), which
+    coefficients a plan and a report lead with (``primary_names``) and which separate from them
+    only over a long campaign (``annual_names``).
+
     Attributes
     ----------
     sector : {"photon", "matter"}
@@ -44,6 +51,18 @@ class Theory:
         theories act on a clock's quantization axis.
     linear : bool
         True when the observable is linear in the coefficients.
+    primary_names : tuple of str
+        The coefficients a campaign bounds first: the default free set of a short fit and of a
+        plan, and the ones a report's headline states. Default: all ``parameter_names``.
+    annual_names : tuple of str
+        Coefficients that separate from the primary ones only through the annual modulation of
+        the lab's velocity (SME: ko_*): freed by default in records of at least
+        ``annual_span_days``, and the plan forecasts from which span they decouple.
+    annual_span_days : float
+        Record span from which ``annual_names`` join the default free set, days.
+    rest_frames : mapping of str to callable
+        Named frames a scenario's ``[coefficients] rest_frame`` may give; each returns the
+        coefficient values of that frame (e.g. a medium at rest in the CMB frame).
     """
 
     name: ClassVar[str] = ""
@@ -52,6 +71,35 @@ class Theory:
     parameter_names: ClassVar[tuple[str, ...]] = ()
     parameter_units: ClassVar[dict[str, str]] = {}
     description: ClassVar[str] = ""
+    primary_names: ClassVar[tuple[str, ...]] = ()
+    annual_names: ClassVar[tuple[str, ...]] = ()
+    annual_span_days: ClassVar[float] = math.inf
+    rest_frames: ClassVar[Mapping[str, Callable[[], dict[str, float]]]] = {}
+
+    def __init_subclass__(cls, **kwargs):
+        super().__init_subclass__(**kwargs)
+        if not cls.primary_names:
+            cls.primary_names = cls.parameter_names
+
+    # -- configuration ---------------------------------------------------------------------
+    @classmethod
+    def scenario_options(cls, spec: dict, source: str) -> dict:
+        """Constructor options from a scenario's ``[theory]`` table.
+
+        Removes the options this theory knows from ``spec`` (what is left is unknown to it) and
+        returns them as keyword arguments of the constructor. ``source`` names the file in
+        error messages. The base class knows none.
+        """
+        return {}
+
+    def default_free(self, span_days: float, apparatus) -> tuple[str, ...]:
+        """The coefficients a fit frees by default for a record of ``span_days`` (days) taken
+        with ``apparatus`` (a :class:`fringe.experiment.apparatus.Apparatus`): the primary
+        ones, and the annual ones from ``annual_span_days`` on."""
+        names = self.primary_names
+        if self.annual_names and span_days >= self.annual_span_days:
+            names = names + self.annual_names
+        return names
 
     def check_params(self, params: Mapping[str, float], source: str = "coefficients") -> dict:
         """Return ``params`` as floats after checking every name belongs to this theory."""

@@ -43,6 +43,12 @@ class ClassicalMedium(Theory):
     parameter_names: ClassVar[tuple[str, ...]] = MEDIUM_NAMES
     parameter_units: ClassVar[dict[str, str]] = {n: "km/s" for n in MEDIUM_NAMES}
     description: ClassVar[str] = "classical stationary medium, exact round-trip formula"
+    rest_frames: ClassVar[dict] = {"cmb": cmb_rest_medium}
+
+    @classmethod
+    def scenario_options(cls, spec, source):
+        """``wave_speed_m_s``: the wave speed, m/s (default c)."""
+        return {"wave_speed_m_s": spec.pop("wave_speed_m_s")} if "wave_speed_m_s" in spec else {}
 
     def __init__(self, wave_speed_m_s: float = C_M_S):
         self.wave_speed_m_s = check_finite_number(wave_speed_m_s, "theory.medium",

@@ -23,8 +23,8 @@ from typing import ClassVar
 
 import numpy as np
 
-from fringe.constants import sun_cmb_beta
-from fringe.errors import ConfigError
+from fringe.constants import C_M_S, sun_cmb_beta
+from fringe.errors import ConfigError, check_finite_number
 from fringe.theories.base import Theory
 
 RMS_NAMES = ("rms_mm", "rms_kt")
@@ -44,6 +44,7 @@ class RobertsonMansouriSexl(Theory):
     parameter_names: ClassVar[tuple[str, ...]] = RMS_NAMES
     parameter_units: ClassVar[dict[str, str]] = {n: "1" for n in RMS_NAMES}
     description: ClassVar[str] = "Robertson-Mansouri-Sexl test theory, preferred frame CMB"
+    primary_names: ClassVar[tuple[str, ...]] = ("rms_mm",)
 
     def __init__(self, sun_velocity_beta=None):
         v = sun_cmb_beta() if sun_velocity_beta is None else np.asarray(sun_velocity_beta, float)
@@ -51,6 +52,30 @@ class RobertsonMansouriSexl(Theory):
             raise ConfigError("theory.rms: preferred-frame velocity: expected three finite "
                               f"components with |v| < c, got {sun_velocity_beta!r}")
         self.sun_velocity_beta = v
+
+    @classmethod
+    def scenario_options(cls, spec, source):
+        """``preferred_frame``: ``"cmb"`` (default) or the Sun's velocity relative to the
+        preferred frame ``[vX, vY, vZ]`` in km/s (SCCEF axes)."""
+        options = {}
+        frame = spec.pop("preferred_frame", "cmb")
+        if frame == "cmb":
+            pass
+        elif isinstance(frame, list) and len(frame) == 3:
+            options["sun_velocity_beta"] = np.array(
+                [check_finite_number(v, source, "[theory] preferred_frame") for v in frame]
+            ) * 1e3 / C_M_S
+        else:
+            raise ConfigError(f"{source}: [theory] preferred_frame: expected \"cmb\" or the "
+                              f"Sun's velocity relative to it [vX, vY, vZ] in km/s, got {frame!r}")
+        return options
+
+    def default_free(self, span_days, apparatus):
+        """rms_mm; and rms_kt where the apparatus compares against an isotropic (atomic)
+        reference, which keeps the isotropic shift it scales visible."""
+        if getattr(apparatus, "isotropic_reference", False):
+            return self.primary_names + ("rms_kt",)
+        return self.primary_names
 
     def lab_velocity(self, state):
         """Lab velocity relative to the preferred frame over c, lab axes, (n, 3)."""

@@ -564,11 +564,21 @@ def test_parse_utc_iso_rejects(text):
 
 
 def test_format_kinds_match_the_apparatus_models():
-    from fringe.experiment.apparatus import APPARATUS_KINDS as MODELS
+    import dataclasses
 
-    assert set(APPARATUS_KINDS) == set(MODELS)
+    from fringe.experiment.apparatus import APPARATUS_KINDS as MODELS
+    from fringe.experiment.apparatus import apparatus_fields
+
+    assert list(APPARATUS_KINDS) == list(MODELS)
     for kind, spec in APPARATUS_KINDS.items():
-        assert set(spec.signal_units) == set(MODELS[kind].units_allowed), kind
+        assert spec.signal_units == MODELS[kind].units_allowed, kind
+        # every attribute the format checks is a field of the model, and a format default is
+        # the model's own default
+        fields = {f.name: f for f in dataclasses.fields(MODELS[kind])}
+        for name, _rule, _what in spec.required + spec.optional:
+            assert name in apparatus_fields(MODELS[kind]), (kind, name)
+        for name, _rule, default in spec.optional:
+            assert fields[name].default == default, (kind, name)
 
 
 def test_sha256_streams_the_bytes(tmp_path):

@@ -26,8 +26,8 @@ from numpy.typing import ArrayLike, NDArray
 
 from fringe.constants import OMEGA_EARTH_RAD_S, OMEGA_ORBIT_RAD_S, STELLAR_DAY_S
 from fringe.errors import ConfigError
+from fringe.linalg import correlation_from_covariance
 from fringe.noise.allan import overlapping_adev
-from fringe.report.tables import correlation_from_covariance
 
 __all__ = ["ANNUAL_CYCLES_PER_SIDEREAL_DAY", "amplitude_spectrum", "binned_by_phase",
            "new_axes", "plot_amplitude_vs_sidereal", "plot_correlation", "plot_limits",
@@ -297,7 +297,7 @@ def plot_correlation(names: Sequence[str], covariance: ArrayLike, ax=None):
     """Correlation matrix of the coefficients, colour image with the numbers."""
     if ax is None:
         ax = new_axes(figsize=(1.6 + 0.55 * len(names), 1.2 + 0.5 * len(names)))
-    rho = correlation_from_covariance(covariance)
+    rho = correlation_from_covariance(covariance, unit_diagonal=True)
     im = ax.imshow(rho, vmin=-1, vmax=1, cmap="RdBu_r")
     n = len(names)
     for i in range(n):
