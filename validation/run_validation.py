@@ -1,15 +1,15 @@
 """Statistical validation of ``fringe fit``: coverage, null tests and efficiency.
 
 Many small simulated campaigns with a known injected truth are written with
-:func:`fringe.simulation.campaign.simulate` and fitted with :func:`fringe.fit.run.fit_run`, exactly as a
-user would. For every coefficient the study reports the coverage of the reported 1 sigma and
-1.96 sigma intervals, the mean and standard deviation of the pulls (estimate - truth)/sigma, the
-efficiency (white-noise Cramer-Rao sigma / reported sigma, the result's ``efficiency``) and the
-ratio of the scatter of the estimates to the reported sigma. Null tests: campaigns with nothing
-injected, and campaigns with a real signal whose sidereal phase is scrambled (turns permuted).
-A constant shift of the analysis epoch is also run: it rotates the sidereal phase by a constant,
-which maps the signal onto other coefficients instead of removing it (not a null; see
-``docs/validation.md``).
+:func:`fringe.simulation.campaign.simulate` and fitted with :func:`fringe.fit.run.fit_run`,
+exactly as a user would. For every coefficient the study reports the coverage of the reported
+1 sigma and 1.96 sigma intervals, the mean and standard deviation of the pulls
+(estimate - truth)/sigma, the efficiency (white-noise Cramer-Rao sigma / reported sigma, the
+result's ``efficiency``) and the ratio of the scatter of the estimates to the reported sigma.
+Null tests: campaigns with nothing injected, and campaigns with a real signal whose sidereal
+phase is scrambled (turns permuted). A constant shift of the analysis epoch is also run: it
+rotates the sidereal phase by a constant, which maps the signal onto other coefficients instead
+of removing it (not a null; see ``docs/validation.md``).
 
 Run (2 worker processes, raw results as JSON, Markdown tables printed and optionally written
 into a document between the markers ``<!-- validation:begin -->``/``<!-- validation:end -->``)::

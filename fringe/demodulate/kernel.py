@@ -140,9 +140,12 @@ def _largest_angle_gap(psi):
     return gap
 
 
+# One compiled loop on purpose: it makes three passes over each block's samples while they
+# are in cache; split into functions it would pay call overhead in the hot loop and risk the
+# bit-identical numbers.
 @njit(cache=True, nogil=True)
-def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd, max_harmonic, leak_kind,
-               leak_power, min_samples, max_gap_rad):
+def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
+               max_harmonic, leak_kind, leak_power, min_samples, max_gap_rad):
     """Fit every block of a range (see the module docstring).
 
     Parameters

@@ -90,8 +90,11 @@ class Apparatus:
 
     @property
     def isotropic_reference(self) -> bool:
-        """True when the observable compares against a reference with no anisotropy (an atomic
-        clock), so an isotropic change of the light speed (e.g. rms_kt) stays visible."""
+        """True when the observable compares against a reference with no anisotropy.
+
+        Such a reference is, e.g., an atomic clock; against it an isotropic change of the light
+        speed (e.g. rms_kt) stays visible.
+        """
         return False
 
     def check_units(self, units: str) -> str:
@@ -197,6 +200,7 @@ class CavityVsReference(CavityPair):
 
     @property
     def isotropic_reference(self) -> bool:
+        """True for the ``"atomic"`` reference (no anisotropy); False for a reference cavity."""
         return self.reference == "atomic"
 
     def __post_init__(self):

@@ -79,9 +79,15 @@ class Scenario:
 
     @property
     def n_samples(self) -> int:
+        """Number of samples: floor(duration_s / sample_interval_s), 1e-9 slack against rounding."""
         return int(math.floor(self.duration_s / self.sample_interval_s + 1e-9))
 
     def setup(self) -> Setup:
+        """The :class:`fringe.experiment.basis.Setup` of this scenario.
+
+        Site, epoch, apparatus, theory, units, tilt and the rotation-velocity switch, as the
+        basis and simulation functions take them.
+        """
         return Setup(site=self.site, epoch=self.epoch, apparatus=self.apparatus,
                      theory=self.theory, units=self.units, tilt=self.tilt,
                      include_rotation_velocity=self.include_rotation_velocity)

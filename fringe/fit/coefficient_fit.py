@@ -1,4 +1,7 @@
-"""A coefficient fit as stages 2-3 return it, and the per-turn covariance both linear and medium fits weight with."""
+"""A coefficient fit as stages 2-3 return it.
+
+Also the per-turn covariance that both the linear and the medium fits weight with.
+"""
 
 from __future__ import annotations
 
@@ -13,9 +16,11 @@ from fringe.fit.passes import (
 
 
 def turn_covariance(table: TurnTable, sel: NDArray) -> NDArray:
-    """Per-turn covariance of (C, B) used as weights, (n, 2, 2), for the rows ``sel``:
+    """Per-turn covariance of (C, B) used as weights, (n, 2, 2), for the rows ``sel``.
+
     s_i^2 x ninv_i with s_i from :func:`fringe.fit.passes.noise_level`. The overall level is
-    then set by the reduced chi^2 (or the bootstrap)."""
+    then set by the reduced chi^2 (or the bootstrap).
+    """
     level = noise_level(table.residual_rms[sel])
     return level[:, None, None] ** 2 * table.ninv_2[sel]
 

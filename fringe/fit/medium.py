@@ -1,4 +1,7 @@
-"""The classical-medium fit: the one nonlinear theory, fitted with lmfit to the per-turn amplitudes."""
+"""The classical-medium fit.
+
+The one nonlinear theory, fitted with lmfit to the per-turn amplitudes.
+"""
 
 from __future__ import annotations
 

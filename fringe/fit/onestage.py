@@ -5,8 +5,8 @@ turn to its 2 theta amplitudes (C_i, B_i), this module fits all samples y_n at o
 
     y_n = sum_k p_k g_k(t_n, A_n) + sum_j q_j h_j(n) + sum_l u_{b,l} L_l(n)        (n in block b)
 
-* g_k: the basis signal of free coefficient k (:func:`fringe.experiment.basis.basis`, with the recorded
-  azimuth A_n of each sample; exact, no frozen-frame or 8-angle approximation);
+* g_k: the basis signal of free coefficient k (:func:`fringe.experiment.basis.basis`, with the
+  recorded azimuth A_n of each sample; exact, no frozen-frame or 8-angle approximation);
 * h_j: the global nuisances of stage 3, a constant sin 2 theta column when ``settings.lab_b0``
   (``lab_B0``), a constant cos 2 theta column when ``settings.lab_c0`` (``lab_C0``) and, for
   each ``settings.regress`` channel ch, the 2 theta part of that channel in each turn
@@ -28,12 +28,12 @@ per-sample noise of the level the residuals show). Before the sums, y and the co
 centred per turn on their means; the constant is in the span of L, so this changes nothing but
 the rounding.
 
-The record is read range by range (:func:`fringe.demodulate.engine.range_samples_and_blocks`, the same
-segmentation as stage 1). Only turns that stage 1 accepted take part: each turn's mean time and
-valid-sample count are recomputed exactly as stage 1 does and matched to the accepted rows of the
-turn table. NaN samples (and samples where a regressed channel is NaN) are left out. Sums are
-formed with ``np.add.reduceat`` of per-sample products and the per-turn systems are solved in one
-batched ``np.linalg.solve``; there is no Python loop over turns.
+The record is read range by range (:func:`fringe.demodulate.engine.range_samples_and_blocks`,
+the same segmentation as stage 1). Only turns that stage 1 accepted take part: each turn's mean
+time and valid-sample count are recomputed exactly as stage 1 does and matched to the accepted
+rows of the turn table. NaN samples (and samples where a regressed channel is NaN) are left out.
+Sums are formed with ``np.add.reduceat`` of per-sample products and the per-turn systems are
+solved in one batched ``np.linalg.solve``; there is no Python loop over turns.
 
 For white noise this estimate is the Gauss-Markov (minimum-variance linear) estimate for the
 model. The per-turn (C, B) estimates of stage 1 carry all the information on the 2 theta model

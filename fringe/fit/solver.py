@@ -40,8 +40,10 @@ class PairWeights:
 
     @classmethod
     def from_cov(cls, cov: NDArray, scale: float = 1.0) -> PairWeights:
-        """From per-turn covariances ``scale`` x cov (cov (n, 2, 2)); raises FitError if one
-        is not positive definite."""
+        """From per-turn covariances ``scale`` x cov (cov (n, 2, 2), units^2).
+
+        Raises FitError if one is not positive definite.
+        """
         c00, c01, c11 = cov[:, 0, 0], 0.5 * (cov[:, 0, 1] + cov[:, 1, 0]), cov[:, 1, 1]
         det = c00 * c11 - c01 * c01
         if np.any(~(c00 > 0)) or np.any(~(det > 0)) or not scale > 0:
@@ -51,6 +53,7 @@ class PairWeights:
 
     @property
     def size(self) -> int:
+        """Number of turns n."""
         return int(self.p00.size)
 
 
@@ -67,9 +70,11 @@ class NormalParts:
 
     @classmethod
     def zeros(cls, k: int) -> NormalParts:
+        """All-zero parts for ``k`` parameters (the start of an accumulation)."""
         return cls(*(np.zeros((k, k)) for _ in range(3)), *(np.zeros(k) for _ in range(3)))
 
     def add(self, other: NormalParts) -> None:
+        """Add ``other``'s matrices and right-hand sides to these, in place."""
         for name in ("g_cc", "g_x", "g_bb", "h_c", "h_x", "h_b"):
             getattr(self, name).__iadd__(getattr(other, name))
 
@@ -100,9 +105,11 @@ def normal_parts(provider: RowProvider, w: PairWeights, k: int,
 
 
 def solve(normal: NDArray, rhs: NDArray) -> tuple[NDArray, NDArray]:
-    """Solution and inverse of the normal equations (:func:`fringe.linalg.invert_normal`,
-    equilibrated); FitError if N fails the rank criterion (a fit reports no number for an
-    undetermined parameter)."""
+    """Solution and inverse of the normal equations, by :func:`fringe.linalg.invert_normal`.
+
+    The inversion is equilibrated; FitError if N fails the rank criterion (a fit reports no
+    number for an undetermined parameter).
+    """
     try:
         inv = invert_normal(normal, null="raise")
     except SingularMatrixError:
@@ -122,8 +129,11 @@ def fitted(provider: RowProvider, n: int, x: NDArray) -> tuple[NDArray, NDArray]
 
 def residual_chi2(provider: RowProvider, w: PairWeights, x: NDArray, d_c: float = 1.0,
                   d_b: float = 1.0) -> tuple[float, float, float]:
-    """(chi^2, mean r_c^2 / S_cc, mean r_b^2 / S_bb) of the residuals for parameters x and the
-    rescaled covariances D S_i D (S_cc = p11 / det P and S_bb = p00 / det P of the unscaled S)."""
+    """(chi^2, mean r_c^2 / S_cc, mean r_b^2 / S_bb) of the residuals for parameters x.
+
+    chi^2 is for the rescaled covariances D S_i D; S_cc = p11 / det P and S_bb = p00 / det P
+    are of the unscaled S.
+    """
     chi2 = rc2 = rb2 = 0.0
     for sl in batches(w.size):
         jc, jb, c, b = provider(sl)
@@ -165,8 +175,10 @@ def whitening(cov: NDArray) -> NDArray:
 
 def bootstrap_cov(parts: list[NormalParts], n_boot: int, rng: np.random.Generator,
                   d_c: float = 1.0, d_b: float = 1.0) -> NDArray:
-    """Covariance of the solution over resamplings (with replacement) of groups of turns,
-    each group given by its normal-equation parts."""
+    """Covariance of the solution over resamplings (with replacement) of groups of turns.
+
+    Each group is given by its normal-equation parts.
+    """
     normal = np.stack([p.combine(d_c, d_b)[0] for p in parts])
     rhs = np.stack([p.combine(d_c, d_b)[1] for p in parts])
     draws = []

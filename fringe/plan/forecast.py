@@ -18,7 +18,8 @@ Where the parts live: the result classes :class:`PlanResult`, :class:`TargetAnsw
 :mod:`fringe.plan.montecarlo`; this module re-exports them, so import everything from here.
 
 The model (docs/plan.md derives it). Turn i (duration T_R, mid-time t_i) gives amplitudes
-(C_i, B_i) = J_i p + nuisances + noise, J_i from :func:`fringe.experiment.basis.two_theta_amplitudes`.
+(C_i, B_i) = J_i p + nuisances + noise, J_i from
+:func:`fringe.experiment.basis.two_theta_amplitudes`.
 The noise of C_i and B_i is taken as independent, equal, and white from turn to turn, with
 
     sigma_a^2 = k^2 S_y(f_0) / (d T_R),   f_0 = 2 / T_R,
@@ -161,9 +162,12 @@ def turn_shape_matrix(scenario, drift: str = "linear") -> NDArray:
 
 def _turn_sums(setup, names, period_s, n_turns, max_points, stride=None,
                shape_inv=None) -> _TurnSums:
-    """Sums for turns 0 .. n_turns-1: every turn (stride 1) or every m-th, m set by
-    ``max_points`` but at most STELLAR_DAY_S / (32 T_R) (>= 32 points per sidereal day, so the
-    products of the up-to-2 phi harmonics are sampled well above their Nyquist rate)."""
+    """Sums for turns 0 .. n_turns-1: every turn (stride 1) or every m-th.
+
+    m is set by ``max_points`` but is at most STELLAR_DAY_S / (32 T_R) (>= 32 points per
+    sidereal day, so the products of the up-to-2 phi harmonics are sampled well above their
+    Nyquist rate).
+    """
     if stride is None:
         stride = max(1, min(math.ceil(n_turns / max_points),
                             int(STELLAR_DAY_S // (32.0 * period_s))))

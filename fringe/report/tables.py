@@ -110,10 +110,10 @@ def _sup_latex(component: str) -> str:
 
 
 def coefficient_label(name: str, style: str = "unicode") -> str:
-    """Display label of a coefficient name: the name itself, or a LaTeX symbol.
+    r"""Display label of a coefficient name: the name itself, or a LaTeX symbol.
 
-    ``ke_XY`` -> ``$\\tilde{\\kappa}_{e-}^{XY}$``, ``ko_XY`` -> ``$\\tilde{\\kappa}_{o+}^{XY}$``,
-    ``ktr`` -> ``$\\tilde{\\kappa}_{\\mathrm{tr}}$``, ``rms_mm`` -> ``$\\delta-\\beta+1/2$``, ...
+    ``ke_XY`` -> ``$\tilde{\kappa}_{e-}^{XY}$``, ``ko_XY`` -> ``$\tilde{\kappa}_{o+}^{XY}$``,
+    ``ktr`` -> ``$\tilde{\kappa}_{\mathrm{tr}}$``, ``rms_mm`` -> ``$\delta-\beta+1/2$``, ...
     (LaTeX style only; other styles return ``name``).
     """
     if style != "latex":
@@ -156,7 +156,7 @@ def bound95(value: float, sigma: float) -> float:
 # --------------------------------------------------------------------------------- builders
 
 def _value_cells(value: float, sigma: float, style: str) -> tuple[str, str, str]:
-    """value ± 1σ, 68 % and 95 % intervals, rounded consistently."""
+    """Value ± 1σ, 68 % and 95 % intervals, rounded consistently."""
     v_str, s_str, exp = pdg_round(value, sigma)
     cell = format_mantissas(v_str, s_str, exp, style)
     if sigma == 0:
@@ -252,7 +252,7 @@ def correlation_table(names: Sequence[str], covariance, *, style: str = "unicode
 def comparison_table(ours: Mapping[str, Mapping[str, float]], earlier: Sequence[Mapping], *,
                      style: str = "unicode", caption: str = "",
                      label: str = "tab:comparison") -> Table:
-    """This work's coefficients beside user-supplied earlier results, with 95 % bounds.
+    """Coefficients of this work beside user-supplied earlier results, with 95 % bounds.
 
     Parameters
     ----------
@@ -308,8 +308,10 @@ def value_table(entries: Mapping[str, Mapping[str, float]], *, first: str = "par
 def cross_check_table(two_stage: Mapping[str, Mapping[str, float]],
                       one_stage: Mapping[str, Mapping[str, float]], *, style: str = "unicode",
                       caption: str = "", label: str = "tab:cross-check") -> Table:
-    """The fit's coefficients beside its one-stage cross-check, with the difference in units
-    of the larger of the two sigmas (names present in both)."""
+    """The fit's coefficients beside its one-stage cross-check (names present in both).
+
+    The difference is given in units of the larger of the two sigmas.
+    """
     if style == "latex":
         header = ("coefficient", "two-stage", "one-stage", r"difference/$\sigma$")
     else:
@@ -398,9 +400,10 @@ def _coefficient_units(theory: str) -> dict:
 
 def report_tables(fit: Mapping, comparison: Sequence[Mapping] = (), style: str = "unicode"
                   ) -> dict[str, Table]:
-    """The tables of a report: ``coefficients`` always; ``harmonics``, ``correlation``,
-    ``nuisance``, ``cross_check`` and ``comparison`` when the fit (or the user's table) provides
-    them.
+    """The tables of a report, keyed by name.
+
+    ``coefficients`` always; ``harmonics``, ``correlation``, ``nuisance``, ``cross_check`` and
+    ``comparison`` when the fit (or the user's table) provides them.
 
     Parameters
     ----------

@@ -93,9 +93,11 @@ class Theory:
         return {}
 
     def default_free(self, span_days: float, apparatus) -> tuple[str, ...]:
-        """The coefficients a fit frees by default for a record of ``span_days`` (days) taken
-        with ``apparatus`` (a :class:`fringe.experiment.apparatus.Apparatus`): the primary
-        ones, and the annual ones from ``annual_span_days`` on."""
+        """The coefficients a fit frees by default for a record of ``span_days`` (days).
+
+        The record is taken with ``apparatus`` (a :class:`fringe.experiment.apparatus.Apparatus`).
+        The default is the primary coefficients, and the annual ones from ``annual_span_days`` on.
+        """
         names = self.primary_names
         if self.annual_names and span_days >= self.annual_span_days:
             names = names + self.annual_names

@@ -39,6 +39,25 @@ class DirectionalClock(Theory):
     description: ClassVar[str] = "direction-dependent clock, quantization-axis projection"
 
     def response(self, state, names=None):
+        """Lab response tensors T (n, k, 3, 3) and isotropic shifts s (n, k, all zero).
+
+        T_k is the unit SCCEF tensor of clock coefficient k rotated to the lab axes of ``state``
+        (dimensionless); a clock coefficient gives no isotropic shift, so s is zero.
+
+        Parameters
+        ----------
+        state : FrameState
+            Frame quantities at the n samples (:class:`fringe.frames.FrameState`).
+        names : sequence of str, optional
+            Coefficients to include, in this order (default: all ``parameter_names``).
+
+        Returns
+        -------
+        t : (n, k, 3, 3) ndarray
+            Lab response tensor of each coefficient (dimensionless).
+        s : (n, k) ndarray
+            Isotropic shift of each coefficient (dimensionless).
+        """
         names = tuple(names) if names is not None else self.parameter_names
         self.check_params({n: 0.0 for n in names})
         basis = np.stack([unit_clock_tensor(n) for n in names])

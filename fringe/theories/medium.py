@@ -62,6 +62,31 @@ class ClassicalMedium(Theory):
         return np.einsum("nij,nj->ni", state.rotation, u)
 
     def path_shift(self, params, directions_lab, state):
+        """Two-way fractional speed change along unit lab directions (n, p, 3) -> (n, p).
+
+        Exact round trip through the medium: (1 - u^2) / sqrt(1 - u^2 + (u . d)^2) - 1, with u
+        the lab velocity through the medium over the wave speed (:meth:`lab_velocity`) and d the
+        direction (evaluated with expm1/log1p, accurate at small u).
+
+        Parameters
+        ----------
+        params : mapping
+            Coefficient values (``MEDIUM_NAMES``), km/s.
+        directions_lab : (n, p, 3) ndarray
+            Unit light-path directions, lab axes.
+        state : FrameState
+            Frame quantities at the n samples (:class:`fringe.frames.FrameState`).
+
+        Returns
+        -------
+        (n, p) ndarray
+            Fractional change of the two-way speed (dimensionless).
+
+        Raises
+        ------
+        ConfigError
+            If the lab speed through the medium reaches the wave speed (no round trip exists).
+        """
         u = self.lab_velocity(params, state)
         b2 = np.einsum("ni,ni->n", u, u)
         if np.any(b2 >= 1.0):
@@ -71,8 +96,13 @@ class ClassicalMedium(Theory):
         return np.expm1(np.log1p(-b2)[:, None] - 0.5 * np.log1p(p * p - b2[:, None]))
 
     def response(self, state, names=None):
+        """Not available: the medium theory is nonlinear, so this raises :class:`ConfigError`.
+
+        Use :meth:`path_shift` (straight light paths: cavity or Michelson) instead.
+        """
         raise ConfigError("theory 'medium' is nonlinear: it has no linear response basis; "
                           "use straight light paths (cavity or Michelson)")
 
     def to_dict(self):
+        """Configuration as plain JSON types: the name and ``wave_speed_m_s`` (m/s)."""
         return {"name": self.name, "wave_speed_m_s": self.wave_speed_m_s}

@@ -55,8 +55,11 @@ class RobertsonMansouriSexl(Theory):
 
     @classmethod
     def scenario_options(cls, spec, source):
-        """``preferred_frame``: ``"cmb"`` (default) or the Sun's velocity relative to the
-        preferred frame ``[vX, vY, vZ]`` in km/s (SCCEF axes)."""
+        """Constructor options from the ``[theory]`` table: ``preferred_frame``.
+
+        ``preferred_frame`` is ``"cmb"`` (default) or the Sun's velocity relative to the
+        preferred frame ``[vX, vY, vZ]`` in km/s (SCCEF axes).
+        """
         options = {}
         frame = spec.pop("preferred_frame", "cmb")
         if frame == "cmb":
@@ -71,8 +74,11 @@ class RobertsonMansouriSexl(Theory):
         return options
 
     def default_free(self, span_days, apparatus):
-        """rms_mm; and rms_kt where the apparatus compares against an isotropic (atomic)
-        reference, which keeps the isotropic shift it scales visible."""
+        """Coefficients freed by default: rms_mm, plus rms_kt for an isotropic reference.
+
+        rms_kt is added where the apparatus compares against an isotropic (atomic) reference,
+        which keeps the isotropic shift it scales visible.
+        """
         if getattr(apparatus, "isotropic_reference", False):
             return self.primary_names + ("rms_kt",)
         return self.primary_names
@@ -83,6 +89,25 @@ class RobertsonMansouriSexl(Theory):
         return np.einsum("nij,nj->ni", state.rotation, v_sccef)
 
     def response(self, state, names=None):
+        """Per-coefficient lab response tensors T (n, k, 3, 3) and isotropic shifts s (n, k).
+
+        With v the lab velocity relative to the preferred frame over c (:meth:`lab_velocity`):
+        rms_mm gives T = -(v vᵀ - v^2 I / 3) and s = (2/3) v^2; rms_kt gives T = 0 and s = v^2.
+
+        Parameters
+        ----------
+        state : FrameState
+            Frame quantities at the n samples (:class:`fringe.frames.FrameState`).
+        names : sequence of str, optional
+            Coefficients to include, in this order (default: all ``parameter_names``).
+
+        Returns
+        -------
+        t : (n, k, 3, 3) ndarray
+            Lab response tensor of each coefficient (dimensionless).
+        s : (n, k) ndarray
+            Isotropic shift of each coefficient (dimensionless).
+        """
         names = tuple(names) if names is not None else self.parameter_names
         self.check_params({n: 0.0 for n in names})
         v = self.lab_velocity(state)
@@ -99,4 +124,9 @@ class RobertsonMansouriSexl(Theory):
         return t, s
 
     def to_dict(self):
+        """Configuration as plain JSON types: the name and ``sun_velocity_beta``.
+
+        ``sun_velocity_beta`` is the Sun's velocity relative to the preferred frame over c
+        (dimensionless), SCCEF axes, as a list of three floats.
+        """
         return {"name": self.name, "sun_velocity_beta": self.sun_velocity_beta.tolist()}

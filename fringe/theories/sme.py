@@ -113,6 +113,27 @@ class SmePhoton(Theory):
     annual_span_days: ClassVar[float] = KO_DEFAULT_SPAN_DAYS
 
     def response(self, state: FrameState, names=None):
+        """Per-coefficient lab response tensors T (n, k, 3, 3) and isotropic shifts s (n, k).
+
+        With k'_k = L k_k Lᵀ the unit tensor of coefficient k seen by the lab
+        (:func:`lab_transform`: exact boost, then rotation to lab axes):
+        T_k = -1/2 traceless(k'_spatial) and s_k = -1/2 k'^{00} - 1/6 tr k'_spatial
+        (= -(2/3) k'^{00}, as the eta-trace is invariant).
+
+        Parameters
+        ----------
+        state : FrameState
+            Frame quantities at the n samples (:class:`fringe.frames.FrameState`).
+        names : sequence of str, optional
+            Coefficients to include, in this order (default: all ``parameter_names``).
+
+        Returns
+        -------
+        t : (n, k, 3, 3) ndarray
+            Lab response tensor of each coefficient (dimensionless).
+        s : (n, k) ndarray
+            Isotropic shift of each coefficient (dimensionless).
+        """
         names = tuple(names) if names is not None else self.parameter_names
         self.check_params({n: 0.0 for n in names})
         basis = np.stack([unit_k_tensor(n) for n in names])          # (k, 4, 4)

@@ -149,6 +149,76 @@ def toml_text(value) -> str:
     return str(value)
 
 
+def edit_row(rows: list[list[str]], op: RowEdit) -> None:
+    """Apply one RowEdit to the (non-empty) ``rows``, in place."""
+    i = op.row % len(rows)
+    if op.what == "drop-cell":
+        rows[i] = rows[i][:-1]
+    elif op.what == "add-cell":
+        rows[i] = rows[i] + ["1"]
+    elif op.what == "wide":  # a very long line: 50 000 more fields
+        rows[i] = rows[i] + ["2.5"] * 50_000
+    elif op.what == "swap-next" and i + 1 < len(rows):
+        rows[i], rows[i + 1] = rows[i + 1], rows[i]
+    elif op.what == "repeat":
+        rows.insert(i, list(rows[i]))
+    elif op.what == "comment":
+        rows[i] = ["# " + rows[i][0]] + rows[i][1:]
+    elif op.what == "blank":
+        rows.insert(i, [""])
+    elif op.what == "delete":
+        del rows[i]
+
+
+def apply_text_ops(ops: list, header: list[str], rows: list[list[str]]) -> None:
+    """Apply the Cell, Header and RowEdit operations of ``ops``, in order, in place."""
+    for op in ops:
+        if isinstance(op, Cell) and rows:
+            row = rows[op.row % len(rows)]
+            row[op.col % len(row)] = op.text
+        elif isinstance(op, Header):
+            header[op.col % len(header)] = op.text
+        elif isinstance(op, RowEdit) and rows:
+            edit_row(rows, op)
+
+
+def apply_byte_ops(ops: list, data: bytes) -> bytes:
+    """``data`` after the Bytes operations of ``ops``, in order (insert, or cut when empty)."""
+    for op in ops:
+        if isinstance(op, Bytes):
+            k = int(op.where * len(data))
+            data = data[:k] + op.what + data[k:] if op.what else data[:k]
+    return data
+
+
+def apply_toml_ops(ops: list, toml: dict) -> bytes | None:
+    """Apply the section/key edits of ``ops`` to ``toml`` in place; the last RawToml's bytes."""
+    raw = None
+    for op in ops:
+        if isinstance(op, RawToml):
+            raw = op.data
+        elif op.key is None:
+            if op.value is Ellipsis:
+                toml.pop(op.section, None)
+            else:
+                toml[op.section] = op.value if isinstance(op.value, dict) else {"v": op.value}
+        elif op.value is Ellipsis:
+            toml.get(op.section, {}).pop(op.key, None)
+        else:
+            toml.setdefault(op.section, {})[op.key] = op.value
+    return raw
+
+
+def toml_document(toml: dict) -> str:
+    """TOML text of ``{section: {key: value}}``; section "" holds the top-level keys."""
+    text = "".join(f"{k} = {toml_text(v)}\n" for k, v in toml.get("", {}).items())
+    for section, table in toml.items():
+        if section:
+            text += f"[{section}]\n" + "".join(f'"{k}" = {toml_text(v)}\n'
+                                               for k, v in table.items())
+    return text
+
+
 def render_csv_case(case: dict) -> tuple[bytes, bytes, dict | None]:
     """(CSV bytes, TOML bytes, expected channels or None when the case was perturbed)."""
     n, iso = case["n"], case["time_units"] == "iso8601"
@@ -167,39 +237,12 @@ def render_csv_case(case: dict) -> tuple[bytes, bytes, dict | None]:
     order = [i for i in case["order"] if case["aux"] or names[i] != "tilt"]
     header = [names[i] for i in order]
     rows = [[columns[i][r] for i in order] for r in range(n)]
-    lines: list[str | None] = []
-    for op in case["csv_ops"]:
-        if isinstance(op, Cell) and rows:
-            row = rows[op.row % len(rows)]
-            row[op.col % len(row)] = op.text
-        elif isinstance(op, Header):
-            header[op.col % len(header)] = op.text
-        elif isinstance(op, RowEdit) and rows:
-            i = op.row % len(rows)
-            if op.what == "drop-cell":
-                rows[i] = rows[i][:-1]
-            elif op.what == "add-cell":
-                rows[i] = rows[i] + ["1"]
-            elif op.what == "wide":  # a very long line: 50 000 more fields
-                rows[i] = rows[i] + ["2.5"] * 50_000
-            elif op.what == "swap-next" and i + 1 < len(rows):
-                rows[i], rows[i + 1] = rows[i + 1], rows[i]
-            elif op.what == "repeat":
-                rows.insert(i, list(rows[i]))
-            elif op.what == "comment":
-                rows[i] = ["# " + rows[i][0]] + rows[i][1:]
-            elif op.what == "blank":
-                rows.insert(i, [""])
-            elif op.what == "delete":
-                del rows[i]
+    apply_text_ops(case["csv_ops"], header, rows)
     d = case["delimiter"]
     newline = "\r\n" if case["crlf"] else "\n"
     lines = ["# generated test table (invented)", d.join(header)] + [d.join(r) for r in rows]
-    data = (newline.join(lines) + newline).encode("utf-8", "surrogatepass")
-    for op in case["csv_ops"]:
-        if isinstance(op, Bytes):
-            k = int(op.where * len(data))
-            data = data[:k] + op.what + data[k:] if op.what else data[:k]
+    data = apply_byte_ops(case["csv_ops"],
+                          (newline.join(lines) + newline).encode("utf-8", "surrogatepass"))
     toml = {"": {"epoch_utc": CSV_EPOCH},
             "site": {"latitude_deg": 12.5, "longitude_deg": -60.25, "name": "invented site"},
             "apparatus": {"kind": "cavity-pair", "carrier_hz": 1.9e14},
@@ -212,25 +255,8 @@ def render_csv_case(case: dict) -> tuple[bytes, bytes, dict | None]:
         toml["units"]["tilt_x"] = "urad"
     if iso and case["n"] % 2:
         del toml[""]["epoch_utc"]  # the default: the first timestamp
-    raw = None
-    for op in case["toml_ops"]:
-        if isinstance(op, RawToml):
-            raw = op.data
-        elif op.key is None:
-            if op.value is Ellipsis:
-                toml.pop(op.section, None)
-            else:
-                toml[op.section] = op.value if isinstance(op.value, dict) else {"v": op.value}
-        elif op.value is Ellipsis:
-            toml.get(op.section, {}).pop(op.key, None)
-        else:
-            toml.setdefault(op.section, {})[op.key] = op.value
-    text = "".join(f"{k} = {toml_text(v)}\n" for k, v in toml.get("", {}).items())
-    for section, table in toml.items():
-        if section:
-            text += f"[{section}]\n" + "".join(f'"{k}" = {toml_text(v)}\n'
-                                               for k, v in table.items())
-    toml_bytes = raw if raw is not None else text.encode("utf-8", "surrogatepass")
+    raw = apply_toml_ops(case["toml_ops"], toml)
+    toml_bytes = raw if raw is not None else toml_document(toml).encode("utf-8", "surrogatepass")
     if case["csv_ops"] or case["toml_ops"]:
         return data, toml_bytes, None
     first = t_s[0] if (iso and "epoch_utc" not in toml[""] and n) else 0.0

@@ -1,4 +1,7 @@
-"""Tests of fringe.noise.allan: published test-suite values, allantools, the white-FM law, NaN rule."""
+"""Tests of fringe.noise.allan.
+
+Published test-suite values, allantools, the white-FM law, the NaN rule.
+"""
 
 from __future__ import annotations
 
