@@ -1,7 +1,7 @@
 """Render what a report states: the headline and the documents report.md, report.tex, report.html
 and summary.json.
 
-Use :func:`headline` for the result in the trade's terms (from a validated fit dict), and
+Use :func:`headline` for the result in the trade's terms (from a checked fit result), and
 :func:`markdown_report`, :func:`latex_report`, :func:`html_report` and :func:`summary` to render
 a :class:`~fringe.report.build.ReportContent` as text (or, for summary.json, a dict of plain JSON
 types). Nothing is written here: :func:`fringe.report.build.write_report` writes the files (and
@@ -33,6 +33,7 @@ from fringe.report.tables import (
 )
 
 if TYPE_CHECKING:                      # annotations only: build imports this module
+    from fringe.io.fit_result import FitResult
     from fringe.report.content import ReportContent
 
 __all__ = ["EXTRA_TABLES", "FIGURE_DIR", "headline", "html_report", "latex_report",
@@ -50,7 +51,7 @@ def _esc(text: str, style: str) -> str:
     return latex_escape(text) if style == "latex" else text
 
 
-def headline(fit: dict, style: str = "unicode") -> dict:
+def headline(fit: FitResult, style: str = "unicode") -> dict:
     """The result in the trade's terms.
 
     * theory ``sme``: the orientation-dependent Delta c / c bound, stated as the largest 95 %
@@ -62,15 +63,15 @@ def headline(fit: dict, style: str = "unicode") -> dict:
     Returns ``{"text", "quantity", "bound_95", "statement"}``, text in ``style``
     (``"unicode"`` or ``"latex"``).
     """
-    coefs, theory = fit["coefficients"], fit["theory"]
-    unc = fit.get("statistics", {}).get("uncertainty")
+    coefs, theory = fit.coefficients, fit.theory
+    unc = fit.statistics.uncertainty if fit.statistics is not None else None
     tail = _esc(f" Uncertainties: {unc}.", style) if unc else ""
     lat = style == "latex"
     pct, sig, lt = (r"95\,\%", r"$\sigma$", "$<$") if lat else ("95 %", "σ", "<")
     absval = r"$|$value$|$" if lat else "|value|"
     ke = [n for n in coefs if n.startswith("ke_")]
     if theory == "rms" and "rms_mm" in coefs:
-        v, s = coefs["rms_mm"]["value"], coefs["rms_mm"]["sigma"]
+        v, s = coefs["rms_mm"].value, coefs["rms_mm"].sigma
         q, qabs = ((r"$\delta-\beta+\frac{1}{2}$", r"$|\delta-\beta+\frac{1}{2}|$") if lat
                    else ("δ − β + ½", "|δ − β + ½|"))
         exp = pdg_round(v, s)[2]
@@ -82,14 +83,14 @@ def headline(fit: dict, style: str = "unicode") -> dict:
                 f"{pct} interval {iv}, i.e. {qabs} {lt} {format_bound(b, style)} at {pct}.")
         return {"text": text + tail, "quantity": "rms_mm", "bound_95": b,
                 "statement": "|delta - beta + 1/2| + 1.96 sigma"}
-    if theory == "medium" and "speed_kms_95" in (fit.get("upper_limits") or {}):
-        x = float(fit["upper_limits"]["speed_kms_95"])
+    if theory == "medium" and "speed_kms_95" in fit.upper_limits:
+        x = float(fit.upper_limits["speed_kms_95"])
         text = _esc(f"Speed of the laboratory through a stationary medium: < {x:.3g} km/s "
                     "(95 % upper limit).", style)
         return {"text": text + tail, "quantity": "speed_kms_95", "bound_95": x,
                 "statement": "upper_limits.speed_kms_95 of the fit"}
     names = ke if theory == "sme" and ke else list(coefs)
-    bounds = {n: bound95(coefs[n]["value"], coefs[n]["sigma"]) for n in names}
+    bounds = {n: bound95(coefs[n].value, coefs[n].sigma) for n in names}
     name = max(bounds, key=bounds.get)
     b = format_bound(bounds[name], style)
     if theory == "sme" and ke:
@@ -140,15 +141,19 @@ def _rms_text(c: ReportContent) -> list[str]:
     return out
 
 
-def _fixed_text(fit: dict) -> str:
-    return ", ".join(f"{k} = {v:g}" for k, v in fit.get("fixed", {}).items())
+def _fixed_text(fit: FitResult) -> str:
+    return ", ".join(f"{k} = {v:g}" for k, v in fit.fixed.items())
+
+
+def _site_name(fit: FitResult) -> str:
+    return (fit.site or {}).get("name", "")
 
 
 def markdown_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) -> str:
     """report.md: headline, warnings, tables, figures (linked), provenance."""
     fit, tables = c.fit, report_tables(c.fit, c.comparison, "unicode")
-    site = fit.get("site", {}).get("name", "")
-    out = [f"# fringe report: {fit['theory']} fit" + (f" — {site}" if site else ""), "",
+    site = _site_name(fit)
+    out = [f"# fringe report: {fit.theory} fit" + (f" — {site}" if site else ""), "",
            f"**Result.** {c.headline['text']}", ""]
     if c.warnings:
         out += [f"> **⚠ Warnings raised by the fit ({len(c.warnings)})**", ">"]
@@ -157,11 +162,11 @@ def markdown_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) ->
         out += ["The fit raised no warnings.", ""]
     out += [f"*Note: {n}*\n" for n in c.notes]
     out += ["## Coefficients", "", to_markdown(tables["coefficients"])]
-    if fit.get("fixed"):
+    if fit.fixed:
         out += [f"Fixed: {_fixed_text(fit)}.", ""]
     if "comparison" in tables:
         out += ["## Comparison with earlier results", "", to_markdown(tables["comparison"])]
-    if fit["theory"] == "rms":
+    if fit.theory == "rms":
         out += ["## Robertson–Mansouri–Sexl parameters", ""] + _rms_text(c)
     for key, title in EXTRA_TABLES:
         if key in tables:
@@ -181,13 +186,13 @@ def latex_report(c: ReportContent) -> str:
     coefficient table (plain tabular; compiles with pdflatex and no extra packages)."""
     table = to_latex(report_tables(c.fit, c.comparison, "latex")["coefficients"])
     out = [r"\documentclass{article}", r"\begin{document}",
-           r"\section*{" + latex_escape(f"Result of the {c.fit['theory']} fit") + "}",
+           r"\section*{" + latex_escape(f"Result of the {c.fit.theory} fit") + "}",
            headline(c.fit, "latex")["text"], ""]
     if c.warnings:
         out += [r"\paragraph{Warnings raised by the fit.}", r"\begin{itemize}"]
         out += [r"\item " + latex_escape(w) for w in c.warnings] + [r"\end{itemize}"]
     out.append(table)
-    if c.fit.get("fixed"):
+    if c.fit.fixed:
         out.append(latex_escape(f"Fixed: {_fixed_text(c.fit)}.") + "\n")
     if c.rms is not None:
         out.append(r"\paragraph{RMS parameters.} Deviations from special relativity from this "
@@ -205,11 +210,11 @@ def html_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) -> str
 
     tables = report_tables(c.fit, c.comparison, "unicode")
     sections = [("Coefficients", to_html(tables["coefficients"]))]
-    if c.fit.get("fixed"):
+    if c.fit.fixed:
         sections.append(("Fixed coefficients", f"<p>{_html.escape(_fixed_text(c.fit))}</p>"))
     if "comparison" in tables:
         sections.append(("Comparison with earlier results", to_html(tables["comparison"])))
-    if c.fit["theory"] == "rms":
+    if c.fit.theory == "rms":
         body = "".join(f"<p>{_html.escape(p)}</p>" for p in _rms_text(c)
                        if p and not p.startswith("- "))
         if c.rms is not None:
@@ -219,9 +224,9 @@ def html_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) -> str
     for key, title in EXTRA_TABLES:
         if key in tables:
             sections.append((title, to_html(tables[key])))
-    site = c.fit.get("site", {}).get("name", "")
-    return html_page(title=f"fringe report: {c.fit['theory']} fit" + (f" — {site}" if site
-                                                                        else ""),
+    site = _site_name(c.fit)
+    return html_page(title=f"fringe report: {c.fit.theory} fit" + (f" — {site}" if site
+                                                                     else ""),
                      headline=c.headline["text"], warnings=c.warnings, notes=c.notes,
                      sections=sections, figures=figs, provenance=c.provenance)
 
@@ -229,8 +234,8 @@ def html_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) -> str
 def summary(c: ReportContent, figure_names: Sequence[str], files: Sequence[str]) -> dict:
     """summary.json: the numbers and statements of the report in plain JSON types."""
     coefs = {}
-    for n, e in c.fit["coefficients"].items():
-        v, s = e["value"], e["sigma"]
+    for n, e in c.fit.coefficients.items():
+        v, s = e.value, e.sigma
         coefs[n] = {"value": v, "sigma": s,
                     "rounded": format_mantissas(*pdg_round(v, s), "plain"),
                     "interval_68": [v - s, v + s], "interval_95": [v - Z95 * s, v + Z95 * s],
