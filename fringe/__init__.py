@@ -236,10 +236,9 @@ def load_fit(path: PathLike) -> FitResult:
         Validated: a malformed file raises :class:`fringe.errors.InputFileError` naming the file
         and the field.
     """
-    from fringe.io.fit_result import FitResult
-    from fringe.report.inputs import load_fit as _load
+    from fringe.io.fit_result import read_fit_result
 
-    return FitResult.from_dict(_load(path))
+    return read_fit_result(path)
 
 
 def write_report(fit_path: PathLike, out_dir: PathLike, *, compare: PathLike | None = None,

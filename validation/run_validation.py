@@ -272,14 +272,14 @@ def _fit_record(path: str, cfg: Config, fit: Fit) -> dict:
         warnings.simplefilter("always")
         res, _ = fit_run(path, FitSettings(theory=cfg.theory, **fit.settings),
                          DemodSettings(**fit.demod))
-    names = res.covariance["names"]
-    return {"value": {n: res.coefficients[n]["value"] for n in names},
-            "sigma": {n: res.coefficients[n]["sigma"] for n in names},
-            "cov_names": names, "cov": res.covariance["matrix"],
-            "efficiency": dict(res.efficiency), "chi2_reduced": res.statistics["chi2_reduced"],
-            "n_turns_used": res.statistics["n_turns_used"],
-            "stage1": {k: res.stage1[k] for k in ("n_blocks", "n_rejected_partial",
-                                                  "n_rejected_glitch")},
+    names = list(res.covariance.names)
+    return {"value": {n: res.coefficients[n].value for n in names},
+            "sigma": {n: res.coefficients[n].sigma for n in names},
+            "cov_names": names, "cov": [list(row) for row in res.covariance.matrix],
+            "efficiency": dict(res.efficiency), "chi2_reduced": res.statistics.chi2_reduced,
+            "n_turns_used": res.statistics.n_turns_used,
+            "stage1": {k: res.stage1.to_dict()[k]
+                       for k in ("n_blocks", "n_rejected_partial", "n_rejected_glitch")},
             "warnings": sorted({w.category.__name__ + ": " + str(w.message)[:40]
                                 for w in caught}),
             "epoch_utc": res.epoch_utc, "fit_s": time.perf_counter() - t0}

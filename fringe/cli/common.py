@@ -8,12 +8,42 @@ from __future__ import annotations
 
 import functools
 import importlib
+import re
 import sys
 from pathlib import Path
 
 import click
 
 from fringe.errors import FringeError, FringeWarning
+
+#: How the commands spell what the library's messages call a settings field or a keyword
+#: argument (the library names what a Python caller passed; a user of ``fringe`` passed an
+#: option). :func:`run_guarded` rewrites these names in the message of a FringeError.
+OPTION_SPELLING = (
+    ("FitSettings.free", "--free"),
+    ("FitSettings.fixed", "--fix"),
+    ("FitSettings.uncertainty", "--uncertainty"),
+    ("FitSettings.bootstrap_days", "--bootstrap-days"),
+    ("FitSettings.lab_c0", "--lab-c0"),
+    ("FitSettings.regress", "--regress"),
+    ("Scenario.with_coefficients", "--set"),
+    ("plan_settings(free=...)", "--free"),
+    ("engine='dask'", "--engine dask"),
+    ("scheduler=ADDRESS", "--scheduler ADDRESS"),
+    ("scratch_dir=DIR", "--scratch-dir DIR"),
+    ("kt/is_", "--kt/--is"),
+    ("overwrite=True", "--overwrite"),
+)
+# a name counts only where it stands alone (not inside a longer name or a path)
+_SPELLING = re.compile(r"(?<![\w./\\-])(" + "|".join(re.escape(a) for a, _ in OPTION_SPELLING)
+                       + r")(?![\w/\\-])")
+
+
+def as_options(message: str) -> str:
+    """``message`` with the library's field and argument names spelled as the command's
+    options (:data:`OPTION_SPELLING`)."""
+    table = dict(OPTION_SPELLING)
+    return _SPELLING.sub(lambda m: table[m.group(1)], message)
 
 
 def run_guarded(func):
@@ -43,7 +73,7 @@ def run_guarded(func):
         try:
             return func(*args, **kwargs)
         except FringeError as exc:
-            click.echo(f"error: {exc}", err=True)
+            click.echo(f"error: {as_options(str(exc))}", err=True)
             sys.exit(exc.exit_code)
         except KeyboardInterrupt:
             click.echo("error: interrupted; no partial output was kept", err=True)

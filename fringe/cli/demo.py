@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import time
 from importlib import resources
 from pathlib import Path
@@ -70,7 +71,7 @@ def command(out, seed, overwrite):
     click.echo("[3/5] fit (theory sme, free ke_*)")
     fit_path = d / "fit.json"
     result, columns = fit_run(str(run_path), FitSettings(), one_stage=True, scratch_dir=str(d))
-    result.amplitudes_file = "fit.turns.h5"
+    result = dataclasses.replace(result, amplitudes_file="fit.turns.h5")
     with columns:
         write_turns(d / "fit.turns.h5", units=result.units, epoch_utc=result.epoch_utc,
                     columns=columns, overwrite=overwrite)

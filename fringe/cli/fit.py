@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 from pathlib import Path
 
 import click
@@ -74,7 +75,7 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
         result, columns = fit_run(run_file, settings, demod, engine=engine, scheduler=scheduler,
                                   dut1_s=dut1_s, progress=bar.update, one_stage=cross_check,
                                   scratch_dir=scratch_dir or str(out.resolve().parent))
-    result.amplitudes_file = turns_path.name
+    result = dataclasses.replace(result, amplitudes_file=turns_path.name)
     with columns:
         write_turns(turns_path, units=result.units, epoch_utc=result.epoch_utc,
                     columns=columns, overwrite=overwrite, protect=[run_file])

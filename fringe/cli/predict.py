@@ -29,7 +29,7 @@ def command(scenario, assignments, out_dir, series, overwrite):
 
     sc = load_scenario(scenario)
     if assignments:
-        sc = sc.with_coefficients(parse_assignments(assignments))
+        sc = sc.with_coefficients(parse_assignments(assignments, "--set"))
     result = predict(sc)
     out = _out_dir(out_dir)
     protect = [scenario]

@@ -23,7 +23,7 @@ def command(scenario, out_path, seed, assignments, noise_free, overwrite):
 
     sc = load_scenario(scenario)
     if assignments:
-        sc = sc.with_coefficients(parse_assignments(assignments))
+        sc = sc.with_coefficients(parse_assignments(assignments, "--set"))
     with progress(sc.n_samples, "simulate") as bar:
         info = simulate(sc, out_path, seed=seed, overwrite=overwrite, protect=[scenario],
                         progress=bar.update, noise_free=noise_free)

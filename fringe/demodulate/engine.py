@@ -220,7 +220,7 @@ def stage1_store(path: str, settings: DemodSettings, *, aux_channels: tuple[str,
     memory (:mod:`fringe.demodulate.turn_store`).
     """
     if engine not in ENGINES:
-        raise ConfigError(f"--engine: expected one of {', '.join(ENGINES)}, got {engine!r}")
+        raise ConfigError(f"engine: expected one of {', '.join(ENGINES)}, got {engine!r}")
     info = survey(path, settings, aux_channels)
     parts = ranges(info.n_samples, range_samples)
     builder = SpillingTurnBuilder(settings, info.expected_blocks(), scratch)
@@ -275,10 +275,10 @@ def _run_dask(info, settings, parts, scheduler, collect):
     try:
         from distributed import Client
     except ImportError:
-        raise ConfigError("--engine dask: needs the 'dask' extra (pip install "
+        raise ConfigError("engine='dask': needs the 'dask' extra (pip install "
                           "'fringe[dask]')") from None
     if scheduler is None:
-        raise ConfigError("--engine dask: needs --scheduler ADDRESS (e.g. tcp://host:8786)")
+        raise ConfigError("engine='dask': needs scheduler=ADDRESS (e.g. tcp://host:8786)")
     own = not isinstance(scheduler, Client)
     client = Client(scheduler) if own else scheduler
     try:

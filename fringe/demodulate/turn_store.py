@@ -63,7 +63,7 @@ class Scratch:
                 where = self.parent if self.parent is not None else tempfile.gettempdir()
                 raise OutputError(f"{where}: scratch directory: expected a writable directory "
                                   f"for the fit's temporary files ({exc.strerror}); choose "
-                                  "another with --scratch-dir") from None
+                                  "another with scratch_dir=DIR") from None
             self._cleanup = weakref.finalize(self, shutil.rmtree, str(self.path), True)
         return self.path / name
 
@@ -96,7 +96,7 @@ def save_arrays(scratch: Scratch, prefix: str, arrays: dict) -> None:
         except OSError as exc:
             raise OutputError(f"{path.parent}: scratch file {path.name}: cannot be written "
                               f"({exc.strerror}); free space there or choose another "
-                              "--scratch-dir") from None
+                              "with scratch_dir=DIR") from None
 
 
 def load_arrays(scratch: Scratch, prefix: str, names) -> dict:

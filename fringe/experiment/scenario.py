@@ -100,7 +100,7 @@ class Scenario:
     def with_coefficients(self, values: dict) -> Scenario:
         """A copy with some coefficient values replaced (validated against the theory)."""
         merged = dict(self.coefficients)
-        merged.update(self.theory.check_params(values, source="--set"))
+        merged.update(self.theory.check_params(values, source="Scenario.with_coefficients"))
         return _replace(self, coefficients=merged)
 
     def to_dict(self) -> dict:
@@ -245,8 +245,10 @@ def scenario_from_dict(doc: dict, source: str = "scenario") -> Scenario:
     return sc
 
 
-def parse_assignments(items: tuple[str, ...], source: str = "--set") -> dict[str, float]:
-    """Parse ``NAME=VALUE`` strings (command line) into a dict of floats."""
+def parse_assignments(items: tuple[str, ...], source: str = "assignments"
+                      ) -> dict[str, float]:
+    """Parse ``NAME=VALUE`` strings into a dict of floats; errors name ``source`` (the
+    command line passes its option, e.g. ``"--set"``)."""
     out = {}
     for item in items:
         name, sep, value = item.partition("=")

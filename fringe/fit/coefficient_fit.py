@@ -38,6 +38,6 @@ class CoefficientFit:
     efficiency: dict
     model_c: NDArray
     model_b: NDArray
-    warnings: list
+    warnings: list      # of fringe.io.fit_sections.FitWarning
     notes: list
     upper_limits: dict = field(default_factory=dict)

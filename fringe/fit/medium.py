@@ -42,8 +42,8 @@ def fit_medium(setup: Setup, table: TurnTable, settings: FitSettings) -> Coeffic
         return np.einsum("nij,nj->ni", w, r).ravel()
 
     if settings.uncertainty == "bootstrap":
-        raise ConfigError("--uncertainty bootstrap: not available for the nonlinear medium fit "
-                          "(use reduced-chi2 or formal)")
+        raise ConfigError("FitSettings.uncertainty bootstrap: not available for the nonlinear "
+                          "medium fit (use reduced-chi2 or formal)")
 
     def start(v):
         params = lmfit.Parameters()

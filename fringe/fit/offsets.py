@@ -13,7 +13,7 @@ and P a polynomial drift of degree ``OFFSET_DRIFT_DEGREE`` in time over the reco
 rms_kt from the drift is the sidereal modulation of v^2 by the Earth's rotation velocity and the
 annual one by the orbit. The uncertainty is scaled by this block's own reduced chi^2; drift that a
 polynomial does not describe (flicker or random-walk frequency noise of the cavity) leaves
-correlated residuals, for which ``--uncertainty bootstrap`` is the honest choice.
+correlated residuals, for which ``FitSettings(uncertainty="bootstrap")`` is the honest choice.
 
 References
 ----------
@@ -44,9 +44,9 @@ def fit_rms_kt(setup: Setup, table: TurnTable, sel: NDArray, mm_value: float,
     a_model, _, _ = turn_model(setup, t, ("rms_kt", "rms_mm"), table=table, sel=sel)
     g_kt, g_mm = a_model[:, 0], a_model[:, 1]
     if not np.any(np.abs(g_kt) > 0):
-        raise ConfigError("--free rms_kt: this apparatus has no isotropic response (a pair "
-                          "beat cancels it); rms_kt needs kind cavity-vs-reference with an "
-                          "atomic reference")
+        raise ConfigError("FitSettings.free rms_kt: this apparatus has no isotropic response "
+                          "(a pair beat cancels it); rms_kt needs kind cavity-vs-reference with "
+                          "an atomic reference")
     y = a0 - mm_value * g_mm
     # offset variance of each turn: its residual variance over its valid samples (the offset
     # of a centred drift model is the block mean to first order)
@@ -75,7 +75,7 @@ def fit_rms_kt(setup: Setup, table: TurnTable, sel: NDArray, mm_value: float,
         groups = np.floor((t - t[0]) / (86400.0 * bootstrap_days)).astype(int)
         uniq = np.unique(groups)
         if uniq.size < 5:
-            raise FitError(f"--uncertainty bootstrap: only {uniq.size} blocks of "
+            raise FitError(f"FitSettings.uncertainty bootstrap: only {uniq.size} blocks of "
                            f"{bootstrap_days} d for rms_kt; need at least 5")
         members = [np.flatnonzero(groups == g) for g in uniq]
         rng = np.random.default_rng(seed)

@@ -109,8 +109,8 @@ def design_labels(names: tuple[str, ...], settings) -> list[str]:
         labels.append("lab_B0")
     if settings.lab_c0:
         if "ke_ZZ" in names:
-            raise ConfigError("--lab-c0: a constant C offset is degenerate with ke_ZZ; fix "
-                              "ke_ZZ or drop --lab-c0")
+            raise ConfigError("FitSettings.lab_c0: a constant C offset is degenerate with "
+                              "ke_ZZ; fix ke_ZZ or drop FitSettings.lab_c0")
         labels.append("lab_C0")
     return labels + [f"aux_{ch}" for ch in settings.regress]
 
@@ -245,7 +245,8 @@ def run_passes(setup, store: TurnStore, settings, free: tuple[str, ...] | None,
         out.r_c, out.r_b = rc2 / n, rb2 / n
         if not (out.r_c > 0 and out.r_b > 0):
             raise FitError("stage 3: the residuals of C or B vanish; cannot scale the weights "
-                           "by the scatter (use --uncertainty formal for noise-free data)")
+                           "by the scatter (use FitSettings.uncertainty formal for noise-free "
+                           "data)")
         out.x, out.cov_formal = solve(*parts.combine(np.sqrt(out.r_c), np.sqrt(out.r_b)))
     # pass 3: chi^2 at the final solution and the fitted model
     d_c, d_b = np.sqrt(out.r_c), np.sqrt(out.r_b)

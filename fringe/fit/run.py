@@ -22,14 +22,21 @@ from fringe.fit.settings import FitSettings
 from fringe.fit.stages import stage2_and_3
 from fringe.frames import Epoch
 from fringe.io.fit_result import FitResult
+from fringe.io.fit_sections import (
+    Covariance,
+    Estimate,
+    FitInput,
+    Harmonics,
+    OneStage,
+    Stage1,
+    Statistics,
+)
 from fringe.io.runreader import open_run, sha256
 from fringe.io.turns_file import TurnColumns
 from fringe.theories import make_theory
 from fringe.version import software_versions
 
 logger = logging.getLogger(__name__)
-
-
 
 
 def setup_from_run(path: str, theory: str, dut1_s: float = 0.0) -> tuple[Setup, dict]:
@@ -87,8 +94,8 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
     setup, meta = setup_from_run(path, settings.theory, dut1_s)
     for ch in settings.regress:
         if ch not in meta["aux_channels"]:
-            raise ConfigError(f"--regress {ch}: {path} has no auxiliary channel {ch!r} "
-                              f"(has {', '.join(meta['aux_channels']) or 'none'})")
+            raise ConfigError(f"FitSettings.regress {ch}: {path} has no auxiliary channel "
+                              f"{ch!r} (has {', '.join(meta['aux_channels']) or 'none'})")
     scratch = Scratch(scratch_dir)
     try:
         store, info = stage1_store(path, demod, aux_channels=tuple(settings.regress),
@@ -101,42 +108,46 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
             harm, res, free, models = stage2_and_3(setup, store, settings, span_s / 86400.0,
                                                    scratch)
             input_sha256 = digest.result()
-        result = _package(path, setup, meta, settings, demod, info, store, harm, res, span_s,
-                          input_sha256, engine, dut1_s)
+        cross_check = None
         if one_stage and setup.theory.linear:
             from fringe.fit.onestage import one_stage_fit
 
-            result.one_stage = one_stage_fit(info, demod, setup, store.load(), res.names,
-                                             settings)
+            cross_check = OneStage.from_fit(one_stage_fit(info, demod, setup, store.load(),
+                                                          res.names, settings))
+        result = _package(path, setup, meta, settings, demod, info, store, harm, res, span_s,
+                          input_sha256, engine, dut1_s, cross_check)
     except BaseException:
         scratch.close()
         raise
-    return result, TurnColumns(setup, store, models, scratch)
+    return result, TurnColumns(setup, store, models, scratch, span_s=span_s)
 
 
 def _package(path, setup, meta, settings, demod, info, store, harm, res, span_s, input_sha256,
-             engine, dut1_s) -> FitResult:
-    harm["units"] = setup.units
+             engine, dut1_s, one_stage) -> FitResult:
     sig = np.sqrt(np.diag(res.cov))
     sel = store.accepted
     rms_med = store.median_accepted_rms()
-    stage1 = dict(store.counts(), turn_period_s=info.turn_period_s, residual_rms=rms_med,
-                  white_noise_per_sample=rms_med, settings=demod.to_dict(), glitch_rule=(
-                      f"residual RMS > median + {demod.glitch_threshold} x 1.4826 x MAD"))
+    counts = store.counts()
+    n_blocks = counts.pop("n_blocks")
+    stage1 = Stage1(n_blocks, counts, turn_period_s=info.turn_period_s, residual_rms=rms_med,
+                    white_noise_per_sample=rms_med, settings=demod.to_dict(), glitch_rule=(
+                        f"residual RMS > median + {demod.glitch_threshold} x 1.4826 x MAD"))
+    harmonics = Harmonics(harm["names"], harm["value"], harm["sigma"], harm["covariance"],
+                          harm["chi2_reduced"], setup.units)
     return FitResult(
         theory=setup.theory.name, units=setup.units,
-        coefficients={n: {"value": float(v), "sigma": float(s)}
+        coefficients={n: Estimate(float(v), float(s))
                       for n, v, s in zip(res.names, res.value, sig)},
         fixed=dict(settings.fixed),
-        covariance={"names": list(res.names), "matrix": res.cov.tolist()},
-        harmonics=harm, warnings=list(res.warnings), efficiency=res.efficiency,
-        statistics={"chi2_reduced": res.chi2_reduced, "dof": res.dof,
-                    "uncertainty": settings.uncertainty, "n_turns_used": int(np.sum(sel))},
+        covariance=Covariance(res.names, res.cov),
+        harmonics=harmonics, warnings=res.warnings, efficiency=res.efficiency,
+        statistics=Statistics(res.chi2_reduced, res.dof, settings.uncertainty,
+                              int(np.sum(sel))),
         stage1=stage1, site=meta["site"], apparatus=meta["apparatus"],
         epoch_utc=meta["epoch_utc"], span_s=span_s,
         settings={"fit": settings.to_dict(), "engine": engine, "dut1_s": dut1_s},
-        input={"path": str(path), "sha256": input_sha256,
-               "n_samples": meta["n_samples"]},
+        input=FitInput(str(path), input_sha256, meta["n_samples"]),
         software=software_versions(),
         created_utc=datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
-        nuisance=res.nuisance, notes=list(res.notes), upper_limits=res.upper_limits)
+        nuisance={n: Estimate(e["value"], e["sigma"]) for n, e in res.nuisance.items()},
+        notes=res.notes, upper_limits=res.upper_limits, one_stage=one_stage)

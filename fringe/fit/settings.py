@@ -48,8 +48,8 @@ class FitSettings:
 
     def __post_init__(self):
         if self.uncertainty not in UNCERTAINTY_MODES:
-            raise ConfigError(f"--uncertainty: expected one of {', '.join(UNCERTAINTY_MODES)}, "
-                              f"got {self.uncertainty!r}")
+            raise ConfigError("FitSettings.uncertainty: expected one of "
+                              f"{', '.join(UNCERTAINTY_MODES)}, got {self.uncertainty!r}")
 
     def to_dict(self) -> dict:
         return {"theory": self.theory, "free": list(self.free) if self.free else None,

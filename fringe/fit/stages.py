@@ -43,6 +43,7 @@ from fringe.fit.passes import (
 )
 from fringe.fit.settings import FitSettings, default_free
 from fringe.fit.solver import bootstrap_cov
+from fringe.io.fit_sections import FitWarning
 from fringe.linalg import correlation_from_covariance
 
 logger = logging.getLogger(__name__)
@@ -87,9 +88,9 @@ def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSe
         cov = cov * red
     elif settings.uncertainty == "bootstrap":
         if len(p.group_parts) < 5:
-            raise FitError(f"--uncertainty bootstrap: only {len(p.group_parts)} blocks of "
-                           f"{settings.bootstrap_days} d; need at least 5 (shorter "
-                           "--bootstrap-days)")
+            raise FitError(f"FitSettings.uncertainty bootstrap: only {len(p.group_parts)} "
+                           f"blocks of {settings.bootstrap_days} d; need at least 5 (shorter "
+                           "FitSettings.bootstrap_days)")
         cov = bootstrap_cov(p.group_parts, settings.n_bootstrap,
                             np.random.default_rng(settings.seed), np.sqrt(p.r_c),
                             np.sqrt(p.r_b))
@@ -109,18 +110,20 @@ def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSe
     return p.harmonics, res, p.cache
 
 
-def _degeneracy(labels, cov, limit: float = 0.95) -> list[str]:
+def _degeneracy(labels, cov, limit: float = 0.95) -> list[FitWarning]:
     corr = correlation_from_covariance(cov)
     out = []
     pairs = [(labels[i], labels[j], corr[i, j]) for i in range(len(labels))
              for j in range(i + 1, len(labels)) if abs(corr[i, j]) > limit]
     if pairs:
         text = ", ".join(f"{a}/{b} (r = {r:+.3f})" for a, b, r in pairs[:6])
-        out.append(f"near-degenerate coefficients: {text}; the record does not separate them "
-                   "(a longer span, or fix some of them)")
+        out.append(FitWarning(
+            "near-degenerate", f"near-degenerate coefficients: {text}; the record does not "
+            "separate them (a longer span, or fix some of them)",
+            {f"{a}/{b}": float(r) for a, b, r in pairs[:6]}))
         import warnings
 
-        warnings.warn(out[-1], DegeneracyWarning, stacklevel=3)
+        warnings.warn(out[-1].sentence, DegeneracyWarning, stacklevel=3)
     return out
 
 
@@ -142,7 +145,7 @@ def _add_rms_kt(setup: Setup, table: TurnTable, settings: FitSettings,
     res.notes.append(f"rms_kt from the per-turn offsets with a degree-{OFFSET_DRIFT_DEGREE} "
                      f"polynomial drift (reduced chi2 {red:.3g}); its covariance with the "
                      "2 theta coefficients is neglected (set to 0); with coloured cavity drift "
-                     "prefer --uncertainty bootstrap")
+                     "prefer bootstrap uncertainties")
 
 
 def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettings,
@@ -162,16 +165,16 @@ def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettin
     theory = setup.theory
     if settings.free is not None:
         free = tuple(settings.free)
-        theory.check_params({n: 0.0 for n in free}, source="--free")
+        theory.check_params({n: 0.0 for n in free}, source="FitSettings.free")
     else:
         free = tuple(n for n in default_free(setup, span_days) if n not in settings.fixed)
-    theory.check_params(settings.fixed, source="--fix")
+    theory.check_params(settings.fixed, source="FitSettings.fixed")
     if not free:
-        raise ConfigError("--free: no free coefficient left")
+        raise ConfigError("FitSettings.free: no free coefficient left")
     rotating = tuple(n for n in free if n != "rms_kt")
     if "rms_kt" in free and not rotating:
-        raise ConfigError("--free rms_kt: free rms_mm as well (the offsets' model uses the "
-                          "2 theta estimate of rms_mm)")
+        raise ConfigError("FitSettings.free rms_kt: free rms_mm as well (the offsets' model "
+                          "uses the 2 theta estimate of rms_mm)")
     if theory.linear:
         harm, res, cache = fit_coefficients(setup, store, settings, rotating, scratch)
         models = TurnModels(cache=cache)
@@ -185,16 +188,17 @@ def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettin
 
     if "lab_B0" in res.nuisance:      # B offset beyond the fitted coefficient model (stage 3)
         b0, sb0 = res.nuisance["lab_B0"]["value"], res.nuisance["lab_B0"]["sigma"]
-        what = "B0 beyond the coefficient model (lab_B0)"
+        what, key = "B0 beyond the coefficient model (lab_B0)", "lab_B0"
     else:                             # stage-2 harmonic
         b0, sb0 = harm["value"][5], harm["sigma"][5]
-        what = "B0"
+        what, key = "B0", "B0"
     if theory.sector == "photon" and sb0 > 0 and abs(b0) > 3 * sb0:
         msg = (f"{what} = {b0:.3g} ± {sb0:.2g} {setup.units} is inconsistent with zero "
                f"({abs(b0) / sb0:.1f} sigma): photon-sector signals give B0 = 0, so this points "
                "to a lab-fixed 2 theta systematic (tilt, gravity or centrifugal deformation, "
                "magnetics)")
-        res.warnings.append(msg)
+        res.warnings.append(FitWarning("b0-lab-fixed", msg, {
+            key: float(b0), "sigma": float(sb0), "n_sigma": float(abs(b0) / sb0)}))
         warnings.warn(msg, SystematicsWarning, stacklevel=2)
     c0, sc0 = harm["value"][0], harm["sigma"][0]
     if "ke_ZZ" in res.names:
@@ -204,6 +208,7 @@ def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettin
             msg = (f"C0 = {c0:.3g} ± {sc0:.2g} {setup.units} is inconsistent with zero "
                    f"({abs(c0) / sc0:.1f} sigma); ke_ZZ (C0 only) may carry a lab-fixed "
                    "systematic")
-            res.warnings.append(msg)
+            res.warnings.append(FitWarning("c0-lab-fixed", msg, {
+                "C0": float(c0), "sigma": float(sc0), "n_sigma": float(abs(c0) / sc0)}))
             warnings.warn(msg, SystematicsWarning, stacklevel=2)
     return harm, res, free, models

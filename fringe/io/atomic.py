@@ -29,7 +29,7 @@ def check_output_path(path: str | os.PathLike, *, overwrite: bool = False,
         if Path(p).resolve() == out.resolve():
             raise OutputError(f"{out}: refusing to write over an input file")
     if out.exists() and not overwrite:
-        raise OutputError(f"{out}: exists (pass --overwrite to replace it)")
+        raise OutputError(f"{out}: exists (pass overwrite=True to replace it)")
     if not out.parent.exists():
         raise OutputError(f"{out}: directory {out.parent} does not exist")
     return out

@@ -1,19 +1,42 @@
-"""The fit result: a fixed schema with three views (repr, summary(), to_dict()/from_dict()).
+"""The fit result: a frozen record with a fixed schema and three views (repr, summary(),
+to_dict()/from_dict()), and :func:`read_fit_result`, the one reader of the result file.
 
-The JSON file written by ``fringe fit`` is ``FitResult.to_dict()``; its per-turn amplitudes go to
-an HDF5 file beside it (:func:`write_turns`, :func:`read_turns`). Both formats are documented in
-``docs/fit.md``.
+The JSON file written by ``fringe fit`` is ``FitResult.to_dict()`` (format "fit", version 2;
+version-1 files, whose warnings are plain strings, are read too); its per-turn amplitudes go
+to an HDF5 file beside it (:mod:`fringe.io.turns_file`). Both formats are documented in
+``docs/fit.md``. The parts of the result are the records of :mod:`fringe.io.fit_sections`.
 """
 
 from __future__ import annotations
 
-import math
-from dataclasses import dataclass, field
+import json
+from collections.abc import Mapping
+from dataclasses import dataclass, field, fields
+from pathlib import Path
 
 import numpy as np
 
+from fringe.errors import InputFileError
+from fringe.io.fit_sections import (
+    Covariance,
+    Estimate,
+    FitInput,
+    FitWarning,
+    Harmonics,
+    OneStage,
+    Stage1,
+    Statistics,
+    read_estimates,
+)
+from fringe.io.records import Fields, FrozenMap, freeze, plain
+
+__all__ = ["CONVENTIONS", "FORMAT", "FORMAT_VERSION", "READABLE_VERSIONS", "FitResult",
+           "read_fit_result"]
+
 FORMAT = "fit"
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
+#: Versions :meth:`FitResult.from_dict` reads (1: warnings as plain strings).
+READABLE_VERSIONS = (1, 2)
 
 CONVENTIONS = {
     "coefficient_frame": "SCCEF (J2000/ICRS equatorial axes), C2",
@@ -28,104 +51,271 @@ CONVENTIONS = {
 }
 
 
-@dataclass
+@dataclass(frozen=True)
 class FitResult:
-    """Everything ``fringe fit`` reports; see ``docs/fit.md`` for the field meanings."""
+    """Everything ``fringe fit`` reports (see ``docs/fit.md`` for the file).
+
+    Attributes
+    ----------
+    theory, units : str
+        Theory name; unit of the observable (Hz, "1" fractional, fringes).
+    coefficients : mapping of str to Estimate
+        The free coefficients, value and 1 sigma (coefficient units).
+    fixed : mapping of str to float
+        Coefficients held at a value.
+    covariance : Covariance or None
+        Of the free coefficients, in the order of ``coefficients``.
+    harmonics : Harmonics or None
+        Stage-2 C10 harmonics.
+    warnings : tuple of FitWarning
+    efficiency : mapping of str to float, or None
+        White-noise Cramer-Rao sigma / reported sigma, per free coefficient.
+    statistics : Statistics or None
+    stage1 : Stage1 or None
+    site, apparatus : mapping or None
+        The run file's site and apparatus metadata, as recorded.
+    epoch_utc : str or None
+    span_s : float or None
+        Span of the record, s.
+    settings : mapping or None
+        What the fit was asked: ``{"fit": FitSettings.to_dict(), "engine", "dut1_s"}``.
+    input : FitInput or None
+    software : mapping of str to str, or None
+    created_utc : str or None
+    amplitudes_file : str
+        The per-turn amplitudes file, relative to the result file ("" for none).
+    nuisance : mapping of str to Estimate
+        Nuisances fitted with the coefficients (unit of the observable); NaN where written
+        as null.
+    notes : tuple of str
+    upper_limits : mapping of str to float
+        E.g. ``speed_kms_95`` of the medium fit.
+    one_stage : OneStage or None
+        The one-stage cross-check, when it was run.
+    conventions : mapping of str to str, or None
+
+    None marks a part a (hand-made, version-1) file leaves out; ``fringe fit`` fills every
+    part. Mappings are read-only (:class:`~fringe.io.records.FrozenMap`), sequences tuples;
+    use :func:`dataclasses.replace` for a changed copy.
+    """
 
     theory: str
     units: str
-    coefficients: dict
-    fixed: dict
-    covariance: dict
-    harmonics: dict
-    warnings: list
-    efficiency: dict
-    statistics: dict
-    stage1: dict
-    site: dict
-    apparatus: dict
-    epoch_utc: str
-    span_s: float
-    settings: dict
-    input: dict
-    software: dict
-    created_utc: str
+    coefficients: Mapping[str, Estimate]
+    fixed: Mapping[str, float]
+    covariance: Covariance | None
+    harmonics: Harmonics | None
+    warnings: tuple[FitWarning, ...]
+    efficiency: Mapping[str, float] | None
+    statistics: Statistics | None
+    stage1: Stage1 | None
+    site: Mapping | None
+    apparatus: Mapping | None
+    epoch_utc: str | None
+    span_s: float | None
+    settings: Mapping | None
+    input: FitInput | None
+    software: Mapping[str, str] | None
+    created_utc: str | None
     amplitudes_file: str = ""
-    nuisance: dict = field(default_factory=dict)
-    notes: list = field(default_factory=list)
-    upper_limits: dict = field(default_factory=dict)
-    one_stage: dict = field(default_factory=dict)
-    conventions: dict = field(default_factory=lambda: dict(CONVENTIONS))
+    nuisance: Mapping[str, Estimate] = field(default_factory=FrozenMap)
+    notes: tuple[str, ...] = ()
+    upper_limits: Mapping[str, float] = field(default_factory=FrozenMap)
+    one_stage: OneStage | None = None
+    conventions: Mapping[str, str] | None = field(default_factory=lambda: freeze(CONVENTIONS))
+
+    def __post_init__(self):
+        for name in ("coefficients", "fixed", "efficiency", "site", "apparatus", "settings",
+                     "software", "nuisance", "upper_limits", "conventions"):
+            value = getattr(self, name)
+            if value is not None:
+                object.__setattr__(self, name, freeze(value))
+        object.__setattr__(self, "warnings", tuple(self.warnings))
+        object.__setattr__(self, "notes", tuple(self.notes))
+
+    # ------------------------------------------------------------------ JSON
 
     def to_dict(self) -> dict:
+        """The result file's JSON (plain types; non-finite numbers as null). Parts that are
+        None are left out, except ``one_stage``, written ``{}`` when it was not run."""
         out = {"fringe_format": FORMAT, "fringe_format_version": FORMAT_VERSION}
-        out.update({k: getattr(self, k) for k in self.__dataclass_fields__})
-        return _plain(out)
+        for f in fields(self):
+            value = getattr(self, f.name)
+            if f.name == "one_stage" and value is None:
+                value = {}
+            if value is not None:
+                out[f.name] = value
+        return plain(out)
 
     @classmethod
-    def from_dict(cls, d: dict) -> FitResult:
-        from fringe.errors import ConfigError
+    def from_dict(cls, d, source="fit result") -> FitResult:
+        """Check every field of a result file's JSON and build the result.
 
-        if d.get("fringe_format") != FORMAT or d.get("fringe_format_version") != FORMAT_VERSION:
-            raise ConfigError("fit result: fringe_format: expected 'fit' version 1")
-        kw = {k: d[k] for k in cls.__dataclass_fields__ if k in d}
-        return cls(**kw)
+        Parameters
+        ----------
+        d : object
+            The parsed JSON (format "fit", version 1 or 2).
+        source : str or path
+            Named first in every error (the file's path, when read from one).
+
+        Raises
+        ------
+        InputFileError
+            One line "SOURCE: FIELD: EXPECTED" for the first field that is missing, unknown
+            or of the wrong kind. The covariance is reordered to the order of
+            ``coefficients``.
+        """
+        f = Fields(source, d)
+        fmt, version = d.get("fringe_format"), d.get("fringe_format_version")
+        if fmt != FORMAT:
+            raise f.error("fringe_format", "'fit' (a result of fringe fit)", fmt)
+        if isinstance(version, bool) or version not in READABLE_VERSIONS:
+            raise f.error("fringe_format_version",
+                          " or ".join(map(str, READABLE_VERSIONS)), version)
+        f.unknown(("fringe_format", "fringe_format_version")
+                  + tuple(x.name for x in fields(cls)))
+        coefficients = read_estimates(f, "coefficients", nonempty=True)
+        w = f.elements("warnings", required=False)
+        amplitudes = d.get("amplitudes_file")
+        if amplitudes is not None and not isinstance(amplitudes, str):
+            raise f.error("amplitudes_file", "a file name relative to the JSON file",
+                          amplitudes)
+        return cls(
+            theory=f.string("theory"), units=f.string("units"), coefficients=coefficients,
+            fixed=_numbers(f, "fixed") or {},
+            covariance=Covariance.read(f, "covariance", tuple(coefficients), required=False),
+            harmonics=Harmonics.read(f, "harmonics"),
+            warnings=() if w is None else tuple(FitWarning.read(w, k, version)
+                                                for k in w.data),
+            efficiency=_numbers(f, "efficiency", null=True),
+            statistics=Statistics.read(f, "statistics"), stage1=Stage1.read(f, "stage1"),
+            site=_site(f), apparatus=_apparatus(f),
+            epoch_utc=f.string("epoch_utc", required=False),
+            span_s=f.number("span_s", required=False, minimum=0.0),
+            settings=_settings(f), input=FitInput.read(f, "input"),
+            software=_strings(f, "software"),
+            created_utc=f.string("created_utc", required=False),
+            amplitudes_file=amplitudes or "",
+            nuisance=read_estimates(f, "nuisance", required=False, null=True) or {},
+            notes=f.strings("notes", required=False) or (),
+            upper_limits=_numbers(f, "upper_limits", null=True) or {},
+            one_stage=OneStage.read(f, "one_stage"),
+            conventions=_strings(f, "conventions"))
+
+    @classmethod
+    def read(cls, path) -> FitResult:
+        """The same as :func:`read_fit_result`."""
+        return read_fit_result(path)
+
+    # ------------------------------------------------------------------ views
 
     def correlation(self) -> np.ndarray:
-        m = np.array(self.covariance["matrix"], float)
+        m = np.array(self.covariance.matrix, float)
         s = np.sqrt(np.diag(m))
         return m / np.outer(s, s)
 
     def summary(self) -> str:
-        lines = [f"fit of {self.input.get('path', '?')} — theory {self.theory}, "
-                 f"{self.span_s / 86400:.2f} d, units {self.units}",
-                 f"turns: {self.stage1.get('n_accepted')} accepted of "
-                 f"{self.stage1.get('n_blocks')} ({self.stage1.get('n_rejected_glitch')} "
-                 f"glitch, {self.stage1.get('n_rejected_partial')} partial); turn period "
-                 f"{self.stage1.get('turn_period_s', float('nan')):.4g} s",
-                 f"uncertainty: {self.statistics.get('uncertainty')} (reduced chi2 "
-                 f"{self.statistics.get('chi2_reduced', float('nan')):.3f}, dof "
-                 f"{self.statistics.get('dof')})", "",
+        """Text for a person: the input, the turns, the uncertainty mode, a table of the
+        coefficients (fixed and nuisances too), limits, the cross-check, warnings and notes."""
+        s1, st, nan = self.stage1, self.statistics, float("nan")
+        path = self.input.path if self.input else "?"
+        span = f"{self.span_s / 86400:.2f} d" if self.span_s is not None else "? d"
+        lines = [f"fit of {path} — theory {self.theory}, {span}, units {self.units}",
+                 f"turns: {s1.n_accepted if s1 else None} accepted of "
+                 f"{s1.n_blocks if s1 else None} ({s1.n_rejected_glitch if s1 else None} "
+                 f"glitch, {s1.n_rejected_partial if s1 else None} partial); turn period "
+                 f"{s1.turn_period_s if s1 else nan:.4g} s",
+                 f"uncertainty: {st.uncertainty if st else None} (reduced chi2 "
+                 f"{st.chi2_reduced if st else nan:.3f}, dof {st.dof if st else None})", "",
                  f"{'coefficient':<12}{'value':>13}{'sigma':>12}{'efficiency':>12}"]
+        eff = self.efficiency or {}
         for name, v in self.coefficients.items():
-            eff = self.efficiency.get(name)
-            lines.append(f"{name:<12}{v['value']:>13.4g}{v['sigma']:>12.3g}"
-                         f"{(f'{eff:.3f}' if eff is not None else '-'):>12}")
+            e = eff.get(name)
+            lines.append(f"{name:<12}{v.value:>13.4g}{v.sigma:>12.3g}"
+                         f"{(f'{e:.3f}' if e is not None else '-'):>12}")
         for name, v in self.fixed.items():
             lines.append(f"{name:<12}{v:>13.4g}{'fixed':>12}")
         for name, v in self.nuisance.items():
-            lines.append(f"{name:<12}{v['value']:>13.4g}{v['sigma']:>12.3g}{'nuisance':>12}")
+            lines.append(f"{name:<12}{v.value:>13.4g}{v.sigma:>12.3g}{'nuisance':>12}")
         for k, v in self.upper_limits.items():
             lines.append(f"95 % upper limit {k}: {v:.4g}")
-        if self.one_stage:
+        if self.one_stage is not None:
             lines.append("one-stage cross-check: " + ", ".join(
-                f"{n} {v['value']:.3g}±{v['sigma']:.2g}"
-                for n, v in self.one_stage.get("coefficients", {}).items()))
+                f"{n} {v.value:.3g}±{v.sigma:.2g}"
+                for n, v in self.one_stage.coefficients.items()))
         for w in self.warnings:
-            lines.append(f"WARNING: {w}")
+            lines.append(f"WARNING: {w.sentence}")
         for n in self.notes:
             lines.append(f"note: {n}")
         return "\n".join(lines)
 
     def __repr__(self) -> str:
-        return (f"FitResult(theory={self.theory!r}, free={list(self.coefficients)}, "
-                f"warnings={len(self.warnings)})")
+        turns = (f", turns={self.stage1.n_accepted}/{self.stage1.n_blocks} accepted"
+                 if self.stage1 else "")
+        span = f", span={self.span_s / 86400:.3g} d" if self.span_s is not None else ""
+        return (f"FitResult(theory={self.theory!r}, units={self.units!r}, "
+                f"free={list(self.coefficients)}{span}{turns}, "
+                f"warnings={[w.code for w in self.warnings]})")
 
 
-def _plain(obj):
-    if isinstance(obj, dict):
-        return {str(k): _plain(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_plain(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return _plain(obj.tolist())
-    if isinstance(obj, (np.floating, float)):
-        x = float(obj)
-        return x if math.isfinite(x) else None
-    if isinstance(obj, (np.integer,)):
-        return int(obj)
-    if isinstance(obj, np.bool_):
-        return bool(obj)
-    return obj
+# ---------------------------------------------------------------------- reading parts
+
+def _numbers(f: Fields, key: str, *, null: bool = False) -> dict | None:
+    """An object {NAME: number} (None when absent)."""
+    s = f.sub(key, required=False)
+    return None if s is None else {k: s.number(k, null=null) for k, _ in s.items()}
 
 
+def _strings(f: Fields, key: str) -> dict | None:
+    """An object {NAME: string} (None when absent)."""
+    s = f.sub(key, required=False)
+    return None if s is None else {k: s.string(k, empty=True) for k, _ in s.items()}
+
+
+def _site(f: Fields) -> Mapping | None:
+    s = f.sub("site", required=False)
+    if s is None:
+        return None
+    s.string("name", required=False, empty=True)
+    for k in ("latitude_deg", "longitude_deg", "height_m"):
+        s.number(k, required=False)
+    return f.record("site")
+
+
+def _apparatus(f: Fields) -> Mapping | None:
+    s = f.sub("apparatus", required=False)
+    if s is None:
+        return None
+    s.string("kind", required=False)
+    return f.record("apparatus")
+
+
+def _settings(f: Fields) -> Mapping | None:
+    s = f.sub("settings", required=False)
+    if s is None:
+        return None
+    s.sub("fit", required=False)
+    s.string("engine", required=False)
+    s.number("dut1_s", required=False)
+    return f.record("settings")
+
+
+def read_fit_result(path) -> FitResult:
+    """Read and check a fit result file (JSON, format "fit", version 1 or 2).
+
+    Raises :class:`~fringe.errors.InputFileError` with one line "PATH: FIELD: EXPECTED" for a
+    missing or unreadable file, invalid JSON or any field :meth:`FitResult.from_dict`
+    refuses. The file is only read.
+    """
+    path = Path(path)
+    if not path.is_file():
+        raise InputFileError(path, "file", "expected an existing fit result (JSON) file")
+    try:
+        d = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputFileError(path, "file", f"expected a readable UTF-8 JSON file ({exc})") \
+            from None
+    except json.JSONDecodeError as exc:
+        raise InputFileError(path, "JSON", f"expected valid JSON ({exc.msg} at line "
+                                           f"{exc.lineno})") from None
+    return FitResult.from_dict(d, source=path)

@@ -1,12 +1,29 @@
-"""The per-turn amplitudes file written beside a fit result (HDF5): its columns, writer and reader."""
+"""The per-turn amplitudes file written beside a fit result (HDF5): its columns, writer and
+its one reader.
+
+* :class:`TurnColumns` makes the columns of a fit a segment at a time; :func:`write_turns`
+  writes them (format "turns", version 1; ``docs/fit.md``).
+* :func:`read_turns` reads and checks a file (every column); :func:`accepted_turns` takes the
+  accepted turns of what it read, time-sorted and checked for a report
+  (:func:`read_accepted_turns` does both). Errors are one line "PATH: FIELD: EXPECTED".
+"""
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
+
+from fringe.errors import InputFileError
 
 #: Columns of the per-turn amplitudes file, in order (docs/fit.md).
 TURN_COLUMNS = ("t_mid_s", "phi_rad", "C", "B", "sigma_C", "sigma_B", "accepted", "status",
                 "model_C", "model_B", "n_valid", "residual_rms")
+#: Columns a file must have (the others, e.g. ``status``, may be missing from a hand-made one).
+REQUIRED_COLUMNS = ("t_mid_s", "phi_rad", "C", "B", "sigma_C", "sigma_B", "accepted",
+                    "model_C", "model_B")
+#: Fewest accepted turns :func:`accepted_turns` takes.
+MIN_ACCEPTED = 4
 
 
 class TurnColumns:
@@ -18,11 +35,17 @@ class TurnColumns:
     scratch files; the columns cannot be read after that.
     """
 
-    def __init__(self, setup, store, models, scratch=None):
+    def __init__(self, setup, store, models, scratch=None, *, span_s: float | None = None):
         self._setup, self._store, self._models, self._scratch = setup, store, models, scratch
+        self._span_s = span_s
 
     def __len__(self) -> int:
         return self._store.n_blocks
+
+    def __repr__(self) -> str:
+        span = f", span {self._span_s / 86400:.3g} d" if self._span_s is not None else ""
+        return (f"TurnColumns({len(self)} turns, {int(np.sum(self._store.accepted))} "
+                f"accepted{span}, units {self._setup.units!r})")
 
     def segments(self):
         from fringe.frames import sidereal_angle_rad
@@ -99,18 +122,94 @@ def write_turns(path, *, units: str, epoch_utc: str, columns, overwrite: bool = 
 
 
 def read_turns(path) -> dict:
-    """Read a per-turn amplitudes file: dict of arrays plus 'units' and 'epoch_utc'."""
+    """Read and check a per-turn amplitudes file (HDF5, format "turns", version 1).
+
+    Returns
+    -------
+    dict
+        Every dataset of group ``turns`` (1-D numeric arrays of one length, as stored; the
+        columns of :data:`REQUIRED_COLUMNS` are always there) plus ``units`` and
+        ``epoch_utc`` (str, or None when the file does not state them).
+
+    Raises
+    ------
+    InputFileError
+        Missing or unreadable file, wrong format or version, a missing, non-numeric or
+        wrong-length column.
+    """
     import h5py
 
-    from fringe.errors import InputFileError
-
+    path = Path(path)
+    if not path.is_file():
+        raise InputFileError(path, "file", "expected an existing per-turn amplitudes (HDF5) "
+                                           "file")
     try:
-        with h5py.File(path, "r") as f:
-            if f.attrs.get("fringe_format") != "turns":
-                raise InputFileError(path, "fringe_format", "expected 'turns'")
-            out = {k: np.asarray(v[()]) for k, v in f["turns"].items()}
-            out["units"] = str(f.attrs["units"])
-            out["epoch_utc"] = str(f.attrs["epoch_utc"])
-            return out
+        fh = h5py.File(path, "r")
     except OSError:
-        raise InputFileError(path, "file", "expected a readable HDF5 turns file") from None
+        raise InputFileError(path, "file", "expected a readable HDF5 file") from None
+    with fh:
+        def attr(name):
+            v = fh.attrs.get(name)
+            return v.decode() if isinstance(v, bytes) else v
+
+        if attr("fringe_format") != "turns":
+            raise InputFileError(path, "fringe_format", "expected 'turns', got "
+                                                        f"{attr('fringe_format')!r}")
+        if attr("fringe_format_version") != 1:
+            raise InputFileError(path, "fringe_format_version", "expected 1, got "
+                                 f"{attr('fringe_format_version')!r}")
+        group = fh.get("turns")
+        if not isinstance(group, h5py.Group):
+            raise InputFileError(path, "turns", "expected a group of per-turn datasets")
+        out, n = {}, None
+        for name in list(REQUIRED_COLUMNS) + [k for k in group if k not in REQUIRED_COLUMNS]:
+            ds = group.get(name)
+            if not isinstance(ds, h5py.Dataset) or ds.ndim != 1 or ds.dtype.kind not in "biuf":
+                raise InputFileError(path, f"turns/{name}", "expected a 1-D numeric dataset")
+            if n is not None and ds.shape[0] != n:
+                raise InputFileError(path, f"turns/{name}", f"expected {n} values (one per "
+                                                            f"turn), got {ds.shape[0]}")
+            n = ds.shape[0]
+            out[name] = np.asarray(ds[()])
+        for key in ("units", "epoch_utc"):
+            v = attr(key)
+            out[key] = None if v is None else str(v)
+    return out
+
+
+def accepted_turns(turns: dict, path, turn_period_s: float | None = None) -> dict:
+    """The accepted turns of :func:`read_turns`'s ``turns`` (from ``path``), time-sorted.
+
+    Returns the columns of :data:`REQUIRED_COLUMNS` but ``accepted``, as float arrays of the
+    accepted turns, plus ``turn_period_s`` (the given one when positive, else the median turn
+    spacing), ``n_turns`` and ``n_rejected``. Raises :class:`~fringe.errors.InputFileError`
+    for fewer than :data:`MIN_ACCEPTED` accepted turns, non-finite values or sigmas <= 0 on
+    accepted turns, or turn times that do not advance.
+    """
+    n = turns["t_mid_s"].size
+    ok = turns["accepted"] == 1
+    if ok.sum() < MIN_ACCEPTED:
+        raise InputFileError(path, "turns/accepted", f"expected at least {MIN_ACCEPTED} "
+                                                     f"accepted turns, got {int(ok.sum())}")
+    order = np.argsort(turns["t_mid_s"][ok].astype(float), kind="stable")
+    out = {k: turns[k].astype(float)[ok][order] for k in REQUIRED_COLUMNS if k != "accepted"}
+    for name, arr in out.items():
+        if not np.all(np.isfinite(arr)):
+            raise InputFileError(path, f"turns/{name}", "expected finite values on accepted "
+                                                        "turns")
+    for name in ("sigma_C", "sigma_B"):
+        if not np.all(out[name] > 0):
+            raise InputFileError(path, f"turns/{name}", "expected positive values on "
+                                                        "accepted turns")
+    tp = turn_period_s
+    if not (tp is not None and tp > 0):
+        tp = float(np.median(np.diff(out["t_mid_s"])))
+        if not tp > 0:
+            raise InputFileError(path, "turns/t_mid_s", "expected distinct turn times")
+    out.update(turn_period_s=float(tp), n_turns=int(n), n_rejected=int(n - ok.sum()))
+    return out
+
+
+def read_accepted_turns(path, turn_period_s: float | None = None) -> dict:
+    """:func:`accepted_turns` of :func:`read_turns` (what a report reads)."""
+    return accepted_turns(read_turns(path), path, turn_period_s)

@@ -9,30 +9,45 @@ computation here; :mod:`fringe.plan` re-exports all three, so import them from t
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from collections.abc import Mapping
+from dataclasses import dataclass, fields
 
-from fringe.errors import ConfigError
+from fringe.io.records import Fields, freeze, plain
 
 __all__ = ["MonteCarloCheck", "PlanResult", "TargetAnswer"]
 
 
-def _plain(x):
-    """Plain JSON: tuples to lists, non-finite floats to None."""
-    if isinstance(x, dict):
-        return {str(k): _plain(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_plain(v) for v in x]
-    if isinstance(x, float) and not math.isfinite(x):
-        return None
-    return x
-
-
-def _tup(values, none=math.inf):
-    return tuple(none if v is None else float(v) for v in values)
-
-
 def _fmt(x: float) -> str:
     return "unconstrained" if not math.isfinite(x) else f"{x:.3g}"
+
+
+def _freeze_fields(obj, names) -> None:
+    for name in names:
+        object.__setattr__(obj, name, freeze(getattr(obj, name)))
+
+
+def _floats(f: Fields, key: str, *, null: float = math.inf, length: int | None = None
+            ) -> tuple[float, ...]:
+    """A list of numbers at ``key``; null (a non-finite value written by to_dict) is ``null``."""
+    want = "a list of numbers or nulls" + (f" of length {length}" if length is not None else "")
+    v = f.take(key, True, want)
+    if not isinstance(v, list) or (length is not None and len(v) != length):
+        raise f.error(key, want, v)
+    return tuple(null if x is None else float(f.check_number(f"{key}[{i}]", x))
+                 for i, x in enumerate(v))
+
+
+def _curves(f: Fields, key: str, names, length: int) -> dict:
+    """An object {NAME: list of ``length`` numbers or nulls} (NAME among ``names`` unless
+    None)."""
+    c = f.sub(key)
+    if names is not None:
+        c.unknown(tuple(names))
+    return {k: _floats(c, k, length=length) for k, _ in c.items()}
+
+
+def _number(f: Fields, key: str, **kw) -> float:
+    return float(f.number(key, **kw))
 
 
 @dataclass(frozen=True)
@@ -46,6 +61,20 @@ class TargetAnswer:
     sigma_target: float
     days: float | None
     horizon_days: float
+
+    def to_dict(self) -> dict:
+        return {"name": self.name, "sigma_target": self.sigma_target, "days": self.days,
+                "horizon_days": self.horizon_days}
+
+    @classmethod
+    def from_dict(cls, d, source="plan result", where: str = "target") -> TargetAnswer:
+        """Inverse of :meth:`to_dict`; checks every field (InputFileError naming it)."""
+        f = Fields(source, d, where)
+        f.unknown(("name", "sigma_target", "days", "horizon_days"))
+        days = f.number("days", required=False, minimum=0.0)
+        return cls(f.string("name"), _number(f, "sigma_target", positive=True),
+                   None if days is None else float(days),
+                   _number(f, "horizon_days", minimum=0.0))
 
     def text(self) -> str:
         if self.days is None:
@@ -63,7 +92,7 @@ class PlanResult:
     title, source, theory, units : str
         Scenario title and file, theory name, observable units.
     free, nuisances : tuple of str
-    noise : dict
+    noise : mapping
         The PowerLawNoise coefficients (h2 Hz^-3, h0 Hz^-1, hm1, hm2 Hz; f_h_hz).
     noise_scale : float
         Observable units per unit fractional frequency (k).
@@ -77,15 +106,15 @@ class PlanResult:
     campaign_days : float
     n_turns : int
         Whole turns in the campaign.
-    sigma : dict
+    sigma : mapping
         name -> 1-sigma forecast for the campaign (coefficient units; inf: unconstrained).
     correlation : tuple of tuples
         Correlation matrix of the free coefficients for the campaign (order of ``free``).
     days : tuple of float
         Campaign lengths of the sigma-versus-days curve, days.
-    sigma_vs_days : dict
+    sigma_vs_days : mapping
         name -> sigmas at ``days``.
-    comparison : dict
+    comparison : mapping
         SME only: {"ke_only": {ke name: sigmas}, "ke_ko": {...}} at ``days`` (ke_* alone, and
         ke_* with ko_* free), both with the nuisances.
     decoupling_ratio : tuple of float
@@ -94,12 +123,15 @@ class PlanResult:
     decoupling_days : float or None
         Span from which that ratio stays <= the threshold (None: not within the curve).
     periods_s : tuple of float
-    sigma_vs_period : dict
+    sigma_vs_period : mapping
         name -> sigma for the campaign at each rotation period.
     latitudes_deg : tuple of float
-    sigma_vs_latitude : dict
+    sigma_vs_latitude : mapping
         name -> sigma for the campaign at each site latitude (empty when not asked for).
     targets : tuple of TargetAnswer
+
+    Frozen: the mappings are read-only (:class:`~fringe.io.records.FrozenMap`), the sequences
+    tuples.
     """
 
     title: str
@@ -108,7 +140,7 @@ class PlanResult:
     units: str
     free: tuple
     nuisances: tuple
-    noise: dict
+    noise: Mapping
     noise_scale: float
     period_s: float
     duty: float
@@ -118,57 +150,92 @@ class PlanResult:
     start_utc: str
     campaign_days: float
     n_turns: int
-    sigma: dict
+    sigma: Mapping
     correlation: tuple
     days: tuple
-    sigma_vs_days: dict
-    comparison: dict
+    sigma_vs_days: Mapping
+    comparison: Mapping
     decoupling_ratio: tuple
     decoupling_threshold: float
     decoupling_days: float | None
     periods_s: tuple
-    sigma_vs_period: dict
+    sigma_vs_period: Mapping
     latitudes_deg: tuple
-    sigma_vs_latitude: dict
+    sigma_vs_latitude: Mapping
     targets: tuple
 
     FORMAT = "plan"
     VERSION = 1
 
+    def __post_init__(self):
+        _freeze_fields(self, ("free", "nuisances", "noise", "sigma", "correlation", "days",
+                              "sigma_vs_days", "comparison", "decoupling_ratio", "periods_s",
+                              "sigma_vs_period", "latitudes_deg", "sigma_vs_latitude",
+                              "targets"))
+
     def to_dict(self) -> dict:
         """Plain JSON types (infinite sigmas and undefined correlations become null)."""
         out = {"fringe_format": self.FORMAT, "fringe_format_version": self.VERSION}
-        for f in self.__dataclass_fields__:
-            v = getattr(self, f)
-            if f == "targets":
-                v = [{"name": a.name, "sigma_target": a.sigma_target, "days": a.days,
-                      "horizon_days": a.horizon_days} for a in v]
-            out[f] = _plain(v)
+        for f in fields(self):
+            out[f.name] = plain(getattr(self, f.name))
         return out
 
     @classmethod
-    def from_dict(cls, data: dict) -> PlanResult:
-        """Inverse of :meth:`to_dict`."""
-        if not isinstance(data, dict) or data.get("fringe_format") != cls.FORMAT:
-            raise ConfigError("plan result: expected a mapping with fringe_format = 'plan'")
-        d = {k: v for k, v in data.items() if k in cls.__dataclass_fields__}
-        missing = sorted(set(cls.__dataclass_fields__) - set(d))
-        if missing:
-            raise ConfigError(f"plan result: {missing[0]}: missing")
-
-        def curves(m):
-            return {k: _tup(v) for k, v in m.items()}
-
-        d["free"], d["nuisances"] = tuple(d["free"]), tuple(d["nuisances"])
-        d["sigma"] = {k: math.inf if v is None else float(v) for k, v in d["sigma"].items()}
-        d["correlation"] = tuple(_tup(row, math.nan) for row in d["correlation"])
-        for key in ("days", "decoupling_ratio", "periods_s", "latitudes_deg"):
-            d[key] = _tup(d[key])
-        for key in ("sigma_vs_days", "sigma_vs_period", "sigma_vs_latitude"):
-            d[key] = curves(d[key])
-        d["comparison"] = {k: curves(v) for k, v in d["comparison"].items()}
-        d["targets"] = tuple(TargetAnswer(**a) for a in d["targets"])
-        return cls(**d)
+    def from_dict(cls, data, source="plan result") -> PlanResult:
+        """Inverse of :meth:`to_dict`: checks every field and raises
+        :class:`~fringe.errors.InputFileError` "SOURCE: FIELD: EXPECTED" for the first one
+        missing, unknown or of the wrong kind (null sigmas are infinite, null correlations
+        NaN)."""
+        f = Fields(source, data)
+        if data.get("fringe_format") != cls.FORMAT:
+            raise f.error("fringe_format", "'plan'", data.get("fringe_format"))
+        if data.get("fringe_format_version") != cls.VERSION:
+            raise f.error("fringe_format_version", str(cls.VERSION),
+                          data.get("fringe_format_version"))
+        f.unknown(("fringe_format", "fringe_format_version") + tuple(x.name for x in fields(cls)))
+        free = f.strings("free")
+        sig = f.sub("sigma")
+        sig.unknown(free)
+        days, periods = _floats(f, "days"), _floats(f, "periods_s")
+        latitudes = _floats(f, "latitudes_deg")
+        corr = f.elements("correlation")
+        if len(corr.data) != len(free):
+            raise f.error("correlation", f"a {len(free)}x{len(free)} matrix (order of free)")
+        comp = f.sub("comparison")
+        noise = f.sub("noise")
+        targets = f.elements("targets")
+        if "decoupling_days" not in data:
+            raise f.error("decoupling_days", "a number of days or null (missing)")
+        dec = f.number("decoupling_days", required=False, minimum=0.0)
+        return cls(
+            title=f.string("title", empty=True), source=f.string("source", empty=True),
+            theory=f.string("theory"), units=f.string("units"), free=free,
+            nuisances=f.strings("nuisances"),
+            noise={k: noise.number(k, required=False) for k, _ in noise.items()},
+            noise_scale=_number(f, "noise_scale"), period_s=_number(f, "period_s",
+                                                                     positive=True),
+            duty=_number(f, "duty", positive=True),
+            signal_frequency_hz=_number(f, "signal_frequency_hz", positive=True),
+            psd_at_signal=_number(f, "psd_at_signal", minimum=0.0),
+            turn_sigma=_number(f, "turn_sigma", minimum=0.0),
+            start_utc=f.string("start_utc"), campaign_days=_number(f, "campaign_days",
+                                                                   minimum=0.0),
+            n_turns=f.integer("n_turns"),
+            sigma={k: math.inf if v is None else float(sig.check_number(k, v))
+                   for k, v in sig.items()},
+            correlation=tuple(_floats(corr, k, null=math.nan, length=len(free))
+                              for k in corr.data),
+            days=days, sigma_vs_days=_curves(f, "sigma_vs_days", free, len(days)),
+            comparison={k: _curves(comp, k, None, len(days)) for k, _ in comp.items()},
+            decoupling_ratio=_floats(f, "decoupling_ratio"),
+            decoupling_threshold=_number(f, "decoupling_threshold", positive=True),
+            decoupling_days=None if dec is None else float(dec),
+            periods_s=periods, sigma_vs_period=_curves(f, "sigma_vs_period", free,
+                                                       len(periods)),
+            latitudes_deg=latitudes,
+            sigma_vs_latitude=_curves(f, "sigma_vs_latitude", free, len(latitudes)),
+            targets=tuple(TargetAnswer.from_dict(v, source, targets.name(k))
+                          for k, v in targets.items()))
 
     def __repr__(self) -> str:
         best = min(self.sigma.values()) if self.sigma else math.nan
@@ -234,6 +301,26 @@ class MonteCarloCheck:
     n_turns: int
     method: str = ("per-turn amplitudes with white noise of the forecast variance, fitted by "
                    "least squares (checks the Fisher algebra, not the sample-level noise model)")
+
+    def __post_init__(self):
+        _freeze_fields(self, ("names", "truth", "sigma_forecast", "sigma_scatter",
+                              "mean_offset"))
+
+    def to_dict(self) -> dict:
+        """Plain JSON types."""
+        return {f.name: plain(getattr(self, f.name)) for f in fields(self)}
+
+    @classmethod
+    def from_dict(cls, data, source="Monte Carlo check") -> MonteCarloCheck:
+        """Inverse of :meth:`to_dict`; checks every field (InputFileError naming it)."""
+        f = Fields(source, data)
+        f.unknown(tuple(x.name for x in fields(cls)))
+        names = f.strings("names")
+        k = len(names)
+        return cls(names, _floats(f, "truth", length=k), _floats(f, "sigma_forecast", length=k),
+                   _floats(f, "sigma_scatter", length=k), _floats(f, "mean_offset", length=k),
+                   f.integer("n_campaigns", minimum=1), f.integer("n_turns", minimum=1),
+                   f.string("method"))
 
     def summary(self) -> str:
         rows = [f"  {n:<9} {f:.4g}  {s:.4g}  {s / f:.3f}" for n, f, s in

@@ -111,7 +111,7 @@ def plan_settings(scenario: Scenario, free: str | Sequence[str] | None = None,
     if not theory.linear:
         raise ConfigError(f"{scenario.source}: [theory] name: the plan needs a linear theory "
                           f"(the Fisher forecast is for linear models), got {theory.name!r}")
-    where_free = "--free" if free is not None else f"{where} free"
+    where_free = "plan_settings(free=...)" if free is not None else f"{where} free"
     if free is not None:
         names = _names(free, where_free)
         sec.pop("free", None)

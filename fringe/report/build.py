@@ -17,16 +17,17 @@ and the renderers :func:`markdown_report`, :func:`latex_report`, :func:`html_rep
 
 from __future__ import annotations
 
+import dataclasses
 import datetime
 import os
 from collections.abc import Sequence
 from pathlib import Path
 
-import numpy as np
-
 import fringe.report.figures.fit as F
 from fringe.errors import ConfigError, OutputError
 from fringe.io.atomic import save_figure_atomic, write_json_atomic, write_text_atomic
+from fringe.io.fit_sections import Covariance
+from fringe.io.records import plain
 from fringe.report.content import ReportContent
 from fringe.report.documents import (
     FIGURE_DIR,
@@ -62,7 +63,7 @@ def assemble_report(fit_json_path, *, compare=None, kt: tuple[float, float] | No
     Parameters
     ----------
     fit_json_path : path
-        The fit result (``fringe_format = "fit"``, version 1).
+        The fit result (``fringe_format = "fit"``, version 1 or 2).
     compare : path, optional
         CSV or TOML table of earlier results (:func:`load_comparison`).
     kt, is_ : (value, sigma), optional
@@ -71,31 +72,30 @@ def assemble_report(fit_json_path, *, compare=None, kt: tuple[float, float] | No
     """
     fit_path = Path(fit_json_path)
     fit = load_fit(fit_path)
-    notes = [f"From the fit: {n}" for n in fit["notes"]]
+    notes = [f"From the fit: {n}" for n in fit.notes]
     turns_path = turns = None
-    if fit.get("amplitudes_file"):
-        turns_path = fit_path.parent / fit["amplitudes_file"]
+    if fit.amplitudes_file:
+        turns_path = fit_path.parent / fit.amplitudes_file
         turns = load_turns(turns_path, fit)
     else:
         notes.append("The fit names no per-turn amplitudes file: the figures of the per-turn "
                      "amplitudes, their spectrum and the residual Allan deviation are omitted.")
-    if fit.get("covariance") is None:
-        fit["covariance"] = {"names": list(fit["coefficients"]), "matrix": np.diag(
-            [e["sigma"] ** 2 for e in fit["coefficients"].values()]).tolist()}
+    if fit.covariance is None:
+        fit = dataclasses.replace(fit, covariance=Covariance.diagonal(fit.coefficients))
         notes.append("The fit gives no covariance matrix: correlations are shown as zero.")
     comparison = tuple(load_comparison(compare)) if compare is not None else ()
     rms = None
     if kt is not None or is_ is not None:
         if kt is None or is_ is None:
-            raise ConfigError("--kt/--is: both the Kennedy-Thorndike (beta - alpha - 1) and the "
+            raise ConfigError("kt/is_: both the Kennedy-Thorndike (beta - alpha - 1) and the "
                               "Ives-Stilwell (alpha + 1/2) results are needed to solve for "
                               "alpha, beta, delta")
-        if fit["theory"] != "rms" or "rms_mm" not in fit["coefficients"]:
-            raise ConfigError(f"--kt/--is: need a fit of theory 'rms' with rms_mm free; "
-                              f"{fit_path} has theory {fit['theory']!r} with free "
-                              f"{', '.join(fit['coefficients'])}")
-        mm = fit["coefficients"]["rms_mm"]
-        rms = solve_rms((mm["value"], mm["sigma"]), kt, is_,
+        if fit.theory != "rms" or "rms_mm" not in fit.coefficients:
+            raise ConfigError(f"kt/is_: need a fit of theory 'rms' with rms_mm free; "
+                              f"{fit_path} has theory {fit.theory!r} with free "
+                              f"{', '.join(fit.coefficients)}")
+        mm = fit.coefficients["rms_mm"]
+        rms = solve_rms((mm.value, mm.sigma), kt, is_,
                         sources=("this fit", "user input (--kt)", "user input (--is)"))
     now = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
     prov = {
@@ -103,24 +103,24 @@ def assemble_report(fit_json_path, *, compare=None, kt: tuple[float, float] | No
         "fit file": _file_entry(fit_path),
         "per-turn amplitudes file": _file_entry(turns_path) if turns_path else None,
         "comparison file": _file_entry(compare) if compare is not None else None,
-        "run file fitted": fit.get("input"),
-        "fit created (UTC)": fit.get("created_utc"),
-        "theory": fit["theory"],
-        "fit settings": fit.get("settings"),
-        "fit statistics": fit.get("statistics"),
-        "efficiency (white-noise Cramér–Rao σ / reported σ)": fit.get("efficiency"),
-        "stage 1": fit.get("stage1"),
-        "site": fit.get("site"),
-        "apparatus": fit.get("apparatus"),
-        "epoch (UTC), span (s)": [fit.get("epoch_utc"), fit.get("span_s")],
-        "conventions of the fit": fit.get("conventions"),
+        "run file fitted": plain(fit.input),
+        "fit created (UTC)": fit.created_utc,
+        "theory": fit.theory,
+        "fit settings": plain(fit.settings),
+        "fit statistics": plain(fit.statistics),
+        "efficiency (white-noise Cramér–Rao σ / reported σ)": plain(fit.efficiency),
+        "stage 1": plain(fit.stage1),
+        "site": plain(fit.site),
+        "apparatus": plain(fit.apparatus),
+        "epoch (UTC), span (s)": [fit.epoch_utc, plain(fit.span_s)],
+        "conventions of the fit": plain(fit.conventions),
         "conventions of this report": {
             "rounding": "Particle Data Group rule (RPP Introduction, sec. 5.3 'Rounding')",
             "intervals": "Gaussian: 68 % = value ± 1σ, 95 % = value ± 1.96σ",
             "95 % bound": "|value| + 1.96σ, rounded up to two significant digits",
             "rms": "Mansouri–Sexl α, β, δ (SR: −½, ½, 0); P_MM = δ − β + ½ (C13)",
             "harmonics": "C10: S = B sin 2θ + C cos 2θ, two-path normalisation (C9)"},
-        "software of the fit": fit.get("software"),
+        "software of the fit": plain(fit.software),
         "software of this report": software_versions("matplotlib"),
     }
     return ReportContent(fit=fit, fit_path=fit_path, turns=turns, turns_path=turns_path,
@@ -139,7 +139,7 @@ def _check_targets(targets: Sequence[Path], protect: Sequence[Path], overwrite: 
                     p.exists() and Path(i).exists() and os.path.samefile(p, i)):
                 raise OutputError(f"{p}: refusing to write over an input file")
         if p.exists() and not overwrite:
-            raise OutputError(f"{p}: exists (pass --overwrite to replace it)")
+            raise OutputError(f"{p}: exists (pass overwrite=True to replace it)")
 
 
 def write_report(content: ReportContent, out_dir, *, overwrite: bool = False) -> list[Path]:
@@ -179,7 +179,7 @@ def build_report(fit_json_path, out_dir, *, compare=None, kt=None, is_=None,
     Parameters
     ----------
     fit_json_path : path
-        Fit result JSON (format "fit", version 1); its ``amplitudes_file`` is read too.
+        Fit result JSON (format "fit", version 1 or 2); its ``amplitudes_file`` is read too.
     out_dir : path
         Output directory (created if missing).
     compare : path, optional

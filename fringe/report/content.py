@@ -5,6 +5,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from fringe.io.fit_result import FitResult
 from fringe.report.rms_solve import RmsSolution
 
 
@@ -12,12 +13,13 @@ from fringe.report.rms_solve import RmsSolution
 class ReportContent:
     """Everything a report states, computed from the inputs; nothing written yet.
 
-    ``fit`` is the validated fit dict (covariance filled in), ``turns`` the accepted per-turn
-    arrays (:func:`load_turns`) or None, ``comparison`` the user's earlier results, ``rms`` the
-    alpha, beta, delta solution or None, ``headline`` as :func:`headline`.
+    ``fit`` is the checked fit result (a diagonal covariance filled in when the file gives
+    none), ``turns`` the accepted per-turn arrays (:func:`load_turns`) or None, ``comparison``
+    the user's earlier results, ``rms`` the alpha, beta, delta solution or None, ``headline``
+    as :func:`headline`.
     """
 
-    fit: dict
+    fit: FitResult
     fit_path: Path
     turns: dict | None = None
     turns_path: Path | None = None
@@ -30,8 +32,8 @@ class ReportContent:
 
     @property
     def warnings(self) -> tuple[str, ...]:
-        """Every warning the fit raised."""
-        return tuple(self.fit.get("warnings", ()))
+        """The sentence of every warning the fit raised (the records: ``fit.warnings``)."""
+        return tuple(w.sentence for w in self.fit.warnings)
 
     @property
     def inputs(self) -> list[Path]:

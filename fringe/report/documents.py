@@ -1,7 +1,7 @@
 """Render what a report states: the headline and the documents report.md, report.tex, report.html
 and summary.json.
 
-Use :func:`headline` for the result in the trade's terms (from a validated fit dict), and
+Use :func:`headline` for the result in the trade's terms (from a checked fit result), and
 :func:`markdown_report`, :func:`latex_report`, :func:`html_report` and :func:`summary` to render
 a :class:`~fringe.report.build.ReportContent` as text (or, for summary.json, a dict of plain JSON
 types). Nothing is written here: :func:`fringe.report.build.write_report` writes the files (and
@@ -42,6 +42,7 @@ from fringe.theories import (
 )
 
 if TYPE_CHECKING:                      # annotations only: build imports this module
+    from fringe.io.fit_result import FitResult
     from fringe.report.content import ReportContent
 
 __all__ = ["EXTRA_TABLES", "FIGURE_DIR", "headline", "html_report", "latex_report",
@@ -59,7 +60,7 @@ def _esc(text: str, style: str) -> str:
     return latex_escape(text) if style == "latex" else text
 
 
-def headline(fit: dict, style: str = "unicode") -> dict:
+def headline(fit: FitResult, style: str = "unicode") -> dict:
     """The result in the trade's terms.
 
     * theory ``sme``: the orientation-dependent Delta c / c bound, stated as the largest 95 %
@@ -75,9 +76,9 @@ def headline(fit: dict, style: str = "unicode") -> dict:
     Returns ``{"text", "quantity", "bound_95", "statement"}``, text in ``style``
     (``"unicode"`` or ``"latex"``).
     """
-    unc = fit.get("statistics", {}).get("uncertainty")
+    unc = (fit.statistics.uncertainty if fit.statistics is not None else None)
     tail = _esc(f" Uncertainties: {unc}.", style) if unc else ""
-    render = _HEADLINES.get(THEORIES.get(fit["theory"]), _largest_bound_headline)
+    render = _HEADLINES.get(THEORIES.get(fit.theory), _largest_bound_headline)
     out = render(fit, _Marks.of(style))
     return {**out, "text": out["text"] + tail}
 
@@ -99,9 +100,9 @@ class _Marks:
         return cls(style, "95 %", "σ", "<", "|value|")
 
 
-def _largest_bound_headline(fit: dict, m: _Marks, what: str = "Largest bound") -> dict:
+def _largest_bound_headline(fit: FitResult, m: _Marks, what: str = "Largest bound") -> dict:
     """The largest 95 % bound among all free coefficients, introduced by ``what``."""
-    coefs = fit["coefficients"]
+    coefs = fit.coefficients
     name, bound = _largest_bound(coefs, list(coefs))
     text = (_esc(f"{what}: |{name}| < ", m.style) + f"{format_bound(bound, m.style)} ({m.pct}), "
             f"the largest {m.pct} bound {m.absval} + 1.96{m.sig} among the free coefficients.")
@@ -110,13 +111,13 @@ def _largest_bound_headline(fit: dict, m: _Marks, what: str = "Largest bound") -
 
 
 def _largest_bound(coefs: dict, names: list[str]) -> tuple[str, float]:
-    bounds = {n: bound95(coefs[n]["value"], coefs[n]["sigma"]) for n in names}
+    bounds = {n: bound95(coefs[n].value, coefs[n].sigma) for n in names}
     name = max(bounds, key=bounds.get)
     return name, bounds[name]
 
 
-def _sme_headline(fit: dict, m: _Marks) -> dict:
-    coefs = fit["coefficients"]
+def _sme_headline(fit: FitResult, m: _Marks) -> dict:
+    coefs = fit.coefficients
     ke = [n for n in coefs if n in SmePhoton.primary_names]
     if not ke:
         return _largest_bound_headline(fit, m, "No ke_* coefficient was free; largest bound")
@@ -132,12 +133,12 @@ def _sme_headline(fit: dict, m: _Marks) -> dict:
             "statement": "largest |value| + 1.96 sigma among the free ke_* coefficients"}
 
 
-def _rms_headline(fit: dict, m: _Marks) -> dict:
-    coefs = fit["coefficients"]
+def _rms_headline(fit: FitResult, m: _Marks) -> dict:
+    coefs = fit.coefficients
     lead = RobertsonMansouriSexl.primary_names[0]          # rms_mm = delta - beta + 1/2
     if lead not in coefs:
         return _largest_bound_headline(fit, m)
-    v, s = coefs[lead]["value"], coefs[lead]["sigma"]
+    v, s = coefs[lead].value, coefs[lead].sigma
     q, qabs = ((r"$\delta-\beta+\frac{1}{2}$", r"$|\delta-\beta+\frac{1}{2}|$")
                if m.style == "latex" else ("δ − β + ½", "|δ − β + ½|"))
     exp = pdg_round(v, s)[2]
@@ -151,22 +152,22 @@ def _rms_headline(fit: dict, m: _Marks) -> dict:
             "statement": "|delta - beta + 1/2| + 1.96 sigma"}
 
 
-def _medium_headline(fit: dict, m: _Marks) -> dict:
-    if "speed_kms_95" not in (fit.get("upper_limits") or {}):
+def _medium_headline(fit: FitResult, m: _Marks) -> dict:
+    if "speed_kms_95" not in fit.upper_limits:
         return _largest_bound_headline(fit, m)
-    x = float(fit["upper_limits"]["speed_kms_95"])
+    x = float(fit.upper_limits["speed_kms_95"])
     text = _esc(f"Speed of the laboratory through a stationary medium: < {x:.3g} km/s "
                 "(95 % upper limit).", m.style)
     return {"text": text, "quantity": "speed_kms_95", "bound_95": x,
             "statement": "upper_limits.speed_kms_95 of the fit"}
 
 
-def _clock_headline(fit: dict, m: _Marks) -> dict:
+def _clock_headline(fit: FitResult, m: _Marks) -> dict:
     return _largest_bound_headline(fit, m, "Orientation-dependent clock shift")
 
 
 #: The headline of each theory class (a theory missing here gets the largest bound).
-_HEADLINES: dict[type[Theory], Callable[[dict, _Marks], dict]] = {
+_HEADLINES: dict[type[Theory], Callable[[FitResult, _Marks], dict]] = {
     SmePhoton: _sme_headline, RobertsonMansouriSexl: _rms_headline,
     ClassicalMedium: _medium_headline, DirectionalClock: _clock_headline}
 
@@ -226,19 +227,23 @@ _THEORY_SECTIONS: dict[type[Theory], _Section] = {
     RobertsonMansouriSexl: _Section("Robertson–Mansouri–Sexl parameters", _rms_text, _rms_html)}
 
 
-def _theory_section(fit: dict) -> _Section | None:
-    return _THEORY_SECTIONS.get(THEORIES.get(fit["theory"]))
+def _theory_section(fit: FitResult) -> _Section | None:
+    return _THEORY_SECTIONS.get(THEORIES.get(fit.theory))
 
 
-def _fixed_text(fit: dict) -> str:
-    return ", ".join(f"{k} = {v:g}" for k, v in fit.get("fixed", {}).items())
+def _fixed_text(fit: FitResult) -> str:
+    return ", ".join(f"{k} = {v:g}" for k, v in fit.fixed.items())
+
+
+def _site_name(fit: FitResult) -> str:
+    return (fit.site or {}).get("name", "")
 
 
 def markdown_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) -> str:
     """report.md: headline, warnings, tables, figures (linked), provenance."""
     fit, tables = c.fit, report_tables(c.fit, c.comparison, "unicode")
-    site = fit.get("site", {}).get("name", "")
-    out = [f"# fringe report: {fit['theory']} fit" + (f" — {site}" if site else ""), "",
+    site = _site_name(fit)
+    out = [f"# fringe report: {fit.theory} fit" + (f" — {site}" if site else ""), "",
            f"**Result.** {c.headline['text']}", ""]
     if c.warnings:
         out += [f"> **⚠ Warnings raised by the fit ({len(c.warnings)})**", ">"]
@@ -247,7 +252,7 @@ def markdown_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) ->
         out += ["The fit raised no warnings.", ""]
     out += [f"*Note: {n}*\n" for n in c.notes]
     out += ["## Coefficients", "", to_markdown(tables["coefficients"])]
-    if fit.get("fixed"):
+    if fit.fixed:
         out += [f"Fixed: {_fixed_text(fit)}.", ""]
     if "comparison" in tables:
         out += ["## Comparison with earlier results", "", to_markdown(tables["comparison"])]
@@ -272,13 +277,13 @@ def latex_report(c: ReportContent) -> str:
     coefficient table (plain tabular; compiles with pdflatex and no extra packages)."""
     table = to_latex(report_tables(c.fit, c.comparison, "latex")["coefficients"])
     out = [r"\documentclass{article}", r"\begin{document}",
-           r"\section*{" + latex_escape(f"Result of the {c.fit['theory']} fit") + "}",
+           r"\section*{" + latex_escape(f"Result of the {c.fit.theory} fit") + "}",
            headline(c.fit, "latex")["text"], ""]
     if c.warnings:
         out += [r"\paragraph{Warnings raised by the fit.}", r"\begin{itemize}"]
         out += [r"\item " + latex_escape(w) for w in c.warnings] + [r"\end{itemize}"]
     out.append(table)
-    if c.fit.get("fixed"):
+    if c.fit.fixed:
         out.append(latex_escape(f"Fixed: {_fixed_text(c.fit)}.") + "\n")
     if c.rms is not None:
         out.append(r"\paragraph{RMS parameters.} Deviations from special relativity from this "
@@ -296,7 +301,7 @@ def html_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) -> str
 
     tables = report_tables(c.fit, c.comparison, "unicode")
     sections = [("Coefficients", to_html(tables["coefficients"]))]
-    if c.fit.get("fixed"):
+    if c.fit.fixed:
         sections.append(("Fixed coefficients", f"<p>{_html.escape(_fixed_text(c.fit))}</p>"))
     if "comparison" in tables:
         sections.append(("Comparison with earlier results", to_html(tables["comparison"])))
@@ -306,9 +311,9 @@ def html_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) -> str
     for key, title in EXTRA_TABLES:
         if key in tables:
             sections.append((title, to_html(tables[key])))
-    site = c.fit.get("site", {}).get("name", "")
-    return html_page(title=f"fringe report: {c.fit['theory']} fit" + (f" — {site}" if site
-                                                                        else ""),
+    site = _site_name(c.fit)
+    return html_page(title=f"fringe report: {c.fit.theory} fit" + (f" — {site}" if site
+                                                                     else ""),
                      headline=c.headline["text"], warnings=c.warnings, notes=c.notes,
                      sections=sections, figures=figs, provenance=c.provenance)
 
@@ -316,8 +321,8 @@ def html_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) -> str
 def summary(c: ReportContent, figure_names: Sequence[str], files: Sequence[str]) -> dict:
     """summary.json: the numbers and statements of the report in plain JSON types."""
     coefs = {}
-    for n, e in c.fit["coefficients"].items():
-        v, s = e["value"], e["sigma"]
+    for n, e in c.fit.coefficients.items():
+        v, s = e.value, e.sigma
         coefs[n] = {"value": v, "sigma": s,
                     "rounded": format_mantissas(*pdg_round(v, s), "plain"),
                     "interval_68": [v - s, v + s], "interval_95": [v - Z95 * s, v + Z95 * s],

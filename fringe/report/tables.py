@@ -17,6 +17,7 @@ import math
 import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 from fringe.errors import ConfigError
 from fringe.linalg import correlation_from_covariance
@@ -28,6 +29,9 @@ from fringe.report.rounding import (
     pdg_place,
     pdg_round,
 )
+
+if TYPE_CHECKING:
+    from fringe.io.fit_result import FitResult
 
 __all__ = ["Table", "Z68", "Z95", "bound95", "coefficient_label", "coefficient_table",
            "comparison_table", "correlation_table",
@@ -398,7 +402,12 @@ def _coefficient_units(theory: str) -> dict:
     return dict(cls.parameter_units) if cls is not None else {}
 
 
-def report_tables(fit: Mapping, comparison: Sequence[Mapping] = (), style: str = "unicode"
+def _entries(estimates: Mapping) -> dict:
+    """{name: {"value", "sigma"}} of the finite estimates (a nuisance may be null in a file)."""
+    return {n: {"value": e.value, "sigma": e.sigma} for n, e in estimates.items() if e.finite}
+
+
+def report_tables(fit: FitResult, comparison: Sequence[Mapping] = (), style: str = "unicode"
                   ) -> dict[str, Table]:
     """The tables of a report, keyed by name.
 
@@ -407,41 +416,44 @@ def report_tables(fit: Mapping, comparison: Sequence[Mapping] = (), style: str =
 
     Parameters
     ----------
-    fit : mapping
-        Validated fit result dict (``coefficients``, ``covariance``, optional ``harmonics``).
+    fit : FitResult
+        The checked fit result (with a covariance).
     comparison : sequence of mapping
         Earlier results ``{"name", "value", "sigma", "citation"}``.
     style : {"unicode", "latex"}
     """
+    coefficients = _entries(fit.coefficients)
     out = {"coefficients": coefficient_table(
-        fit["coefficients"], style=style, units=_coefficient_units(fit["theory"]),
-        caption=f"Free coefficients of the {fit['theory']} fit: value ± 1σ (Particle Data Group "
+        coefficients, style=style, units=_coefficient_units(fit.theory),
+        caption=f"Free coefficients of the {fit.theory} fit: value ± 1σ (Particle Data Group "
                 "rounding) and Gaussian 68 % and 95 % intervals.")}
-    h = fit.get("harmonics")
-    if h:
-        chi = h.get("chi2_reduced")
+    h = fit.harmonics
+    if h is not None:
+        chi = h.chi2_reduced
         out["harmonics"] = harmonics_table(
-            h["names"], h["value"], h["sigma"], units=h.get("units", fit["units"]),
+            h.names, h.value, h.sigma, units=h.units if h.units is not None else fit.units,
             style=style, caption="C10 harmonics (S = B sin 2θ + C cos 2θ, two-path "
-            "normalisation)" + (f"; reduced χ² = {chi:.3g}" if chi is not None else "") + ".")
-    cov = fit["covariance"]
-    if len(cov["names"]) >= 2:
-        out["correlation"] = correlation_table(cov["names"], cov["matrix"], style=style,
+            "normalisation)" + (f"; reduced χ² = {chi:.3g}" if chi is not None
+                                and math.isfinite(chi) else "") + ".")
+    cov = fit.covariance
+    if len(cov.names) >= 2:
+        out["correlation"] = correlation_table(cov.names, cov.matrix, style=style,
                                                caption="Correlation matrix of the free "
                                                        "coefficients.")
-    if fit.get("nuisance"):
-        out["nuisance"] = value_table(fit["nuisance"], style=style, label="tab:nuisance",
+    nuisance = _entries(fit.nuisance)
+    if nuisance:
+        out["nuisance"] = value_table(nuisance, style=style, label="tab:nuisance",
                                       caption="Nuisance parameters fitted with the "
                                               "coefficients (unit of the observable).")
-    one = (fit.get("one_stage") or {}).get("coefficients") or {}
-    if any(n in one for n in fit["coefficients"]):
+    one = _entries(fit.one_stage.coefficients) if fit.one_stage is not None else {}
+    if any(n in one for n in coefficients):
         out["cross_check"] = cross_check_table(
-            fit["coefficients"], one, style=style,
+            coefficients, one, style=style,
             caption="Two-stage result beside the fit's one-stage cross-check (all samples "
                     "fitted at once); difference in units of the larger σ.")
     if comparison:
         out["comparison"] = comparison_table(
-            fit["coefficients"], comparison, style=style,
+            coefficients, comparison, style=style,
             caption="This work beside earlier results supplied by the user (citations as "
                     "given, not checked; fringe bundles no reference values). earlier/this: "
                     "ratio of the 95 % bounds.")

@@ -88,7 +88,7 @@ def test_fit_with_dask_engine_equals_local(run_path, client):
 
 
 def test_engine_errors(run_path):
-    with pytest.raises(ConfigError, match="--engine"):
+    with pytest.raises(ConfigError, match="engine: expected one of"):
         run_stage1(run_path, DemodSettings(), engine="spark")
-    with pytest.raises(ConfigError, match="--scheduler"):
+    with pytest.raises(ConfigError, match="scheduler=ADDRESS"):
         run_stage1(run_path, DemodSettings(), engine="dask")

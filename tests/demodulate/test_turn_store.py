@@ -136,11 +136,11 @@ def test_segmented_fit_agrees_with_the_one_segment_fit(run_path, monkeypatch, tm
     parts, part_cols = fit_run(run_path, settings, scratch_dir=str(tmp_path))
     for name, v in whole.coefficients.items():
         w = parts.coefficients[name]
-        assert abs(w["value"] - v["value"]) < 1e-9 * v["sigma"], name
-        assert w["sigma"] == pytest.approx(v["sigma"], rel=1e-9), name
-    assert parts.harmonics["value"] == pytest.approx(whole.harmonics["value"], rel=1e-9,
-                                                      abs=1e-12 * max(whole.harmonics["sigma"]))
-    assert parts.statistics["chi2_reduced"] == pytest.approx(whole.statistics["chi2_reduced"],
+        assert abs(w.value - v.value) < 1e-9 * v.sigma, name
+        assert w.sigma == pytest.approx(v.sigma, rel=1e-9), name
+    assert parts.harmonics.value == pytest.approx(whole.harmonics.value, rel=1e-9,
+                                                      abs=1e-12 * max(whole.harmonics.sigma))
+    assert parts.statistics.chi2_reduced == pytest.approx(whole.statistics.chi2_reduced,
                                                              rel=1e-9)
     assert parts.stage1 == whole.stage1
     a, b = whole_cols.to_dict(), part_cols.to_dict()
@@ -260,8 +260,8 @@ def test_other_theories_fit_the_same_from_the_scratch_table(run_path, monkeypatc
     parts, part_cols = fit_run(run_path, FitSettings(theory=theory), scratch_dir=str(tmp_path))
     for name, v in whole.coefficients.items():
         w = parts.coefficients[name]
-        assert abs(w["value"] - v["value"]) < 1e-9 * v["sigma"], name
-        assert w["sigma"] == pytest.approx(v["sigma"], rel=1e-9), name
+        assert abs(w.value - v.value) < 1e-9 * v.sigma, name
+        assert w.sigma == pytest.approx(v.sigma, rel=1e-9), name
     a, b = whole_cols.to_dict(), part_cols.to_dict()
     scale = np.nanmax(np.abs(a["model_C"]))
     assert np.allclose(a["model_C"], b["model_C"], rtol=0, atol=1e-9 * scale, equal_nan=True)

@@ -54,7 +54,7 @@ def fit_quiet(path, settings, demod=None, **kw):
 
 
 def pulls(result, truth):
-    return {n: (v["value"] - truth.get(n, 0.0)) / v["sigma"]
+    return {n: (v.value - truth.get(n, 0.0)) / v.sigma
             for n, v in result.coefficients.items()}
 
 
@@ -82,7 +82,7 @@ def test_sme_injection_recovery(sme_white):
     assert list(res.coefficients) == list(KE_NAMES)       # < 182.6 d: ko_* not in the default set
     assert_pulls(res, KE_TRUTH)
     # the injected values are 10-40 sigma: the test can see a wrong sign or scale
-    assert all(abs(KE_TRUTH[n]) / res.coefficients[n]["sigma"] > 8 for n in KE_NAMES)
+    assert all(abs(KE_TRUTH[n]) / res.coefficients[n].sigma > 8 for n in KE_NAMES)
 
 
 def test_efficiency_on_white_noise(sme_white):
@@ -132,7 +132,7 @@ def test_sigma_matches_sizing_rule(sme_white):
     res = sme_white["result"]
     h0 = 2.0 * WHITE_FM**2 * 1.0
     span_s = sme_white["summary"]["n_samples"] * 1.0
-    sig = dict(zip(res.harmonics["names"], res.harmonics["sigma"], strict=True))
+    sig = dict(zip(res.harmonics.names, res.harmonics.sigma, strict=True))
     f_c, f_b = _turn_variance_factors()
     assert f_c == pytest.approx(1.0, abs=1e-3)
     base = CARRIER_HZ * math.sqrt(h0 / span_s)
@@ -149,21 +149,21 @@ def test_clean_record_has_no_glitches_and_no_b0_warning(sme_white):
     # residual RMS of white-noise turns: sqrt(chi2_39 / 39); median + 5 x 1.4826 MAD sits near
     # 1.57 sigma, i.e. chi2_39 > 96, probability 1.0e-6 per turn (scipy.stats.chi2.sf(96, 39)),
     # 0.006 expected false flags among the 5760 turns: none should be flagged.
-    assert res.stage1["n_rejected_glitch"] == 0
-    assert res.stage1["n_rejected_partial"] == 0
+    assert res.stage1.n_rejected_glitch == 0
+    assert res.stage1.n_rejected_partial == 0
     # no B0 warning (the C0 one may fire: ke_ZZ = 2.5e-16 is injected and lives in C0 alone)
     b0 = [w for w in sme_white["warnings"] if issubclass(w.category, SystematicsWarning)
           and str(w.message).startswith("B0")]
     assert not b0
-    assert not any(w.startswith("B0") for w in res.warnings)
-    assert abs(res.harmonics["value"][5]) < 3 * res.harmonics["sigma"][5]
+    assert "b0-lab-fixed" not in [w.code for w in res.warnings]
+    assert abs(res.harmonics.value[5]) < 3 * res.harmonics.sigma[5]
 
 
 def test_result_serialises(sme_white):
     res = sme_white["result"]
     d = json.loads(json.dumps(res.to_dict()))
     assert d["coefficients"]["ke_XY"]["value"] == pytest.approx(
-        res.coefficients["ke_XY"]["value"], rel=1e-15)
+        res.coefficients["ke_XY"].value, rel=1e-15)
     assert "ke_XY" in res.summary()
 
 
@@ -180,7 +180,7 @@ def test_rms_injection_recovery(tmp_path):
                         coefficients=truth)
     res, _ = fit_run(path, FitSettings(theory="rms"))
     assert list(res.coefficients) == ["rms_mm"]
-    assert res.coefficients["rms_mm"]["sigma"] < 2e-11
+    assert res.coefficients["rms_mm"].sigma < 2e-11
     assert_pulls(res, truth)
 
 
@@ -200,14 +200,14 @@ def test_medium_injection_recovery_and_speed_limit(tmp_path):
     # E[1/(chi2_nu/nu)] = nu/(nu - 2) = 1.054, with scatter sqrt(2.41/7676) = 0.018 over 7676
     # dof (variance 3 nu^2/((nu-2)(nu-4)) - (nu/(nu-2))^2 = 2.41; derived): band 4 x 0.018
     nu = 45 - DemodSettings().n_terms
-    assert res.statistics["chi2_reduced"] == pytest.approx(nu / (nu - 2), abs=0.075)
+    assert res.statistics.chi2_reduced == pytest.approx(nu / (nu - 2), abs=0.075)
     # 95 % upper limit on |v|: for sigma << |v| the speed is ~normal with sigma_r = sqrt(u C u)
     # (u the unit vector of the estimate), so the limit is |v| + 1.6449 sigma_r
     # (scipy.stats.norm.ppf(0.95)); the 20 000-draw Monte Carlo quantile scatters by
     # sqrt(0.05 x 0.95 / 20000) / phi(1.645) = 0.015 sigma_r, band 0.1 sigma_r.
-    names = res.covariance["names"]
-    v = np.array([res.coefficients[n]["value"] for n in names])
-    cov = np.array(res.covariance["matrix"])
+    names = res.covariance.names
+    v = np.array([res.coefficients[n].value for n in names])
+    cov = np.array(res.covariance.matrix)
     u = v / np.linalg.norm(v)
     sigma_r = math.sqrt(u @ cov @ u)
     limit = res.upper_limits["speed_kms_95"]
@@ -253,17 +253,17 @@ def test_imperfect_records_do_not_bias(tmp_path, case):
     counts = res.stage1
     if case == "gaps":
         assert summary["n_gaps"] > 0
-        assert counts["n_rejected_partial"] > 0          # turns cut by a gap lose coverage
+        assert counts.n_rejected_partial > 0          # turns cut by a gap lose coverage
     if case == "dropout":
         table, _ = run_stage1(path, DemodSettings())
         frac = 1.0 - np.median(table.n_valid) / 60.0
         assert 0.05 < frac < 0.15                         # NaN samples are left out
     if case == "glitches":
         assert summary["n_glitches"] > 0
-        assert counts["n_rejected_glitch"] > 0
+        assert counts.n_rejected_glitch > 0
         _check_glitch_turns(path, counts)
     else:
-        assert counts["n_rejected_glitch"] == 0
+        assert counts.n_rejected_glitch == 0
 
 
 def _check_glitch_turns(path, counts):
@@ -271,7 +271,7 @@ def _check_glitch_turns(path, counts):
     with open_run(path) as run:
         times = np.array(json.loads(run.read_group_attrs("settings")["glitch_times_s_json"]))
     table, _ = run_stage1(path, DemodSettings())
-    assert table.counts()["n_rejected_glitch"] == counts["n_rejected_glitch"]
+    assert table.counts()["n_rejected_glitch"] == counts.n_rejected_glitch
     judged = table.status != TurnTable.PARTIAL
     # a glitch at time g lands on the first sample at or after g
     hit_inside = np.array([np.any((times > a) & (times <= b))
@@ -297,10 +297,15 @@ def test_b0_warning_fires_on_lab_fixed_systematic(tmp_path):
     with pytest.warns(SystematicsWarning) as record:
         res, _ = fit_run(path, FitSettings())
     assert any(str(w.message).startswith("B0") for w in record)
-    assert any(w.startswith("B0") for w in res.warnings)
+    b0 = [w for w in res.warnings if w.code == "b0-lab-fixed"]
+    assert len(b0) == 1 and b0[0].sentence.startswith("B0")
+    # the record's numbers are those of the sentence, unrounded
+    assert b0[0].values["lab_B0"] == res.nuisance["lab_B0"].value
+    assert b0[0].values["n_sigma"] == pytest.approx(
+        abs(b0[0].values["lab_B0"]) / b0[0].values["sigma"], rel=1e-15)
     expected_b = -level * math.sin(math.radians(45.0)) * CARRIER_HZ
     lab_b0 = res.nuisance["lab_B0"]
-    assert abs(lab_b0["value"] - expected_b) < PULL_BAND * lab_b0["sigma"]
+    assert abs(lab_b0.value - expected_b) < PULL_BAND * lab_b0.sigma
     # the sidereal analysis rejects a lab-fixed signal: only ke_ZZ (C0 alone) takes its C part
     others = {n: KE_TRUTH[n] for n in KE_NAMES if n != "ke_ZZ"}
     p = pulls(res, KE_TRUTH)
@@ -318,7 +323,8 @@ def clean_two_days(tmp_path_factory):
 def test_ko_on_two_days_reports_degeneracy(clean_two_days):
     with pytest.warns(DegeneracyWarning, match="near-degenerate"):
         res, _ = fit_run(clean_two_days, FitSettings(free=KE_NAMES + KO_NAMES))
-    assert any("near-degenerate" in w for w in res.warnings)
+    degenerate = [w for w in res.warnings if w.code == "near-degenerate"]
+    assert degenerate and all(abs(r) > 0.95 for r in degenerate[0].values.values())
     assert set(res.coefficients) == set(KE_NAMES + KO_NAMES)
 
 

@@ -33,9 +33,9 @@ def test_rms_kt_recovered_from_offsets(tmp_path):
     res, _ = fit_run(path, FitSettings(theory="rms"))
     assert set(res.coefficients) == {"rms_mm", "rms_kt"}          # default for an atomic ref.
     kt = res.coefficients["rms_kt"]
-    assert kt["sigma"] > 0
-    assert abs(kt["value"] - truth["rms_kt"]) < 4 * kt["sigma"]
-    assert kt["sigma"] < 0.25 * truth["rms_kt"]                  # a real detection
+    assert kt.sigma > 0
+    assert abs(kt.value - truth["rms_kt"]) < 4 * kt.sigma
+    assert kt.sigma < 0.25 * truth["rms_kt"]                  # a real detection
     assert any("rms_kt from the per-turn offsets" in n for n in res.notes)
 
 
@@ -43,7 +43,7 @@ def test_rms_kt_null(tmp_path):
     path = _run(tmp_path, {"rms_mm": 0.0, "rms_kt": 0.0}, days=2.0)
     res, _ = fit_run(path, FitSettings(theory="rms"))
     kt = res.coefficients["rms_kt"]
-    assert abs(kt["value"]) < 4 * kt["sigma"]
+    assert abs(kt.value) < 4 * kt.sigma
 
 
 def test_rms_kt_needs_an_isotropic_response(tmp_path):

@@ -218,17 +218,18 @@ def test_two_stage_and_one_stage_agree(tmp_path):
     # both sigmas estimate the same white-noise bound; the two-stage one takes the noise level
     # from the scatter of the (C, B) residuals (dof = 2 x 480 - 6), which scatters by
     # 1/sqrt(2 dof) = 2.3 %: band 4 x that
-    sigma_band = 4.0 / math.sqrt(2.0 * res.statistics["dof"])
+    sigma_band = 4.0 / math.sqrt(2.0 * res.statistics.dof)
     for n in KE_NAMES:
-        two_v, two_s = res.coefficients[n]["value"], res.coefficients[n]["sigma"]
-        d = (two_v - one["coefficients"][n]["value"]) / two_s
+        two_v, two_s = res.coefficients[n].value, res.coefficients[n].sigma
+        d = (two_v - one.coefficients[n].value) / two_s
         assert abs(d) < band, (n, d, band)
-        assert one["coefficients"][n]["sigma"] == pytest.approx(two_s, rel=sigma_band), n
-    assert set(one) >= {"coefficients", "covariance", "chi2_reduced", "n_samples"}
-    assert one["covariance"]["names"] == list(KE_NAMES)
+        assert one.coefficients[n].sigma == pytest.approx(two_s, rel=sigma_band), n
+    assert one.covariance.names == tuple(KE_NAMES) and one.n_samples > 0
     assert "one-stage cross-check" in res.summary()
     d = json.loads(json.dumps(res.to_dict()))
-    assert d["one_stage"]["n_samples"] == one["n_samples"]
+    assert d["one_stage"]["n_samples"] == one.n_samples
+    assert set(d["one_stage"]) == {"coefficients", "nuisance", "covariance", "chi2_reduced",
+                                   "noise_rms", "dof", "n_samples", "n_turns_used"}
 
 
 def test_regressed_aux_channel(tmp_path):
@@ -251,11 +252,11 @@ def test_regressed_aux_channel(tmp_path):
         w.append(t, np.pi - theta, y, probe=probe)
     res, _ = fit_run(str(path), FitSettings(free=("ke_XY", "ke_XXmYY"), regress=("probe",)),
                      one_stage=True)
-    two, one = res.nuisance["aux_probe"], res.one_stage["nuisance"]["aux_probe"]
-    assert abs(two["value"] - 0.3) < 4 * two["sigma"]
-    assert abs(one["value"] - 0.3) < 4 * one["sigma"]
+    two, one = res.nuisance["aux_probe"], res.one_stage.nuisance["aux_probe"]
+    assert abs(two.value - 0.3) < 4 * two.sigma
+    assert abs(one.value - 0.3) < 4 * one.sigma
     nu = 45 - DemodSettings().n_terms
-    assert abs(two["value"] - one["value"]) < 4 * math.sqrt(2.0 / (nu - 4)) * two["sigma"]
+    assert abs(two.value - one.value) < 4 * math.sqrt(2.0 / (nu - 4)) * two.sigma
 
 
 # ---------------------------------------------------------------------------------------------

@@ -97,6 +97,6 @@ def test_fit_across_leap_second(tmp_path):
     sc = scenario_from_dict(doc, "leap")
     simulate(sc, tmp_path / "leap.h5", seed=3)
     res, cols = fit_run(str(tmp_path / "leap.h5"), FitSettings(free=("ke_XY", "ke_XXmYY")))
-    assert res.stage1["n_rejected_partial"] <= 1 and res.stage1["n_rejected_glitch"] == 0
+    assert res.stage1.n_rejected_partial <= 1 and res.stage1.n_rejected_glitch == 0
     v = res.coefficients["ke_XY"]
-    assert abs(v["value"] - 2e-16) < 4 * v["sigma"]
+    assert abs(v.value - 2e-16) < 4 * v.sigma

@@ -4,8 +4,10 @@ scatter of fitted per-turn amplitudes, sample-level per-turn noise, results, CLI
 from __future__ import annotations
 
 import copy
+import dataclasses
 import json
 import math
+import re
 from dataclasses import replace
 
 import numpy as np
@@ -14,13 +16,13 @@ from click.testing import CliRunner
 from scipy.stats import chi2
 
 from fringe.constants import STELLAR_DAY_S
-from fringe.errors import ConfigError
+from fringe.errors import ConfigError, InputFileError
 from fringe.experiment.scenario import scenario_from_dict
 from fringe.noise.powerlaw import PowerLawNoise, noise_from_section
 from fringe.noise.stream import NoiseStream
 from fringe.plan.forecast import forecast, turn_amplitude_variance
 from fringe.plan.montecarlo import monte_carlo_check
-from fringe.plan.result import PlanResult
+from fringe.plan.result import MonteCarloCheck, PlanResult
 from fringe.plan.settings import plan_settings
 from fringe.theories.sme import KE_NAMES, KO_NAMES
 
@@ -199,6 +201,8 @@ def test_forecast_matches_monte_carlo_scatter(free, days):
         assert lo < s / f < hi, (name, s / f)
         assert abs(off) < 4.5 * f / math.sqrt(n), name
     assert mc.n_turns == int(days * 86400 // 45)
+    back = MonteCarloCheck.from_dict(json.loads(json.dumps(mc.to_dict())))
+    assert back == mc
 
 
 # --------------------------------------------------------------------- per-turn noise model
@@ -265,6 +269,45 @@ def test_result_round_trip_and_views(long_plan):
     assert back == long_plan
     assert "ke_XY" in long_plan.summary() and "reached after" in long_plan.summary()
     assert repr(long_plan).startswith("PlanResult(theory='sme'")
+
+
+def test_result_is_frozen(long_plan):
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        long_plan.campaign_days = 1.0
+    with pytest.raises(TypeError):
+        long_plan.sigma["ke_XY"] = 0.0
+    with pytest.raises(TypeError):
+        long_plan.sigma_vs_days["ke_XY"][0] = 0.0
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        long_plan.targets[0].days = 1.0
+
+
+@pytest.mark.parametrize(("field", "value", "expected"), [
+    ("fringe_format", "fit", "fringe_format: expected 'plan', got 'fit'"),
+    ("fringe_format_version", 2, "fringe_format_version: expected 1, got 2"),
+    ("extra", 1, "extra: unknown field"),
+    ("title", None, "title: expected a string"),
+    ("free", "ke_XY", "free: expected a list of strings"),
+    ("n_turns", 3.5, "n_turns: expected an integer >= 0"),
+    ("period_s", -45.0, "period_s: expected a positive number"),
+    ("sigma", {"ke_QQ": 1e-17}, "sigma.ke_QQ: unknown field"),
+    ("correlation", [[1.0]], "correlation: expected a 5x5 matrix"),
+    ("days", [1.0, "2"], "days[1]: expected a finite number"),
+    ("sigma_vs_days", {"ke_XY": [1.0]}, "sigma_vs_days.ke_XY: expected a list of numbers or "
+                                        "nulls of length 16"),
+    ("decoupling_days", "soon", "decoupling_days: expected a finite number"),
+    ("targets", [{"name": "ke_XY", "sigma_target": 0.0, "days": None,
+                  "horizon_days": 730.0}], "targets[0].sigma_target: expected a positive"),
+])
+def test_result_from_dict_names_the_bad_field(long_plan, field, value, expected):
+    d = json.loads(json.dumps(long_plan.to_dict()))
+    d[field] = value
+    with pytest.raises(InputFileError, match=re.escape(f"plan.json: {expected}")):
+        PlanResult.from_dict(d, source="plan.json")
+    del d[field]
+    if field not in ("extra", "decoupling_days", "fringe_format", "fringe_format_version"):
+        with pytest.raises(InputFileError, match=re.escape(f"plan.json: {field}: missing")):
+            PlanResult.from_dict(d, source="plan.json")
 
 
 def test_lab_c0_with_ke_zz_is_refused():

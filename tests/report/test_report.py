@@ -23,6 +23,7 @@ from hypothesis import strategies as st
 
 from fringe.cli import main
 from fringe.errors import ConfigError, InputFileError
+from fringe.io.fit_result import FitResult
 from fringe.report.documents import headline
 from fringe.report.figures.fit import amplitude_spectrum, binned_by_phase, regular_grid
 from fringe.report.inputs import load_comparison, load_fit
@@ -111,10 +112,11 @@ def test_coefficient_table_markdown_golden():
 
 
 def test_headline_picks_largest_ke_bound():
-    fit = {"theory": "sme", "coefficients": {
+    fit = FitResult.from_dict({"fringe_format": "fit", "fringe_format_version": 2,
+                               "theory": "sme", "units": "Hz", "coefficients": {
         "ke_XY": {"value": 1e-17, "sigma": 1e-17},            # bound 2.96e-17
         "ke_ZZ": {"value": -2e-17, "sigma": 2e-17},           # bound 5.92e-17 (largest ke)
-        "ko_XY": {"value": 0.0, "sigma": 1e-13}}}             # larger, but not a ke_*
+        "ko_XY": {"value": 0.0, "sigma": 1e-13}}})            # larger, but not a ke_*
     h = headline(fit)
     assert h["quantity"] == "ke_ZZ"
     assert h["bound_95"] == pytest.approx(2e-17 + 1.96 * 2e-17, rel=1e-15)
@@ -202,14 +204,12 @@ def test_stored_example_is_reproducible_and_small(tmp_path):
     spec.loader.exec_module(mod)
     new_json, new_turns = mod.main(tmp_path)
     old, new = load_fit(FIT), load_fit(new_json)
-    assert new["warnings"] == old["warnings"]
-    for name, e in old["coefficients"].items():
-        assert new["coefficients"][name]["value"] == pytest.approx(e["value"], rel=1e-12)
-        assert new["coefficients"][name]["sigma"] == pytest.approx(e["sigma"], rel=1e-12)
-    np.testing.assert_allclose(new["covariance"]["matrix"], old["covariance"]["matrix"],
-                               rtol=1e-12)
-    np.testing.assert_allclose(new["harmonics"]["value"], old["harmonics"]["value"],
-                               rtol=1e-12)
+    assert new.warnings == old.warnings
+    for name, e in old.coefficients.items():
+        assert new.coefficients[name].value == pytest.approx(e.value, rel=1e-12)
+        assert new.coefficients[name].sigma == pytest.approx(e.sigma, rel=1e-12)
+    np.testing.assert_allclose(new.covariance.matrix, old.covariance.matrix, rtol=1e-12)
+    np.testing.assert_allclose(new.harmonics.value, old.harmonics.value, rtol=1e-12)
     with h5py.File(TURNS) as a, h5py.File(new_turns) as b:
         for name in a["turns"]:
             np.testing.assert_allclose(a["turns"][name][()], b["turns"][name][()], rtol=1e-12)

@@ -20,6 +20,7 @@ functions.
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
@@ -28,6 +29,9 @@ from fringe.constants import OMEGA_EARTH_RAD_S, OMEGA_ORBIT_RAD_S, STELLAR_DAY_S
 from fringe.errors import ConfigError
 from fringe.linalg import correlation_from_covariance
 from fringe.noise.allan import overlapping_adev
+
+if TYPE_CHECKING:
+    from fringe.io.fit_result import FitResult
 
 __all__ = ["ANNUAL_CYCLES_PER_SIDEREAL_DAY", "amplitude_spectrum", "binned_by_phase",
            "new_axes", "plot_amplitude_vs_sidereal", "plot_correlation", "plot_limits",
@@ -349,23 +353,23 @@ def plot_residual_adev(t_s: ArrayLike, residuals: Mapping[str, ArrayLike], turn_
 
 # --------------------------------------------------------------------- a report's figures
 
-def report_figure_names(fit: Mapping, turns: Mapping | None) -> list[str]:
+def report_figure_names(fit: FitResult, turns: Mapping | None) -> list[str]:
     """Names of the figures :func:`report_figures` makes for these inputs, in order."""
     names = ["amplitudes", "spectrum", "residual_adev"] if turns is not None else []
     names.append("limits")
-    if len(fit["covariance"]["names"]) >= 2:
+    if len(fit.covariance.names) >= 2:
         names.append("correlation")
     return names
 
 
-def report_figures(fit: Mapping, turns: Mapping | None, comparison: Sequence[Mapping] = ()
+def report_figures(fit: FitResult, turns: Mapping | None, comparison: Sequence[Mapping] = ()
                    ) -> list[tuple[str, str, object]]:
     """Every figure a report shows, as ``(name, caption, Figure)``.
 
     Parameters
     ----------
-    fit : mapping
-        Validated fit result dict (``units``, ``coefficients``, ``covariance``, optional
+    fit : FitResult
+        The checked fit result (``units``, ``coefficients``, ``covariance``, optional
         ``harmonics``).
     turns : mapping or None
         Accepted per-turn arrays (``t_mid_s``, ``phi_rad``, ``C``, ``B``, ``sigma_C``,
@@ -374,10 +378,10 @@ def report_figures(fit: Mapping, turns: Mapping | None, comparison: Sequence[Map
     comparison : sequence of mapping
         Earlier results ``{"name", "value", "sigma", "citation"}`` for the limits figure.
     """
-    units = fit["units"]
+    units = fit.units
     out = []
-    h = fit.get("harmonics")
-    hmap = dict(zip(h["names"], h["value"], strict=True)) if h else None
+    h = fit.harmonics
+    hmap = dict(zip(h.names, h.value, strict=True)) if h is not None else None
     if turns is not None:
         t = turns
         axes = new_axes(figsize=(11.5, 4.0), ncols=2)
@@ -409,12 +413,12 @@ def report_figures(fit: Mapping, turns: Mapping | None, comparison: Sequence[Map
                     "(rejected and missing turns excluded, not bridged). Error bars: ADEV/√N of "
                     f"the independent terms. Unit: that of the observable ({units}).",
                     ax.figure))
-    coefs = fit["coefficients"]
+    coefs = fit.coefficients
     entries = []
     for n in dict.fromkeys(list(coefs) + [e["name"] for e in comparison]):
         if n in coefs:
-            entries.append({"label": f"{n} (this work)", "value": coefs[n]["value"],
-                            "sigma": coefs[n]["sigma"], "ours": True})
+            entries.append({"label": f"{n} (this work)", "value": coefs[n].value,
+                            "sigma": coefs[n].sigma, "ours": True})
         entries += [{"label": f"{n}: {e['citation'][:40]}", "value": e["value"],
                      "sigma": e["sigma"], "ours": False} for e in comparison if e["name"] == n]
     ax = plot_limits(entries)
@@ -423,8 +427,8 @@ def report_figures(fit: Mapping, turns: Mapping | None, comparison: Sequence[Map
                 + (" beside the user-supplied earlier results (grey; citations as given by the "
                    "user, not checked by fringe)" if comparison else "")
                 + "; log scale. The tick marks |value|.", ax.figure))
-    cov = fit["covariance"]
-    if len(cov["names"]) >= 2:
-        ax = plot_correlation(cov["names"], cov["matrix"])
+    cov = fit.covariance
+    if len(cov.names) >= 2:
+        ax = plot_correlation(cov.names, cov.matrix)
         out.append(("correlation", "Correlation matrix of the free coefficients.", ax.figure))
     return out

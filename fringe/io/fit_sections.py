@@ -1,0 +1,372 @@
+"""The parts of a fit result (:class:`~fringe.io.fit_result.FitResult`), each a frozen record
+with ``to_dict()`` (the JSON of the result file, ``docs/fit.md``) and a validating ``read()``.
+
+* :class:`Estimate`: a value with its 1-sigma uncertainty (coefficients, nuisances);
+* :class:`Covariance`: names and their covariance matrix (a tuple of rows);
+* :class:`Harmonics`: the stage-2 C10 harmonics C0 ... Bc2;
+* :class:`Stage1`: the per-turn demodulation's counts, turn period and noise level;
+* :class:`Statistics`: reduced chi^2, degrees of freedom, the uncertainty mode;
+* :class:`FitInput`: the run file fitted (path, SHA-256, samples);
+* :class:`OneStage`: the one-stage cross-check;
+* :class:`FitWarning`: a warning the fit raised, as a named record.
+
+``read(fields, key)`` takes a :class:`~fringe.io.records.Fields` view of the enclosing object
+and raises :class:`~fringe.errors.InputFileError` naming the file and the dotted field. Numbers
+are kept as the file wrote them (an int stays an int); JSON null, where allowed, is NaN.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from fringe.io.records import Fields, FrozenMap, freeze
+
+__all__ = ["Covariance", "Estimate", "FitInput", "FitWarning", "Harmonics", "OneStage",
+           "Stage1", "Statistics", "read_estimates"]
+
+
+def _set(obj, name: str, value) -> None:
+    object.__setattr__(obj, name, value)
+
+
+def _omit_none(d: dict) -> dict:
+    return {k: v for k, v in d.items() if v is not None}
+
+
+@dataclass(frozen=True)
+class Estimate:
+    """A value and its 1-sigma uncertainty, in the unit of the quantity."""
+
+    value: float
+    sigma: float
+
+    @property
+    def finite(self) -> bool:
+        """Both numbers finite (a nuisance may have been written as null)."""
+        return math.isfinite(self.value) and math.isfinite(self.sigma)
+
+    def to_dict(self) -> dict:
+        return {"value": self.value, "sigma": self.sigma}
+
+    @classmethod
+    def read(cls, f: Fields, key: str, *, null: bool = False) -> Estimate:
+        e = f.sub(key)
+        e.unknown(("value", "sigma"))
+        return cls(e.number("value", null=null),
+                   e.number("sigma", null=null, minimum=0.0))
+
+
+def read_estimates(f: Fields, key: str, *, required: bool = True, nonempty: bool = False,
+                   null: bool = False) -> FrozenMap | None:
+    """An object {NAME: {value, sigma}} at ``key`` as a FrozenMap of :class:`Estimate`."""
+    e = f.sub(key, required=required)
+    if e is None:
+        return None
+    if nonempty and not e.data:
+        raise f.error(key, "a non-empty object {NAME: {value, sigma}}", e.data)
+    return FrozenMap((name, Estimate.read(e, name, null=null)) for name, _ in e.items())
+
+
+@dataclass(frozen=True)
+class Covariance:
+    """Covariance of named quantities: ``matrix[i][j]`` of ``names[i]``, ``names[j]`` (a tuple
+    of rows; :meth:`array` gives a numpy copy)."""
+
+    names: tuple[str, ...]
+    matrix: tuple[tuple[float, ...], ...]
+
+    def __post_init__(self):
+        m = self.matrix.tolist() if isinstance(self.matrix, np.ndarray) else self.matrix
+        _set(self, "names", tuple(self.names))
+        _set(self, "matrix", tuple(tuple(row) for row in m))
+
+    def array(self) -> np.ndarray:
+        """The matrix as a new float array, (n, n)."""
+        return np.array(self.matrix, dtype=float)
+
+    @classmethod
+    def diagonal(cls, estimates: Mapping[str, Estimate]) -> Covariance:
+        """Zero correlations: sigma^2 on the diagonal."""
+        names = tuple(estimates)
+        return cls(names, tuple(tuple(estimates[a].sigma ** 2 if a == b else 0.0
+                                      for b in names) for a in names))
+
+    def to_dict(self) -> dict:
+        return {"names": list(self.names), "matrix": [list(r) for r in self.matrix]}
+
+    @classmethod
+    def read(cls, f: Fields, key: str, order: tuple[str, ...], *, required: bool = True
+             ) -> Covariance | None:
+        """Read and reorder to ``order`` (the names must be those of ``order``)."""
+        c = f.sub(key, required=required)
+        if c is None:
+            return None
+        c.unknown(("names", "matrix"))
+        names = c.strings("names")
+        if sorted(names) != sorted(order) or len(set(names)) != len(names):
+            raise c.error("names", f"the names of the free coefficients {list(order)}",
+                          list(names))
+        m = c.matrix("matrix", len(names))
+        idx = [names.index(n) for n in order]
+        return cls(order, tuple(tuple(m[i][j] for j in idx) for i in idx))
+
+
+@dataclass(frozen=True)
+class Harmonics:
+    """The stage-2 C10 harmonics (C0, Cs1, ..., Bc2), unit of the observable.
+
+    ``covariance`` (rows in the order of ``names``), ``chi2_reduced`` and ``units`` are None
+    when a file does not state them.
+    """
+
+    names: tuple[str, ...]
+    value: tuple[float, ...]
+    sigma: tuple[float, ...]
+    covariance: tuple[tuple[float, ...], ...] | None = None
+    chi2_reduced: float | None = None
+    units: str | None = None
+
+    def __post_init__(self):
+        for name in ("names", "value", "sigma"):
+            _set(self, name, tuple(getattr(self, name)))
+        if self.covariance is not None:
+            _set(self, "covariance", tuple(tuple(r) for r in self.covariance))
+
+    def to_dict(self) -> dict:
+        return _omit_none({"names": list(self.names), "value": list(self.value),
+                           "sigma": list(self.sigma),
+                           "covariance": None if self.covariance is None
+                           else [list(r) for r in self.covariance],
+                           "chi2_reduced": self.chi2_reduced, "units": self.units})
+
+    @classmethod
+    def read(cls, f: Fields, key: str) -> Harmonics | None:
+        h = f.sub(key, required=False)
+        if h is None:
+            return None
+        h.unknown(("names", "value", "sigma", "covariance", "chi2_reduced", "units"))
+        names = h.strings("names")
+        return cls(names, h.numbers("value", length=len(names)),
+                   h.numbers("sigma", length=len(names), minimum=0.0),
+                   h.matrix("covariance", len(names), required=False),
+                   h.number("chi2_reduced", required=False, null=True),
+                   h.string("units", required=False))
+
+
+#: Fields of ``stage1`` other than the per-status counts.
+_STAGE1_FIELDS = ("n_blocks", "turn_period_s", "residual_rms", "white_noise_per_sample",
+                  "settings", "glitch_rule")
+
+
+@dataclass(frozen=True)
+class Stage1:
+    """The per-turn demodulation (stage 1) as the fit reports it.
+
+    Attributes
+    ----------
+    n_blocks : int
+        Turns (blocks) cut from the record.
+    counts : mapping of str to int
+        Turns per outcome, ``n_accepted`` and ``n_rejected_<reason>`` (partial, glitch), in the
+        order written.
+    turn_period_s : float
+        Median turn period, s.
+    residual_rms, white_noise_per_sample : float
+        Median residual RMS of the accepted turns (the white per-sample level), signal units.
+    settings : mapping or None
+        The demodulation settings (``DemodSettings.to_dict()``).
+    glitch_rule : str or None
+        The glitch rejection rule in words.
+    """
+
+    n_blocks: int
+    counts: Mapping[str, int]
+    turn_period_s: float
+    residual_rms: float
+    white_noise_per_sample: float
+    settings: Mapping | None = None
+    glitch_rule: str | None = None
+
+    def __post_init__(self):
+        _set(self, "counts", FrozenMap(self.counts))
+        if self.settings is not None:
+            _set(self, "settings", freeze(self.settings))
+
+    @property
+    def n_accepted(self) -> int:
+        return self.counts["n_accepted"]
+
+    @property
+    def n_rejected_partial(self) -> int | None:
+        return self.counts.get("n_rejected_partial")
+
+    @property
+    def n_rejected_glitch(self) -> int | None:
+        return self.counts.get("n_rejected_glitch")
+
+    def to_dict(self) -> dict:
+        return _omit_none({"n_blocks": self.n_blocks, **self.counts,
+                           "turn_period_s": self.turn_period_s,
+                           "residual_rms": self.residual_rms,
+                           "white_noise_per_sample": self.white_noise_per_sample,
+                           "settings": self.settings, "glitch_rule": self.glitch_rule})
+
+    @classmethod
+    def read(cls, f: Fields, key: str) -> Stage1 | None:
+        s = f.sub(key, required=False)
+        if s is None:
+            return None
+        counts = {}
+        for k, _ in s.items():
+            if k == "n_accepted" or k.startswith("n_rejected_"):
+                counts[k] = s.integer(k)
+        s.unknown(tuple(counts) + _STAGE1_FIELDS)
+        n = s.integer("n_blocks")
+        s.integer("n_accepted")                     # required
+        if sum(counts.values()) > n:
+            raise s.error("n_blocks", f"at least the sum of the counts ({sum(counts.values())})",
+                          n)
+        return cls(n, counts, s.number("turn_period_s", positive=True),
+                   s.number("residual_rms", null=True, minimum=0.0),
+                   s.number("white_noise_per_sample", null=True, minimum=0.0),
+                   s.record("settings", required=False),
+                   s.string("glitch_rule", required=False))
+
+
+@dataclass(frozen=True)
+class Statistics:
+    """Goodness of fit of stage 3: reduced chi^2 (NaN: undefined), degrees of freedom, the
+    uncertainty mode, the accepted turns fitted (None when a file does not state it)."""
+
+    chi2_reduced: float
+    dof: int
+    uncertainty: str
+    n_turns_used: int | None = None
+
+    def to_dict(self) -> dict:
+        return _omit_none({"chi2_reduced": self.chi2_reduced, "dof": self.dof,
+                           "uncertainty": self.uncertainty, "n_turns_used": self.n_turns_used})
+
+    @classmethod
+    def read(cls, f: Fields, key: str) -> Statistics | None:
+        s = f.sub(key, required=False)
+        if s is None:
+            return None
+        s.unknown(("chi2_reduced", "dof", "uncertainty", "n_turns_used"))
+        return cls(s.number("chi2_reduced", null=True), s.integer("dof"),
+                   s.string("uncertainty"), s.integer("n_turns_used", required=False))
+
+
+@dataclass(frozen=True)
+class FitInput:
+    """The run file fitted: its path as given, SHA-256 (hex) and number of samples (None
+    when a file does not state it)."""
+
+    path: str
+    sha256: str
+    n_samples: int | None = None
+
+    def to_dict(self) -> dict:
+        return _omit_none({"path": self.path, "sha256": self.sha256,
+                           "n_samples": self.n_samples})
+
+    @classmethod
+    def read(cls, f: Fields, key: str) -> FitInput | None:
+        s = f.sub(key, required=False)
+        if s is None:
+            return None
+        s.unknown(("path", "sha256", "n_samples"))
+        return cls(s.string("path"), s.string("sha256"), s.integer("n_samples", required=False))
+
+
+@dataclass(frozen=True)
+class OneStage:
+    """The one-stage cross-check (:func:`fringe.fit.onestage.one_stage_fit`): coefficients and
+    nuisances, the coefficients' covariance, reduced chi^2 against the stage-1 white level
+    (NaN: undefined), the unit-weight noise RMS (signal units), dof, samples and turns used."""
+
+    coefficients: Mapping[str, Estimate]
+    nuisance: Mapping[str, Estimate]
+    covariance: Covariance
+    chi2_reduced: float
+    noise_rms: float
+    dof: int
+    n_samples: int
+    n_turns_used: int
+
+    def __post_init__(self):
+        _set(self, "coefficients", FrozenMap(self.coefficients))
+        _set(self, "nuisance", FrozenMap(self.nuisance))
+
+    @classmethod
+    def from_fit(cls, d: Mapping) -> OneStage:
+        """From the dict :func:`~fringe.fit.onestage.one_stage_fit` returns (no checks)."""
+        def est(m):
+            return {n: Estimate(e["value"], e["sigma"]) for n, e in m.items()}
+        return cls(est(d["coefficients"]), est(d["nuisance"]), Covariance(**d["covariance"]),
+                   d["chi2_reduced"], d["noise_rms"], d["dof"], d["n_samples"],
+                   d["n_turns_used"])
+
+    def to_dict(self) -> dict:
+        return {"coefficients": {n: e.to_dict() for n, e in self.coefficients.items()},
+                "nuisance": {n: e.to_dict() for n, e in self.nuisance.items()},
+                "covariance": self.covariance.to_dict(), "chi2_reduced": self.chi2_reduced,
+                "noise_rms": self.noise_rms, "dof": self.dof, "n_samples": self.n_samples,
+                "n_turns_used": self.n_turns_used}
+
+    @classmethod
+    def read(cls, f: Fields, key: str) -> OneStage | None:
+        """None when absent or ``{}`` (the fit ran without the cross-check)."""
+        s = f.sub(key, required=False)
+        if s is None or not s.data:
+            return None
+        s.unknown(("coefficients", "nuisance", "covariance", "chi2_reduced", "noise_rms",
+                   "dof", "n_samples", "n_turns_used"))
+        coefs = read_estimates(s, "coefficients", nonempty=True, null=True)
+        return cls(coefs, read_estimates(s, "nuisance", null=True),
+                   Covariance.read(s, "covariance", tuple(coefs)),
+                   s.number("chi2_reduced", null=True),
+                   s.number("noise_rms", null=True, minimum=0.0), s.integer("dof"),
+                   s.integer("n_samples"), s.integer("n_turns_used"))
+
+
+@dataclass(frozen=True)
+class FitWarning:
+    """A warning the fit raised: a short stable ``code`` (e.g. ``"b0-lab-fixed"``), the
+    ``sentence`` a person reads, and the numbers of the sentence unrounded (``values``: name to
+    number, unit as in the sentence). ``str()`` gives the sentence.
+
+    Codes: ``b0-lab-fixed`` (B0 or lab_B0 inconsistent with zero), ``c0-lab-fixed`` (C0
+    inconsistent with zero, ke_ZZ free), ``near-degenerate`` (correlations above 0.95);
+    ``unnamed`` for a plain-text warning of a version-1 result file.
+    """
+
+    code: str
+    sentence: str
+    values: Mapping[str, float] = field(default_factory=FrozenMap)
+
+    def __post_init__(self):
+        _set(self, "values", FrozenMap(self.values))
+
+    def __str__(self) -> str:
+        return self.sentence
+
+    def to_dict(self) -> dict:
+        return {"code": self.code, "message": self.sentence, "values": dict(self.values)}
+
+    @classmethod
+    def read(cls, f: Fields, key: str, version: int) -> FitWarning:
+        """The entry ``key`` of the warnings (a string in version 1, an object in 2)."""
+        if version == 1:
+            if not isinstance(f.data[key], str):
+                raise f.error(key, "a string (version-1 warning)", f.data[key])
+            return cls("unnamed", f.data[key])
+        w = f.sub(key)
+        w.unknown(("code", "message", "values"))
+        values = w.sub("values")
+        return cls(w.string("code"), w.string("message"),
+                   {k: values.number(k, null=True) for k, _ in values.items()})
