@@ -41,7 +41,8 @@ _SPELLING = re.compile(r"(?<![\w./\\-])(" + "|".join(re.escape(a) for a, _ in OP
 
 def as_options(message: str) -> str:
     """``message`` with the library's field and argument names spelled as the command's
-    options (:data:`OPTION_SPELLING`)."""
+    options (:data:`OPTION_SPELLING`).
+    """
     table = dict(OPTION_SPELLING)
     return _SPELLING.sub(lambda m: table[m.group(1)], message)
 

@@ -45,7 +45,8 @@ def noise_level(residual_rms: NDArray) -> NDArray:
     NOISE_WINDOW_TURNS turns (signal units; a local per-sample level that follows slow changes
     of the noise but not each turn's own scatter: weighting by a turn's own residual variance,
     with nu ~ 40 degrees of freedom, would inflate the estimator's variance by
-    (nu - 2)/(nu - 4) and correlate weights with the data)."""
+    (nu - 2)/(nu - 4) and correlate weights with the data).
+    """
     from scipy.ndimage import median_filter
 
     rms = np.asarray(residual_rms, float)
@@ -57,7 +58,8 @@ def segment_noise_levels(status: NDArray, residual_rms: NDArray, segment_turns: 
     """:func:`noise_level` of all accepted turns, one segment of ``segment_turns`` rows at a
     time: yields each segment's accepted turns' levels. Each segment is filtered with at least
     half a window of accepted turns on each side (or up to the record's end), so the values
-    equal those of the whole-record filter while only a segment's worth is in memory."""
+    equal those of the whole-record filter while only a segment's worth is in memory.
+    """
     from scipy.ndimage import median_filter
 
     good = status == 0
@@ -103,7 +105,8 @@ def _design_rows(jc, jb, c, b):
 def design_labels(names: tuple[str, ...], settings) -> list[str]:
     """Labels of the stage-3 columns: the free coefficients, then the nuisances
     (lab_B0, lab_C0, aux_CHANNEL) that ``settings`` (a :class:`fringe.fit.FitSettings`) asks
-    for; shared with the one-stage fit."""
+    for; shared with the one-stage fit.
+    """
     labels = list(names)
     if settings.lab_b0:
         labels.append("lab_B0")
@@ -118,7 +121,8 @@ def design_labels(names: tuple[str, ...], settings) -> list[str]:
 def design_columns(setup, t, names, table, sel, settings) -> tuple[NDArray, NDArray]:
     """Per-turn design of the free coefficients and the nuisance columns
     (:func:`design_labels`) for the rows ``sel`` of ``table`` (mean times t): (jc, jb), each
-    (n, number of labels)."""
+    (n, number of labels).
+    """
     labels = design_labels(names, settings)
     k, kk = len(names), len(labels)
     jc, jb = np.empty((t.size, kk)), np.empty((t.size, kk))

@@ -61,5 +61,6 @@ class FitSettings:
 
 def default_free(setup: Setup, span_days: float) -> tuple[str, ...]:
     """The default free coefficients of a theory for a record of ``span_days``
-    (:meth:`fringe.theories.base.Theory.default_free`)."""
+    (:meth:`fringe.theories.base.Theory.default_free`).
+    """
     return setup.theory.default_free(span_days, setup.apparatus)

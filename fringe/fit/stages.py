@@ -53,7 +53,8 @@ logger = logging.getLogger(__name__)
 class TurnModels:
     """The fitted model (C, B) of the accepted turns, per segment of the turn table
     (:meth:`fringe.demodulate.turn_store.TurnStore.bounds`): from a row cache (linear fits) or whole
-    arrays (medium)."""
+    arrays (medium).
+    """
 
     cache: RowCache | None = None
     model_c: NDArray | None = None
@@ -61,7 +62,8 @@ class TurnModels:
 
     def segment(self, i: int, first: int, n: int) -> tuple[NDArray, NDArray]:
         """Model C and B of the n accepted turns of segment i (``first``: accepted turns
-        before it)."""
+        before it).
+        """
         if self.cache is not None:
             got = self.cache.get(i, ("model_c", "model_b"))
             if "model_c" not in got:
@@ -76,7 +78,8 @@ def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSe
     """Stages 2 and 3 for a linear theory (see module docstring) over the turn table (in
     memory, or a :class:`~fringe.demodulate.turn_store.TurnStore` read a segment at a time); returns the
     harmonics, the coefficients and the row cache that holds each segment's fitted model
-    (``model_c``, ``model_b``)."""
+    (``model_c``, ``model_b``).
+    """
     store = table if isinstance(table, TurnStore) else TurnStore.in_memory(table)
     labels = design_labels(free, settings)
     p = run_passes(setup, store, settings, free, scratch)

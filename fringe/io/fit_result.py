@@ -137,7 +137,8 @@ class FitResult:
 
     def to_dict(self) -> dict:
         """The result file's JSON (plain types; non-finite numbers as null). Parts that are
-        None are left out, except ``one_stage``, written ``{}`` when it was not run."""
+        None are left out, except ``one_stage``, written ``{}`` when it was not run.
+        """
         out = {"fringe_format": FORMAT, "fringe_format_version": FORMAT_VERSION}
         for f in fields(self):
             value = getattr(self, f.name)
@@ -216,7 +217,8 @@ class FitResult:
 
     def summary(self) -> str:
         """Text for a person: the input, the turns, the uncertainty mode, a table of the
-        coefficients (fixed and nuisances too), limits, the cross-check, warnings and notes."""
+        coefficients (fixed and nuisances too), limits, the cross-check, warnings and notes.
+        """
         s1, st, nan = self.stage1, self.statistics, float("nan")
         path = self.input.path if self.input else "?"
         span = f"{self.span_s / 86400:.2f} d" if self.span_s is not None else "? d"

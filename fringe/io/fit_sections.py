@@ -74,7 +74,8 @@ def read_estimates(f: Fields, key: str, *, required: bool = True, nonempty: bool
 @dataclass(frozen=True)
 class Covariance:
     """Covariance of named quantities: ``matrix[i][j]`` of ``names[i]``, ``names[j]`` (a tuple
-    of rows; :meth:`array` gives a numpy copy)."""
+    of rows; :meth:`array` gives a numpy copy).
+    """
 
     names: tuple[str, ...]
     matrix: tuple[tuple[float, ...], ...]
@@ -240,7 +241,8 @@ class Stage1:
 @dataclass(frozen=True)
 class Statistics:
     """Goodness of fit of stage 3: reduced chi^2 (NaN: undefined), degrees of freedom, the
-    uncertainty mode, the accepted turns fitted (None when a file does not state it)."""
+    uncertainty mode, the accepted turns fitted (None when a file does not state it).
+    """
 
     chi2_reduced: float
     dof: int
@@ -264,7 +266,8 @@ class Statistics:
 @dataclass(frozen=True)
 class FitInput:
     """The run file fitted: its path as given, SHA-256 (hex) and number of samples (None
-    when a file does not state it)."""
+    when a file does not state it).
+    """
 
     path: str
     sha256: str
@@ -287,7 +290,8 @@ class FitInput:
 class OneStage:
     """The one-stage cross-check (:func:`fringe.fit.onestage.one_stage_fit`): coefficients and
     nuisances, the coefficients' covariance, reduced chi^2 against the stage-1 white level
-    (NaN: undefined), the unit-weight noise RMS (signal units), dof, samples and turns used."""
+    (NaN: undefined), the unit-weight noise RMS (signal units), dof, samples and turns used.
+    """
 
     coefficients: Mapping[str, Estimate]
     nuisance: Mapping[str, Estimate]

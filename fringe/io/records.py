@@ -50,7 +50,8 @@ class FrozenMap(Mapping):
 
 def freeze(obj):
     """``obj`` with every dict (mapping) made a :class:`FrozenMap` and every list a tuple,
-    nested; numpy arrays become tuples of Python numbers; other values are kept."""
+    nested; numpy arrays become tuples of Python numbers; other values are kept.
+    """
     if isinstance(obj, Mapping):
         return FrozenMap((k, freeze(v)) for k, v in obj.items())
     if isinstance(obj, (list, tuple)):
@@ -62,7 +63,8 @@ def freeze(obj):
 
 def plain(obj):
     """Plain JSON types: mappings to dicts (string keys), sequences to lists, numpy scalars to
-    Python numbers, non-finite floats to None; a record with ``to_dict()`` gives that."""
+    Python numbers, non-finite floats to None; a record with ``to_dict()`` gives that.
+    """
     if hasattr(obj, "to_dict") and not isinstance(obj, type):
         return plain(obj.to_dict())
     if isinstance(obj, Mapping):
@@ -140,7 +142,8 @@ class Fields:
 
     def take(self, key: str, required: bool, what: str):
         """The value at ``key``; "missing" (or "expected WHAT, got None" for a null) when
-        ``required``, else None."""
+        ``required``, else None.
+        """
         v = self.data.get(key)
         if v is None and required:
             raise self.error(key, what, v) if key in self.data else \
@@ -157,7 +160,8 @@ class Fields:
 
     def elements(self, key: str, *, required: bool = True) -> Fields | None:
         """The JSON list at ``key`` as :class:`Fields` keyed ``[0]``, ``[1]``, ... (None when
-        absent and optional)."""
+        absent and optional).
+        """
         v = self.take(key, required, "a list")
         if v is None:
             return None
@@ -177,7 +181,8 @@ class Fields:
     def number(self, key: str, *, required: bool = True, null: bool = False,
                minimum: float | None = None, positive: bool = False) -> float | None:
         """A number (an int is kept as an int, as the file wrote it); with ``null``, JSON null
-        is a non-finite value (returned as NaN) and a present null is not 'missing'."""
+        is a non-finite value (returned as NaN) and a present null is not 'missing'.
+        """
         if null and key in self.data and self.data[key] is None:
             return math.nan
         v = self.take(key, required, "a finite number")

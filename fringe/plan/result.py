@@ -39,7 +39,8 @@ def _floats(f: Fields, key: str, *, null: float = math.inf, length: int | None =
 
 def _curves(f: Fields, key: str, names, length: int) -> dict:
     """An object {NAME: list of ``length`` numbers or nulls} (NAME among ``names`` unless
-    None)."""
+    None).
+    """
     c = f.sub(key)
     if names is not None:
         c.unknown(tuple(names))
@@ -185,7 +186,8 @@ class PlanResult:
         """Inverse of :meth:`to_dict`: checks every field and raises
         :class:`~fringe.errors.InputFileError` "SOURCE: FIELD: EXPECTED" for the first one
         missing, unknown or of the wrong kind (null sigmas are infinite, null correlations
-        NaN)."""
+        NaN).
+        """
         f = Fields(source, data)
         if data.get("fringe_format") != cls.FORMAT:
             raise f.error("fringe_format", "'plan'", data.get("fringe_format"))

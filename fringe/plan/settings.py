@@ -1,5 +1,6 @@
 """Settings of the forecast (:mod:`fringe.plan`): the scenario's ``[plan]`` section and the
-command-line overrides, validated into :class:`PlanSettings`."""
+command-line overrides, validated into :class:`PlanSettings`.
+"""
 
 from __future__ import annotations
 

@@ -274,7 +274,8 @@ def markdown_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) ->
 
 def latex_report(c: ReportContent) -> str:
     """report.tex: a standalone article with the headline paragraph, the warnings and the
-    coefficient table (plain tabular; compiles with pdflatex and no extra packages)."""
+    coefficient table (plain tabular; compiles with pdflatex and no extra packages).
+    """
     table = to_latex(report_tables(c.fit, c.comparison, "latex")["coefficients"])
     out = [r"\documentclass{article}", r"\begin{document}",
            r"\section*{" + latex_escape(f"Result of the {c.fit.theory} fit") + "}",

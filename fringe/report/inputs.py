@@ -28,7 +28,8 @@ COMPARE_COLUMNS = ("name", "value", "sigma", "citation")
 
 def load_fit(path) -> FitResult:
     """The fit result in ``path``, read and checked by
-    :func:`~fringe.io.fit_result.read_fit_result`."""
+    :func:`~fringe.io.fit_result.read_fit_result`.
+    """
     return read_fit_result(path)
 
 

@@ -90,7 +90,8 @@ class RmsSolution:
     @property
     def correlation(self) -> NDArray[np.float64]:
         """Correlation matrix of the deviations (NaN where a variance is zero;
-        :func:`fringe.linalg.correlation_from_covariance`)."""
+        :func:`fringe.linalg.correlation_from_covariance`).
+        """
         return correlation_from_covariance(self.covariance)
 
     def to_dict(self) -> dict:

@@ -16,7 +16,6 @@ from pathlib import Path
 import numpy as np
 import pytest
 from click.testing import CliRunner
-from tests.helpers.runs import simulate_run
 
 from fringe.cli import main
 from fringe.cli.common import OPTION_SPELLING, as_options
@@ -28,6 +27,7 @@ from fringe.io.fit_result import FORMAT_VERSION, FitResult, read_fit_result
 from fringe.io.fit_sections import Estimate, FitWarning
 from fringe.io.records import FrozenMap
 from fringe.io.turns_file import read_accepted_turns, read_turns, write_turns
+from tests.helpers.runs import simulate_run
 
 DATA = Path(__file__).resolve().parents[1] / "data"
 EXAMPLE = json.loads((DATA / "fit_example.json").read_text("utf-8"))   # format version 1
