@@ -40,8 +40,9 @@ _SPELLING = re.compile(r"(?<![\w./\\-])(" + "|".join(re.escape(a) for a, _ in OP
 
 
 def as_options(message: str) -> str:
-    """``message`` with the library's field and argument names spelled as the command's
-    options (:data:`OPTION_SPELLING`).
+    """Spell the library's field and argument names in ``message`` as the command's options.
+
+    The spellings come from :data:`OPTION_SPELLING`.
     """
     table = dict(OPTION_SPELLING)
     return _SPELLING.sub(lambda m: table[m.group(1)], message)
@@ -125,5 +126,6 @@ class RegistryChoice(click.Choice):
 
     @property
     def choices(self) -> tuple[str, ...]:
+        """The registry's names, imported on first use."""
         module, attribute = self.registry
         return tuple(getattr(importlib.import_module(module), attribute))

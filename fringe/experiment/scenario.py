@@ -247,8 +247,9 @@ def scenario_from_dict(doc: dict, source: str = "scenario") -> Scenario:
 
 def parse_assignments(items: tuple[str, ...], source: str = "assignments"
                       ) -> dict[str, float]:
-    """Parse ``NAME=VALUE`` strings into a dict of floats; errors name ``source`` (the
-    command line passes its option, e.g. ``"--set"``).
+    """Parse ``NAME=VALUE`` strings into a dict of floats.
+
+    Errors name ``source`` (the command line passes its option, e.g. ``"--set"``).
     """
     out = {}
     for item in items:

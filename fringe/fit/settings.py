@@ -1,4 +1,7 @@
-"""Settings of stages 2-3: free and fixed coefficients, uncertainty mode, nuisances, and the default free set."""
+"""Settings of stages 2-3.
+
+Free and fixed coefficients, uncertainty mode, nuisances, and the default free set.
+"""
 
 from __future__ import annotations
 
@@ -52,6 +55,7 @@ class FitSettings:
                               f"{', '.join(UNCERTAINTY_MODES)}, got {self.uncertainty!r}")
 
     def to_dict(self) -> dict:
+        """The settings as plain JSON-ready data."""
         return {"theory": self.theory, "free": list(self.free) if self.free else None,
                 "fixed": dict(self.fixed), "uncertainty": self.uncertainty,
                 "lab_b0": self.lab_b0, "lab_c0": self.lab_c0, "regress": list(self.regress),
@@ -60,7 +64,8 @@ class FitSettings:
 
 
 def default_free(setup: Setup, span_days: float) -> tuple[str, ...]:
-    """The default free coefficients of a theory for a record of ``span_days``
-    (:meth:`fringe.theories.base.Theory.default_free`).
+    """The default free coefficients of a theory for a record of ``span_days``.
+
+    See :meth:`fringe.theories.base.Theory.default_free`.
     """
     return setup.theory.default_free(span_days, setup.apparatus)

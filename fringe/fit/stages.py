@@ -18,8 +18,8 @@ over days of turns (correlated noise), or left formal. ``efficiency`` = white-no
 sigma for this record (per-sample noise = median per-turn residual RMS) / reported sigma.
 
 The linear fits visit the turn table a segment at a time (:mod:`fringe.fit.passes`), so a
-table kept in scratch files (:mod:`fringe.demodulate.turn_store`) is never whole in memory; the medium
-and rms_kt fits load it whole.
+table kept in scratch files (:mod:`fringe.demodulate.turn_store`) is never whole in memory; the
+medium and rms_kt fits load it whole.
 """
 
 from __future__ import annotations
@@ -51,9 +51,10 @@ logger = logging.getLogger(__name__)
 
 @dataclass
 class TurnModels:
-    """The fitted model (C, B) of the accepted turns, per segment of the turn table
-    (:meth:`fringe.demodulate.turn_store.TurnStore.bounds`): from a row cache (linear fits) or whole
-    arrays (medium).
+    """The fitted model (C, B) of the accepted turns, per segment of the turn table.
+
+    Segments as :meth:`fringe.demodulate.turn_store.TurnStore.bounds`; the model comes from a
+    row cache (linear fits) or whole arrays (medium).
     """
 
     cache: RowCache | None = None
@@ -61,8 +62,9 @@ class TurnModels:
     model_b: NDArray | None = None
 
     def segment(self, i: int, first: int, n: int) -> tuple[NDArray, NDArray]:
-        """Model C and B of the n accepted turns of segment i (``first``: accepted turns
-        before it).
+        """Model C and B of the n accepted turns of segment i.
+
+        ``first`` is the number of accepted turns before the segment.
         """
         if self.cache is not None:
             got = self.cache.get(i, ("model_c", "model_b"))
@@ -75,10 +77,11 @@ class TurnModels:
 def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSettings,
                      free: tuple[str, ...], scratch: Scratch | None = None
                      ) -> tuple[dict, CoefficientFit, RowCache]:
-    """Stages 2 and 3 for a linear theory (see module docstring) over the turn table (in
-    memory, or a :class:`~fringe.demodulate.turn_store.TurnStore` read a segment at a time); returns the
-    harmonics, the coefficients and the row cache that holds each segment's fitted model
-    (``model_c``, ``model_b``).
+    """Stages 2 and 3 for a linear theory (see module docstring) over the turn table.
+
+    The table is in memory, or a :class:`~fringe.demodulate.turn_store.TurnStore` read a
+    segment at a time. Returns the harmonics, the coefficients and the row cache that holds
+    each segment's fitted model (``model_c``, ``model_b``).
     """
     store = table if isinstance(table, TurnStore) else TurnStore.in_memory(table)
     labels = design_labels(free, settings)
@@ -156,8 +159,8 @@ def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettin
                  ) -> tuple[dict, CoefficientFit, tuple, TurnModels]:
     """Run stage 2 (harmonics) and stage 3 (coefficients); also the systematics diagnostics.
 
-    ``table``: the stage-1 table, or its :class:`~fringe.demodulate.turn_store.TurnStore` (the linear
-    fits read it a segment at a time; the medium and rms_kt fits load it whole). Returns the
+    ``table``: the stage-1 table, or its :class:`~fringe.demodulate.turn_store.TurnStore` (the
+    linear fits read it a segment at a time; the medium and rms_kt fits load it whole). Returns the
     harmonics, the coefficients, the free names and the fitted model per turn
     (:class:`TurnModels`).
     """

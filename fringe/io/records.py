@@ -49,8 +49,9 @@ class FrozenMap(Mapping):
 
 
 def freeze(obj):
-    """``obj`` with every dict (mapping) made a :class:`FrozenMap` and every list a tuple,
-    nested; numpy arrays become tuples of Python numbers; other values are kept.
+    """``obj`` frozen: every dict a :class:`FrozenMap`, every list a tuple, nested.
+
+    Numpy arrays become tuples of Python numbers; other values are kept.
     """
     if isinstance(obj, Mapping):
         return FrozenMap((k, freeze(v)) for k, v in obj.items())
@@ -62,8 +63,10 @@ def freeze(obj):
 
 
 def plain(obj):
-    """Plain JSON types: mappings to dicts (string keys), sequences to lists, numpy scalars to
-    Python numbers, non-finite floats to None; a record with ``to_dict()`` gives that.
+    """``obj`` in plain JSON types.
+
+    Mappings become dicts (string keys), sequences lists, numpy scalars Python numbers,
+    non-finite floats None; a record with ``to_dict()`` gives that.
     """
     if hasattr(obj, "to_dict") and not isinstance(obj, type):
         return plain(obj.to_dict())
@@ -138,11 +141,13 @@ class Fields:
         return InputFileError(self.source, self.name(key), f"expected {expected}{got}")
 
     def has(self, key: str) -> bool:
+        """Whether ``key`` is present and not null."""
         return self.data.get(key) is not None
 
     def take(self, key: str, required: bool, what: str):
-        """The value at ``key``; "missing" (or "expected WHAT, got None" for a null) when
-        ``required``, else None.
+        """The value at ``key``, or None when absent and not ``required``.
+
+        When ``required``, an absent key is "missing" and a null "expected WHAT, got None".
         """
         v = self.data.get(key)
         if v is None and required:
@@ -156,11 +161,13 @@ class Fields:
         return None if v is None else Fields(self.source, v, self.name(key))
 
     def items(self) -> Iterator[tuple[str, object]]:
+        """The raw (key, value) pairs."""
         return iter(self.data.items())
 
     def elements(self, key: str, *, required: bool = True) -> Fields | None:
-        """The JSON list at ``key`` as :class:`Fields` keyed ``[0]``, ``[1]``, ... (None when
-        absent and optional).
+        """The JSON list at ``key`` as :class:`Fields` keyed ``[0]``, ``[1]``, ....
+
+        None when absent and optional.
         """
         v = self.take(key, required, "a list")
         if v is None:
@@ -170,6 +177,7 @@ class Fields:
         return Fields(self.source, {f"[{i}]": x for i, x in enumerate(v)}, self.name(key))
 
     def string(self, key: str, *, required: bool = True, empty: bool = False) -> str | None:
+        """A string (non-empty unless ``empty``); None when absent and optional."""
         want = "a string" if empty else "a non-empty string"
         v = self.take(key, required, want)
         if v is None:
@@ -180,8 +188,10 @@ class Fields:
 
     def number(self, key: str, *, required: bool = True, null: bool = False,
                minimum: float | None = None, positive: bool = False) -> float | None:
-        """A number (an int is kept as an int, as the file wrote it); with ``null``, JSON null
-        is a non-finite value (returned as NaN) and a present null is not 'missing'.
+        """A number (an int is kept as an int, as the file wrote it).
+
+        With ``null``, JSON null is a non-finite value (returned as NaN) and a present null is
+        not 'missing'.
         """
         if null and key in self.data and self.data[key] is None:
             return math.nan
@@ -204,6 +214,7 @@ class Fields:
         return v
 
     def integer(self, key: str, *, required: bool = True, minimum: int = 0) -> int | None:
+        """An integer >= ``minimum`` (a bool is refused); None when absent and optional."""
         v = self.take(key, required, f"an integer >= {minimum}")
         if v is None:
             return None
@@ -212,6 +223,7 @@ class Fields:
         return v
 
     def strings(self, key: str, *, required: bool = True) -> tuple[str, ...] | None:
+        """A list of strings, as a tuple; None when absent and optional."""
         v = self.take(key, required, "a list of strings")
         if v is None:
             return None

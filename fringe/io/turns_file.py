@@ -1,5 +1,6 @@
-"""The per-turn amplitudes file written beside a fit result (HDF5): its columns, writer and
-its one reader.
+"""The per-turn amplitudes file written beside a fit result (HDF5).
+
+Its columns, its writer and its one reader.
 
 * :class:`TurnColumns` makes the columns of a fit a segment at a time; :func:`write_turns`
   writes them (format "turns", version 1; ``docs/fit.md``).
@@ -27,8 +28,10 @@ MIN_ACCEPTED = 4
 
 
 class TurnColumns:
-    """The per-turn columns of a fit (:data:`TURN_COLUMNS`), made a segment of the turn table
-    at a time (so a table kept in scratch files is never whole in memory).
+    """The per-turn columns of a fit (:data:`TURN_COLUMNS`).
+
+    They are made a segment of the turn table at a time, so a table kept in scratch files is
+    never whole in memory.
 
     ``segments()`` yields one dict of columns per segment; ``to_dict()`` (or indexing by a
     column name) joins them. ``close()`` (or leaving a ``with`` block) removes the fit's
@@ -48,6 +51,7 @@ class TurnColumns:
                 f"accepted{span}, units {self._setup.units!r})")
 
     def segments(self):
+        """Per segment, a dict of the turn columns (numpy arrays; see ``TURN_COLUMNS``)."""
         from fringe.frames import sidereal_angle_rad
 
         setup, first = self._setup, 0
@@ -68,6 +72,7 @@ class TurnColumns:
                    "n_valid": tab.n_valid, "residual_rms": tab.residual_rms}
 
     def to_dict(self) -> dict:
+        """All turn columns as whole numpy arrays (name to array)."""
         parts = list(self.segments())
         return {k: np.concatenate([p[k] for p in parts]) for k in TURN_COLUMNS}
 
@@ -77,6 +82,7 @@ class TurnColumns:
         return np.concatenate([p[name] for p in self.segments()])
 
     def close(self) -> None:
+        """Remove the scratch files, if any."""
         if self._scratch is not None:
             self._scratch.close()
 

@@ -38,8 +38,9 @@ def _floats(f: Fields, key: str, *, null: float = math.inf, length: int | None =
 
 
 def _curves(f: Fields, key: str, names, length: int) -> dict:
-    """An object {NAME: list of ``length`` numbers or nulls} (NAME among ``names`` unless
-    None).
+    """An object {NAME: list of ``length`` numbers or nulls}.
+
+    NAME is among ``names`` unless that is None.
     """
     c = f.sub(key)
     if names is not None:
@@ -64,6 +65,7 @@ class TargetAnswer:
     horizon_days: float
 
     def to_dict(self) -> dict:
+        """The answer as plain JSON-ready data (the inverse of :meth:`from_dict`)."""
         return {"name": self.name, "sigma_target": self.sigma_target, "days": self.days,
                 "horizon_days": self.horizon_days}
 
@@ -78,6 +80,7 @@ class TargetAnswer:
                    _number(f, "horizon_days", minimum=0.0))
 
     def text(self) -> str:
+        """One line for a person: the days to reach the target, or that it is not reached."""
         if self.days is None:
             return (f"{self.name}: sigma = {self.sigma_target:.3g} not reachable within "
                     f"{self.horizon_days:.0f} d ({self.horizon_days / 365.25:.1f} yr)")
@@ -183,8 +186,9 @@ class PlanResult:
 
     @classmethod
     def from_dict(cls, data, source="plan result") -> PlanResult:
-        """Inverse of :meth:`to_dict`: checks every field and raises
-        :class:`~fringe.errors.InputFileError` "SOURCE: FIELD: EXPECTED" for the first one
+        """Inverse of :meth:`to_dict`, checking every field.
+
+        Raises :class:`~fringe.errors.InputFileError` "SOURCE: FIELD: EXPECTED" for the first one
         missing, unknown or of the wrong kind (null sigmas are infinite, null correlations
         NaN).
         """
@@ -325,6 +329,7 @@ class MonteCarloCheck:
                    f.string("method"))
 
     def summary(self) -> str:
+        """Text for a person: forecast and Monte Carlo scatter per coefficient, and their ratio."""
         rows = [f"  {n:<9} {f:.4g}  {s:.4g}  {s / f:.3f}" for n, f, s in
                 zip(self.names, self.sigma_forecast, self.sigma_scatter, strict=True)]
         return "\n".join([f"Monte Carlo check: {self.n_campaigns} campaigns of {self.n_turns} "

@@ -1,5 +1,7 @@
-"""Settings of the forecast (:mod:`fringe.plan`): the scenario's ``[plan]`` section and the
-command-line overrides, validated into :class:`PlanSettings`.
+"""Settings of the forecast (:mod:`fringe.plan`).
+
+The scenario's ``[plan]`` section and the command-line overrides, validated into
+:class:`PlanSettings`.
 """
 
 from __future__ import annotations
@@ -100,18 +102,12 @@ def _names(value, where: str) -> tuple[str, ...]:
     return tuple(value)
 
 
-def plan_settings(scenario: Scenario, free: str | Sequence[str] | None = None,
-                  targets: dict[str, float] | None = None) -> PlanSettings:
-    """Settings from the scenario's ``[plan]`` section; ``free``/``targets`` override/add."""
-    where = f"{scenario.source}: [plan]"
-    sec = scenario.sections.get("plan", {})
-    if not isinstance(sec, dict):
-        raise ConfigError(f"{where}: expected a table")
-    sec = dict(sec)
-    theory = scenario.theory
-    if not theory.linear:
-        raise ConfigError(f"{scenario.source}: [theory] name: the plan needs a linear theory "
-                          f"(the Fisher forecast is for linear models), got {theory.name!r}")
+def _plan_free(theory, free, sec: dict, where: str) -> tuple[str, ...]:
+    """The free coefficients of the forecast, checked against ``theory``.
+
+    ``free`` if given, else the section's ``free`` (popped from ``sec``), else the theory's
+    primary names.
+    """
     where_free = "plan_settings(free=...)" if free is not None else f"{where} free"
     if free is not None:
         names = _names(free, where_free)
@@ -127,10 +123,11 @@ def plan_settings(scenario: Scenario, free: str | Sequence[str] | None = None,
                               f"{', '.join(theory.parameter_names)})")
     if not names or len(set(names)) != len(names):
         raise ConfigError(f"{where_free}: expected distinct coefficient names")
-    tg = sec.pop("targets", {})
-    if not isinstance(tg, dict):
-        raise ConfigError(f"{where} targets: expected a table NAME = sigma")
-    tg = {**tg, **(targets or {})}
+    return tuple(names)
+
+
+def _plan_fields(sec: dict, where: str) -> dict:
+    """The section's optional numeric and list fields as PlanSettings keywords (popped)."""
     kw = {}
     for key in ("max_days", "n_days", "decoupling_threshold", "max_turn_points", "drift"):
         if key in sec:
@@ -144,6 +141,27 @@ def plan_settings(scenario: Scenario, free: str | Sequence[str] | None = None,
             if not isinstance(v, list):
                 raise ConfigError(f"{where} {key}: expected a list of numbers")
             kw[key] = tuple(v)
+    return kw
+
+
+def plan_settings(scenario: Scenario, free: str | Sequence[str] | None = None,
+                  targets: dict[str, float] | None = None) -> PlanSettings:
+    """Settings from the scenario's ``[plan]`` section; ``free``/``targets`` override/add."""
+    where = f"{scenario.source}: [plan]"
+    sec = scenario.sections.get("plan", {})
+    if not isinstance(sec, dict):
+        raise ConfigError(f"{where}: expected a table")
+    sec = dict(sec)
+    theory = scenario.theory
+    if not theory.linear:
+        raise ConfigError(f"{scenario.source}: [theory] name: the plan needs a linear theory "
+                          f"(the Fisher forecast is for linear models), got {theory.name!r}")
+    names = _plan_free(theory, free, sec, where)
+    tg = sec.pop("targets", {})
+    if not isinstance(tg, dict):
+        raise ConfigError(f"{where} targets: expected a table NAME = sigma")
+    tg = {**tg, **(targets or {})}
+    kw = _plan_fields(sec, where)
     if sec:
         raise ConfigError(f"{where} {sorted(sec)[0]}: unknown field")
     try:

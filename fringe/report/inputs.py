@@ -27,15 +27,17 @@ COMPARE_COLUMNS = ("name", "value", "sigma", "citation")
 
 
 def load_fit(path) -> FitResult:
-    """The fit result in ``path``, read and checked by
-    :func:`~fringe.io.fit_result.read_fit_result`.
+    """The fit result in ``path``, read and checked.
+
+    See :func:`~fringe.io.fit_result.read_fit_result`.
     """
     return read_fit_result(path)
 
 
 def load_turns(path, fit: FitResult | None = None) -> dict:
-    """The accepted turns of a per-turn amplitudes file (HDF5, format "turns" v1), time-sorted
-    (:func:`~fringe.io.turns_file.read_accepted_turns`).
+    """The accepted turns of a per-turn amplitudes file (HDF5, format "turns" v1), time-sorted.
+
+    See :func:`~fringe.io.turns_file.read_accepted_turns`.
 
     Returns the arrays of :data:`TURN_FIELDS` but ``accepted`` plus ``turn_period_s``
     (``stage1.turn_period_s`` of ``fit`` if given, else the median turn spacing), ``n_turns``
@@ -49,9 +51,38 @@ def load_turns(path, fit: FitResult | None = None) -> dict:
     return read_accepted_turns(path, stage1.turn_period_s if stage1 is not None else None)
 
 
+def _comparison_csv(path: Path, text: str) -> list[dict]:
+    """The rows of a CSV table of earlier results (``#`` comments and blank lines skipped)."""
+    lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
+    reader = csv.DictReader(lines, skipinitialspace=True)
+    missing = [c for c in COMPARE_COLUMNS if c not in (reader.fieldnames or [])]
+    if missing:
+        raise InputFileError(path, "header", f"expected columns {', '.join(COMPARE_COLUMNS)}"
+                                             f" (missing {', '.join(missing)})")
+    return list(reader)
+
+
+def _comparison_toml(path: Path, text: str) -> list[dict]:
+    """The ``[[limits]]`` tables of a TOML file of earlier results."""
+    try:
+        import tomllib
+    except ModuleNotFoundError:           # Python 3.10
+        import tomli as tomllib
+    try:
+        raw = tomllib.loads(text).get("limits")
+    except tomllib.TOMLDecodeError as exc:
+        raise InputFileError(path, "TOML", f"expected valid TOML ({exc})") from None
+    if not isinstance(raw, list) or not all(isinstance(r, dict) for r in raw):
+        raise InputFileError(path, "limits", "expected an array of tables [[limits]] with "
+                                             f"keys {', '.join(COMPARE_COLUMNS)}")
+    return raw
+
+
 def load_comparison(path) -> list[dict]:
-    """Earlier results from a CSV (header ``name,value,sigma,citation``; ``#`` comments) or a
-    TOML file (``[[limits]]`` tables with those keys). A quoted bound |c| < L is entered as
+    """Earlier results from a CSV or a TOML file.
+
+    A CSV has the header ``name,value,sigma,citation`` (``#`` comments); a TOML file has
+    ``[[limits]]`` tables with those keys. A quoted bound |c| < L is entered as
     value L, sigma 0. Returns rows ``{"name", "value", "sigma", "citation"}``.
     """
     path = Path(path)
@@ -65,27 +96,9 @@ def load_comparison(path) -> list[dict]:
         raise InputFileError(path, "file", f"expected a readable UTF-8 text file ({exc})") \
             from None
     if suffix == ".csv":
-        lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
-        reader = csv.DictReader(lines, skipinitialspace=True)
-        missing = [c for c in COMPARE_COLUMNS if c not in (reader.fieldnames or [])]
-        if missing:
-            raise InputFileError(path, "header", f"expected columns {', '.join(COMPARE_COLUMNS)}"
-                                                 f" (missing {', '.join(missing)})")
-        raw = list(reader)
-        first = 2
+        raw, first = _comparison_csv(path, text), 2
     elif suffix == ".toml":
-        try:
-            import tomllib
-        except ModuleNotFoundError:           # Python 3.10
-            import tomli as tomllib
-        try:
-            raw = tomllib.loads(text).get("limits")
-        except tomllib.TOMLDecodeError as exc:
-            raise InputFileError(path, "TOML", f"expected valid TOML ({exc})") from None
-        if not isinstance(raw, list) or not all(isinstance(r, dict) for r in raw):
-            raise InputFileError(path, "limits", "expected an array of tables [[limits]] with "
-                                                 f"keys {', '.join(COMPARE_COLUMNS)}")
-        first = 1
+        raw, first = _comparison_toml(path, text), 1
     else:
         raise InputFileError(path, "file", f"expected a .csv or .toml file, got {suffix!r}")
     if not raw:

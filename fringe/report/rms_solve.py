@@ -89,8 +89,9 @@ class RmsSolution:
 
     @property
     def correlation(self) -> NDArray[np.float64]:
-        """Correlation matrix of the deviations (NaN where a variance is zero;
-        :func:`fringe.linalg.correlation_from_covariance`).
+        """Correlation matrix of the deviations (NaN where a variance is zero).
+
+        See :func:`fringe.linalg.correlation_from_covariance`.
         """
         return correlation_from_covariance(self.covariance)
 
