@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import csv
 import datetime
+import difflib
 import hashlib
 import io
 import os
@@ -142,7 +143,9 @@ def read_import_metadata(path: str | os.PathLike) -> dict:
     out = {}
     for name, value in raw.items():
         if name not in _SECTIONS:
-            raise err(name, f"expected only the keys {', '.join(_SECTIONS)}")
+            close = difflib.get_close_matches(name, _SECTIONS, n=1, cutoff=0.6)
+            raise err(name, f"expected only the keys {', '.join(_SECTIONS)}"
+                      + (f"; closest: {close[0]}" if close else ""))
         out[name] = _check_section(name, value, err)
     return out
 
