@@ -119,7 +119,8 @@ def record_cautions(path: str, setup: Setup, meta: dict) -> list[FitWarning]:
     """Warnings about what the record can support, known before fitting.
 
     Its times outside a reliable span (:func:`fringe.frames.time_span_cautions`) and a
-    simulated record without noise (the run file's ``settings`` group, written by :func:`fringe.simulation.simulate`).
+    simulated record without noise (the run file's ``settings`` group, written by
+    :func:`fringe.simulation.simulate`).
     """
     out = [FitWarning(c.code, c.sentence, c.values) for c in time_span_cautions(
         setup.epoch, float(meta["time_first_s"]), float(meta["time_last_s"]))]

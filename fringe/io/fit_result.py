@@ -245,14 +245,14 @@ class FitResult:
             lines.append(f"{name:<12}{v:>13.4g}{'fixed':>12}")
         for name, v in self.nuisance.items():
             lines.append(f"{name:<12}{v.value:>13.4g}{v.sigma:>12.3g}{'nuisance':>12}")
+        if eff:
+            lines.append(EFFICIENCY_DEFINITION)
         for k, v in self.upper_limits.items():
             lines.append(f"95 % upper limit {k}: {v:.4g}")
         if self.one_stage is not None:
             lines.append("one-stage cross-check: " + ", ".join(
                 f"{n} {v.value:.3g}±{v.sigma:.2g}"
                 for n, v in self.one_stage.coefficients.items()))
-        if eff:
-            lines.append(EFFICIENCY_DEFINITION)
         caution = self.efficiency_caution()
         for w in self.warnings:
             lines.append(f"WARNING: {w.sentence}")
