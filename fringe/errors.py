@@ -57,6 +57,10 @@ class TimeScaleWarning(FringeWarning):
     """Leap-second table or UT1 information is dubious for the requested dates."""
 
 
+class SimulationWarning(FringeWarning):
+    """A simulated record is not what it may seem (e.g. no noise: no ``[noise]`` section)."""
+
+
 def check_finite_number(value, source: str, field: str, *, positive: bool = False,
                         minimum: float | None = None, maximum: float | None = None) -> float:
     """Return ``value`` as a float, or raise :class:`ConfigError` naming ``source`` and ``field``.

@@ -25,7 +25,8 @@ import math
 import re
 import warnings
 from dataclasses import dataclass
-from functools import cached_property
+from functools import cached_property, lru_cache
+from typing import NamedTuple
 
 import erfa
 import numpy as np
@@ -62,11 +63,115 @@ def _erfa_call(func, *args):
     for w in caught:
         if "dubious" in str(w.message).lower():
             warnings.warn("leap-second table is not authoritative for these dates (ERFA: "
-                          f"{w.message}); UTC conversion may be off by whole seconds",
+                          f"{w.message}); UTC conversion may be off by whole seconds (before "
+                          "1960 UTC is taken as UT: TAI - UTC = 0, no leap seconds)",
                           TimeScaleWarning, stacklevel=3)
         else:
             warnings.warn(w.message, w.category, stacklevel=3)
     return out
+
+
+#: First year of UTC (and of ERFA's leap-second table); earlier times are taken as UT.
+UTC_FIRST_YEAR = 1960
+
+
+class TimeCaution(NamedTuple):
+    """A reason the record's times are less reliable than usual (:func:`time_span_cautions`).
+
+    ``code`` is stable (``utc-before-1960``, ``leap-table-range``, ``ephemeris-range``),
+    ``sentence`` is for a person, ``values`` holds its numbers (years, seconds).
+    """
+
+    code: str
+    sentence: str
+    values: dict
+
+
+def _flagged(func, *args) -> bool:
+    """True when ERFA returns a warning status (pyerfa's ErfaWarning) for these arguments."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        func(*args)
+    return any(issubclass(w.category, erfa.ErfaWarning) for w in caught)
+
+
+@lru_cache(maxsize=1)
+def leap_table_last_year() -> int:
+    """Last year ERFA's ``dat`` converts without its 'dubious year' status.
+
+    The table's release year + 5 by ERFA's rule: 2028 with pyerfa 2.0.1.5 (docs/references.md
+    [R-lib-erfa-leap]).
+    """
+    year = 2000
+    while year < 2500 and not _flagged(erfa.dat, year + 1, 1, 1, 0.0):
+        year += 1
+    return year
+
+
+def _calendar(epoch: Epoch, t_s: float) -> tuple[int, int, int]:
+    """UTC calendar date of ``t_s`` after the epoch (leap seconds ignored: whole days only)."""
+    u1, u2 = epoch.utc_jd
+    y, mo, d, _ = erfa.jd2cal(u1, u2 + float(t_s) / DAY_S)
+    return int(y), int(mo), int(d)
+
+
+def time_span_cautions(epoch: Epoch, first_s: float, last_s: float) -> list[TimeCaution]:
+    """The cautions for a record from ``first_s`` to ``last_s`` seconds after ``epoch``.
+
+    * ``utc-before-1960``: the record starts before 1960, where UTC did not exist: its times
+      are taken as UT (TAI - UTC = 0, no leap seconds; what ERFA's ``dat`` returns there), so
+      phi = ERA(UT + dUT1) is right for UT-stamped data and the ephemeris uses TT = UT +
+      32.184 s (off by 32.184 s - Delta T, a velocity error below 1e-5 of the orbit's);
+    * ``leap-table-range``: the record reaches past :func:`leap_table_last_year`: TAI - UTC is
+      held at the table's last value, so a later leap second is missing;
+    * ``ephemeris-range``: an end of the record is outside 1900-2100, where ERFA's ``epv00``
+      ephemeris is valid (its warning status).
+
+    The checks use the two ends of the record (each range is one-sided).
+    """
+    out = []
+    first, last = _calendar(epoch, first_s), _calendar(epoch, last_s)
+    if first[0] < UTC_FIRST_YEAR:
+        jump = float(_erfa_quiet(erfa.dat, UTC_FIRST_YEAR, 1, 1, 0.0))
+        out.append(TimeCaution(
+            "utc-before-1960",
+            f"the record starts on {first[0]:04d}-{first[1]:02d}-{first[2]:02d}, before 1960 "
+            "when UTC began: its times are taken as UT (TAI - UTC = 0, no leap seconds); the "
+            "sidereal angle is right for UT-stamped data, elapsed seconds are UT seconds"
+            + (f", and at 1960-01-01 TAI - UTC steps to {jump:.3f} s" if last[0]
+               >= UTC_FIRST_YEAR else ""),
+            {"first_year": float(first[0]), "tai_minus_utc_s": 0.0}))
+    limit = leap_table_last_year()
+    if last[0] > limit:
+        out.append(TimeCaution(
+            "leap-table-range",
+            f"the record reaches {last[0]:04d}-{last[1]:02d}-{last[2]:02d}, after {limit}, the "
+            "last year the leap-second table is reliable for (ERFA's dubious-year rule): TAI - "
+            "UTC is held at its last value, so a leap second announced later is missing from "
+            "UTC-stamped times (the sidereal angle follows the given UT1 - UTC)",
+            {"last_year": float(last[0]), "table_last_year": float(limit)}))
+    ends = [(y, _tt_flagged(epoch, t)) for y, t in ((first[0], first_s), (last[0], last_s))]
+    bad = [y for y, flagged in ends if flagged]
+    if bad:
+        out.append(TimeCaution(
+            "ephemeris-range",
+            f"the record reaches the year {bad[0]}, outside 1900-2100 where ERFA's epv00 "
+            "ephemeris is valid: the Earth's orbital velocity is less accurate there",
+            {"year": float(bad[0])}))
+    return out
+
+
+def _erfa_quiet(func, *args):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", erfa.ErfaWarning)
+        return func(*args)
+
+
+def _tt_flagged(epoch: Epoch, t_s: float) -> bool:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", TimeScaleWarning)
+        a, b = epoch.tt_jd(np.array([float(t_s)]))
+    return _flagged(erfa.epv00, a, b)
 
 
 @dataclass(frozen=True)
@@ -189,7 +294,12 @@ def earth_velocity_beta(epoch: Epoch, t_s: ArrayLike,
     n_grid = max(int(math.ceil((hi - lo) / grid_s)) + 7, 8)
     grid = lo - 3 * grid_s + grid_s * np.arange(n_grid)
     a, b = epoch.tt_jd(grid)
-    pvh, _ = erfa.epv00(a, b)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", erfa.ErfaWarning)
+        pvh, _ = erfa.epv00(a, b)
+    if caught:          # outside 1900-2100 (time_span_cautions: ephemeris-range)
+        warnings.warn("ERFA epv00 is valid 1900-2100; the Earth's velocity outside that span "
+                      "is less accurate", TimeScaleWarning, stacklevel=2)
     v_grid = pvh["v"] * (AU_M / DAY_S / C_M_S)
     return CubicSpline(grid, v_grid, axis=0)(t)
 

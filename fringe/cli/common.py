@@ -6,10 +6,12 @@ progress bar and the choices drawn from a registry. No physics here.
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import importlib
 import re
 import sys
+import warnings
 from pathlib import Path
 
 import click
@@ -86,6 +88,25 @@ def run_guarded(func):
                 _signal.signal(_signal.SIGTERM, old_term)
 
     return wrapper
+
+
+@contextlib.contextmanager
+def warnings_once():
+    """Around a fit: print each of its warnings once, as the result's summary does.
+
+    Yields a list; append the :class:`~fringe.io.fit_result.FitResult` to it. A FringeWarning
+    raised inside whose sentence is one of the result's warning records is not echoed to
+    stderr (the summary prints it); any other warning is shown as usual when the block ends.
+    """
+    results: list = []
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            yield results
+    finally:
+        recorded = {w.sentence for r in results for w in r.warnings}
+        for w in caught:
+            if not (issubclass(w.category, FringeWarning) and str(w.message) in recorded):
+                warnings.showwarning(w.message, w.category, w.filename, w.lineno)
 
 
 def out_dir(path: str) -> Path:

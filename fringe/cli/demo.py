@@ -9,7 +9,7 @@ from pathlib import Path
 
 import click
 
-from fringe.cli.common import out_dir, run_guarded
+from fringe.cli.common import out_dir, run_guarded, warnings_once
 
 
 def demo_scenario_path() -> Path:
@@ -70,7 +70,10 @@ def command(out, seed, overwrite):
 
     click.echo("[3/5] fit (theory sme, free ke_*)")
     fit_path = d / "fit.json"
-    result, columns = fit_run(str(run_path), FitSettings(), one_stage=True, scratch_dir=str(d))
+    with warnings_once() as fitted:
+        result, columns = fit_run(str(run_path), FitSettings(), one_stage=True,
+                                  scratch_dir=str(d))
+        fitted.append(result)
     result = dataclasses.replace(result, amplitudes_file="fit.turns.h5")
     with columns:
         write_turns(d / "fit.turns.h5", units=result.units, epoch_utc=result.epoch_utc,

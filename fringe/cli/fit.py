@@ -7,7 +7,7 @@ from pathlib import Path
 
 import click
 
-from fringe.cli.common import RegistryChoice, progress, run_guarded
+from fringe.cli.common import RegistryChoice, progress, run_guarded, warnings_once
 
 
 def _names(text: str | None) -> tuple[str, ...] | None:
@@ -71,10 +71,11 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
     demod = DemodSettings(drift=drift, max_harmonic=max_harmonic)
     with open_run(run_file, check_values=False) as run:
         n = run.n_samples
-    with progress(n, "fit") as bar:
+    with progress(n, "fit") as bar, warnings_once() as fitted:
         result, columns = fit_run(run_file, settings, demod, engine=engine, scheduler=scheduler,
                                   dut1_s=dut1_s, progress=bar.update, one_stage=cross_check,
                                   scratch_dir=scratch_dir or str(out.resolve().parent))
+        fitted.append(result)
     result = dataclasses.replace(result, amplitudes_file=turns_path.name)
     with columns:
         write_turns(turns_path, units=result.units, epoch_utc=result.epoch_utc,

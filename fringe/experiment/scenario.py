@@ -3,12 +3,15 @@
 A scenario describes an experiment that has not (necessarily) happened: ``fringe predict``,
 ``fringe simulate`` and ``fringe plan`` read it. The format is documented in
 ``docs/scenario.md``; ``examples/`` holds an invented example. Sections other than those parsed
-here (``[noise]``, ``[systematics]``, ``[plan]``, ...) are kept verbatim in
-:attr:`Scenario.sections` for the stages that use them.
+here (:data:`STAGE_SECTIONS`: ``[noise]``, ``[systematics]``, ``[plan]``) are kept verbatim in
+:attr:`Scenario.sections` for the stages that use them; any other section or top-level key is an
+error naming the known sections and the closest match (a misspelt ``[nosie]`` would otherwise
+give a noise-free campaign without a word).
 """
 
 from __future__ import annotations
 
+import difflib
 import math
 
 try:
@@ -31,6 +34,8 @@ from fringe.theories.base import Theory
 
 KNOWN_SECTIONS = {"title", "site", "campaign", "apparatus", "turntable", "theory",
                   "coefficients"}
+#: Sections read by later stages (simulate, plan), kept verbatim in :attr:`Scenario.sections`.
+STAGE_SECTIONS = ("noise", "systematics", "plan")
 
 
 @dataclass(frozen=True)
@@ -185,8 +190,32 @@ def load_scenario(path: str | Path) -> Scenario:
     return scenario_from_dict(doc, source)
 
 
+def _check_sections(doc: dict, source: str) -> None:
+    """Refuse a section (or top-level key) that no stage reads, naming the closest known one."""
+    sections = sorted((KNOWN_SECTIONS - {"title"}) | set(STAGE_SECTIONS))
+    for key, value in doc.items():
+        if key in KNOWN_SECTIONS or key in STAGE_SECTIONS:
+            continue
+        close = difflib.get_close_matches(key, sections + ["title"], n=1, cutoff=0.6)
+        hint = ""
+        if close:
+            hint = f"; closest: {close[0]}" if close[0] == "title" else f"; closest: [{close[0]}]"
+        what = f"[{key}]: unknown section" if isinstance(value, dict) else \
+            f"{key}: unknown top-level key"
+        raise ConfigError(f"{source}: {what}; known sections: "
+                          + ", ".join(f"[{n}]" for n in sections) + f" (and the key title){hint}")
+
+
 def scenario_from_dict(doc: dict, source: str = "scenario") -> Scenario:
-    """Build a :class:`Scenario` from parsed TOML."""
+    """Build a :class:`Scenario` from parsed TOML.
+
+    Raises
+    ------
+    ConfigError
+        One line naming the source, the section and the field; an unknown section names the
+        known ones and the closest match.
+    """
+    _check_sections(doc, source)
     site = _wrap(source, "site", Site, **_table(doc, "site", source))
 
     camp = _table(doc, "campaign", source)

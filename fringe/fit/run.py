@@ -7,7 +7,9 @@ and the per-turn columns for the amplitudes file.
 from __future__ import annotations
 
 import datetime
+import json
 import logging
+import warnings
 from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
@@ -15,17 +17,18 @@ import numpy as np
 from fringe.demodulate.engine import stage1_store
 from fringe.demodulate.settings import DemodSettings
 from fringe.demodulate.turn_store import Scratch
-from fringe.errors import ConfigError
+from fringe.errors import ConfigError, SimulationWarning, TimeScaleWarning
 from fringe.experiment.apparatus import APPARATUS_KINDS, apparatus_fields, make_apparatus
 from fringe.experiment.basis import Setup
 from fringe.fit.settings import FitSettings
 from fringe.fit.stages import stage2_and_3
-from fringe.frames import Epoch
+from fringe.frames import Epoch, time_span_cautions
 from fringe.io.fit_result import FitResult
 from fringe.io.fit_sections import (
     Covariance,
     Estimate,
     FitInput,
+    FitWarning,
     Harmonics,
     OneStage,
     Stage1,
@@ -98,28 +101,70 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
                               f"{ch!r} (has {', '.join(meta['aux_channels']) or 'none'})")
     scratch = Scratch(scratch_dir)
     try:
-        store, info = stage1_store(path, demod, aux_channels=tuple(settings.regress),
-                                   engine=engine, scheduler=scheduler, progress=progress,
-                                   scratch=scratch)
-        span_s = float(meta["time_last_s"] - meta["time_first_s"])
-        # the input's hash (provenance) is read on the second core while stages 2-3 run
-        with ThreadPoolExecutor(max_workers=1) as pool:
-            digest = pool.submit(sha256, path)
-            harm, res, free, models = stage2_and_3(setup, store, settings, span_s / 86400.0,
-                                                   scratch)
-            input_sha256 = digest.result()
-        cross_check = None
-        if one_stage and setup.theory.linear:
-            from fringe.fit.onestage import one_stage_fit
-
-            cross_check = OneStage.from_fit(one_stage_fit(info, demod, setup, store.load(),
-                                                          res.names, settings))
-        result = _package(path, setup, meta, settings, demod, info, store, harm, res, span_s,
-                          input_sha256, engine, dut1_s, cross_check)
+        with warnings.catch_warnings():   # the time-scale cautions are records (cautions)
+            warnings.simplefilter("ignore", TimeScaleWarning)
+            cautions = record_cautions(path, setup, meta)
+            result, store, models = _fit(path, setup, meta, settings, demod, engine, scheduler,
+                                         progress, scratch, one_stage, dut1_s, cautions)
     except BaseException:
         scratch.close()
         raise
-    return result, TurnColumns(setup, store, models, scratch, span_s=span_s)
+    for w in cautions:
+        warnings.warn(w.sentence, SimulationWarning if w.code == "simulated-noise-free"
+                      else TimeScaleWarning, stacklevel=2)
+    return result, TurnColumns(setup, store, models, scratch, span_s=result.span_s)
+
+
+def record_cautions(path: str, setup: Setup, meta: dict) -> list[FitWarning]:
+    """Warnings about what the record can support, known before fitting.
+
+    Its times outside a reliable span (:func:`fringe.frames.time_span_cautions`) and a
+    simulated record without noise (the run file's ``settings`` group, written by
+    :func:`fringe.simulation.simulate`).
+    """
+    out = [FitWarning(c.code, c.sentence, c.values) for c in time_span_cautions(
+        setup.epoch, float(meta["time_first_s"]), float(meta["time_last_s"]))]
+    if "settings" in meta.get("extra_groups", ()):
+        with open_run(path, check_values=False) as run:
+            attrs = run.read_group_attrs("settings")
+        try:
+            noise = json.loads(attrs.get("noise_json", "null"))
+        except (TypeError, ValueError):
+            noise = None
+        silent = isinstance(noise, dict) and not any(
+            noise.get(k) for k in ("h2", "h0", "hm1", "hm2"))
+        if attrs.get("noise_free") or silent:
+            out.append(FitWarning(
+                "simulated-noise-free", f"{path} is a simulated record without noise (its "
+                "scenario had no [noise] levels, or noise_free was asked): the uncertainties "
+                "show the systematics and numerical rounding only, not what a real record "
+                "gives", {}))
+    return out
+
+
+def _fit(path, setup, meta, settings, demod, engine, scheduler, progress, scratch, one_stage,
+         dut1_s, cautions):
+    """Stages 1-3 and the packaging (:func:`fit_run`); returns the result, store and models."""
+    store, info = stage1_store(path, demod, aux_channels=tuple(settings.regress),
+                               engine=engine, scheduler=scheduler, progress=progress,
+                               scratch=scratch)
+    span_s = float(meta["time_last_s"] - meta["time_first_s"])
+    # the input's hash (provenance) is read on the second core while stages 2-3 run
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        digest = pool.submit(sha256, path)
+        harm, res, free, models = stage2_and_3(setup, store, settings, span_s / 86400.0,
+                                               scratch)
+        input_sha256 = digest.result()
+    cross_check = None
+    if one_stage and setup.theory.linear:
+        from fringe.fit.onestage import one_stage_fit
+
+        cross_check = OneStage.from_fit(one_stage_fit(info, demod, setup, store.load(),
+                                                      res.names, settings))
+    res.warnings[:0] = cautions
+    result = _package(path, setup, meta, settings, demod, info, store, harm, res, span_s,
+                      input_sha256, engine, dut1_s, cross_check)
+    return result, store, models
 
 
 def _package(path, setup, meta, settings, demod, info, store, harm, res, span_s, input_sha256,

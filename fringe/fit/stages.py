@@ -104,7 +104,7 @@ def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSe
     sig = np.sqrt(np.diag(cov))
     # Cramer-Rao with the white per-sample level the data show
     eff = {nm: float(np.sqrt(p.cov_cr[i, i]) / sig[i]) for i, nm in enumerate(free)}
-    warns += _degeneracy(labels, cov)
+    warns += _degeneracy(labels, cov, free)
     if abs(p.r_c / p.r_b - 1.0) > 0.2:
         notes.append(f"C and B rows scaled separately by their reduced chi2 "
                      f"({p.r_c:.3g}, {p.r_b:.3g}): coloured noise")
@@ -116,17 +116,18 @@ def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSe
     return p.harmonics, res, p.cache
 
 
-def _degeneracy(labels, cov, limit: float = 0.95) -> list[FitWarning]:
+def _degeneracy(labels, cov, free=(), limit: float = 0.95) -> list[FitWarning]:
     corr = correlation_from_covariance(cov)
     out = []
     pairs = [(labels[i], labels[j], corr[i, j]) for i in range(len(labels))
              for j in range(i + 1, len(labels)) if abs(corr[i, j]) > limit]
     if pairs:
         text = ", ".join(f"{a}/{b} (r = {r:+.3f})" for a, b, r in pairs[:6])
+        named = tuple(n for n in free if any(n in (a, b) for a, b, _ in pairs))
         out.append(FitWarning(
             "near-degenerate", f"near-degenerate coefficients: {text}; the record does not "
             "separate them (a longer span, or fix some of them)",
-            {f"{a}/{b}": float(r) for a, b, r in pairs[:6]}))
+            {f"{a}/{b}": float(r) for a, b, r in pairs[:6]}, named))
         import warnings
 
         warnings.warn(out[-1].sentence, DegeneracyWarning, stacklevel=3)
@@ -215,6 +216,48 @@ def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettin
                    f"({abs(c0) / sc0:.1f} sigma); ke_ZZ (C0 only) may carry a lab-fixed "
                    "systematic")
             res.warnings.append(FitWarning("c0-lab-fixed", msg, {
-                "C0": float(c0), "sigma": float(sc0), "n_sigma": float(abs(c0) / sc0)}))
+                "C0": float(c0), "sigma": float(sc0), "n_sigma": float(abs(c0) / sc0)},
+                ("ke_ZZ",)))
             warnings.warn(msg, SystematicsWarning, stacklevel=2)
+    chi2_warning = harmonics_chi2_warning(harm["chi2_reduced"], n_acc, settings.uncertainty)
+    if chi2_warning is not None:
+        res.warnings.append(chi2_warning)
+        warnings.warn(chi2_warning.sentence, SystematicsWarning, stacklevel=2)
     return harm, res, free, models
+
+
+#: Reduced chi^2 of the harmonic fit outside [1/HARMONICS_CHI2_FACTOR, HARMONICS_CHI2_FACTOR]
+#: (and beyond HARMONICS_CHI2_SIGMAS of its white-noise scatter sqrt(2/dof)) raises a warning.
+HARMONICS_CHI2_FACTOR = 2.0
+HARMONICS_CHI2_SIGMAS = 5.0
+
+
+def harmonics_chi2_warning(chi2_reduced: float, n_turns: int,
+                           uncertainty: str) -> FitWarning | None:
+    """The ``harmonics-chi2`` warning when the stage-2 reduced chi^2 is far from one.
+
+    Far: above ``HARMONICS_CHI2_FACTOR`` (2) or below its inverse, and more than
+    ``HARMONICS_CHI2_SIGMAS`` (5) times sqrt(2 / dof) from 1, the scatter of a reduced chi^2
+    of white Gaussian data with dof = 2 n_turns - 10 degrees of freedom (a project choice).
+    """
+    dof = max(2 * n_turns - 10, 1)
+    red = float(chi2_reduced)
+    if not np.isfinite(red):
+        return None
+    spread = float(np.sqrt(2.0 / dof))
+    far = (red > HARMONICS_CHI2_FACTOR or red < 1.0 / HARMONICS_CHI2_FACTOR) and \
+        abs(red - 1.0) > HARMONICS_CHI2_SIGMAS * spread
+    if not far:
+        return None
+    if red > 1.0:
+        why = ("the per-turn uncertainties understate the scatter of the 2 theta amplitudes "
+               "(noise beyond the per-turn white model, an unmodelled signal or systematic, or "
+               "bad turns)")
+    else:
+        why = "the per-turn uncertainties overstate the scatter of the 2 theta amplitudes"
+    scaled = {"reduced-chi2": "; the uncertainties are scaled by sqrt(reduced chi2), which "
+                              "assumes the excess is white",
+              "formal": "; the formal uncertainties ignore it"}.get(uncertainty, "")
+    msg = (f"harmonic fit: reduced chi2 = {red:.3g} with {dof} degrees of freedom is far from 1 "
+           f"(white-noise scatter {spread:.2g}): {why}{scaled}")
+    return FitWarning("harmonics-chi2", msg, {"chi2_reduced": red, "dof": float(dof)})

@@ -7,7 +7,9 @@ section of that name). The CSV is streamed in blocks of ``block_rows`` rows and 
 
 Time is either seconds since ``epoch_utc`` (units ``"s"``) or ISO 8601 UTC timestamps (units
 ``"iso8601"``), converted to elapsed SI seconds since ``epoch_utc`` (default: the first
-timestamp) with leap seconds counted (TAI - UTC from pyerfa's ``dat``). Empty cells in the signal
+timestamp) with leap seconds counted (TAI - UTC from pyerfa's ``dat``). Before 1960, when there
+was no UTC, timestamps are taken as UT: TAI - UTC = 0 and no leap seconds (what ``dat`` gives
+there), with a :class:`~fringe.errors.TimeScaleWarning` that says so. Empty cells in the signal
 or auxiliary columns are dropped samples (NaN). A bad cell raises
 :class:`~fringe.errors.InputFileError`: ``data.csv: line 17, column 'beat': expected a number,
 got 'abc'``.
@@ -17,6 +19,7 @@ from __future__ import annotations
 
 import csv
 import datetime
+import difflib
 import hashlib
 import io
 import os
@@ -33,6 +36,7 @@ except ModuleNotFoundError:  # Python 3.10
     import tomli as tomllib
 
 from fringe.errors import ConfigError, InputFileError, TimeScaleWarning
+from fringe.frames import UTC_FIRST_YEAR, leap_table_last_year
 from fringe.io.runformat import (
     APPARATUS_KINDS,
     AZIMUTH_UNITS,
@@ -142,7 +146,9 @@ def read_import_metadata(path: str | os.PathLike) -> dict:
     out = {}
     for name, value in raw.items():
         if name not in _SECTIONS:
-            raise err(name, f"expected only the keys {', '.join(_SECTIONS)}")
+            close = difflib.get_close_matches(name, _SECTIONS, n=1, cutoff=0.6)
+            raise err(name, f"expected only the keys {', '.join(_SECTIONS)}"
+                      + (f"; closest: {close[0]}" if close else ""))
         out[name] = _check_section(name, value, err)
     return out
 
@@ -309,10 +315,8 @@ def _utc_parts(cells: list[str], where: Sequence[str], err, source: str):
     for cell, obj in zip(cells, where, strict=True):
         try:
             y, mo, d, h, mi, s = parse_utc_iso(cell, strict=False)
-            if y < 1960:
-                raise ValueError(cell)
         except ValueError:
-            raise err(obj, f"expected {_ISO_HINT} (from 1960 on), got {cell!r}") from None
+            raise err(obj, f"expected {_ISO_HINT}, got {cell!r}") from None
         ordinal.append(datetime.date(y, mo, d).toordinal())
         sod.append(h * 3600.0 + mi * 60.0 + s)
         ymd.append((y, mo, d))
@@ -331,9 +335,14 @@ def _utc_parts(cells: list[str], where: Sequence[str], err, source: str):
                 raise err(where[i], f"expected a time that exists in UTC (no leap second "
                           f"that day), got {cells[i]!r}")
     if any(issubclass(w.category, erfa.ErfaWarning) for w in caught):
-        warnings.warn(f"{source}: the leap-second table does not cover these UTC dates; "
-                      "elapsed seconds miss any leap second announced later",
-                      TimeScaleWarning, stacklevel=3)
+        if np.any(ymd[:, 0] < UTC_FIRST_YEAR):   # ERFA's dat is 0 there: UTC taken as UT
+            warnings.warn(f"{source}: times before 1960 (no UTC then) are taken as UT: TAI - "
+                          "UTC = 0, no leap seconds, elapsed seconds are UT seconds",
+                          TimeScaleWarning, stacklevel=3)
+        if np.any(ymd[:, 0] > leap_table_last_year()):
+            warnings.warn(f"{source}: the leap-second table does not cover these UTC dates; "
+                          "elapsed seconds miss any leap second announced later",
+                          TimeScaleWarning, stacklevel=3)
     return ordinal, sod, dat
 
 
@@ -477,7 +486,23 @@ def import_csv(csv_path: str | os.PathLike, out_path: str | os.PathLike, *,
                 writer.abort()
             raise
     writer.close()
+    if units["time"] == "s":      # ISO timestamps were checked day by day in _utc_parts
+        _warn_time_span(csv_path, epoch, float(first), prev[0])
     return CsvImportSummary(out_path, writer.n_samples, epoch, float(first), prev[0], digest)
+
+
+def _warn_time_span(source: str, epoch: str, first_s: float, last_s: float) -> None:
+    """Warn (TimeScaleWarning) when times lie outside a reliable span of the time scales.
+
+    Or of the ephemeris (:func:`fringe.frames.time_span_cautions`).
+    """
+    from fringe.frames import Epoch, time_span_cautions
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", TimeScaleWarning)
+        cautions = time_span_cautions(Epoch(epoch), first_s, last_s)
+    for c in cautions:
+        warnings.warn(f"{source}: {c.sentence}", TimeScaleWarning, stacklevel=3)
 
 
 def _csv_options(delimiter: str | None, comment: str | None) -> dict | None:

@@ -37,6 +37,12 @@ __all__ = ["CONVENTIONS", "FORMAT", "FORMAT_VERSION", "READABLE_VERSIONS", "FitR
 
 FORMAT = "fit"
 FORMAT_VERSION = 2
+#: The line under the coefficient table of :meth:`FitResult.summary`.
+EFFICIENCY_DEFINITION = ("efficiency = white-noise Cramer-Rao sigma of this record (per-sample "
+                         "noise = median per-turn residual RMS) / reported sigma; 1 is the "
+                         "white-noise limit, below 1 the noise or correlations cost precision, "
+                         "* marks a value above 1 (see the note)")
+
 #: Versions :meth:`FitResult.from_dict` reads (1: warnings as plain strings).
 READABLE_VERSIONS = (1, 2)
 
@@ -240,23 +246,51 @@ class FitResult:
         eff = self.efficiency or {}
         for name, v in self.coefficients.items():
             e = eff.get(name)
-            lines.append(f"{name:<12}{v.value:>13.4g}{v.sigma:>12.3g}"
-                         f"{(f'{e:.3f}' if e is not None else '-'):>12}")
+            mark = "-" if e is None else f"{e:.3f}" + ("*" if e > 1.0 else "")
+            lines.append(f"{name:<12}{v.value:>13.4g}{v.sigma:>12.3g}{mark:>12}")
         for name, v in self.fixed.items():
             lines.append(f"{name:<12}{v:>13.4g}{'fixed':>12}")
         for name, v in self.nuisance.items():
             lines.append(f"{name:<12}{v.value:>13.4g}{v.sigma:>12.3g}{'nuisance':>12}")
+        if eff:
+            lines.append(EFFICIENCY_DEFINITION)
         for k, v in self.upper_limits.items():
             lines.append(f"95 % upper limit {k}: {v:.4g}")
         if self.one_stage is not None:
             lines.append("one-stage cross-check: " + ", ".join(
                 f"{n} {v.value:.3g}±{v.sigma:.2g}"
                 for n, v in self.one_stage.coefficients.items()))
+        caution = self.efficiency_caution()
         for w in self.warnings:
             lines.append(f"WARNING: {w.sentence}")
-        for n in self.notes:
+        for n in self.notes + ((caution,) if caution else ()):
             lines.append(f"note: {n}")
         return "\n".join(lines)
+
+    def efficiency_caution(self) -> str | None:
+        """A note on efficiencies above 1 (marked ``*`` in :meth:`summary`), or None.
+
+        An efficiency above 1 means a reported sigma below this record's white-noise
+        Cramer-Rao sigma, which no unbiased estimate can beat when the white level is right:
+        the sigma itself is uncertain (bootstrap over few blocks) or the white level, the
+        median per-turn residual RMS, overstates the noise the 2 theta amplitudes see.
+        """
+        high = {n: e for n, e in (self.efficiency or {}).items() if e > 1.0}
+        if not high:
+            return None
+        names = ", ".join(f"{n} {e:.3f}" for n, e in high.items())
+        st = self.statistics
+        if st is not None and st.uncertainty == "bootstrap":
+            days = float((self.settings or {}).get("fit", {}).get("bootstrap_days") or 0)
+            n = int(self.span_s / 86400.0 / days) if days > 0 and self.span_s else None
+            why = (f"the bootstrap sigma from {'about ' + str(n) if n else 'few'} blocks is "
+                   "itself uncertain (by roughly 1/sqrt(2 x blocks))")
+        else:
+            why = ("the white level (median per-turn residual RMS) overstates the noise of the "
+                   "2 theta amplitudes, or the sigma is underestimated")
+        return (f"efficiency above 1 ({names}): the reported sigma is below the white-noise "
+                f"limit of this record, which no estimate beats; {why}. Read it as a sigma "
+                "to check, not as better than optimal")
 
     def __repr__(self) -> str:
         turns = (f", turns={self.stage1.n_accepted}/{self.stage1.n_blocks} accepted"

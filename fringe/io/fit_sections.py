@@ -369,26 +369,37 @@ class FitWarning:
 
     A short stable ``code`` (e.g. ``"b0-lab-fixed"``), the ``sentence`` a person reads, and
     the numbers of the sentence unrounded (``values``: name to number, unit as in the
-    sentence). ``str()`` gives the sentence.
+    sentence). ``str()`` gives the sentence. ``coefficients`` names the free coefficients
+    whose estimate the warning puts in doubt (empty: the warning concerns the record as a
+    whole); a report's headline bound leaves those out.
 
     Codes: ``b0-lab-fixed`` (B0 or lab_B0 inconsistent with zero), ``c0-lab-fixed`` (C0
-    inconsistent with zero, ke_ZZ free), ``near-degenerate`` (correlations above 0.95);
-    ``unnamed`` for a plain-text warning of a version-1 result file.
+    inconsistent with zero, ke_ZZ free; names ke_ZZ), ``near-degenerate`` (correlations above
+    0.95; names the coefficients of the pairs), ``harmonics-chi2`` (the reduced chi^2 of the
+    stage-2 harmonic fit far from one), ``simulated-noise-free`` (a simulated record without
+    noise), ``utc-before-1960``, ``leap-table-range``, ``ephemeris-range`` (the record's times
+    outside a reliable span, :func:`fringe.frames.time_span_cautions`); ``unnamed`` for a
+    plain-text warning of a version-1 result file.
     """
 
     code: str
     sentence: str
     values: Mapping[str, float] = field(default_factory=FrozenMap)
+    coefficients: tuple[str, ...] = ()
 
     def __post_init__(self):
         _set(self, "values", FrozenMap(self.values))
+        _set(self, "coefficients", tuple(self.coefficients))
 
     def __str__(self) -> str:
         return self.sentence
 
     def to_dict(self) -> dict:
-        """The record as plain JSON-ready data (the inverse of :meth:`read`)."""
-        return {"code": self.code, "message": self.sentence, "values": dict(self.values)}
+        """The JSON object (``coefficients`` only when the warning names some)."""
+        out = {"code": self.code, "message": self.sentence, "values": dict(self.values)}
+        if self.coefficients:
+            out["coefficients"] = list(self.coefficients)
+        return out
 
     @classmethod
     def read(cls, f: Fields, key: str, version: int) -> FitWarning:
@@ -398,7 +409,8 @@ class FitWarning:
                 raise f.error(key, "a string (version-1 warning)", f.data[key])
             return cls("unnamed", f.data[key])
         w = f.sub(key)
-        w.unknown(("code", "message", "values"))
+        w.unknown(("code", "message", "values", "coefficients"))
         values = w.sub("values")
         return cls(w.string("code"), w.string("message"),
-                   {k: values.number(k, null=True) for k, _ in values.items()})
+                   {k: values.number(k, null=True) for k, _ in values.items()},
+                   w.strings("coefficients", required=False) or ())

@@ -73,6 +73,8 @@ def assemble_report(fit_json_path, *, compare=None, kt: tuple[float, float] | No
     fit_path = Path(fit_json_path)
     fit = load_fit(fit_path)
     notes = [f"From the fit: {n}" for n in fit.notes]
+    if fit.efficiency_caution():
+        notes.append(fit.efficiency_caution()[0].upper() + fit.efficiency_caution()[1:] + ".")
     turns_path = turns = None
     if fit.amplitudes_file:
         turns_path = fit_path.parent / fit.amplitudes_file

@@ -71,17 +71,44 @@ def headline(fit: FitResult, style: str = "unicode") -> dict:
     * ``medium``: ``upper_limits.speed_kms_95`` when present;
     * otherwise (and ``clock``): the largest 95 % bound among the free coefficients.
 
+    A bound is taken only from coefficients that no warning of the fit names
+    (:attr:`~fringe.io.fit_sections.FitWarning.coefficients`); the text names what was left
+    out and by which warning. When a coefficient of the bound's set lies more than
+    :data:`NONZERO_SIGMA` sigma from zero, the headline states a nonzero result (value, sigma,
+    significance) and no bound. Warnings that name no coefficient (the record as a whole) are
+    listed by code at the end.
+
     The theory named by the fit is looked up in :data:`fringe.theories.THEORIES`; each theory
     class has its statement in ``_HEADLINES`` (a theory without one gets the largest bound).
 
-    Returns ``{"text", "quantity", "bound_95", "statement"}``, text in ``style``
+    Returns ``{"text", "kind", "quantity", "bound_95", "statement", "left_out"}``: ``kind`` is
+    ``"bound"``, ``"nonzero"``, ``"none"`` (every coefficient named by a warning) or
+    ``"upper-limit"`` (medium); ``bound_95`` is None unless a bound is stated; ``left_out``
+    maps each coefficient left out to the codes of its warnings. Text in ``style``
     (``"unicode"`` or ``"latex"``).
     """
     unc = (fit.statistics.uncertainty if fit.statistics is not None else None)
     tail = _esc(f" Uncertainties: {unc}.", style) if unc else ""
     render = _HEADLINES.get(THEORIES.get(fit.theory), _largest_bound_headline)
-    out = render(fit, _Marks.of(style))
+    out = {"left_out": {}, **render(fit, _Marks.of(style))}
+    wide = sorted({w.code for w in fit.warnings if not w.coefficients} - {"unnamed"})
+    if wide:
+        tail += _esc(f" The fit also raised warnings on the record as a whole "
+                     f"({', '.join(wide)}); see the warnings.", style)
+    if any(w.code == "unnamed" for w in fit.warnings):
+        tail += _esc(" The fit's warnings (a version-1 file) do not say which coefficients "
+                     "they concern; see the warnings.", style)
     return {**out, "text": out["text"] + tail}
+
+
+#: |value| / sigma above which a headline states a nonzero result instead of a bound
+#: (a project choice, the same 3 sigma as the fit's B0 and C0 checks).
+NONZERO_SIGMA = 3.0
+
+#: Why a warning leaves a coefficient out of the headline, by warning code (default: the code).
+_WHY = {"c0-lab-fixed": "C0, its only harmonic, is inconsistent with zero: a lab-fixed "
+                        "systematic",
+        "near-degenerate": "nearly degenerate with another fitted parameter"}
 
 
 @dataclass(frozen=True)
@@ -101,14 +128,78 @@ class _Marks:
         return cls(style, "95 %", "σ", "<", "|value|")
 
 
+def _flagged(fit: FitResult, names) -> dict[str, list[str]]:
+    """Each of ``names`` that a warning of the fit names, with the codes of those warnings."""
+    out: dict[str, list[str]] = {}
+    for w in fit.warnings:
+        for n in w.coefficients:
+            if n in names and w.code not in out.get(n, []):
+                out.setdefault(n, []).append(w.code)
+    return out
+
+
+def _left_out_text(left: dict[str, list[str]], style: str) -> str:
+    """`` Left out: ke_ZZ (c0-lab-fixed: why).`` or ``""``."""
+    if not left:
+        return ""
+    parts = [f"{n} ({'; '.join(f'{c}: {_WHY[c]}' if c in _WHY else c for c in codes)})"
+             for n, codes in left.items()]
+    return _esc(" Left out, as the fit's warnings name them: " + ", ".join(parts) + ".",
+                style)
+
+
+def _nonzero_text(name: str, fit: FitResult, m: _Marks) -> str:
+    e = fit.coefficients[name]
+    z = abs(e.value) / e.sigma
+    return (_esc(f"Nonzero result, not a bound: {name} = ", m.style)
+            + f"{format_mantissas(*pdg_round(e.value, e.sigma), m.style)} (1{m.sig}), "
+            + _esc(f"{z:.1f}", m.style) + f"{m.sig} from zero: a signal or an unmodelled "
+            "systematic, to be understood before any bound is stated.")
+
+
+def _most_significant(coefs, names) -> str | None:
+    """The name with the largest |value| / sigma above NONZERO_SIGMA, or None."""
+    z = {n: abs(coefs[n].value) / coefs[n].sigma for n in names if coefs[n].sigma > 0}
+    top = max(z, key=z.get, default=None)
+    return top if top is not None and z[top] > NONZERO_SIGMA else None
+
+
+def _bound_or_claim(fit: FitResult, m: _Marks, names: list[str], phrase: Callable,
+                    statement: str) -> dict:
+    """The headline over ``names``: left-out coefficients, a nonzero result, or a bound.
+
+    The largest bound (``phrase(name, bound, used)`` gives the bound's sentence).
+    """
+    coefs = fit.coefficients
+    left = _flagged(fit, names)
+    used = [n for n in names if n not in left]
+    note = _left_out_text(left, m.style)
+    if not used:
+        name, bound = _largest_bound(coefs, names)
+        text = (_esc("No headline bound: every candidate coefficient is named by a warning of "
+                     f"the fit (the largest {m.pct} bound would be {name}, ", m.style)
+                + f"{format_bound(bound, m.style)}).")
+        return {"text": text + note, "kind": "none", "quantity": None, "bound_95": None,
+                "statement": "no coefficient free of warnings", "left_out": left}
+    top = _most_significant(coefs, used)
+    if top is not None:
+        return {"text": _nonzero_text(top, fit, m) + note, "kind": "nonzero", "quantity": top,
+                "bound_95": None, "statement": f"|value| / sigma > {NONZERO_SIGMA:g}",
+                "left_out": left}
+    name, bound = _largest_bound(coefs, used)
+    return {"text": phrase(name, bound, used) + note, "kind": "bound", "quantity": name,
+            "bound_95": bound, "statement": statement, "left_out": left}
+
+
 def _largest_bound_headline(fit: FitResult, m: _Marks, what: str = "Largest bound") -> dict:
     """The largest 95 % bound among all free coefficients, introduced by ``what``."""
-    coefs = fit.coefficients
-    name, bound = _largest_bound(coefs, list(coefs))
-    text = (_esc(f"{what}: |{name}| < ", m.style) + f"{format_bound(bound, m.style)} ({m.pct}), "
-            f"the largest {m.pct} bound {m.absval} + 1.96{m.sig} among the free coefficients.")
-    return {"text": text, "quantity": name, "bound_95": bound,
-            "statement": "largest |value| + 1.96 sigma among the free coefficients"}
+    def phrase(name, bound, used):
+        return (_esc(f"{what}: |{name}| < ", m.style) + f"{format_bound(bound, m.style)} "
+                f"({m.pct}), the largest {m.pct} bound {m.absval} + 1.96{m.sig} among the free "
+                "coefficients" + (" without a warning." if len(used) < len(fit.coefficients)
+                                  else "."))
+    return _bound_or_claim(fit, m, list(fit.coefficients), phrase,
+                           "largest |value| + 1.96 sigma among the free coefficients")
 
 
 def _largest_bound(coefs: dict, names: list[str]) -> tuple[str, float]:
@@ -122,16 +213,19 @@ def _sme_headline(fit: FitResult, m: _Marks) -> dict:
     ke = [n for n in coefs if n in SmePhoton.primary_names]
     if not ke:
         return _largest_bound_headline(fit, m, "No ke_* coefficient was free; largest bound")
-    name, bound = _largest_bound(coefs, ke)
     lat = m.style == "latex"
     dcc = r"$\Delta c/c$" if lat else "Δc/c"
     kappa = r"$\tilde{\kappa}_{e-}$" if lat else "κ̃_e−"
-    text = (f"Orientation-dependent {dcc} {m.lt} {format_bound(bound, m.style)} ({m.pct}), "
-            f"stated as the largest {m.pct} bound {m.absval} + 1.96{m.sig} among the {len(ke)} "
-            f"free {kappa} coefficients (" + _esc(", ".join(ke), m.style) + "), here "
-            + _esc(name, m.style) + ".")
-    return {"text": text, "quantity": name, "bound_95": bound,
-            "statement": "largest |value| + 1.96 sigma among the free ke_* coefficients"}
+
+    def phrase(name, bound, used):
+        return (f"Orientation-dependent {dcc} {m.lt} {format_bound(bound, m.style)} ({m.pct}), "
+                f"stated as the largest {m.pct} bound {m.absval} + 1.96{m.sig} among the "
+                f"{len(used)} free {kappa} coefficients"
+                + (" without a warning" if len(used) < len(ke) else "")
+                + " (" + _esc(", ".join(used), m.style) + "), here " + _esc(name, m.style) + ".")
+    return _bound_or_claim(fit, m, ke, phrase,
+                           "largest |value| + 1.96 sigma among the free ke_* coefficients "
+                           "without a warning")
 
 
 def _rms_headline(fit: FitResult, m: _Marks) -> dict:
@@ -146,11 +240,19 @@ def _rms_headline(fit: FitResult, m: _Marks) -> dict:
     iv = format_interval(v - Z95 * s, v + Z95 * s, pdg_place(s)[0], exp, m.style) \
         if s > 0 else "n/a"
     b = bound95(v, s)
-    text = (_esc("Orientation dependence of the speed of light (Robertson–Mansouri–Sexl): ",
-                 m.style) + f"{q} = {format_mantissas(*pdg_round(v, s), m.style)} (1{m.sig}), "
-            f"{m.pct} interval {iv}, i.e. {qabs} {m.lt} {format_bound(b, m.style)} at {m.pct}.")
-    return {"text": text, "quantity": lead, "bound_95": b,
-            "statement": "|delta - beta + 1/2| + 1.96 sigma"}
+    lead_text = (_esc("Orientation dependence of the speed of light (Robertson–Mansouri–Sexl): ",
+                      m.style) + f"{q} = {format_mantissas(*pdg_round(v, s), m.style)} "
+                 f"(1{m.sig}), {m.pct} interval {iv}")
+    left = _flagged(fit, [lead])
+    note = _left_out_text(left, m.style).replace("Left out, as", "Not a clean result, as")
+    if s > 0 and abs(v) / s > NONZERO_SIGMA:
+        text = (lead_text + _esc(f", {abs(v) / s:.1f}", m.style) + f"{m.sig} from zero: a "
+                "nonzero result, not a bound; a signal or an unmodelled systematic.")
+        return {"text": text + note, "kind": "nonzero", "quantity": lead, "bound_95": None,
+                "statement": f"|value| / sigma > {NONZERO_SIGMA:g}", "left_out": left}
+    text = lead_text + f", i.e. {qabs} {m.lt} {format_bound(b, m.style)} at {m.pct}."
+    return {"text": text + note, "kind": "bound", "quantity": lead, "bound_95": b,
+            "statement": "|delta - beta + 1/2| + 1.96 sigma", "left_out": left}
 
 
 def _medium_headline(fit: FitResult, m: _Marks) -> dict:
@@ -159,7 +261,7 @@ def _medium_headline(fit: FitResult, m: _Marks) -> dict:
     x = float(fit.upper_limits["speed_kms_95"])
     text = _esc(f"Speed of the laboratory through a stationary medium: < {x:.3g} km/s "
                 "(95 % upper limit).", m.style)
-    return {"text": text, "quantity": "speed_kms_95", "bound_95": x,
+    return {"text": text, "kind": "upper-limit", "quantity": "speed_kms_95", "bound_95": x,
             "statement": "upper_limits.speed_kms_95 of the fit"}
 
 

@@ -25,11 +25,17 @@ from __future__ import annotations
 
 import json
 import math
+import warnings
 from dataclasses import dataclass, fields
 
 import numpy as np
 
-from fringe.errors import ConfigError, check_finite_number, reject_unknown_fields
+from fringe.errors import (
+    ConfigError,
+    SimulationWarning,
+    check_finite_number,
+    reject_unknown_fields,
+)
 from fringe.experiment.basis import CHUNK_SAMPLES, signal
 from fringe.experiment.scenario import Scenario
 from fringe.noise.powerlaw import PowerLawNoise, noise_from_section, noise_scale
@@ -115,6 +121,17 @@ def _gap_mask(t: np.ndarray, gaps: np.ndarray) -> np.ndarray:
     return inside
 
 
+def _warn_if_noiseless(scenario: Scenario, noise: PowerLawNoise) -> None:
+    """Warn (SimulationWarning) when the scenario asks for no noise without saying so."""
+    if noise.h0 or noise.h2 or noise.hm1 or noise.hm2:
+        return
+    what = "has no [noise] section" if "noise" not in scenario.sections else \
+        "gives no noise level above zero in [noise]"
+    warnings.warn(f"{scenario.source}: the scenario {what}: the simulated record is noise-free "
+                  "(a fit of it says so in its warnings; give noise levels, or noise_free=True "
+                  "to ask for the bare signal)", SimulationWarning, stacklevel=3)
+
+
 def simulate(scenario: Scenario, out_path, *, seed: int, overwrite: bool = False,
              protect=(), chunk_samples: int = CHUNK_SAMPLES, progress=None,
              noise_free: bool = False) -> dict:
@@ -138,6 +155,8 @@ def simulate(scenario: Scenario, out_path, *, seed: int, overwrite: bool = False
     syst = Systematics.from_section(scenario.sections.get("systematics", {}), src)
     if noise_free:
         noise, syst = PowerLawNoise(), Systematics()
+    else:
+        _warn_if_noiseless(scenario, noise)
     rng = np.random.default_rng(seed)
     setup = scenario.setup()
     scale = noise_scale(setup.apparatus, scenario.units)

@@ -132,7 +132,9 @@ def long_scenario(tmp_path: Path, days: float) -> Path:
     text = (Path(__file__).resolve().parents[2] / "examples" / "cavity_pair.toml").read_text()
     assert "duration_days = 2.0" in text
     path = tmp_path / "long.toml"
-    path.write_text(text.replace("duration_days = 2.0", f"duration_days = {days}"))
+    # a [noise] section: a scenario without one simulates a noise-free record and says so
+    path.write_text(text.replace("duration_days = 2.0", f"duration_days = {days}")
+                    + "\n[noise]\nwhite_fm_adev_1s = 1.0e-15\n")
     return path
 
 

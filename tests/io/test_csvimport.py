@@ -209,12 +209,12 @@ def test_iso_timestamps_count_the_leap_second(tmp_path):
 
 
 @pytest.mark.parametrize("stamp, expected", [
-    ("2027-02-03T12:00:60Z", "expected an ISO 8601 UTC time like '2027-02-03T00:00:00Z' (from "
-                             "1960 on), got '2027-02-03T12:00:60Z'"),
+    ("2027-02-03T12:00:60Z", "expected an ISO 8601 UTC time like '2027-02-03T00:00:00Z', "
+                             "got '2027-02-03T12:00:60Z'"),
     ("2027-02-03T23:59:60.5Z", "expected a time that exists in UTC (no leap second that day), "
                                "got '2027-02-03T23:59:60.5Z'"),
-    ("03/02/2027 12:00", "expected an ISO 8601 UTC time like '2027-02-03T00:00:00Z' (from 1960 "
-                         "on), got '03/02/2027 12:00'"),
+    ("03/02/2027 12:00", "expected an ISO 8601 UTC time like '2027-02-03T00:00:00Z', "
+                         "got '03/02/2027 12:00'"),
 ], ids=["second-60-midday", "no-leap-second-that-day", "not-iso"])
 def test_bad_iso_timestamp(tmp_path, stamp, expected):
     csv_path = write(tmp_path / "utc.csv", HEADER + f"2027-02-03T00:00:00Z,0,0,0\n{stamp},0,0,0\n")
