@@ -271,13 +271,18 @@ def rotation_sccef_to_lab(colatitude_rad: float, phi_rad: ArrayLike,
     phi = np.asarray(phi_rad, dtype=float)
     c, s = np.cos(phi), np.sin(phi)
     cc, sc = math.cos(colatitude_rad), math.sin(colatitude_rad)
+    if c2i is not None:
+        # R_z Q row by row (the rows of Q combined; cheaper than a batched 3 x 3 product)
+        q = np.asarray(c2i, dtype=float)
+        c, s = c[..., None], s[..., None]
+        toward = c * q[..., 0, :] + s * q[..., 1, :]          # meridian direction in the equator
+        east = c * q[..., 1, :] - s * q[..., 0, :]
+        pole = np.broadcast_to(q[..., 2, :], toward.shape)
+        return np.stack([cc * toward - sc * pole, east, sc * toward + cc * pole], axis=-2)
     zero = np.zeros_like(phi)
-    r = np.stack([np.stack([cc * c, cc * s, np.full_like(phi, -sc)], -1),
-                  np.stack([-s, c, zero], -1),
-                  np.stack([sc * c, sc * s, np.full_like(phi, cc)], -1)], -2)
-    if c2i is None:
-        return r
-    return np.matmul(r, np.asarray(c2i, dtype=float))
+    return np.stack([np.stack([cc * c, cc * s, np.full_like(phi, -sc)], -1),
+                     np.stack([-s, c, zero], -1),
+                     np.stack([sc * c, sc * s, np.full_like(phi, cc)], -1)], -2)
 
 
 @dataclass(frozen=True)

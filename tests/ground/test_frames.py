@@ -431,10 +431,13 @@ def test_frame_state_take_keeps_the_orientation():
     np.testing.assert_array_equal(sub.orbital_phase_rad, state.orbital_phase_rad[idx])
     frozen = FrameState(state.phi_rad, state.colatitude_rad, state.beta, c2i=state.c2i[1])
     assert frozen.take(idx).c2i is frozen.c2i           # one Q for all samples stays shared
-    # the identity Q gives the pole-fixed matrix of [R-lab-R]
+    # the identity Q gives the pole-fixed matrix of [R-lab-R]; any Q gives R_z Q (exact
+    # algebra: rounding only), per sample or one Q for all
+    pole_fixed = rotation_sccef_to_lab(site.colatitude_rad, state.phi_rad)
     np.testing.assert_allclose(
-        rotation_sccef_to_lab(site.colatitude_rad, state.phi_rad, np.eye(3)),
-        rotation_sccef_to_lab(site.colatitude_rad, state.phi_rad), atol=0)
+        rotation_sccef_to_lab(site.colatitude_rad, state.phi_rad, np.eye(3)), pole_fixed, atol=0)
+    np.testing.assert_allclose(state.rotation, pole_fixed @ state.c2i, rtol=0, atol=1e-15)
+    np.testing.assert_allclose(frozen.rotation, pole_fixed @ state.c2i[1], rtol=0, atol=1e-15)
 
 
 @pytest.mark.parametrize("latitude_deg", [0.0, 52.5, -37.5, 80.0])
