@@ -16,7 +16,11 @@ ratio against a floor measured in the same run:
   and extrapolated to all turns; reported as the speed-up of ``fringe fit``;
 * peak resident memory of ``fringe fit`` (fit and amplitudes file) at 1/8, 1/4, 1/2 and the
   whole record (each in a fresh subprocess, VmHWM);
-* ``simulate`` and ``predict`` throughput (samples per second) and ``plan`` time.
+* ``simulate`` and ``predict`` throughput (samples per second) and ``plan`` time;
+* the share of the Earth orientation (precession-nutation matrix Q and the product R_z Q) in the
+  noise-free signal of one chunk, as a ratio of the two timed in the same run (best of five).
+
+``--orientation-only`` measures the last item alone (no record is written).
 """
 
 from __future__ import annotations
@@ -172,17 +176,55 @@ def simulate_in_subprocess(days: float, path: Path) -> tuple[float, float]:
     return float(out[-2]), int(out[-1]) / 1024.0
 
 
+def orientation_share(sc, repeats: int = 5) -> dict:
+    """Seconds per chunk of the noise-free signal and of the Earth orientation's part of it.
+
+    The orientation's part is Q (``celestial_to_intermediate``) plus R_z Q minus R_z alone;
+    both are the best of ``repeats`` runs on the same chunk of ``CHUNK_SAMPLES`` samples.
+    """
+    from fringe.experiment.basis import CHUNK_SAMPLES, signal
+    from fringe.frames import celestial_to_intermediate, rotation_sccef_to_lab
+
+    setup = sc.setup()
+    t = sc.sample_times(0, CHUNK_SAMPLES)
+    az = sc.motion.azimuth_rad(t)
+    state = setup.frames(t)
+
+    def best(func):
+        out = []
+        for _ in range(repeats):
+            t0 = time.perf_counter()
+            func()
+            out.append(time.perf_counter() - t0)
+        return min(out)
+
+    chi, phi = state.colatitude_rad, state.phi_rad
+    sig = best(lambda: signal(setup, sc.coefficients, t, az))
+    q = best(lambda: celestial_to_intermediate(setup.epoch, t))
+    with_q = best(lambda: rotation_sccef_to_lab(chi, phi, state.c2i))
+    without = best(lambda: rotation_sccef_to_lab(chi, phi))
+    part = q + max(with_q - without, 0.0)
+    return {"chunk_samples": int(t.size), "signal_chunk_s": sig, "orientation_chunk_s": part,
+            "orientation_over_signal": part / sig}
+
+
 def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--days", type=float, default=365.0)
     ap.add_argument("--workdir", default="bench-work")
     ap.add_argument("--skip-memory", action="store_true")
+    ap.add_argument("--orientation-only", action="store_true")
     args = ap.parse_args()
     work = Path(args.workdir)
     work.mkdir(parents=True, exist_ok=True)
     import tomllib
 
     from fringe.experiment.scenario import scenario_from_dict
+
+    if args.orientation_only:
+        sc = scenario_from_dict(tomllib.loads(SCENARIO.format(days=1.0)), "benchmark")
+        print(json.dumps(orientation_share(sc), indent=2))
+        return
 
     results = {"machine": {"python": platform.python_version(), "cpus": os.cpu_count(),
                            "platform": platform.platform()}, "days": args.days}
@@ -232,6 +274,8 @@ def main():
                     "cli_fit_wall_s": cli_fit_seconds(full, work)})
     if not args.skip_memory:
         results["peak_rss_mib"] = {str(f): peak_rss_of_fit(p, work) for f, p in paths.items()}
+    results["earth_orientation"] = orientation_share(
+        scenario_from_dict(tomllib.loads(SCENARIO.format(days=1.0)), "benchmark"))
     results["benchmark_process_peak_rss_mib"] = (
         resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024)
     (work / "results.json").write_text(json.dumps(results, indent=2))

@@ -8,15 +8,26 @@ Which function for which job:
 * :func:`orbital_phase_rad` gives Omega_earth T from the 2000 March equinox (C3).
 * :func:`earth_velocity_beta` gives the Earth's heliocentric velocity / c in SCCEF axes, from
   ERFA ``epv00`` on a coarse grid, interpolated with a cubic spline.
+* :func:`celestial_to_intermediate` gives the IAU 2006/2000A celestial-to-intermediate matrix
+  Q(t) (precession-nutation and frame bias, GCRS -> CIRS), from ERFA ``c2i06a`` on a coarse grid,
+  interpolated with a cubic spline.
 * :func:`rotation_velocity_beta` gives the site's Earth-rotation velocity / c (C12).
-* :func:`rotation_sccef_to_lab` gives R such that v_lab = R v_SCCEF (docs/references.md
-  [R-lab-R]).
-* :func:`frame_state` bundles phi, chi and beta for a set of samples; it is what theories use.
+* :func:`rotation_sccef_to_lab` gives R such that v_lab = R v_SCCEF: R = R_z(chi, phi) Q(t), the
+  lab axes about the celestial intermediate pole (docs/references.md [R-lab-R],
+  [R-time-earth-orientation]).
+* :func:`frame_state` bundles phi, chi, Q and beta for a set of samples; it is what theories use.
 
 Time model: TAI(sample) = TAI(epoch) + t_s. UT1 is TAI + (UT1 - TAI), with UT1 - TAI held at
 its epoch value dUT1 - (TAI - UTC)(epoch); so phi stays continuous across a leap second. The
 neglected drift of UT1 - TAI (a few ms per day) moves phi by ~1e-5 rad per month; give the
 epoch's dUT1 (default 0, an error of at most 0.9 s = 6.6e-5 rad) for better phase.
+
+Earth orientation: SCCEF (GCRS/ICRS axes) -> lab is R_z(chi, phi) Q(t), with Q the IAU 2006/2000A
+celestial-to-intermediate matrix at TT and phi = ERA + east longitude the angle about the
+celestial intermediate pole (CIP). This is ERFA's celestial-to-terrestrial matrix ``c2t06a``
+followed by the geodetic (south, east, up) axes, except that polar motion (the CIP against the
+terrestrial frame, |x_p, y_p| <= 0.6 arcsec = 2.9e-6 rad since 1990) and the TIO locator s'
+(< 1e-10 rad) are neglected (docs/references.md [R-time-earth-orientation]).
 """
 
 from __future__ import annotations
@@ -50,6 +61,11 @@ TT_MINUS_TAI_S = 32.184
 #: epv00 to <= 3e-9 m/s (project measurement with pyerfa 2.0.1.5, docs/references.md
 #: [R-astro-A10]).
 EPHEMERIS_GRID_S = 3600.0
+
+#: Grid step for the celestial-to-intermediate matrix, s. The cubic spline on a 12 h grid agrees
+#: with direct c2i06a to <= 1.2e-11 per matrix element, for whole years and for 9 h chunks,
+#: 1990-2040 (project measurement with pyerfa 2.0.1.5, docs/references.md [R-time-T15]).
+C2I_GRID_S = 43_200.0
 
 _ISO_RE = re.compile(
     r"^(\d{4})-(\d{2})-(\d{2})[T ](\d{2}):(\d{2}):(\d{2}(?:\.\d+)?)(Z|\+00:00|UTC)?$")
@@ -290,9 +306,7 @@ def earth_velocity_beta(epoch: Epoch, t_s: ArrayLike,
     t = np.asarray(t_s, dtype=float)
     if t.size == 0:
         return np.zeros((0, 3))
-    lo, hi = float(np.min(t)), float(np.max(t))
-    n_grid = max(int(math.ceil((hi - lo) / grid_s)) + 7, 8)
-    grid = lo - 3 * grid_s + grid_s * np.arange(n_grid)
+    grid = _spline_grid(t, grid_s)
     a, b = epoch.tt_jd(grid)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", erfa.ErfaWarning)
@@ -304,25 +318,77 @@ def earth_velocity_beta(epoch: Epoch, t_s: ArrayLike,
     return CubicSpline(grid, v_grid, axis=0)(t)
 
 
-def rotation_velocity_beta(phi_rad: ArrayLike, axis_distance_m: float) -> NDArray[np.float64]:
+def _spline_grid(t: NDArray, grid_s: float) -> NDArray:
+    """A regular grid of step ``grid_s`` covering ``t`` with three steps of margin each side."""
+    lo, hi = float(np.min(t)), float(np.max(t))
+    n_grid = max(int(math.ceil((hi - lo) / grid_s)) + 7, 8)
+    return lo - 3 * grid_s + grid_s * np.arange(n_grid)
+
+
+def celestial_to_intermediate(epoch: Epoch, t_s: ArrayLike,
+                              grid_s: float = C2I_GRID_S) -> NDArray[np.float64]:
+    """IAU 2006/2000A celestial-to-intermediate matrix Q(t) at samples ``t_s``, shape (n, 3, 3).
+
+    Q takes GCRS (= SCCEF, ICRS axes) components to the celestial intermediate reference system
+    (CIRS), whose Z axis is the celestial intermediate pole and whose X axis is the celestial
+    intermediate origin, from which the Earth Rotation Angle is counted: it carries frame bias,
+    precession and nutation. ERFA ``c2i06a`` (about 50 us a call) is evaluated at TT on a grid
+    of step ``grid_s`` spanning the samples and its nine elements are interpolated with a cubic
+    spline (error <= 1.2e-11 on the 12 h default grid, :data:`C2I_GRID_S`). Q - 1 is about
+    9.7e-5 rad per year since J2000 (precession) plus up to 4.8e-5 rad of nutation (1990-2040).
+
+    References
+    ----------
+    IERS Conventions (2010), IERS Technical Note 36, ch. 5 (the CIO-based transformation);
+    SOFA/ERFA ``c2i06a`` (docs/references.md [R-time-earth-orientation]).
+    """
+    from scipy.interpolate import CubicSpline
+
+    t = np.asarray(t_s, dtype=float)
+    if t.size == 0:
+        return np.zeros((0, 3, 3))
+    grid = _spline_grid(t, grid_s)
+    q_grid = erfa.c2i06a(*epoch.tt_jd(grid)).reshape(-1, 9)
+    return CubicSpline(grid, q_grid, axis=0)(t).reshape(*t.shape, 3, 3)
+
+
+def rotation_velocity_beta(phi_rad: ArrayLike, axis_distance_m: float,
+                           c2i: ArrayLike | None = None) -> NDArray[np.float64]:
     """Earth-rotation velocity of the site over c, SCCEF axes, shape (n, 3).
 
-    beta_rot = beta_L (-sin phi, cos phi, 0), beta_L = omega_earth rho / c, i.e. along lab east.
+    beta_rot = beta_L Qᵀ (-sin phi, cos phi, 0), beta_L = omega_earth rho / c, i.e. along lab
+    east. ``c2i`` is Q (:func:`celestial_to_intermediate`, (n, 3, 3) or (3, 3)); None means the
+    identity (rotation about the SCCEF Z axis).
     """
     phi = np.asarray(phi_rad, dtype=float)
     beta_l = OMEGA_EARTH_RAD_S * axis_distance_m / C_M_S
-    return beta_l * np.stack([-np.sin(phi), np.cos(phi), np.zeros_like(phi)], axis=-1)
+    east = np.stack([-np.sin(phi), np.cos(phi), np.zeros_like(phi)], axis=-1)
+    if c2i is not None:
+        east = np.einsum("...ji,...j->...i", np.asarray(c2i, dtype=float), east)
+    return beta_l * east
 
 
-def rotation_sccef_to_lab(colatitude_rad: float, phi_rad: ArrayLike) -> NDArray[np.float64]:
+def rotation_sccef_to_lab(colatitude_rad: float, phi_rad: ArrayLike,
+                          c2i: ArrayLike | None = None) -> NDArray[np.float64]:
     """Rotation matrix R (v_lab = R v_SCCEF), lab axes (south, east, up), shape (n, 3, 3).
 
-    Rows: local south, local east, zenith (Dec 90 deg - chi, RA phi); docs/references.md
-    [R-lab-R].
+    R = R_z Q. R_z has the rows local south, local east, zenith (Dec 90 deg - chi, RA phi) in the
+    axes of Q's output (docs/references.md [R-lab-R]); Q = ``c2i`` is the celestial-to-
+    intermediate matrix (:func:`celestial_to_intermediate`, (n, 3, 3) or (3, 3)). With
+    ``c2i=None`` Q is the identity: the lab axes turn about the SCCEF Z axis (the closed forms'
+    model, docs/references.md [R-time-earth-orientation]).
     """
     phi = np.asarray(phi_rad, dtype=float)
     c, s = np.cos(phi), np.sin(phi)
     cc, sc = math.cos(colatitude_rad), math.sin(colatitude_rad)
+    if c2i is not None:
+        # R_z Q row by row (the rows of Q combined; cheaper than a batched 3 x 3 product)
+        q = np.asarray(c2i, dtype=float)
+        c, s = c[..., None], s[..., None]
+        toward = c * q[..., 0, :] + s * q[..., 1, :]          # meridian direction in the equator
+        east = c * q[..., 1, :] - s * q[..., 0, :]
+        pole = np.broadcast_to(q[..., 2, :], toward.shape)
+        return np.stack([cc * toward - sc * pole, east, sc * toward + cc * pole], axis=-2)
     zero = np.zeros_like(phi)
     return np.stack([np.stack([cc * c, cc * s, np.full_like(phi, -sc)], -1),
                      np.stack([-s, c, zero], -1),
@@ -343,17 +409,30 @@ class FrameState:
         Lab velocity relative to the Sun over c, SCCEF axes (orbit + Earth rotation, C12).
     orbital_phase_rad : ndarray, shape (n,) or None
         Omega_earth T (C3), for tables and labels only.
+    c2i : ndarray, shape (n, 3, 3) or (3, 3), or None
+        Celestial-to-intermediate matrix Q (:func:`celestial_to_intermediate`), per sample or one
+        for all samples (frozen at an instant); None means the identity, i.e. the lab axes turn
+        about the SCCEF Z axis (closed forms and tests).
     """
 
     phi_rad: NDArray
     colatitude_rad: float
     beta: NDArray
     orbital_phase_rad: NDArray | None = None
+    c2i: NDArray | None = None
 
     @cached_property
     def rotation(self) -> NDArray:
-        """R(t), SCCEF -> lab, shape (n, 3, 3)."""
-        return rotation_sccef_to_lab(self.colatitude_rad, self.phi_rad)
+        """R(t) = R_z(chi, phi) Q(t), SCCEF -> lab, shape (n, 3, 3)."""
+        return rotation_sccef_to_lab(self.colatitude_rad, self.phi_rad, self.c2i)
+
+    def take(self, index) -> FrameState:
+        """The state at samples ``index`` (a slice or an integer array; repeats allowed)."""
+        c2i = self.c2i
+        if c2i is not None and c2i.ndim == 3:
+            c2i = c2i[index]
+        phase = None if self.orbital_phase_rad is None else self.orbital_phase_rad[index]
+        return FrameState(self.phi_rad[index], self.colatitude_rad, self.beta[index], phase, c2i)
 
     def __len__(self) -> int:
         return int(np.shape(self.phi_rad)[0])
@@ -361,14 +440,19 @@ class FrameState:
 
 def frame_state(epoch: Epoch, t_s: ArrayLike, site: Site, *,
                 include_rotation_velocity: bool = True) -> FrameState:
-    """Frame quantities (phi, chi, beta) at samples ``t_s`` seconds after ``epoch`` at ``site``."""
+    """Frame quantities (phi, chi, Q, beta) at samples ``t_s`` seconds after ``epoch`` at ``site``.
+
+    Q is the celestial-to-intermediate matrix per sample (:func:`celestial_to_intermediate`),
+    so the state's rotation is the full Earth orientation except polar motion.
+    """
     t = np.atleast_1d(np.asarray(t_s, dtype=float))
     phi = sidereal_angle_rad(epoch, t, site.east_longitude_rad)
+    c2i = celestial_to_intermediate(epoch, t)
     beta = earth_velocity_beta(epoch, t)
     if include_rotation_velocity:
-        beta = beta + rotation_velocity_beta(phi, site.axis_distance_m)
+        beta = beta + rotation_velocity_beta(phi, site.axis_distance_m, c2i)
     return FrameState(phi_rad=phi, colatitude_rad=site.colatitude_rad, beta=beta,
-                      orbital_phase_rad=orbital_phase_rad(epoch, t))
+                      orbital_phase_rad=orbital_phase_rad(epoch, t), c2i=c2i)
 
 
 def circular_orbit_beta(orbital_phase: ArrayLike, beta_orbit: float,

@@ -262,6 +262,33 @@ def rotate_ke(v: dict, delta_rad: float) -> dict:
             "ke_ZZ": v["ke_ZZ"]}
 
 
+def reorient_ke(v: dict, delta_rad: float, q_a: np.ndarray, q_b: np.ndarray) -> dict:
+    """ke_* that a fit with the shifted epoch reports, including the Earth orientation.
+
+    The lab turns about the pole of the celestial-to-intermediate matrix Q of each epoch
+    (docs/references.md [R-time-earth-orientation]): the data carry R3(phi) Q_a K Q_aᵀ R3ᵀ, the
+    shifted fit models R3(phi + delta) Q_b K' Q_bᵀ R3ᵀ, so K' = M K Mᵀ with
+    M = Q_bᵀ R3(-delta) Q_a (R3 the rotation of the axes about Z, as in ERFA). With
+    Q_a = Q_b = 1 this is :func:`rotate_ke` (derived).
+    """
+    from fringe.conventions import components_from_traceless, traceless_from_components
+
+    c, s = math.cos(delta_rad), math.sin(delta_rad)
+    r3 = np.array([[c, -s, 0.0], [s, c, 0.0], [0.0, 0.0, 1.0]])       # R3(-delta)
+    m = q_b.T @ r3 @ q_a
+    k = traceless_from_components(v["ke_XY"], v["ke_XZ"], v["ke_YZ"], v["ke_XXmYY"],
+                                  v["ke_ZZ"])
+    comps = components_from_traceless(m @ k @ m.T)
+    return {f"ke_{n}": float(comps[n]) for n in ("XY", "XZ", "YZ", "XXmYY", "ZZ")}
+
+
+def orientation_at(epoch_utc: str, t_s: float) -> np.ndarray:
+    """Celestial-to-intermediate matrix Q (3, 3) at ``t_s`` seconds after ``epoch_utc``."""
+    from fringe.frames import Epoch, celestial_to_intermediate
+
+    return celestial_to_intermediate(Epoch(epoch_utc), [t_s])[0]
+
+
 def _fit_record(path: str, cfg: Config, fit: Fit) -> dict:
     from fringe.demodulate.settings import DemodSettings
     from fringe.fit.run import fit_run
@@ -324,7 +351,10 @@ def run_campaign(job: tuple, workdir: str | os.PathLike | None = None) -> dict:
         delta = sidereal_rotation_rad(base["epoch_utc"], sh["epoch_utc"],
                                       BASE_DOC["site"]["longitude_deg"])
         sh["delta_rad"] = delta
-        sh["predicted"] = rotate_ke(base["value"], delta)
+        t_mid = 0.5 * sc.duration_s
+        sh["predicted"] = reorient_ke(base["value"], delta,
+                                      orientation_at(base["epoch_utc"], t_mid),
+                                      orientation_at(sh["epoch_utc"], t_mid))
     if cfg.theory == "medium":
         out["mirror"] = medium_mirror(sc, truth)
     return out

@@ -161,7 +161,7 @@ def two_theta_amplitudes(setup: Setup, t_s: ArrayLike, names: tuple[str, ...] | 
     theta = 2.0 * np.pi * np.arange(n_angles) / n_angles
     state = setup.frames(t)
     rep = np.repeat(np.arange(t.size), n_angles)
-    st = FrameState(state.phi_rad[rep], state.colatitude_rad, state.beta[rep])
+    st = state.take(rep)
     g = basis(setup, t[rep], np.tile(np.pi - theta, t.size), names, state=st)
     g = g.reshape(t.size, n_angles, len(names))
     c = (2.0 / n_angles) * np.einsum("nak,a->nk", g, np.cos(2 * theta))

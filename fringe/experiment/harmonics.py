@@ -13,6 +13,16 @@ terms, higher harmonics) is reported as ``uncaptured_rms``.
 Annual modulation: the projection is repeated at instants spread over a sidereal year and each
 harmonic coefficient is fitted against the orbital phase Omega T (C3) with
 {1, sin OT, cos OT, sin 2 OT, cos 2 OT}.
+
+Earth orientation: phi is the angle about the celestial intermediate pole (CIP), so the table
+holds the harmonics of the coefficients rotated into the celestial intermediate axes by the
+IAU 2006/2000A matrix Q (:func:`fringe.frames.celestial_to_intermediate`) at the reference
+instant, K -> Q K Qᵀ (velocities likewise). Q moves away from the identity by about 9.7e-5 rad
+a year (precession since J2000; 2.4e-3 rad in 2026), which moves a few 1e-3 of each harmonic
+between the harmonics of the SCCEF table (e.g. ke_ZZ into C_s1, C_c1). The annual table keeps Q
+at its reference-instant value, so it shows the orbital modulation only; over a year Q itself
+changes by about 1e-4 rad (a relative change of the harmonics of that order), which fits of
+records follow sample by sample (docs/theory.md).
 """
 
 from __future__ import annotations
@@ -25,7 +35,13 @@ from numpy.typing import NDArray
 from fringe.constants import DAY_S, SIDEREAL_YEAR_DAYS
 from fringe.conventions import HARMONIC_NAMES
 from fringe.experiment.basis import Setup, basis, signal
-from fringe.frames import FrameState, earth_velocity_beta, orbital_phase_rad, rotation_velocity_beta
+from fringe.frames import (
+    FrameState,
+    celestial_to_intermediate,
+    earth_velocity_beta,
+    orbital_phase_rad,
+    rotation_velocity_beta,
+)
 
 ORBIT_TERMS = ("mean", "sin_OT", "cos_OT", "sin_2OT", "cos_2OT")
 
@@ -33,15 +49,17 @@ N_THETA = 16
 N_PHI = 32
 
 
-def _grid_state(setup: Setup, t_ref_s: float):
+def _grid_state(setup: Setup, t_ref_s: float, c2i: NDArray | None = None):
     theta = 2.0 * np.pi * np.arange(N_THETA) / N_THETA
     phi = 2.0 * np.pi * np.arange(N_PHI) / N_PHI
     th, ph = np.meshgrid(theta, phi, indexing="ij")          # (N_THETA, N_PHI)
     th, ph = th.ravel(), ph.ravel()
     beta = np.repeat(earth_velocity_beta(setup.epoch, [t_ref_s]), th.size, axis=0)
+    if c2i is None:
+        c2i = celestial_to_intermediate(setup.epoch, [t_ref_s])[0]
     if setup.include_rotation_velocity:
-        beta = beta + rotation_velocity_beta(ph, setup.site.axis_distance_m)
-    state = FrameState(ph, setup.site.colatitude_rad, beta)
+        beta = beta + rotation_velocity_beta(ph, setup.site.axis_distance_m, c2i)
+    state = FrameState(ph, setup.site.colatitude_rad, beta, c2i=c2i)
     return th, ph, state
 
 
@@ -56,8 +74,13 @@ def _project(g: NDArray, th: NDArray, ph: NDArray) -> tuple[NDArray, NDArray]:
 
 
 def harmonics_at(setup: Setup, t_ref_s: float, params: dict[str, float] | None = None,
-                 names: tuple[str, ...] | None = None) -> tuple[NDArray, NDArray, tuple]:
+                 names: tuple[str, ...] | None = None, c2i: NDArray | None = None
+                 ) -> tuple[NDArray, NDArray, tuple]:
     """C10 coefficients at one instant.
+
+    The lab axes turn about the celestial intermediate pole of the instant: the frames use the
+    celestial-to-intermediate matrix Q at ``t_ref_s`` (or ``c2i``, a (3, 3) Q to use instead),
+    so the harmonics are those of the coefficients rotated by Q (module docstring).
 
     Returns
     -------
@@ -69,7 +92,7 @@ def harmonics_at(setup: Setup, t_ref_s: float, params: dict[str, float] | None =
     labels : tuple of str
         The column labels.
     """
-    th, ph, state = _grid_state(setup, t_ref_s)
+    th, ph, state = _grid_state(setup, t_ref_s, c2i)
     az = np.pi - th
     if params is not None or not setup.theory.linear:
         g = signal(setup, params or {}, np.zeros_like(th), az, state=state)[:, None]
@@ -179,10 +202,12 @@ def harmonic_table(setup: Setup, t_ref_s: float, values: dict[str, float] | None
     """
     values = dict(values or {})
     params = values if not setup.theory.linear else None
-    at_ref, unc, labels = harmonics_at(setup, t_ref_s, params)
+    c2i = celestial_to_intermediate(setup.epoch, [t_ref_s])[0]
+    at_ref, unc, labels = harmonics_at(setup, t_ref_s, params, c2i=c2i)
     year_s = SIDEREAL_YEAR_DAYS * DAY_S
     t_orb = t_ref_s + year_s * np.arange(n_orbit) / n_orbit
-    per = np.stack([harmonics_at(setup, float(t), params)[0] for t in t_orb])   # (m, 10, k)
+    per = np.stack([harmonics_at(setup, float(t), params, c2i=c2i)[0]
+                    for t in t_orb])                                          # (m, 10, k)
     op = orbital_phase_rad(setup.epoch, t_orb)
     design = np.stack([np.ones_like(op), np.sin(op), np.cos(op), np.sin(2 * op),
                        np.cos(2 * op)], axis=1)

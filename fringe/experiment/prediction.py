@@ -16,7 +16,12 @@ import numpy as np
 from fringe.experiment.basis import CHUNK_SAMPLES, signal
 from fringe.experiment.harmonics import HarmonicTable, harmonic_table
 from fringe.experiment.scenario import Scenario
-from fringe.frames import FrameState, earth_velocity_beta, rotation_velocity_beta
+from fringe.frames import (
+    FrameState,
+    celestial_to_intermediate,
+    earth_velocity_beta,
+    rotation_velocity_beta,
+)
 
 
 @dataclass(frozen=True)
@@ -76,9 +81,10 @@ def signal_map(scenario: Scenario, t_ref_s: float, n_azimuth: int = 73, n_phi: i
     ph = np.linspace(0.0, 360.0, n_phi)
     a2, p2 = np.meshgrid(np.radians(az), np.radians(ph))
     beta = np.repeat(earth_velocity_beta(setup.epoch, [t_ref_s]), a2.size, axis=0)
+    c2i = celestial_to_intermediate(setup.epoch, [t_ref_s])[0]
     if setup.include_rotation_velocity:
-        beta = beta + rotation_velocity_beta(p2.ravel(), setup.site.axis_distance_m)
-    state = FrameState(p2.ravel(), setup.site.colatitude_rad, beta)
+        beta = beta + rotation_velocity_beta(p2.ravel(), setup.site.axis_distance_m, c2i)
+    state = FrameState(p2.ravel(), setup.site.colatitude_rad, beta, c2i=c2i)
     s = signal(setup, scenario.coefficients, np.zeros(a2.size), a2.ravel(), state=state)
     return az, ph, s.reshape(a2.shape)
 

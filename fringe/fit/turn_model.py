@@ -33,27 +33,18 @@ def _frozen_model(setup: Setup, t: NDArray, names, params) -> tuple[NDArray, NDA
     state = setup.frames(t)            # once: the ephemeris spline is built once per call
     if t.size > MODEL_BATCH:
         parts = [_frozen_model_batch(setup, t[i:i + MODEL_BATCH], names, params,
-                                     _slice_state(state, slice(i, i + MODEL_BATCH)))
+                                     state.take(slice(i, i + MODEL_BATCH)))
                  for i in range(0, t.size, MODEL_BATCH)]
         return tuple(np.concatenate([p[j] for p in parts]) for j in range(3))
     return _frozen_model_batch(setup, t, names, params, state)
 
 
-def _slice_state(state, sl):
-    from fringe.frames import FrameState
-
-    return FrameState(state.phi_rad[sl], state.colatitude_rad, state.beta[sl],
-                      None if state.orbital_phase_rad is None else state.orbital_phase_rad[sl])
-
-
 def _frozen_model_batch(setup, t, names, params, state):
-    from fringe.frames import FrameState
-
     theta = 2.0 * np.pi * np.arange(N_ANGLES) / N_ANGLES
     if params is None:
         return _projected_basis(setup, state, theta, names)
     rep = np.repeat(np.arange(t.size), N_ANGLES)
-    st = FrameState(state.phi_rad[rep], state.colatitude_rad, state.beta[rep])
+    st = state.take(rep)
     az = np.tile(np.pi - theta, t.size)
     g = signal(setup, params, t[rep], az, state=st).reshape(t.size, N_ANGLES, 1)
     c = (2.0 / N_ANGLES) * np.einsum("nak,a->nk", g, np.cos(2 * theta))

@@ -28,6 +28,20 @@ def _short_scenario(tmp_path, extra="", days=0.25):
     return p
 
 
+def _intermediate_xy(utc):
+    """(Q K Qᵀ)^XY for a unit ke_XY, Q = erfa.c2i06a at the UTC instant ``utc``."""
+    import erfa
+
+    date, clock = utc.rstrip("Z").split("T")
+    y, mo, dd = (int(x) for x in date.split("-"))
+    h, mi, s = clock.split(":")
+    tt = erfa.taitt(*erfa.utctai(*erfa.dtf2d("UTC", y, mo, dd, int(h), int(mi), float(s))))
+    q = erfa.c2i06a(*tt)
+    k = np.zeros((3, 3))
+    k[0, 1] = k[1, 0] = 1.0
+    return float((q @ k @ q.T)[0, 1])
+
+
 def test_predict_writes_table_figure_and_series(tmp_path):
     sc = _short_scenario(tmp_path)
     before = _sha(sc)
@@ -41,12 +55,14 @@ def test_predict_writes_table_figure_and_series(tmp_path):
     d = json.loads((tmp_path / "p" / "harmonics.json").read_text())
     chi = math.radians(90.0 - 47.62)
     # docs/references.md [R-lab-fourier] (derived): C_s2 = 1/2 (1 + cos^2 chi) K^XY,
-    # B_c2 = cos chi K^XY;
+    # B_c2 = cos chi K^XY, with K the tensor in the intermediate axes of the reference instant,
+    # Q K Qᵀ ([R-time-earth-orientation]; Q from pyerfa 2.0.1.5 c2i06a at TT);
     # the table is in Hz (carrier 2.82e14 Hz); rtol 1e-6 covers the O(beta^2) boost terms
+    k_xy = _intermediate_xy(d["harmonics"]["t_ref_utc"]) * 1e-17 * 2.82e14
     cs2 = d["harmonics"]["contribution"]["ke_XY"]["Cs2"]
     bc2 = d["harmonics"]["contribution"]["ke_XY"]["Bc2"]
-    assert cs2 == pytest.approx(0.5 * (1 + math.cos(chi) ** 2) * 1e-17 * 2.82e14, rel=1e-6, abs=0)
-    assert bc2 == pytest.approx(math.cos(chi) * 1e-17 * 2.82e14, rel=1e-6, abs=0)
+    assert cs2 == pytest.approx(0.5 * (1 + math.cos(chi) ** 2) * k_xy, rel=1e-6, abs=0)
+    assert bc2 == pytest.approx(math.cos(chi) * k_xy, rel=1e-6, abs=0)
     assert "Cs2" in res.output and "wrote" in res.output
 
 

@@ -5,6 +5,7 @@ Anchors [R-...] are entries of docs/references.md.
 
 import json
 
+import erfa
 import numpy as np
 import pytest
 
@@ -45,9 +46,19 @@ def setup_for(chi, apparatus=None, theory=SME, rotation=False):
 
 
 def freeze_orbit(monkeypatch, beta_orbit, orbital_phase=0.0):
-    """Replace the ephemeris inside the projection by the circular orbit at one phase."""
+    """Replace the ephemeris inside the projection by the circular orbit at one phase, and the
+    Earth orientation by a pole along SCCEF Z: the closed forms' model (Q = 1,
+    docs/references.md [R-time-earth-orientation]).
+    """
     value = circular_orbit_beta([orbital_phase], beta_orbit, ETA)
     monkeypatch.setattr(harmonics, "earth_velocity_beta", lambda epoch, t_s: value.copy())
+    fix_pole(monkeypatch)
+
+
+def fix_pole(monkeypatch):
+    """The celestial-to-intermediate matrix Q inside the projection set to the identity."""
+    monkeypatch.setattr(harmonics, "celestial_to_intermediate",
+                        lambda epoch, t_s: np.eye(3)[None].repeat(len(t_s), axis=0))
 
 
 def unit_ke(name):
@@ -123,6 +134,35 @@ def test_fourier_table_machine_precision_random_chi(monkeypatch):
         closed = fourier_table(*k_components(oracle.k_rms(1.0, V_SUN_BETA)), chi)
         np.testing.assert_allclose(rms_coef[:, 0], closed, rtol=0,
                                    atol=1e-14 * np.abs(closed).max())
+
+
+@pytest.mark.parametrize("utc", ["1990-06-01T00:00:00Z", "2015-06-01T00:00:00Z",
+                                 "2026-04-01T00:00:00Z", "2040-06-01T00:00:00Z"])
+@pytest.mark.filterwarnings("ignore::fringe.errors.TimeScaleWarning")   # 2040: future leap seconds
+def test_harmonics_are_those_of_the_tensor_in_intermediate_axes(monkeypatch, utc):
+    """With the real Earth orientation the table is the closed form of Q K Qᵀ, not of K.
+
+    Q (IAU 2006/2000A, ERFA c2i06a) at the reference instant carries K into the axes the lab turns
+    about ([R-time-earth-orientation]); no lab velocity, so the projection is exact algebra.
+    """
+    monkeypatch.setattr(harmonics, "earth_velocity_beta", lambda epoch, t_s: np.zeros((1, 3)))
+    chi = CHI
+    setup = Setup(site=Site(latitude_deg=90.0 - np.degrees(chi), longitude_deg=0.0),
+                  epoch=Epoch(utc), apparatus=CavityPair(), theory=SME,
+                  include_rotation_velocity=False)
+    coef, _, labels = harmonics.harmonics_at(setup, 0.0, names=KE_NAMES)
+    q = erfa.c2i06a(*setup.epoch.tt_jd([0.0]))[0]        # reference: pyerfa 2.0.1.5 c2i06a
+    for j, name in enumerate(labels):
+        k_cirs = q @ unit_ke(name) @ q.T
+        # interpolation of Q (<= 1.2e-11, [R-time-T15]) times O(1) entries, plus rounding
+        np.testing.assert_allclose(coef[:, j], fourier_table(*k_components(k_cirs), chi),
+                                   rtol=0, atol=1e-10)
+    # the pole's offset from SCCEF Z moves ke_ZZ into the m = 1 harmonics: C_c1, C_s1 are
+    # -sc (Q K Qᵀ)^{XZ, YZ} ~ -(3/2) sc (X, Y) of the pole ([R-time-earth-orientation])
+    zz = coef[:, labels.index("ke_ZZ")]
+    pole = np.hypot(q[2, 0], q[2, 1])
+    m1 = np.hypot(zz[IDX["Cs1"]], zz[IDX["Cc1"]])
+    assert m1 == pytest.approx(1.5 * np.sin(chi) * np.cos(chi) * pole, rel=1e-3)
 
 
 @pytest.mark.parametrize("ot", [0.0, 1.1, 2.5, 4.4])

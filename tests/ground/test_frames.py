@@ -23,6 +23,8 @@ from fringe.constants import (
 from fringe.errors import ConfigError
 from fringe.frames import (
     Epoch,
+    FrameState,
+    celestial_to_intermediate,
     circular_orbit_beta,
     earth_velocity_beta,
     era_rad,
@@ -327,6 +329,115 @@ def test_rotation_matrix_properties(chi_deg):
             assert ri[0, 2] < 0.0
     # C5: at phi = 0 the lab y axis lies along SCCEF Y
     np.testing.assert_allclose(rotation_sccef_to_lab(chi, [0.0])[0, 1], [0, 1, 0], atol=1e-15)
+
+
+# ---- full Earth orientation against ERFA's celestial-to-terrestrial matrix -------------------
+
+def _lab_from_terrestrial(site):
+    """Geodetic (south, east, up) axes in terrestrial components: R_z at phi = east longitude."""
+    return rotation_sccef_to_lab(site.colatitude_rad, [site.east_longitude_rad])[0]
+
+
+def _c2t(epoch, t_s, xp_rad=0.0, yp_rad=0.0):
+    """reference: pyerfa 2.0.1.5 c2t06a(TT, UT1, xp, yp), IAU 2006/2000A, CIO based."""
+    (tt1, tt2), (ut1, ut2) = epoch.tt_jd(t_s), epoch.ut1_jd(t_s)
+    return erfa.c2t06a(tt1, tt2, ut1, ut2, xp_rad, yp_rad)
+
+
+def _angle_rad(r):
+    """Rotation angle of the matrices r (n, 3, 3)."""
+    return np.arccos(np.clip((np.trace(r, axis1=1, axis2=2) - 1.0) / 2.0, -1.0, 1.0))
+
+
+EARTH_ORIENTATION_EPOCHS = ["1990-03-01T00:00:00Z", "2000-01-01T12:00:00Z",
+                            "2015-06-01T00:00:00Z", "2025-06-01T00:00:00Z",
+                            "2030-06-01T00:00:00Z", "2040-11-15T06:00:00Z"]
+
+
+@pytest.mark.filterwarnings("ignore::fringe.errors.TimeScaleWarning")   # 2030+: future UTC
+@pytest.mark.parametrize("utc", EARTH_ORIENTATION_EPOCHS)
+def test_rotation_is_the_full_earth_orientation(utc):
+    """R(t) = geodetic axes x ERFA c2t06a with polar motion zero ([R-time-earth-orientation]).
+
+    Before the precession-nutation matrix was included, R turned the lab about the SCCEF Z axis
+    and was off by the pole's offset from it: 0.93 mrad in 1990, 1.50 mrad in 2015, 2.47 mrad in
+    2025, 2.99 mrad in 2030, 3.94 mrad in 2040 (measured, [R-time-T14]).
+    """
+    site = Site(latitude_deg=47.62, longitude_deg=11.38, height_m=600.0)
+    epoch = Epoch(utc)
+    t_s = np.array([0.0, 3_000.0, 40_000.0, 5.3 * 86_400.0])
+    state = frame_state(epoch, t_s, site)
+    ref = _lab_from_terrestrial(site) @ _c2t(epoch, t_s)
+    # [R-time-T15]: c2i spline <= 1.2e-11; c2t06a also applies the TIO locator s'
+    # (-47 uas per century, < 1e-10 rad 1990-2040, IERS Conventions 2010 ch. 5, from memory):
+    # tol 2e-10
+    assert np.abs(state.rotation - ref).max() <= 2e-10
+    # the pole-fixed rotation (Q = 1) misses by the pole's offset from SCCEF Z (> 2e-5 rad
+    # at every epoch listed, [R-time-T14])
+    pole_fixed = rotation_sccef_to_lab(site.colatitude_rad, state.phi_rad)
+    assert _angle_rad(pole_fixed @ np.transpose(ref, (0, 2, 1))).min() > 2e-5
+
+
+@pytest.mark.parametrize("utc, offset_rad", [
+    # [R-time-T14] (source: pyerfa 2.0.1.5 c2t06a, measured): rotation angle between the
+    # pole-fixed R and the full orientation at 00:00 UTC, 5 figures (tol half a unit, 5e-8 rad)
+    ("1990-03-01T00:00:00Z", 0.9324e-3), ("2015-06-01T00:00:00Z", 1.5003e-3),
+    ("2025-06-01T00:00:00Z", 2.4726e-3), ("2030-06-01T00:00:00Z", 2.9857e-3)])
+@pytest.mark.filterwarnings("ignore::fringe.errors.TimeScaleWarning")   # 2030: future UTC
+def test_size_of_the_precession_nutation(utc, offset_rad):
+    site = Site(latitude_deg=47.62, longitude_deg=11.38, height_m=600.0)
+    epoch = Epoch(utc)
+    ref = _lab_from_terrestrial(site) @ _c2t(epoch, [0.0])
+    phi = sidereal_angle_rad(epoch, [0.0], site.east_longitude_rad)
+    pole_fixed = rotation_sccef_to_lab(site.colatitude_rad, phi)
+    assert _angle_rad(pole_fixed @ np.transpose(ref, (0, 2, 1)))[0] == pytest.approx(
+        offset_rad, abs=5e-8)
+
+
+def test_polar_motion_is_the_neglected_part():
+    """With a measured pole position the full orientation differs from R by |(x_p, y_p)|."""
+    site = Site(latitude_deg=47.62, longitude_deg=11.38, height_m=600.0)
+    epoch = Epoch("2015-06-01T00:00:00Z")
+    t_s = np.array([0.0, 21_600.0, 43_200.0])
+    # [R-time-T16] (source: IERS EOP C04 series as bundled with astropy-iers-data
+    # 0.2026.11.2.0.34.55): x_p = 0.090998", y_p = 0.455999" on 2015-06-01
+    xp, yp = (math.radians(v / 3600.0) for v in (0.090998, 0.455999))
+    state = frame_state(epoch, t_s, site)
+    ref = _lab_from_terrestrial(site) @ _c2t(epoch, t_s, xp, yp)
+    angle = _angle_rad(state.rotation @ np.transpose(ref, (0, 2, 1)))
+    # polar motion is a rotation by (x_p, y_p) about two equatorial axes of the terrestrial
+    # frame (derived): its angle is hypot(x_p, y_p) = 2.27e-6 rad, to second order (tol 1e-3)
+    np.testing.assert_allclose(angle, math.hypot(xp, yp), rtol=1e-3)
+
+
+@pytest.mark.parametrize("start_s, span_s", [(0.0, 365.25 * 86_400.0), (1.7e7, 32_768.0)])
+def test_c2i_spline_against_direct(start_s, span_s):
+    rng = np.random.default_rng(15)
+    t_s = np.sort(start_s + rng.uniform(0.0, span_s, 300))
+    got = celestial_to_intermediate(YEAR_2026, t_s)
+    direct = erfa.c2i06a(*YEAR_2026.tt_jd(t_s))
+    # [R-time-T15] (source: pyerfa 2.0.1.5, measured): <= 1.2e-11 per element (12 h grid);
+    # tol 2e-11
+    assert np.abs(got - direct).max() <= 2e-11
+    assert celestial_to_intermediate(YEAR_2026, []).shape == (0, 3, 3)
+
+
+def test_frame_state_take_keeps_the_orientation():
+    site = Site(latitude_deg=-37.5, longitude_deg=-70.0, height_m=0.0)
+    state = frame_state(YEAR_2026, np.array([0.0, 1e5, 2e5]), site)
+    idx = np.array([2, 0, 0])
+    sub = state.take(idx)
+    np.testing.assert_array_equal(sub.rotation, state.rotation[idx])
+    np.testing.assert_array_equal(sub.orbital_phase_rad, state.orbital_phase_rad[idx])
+    frozen = FrameState(state.phi_rad, state.colatitude_rad, state.beta, c2i=state.c2i[1])
+    assert frozen.take(idx).c2i is frozen.c2i           # one Q for all samples stays shared
+    # the identity Q gives the pole-fixed matrix of [R-lab-R]; any Q gives R_z Q (exact
+    # algebra: rounding only), per sample or one Q for all
+    pole_fixed = rotation_sccef_to_lab(site.colatitude_rad, state.phi_rad)
+    np.testing.assert_allclose(
+        rotation_sccef_to_lab(site.colatitude_rad, state.phi_rad, np.eye(3)), pole_fixed, atol=0)
+    np.testing.assert_allclose(state.rotation, pole_fixed @ state.c2i, rtol=0, atol=1e-15)
+    np.testing.assert_allclose(frozen.rotation, pole_fixed @ state.c2i[1], rtol=0, atol=1e-15)
 
 
 @pytest.mark.parametrize("latitude_deg", [0.0, 52.5, -37.5, 80.0])

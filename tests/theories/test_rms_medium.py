@@ -52,8 +52,13 @@ RMS = RobertsonMansouriSexl(sun_velocity_beta=V_SUN_BETA)
 
 @pytest.fixture
 def no_orbit(monkeypatch):
-    """Freeze the Earth's orbital velocity at zero inside the harmonic projection."""
+    """Freeze the Earth's orbital velocity at zero inside the harmonic projection, with the pole
+    along SCCEF Z (Q = 1: the closed forms' model, docs/references.md
+    [R-time-earth-orientation]).
+    """
     monkeypatch.setattr(harmonics, "earth_velocity_beta", lambda epoch, t_s: np.zeros((1, 3)))
+    monkeypatch.setattr(harmonics, "celestial_to_intermediate",
+                        lambda epoch, t_s: np.eye(3)[None].repeat(len(t_s), axis=0))
 
 
 # ---- R1-R7 -----------------------------------------------------------------------------------
