@@ -33,6 +33,7 @@ OPTION_SPELLING = (
     ("scratch_dir=DIR", "--scratch-dir DIR"),
     ("kt/is_", "--kt/--is"),
     ("overwrite=True", "--overwrite"),
+    ("azimuth_log=PATH", "--azimuth-log FILE"),
 )
 # a name counts only where it stands alone (not inside a longer name or a path)
 _SPELLING = re.compile(r"(?<![\w./\\-])(" + "|".join(re.escape(a) for a, _ in OPTION_SPELLING)
@@ -40,8 +41,9 @@ _SPELLING = re.compile(r"(?<![\w./\\-])(" + "|".join(re.escape(a) for a, _ in OP
 
 
 def as_options(message: str) -> str:
-    """``message`` with the library's field and argument names spelled as the command's
-    options (:data:`OPTION_SPELLING`).
+    """``message`` with the library's names spelled as the command's options.
+
+    The settings fields and keyword arguments of :data:`OPTION_SPELLING` become options.
     """
     table = dict(OPTION_SPELLING)
     return _SPELLING.sub(lambda m: table[m.group(1)], message)
@@ -125,5 +127,6 @@ class RegistryChoice(click.Choice):
 
     @property
     def choices(self) -> tuple[str, ...]:
+        """The registry's names, read when the command runs."""
         module, attribute = self.registry
         return tuple(getattr(importlib.import_module(module), attribute))
