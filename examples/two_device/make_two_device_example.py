@@ -22,8 +22,8 @@ Run::
 
     python examples/two_device/make_two_device_example.py OUTDIR [--days 1.0] [--gate-s 2.0]
         [--kind plain] [--seed 7]
-    fringe import OUTDIR/counter.csv --meta OUTDIR/two_device.toml \\
-        --azimuth-log OUTDIR/encoder.csv --out OUTDIR/two_device.h5
+    fringe import OUTDIR/counter.csv --meta OUTDIR/two_device.toml
+        --azimuth-log OUTDIR/encoder.csv --out OUTDIR/two_device.h5   (one line)
     fringe import OUTDIR/synchronous.csv --meta OUTDIR/synchronous.toml --out OUTDIR/sync.h5
 """
 
