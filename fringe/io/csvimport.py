@@ -492,7 +492,11 @@ class _Import:
                 az = _numbers(table, cells["azimuth"], lines, acol, False)
                 _first_bad(table, ~np.isfinite(az), cells["azimuth"], lines, acol,
                            "a finite azimuth")
-                yield t_s + offset, az, lines
+                shifted = t_s + offset
+                _first_bad(table, np.diff(shifted, prepend=-np.inf) <= 0, cells["time"], lines,
+                           tcol, "times that stay strictly increasing once moved onto the "
+                           "signal's clock (azimuth_log.clock_offset_s, epoch_utc)")
+                yield shifted, az, lines
 
         turn = 360.0 if log["units"]["azimuth"] == "deg" else 2.0 * np.pi
         self.track = AzimuthTrack(blocks(), turn, log["max_gap_s"])

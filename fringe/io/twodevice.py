@@ -40,17 +40,41 @@ _LOG_KEYS = ("columns", "units", "epoch_utc", "clock_offset_s", "max_gap_s", "on
              "delimiter", "comment")
 
 
+#: Largest |clock_offset_s| and gate_s accepted, s (a year; a larger value is a slip, and
+#: would swamp the precision of float64 times).
+MAX_SECONDS = 3.2e7
+
+
 def _number(table: Mapping, key: str, err, prefix: str, *, positive: bool = False,
-            nonnegative: bool = False, nonzero: bool = False) -> float:
+            nonnegative: bool = False, nonzero: bool = False, bound: float | None = None
+            ) -> float:
     value = table[key]
     if isinstance(value, bool) or not isinstance(value, (int, float)) \
             or not math.isfinite(value):
         raise err(f"{prefix}.{key}", f"expected a finite number, got {value!r}")
-    for flag, ok, text in ((positive, value > 0, "> 0"), (nonnegative, value >= 0, ">= 0"),
-                           (nonzero, value != 0, "non-zero")):
+    if bound is not None and abs(value) > bound:
+        raise err(f"{prefix}.{key}", f"expected a number of magnitude <= {bound:g} s, got "
+                  f"{value!r}")
+    for flag, ok, text in ((positive, value > 0, "a number > 0"),
+                           (nonnegative, value >= 0, "a number >= 0"),
+                           (nonzero, value != 0, "a non-zero number")):
         if flag and not ok:
-            raise err(f"{prefix}.{key}", f"expected a number {text}, got {value!r}")
+            raise err(f"{prefix}.{key}", f"expected {text}, got {value!r}")
     return float(value)
+
+
+#: What each required entry is, for the "missing entry" message.
+_WHAT = {"scale_factor": "the signal units per instrument unit",
+         "scale_rel_sigma": "the relative standard uncertainty of scale_factor (>= 0)",
+         "instrument_units": "the units the readings were taken in",
+         "gate_s": "the counter's gate time in s",
+         "kind": "'plain' or 'overlapping'",
+         "stamp": "where the timestamp falls in the averaging window: 'start', 'centre' or "
+                  "'end'",
+         "columns": "a table with the time and azimuth header names",
+         "units": "a table with the azimuth units (and the time units, default 's')",
+         "max_gap_s": "the largest spacing of azimuth samples to interpolate across, s",
+         "time": "a header name", "azimuth": "a header name or units"}
 
 
 def _keys(table: Mapping, allowed, required, err, prefix: str) -> None:
@@ -59,7 +83,7 @@ def _keys(table: Mapping, allowed, required, err, prefix: str) -> None:
             raise err(f"{prefix}.{key}", f"expected only the keys {', '.join(allowed)}")
     for key in required:
         if key not in table:
-            raise err(f"{prefix}.{key}", "missing entry")
+            raise err(f"{prefix}.{key}", f"missing entry; expected {_WHAT[key]}")
 
 
 def _choice(table: Mapping, key: str, allowed, err, prefix: str) -> str:
@@ -91,7 +115,7 @@ def check_calibration(table: Mapping, err) -> dict:
 def check_gate(table: Mapping, err) -> dict:
     """Check ``[gate]``: gate_s (> 0), kind (plain/overlapping), stamp (start/centre/end)."""
     _keys(table, ("gate_s", "kind", "stamp"), ("gate_s", "kind", "stamp"), err, "gate")
-    return {"gate_s": _number(table, "gate_s", err, "gate", positive=True),
+    return {"gate_s": _number(table, "gate_s", err, "gate", positive=True, bound=MAX_SECONDS),
             "kind": _choice(table, "kind", GATE_KINDS, err, "gate"),
             "stamp": _choice(table, "stamp", GATE_STAMPS, err, "gate")}
 
@@ -136,14 +160,16 @@ def check_azimuth_log(table: Mapping, err, check_epoch: Callable) -> dict:
         _choice(out["units"], key, allowed, err, "azimuth_log.units")
     out["max_gap_s"] = _number(table, "max_gap_s", err, "azimuth_log", positive=True)
     if "clock_offset_s" in table:
-        out["clock_offset_s"] = _number(table, "clock_offset_s", err, "azimuth_log")
+        out["clock_offset_s"] = _number(table, "clock_offset_s", err, "azimuth_log",
+                                        bound=MAX_SECONDS)
     if "on_gap" in table:
         out["on_gap"] = _choice(table, "on_gap", GAP_ACTIONS, err, "azimuth_log")
     for key in ("delimiter", "comment"):
         if key in table:
             value = table[key]
+            what = "one character" if key == "delimiter" else "a string"
             if not isinstance(value, str) or (key == "delimiter" and len(value) != 1):
-                raise err(f"azimuth_log.{key}", f"expected {'one character' if key == 'delimiter' else 'a string'}, got {value!r}")  # noqa: E501
+                raise err(f"azimuth_log.{key}", f"expected {what}, got {value!r}")
             out[key] = value
     if table.get("epoch_utc") is not None:
         out["epoch_utc"] = check_epoch(table["epoch_utc"], err, "azimuth_log.epoch_utc")
@@ -204,7 +230,8 @@ class AzimuthTrack:
         inside : ndarray of bool
             Time within the log's span (first to last log sample).
         gap_s : ndarray
-            Spacing of the two log samples around each time, s (inf outside the span).
+            Spacing of the two log samples around each time, s (0 at a log sample's own time,
+            inf outside the span).
         line : ndarray of int
             CSV line of the log sample after each time (0 outside the span).
         """
@@ -221,10 +248,11 @@ class AzimuthTrack:
         line = np.zeros(t_s.size, np.int64)
         if n >= 2:
             t0, t1 = t[jj - 1], t[jj]
-            w = (t_s - t0) / (t1 - t0)
+            with np.errstate(invalid="ignore", divide="ignore"):   # t1 > t0 where inside
+                w = np.where(inside, (t_s - t0) / np.where(t1 > t0, t1 - t0, 1.0), 0.0)
             value = az[jj - 1] + w * (az[jj] - az[jj - 1])
             out = np.where(inside, value, np.nan)
-            gap = np.where(inside, t1 - t0, np.inf)
+            gap = np.where(inside, np.where(t_s == t0, 0.0, t1 - t0), np.inf)  # exact: no gap
             line = np.where(inside, self._line[jj], 0)
             keep = max(int(jj[-1]) - 1, 0)                  # later times need no earlier rows
             self._t, self._az, self._line = t[keep:], az[keep:], self._line[keep:]
