@@ -53,7 +53,7 @@ TRUTH = {"ke_XY": 4.0e-16, "ke_XZ": -3.0e-16, "ke_YZ": 2.0e-16, "ke_XXmYY": -5.0
 SUBSAMPLES = 8                                  # fine samples per gate
 
 
-def _scenario(days: float, interval_s: float):
+def _scenario(days: float, interval_s: float, truth: dict):
     doc = {"title": "two-device example (invented)", "site": SITE,
            "campaign": {"start_utc": EPOCH, "duration_days": days,
                         "sample_interval_s": interval_s},
@@ -62,15 +62,17 @@ def _scenario(days: float, interval_s: float):
            "turntable": {"motion": "continuous", "period_s": PERIOD_S, "sense": "ccw",
                          "start_azimuth_deg": 0.0},
            "theory": {"name": "sme"}, "noise": {"white_fm_adev_1s": 2e-15},
-           "coefficients": dict(TRUTH)}
+           "coefficients": dict(truth)}
     return scenario_from_dict(doc, "two-device example")
 
 
-def fine_record(days: float, gate_s: float, seed: int) -> dict:
+def fine_record(days: float, gate_s: float, seed: int, truth: dict | None = None,
+                workdir: str | None = None) -> dict:
     """The simulated beat on a grid of gate_s / SUBSAMPLES (time s, azimuth rad, beat Hz)."""
-    with tempfile.TemporaryDirectory() as tmp:
+    with tempfile.TemporaryDirectory(dir=workdir) as tmp:
         path = os.path.join(tmp, "fine.h5")
-        simulate(_scenario(days, gate_s / SUBSAMPLES), path, seed=seed)
+        simulate(_scenario(days, gate_s / SUBSAMPLES, TRUTH if truth is None else truth), path,
+                 seed=seed)
         with open_run(path) as run:
             data = run.read_all()
     data["azimuth"] = np.unwrap(data["azimuth"])
@@ -100,11 +102,15 @@ def _iso(epoch: datetime.datetime, t_s: np.ndarray) -> list[str]:
 
 
 def write_example(out: str, *, days: float = 1.0, gate_s: float = 2.0, kind: str = "plain",
-                  seed: int = 7, clock_offset_s: float = 0.35, encoder_interval_s: float = 0.5
-                  ) -> dict:
-    """Write the example's files into ``out``; returns their paths and the truth."""
+                  seed: int = 7, clock_offset_s: float = 0.35, encoder_interval_s: float = 0.5,
+                  truth: dict | None = None) -> dict:
+    """Write the example's files into ``out``; returns their paths and the truth.
+
+    ``truth`` replaces the invented TRUTH (the validation study draws one per campaign).
+    """
     os.makedirs(out, exist_ok=True)
-    fine = fine_record(days, gate_s, seed)
+    truth = dict(TRUTH if truth is None else truth)
+    fine = fine_record(days, gate_s, seed, truth, workdir=out)
     centre, reading = counter_readings(fine, gate_s, kind)
     window = gate_s * (2.0 if kind == "overlapping" else 1.0)
     az_centre = np.interp(centre, fine["time"], fine["azimuth"])
@@ -156,8 +162,8 @@ def write_example(out: str, *, days: float = 1.0, gate_s: float = 2.0, kind: str
                  '[units]\ntime = "s"\nazimuth = "deg"\nsignal = "Hz"\n\n'
                  f'[gate]\ngate_s = {gate_s}\nkind = "{kind}"\nstamp = "centre"\n')
     with open(paths["truth.json"], "w", encoding="utf-8") as fh:
-        json.dump({"coefficients": TRUTH, "gate_s": gate_s, "kind": kind}, fh, indent=1)
-    return {"paths": paths, "truth": dict(TRUTH)}
+        json.dump({"coefficients": truth, "gate_s": gate_s, "kind": kind}, fh, indent=1)
+    return {"paths": paths, "truth": truth}
 
 
 def main() -> None:

@@ -7,6 +7,9 @@ window's centre, the merge interpolates a linear motion exactly.
 
 from __future__ import annotations
 
+import importlib.util
+from pathlib import Path
+
 import h5py
 import numpy as np
 import pytest
@@ -171,3 +174,34 @@ def test_gap_dropped_on_request(tmp_path):
         t = run.read_all(("time",))["time"]
         assert run.read_group_attrs("provenance")["n_dropped"] == 3
     assert list(np.setdiff1d(t_sig, t)) == [21.0, 22.0, 23.0] and s.n_dropped == 3
+
+
+STEPPED = Path(__file__).resolve().parents[2] / "examples" / "stepped_1893"
+
+
+def test_the_invented_1893_session_is_reproducible(tmp_path):
+    spec = importlib.util.spec_from_file_location("stepped", STEPPED / "make_stepped_session.py")
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    written = mod.write(str(tmp_path))
+    assert Path(written).read_bytes() == (STEPPED / "session.csv").read_bytes()
+
+
+def test_the_invented_1893_session_imports(tmp_path):
+    """6 turns x 16 marks, divisions x 0.02 = fringes, weights = readings averaged."""
+    s = import_csv(STEPPED / "session.csv", tmp_path / "s.h5", metadata=STEPPED / "session.toml")
+    rows = np.loadtxt(STEPPED / "session.csv", delimiter=",", comments="#", skiprows=4)
+    with open_run(s.out_path) as run:
+        assert (run.n_samples, run.epoch_utc, run.format_version) == (96, "1893-10-17T09:30:00Z",
+                                                                      2)
+        assert run.apparatus["kind"] == "michelson" and run.weighted
+        assert run.signal_attrs == {"scale_factor": 0.02, "scale_rel_sigma": 0.04,
+                                    "instrument_units": "micrometer divisions"}
+        got = run.read_all(("time", "azimuth", "signal", "weight"))
+    np.testing.assert_array_equal(got["time"], rows[:, 0])
+    np.testing.assert_allclose(got["azimuth"], np.radians(rows[:, 1]), rtol=1e-15)
+    np.testing.assert_allclose(got["signal"], rows[:, 2] * 0.02, rtol=1e-15)
+    np.testing.assert_array_equal(got["weight"], rows[:, 3])
+    assert set(np.unique(rows[:, 3])) <= {3.0, 4.0}
+    marks = np.diff(rows[:, 1])                          # 16 marks of 22.5 deg per turn
+    assert np.sum(marks < 0) == 5 and np.all(marks[marks > 0] == 22.5)
