@@ -205,3 +205,52 @@ def test_the_invented_1893_session_imports(tmp_path):
     assert set(np.unique(rows[:, 3])) <= {3.0, 4.0}
     marks = np.diff(rows[:, 1])                          # 16 marks of 22.5 deg per turn
     assert np.sum(marks < 0) == 5 and np.all(marks[marks > 0] == 22.5)
+
+
+def _h5(path, version, signal_attrs=None, weight=None):
+    """A small run file written with h5py alone (as docs/run-format.md shows)."""
+    t = np.arange(20.0)
+    with h5py.File(path, "w") as f:
+        f.attrs["fringe_format"] = "run"
+        f.attrs["fringe_format_version"] = version
+        f.create_group("site").attrs.update({"latitude_deg": 10.0, "longitude_deg": 20.0})
+        f.create_group("apparatus").attrs.update({"kind": "cavity-pair", "carrier_hz": 2.8e14})
+        s = f.create_group("samples")
+        s.create_dataset("time", data=t).attrs.update({"units": "s", "epoch_utc": EPOCH})
+        s.create_dataset("azimuth", data=t * 18.0).attrs["units"] = "deg"
+        sig = s.create_dataset("signal", data=np.cos(t))
+        sig.attrs["units"] = "Hz"
+        sig.attrs.update(signal_attrs or {})
+        if weight is not None:
+            s.create_dataset("weight", data=weight).attrs["units"] = "1"
+    return path
+
+
+@pytest.mark.parametrize("attrs, weight, obj, expected", [
+    ({"gate_s": 1.0}, None, "samples/signal.gate_kind",
+     "missing attribute; expected the counter's gate kind, 'plain' or 'overlapping' (with "
+     "gate_s)"),
+    ({"gate_s": -1.0, "gate_kind": "plain"}, None, "samples/signal.gate_s",
+     "expected a positive number, got -1.0"),
+    ({"gate_s": 1.0, "gate_kind": "boxcar"}, None, "samples/signal.gate_kind",
+     "expected 'plain' or 'overlapping', got 'boxcar'"),
+    ({"scale_rel_sigma": -0.1}, None, "samples/signal.scale_rel_sigma",
+     "expected a number >= 0, got -0.1"),
+    ({}, np.r_[np.ones(4), -1.0, np.ones(15)], "samples/weight",
+     "expected finite values > 0 or NaN (a dropped sample), got -1.0 at index 4"),
+], ids=["gate-without-kind", "gate-negative", "gate-kind", "rel-negative", "weight-negative"])
+def test_reader_refuses_bad_version_2_attributes(tmp_path, attrs, weight, obj, expected):
+    from fringe.errors import InputFileError
+
+    path = _h5(tmp_path / "v2.h5", 2, attrs, weight)
+    with pytest.raises(InputFileError) as info:
+        open_run(path).close()
+    assert str(info.value) == f"{path}: {obj}: {expected}"
+
+
+def test_version_1_ignores_version_2_names(tmp_path):
+    """In a version-1 file gate attributes are ignored and 'weight' is an auxiliary channel."""
+    path = _h5(tmp_path / "v1.h5", 1, {"gate_s": -5.0}, np.full(20, -1.0))
+    with open_run(path) as run:
+        assert run.format_version == 1 and run.signal_attrs == {} and not run.weighted
+        assert run.aux_channels == {"weight": "1"}
