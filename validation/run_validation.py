@@ -98,6 +98,10 @@ class Config:
     doc: dict = field(default_factory=dict)
     fits: tuple = (Fit("reduced-chi2"),)
     n_default: int = 400
+    #: "simulate": one run file from the simulator; "two-device": the invented counter +
+    #: encoder record of examples/two_device (gate averaging, own clocks), imported from its
+    #: two CSV files with fringe.io.csvimport.import_csv before the fit.
+    pipeline: str = "simulate"
 
 
 SIGN = "sign"
@@ -138,6 +142,10 @@ CONFIGS = {c.name: c for c in (
     Config("sme-short-turns", "(h) SME ke_*, white FM, 20 s turns (20 samples, 14 dof per turn)",
            "coverage", "sme", KE, {n: (0.0, 4e-17, U) for n in KE},
            doc={"turntable": {"period_s": 20.0}}),
+    Config("two-device", "(i) SME ke_*, counter (overlapping 2 s gates, stamped at the end) + "
+           "encoder (own clock and rate), 30 s turns, 0.5 d, two-device import",
+           "coverage", "sme", KE, {n: (0.0, 1e-16, U) for n in KE}, n_default=200,
+           pipeline="two-device"),
     Config("null", "null: nothing injected (SME, white FM)", "null", "sme", KE,
            {n: (0.0, 0.0, U) for n in KE}, n_default=1500),
     Config("scramble", "null: ~8 sigma injected, whole turns permuted in time", "scramble",
@@ -326,6 +334,8 @@ def run_campaign(job: tuple, workdir: str | os.PathLike | None = None) -> dict:
     cfg = CONFIGS[name]
     sim_seed, truth_seed, aux_seed = campaign_seeds(study_seed, name, index)
     truth = draw_truth(cfg, np.random.default_rng(truth_seed))
+    if cfg.pipeline == "two-device":
+        return two_device_campaign(cfg, index, sim_seed, truth, days, workdir)
     sc = scenario_from_dict(scenario_doc(cfg, truth, days), f"validation:{name}")
     out = {"config": name, "index": index, "seed": sim_seed, "truth": truth, "fits": {}}
     with tempfile.TemporaryDirectory(prefix="fringe-val-", dir=workdir) as tmp:
@@ -357,6 +367,37 @@ def run_campaign(job: tuple, workdir: str | os.PathLike | None = None) -> dict:
                                       orientation_at(sh["epoch_utc"], t_mid))
     if cfg.theory == "medium":
         out["mirror"] = medium_mirror(sc, truth)
+    return out
+
+
+TWO_DEVICE_EXAMPLE = Path(__file__).resolve().parents[1] / "examples" / "two_device" / \
+    "make_two_device_example.py"
+
+
+def two_device_campaign(cfg: Config, index: int, seed: int, truth: dict, days: float | None,
+                        workdir) -> dict:
+    """One campaign of the two-device pipeline: write the counter and encoder logs of the
+    invented example with this truth, import them as two devices, fit."""
+    import importlib.util
+
+    from fringe.io.csvimport import import_csv
+
+    spec = importlib.util.spec_from_file_location("two_device_example", TWO_DEVICE_EXAMPLE)
+    example = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(example)
+    out = {"config": cfg.name, "index": index, "seed": seed, "truth": truth, "fits": {}}
+    with tempfile.TemporaryDirectory(prefix="fringe-val-", dir=workdir) as tmp:
+        t0 = time.perf_counter()
+        got = example.write_example(tmp, days=days or 0.5, gate_s=2.0, kind="overlapping",
+                                    seed=seed, truth=truth)
+        p = got["paths"]
+        summary = import_csv(p["counter.csv"], Path(tmp) / "run.h5",
+                             metadata=p["two_device.toml"], azimuth_log=p["encoder.csv"])
+        out["sim_s"] = time.perf_counter() - t0
+        out["n_gaps"], out["n_glitches"] = 0, 0
+        out["n_dropped"] = summary.n_dropped
+        for fit in cfg.fits:
+            out["fits"][fit.label] = _fit_record(summary.out_path, cfg, fit)
     return out
 
 

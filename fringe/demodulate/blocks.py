@@ -37,6 +37,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import NDArray
 
+from fringe.demodulate.gate import block_rates, correct_blocks
 from fringe.demodulate.kernel import LEAK_KIND_CODES, block_fits
 from fringe.demodulate.kernel import block_starts as kernel_block_starts
 from fringe.demodulate.settings import DRIFT_TERMS, DemodSettings, leak_terms
@@ -60,7 +61,8 @@ def turn_boundaries(theta_rad: NDArray, theta0_rad: float, t_s: NDArray, max_gap
 
 
 def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_starts: NDArray,
-                      settings: DemodSettings, aux: dict[str, NDArray] | None = None
+                      settings: DemodSettings, aux: dict[str, NDArray] | None = None, *,
+                      weight: NDArray | None = None, gate: tuple[float, str] | None = None
                       ) -> TurnTable:
     """Fit every block of a contiguous sample range (compiled kernel, module docstring).
 
@@ -73,6 +75,13 @@ def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_star
     settings : DemodSettings
     aux : dict, optional
         Auxiliary channels (name -> (n,) array) demodulated with the same design.
+    weight : ndarray, shape (n,), optional
+        Sample weights (> 0, NaN = missing; the ``samples/weight`` channel): weighted least
+        squares, residual RMS of unit weight.
+    gate : (gate_s, kind), optional
+        The counter's gate (``samples/signal.gate_s`` and ``gate_kind``): the signal's m theta
+        amplitudes are divided by the gate factor (:mod:`fringe.demodulate.gate`); auxiliary
+        channels are not.
     """
     aux = aux or {}
     names = list(aux)
@@ -87,7 +96,12 @@ def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_star
         DRIFT_TERMS[settings.drift], settings.max_harmonic,
         np.array([LEAK_KIND_CODES[k] for k, _ in kinds], np.int64),
         np.array([j for _, j in kinds], np.int64), settings.min_samples,
-        np.radians(settings.max_angle_gap_deg))
+        np.radians(settings.max_angle_gap_deg),
+        np.ones(n) if weight is None else np.ascontiguousarray(weight, float))
+    if gate is not None:
+        starts = np.asarray(block_starts, np.int64)
+        correct_blocks(coef, ninv_2, leak, block_rates(np.asarray(t_s, float), theta, starts),
+                       settings.term_names, gate, ok)
     status = np.where(ok, TurnTable.ACCEPTED, TurnTable.PARTIAL).astype(np.int8)
     return TurnTable(t_mid_s=t_mid, t_start_s=t_lo, t_stop_s=t_hi, n_valid=vcount, coef=coef,
                      ninv_2=ninv_2, residual_rms=rms, angle_gap_deg=np.degrees(gap_rad),

@@ -49,6 +49,16 @@ class RecordInfo:
     max_gap_s: float
     aux_channels: tuple[str, ...]
     samples_per_turn: float = 16384.0
+    #: The counter's (gate_s, gate_kind) from samples/signal (format version 2), or None.
+    gate: tuple[float, str] | None = None
+    #: The record has a samples/weight channel (format version 2).
+    weighted: bool = False
+
+    @property
+    def channels(self) -> tuple[str, ...]:
+        """The channels stage 1 reads: time, azimuth, signal, [weight,] the auxiliary ones."""
+        return ("time", "azimuth", "signal") + (("weight",) if self.weighted else ()) \
+            + self.aux_channels
 
     @property
     def lookahead_samples(self) -> int:
@@ -70,6 +80,8 @@ def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = (
             if name not in run.aux_channels:
                 raise ConfigError(f"{path}: samples/{name}: no such auxiliary channel "
                                   f"(have {', '.join(run.aux_channels) or 'none'})")
+        attrs, weighted = run.signal_attrs, run.weighted
+    gate = (attrs["gate_s"], attrs["gate_kind"]) if "gate_s" in attrs else None
     t, az = first["time"], first["azimuth"]
     theta = np.unwrap(np.pi - az)
     span_t = t[-1] - t[0]
@@ -87,7 +99,8 @@ def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = (
     return RecordInfo(path=str(path), n_samples=n, theta0_rad=float(theta[0] % (2 * np.pi)),
                       turn_period_s=float(period), max_gap_s=float(max_gap),
                       aux_channels=tuple(aux_channels),
-                      samples_per_turn=float(period / max(float(np.median(dt)), 1e-9)))
+                      samples_per_turn=float(period / max(float(np.median(dt)), 1e-9)),
+                      gate=gate, weighted=weighted)
 
 
 def _read(run, start: int, stop: int, channels) -> dict:
@@ -113,7 +126,7 @@ def range_samples_and_blocks(info: RecordInfo, start: int, stop: int, run=None
     if run is None:
         with open_run(info.path, check_values=False) as own:
             return range_samples_and_blocks(info, start, stop, own)
-    channels = ("time", "azimuth", "signal") + info.aux_channels
+    channels = info.channels
     n = info.n_samples
     pos = min(stop + info.lookahead_samples, n)
     lo = max(start - 1, 0)
@@ -168,7 +181,8 @@ def demodulate_range(info: RecordInfo, settings: DemodSettings, start: int, stop
         return _empty(settings, info)
     data, block_starts = got
     return demodulate_blocks(data["time"], data["azimuth"], data["signal"], block_starts,
-                             settings, aux={c: data[c] for c in info.aux_channels})
+                             settings, aux={c: data[c] for c in info.aux_channels},
+                             weight=data.get("weight"), gate=info.gate)
 
 
 def _empty(settings: DemodSettings, info: RecordInfo) -> TurnTable:

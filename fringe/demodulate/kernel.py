@@ -145,7 +145,7 @@ def _largest_angle_gap(psi):
 # bit-identical numbers.
 @njit(cache=True, nogil=True)
 def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
-               max_harmonic, leak_kind, leak_power, min_samples, max_gap_rad):
+               max_harmonic, leak_kind, leak_power, min_samples, max_gap_rad, w):
     """Fit every block of a range (see the module docstring).
 
     Parameters
@@ -169,6 +169,9 @@ def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
         Least number of valid samples of an accepted block.
     max_gap_rad : float
         Largest allowed angular gap, rad.
+    w : (n,) float64
+        Sample weights (> 0; NaN = missing), 1 for an unweighted record: each sample's design
+        row and values are multiplied by sqrt(w), so ``rms`` is the noise of unit weight.
 
     Returns
     -------
@@ -223,7 +226,7 @@ def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
         lo = np.inf
         hi = -np.inf
         for i in range(a0, a1):
-            good = np.isfinite(y[i])
+            good = np.isfinite(y[i]) and np.isfinite(w[i])
             for k in range(n_aux):
                 good = good and np.isfinite(aux[i, k])
             if good:
@@ -246,23 +249,24 @@ def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
         # pass 2: design columns, then their products
         m = 0
         for i in range(a0, a1):
-            good = np.isfinite(y[i])
+            good = np.isfinite(y[i]) and np.isfinite(w[i])
             for k in range(n_aux):
                 good = good and np.isfinite(aux[i, k])
             if not good:
                 continue
+            sw = np.sqrt(w[i])
             tau = (t[i] - tm) / half
             tpow[1] = tau
             tpow[2] = tau * tau
             tpow[3] = tau * tau * tau
             _design_row(x, tau, cos_theta[i], sin_theta[i], nd, max_harmonic)
-            for j in range(p):
-                rows[j, m] = x[j]
-            vals[0, m] = y[i]
-            for k in range(n_aux):
-                vals[1 + k, m] = aux[i, k]
             for k in range(q):
-                vals[1 + n_aux + k, m] = x[unit_col[k]] * tpow[leak_power[k]]
+                vals[1 + n_aux + k, m] = x[unit_col[k]] * tpow[leak_power[k]] * sw
+            for j in range(p):
+                rows[j, m] = x[j] * sw
+            vals[0, m] = y[i] * sw
+            for k in range(n_aux):
+                vals[1 + k, m] = aux[i, k] * sw
             m += 1
         for j in range(p):
             for u in range(j + 1):

@@ -6,6 +6,7 @@ and the per-turn columns for the amplitudes file.
 
 from __future__ import annotations
 
+import dataclasses
 import datetime
 import json
 import logging
@@ -15,6 +16,7 @@ from concurrent.futures import ThreadPoolExecutor
 import numpy as np
 
 from fringe.demodulate.engine import stage1_store
+from fringe.demodulate.gate import gate_factor
 from fringe.demodulate.settings import DemodSettings
 from fringe.demodulate.turn_store import Scratch
 from fringe.errors import ConfigError, SimulationWarning, TimeScaleWarning
@@ -23,6 +25,7 @@ from fringe.experiment.basis import Setup
 from fringe.fit.settings import FitSettings
 from fringe.fit.stages import stage2_and_3
 from fringe.frames import Epoch, time_span_cautions
+from fringe.io.fit_calibration import SignalCalibration, scale_sigmas
 from fringe.io.fit_result import FitResult
 from fringe.io.fit_sections import (
     Covariance,
@@ -69,7 +72,8 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
     Parameters
     ----------
     path : str
-        Run file (format version 1).
+        Run file (format version 1 or 2; a version-2 file's gate, scale uncertainty and
+        weights are applied and recorded in ``FitResult.calibration``).
     settings : FitSettings
     demod : DemodSettings, optional
     engine : {"local", "dask"}
@@ -164,7 +168,37 @@ def _fit(path, setup, meta, settings, demod, engine, scheduler, progress, scratc
     res.warnings[:0] = cautions
     result = _package(path, setup, meta, settings, demod, info, store, harm, res, span_s,
                       input_sha256, engine, dut1_s, cross_check)
+    calibration = _calibration(meta, info, result.coefficients)
+    if calibration is not None:
+        notes = result.notes + tuple(calibration.sentences())
+        if cross_check is not None and (calibration.gate_s or calibration.weighted):
+            notes += ("the one-stage cross-check fits the samples without the gate "
+                      "correction and unweighted",)
+        result = dataclasses.replace(result, calibration=calibration, notes=notes)
     return result, store, models
+
+
+def _calibration(meta: dict, info, coefficients) -> SignalCalibration | None:
+    """The result's calibration part from the run file's version-2 metadata (None if none)."""
+    attrs, weighted = meta.get("signal_attrs", {}), bool(meta.get("weighted", False))
+    if not attrs and not weighted:
+        return None
+    gate = {}
+    if "gate_s" in attrs:
+        omega = 2.0 * np.pi / info.turn_period_s
+        gate = {"gate_s": attrs["gate_s"], "gate_kind": attrs["gate_kind"],
+                "turn_period_s": info.turn_period_s,
+                **{f"gate_factor_{m}theta": float(gate_factor(m * omega, attrs["gate_s"],
+                                                              attrs["gate_kind"]))
+                   for m in (1, 2)}}
+    scale = {}
+    if "scale_rel_sigma" in attrs:
+        rel = attrs["scale_rel_sigma"]
+        scale = {"scale_rel_sigma": rel, "scale_factor": attrs.get("scale_factor", 1.0),
+                 "instrument_units": attrs.get("instrument_units", "?"),
+                 "scale_sigma": scale_sigmas({k: e.value for k, e in coefficients.items()},
+                                             rel)}
+    return SignalCalibration(**gate, **scale, weighted=weighted)
 
 
 def _package(path, setup, meta, settings, demod, info, store, harm, res, span_s, input_sha256,

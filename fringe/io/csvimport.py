@@ -13,6 +13,11 @@ there), with a :class:`~fringe.errors.TimeScaleWarning` that says so. Empty cell
 or auxiliary columns are dropped samples (NaN). A bad cell raises
 :class:`~fringe.errors.InputFileError`: ``data.csv: line 17, column 'beat': expected a number,
 got 'abc'``.
+
+Readings in instrument units, weights, the counter's gate and a second device's azimuth log
+(optional sections ``[calibration]``, ``[gate]``, ``[azimuth_log]`` and the ``weight`` column;
+:mod:`fringe.io.twodevice`) make a format-version-2 run file. An arbitrary zero of the readings
+(a micrometer re-set each session or day) needs no option: stage 1 fits an offset per turn.
 """
 
 from __future__ import annotations
@@ -42,18 +47,29 @@ from fringe.io.runformat import (
     AZIMUTH_UNITS,
     CORE_CHANNELS,
     DEFAULT_CHUNK_SAMPLES,
+    WEIGHT_CHANNEL,
     check_apparatus,
     check_epoch_utc,
     check_site,
     parse_utc_iso,
 )
 from fringe.io.runwriter import RunWriter, _check_output_path
+from fringe.io.twodevice import (
+    AzimuthTrack,
+    check_azimuth_log,
+    check_calibration,
+    check_gate,
+    gate_shift_s,
+)
 from fringe.site import Site
 
 __all__ = ["TIME_FORMATS", "CsvImportSummary", "import_csv", "read_import_metadata"]
 
 TIME_FORMATS = ("s", "iso8601")
-_SECTIONS = ("epoch_utc", "site", "apparatus", "columns", "units", "csv")
+#: Units of the weight column: a relative weight, or the number of readings a value averages.
+WEIGHT_UNITS = ("1", "readings")
+_SECTIONS = ("epoch_utc", "site", "apparatus", "columns", "units", "csv", "calibration", "gate",
+             "azimuth_log")
 _ISO_HINT = "an ISO 8601 UTC time like '2027-02-03T00:00:00Z'"
 ZERO = datetime.timedelta(0)
 
@@ -74,6 +90,9 @@ class CsvImportSummary:
         First and last time, s since ``epoch_utc``.
     source_sha256 : str
         SHA-256 of the CSV bytes (also stored in the run file's ``provenance`` group).
+    n_dropped : int
+        Signal rows left out because the azimuth log had no azimuth for them (outside its span,
+        or in a gap with ``on_gap = "drop"``); 0 for a one-file import.
     """
 
     out_path: str
@@ -82,6 +101,7 @@ class CsvImportSummary:
     time_first_s: float
     time_last_s: float
     source_sha256: str
+    n_dropped: int = 0
 
 
 def _table(value, err, name: str) -> dict:
@@ -100,6 +120,8 @@ def _check_section(name: str, value, err):
         return value if isinstance(value, Site) else check_site(_table(value, err, name), err)
     if name == "apparatus":
         return check_apparatus(_table(value, err, name), err)
+    if name in _OPTION_SECTIONS:
+        return _OPTION_SECTIONS[name](_table(value, err, name), err)
     table = _table(value, err, name)
     for key, item in table.items():
         if not isinstance(item, str) or (name != "csv" and not item.strip()):
@@ -115,6 +137,15 @@ def _check_section(name: str, value, err):
             if key not in CORE_CHANNELS and ("/" in key or "." in key):
                 raise err(f"columns.{key}", "expected a channel name without '/' or '.'")
     return table
+
+
+def _check_log(table: Mapping, err) -> dict:
+    return check_azimuth_log(table, err, lambda v, e, o: _check_section("epoch_utc", v, e))
+
+
+#: The optional sections of the readings import (fringe.io.twodevice).
+_OPTION_SECTIONS = {"calibration": check_calibration, "gate": check_gate,
+                    "azimuth_log": _check_log}
 
 
 def read_import_metadata(path: str | os.PathLike) -> dict:
@@ -178,6 +209,17 @@ def _merge(metadata, kwargs: dict) -> tuple[dict, Callable]:
     return merged, err_for
 
 
+def _core_columns(merged: dict, err_for: Callable) -> tuple[str, ...]:
+    """The core channels the main CSV must give: no azimuth when it comes from a log."""
+    if "azimuth_log" not in merged:
+        return CORE_CHANNELS
+    for section in ("columns", "units"):
+        if "azimuth" in merged[section]:
+            raise err_for(section)(f"{section}.azimuth", "expected no azimuth entry: the "
+                                   "azimuth comes from azimuth_log")
+    return ("time", "signal")
+
+
 def _checked_units(merged: dict, err_for: Callable) -> dict:
     """The ``[units]`` of ``merged``, checked against ``[columns]`` and the apparatus kind.
 
@@ -185,7 +227,8 @@ def _checked_units(merged: dict, err_for: Callable) -> dict:
     units without a column; seconds need an ``epoch_utc``. Errors come from ``err_for(section)``.
     """
     columns, units = merged["columns"], dict(merged["units"])
-    for key in CORE_CHANNELS:
+    core = _core_columns(merged, err_for)
+    for key in core:
         if key not in columns:
             raise err_for("columns")(f"columns.{key}", "missing entry; expected a header name")
     units.setdefault("time", "s")
@@ -197,9 +240,10 @@ def _checked_units(merged: dict, err_for: Callable) -> dict:
         if key not in columns:
             raise u_err(f"units.{key}", "expected units only for the columns named in columns")
     kind = merged["apparatus"]["kind"]
-    for key, allowed in (("time", TIME_FORMATS), ("azimuth", AZIMUTH_UNITS),
-                         ("signal", APPARATUS_KINDS[kind].signal_units)):
-        if units[key] not in allowed:
+    rules = [("time", TIME_FORMATS), ("azimuth", AZIMUTH_UNITS),
+             ("signal", APPARATUS_KINDS[kind].signal_units), (WEIGHT_CHANNEL, WEIGHT_UNITS)]
+    for key, allowed in rules:
+        if key in units and units[key] not in allowed:
             raise u_err(f"units.{key}", f"expected {' or '.join(map(repr, allowed))}, got "
                         f"{units[key]!r}")
     if units["time"] == "s" and "epoch_utc" not in merged:
@@ -368,31 +412,187 @@ def _first_bad(table, mask, cells, lines, col, expected) -> None:
                              f"expected {expected}, got {cells[i]!r}")
 
 
+def _seconds(table: _Table, cells: list[str], lines: list[int], col: str, units: str,
+             e_parts, row_err) -> NDArray[np.float64]:
+    """Elapsed s since the epoch (``e_parts`` from :func:`_utc_parts`) of a block of times."""
+    if units == "iso8601":
+        where = [f"line {n}, column {col!r}" for n in lines]
+        o, s, d = _utc_parts(cells, where, row_err, table.path)
+        return (o - e_parts[0]) * 86400.0 + (s - e_parts[1]) + (d - e_parts[2])
+    t_s = _numbers(table, cells, lines, col, False)
+    _first_bad(table, ~np.isfinite(t_s), cells, lines, col, "a finite time in seconds")
+    return t_s
+
+
+def _weights(table: _Table, cells: list[str], lines: list[int], col: str,
+             units: str) -> NDArray[np.float64]:
+    w = _numbers(table, cells, lines, col, True)
+    _first_bad(table, ~(w > 0) & ~np.isnan(w) | np.isinf(w), cells, lines, col,
+               "a finite weight > 0 or an empty cell (dropped sample)")
+    if units == "readings":
+        _first_bad(table, np.isfinite(w) & (w != np.round(w)), cells, lines, col,
+                   "a whole number of readings (units 'readings')")
+    return w
+
+
+class _Import:
+    """One import: the CSV (and azimuth log) streamed in blocks into a RunWriter."""
+
+    def __init__(self, meta: dict, err_for: Callable, csv_path: str, log_path: str | None):
+        self.meta, self.err_for, self.csv_path, self.log_path = meta, err_for, csv_path, log_path
+        self.columns, self.units = meta["columns"], meta["units"]
+        self.scale = meta.get("calibration", {}).get("scale_factor", 1.0)
+        self.shift_s = gate_shift_s(meta.get("gate"))
+        self.log = meta.get("azimuth_log")
+        self.epoch = meta.get("epoch_utc")
+        self.e_parts = None
+        self.track: AzimuthTrack | None = None
+        self.prev = self.first = self.last = None
+        self.out_path = ""
+        self.n_dropped = 0
+        self.span = [None, None]          # first and last signal time, s (gate centres)
+
+    def row_err(self, obj, expected):
+        return InputFileError(self.csv_path, obj, expected)
+
+    def times(self, table: _Table, cells: dict, lines: list[int]) -> NDArray[np.float64]:
+        """The block's signal times, s since the epoch, moved to the gate windows' centres."""
+        col = self.columns["time"]
+        if self.e_parts is None and self.units["time"] == "iso8601":
+            self.epoch = self.epoch or check_epoch_utc(
+                cells["time"][0], self.row_err, f"line {lines[0]}, column {col!r}",
+                strict=False)
+            self.epoch_parts()
+        t_s = _seconds(table, cells["time"], lines, col, self.units["time"], self.e_parts,
+                       self.row_err)
+        self.prev = _check_increasing(table, t_s, cells["time"], lines, col, self.prev)
+        return t_s + self.shift_s
+
+    def epoch_parts(self):
+        """(day ordinal, second of day, TAI - UTC) of the epoch, computed once when needed."""
+        if self.e_parts is None:
+            self.e_parts = _utc_parts([self.epoch], ["epoch_utc"], self.err_for("epoch_utc"),
+                                      self.csv_path)
+        return self.e_parts
+
+    def open_track(self, fh) -> None:
+        """Start reading the azimuth log (after the epoch is known)."""
+        log = self.log
+        table = _Table(self.log_path, fh, log["delimiter"], log["comment"])
+        index = table.header(log["columns"])
+        offset = log["clock_offset_s"]
+        if log["units"]["time"] == "s" and log["epoch_utc"] not in (None, self.epoch):
+            lp, ep = _utc_parts([log["epoch_utc"]], ["azimuth_log.epoch_utc"],
+                                self.err_for("azimuth_log"), self.log_path), self.epoch_parts()
+            offset += float((lp[0] - ep[0])[0] * 86400.0 + (lp[1] - ep[1])[0]
+                            + (lp[2] - ep[2])[0])
+        e_parts = self.epoch_parts() if log["units"]["time"] == "iso8601" else None
+
+        def err(obj, expected):
+            return InputFileError(self.log_path, obj, expected)
+
+        def blocks():
+            prev = None
+            for cells, lines in table.blocks(index, 65_536):
+                tcol, acol = log["columns"]["time"], log["columns"]["azimuth"]
+                t_s = _seconds(table, cells["time"], lines, tcol, log["units"]["time"],
+                               e_parts, err)
+                prev = _check_increasing(table, t_s, cells["time"], lines, tcol, prev)
+                az = _numbers(table, cells["azimuth"], lines, acol, False)
+                _first_bad(table, ~np.isfinite(az), cells["azimuth"], lines, acol,
+                           "a finite azimuth")
+                shifted = t_s + offset
+                _first_bad(table, np.diff(shifted, prepend=-np.inf) <= 0, cells["time"], lines,
+                           tcol, "times that stay strictly increasing once moved onto the "
+                           "signal's clock (azimuth_log.clock_offset_s, epoch_utc)")
+                yield shifted, az, lines
+
+        turn = 360.0 if log["units"]["azimuth"] == "deg" else 2.0 * np.pi
+        self.track = AzimuthTrack(blocks(), turn, log["max_gap_s"])
+
+    def merge(self, t_s: NDArray, lines: list[int]) -> tuple[NDArray, NDArray]:
+        """Azimuth at the signal times and the rows kept (gaps refused or dropped)."""
+        az, inside, gap, line = self.track.at(t_s)
+        bad = inside & (gap > self.log["max_gap_s"])
+        if bad.any() and self.log["on_gap"] == "error":
+            i = int(np.argmax(bad))
+            raise InputFileError(
+                self.log_path, f"line {int(line[i])}, column {self.log['columns']['time']!r}",
+                f"expected azimuth samples at most azimuth_log.max_gap_s = "
+                f"{self.log['max_gap_s']:g} s apart, got a gap of {gap[i]:.6g} s around the "
+                f"signal time {t_s[i]:.6f} s ({os.path.basename(self.csv_path)} line "
+                f"{lines[i]}); or set azimuth_log.on_gap = 'drop'")
+        keep = inside & ~bad
+        self.n_dropped += int(keep.size - np.count_nonzero(keep))
+        return az, keep
+
+    def no_overlap(self) -> InputFileError:
+        """The error for a two-device import that kept no row."""
+        tr = self.track
+        span = ("no azimuth samples" if tr.first_s is None else
+                f"azimuth log from {tr.first_s:.6g} s to {tr.last_s:.6g} s")
+        return self.err_for("azimuth_log")(
+            "azimuth_log.clock_offset_s", f"expected the two logs to overlap in time, got "
+            f"signal times from {self.span[0]:.6g} s to {self.span[1]:.6g} s and {span} "
+            f"(with clock_offset_s = {self.log['clock_offset_s']:g} s)")
+
+    def signal_attrs(self) -> dict:
+        """The version-2 attributes of samples/signal for this import."""
+        out = {}
+        if "gate" in self.meta:
+            out.update(gate_s=self.meta["gate"]["gate_s"], gate_kind=self.meta["gate"]["kind"])
+        out.update(self.meta.get("calibration", {}))
+        return out
+
+    def provenance(self, digest: str) -> dict:
+        """The provenance group's attributes."""
+        out = {"source_file": os.path.basename(self.csv_path), "source_sha256": digest,
+               "imported_by": "fringe.io.csvimport"}
+        if "gate" in self.meta:
+            out.update(gate_stamp=self.meta["gate"]["stamp"], time_shift_s=self.shift_s)
+        if self.log is not None:
+            from fringe.io.runreader import sha256
+
+            out.update(azimuth_source_file=os.path.basename(self.log_path),
+                       azimuth_source_sha256=sha256(self.log_path),
+                       clock_offset_s=self.log["clock_offset_s"],
+                       max_gap_s=self.log["max_gap_s"], on_gap=self.log["on_gap"],
+                       n_dropped=self.n_dropped)
+        return out
+
+
 def import_csv(csv_path: str | os.PathLike, out_path: str | os.PathLike, *,
                metadata: str | os.PathLike | None = None, columns: Mapping | None = None,
                units: Mapping | None = None, site: Site | Mapping | None = None,
                apparatus: Mapping | None = None, epoch_utc: str | None = None,
                delimiter: str | None = None, comment: str | None = None,
+               calibration: Mapping | None = None, gate: Mapping | None = None,
+               azimuth_log: str | os.PathLike | None = None,
+               azimuth_log_format: Mapping | None = None,
                overwrite: bool = False, protect: Sequence = (), block_rows: int = 65_536,
                chunk_samples: int = DEFAULT_CHUNK_SAMPLES, compression: str | None = None,
                progress: Callable[[int, int], None] | None = None) -> CsvImportSummary:
-    """Convert a CSV table of samples into a run file.
+    """Convert a CSV table of samples (and optionally an azimuth log) into a run file.
 
     Parameters
     ----------
     csv_path : path
         The CSV file: one header line, then one row per sample (``#`` lines and blank lines
-        skipped).
+        skipped). With ``azimuth_log``, the signal log (time and signal, no azimuth).
     out_path : path
-        The run file to write (never over ``csv_path``, ``metadata`` or ``protect``).
+        The run file to write (never over ``csv_path``, ``metadata``, ``azimuth_log`` or
+        ``protect``).
     metadata : path, optional
         TOML file with the sections below (see ``docs/run-format.md``).
     columns : mapping, optional
-        Run-file channel -> CSV header name; needs ``time``, ``azimuth``, ``signal``; any other
-        key is an auxiliary channel.
+        Run-file channel -> CSV header name; needs ``time``, ``azimuth``, ``signal`` (no
+        ``azimuth`` with ``azimuth_log``); ``weight`` names the weight column; any other key is
+        an auxiliary channel.
     units : mapping, optional
         Channel -> units: time ``"s"`` or ``"iso8601"``; azimuth ``"rad"`` or ``"deg"``; signal
-        ``"Hz"``, ``"1"`` or ``"fringe"``; each auxiliary channel a units string.
+        ``"Hz"``, ``"1"`` or ``"fringe"`` (after ``calibration``); weight ``"1"`` (relative
+        weight) or ``"readings"`` (the value is the mean of that many readings); each
+        auxiliary channel a units string.
     site : Site or mapping, optional
         Latitude_deg, longitude_deg (degrees), height_m (m), name.
     apparatus : mapping, optional
@@ -402,6 +602,20 @@ def import_csv(csv_path: str | os.PathLike, out_path: str | os.PathLike, *,
         the first timestamp.
     delimiter, comment : str, optional
         Field separator (default ``,``) and comment prefix (default ``#``; ``""`` for none).
+    calibration : mapping, optional
+        ``scale_factor`` (signal units per instrument unit), ``scale_rel_sigma`` (its relative
+        standard uncertainty), ``instrument_units``: readings are multiplied by the factor.
+    gate : mapping, optional
+        The counter's ``gate_s`` (s), ``kind`` (``"plain"`` or ``"overlapping"``) and ``stamp``
+        (``"start"``, ``"centre"`` or ``"end"`` of the averaging window): times are moved to
+        the window's centre and the gate is recorded for the fit's correction.
+    azimuth_log : path, optional
+        CSV of the azimuth from a second device (an encoder log), merged onto the signal's
+        times; needs ``azimuth_log_format`` (or the TOML section ``[azimuth_log]``).
+    azimuth_log_format : mapping, optional
+        ``columns``, ``units``, ``max_gap_s`` (s), optional ``epoch_utc``, ``clock_offset_s``
+        (s added to the log's times), ``on_gap`` (``"error"`` or ``"drop"``), ``delimiter``,
+        ``comment`` (:func:`fringe.io.twodevice.check_azimuth_log`).
     overwrite : bool
         Replace an existing ``out_path``.
     protect : sequence of path
@@ -419,76 +633,103 @@ def import_csv(csv_path: str | os.PathLike, out_path: str | os.PathLike, *,
     CsvImportSummary
     """
     csv_path, out_path = os.fspath(csv_path), os.fspath(out_path)
+    log_path = os.fspath(azimuth_log) if azimuth_log is not None else None
     meta, err_for = _merge(metadata, {"epoch_utc": epoch_utc, "site": site, "apparatus": apparatus,
                                 "columns": columns, "units": units,
-                                "csv": _csv_options(delimiter, comment)})
-    columns, units = meta["columns"], meta["units"]
+                                "csv": _csv_options(delimiter, comment),
+                                "calibration": calibration, "gate": gate,
+                                "azimuth_log": azimuth_log_format})
+    if (log_path is None) != ("azimuth_log" not in meta):
+        raise err_for("azimuth_log")("azimuth_log", "expected the azimuth_log section together "
+                                     "with an azimuth log file (azimuth_log=PATH), or neither")
     options = {"delimiter": ",", "comment": "#", **meta.get("csv", {})}
-    protect = (csv_path,) + ((os.fspath(metadata),) if metadata else ()) + tuple(protect)
+    protect = (csv_path,) + ((os.fspath(metadata),) if metadata else ()) \
+        + ((log_path,) if log_path else ()) + tuple(protect)
     _check_output_path(out_path, overwrite, protect)
-    if not os.path.isfile(csv_path):
-        raise InputFileError(csv_path, "file", "expected an existing file")
-    epoch = meta.get("epoch_utc")
-    writer, prev, first, e_parts = None, None, None, None
-
-    def row_err(obj, expected):
-        return InputFileError(csv_path, obj, expected)
-
-    with open(csv_path, "rb") as fh:
+    for path in (csv_path, log_path):
+        if path is not None and not os.path.isfile(path):
+            raise InputFileError(path, "file", "expected an existing file")
+    job = _Import(meta, err_for, csv_path, log_path)
+    job.out_path = out_path
+    with open(csv_path, "rb") as fh, open(log_path or csv_path, "rb") as log_fh:
         table = _Table(csv_path, fh, options["delimiter"], options["comment"])
-        index = table.header(columns)
+        writer = None
         try:
-            for cells, lines in table.blocks(index, max(int(block_rows), 1)):
-                t_col = columns["time"]
-                if units["time"] == "iso8601":
-                    where = [f"line {n}, column {t_col!r}" for n in lines]
-                    if e_parts is None:
-                        epoch = epoch or check_epoch_utc(cells["time"][0], row_err,
-                                                         where[0], strict=False)
-                        e_parts = _utc_parts([epoch], ["epoch_utc"], err_for("epoch_utc"),
-                                             csv_path)
-                    o, s, d = _utc_parts(cells["time"], where, row_err, csv_path)
-                    t_s = (o - e_parts[0]) * 86400.0 + (s - e_parts[1]) + (d - e_parts[2])
-                else:
-                    t_s = _numbers(table, cells["time"], lines, t_col, False)
-                    _first_bad(table, ~np.isfinite(t_s), cells["time"], lines, t_col,
-                               "a finite time in seconds")
-                prev = _check_increasing(table, t_s, cells["time"], lines, t_col, prev)
-                first = t_s[0] if first is None else first
-                az = _numbers(table, cells["azimuth"], lines, columns["azimuth"], False)
-                _first_bad(table, ~np.isfinite(az), cells["azimuth"], lines,
-                           columns["azimuth"], "a finite azimuth")
-                sig = _numbers(table, cells["signal"], lines, columns["signal"], True)
-                _first_bad(table, np.isinf(sig), cells["signal"], lines, columns["signal"],
-                           "a finite number or an empty cell (dropped sample)")
-                aux = {k: _numbers(table, cells[k], lines, columns[k], True)
-                       for k in columns if k not in CORE_CHANNELS}
-                if writer is None:
-                    writer = RunWriter(out_path, site=meta["site"], apparatus=meta["apparatus"],
-                                       epoch_utc=epoch, signal_units=units["signal"],
-                                       azimuth_units=units["azimuth"],
-                                       aux_channels={k: units[k] for k in aux},
-                                       overwrite=overwrite, protect=protect,
-                                       chunk_samples=chunk_samples, compression=compression)
-                    writer.__enter__()
-                writer.append(t_s, az, sig, **aux)
-                if progress is not None:
-                    progress(writer.n_samples, table.raw.count)
-            if writer is None:
-                raise InputFileError(csv_path, "data", "expected at least one data row after "
-                                     "the header, got none")
+            writer = _stream(job, table, log_fh, max(int(block_rows), 1), progress,
+                             dict(overwrite=overwrite, protect=protect,
+                                  chunk_samples=chunk_samples, compression=compression))
             digest = table.raw.digest.hexdigest()
-            writer.write_group("provenance", {"source_file": os.path.basename(csv_path),
-                                              "source_sha256": digest,
-                                              "imported_by": "fringe.io.csvimport"})
+            writer.write_group("provenance", job.provenance(digest))
         except BaseException:
             if writer is not None:
                 writer.abort()
             raise
     writer.close()
-    if units["time"] == "s":      # ISO timestamps were checked day by day in _utc_parts
-        _warn_time_span(csv_path, epoch, float(first), prev[0])
-    return CsvImportSummary(out_path, writer.n_samples, epoch, float(first), prev[0], digest)
+    if job.units["time"] == "s":      # ISO timestamps were checked day by day in _utc_parts
+        _warn_time_span(csv_path, job.epoch, float(job.first), float(job.last))
+    return CsvImportSummary(out_path, writer.n_samples, job.epoch, float(job.first),
+                            float(job.last), digest, job.n_dropped)
+
+
+def _stream(job: _Import, table: _Table, log_fh, block_rows: int, progress,
+            writer_options: dict) -> RunWriter:
+    """Convert and append every block; return the (open) writer."""
+    columns, units, meta = job.columns, job.units, job.meta
+    index = table.header(columns)
+    writer = None
+    try:
+        for cells, lines in table.blocks(index, block_rows):
+            t_s = job.times(table, cells, lines)
+            job.span = [t_s[0] if job.span[0] is None else job.span[0], t_s[-1]]
+            if job.log is not None:
+                if job.track is None:
+                    job.open_track(log_fh)
+                az, keep = job.merge(t_s, lines)
+            else:
+                az = _numbers(table, cells["azimuth"], lines, columns["azimuth"], False)
+                _first_bad(table, ~np.isfinite(az), cells["azimuth"], lines,
+                           columns["azimuth"], "a finite azimuth")
+                keep = None
+            sig = _numbers(table, cells["signal"], lines, columns["signal"], True)
+            _first_bad(table, np.isinf(sig), cells["signal"], lines, columns["signal"],
+                       "a finite number or an empty cell (dropped sample)")
+            extra = {}
+            if WEIGHT_CHANNEL in columns:
+                extra["weight"] = _weights(table, cells[WEIGHT_CHANNEL], lines,
+                                           columns[WEIGHT_CHANNEL], units[WEIGHT_CHANNEL])
+            aux = {k: _numbers(table, cells[k], lines, columns[k], True)
+                   for k in columns if k not in CORE_CHANNELS and k != WEIGHT_CHANNEL}
+            arrays = {"t": t_s, "az": az, "sig": sig * job.scale, **extra, **aux}
+            if keep is not None:
+                arrays = {k: v[keep] for k, v in arrays.items()}
+                if not arrays["t"].size:
+                    continue
+            if writer is None:
+                writer = RunWriter(job.out_path, site=meta["site"],
+                                   apparatus=meta["apparatus"], epoch_utc=job.epoch,
+                                   signal_units=units["signal"],
+                                   azimuth_units=(job.log["units"]["azimuth"] if job.log
+                                                  else units["azimuth"]),
+                                   aux_channels={k: units[k] for k in aux},
+                                   signal_attrs=job.signal_attrs(), weighted=bool(extra),
+                                   **writer_options)
+                writer.__enter__()
+                job.first = arrays["t"][0]
+            t, a, y = arrays.pop("t"), arrays.pop("az"), arrays.pop("sig")
+            writer.append(t, a, y, **arrays)
+            job.last = t[-1]
+            if progress is not None:
+                progress(writer.n_samples, table.raw.count)
+    except BaseException:
+        if writer is not None:
+            writer.abort()
+        raise
+    if writer is None:
+        if job.track is not None and job.n_dropped:
+            raise job.no_overlap()
+        raise InputFileError(job.csv_path, "data", "expected at least one data row after the "
+                             "header, got none")
+    return writer
 
 
 def _warn_time_span(source: str, epoch: str, first_s: float, last_s: float) -> None:
@@ -508,4 +749,3 @@ def _warn_time_span(source: str, epoch: str, first_s: float, last_s: float) -> N
 def _csv_options(delimiter: str | None, comment: str | None) -> dict | None:
     options = {k: v for k, v in (("delimiter", delimiter), ("comment", comment)) if v is not None}
     return options or None
-

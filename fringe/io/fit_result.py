@@ -1,12 +1,11 @@
 """The fit result and :func:`read_fit_result`, the one reader of the result file.
 
-The result is a frozen record with a fixed schema and three views (repr, summary(),
-to_dict()/from_dict()).
-
-The JSON file written by ``fringe fit`` is ``FitResult.to_dict()`` (format "fit", version 2;
-version-1 files, whose warnings are plain strings, are read too); its per-turn amplitudes go
-to an HDF5 file beside it (:mod:`fringe.io.turns_file`). Both formats are documented in
-``docs/fit.md``. The parts of the result are the records of :mod:`fringe.io.fit_sections`.
+The record has a fixed schema and three views (repr, summary(), to_dict()/from_dict()). The
+JSON file written by ``fringe fit`` is ``FitResult.to_dict()`` (format "fit", version 2;
+version-1 files, whose warnings are plain strings, are read too); its per-turn amplitudes go to
+an HDF5 file beside it (:mod:`fringe.io.turns_file`). Both formats are documented in
+``docs/fit.md``. The parts of the result are the records of :mod:`fringe.io.fit_sections` and
+:mod:`fringe.io.fit_calibration`.
 """
 
 from __future__ import annotations
@@ -19,6 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from fringe.errors import InputFileError
+from fringe.io.fit_calibration import SignalCalibration
 from fringe.io.fit_sections import (
     Covariance,
     Estimate,
@@ -101,6 +101,9 @@ class FitResult:
     one_stage : OneStage or None
         The one-stage cross-check, when it was run.
     conventions : mapping of str to str, or None
+    calibration : SignalCalibration or None
+        Gate correction, scale uncertainty and weighting (run files of format version 2 that
+        declare them); None when the run file declares none.
 
     None marks a part a (hand-made, version-1) file leaves out; ``fringe fit`` fills every
     part. Mappings are read-only (:class:`~fringe.io.records.FrozenMap`), sequences tuples;
@@ -131,6 +134,7 @@ class FitResult:
     upper_limits: Mapping[str, float] = field(default_factory=FrozenMap)
     one_stage: OneStage | None = None
     conventions: Mapping[str, str] | None = field(default_factory=lambda: freeze(CONVENTIONS))
+    calibration: SignalCalibration | None = None
 
     def __post_init__(self):
         for name in ("coefficients", "fixed", "efficiency", "site", "apparatus", "settings",
@@ -211,7 +215,8 @@ class FitResult:
             notes=f.strings("notes", required=False) or (),
             upper_limits=_numbers(f, "upper_limits", null=True) or {},
             one_stage=OneStage.read(f, "one_stage"),
-            conventions=_strings(f, "conventions"))
+            conventions=_strings(f, "conventions"),
+            calibration=SignalCalibration.read(f, "calibration"))
 
     @classmethod
     def read(cls, path) -> FitResult:
@@ -221,7 +226,7 @@ class FitResult:
     # ------------------------------------------------------------------ views
 
     def correlation(self) -> np.ndarray:
-        """Correlation matrix of the coefficients (numpy array, order of ``covariance.names``)."""
+        """Correlation matrix of the free coefficients (order of ``covariance.names``)."""
         m = np.array(self.covariance.matrix, float)
         s = np.sqrt(np.diag(m))
         return m / np.outer(s, s)
@@ -230,7 +235,7 @@ class FitResult:
         """Text for a person.
 
         The input, the turns, the uncertainty mode, a table of the coefficients (fixed and
-        nuisances too), limits, the cross-check, warnings and notes.
+        nuisances too), limits, the cross-check, the calibration, warnings and notes.
         """
         s1, st, nan = self.stage1, self.statistics, float("nan")
         path = self.input.path if self.input else "?"
@@ -260,6 +265,9 @@ class FitResult:
             lines.append("one-stage cross-check: " + ", ".join(
                 f"{n} {v.value:.3g}±{v.sigma:.2g}"
                 for n, v in self.one_stage.coefficients.items()))
+        if self.calibration is not None:      # its sentences are among the notes
+            for name, v in self.calibration.scale_sigma.items():
+                lines.append(f"{name:<12}{'':>13}{v:>12.3g}{'scale':>12}")
         caution = self.efficiency_caution()
         for w in self.warnings:
             lines.append(f"WARNING: {w.sentence}")

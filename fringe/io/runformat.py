@@ -1,4 +1,4 @@
-"""Run-file format rules (HDF5, format version 1): constants and value checks.
+"""Run-file format rules (HDF5, format version 2; version 1 read too): constants and checks.
 
 This module holds what a run file must look like, shared by the reader
 (:mod:`fringe.io.runreader`) and the writer (:mod:`fringe.io.runwriter`): the format constants
@@ -7,7 +7,10 @@ apparatus-kind registry :data:`APPARATUS_KINDS` (the kinds and signal units of t
 models, :data:`fringe.experiment.apparatus.APPARATUS_KINDS`, with the attributes a file must and
 may carry), the metadata checks (:func:`check_apparatus`,
 :func:`check_site`, :func:`check_epoch_utc`, :func:`parse_utc_iso`) and the streamed value checks
-of ``samples/time``, ``samples/azimuth`` and ``samples/signal``. Value rules raise
+of ``samples/time``, ``samples/azimuth``, ``samples/signal`` and ``samples/weight``. Version 2
+adds optional attributes of ``samples/signal`` (the counter's gate, the calibration of
+instrument units: :func:`check_signal_attrs`) and the optional ``samples/weight`` channel; a
+file using none of them is written as version 1. Value rules raise
 :class:`Invalid`; the caller turns it into its own one-line error. The format itself is
 specified in ``docs/run-format.md``.
 """
@@ -30,14 +33,24 @@ from fringe.experiment.apparatus import APPARATUS_KINDS as APPARATUS_MODELS
 from fringe.site import Site
 
 __all__ = ["APPARATUS_KINDS", "AZIMUTH_UNITS", "CORE_CHANNELS", "DEFAULT_CHUNK_SAMPLES",
-           "FORMAT_NAME", "FORMAT_VERSION", "RESERVED_GROUPS", "SIGNAL_UNITS", "TIME_UNITS",
-           "ApparatusKind", "Invalid", "check_apparatus", "check_azimuth_values",
-           "check_epoch_utc", "check_signal_values", "check_site", "check_time_values",
-           "parse_utc_iso", "plain", "show", "to_number", "to_string"]
+           "FORMAT_NAME", "FORMAT_VERSION", "GATE_KINDS", "READABLE_VERSIONS", "RESERVED_GROUPS",
+           "SIGNAL_ATTRS", "SIGNAL_UNITS", "TIME_UNITS", "WEIGHT_CHANNEL", "ApparatusKind",
+           "Invalid", "check_apparatus", "check_azimuth_values", "check_epoch_utc",
+           "check_signal_attrs", "check_signal_values", "check_site", "check_time_values",
+           "check_weight_values", "parse_utc_iso", "plain", "show", "to_number", "to_string",
+           "version_needed"]
 
-# -- the format, version 1 -------------------------------------------------------------------
+# -- the format, version 2 -------------------------------------------------------------------
 FORMAT_NAME = "run"
-FORMAT_VERSION = 1
+#: The version this fringe writes when a file uses a version-2 feature (otherwise 1).
+FORMAT_VERSION = 2
+#: Versions the reader accepts (1: no gate, calibration or weight).
+READABLE_VERSIONS = (1, 2)
+#: Version 2: the optional per-sample weight channel (units "1", finite and > 0, or NaN).
+WEIGHT_CHANNEL = "weight"
+#: Version 2: frequency-counter gate kinds: "plain" (one gate of length gate_s, uniform
+#: weight) and "overlapping" (overlapping gates averaged: triangular weight over 2 gate_s).
+GATE_KINDS = ("plain", "overlapping")
 TIME_UNITS = ("s",)
 AZIMUTH_UNITS = ("rad", "deg")
 SIGNAL_UNITS = ("Hz", "1", "fringe")
@@ -348,6 +361,72 @@ def check_signal_values(signal: NDArray, start: int, obj: str = "samples/signal"
         i = _first(bad)
         raise Invalid(f"expected finite values or NaN (a dropped sample), got "
                       f"{float(signal[i])!r} at index {start + i}", obj)
+
+
+def _gate_kind(value) -> str:
+    v = to_string(value)
+    if v not in GATE_KINDS:
+        raise Invalid(f"expected {' or '.join(map(repr, GATE_KINDS))}, got {show(value)}")
+    return v
+
+
+def _nonnegative(value) -> float:
+    x = to_number(value)
+    if not x >= 0:
+        raise Invalid(f"expected a number >= 0, got {x!r}")
+    return x
+
+
+def _text(value) -> str:
+    v = to_string(value)
+    if not v.strip():
+        raise Invalid("expected a non-empty string, got ''")
+    return v
+
+
+#: Version 2: optional attributes of ``samples/signal`` -> (rule, meaning).
+SIGNAL_ATTRS = {
+    "gate_s": (_positive, "the counter's gate time in s, > 0 (with gate_kind)"),
+    "gate_kind": (_gate_kind, "the counter's gate kind, 'plain' or 'overlapping' (with "
+                              "gate_s)"),
+    "scale_factor": (_nonzero, "signal units per instrument unit applied at import"),
+    "scale_rel_sigma": (_nonnegative, "relative standard uncertainty of scale_factor, >= 0"),
+    "instrument_units": (_text, "the units the readings were recorded in"),
+}
+
+
+def check_signal_attrs(attrs: Mapping, err, prefix: str = "samples/signal") -> dict:
+    """Validate the version-2 attributes of ``samples/signal`` among ``attrs``.
+
+    Other attributes (``units``) are left to the caller. ``gate_s`` and ``gate_kind`` come
+    together or not at all. Returns the attributes present, as plain Python values;
+    ``err(obj, expected)`` builds the exception.
+    """
+    out = {}
+    for name, (rule, _what) in SIGNAL_ATTRS.items():
+        if name in attrs:
+            try:
+                out[name] = rule(attrs[name])
+            except Invalid as exc:
+                raise err(f"{prefix}.{name}", exc.expected) from None
+    for a, b in (("gate_s", "gate_kind"), ("gate_kind", "gate_s")):
+        if a in out and b not in out:
+            raise err(f"{prefix}.{b}", f"missing attribute; expected {SIGNAL_ATTRS[b][1]}")
+    return out
+
+
+def version_needed(signal_attrs: Mapping, weighted: bool) -> int:
+    """The lowest format version that holds a file: 2 with gate, calibration or weight, else 1."""
+    return 2 if signal_attrs or weighted else 1
+
+
+def check_weight_values(weight: NDArray, start: int, obj: str = "samples/weight") -> None:
+    """Weights must be finite and > 0, or NaN (a dropped sample); ``start`` as for time."""
+    bad = ~(weight > 0) & ~np.isnan(weight) | np.isinf(weight)
+    if bad.any():
+        i = _first(bad)
+        raise Invalid(f"expected finite values > 0 or NaN (a dropped sample), got "
+                      f"{float(weight[i])!r} at index {start + i}", obj)
 
 
 def _check_chunk_size(chunk_samples) -> int:

@@ -1,4 +1,4 @@
-"""Run files (HDF5, format version 1): the validating reader.
+"""Run files (HDF5, format versions 1 and 2): the validating reader.
 
 Use :func:`open_run` to read a run file: it checks the whole layout, the metadata and (in a
 streamed, chunk-by-chunk pass) the values of ``samples/time``, ``samples/azimuth`` and
@@ -35,17 +35,20 @@ from fringe.io.runformat import (
     CORE_CHANNELS,
     DEFAULT_CHUNK_SAMPLES,
     FORMAT_NAME,
-    FORMAT_VERSION,
+    READABLE_VERSIONS,
     RESERVED_GROUPS,
     TIME_UNITS,
+    WEIGHT_CHANNEL,
     Invalid,
     _check_chunk_size,
     check_apparatus,
     check_azimuth_values,
     check_epoch_utc,
+    check_signal_attrs,
     check_signal_values,
     check_site,
     check_time_values,
+    check_weight_values,
     plain,
     show,
     to_string,
@@ -149,6 +152,13 @@ class RunFile:
         Auxiliary channel name -> units.
     extra_groups : tuple[str, ...]
         Names of root groups other than site, apparatus and samples.
+    format_version : int
+        1 or 2.
+    signal_attrs : dict
+        Version 2: the gate and calibration attributes of ``samples/signal`` present
+        (:data:`fringe.io.runformat.SIGNAL_ATTRS`); empty for version 1.
+    weighted : bool
+        Version 2: the file has a ``samples/weight`` channel (read as channel ``"weight"``).
     """
 
     def __init__(self, path: str | os.PathLike, *, check_values: bool = True,
@@ -160,7 +170,8 @@ class RunFile:
             with self._guard():
                 self._validate_layout()
                 if check_values:
-                    for _ in self._chunks(_check_chunk_size(chunk_samples), CORE_CHANNELS,
+                    checked = CORE_CHANNELS + ((WEIGHT_CHANNEL,) if self.weighted else ())
+                    for _ in self._chunks(_check_chunk_size(chunk_samples), checked,
                                           0, self.n_samples, check=True, copy=False):
                         pass
                     self._values_checked = True
@@ -219,11 +230,14 @@ class RunFile:
                                f"{FORMAT_NAME!r} (a fringe run file)"))
         if not isinstance(fmt, str) or fmt != FORMAT_NAME:
             raise self._err("fringe_format", f"expected {FORMAT_NAME!r}, got {show(fmt)}")
+        versions = " or ".join(map(str, READABLE_VERSIONS))
         version = plain(self._attr(f, "fringe_format_version", "fringe_format_version",
-                                   f"the integer {FORMAT_VERSION}"))
-        if isinstance(version, bool) or not isinstance(version, int) or version != FORMAT_VERSION:
-            raise self._err("fringe_format_version", f"expected the integer {FORMAT_VERSION} "
-                            f"(this fringe reads run-file version 1), got {show(version)}")
+                                   f"the integer {versions}"))
+        if isinstance(version, bool) or not isinstance(version, int) \
+                or version not in READABLE_VERSIONS:
+            raise self._err("fringe_format_version", f"expected the integer {versions} (this "
+                            f"fringe reads run-file versions {versions}), got {show(version)}")
+        self.format_version: int = version
         site = self._group("site", "attributes latitude_deg and longitude_deg")
         self.site: Site = check_site(dict(site.attrs), self._err)
         apparatus = self._group("apparatus", "an attribute 'kind'")
@@ -247,7 +261,9 @@ class RunFile:
         for name in CORE_CHANNELS:
             if name not in samples:
                 raise self._err(f"samples/{name}", f"missing dataset; expected {what[name]}")
-        names = list(CORE_CHANNELS) + sorted(k for k in samples if k not in CORE_CHANNELS)
+        self.weighted: bool = self.format_version >= 2 and WEIGHT_CHANNEL in samples
+        core = CORE_CHANNELS + ((WEIGHT_CHANNEL,) if self.weighted else ())
+        names = list(core) + sorted(k for k in samples if k not in core)
         for name in names:
             ds = samples[name]
             label = f"samples/{name}"
@@ -279,8 +295,12 @@ class RunFile:
         kind_units = APPARATUS_KINDS[self.apparatus["kind"]].signal_units
         self.signal_units: str = self._units(self._datasets["signal"], "samples/signal",
                                              kind_units)
+        self.signal_attrs: dict = ({} if self.format_version < 2 else check_signal_attrs(
+            {k: v for k, v in self._datasets["signal"].attrs.items()}, self._err))
+        if self.weighted:
+            self._units(self._datasets[WEIGHT_CHANNEL], f"samples/{WEIGHT_CHANNEL}", ("1",))
         self.aux_channels: dict[str, str] = {}
-        for name in names[3:]:
+        for name in names[len(core):]:
             label = f"samples/{name}.units"
             raw = self._attr(self._datasets[name], label, "units",
                              "a units string for this auxiliary channel")
@@ -297,8 +317,9 @@ class RunFile:
     # -- reading ---------------------------------------------------------------------------
     @property
     def channels(self) -> tuple[str, ...]:
-        """Names of every channel: time, azimuth, signal, then the auxiliary channels."""
-        return CORE_CHANNELS + tuple(self.aux_channels)
+        """Names of every channel: time, azimuth, signal, [weight,] then the auxiliary ones."""
+        return CORE_CHANNELS + ((WEIGHT_CHANNEL,) if self.weighted else ()) \
+            + tuple(self.aux_channels)
 
     def _check_channels(self, channels: Sequence[str]) -> tuple[str, ...]:
         if isinstance(channels, str):
@@ -334,6 +355,8 @@ class RunFile:
                         check_azimuth_values(out["azimuth"], i)
                     if "signal" in out:
                         check_signal_values(out["signal"], i)
+                    if self.weighted and WEIGHT_CHANNEL in out:
+                        check_weight_values(out[WEIGHT_CHANNEL], i)
                 except Invalid as exc:
                     raise self._err(exc.obj, exc.expected) from None
             yield out
@@ -406,12 +429,18 @@ class RunFile:
 
     def to_dict(self) -> dict:
         """The validated metadata in plain JSON types (for ``fringe inspect``)."""
-        return {"path": self.path, "fringe_format_version": FORMAT_VERSION,
+        extra = {}
+        if self.signal_attrs:
+            extra["signal_attrs"] = dict(self.signal_attrs)
+        if self.weighted:
+            extra["weighted"] = True
+        return {"path": self.path, "fringe_format_version": self.format_version,
                 "site": self.site.to_dict(), "apparatus": dict(self.apparatus),
                 "epoch_utc": self.epoch_utc, "n_samples": self.n_samples,
                 "time_first_s": self.time_first_s, "time_last_s": self.time_last_s,
                 "signal_units": self.signal_units, "azimuth_units": self.azimuth_units,
-                "aux_channels": dict(self.aux_channels), "extra_groups": list(self.extra_groups)}
+                "aux_channels": dict(self.aux_channels), "extra_groups": list(self.extra_groups),
+                **extra}
 
 
 def _check_dtype(dtype: np.dtype, name: str, err) -> None:

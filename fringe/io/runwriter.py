@@ -1,4 +1,4 @@
-"""Run-file writer (HDF5, format version 1): :class:`RunWriter` and its private helpers.
+"""Run-file writer (HDF5, format version 1 or 2): :class:`RunWriter` and its private helpers.
 
 This module holds the atomic, chunk-by-chunk writer: :class:`RunWriter` validates the metadata
 with the rules of :mod:`fringe.io.runformat`, writes to a temporary file beside the output and
@@ -25,17 +25,20 @@ from fringe.io.runformat import (
     CORE_CHANNELS,
     DEFAULT_CHUNK_SAMPLES,
     FORMAT_NAME,
-    FORMAT_VERSION,
     RESERVED_GROUPS,
+    WEIGHT_CHANNEL,
     Invalid,
     _check_chunk_size,
     check_apparatus,
     check_azimuth_values,
     check_epoch_utc,
+    check_signal_attrs,
     check_signal_values,
     check_site,
     check_time_values,
+    check_weight_values,
     show,
+    version_needed,
 )
 from fringe.site import Site
 from fringe.version import __version__
@@ -131,6 +134,16 @@ class RunWriter:
         HDF5 chunk length of the sample datasets.
     compression : None, "lzf" or "gzip"
         Dataset filter; None (default) is fastest to read and write, "gzip" is for archives.
+    signal_attrs : mapping, optional
+        Version-2 attributes of ``samples/signal`` (``gate_s``, ``gate_kind``,
+        ``scale_factor``, ``scale_rel_sigma``, ``instrument_units``; see
+        :data:`fringe.io.runformat.SIGNAL_ATTRS`).
+    weighted : bool
+        Write a ``samples/weight`` channel (version 2); every :meth:`append` then gives
+        ``weight=``.
+
+    The file is written as format version 2 when it uses ``signal_attrs`` or ``weighted``,
+    otherwise as version 1 (readable by every fringe).
 
     Raises
     ------
@@ -151,7 +164,8 @@ class RunWriter:
                  epoch_utc: str, signal_units: str, azimuth_units: str = "rad",
                  aux_channels: Mapping[str, str] | None = None, overwrite: bool = False,
                  protect: Sequence = (), chunk_samples: int = DEFAULT_CHUNK_SAMPLES,
-                 compression: str | None = None):
+                 compression: str | None = None, signal_attrs: Mapping | None = None,
+                 weighted: bool = False):
         self.path = os.fspath(path)
         cfg = self._config_err
         self.site = site if isinstance(site, Site) else check_site(dict(site), cfg)
@@ -165,12 +179,18 @@ class RunWriter:
             raise cfg("samples/azimuth.units", f"expected 'rad' or 'deg', got "
                       f"{show(azimuth_units)}")
         self.signal_units, self.azimuth_units = signal_units, azimuth_units
+        self.signal_attrs = check_signal_attrs(dict(signal_attrs or {}), cfg)
+        unknown = sorted(set(signal_attrs or {}) - set(self.signal_attrs))
+        if unknown:
+            raise cfg(f"samples/signal.{unknown[0]}", "expected only gate_s, gate_kind, "
+                      "scale_factor, scale_rel_sigma and instrument_units")
+        self.weighted = bool(weighted)
         self.aux_channels = dict(aux_channels or {})
         for name, units in self.aux_channels.items():
             if not isinstance(name, str) or not name or name in CORE_CHANNELS \
-                    or "/" in name or "." in name:
-                raise cfg("aux_channels", f"expected channel names other than time, azimuth "
-                          f"and signal, without '/' or '.', got {show(name)}")
+                    or name == WEIGHT_CHANNEL or "/" in name or "." in name:
+                raise cfg("aux_channels", f"expected channel names other than time, azimuth, "
+                          f"signal and weight, without '/' or '.', got {show(name)}")
             if not isinstance(units, str) or not units.strip():
                 raise cfg(f"samples/{name}.units", f"expected a units string, got {show(units)}")
         if compression not in (None, "lzf", "gzip"):
@@ -197,7 +217,8 @@ class RunWriter:
         try:
             self._file = f = h5py.File(self._tmp, "w", libver=("v108", "latest"))
             f.attrs["fringe_format"] = _fixed_strings(FORMAT_NAME)
-            f.attrs["fringe_format_version"] = np.int64(FORMAT_VERSION)
+            f.attrs["fringe_format_version"] = np.int64(
+                version_needed(self.signal_attrs, self.weighted))
             f.attrs["written_by"] = _fixed_strings(f"fringe {__version__}")
             site = f.create_group("site")
             for key, value in self.site.to_dict().items():
@@ -208,12 +229,15 @@ class RunWriter:
                 app.attrs[key] = _attr_value(value, self._config_err, f"apparatus.{key}")
             samples = f.create_group("samples")
             units = {"time": "s", "azimuth": self.azimuth_units, "signal": self.signal_units,
-                     **self.aux_channels}
+                     **({WEIGHT_CHANNEL: "1"} if self.weighted else {}), **self.aux_channels}
             for name, unit in units.items():
                 ds = samples.create_dataset(name, shape=(0,), maxshape=(None,), dtype="f8",
                                             chunks=(self._chunk,), compression=self._compression)
                 ds.attrs["units"] = _fixed_strings(unit)
             samples["time"].attrs["epoch_utc"] = _fixed_strings(self.epoch_utc)
+            for key, value in self.signal_attrs.items():
+                samples["signal"].attrs[key] = _attr_value(value, self._config_err,
+                                                           f"samples/signal.{key}")
         except BaseException:
             self.abort()
             raise
@@ -230,18 +254,24 @@ class RunWriter:
             raise RuntimeError("RunWriter is not open: use it as a context manager")
         return self._file
 
-    def append(self, time_s, azimuth, signal, **aux) -> None:
+    def append(self, time_s, azimuth, signal, *, weight=None, **aux) -> None:
         """Append samples: time (s since epoch), azimuth (``azimuth_units``), signal, aux.
 
         All arrays are one-dimensional of one length. Time must be finite and strictly
-        increasing, also across calls; azimuth finite; signal finite or NaN.
+        increasing, also across calls; azimuth finite; signal finite or NaN; ``weight`` (only
+        and always for a ``weighted`` writer) finite and > 0, or NaN.
         """
         f = self._require_open()
         if set(aux) != set(self.aux_channels):
             raise self._output_err("samples", f"expected auxiliary channels "
                                    f"{sorted(self.aux_channels)}, got {sorted(aux)}")
+        if (weight is None) == self.weighted:
+            raise self._output_err(f"samples/{WEIGHT_CHANNEL}", "expected weights exactly when "
+                                   "the writer was made with weighted=True")
+        extra = {WEIGHT_CHANNEL: weight} if self.weighted else {}
         arrays = {}
-        for name, value in {"time": time_s, "azimuth": azimuth, "signal": signal, **aux}.items():
+        for name, value in {"time": time_s, "azimuth": azimuth, "signal": signal, **extra,
+                            **aux}.items():
             try:
                 arr = np.ascontiguousarray(value, dtype=np.float64)
             except (TypeError, ValueError):
@@ -259,6 +289,8 @@ class RunWriter:
             last = check_time_values(arrays["time"], self.n_samples, self._last_t)
             check_azimuth_values(arrays["azimuth"], self.n_samples)
             check_signal_values(arrays["signal"], self.n_samples)
+            if self.weighted:
+                check_weight_values(arrays[WEIGHT_CHANNEL], self.n_samples)
         except Invalid as exc:
             raise self._output_err(exc.obj, exc.expected) from None
         if m == 0:

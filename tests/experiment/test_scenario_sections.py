@@ -54,4 +54,5 @@ def test_import_metadata_section_closest_match(tmp_path):
     with pytest.raises(InputFileError) as info:
         read_import_metadata(meta)
     assert str(info.value) == (f"{meta}: unit: expected only the keys epoch_utc, site, "
-                               "apparatus, columns, units, csv; closest: units")
+                               "apparatus, columns, units, csv, calibration, gate, "
+                               "azimuth_log; closest: units")

@@ -246,7 +246,8 @@ def test_dates_beyond_the_leap_second_table_warn(tmp_path):
     (lambda t: t.replace('signal = "beat"\n', ""), "columns.signal",
      "missing entry; expected a header name"),
     (lambda t: t + "\n[plot]\ncolor = 1\n", "plot",
-     "expected only the keys epoch_utc, site, apparatus, columns, units, csv"),
+     "expected only the keys epoch_utc, site, apparatus, columns, units, csv, calibration, "
+     "gate, azimuth_log"),
     (lambda t: t.replace('epoch_utc = "2027-02-03T00:00:00Z"', ""), "epoch_utc",
      "missing; expected an ISO 8601 UTC time like '2027-02-03T00:00:00Z' (required when time "
      "is in seconds)"),

@@ -156,9 +156,9 @@ BAD_FILES = [
     ("wrong-format", _set("/", "fringe_format", "result"), "fringe_format",
      "expected 'run', got 'result'"),
     ("no-version", _del_attr("/", "fringe_format_version"), "fringe_format_version",
-     "missing attribute; expected the integer 1"),
-    ("version-2", _set("/", "fringe_format_version", 2), "fringe_format_version",
-     "expected the integer 1 (this fringe reads run-file version 1), got 2"),
+     "missing attribute; expected the integer 1 or 2"),
+    ("version-3", _set("/", "fringe_format_version", 3), "fringe_format_version",
+     "expected the integer 1 or 2 (this fringe reads run-file versions 1 or 2), got 3"),
     ("no-site", _del("site"), "site",
      "missing group; expected attributes latitude_deg and longitude_deg"),
     ("no-apparatus", _del("apparatus"), "apparatus", "missing group; expected an attribute 'kind'"),
@@ -515,7 +515,8 @@ def test_writer_validates_what_it_writes(tmp_path, appends, obj, expected):
     ({"epoch_utc": "3 Feb 2027"}, "samples/time.epoch_utc: expected an ISO 8601 UTC time like "
                                   "'2027-02-03T00:00:00Z', got '3 Feb 2027'"),
     ({"aux_channels": {"time": "s"}}, "aux_channels: expected channel names other than time, "
-                                      "azimuth and signal, without '/' or '.', got 'time'"),
+                                      "azimuth, signal and weight, without '/' or '.', got "
+                                      "'time'"),
     ({"compression": "bz2"}, "compression: expected None, 'lzf' or 'gzip', got 'bz2'"),
 ], ids=["kind", "signal-units", "azimuth-units", "epoch", "aux-name", "compression"])
 def test_writer_rejects_bad_metadata(tmp_path, kw, message):
