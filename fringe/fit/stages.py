@@ -7,8 +7,8 @@
 * Diagnostics (:func:`_offset_checks`): B0 and C0 compared with what the fitted coefficients
   predict for this apparatus (or the lab_B0 / lab_C0 nuisance when fitted, an offset along
   the two-path B0 / C0 beyond the coefficient model); beyond 3 sigma a warning names a
-  lab-fixed 2 theta systematic. While ke_ZZ is free C0 is its measurement, and a caution
-  (a note) says that ke_ZZ rests on C0 alone.
+  lab-fixed 2 theta systematic. While a coefficient that only C0 carries is free (ke_ZZ,
+  cq_ZZ), C0 is its measurement, and a caution (a note) says that it rests on C0 alone.
 * Stage 3 (:func:`fit_coefficients`): weighted least squares of the same amplitudes against the
   per-turn 2 theta content of each free coefficient's basis signal, evaluated with the ephemeris
   velocity and modelled as stage 1 measures it over the turn (:func:`turn_model`: the model's
@@ -196,7 +196,7 @@ def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettin
         models = TurnModels(model_c=res.model_c, model_b=res.model_b)
     if "rms_kt" in free:
         _add_rms_kt(setup, store.load(), settings, res)
-    _offset_checks(setup, harm, res)
+    _offset_checks(setup, harm, res, _c0_only(setup, rotating) if theory.linear else [])
     return harm, res, free, models
 
 
@@ -224,23 +224,45 @@ def _offset_estimate(key: str, harm: dict, res: CoefficientFit):
     return harm["value"][i] - predicted[i], harm["sigma"][i], predicted[i], key, key
 
 
-def _offset_checks(setup: Setup, harm: dict, res: CoefficientFit) -> None:
+def _c0_only(setup: Setup, names: tuple[str, ...], rtol: float = 1e-3) -> list[str]:
+    """The free coefficients whose two-path harmonics are C0 alone (SME ke_ZZ, clock cq_ZZ).
+
+    From the harmonic table at the epoch (:func:`fringe.experiment.harmonics.harmonics_at`),
+    turned into the two-path normalisation by the apparatus's factor (so ke_ZZ counts at any
+    path separation): every other harmonic below ``rtol`` of C0.
+    """
+    from fringe.experiment.harmonics import harmonics_at
+
+    f = setup.apparatus.two_path_factor(setup.units)
+    if not names or f == 0:
+        return []
+    coef, _, labels = harmonics_at(setup, 0.0, names=names)
+    h = (coef[:5] - 1j * coef[5:]) / f
+    c0 = np.abs(h[0].real)
+    rest = np.sqrt(np.maximum(np.sum(np.abs(h) ** 2, axis=0) - c0 ** 2, 0.0))
+    return [n for j, n in enumerate(labels) if c0[j] > 0 and rest[j] < rtol * c0[j]]
+
+
+def _offset_checks(setup: Setup, harm: dict, res: CoefficientFit, c0_only: list[str]) -> None:
     """The B0 and C0 diagnostics, added to ``res.warnings`` and ``res.notes``.
 
     Each compares what the data show with what the fitted coefficients themselves predict for
     this apparatus (never with zero: at a path separation other than 90 deg ke_ZZ also makes
     a B0, kappa_tr and ko_XY make a small B0 through the Earth-rotation velocity, and every
-    kappa_e- coefficient a small C0 through the boost). While ke_ZZ is free it is determined
-    by C0, so C0 is not tested; a caution says so.
+    kappa_e- coefficient a small C0 through the boost). While a coefficient that only C0
+    carries (``c0_only``: ke_ZZ, cq_ZZ) is free, C0 is its measurement and is not tested; a
+    caution says so.
     """
     import warnings
 
     for key, code in (("B0", "b0-lab-fixed"), ("C0", "c0-lab-fixed")):
-        if key == "C0" and "ke_ZZ" in res.names and "lab_C0" not in res.nuisance:
-            res.notes.append("caution: ke_ZZ is determined by C0 alone (the unmodulated 2 theta "
-                             "term of the two-path signal), where lab-fixed systematics also "
-                             "land; C0 is therefore not tested for them, and a bound on ke_ZZ "
-                             "needs the systematics budget of the apparatus")
+        if key == "C0" and c0_only and "lab_C0" not in res.nuisance:
+            what = " and ".join(c0_only)
+            res.notes.append(f"caution: {what} {'is' if len(c0_only) == 1 else 'are'} "
+                             "determined by C0 alone (the unmodulated 2 theta term of the "
+                             "two-path signal), where lab-fixed systematics also land; C0 is "
+                             f"therefore not tested for them, and a bound on {what} needs the "
+                             "systematics budget of the apparatus")
             continue
         got = _offset_estimate(key, harm, res)
         if got is None:
