@@ -205,7 +205,7 @@ _SYSTEMATICS = ("a lab-fixed 2 theta systematic (tilt, gravity or centrifugal de
 
 
 def _offset_estimate(key: str, harm: dict, res: CoefficientFit):
-    """(value, sigma, predicted, record key, what) of the B0 or C0 check, or None.
+    """(value, sigma, data, predicted, record key, what) of the B0 or C0 check, or None.
 
     The fitted nuisance lab_<key> when there is one (an offset along the two-path <key> beyond
     the coefficient model); else the stage-2 harmonic minus the one the fitted and fixed
@@ -215,13 +215,14 @@ def _offset_estimate(key: str, harm: dict, res: CoefficientFit):
     nuisance = f"lab_{key}"
     if nuisance in res.nuisance:
         e = res.nuisance[nuisance]
-        return (e["value"], e["sigma"], None, nuisance,
+        return (e["value"], e["sigma"], e["value"], None, nuisance,
                 f"{key} beyond the coefficient model ({nuisance}, along the two-path {key})")
     predicted = harm.get("predicted")
     if predicted is None:
         return None
     i = harm["names"].index(key)
-    return harm["value"][i] - predicted[i], harm["sigma"][i], predicted[i], key, key
+    data = harm["value"][i]
+    return data - predicted[i], harm["sigma"][i], data, predicted[i], key, key
 
 
 def _c0_only(setup: Setup, names: tuple[str, ...], rtol: float = 1e-3) -> list[str]:
@@ -269,7 +270,7 @@ def _offset_checks(setup: Setup, harm: dict, res: CoefficientFit, c0_only: list[
             res.notes.append(f"{key} not tested for a lab-fixed systematic (no prediction of "
                              f"the fitted model and no lab_{key} nuisance)")
             continue
-        value, sigma, predicted, record_key, what = got
+        value, sigma, data, predicted, record_key, what = got
         if not (sigma > 0 and abs(value) > 3 * sigma):
             continue
         n_sigma = abs(value) / sigma
@@ -279,10 +280,10 @@ def _offset_checks(setup: Setup, harm: dict, res: CoefficientFit, c0_only: list[
                    f"this points to {_SYSTEMATICS}")
             values = {record_key: float(value)}
         else:
-            msg = (f"{key} = {value + predicted:.3g} ± {sigma:.2g} {setup.units} differs from "
+            msg = (f"{key} = {data:.3g} ± {sigma:.2g} {setup.units} differs from "
                    f"the {predicted:.3g} the fitted coefficients predict ({n_sigma:.1f} sigma): "
                    f"this points to {_SYSTEMATICS}")
-            values = {key: float(value + predicted), f"{key}_predicted": float(predicted)}
+            values = {key: float(data), f"{key}_predicted": float(predicted)}
         values.update(sigma=float(sigma), n_sigma=float(n_sigma))
         res.warnings.append(FitWarning(code, msg, values))
         warnings.warn(msg, SystematicsWarning, stacklevel=3)

@@ -462,6 +462,11 @@ def test_sixty_degree_b0_from_ke_zz_is_not_a_systematic(sixty_degrees, lab_b0):
     assert len(found) == 1
     assert ("lab_B0" in found[0].values) == lab_b0
     assert ("B0_predicted" in found[0].values) == (not lab_b0)
+    if not lab_b0:     # the record's numbers are the sentence's, unrounded
+        assert found[0].values["B0"] == res.harmonics.value[5]
+        assert found[0].values["n_sigma"] == pytest.approx(abs(
+            found[0].values["B0"] - found[0].values["B0_predicted"]) / found[0].values["sigma"],
+            rel=1e-12)
 
 
 def test_sixty_degree_lab_b0_does_not_correlate_with_ke_zz(sixty_degrees):
