@@ -14,7 +14,9 @@ The IDs C1-C14 are explained in ``docs/conventions.md``; their sources are in
 * C7 file azimuth: A counted from north toward east (compass sense); theta = pi - A.
 * C8 beat sign: S = (nu_1 - nu_2)/nu, path 1 minus path 2; path 2 at azimuth A_1 + 90 deg.
   Michelson fringe count: Delta N = c (t_1 - t_2) / lambda.
-* C9 normalisation: harmonic amplitudes refer to the two-path signal S.
+* C9 normalisation: the reference for harmonic amplitudes is the two-path signal S; each
+  apparatus's harmonics are those of its own observable, h = f h_S for each pair h = C - i B
+  (``Apparatus.two_path_factor``).
 * C10 Fourier model: S = B sin 2 theta + C cos 2 theta, C = C0 + Cs1 sin phi + Cc1 cos phi +
   Cs2 sin 2 phi + Cc2 cos 2 phi, and B likewise.
 * C11 kappa_o+ as a vector: w = (ko_YZ, -ko_XZ, ko_XY).

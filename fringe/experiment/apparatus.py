@@ -1,12 +1,18 @@
 """Apparatus kinds: which modes (light paths, resonator modes, clock axes) and how they combine.
 
-Every apparatus is a set of *modes*. A mode has a sensitivity tensor ``M`` (the projector n n of
-its axis for a Fabry-Perot cavity or an interferometer arm, or a general tensor from the mode
-integrals, docs/references.md [R-SME-modes]) given in the **turntable frame** (x' = path 1,
-y' = 90 deg counter-clockwise from it seen from above, z' = table axis) or, for a lab-fixed mode,
-in the lab frame. The two-way fractional change of a mode is ``M_lab : T + tr(M) s`` (see
-:mod:`fringe.theories.base`) and the observable is a weighted sum over modes (linear kinds) or an
-exact function of the per-mode changes (the Michelson fringe count).
+Every apparatus is a set of *modes*. A mode has a sensitivity tensor ``M`` given in the
+**turntable frame** (x' = path 1, y' = 90 deg counter-clockwise from it seen from above, z' =
+table axis) or, for a lab-fixed mode, in the lab frame. Internally ``M`` is normalised to trace
+one for a straight path (the projector n n of a Fabry-Perot axis or an interferometer arm), and
+the two-way fractional change of a mode is ``M_lab : T + tr(M) s`` (see
+:mod:`fringe.theories.base`). General tensors a user supplies (``mode_tensors``) are in the
+documented normalisation of docs/theory.md ([R-SME-modes]): delta nu / nu = M_doc : K_lab, with
+M_doc = 1/2 n n for a Fabry-Perot mode and 1/4 (1 - a a) for a ring mode; since T = K_lab / 2
+for the photon sector, the internal tensor is 2 M_doc. The observable is a weighted sum over
+modes (linear kinds) or an exact function of the per-mode changes (the Michelson fringe count).
+
+The harmonics of an observable relate to those of the two-path signal S of convention C9 by one
+complex factor (:meth:`Apparatus.two_path_factor`).
 
 ======================= ==================================================== =============
 kind                    observable                                           units
@@ -74,6 +80,16 @@ def _azimuth_offset_to_table_angle(offset_deg: float) -> float:
     return -math.radians(offset_deg)
 
 
+def _user_mode(value, source: str) -> Mode:
+    """A general mode from a tensor in the documented normalisation (M_doc, module docstring)."""
+    return Mode(tensor=2.0 * _check_tensor(value, source), direction=None)
+
+
+def _spin2(tensor: NDArray) -> complex:
+    """Horizontal traceless part of a table-frame tensor as (M_xx - M_yy)/2 + i M_xy."""
+    return complex(0.5 * (tensor[0, 0] - tensor[1, 1]), tensor[0, 1])
+
+
 class Apparatus:
     """Base class. Subclasses define ``modes``, ``weights`` and the allowed units."""
 
@@ -117,6 +133,46 @@ class Apparatus:
         """Observable from per-mode two-way fractional changes (n, p) -> (n,); exact."""
         return mode_shifts @ self.linear_weights(units)
 
+    def observable(self, units: str) -> str:
+        """What the observable is, in words, with its units (labels of harmonic tables)."""
+        raise NotImplementedError
+
+    def two_path_factor(self, units: str) -> complex:
+        """Factor f from the two-path harmonics (C9) to this observable's 2 theta harmonics.
+
+        With h = C - i B for each harmonic pair (C0, B0), (Cs1, Bs1), ...: h_observable =
+        f h_two_path, i.e. C_obs = Re f C_S + Im f B_S and B_obs = Re f B_S - Im f C_S. The
+        reference (f = 1) is, for the photon sector, the orthogonal Fabry-Perot pair read as
+        (nu_1 - nu_2)/nu (C8, C9); for the matter sector, one clock along path 1 with a
+        sensitivity of 1 Hz (docs/theory.md, "Direction-dependent clock"). The factor follows
+        from the horizontal traceless part of the table-mounted modes, sum_i w_i M_i; lab-fixed
+        modes add no 2 theta term, and a tilt of the table axis (ignored here) changes f by
+        terms of order the tilt angle.
+        """
+        w = self.linear_weights(units)
+        total = sum((wi * _spin2(m.tensor) for wi, m in zip(w, self.modes) if m.on_table),
+                    0j)
+        reference = 1.0 if self.sector == "photon" else 0.5
+        f = complex(total / reference)
+        tiny = 1e-12 * abs(f)       # rounding of cos 2 alpha, sin 2 alpha at 90 deg
+        return complex(f.real if abs(f.real) > tiny else 0.0, f.imag if abs(f.imag) > tiny else 0.0)
+
+    def offset_directions(self, units: str) -> dict[str, tuple[float, float]]:
+        """Per-turn (C, B) of unit lab-fixed 2 theta offsets ``lab_C0`` and ``lab_B0``.
+
+        ``lab_C0`` is a constant offset along the two-path C0 (the direction of ke_ZZ),
+        ``lab_B0`` one along the two-path B0 (which no kappa_e- coefficient produces), mapped
+        to this observable by :meth:`two_path_factor` and normalised to one observable unit;
+        the sign keeps (1, 0) and (0, 1) for a real factor of either sign (every kind with
+        paths 90 deg apart).
+        """
+        f = self.two_path_factor(units)
+        if abs(f) == 0.0:
+            return {"lab_C0": (1.0, 0.0), "lab_B0": (0.0, 1.0)}
+        e = f / abs(f)
+        e = -e if e.real < 0 or (e.real == 0 and e.imag < 0) else e
+        return {"lab_C0": (e.real, -e.imag), "lab_B0": (e.imag, e.real)}
+
     def attributes(self) -> dict:
         """Attributes as stored in a run file's ``apparatus`` group."""
         raise NotImplementedError
@@ -134,7 +190,9 @@ class CavityPair(Apparatus):
         Azimuth of path 2 minus azimuth of path 1, degrees (C8 default 90).
     mode_tensors : pair of 3x3 arrays, optional
         General sensitivity tensors of the two modes in the table frame, replacing the
-        Fabry-Perot projectors (e.g. from a whispering-gallery mode integral).
+        Fabry-Perot modes, in the normalisation of docs/theory.md: delta nu / nu = M : K_lab
+        (a Fabry-Perot mode along n is 1/2 n n, a ring mode in the plane normal to a is
+        1/4 (1 - a a); e.g. from a whispering-gallery mode integral).
     """
 
     carrier_hz: float | None = None
@@ -153,8 +211,8 @@ class CavityPair(Apparatus):
         if self.mode_tensors is not None:
             if len(self.mode_tensors) != 2:
                 raise ConfigError("apparatus: mode_tensors: expected two 3x3 tensors")
-            modes = [Mode(tensor=_check_tensor(t, f"apparatus: mode_tensors[{i}]"),
-                          direction=None) for i, t in enumerate(self.mode_tensors)]
+            modes = [_user_mode(t, f"apparatus: mode_tensors[{i}]")
+                     for i, t in enumerate(self.mode_tensors)]
         object.__setattr__(self, "modes", tuple(modes))
 
     @property
@@ -173,6 +231,14 @@ class CavityPair(Apparatus):
                 raise ConfigError("apparatus: carrier_hz: needed for a signal in Hz")
             return float(self.carrier_hz)
         return 1.0
+
+    def observable(self, units):
+        """The beat of the two cavities: (nu_1 - nu_2)/nu, or nu_1 - nu_2 in Hz."""
+        self.check_units(units)
+        modes = "general modes" if self.mode_tensors is not None else "Fabry-Perot modes"
+        beat = "nu_1 - nu_2 [Hz]" if units == "Hz" else "(nu_1 - nu_2)/nu [1]"
+        return (f"cavity-pair beat {beat}, path 2 at azimuth A_1 + "
+                f"{self.path_separation_deg:g} deg, {modes}")
 
     def attributes(self):
         """Kind, path separation (deg) and carrier (Hz, if set), as in a run file."""
@@ -208,8 +274,7 @@ class CavityVsReference(CavityPair):
             check_finite_number(self.carrier_hz, "apparatus", "carrier_hz", positive=True)
         rotating = Mode.straight(0.0)
         if self.mode_tensors is not None:
-            rotating = Mode(tensor=_check_tensor(self.mode_tensors[0],
-                                                 "apparatus: mode_tensors[0]"))
+            rotating = _user_mode(self.mode_tensors[0], "apparatus: mode_tensors[0]")
         if self.reference == "atomic":
             modes, weights = (rotating,), (1.0,)
         else:
@@ -219,6 +284,14 @@ class CavityVsReference(CavityPair):
             weights = (1.0, -1.0)
         object.__setattr__(self, "modes", modes)
         object.__setattr__(self, "weights", weights)
+
+    def observable(self, units):
+        """The rotating cavity against its reference, fractional or in Hz."""
+        self.check_units(units)
+        ref = ("an atomic reference" if self.reference == "atomic"
+               else f"a lab-fixed cavity at azimuth {self.reference:g} deg")
+        beat = "nu_rot - nu_ref [Hz]" if units == "Hz" else "(nu_rot - nu_ref)/nu [1]"
+        return f"cavity-vs-reference {beat}, one rotating cavity against {ref}"
 
     def attributes(self):
         """Kind, reference ("atomic" or azimuth, deg) and carrier (Hz, if set), as in a run file."""
@@ -290,6 +363,12 @@ class Michelson(Apparatus):
         self.check_units(units)
         return (mode_shifts / (1.0 + mode_shifts)) @ self.linear_weights(units)
 
+    def observable(self, units):
+        """The fringe count Delta N = c (t_1 - t_2)/lambda (C8)."""
+        self.check_units(units)
+        return (f"michelson fringe count Delta N = c (t_1 - t_2)/lambda [fringe], arm 2 at "
+                f"azimuth A_1 + {self.path_separation_deg:g} deg, {self.passes} pass(es)")
+
     def attributes(self):
         """Kind, arm lengths (m), wavelength (m), passes, arm separation (deg), as in a run file."""
         out = {"kind": self.kind, "arm_length_m": self.arm_length_m,
@@ -333,6 +412,12 @@ class OrientedClock(Apparatus):
         """Factor to the signal in Hz: ``sensitivity_hz``."""
         self.check_units(units)
         return float(self.sensitivity_hz)
+
+    def observable(self, units):
+        """The clock's frequency shift in Hz."""
+        self.check_units(units)
+        return (f"clock frequency shift [Hz], sensitivity {self.sensitivity_hz:g} Hz, "
+                f"axis {self.axis}")
 
     def attributes(self):
         """Kind, sensitivity (Hz) and axis, as in a run file."""

@@ -6,6 +6,9 @@ phi), the basis signals are evaluated, and each is projected on
 
     S = B sin 2 theta + C cos 2 theta,  C = C0 + Cs1 sin phi + Cc1 cos phi + Cs2 sin 2 phi + ...
 
+The harmonics are those of the apparatus's observable, in its units; the table states the
+observable and its factor to the two-path harmonics of convention C9.
+
 Uniform grids make the projection exact for signals band-limited below half the grid sizes. The
 part of each basis signal the C10 model does not capture (non-rotating
 terms, higher harmonics) is reported as ``uncaptured_rms``.
@@ -124,6 +127,11 @@ class HarmonicTable:
         RMS of the part of each basis signal outside the C10 model.
     values : dict
         Coefficient values used for the ``contribution`` view (may be empty).
+    observable : str
+        What the harmonics are of (the apparatus's observable, in ``units``).
+    two_path_factor : complex
+        f with h = f h_two_path for each harmonic pair h = C - i B (convention C9;
+        :meth:`fringe.experiment.apparatus.Apparatus.two_path_factor`).
     """
 
     labels: tuple
@@ -134,6 +142,8 @@ class HarmonicTable:
     orbit: NDArray
     uncaptured_rms: NDArray
     values: dict
+    observable: str = ""
+    two_path_factor: complex = 1.0
 
     def contribution(self) -> dict[str, dict[str, float]]:
         """Each coefficient's contribution (value x unit harmonic) at the reference instant."""
@@ -155,12 +165,16 @@ class HarmonicTable:
     def to_dict(self) -> dict:
         """The table as plain JSON (harmonics in ``units`` per unit coefficient).
 
-        Keys: units, reference instant and orbital phase (rad), the harmonic and orbit-term
-        names, the coefficient values, the harmonics per unit coefficient (``per_unit``), the
-        :meth:`contribution` view, the annual-modulation fit (``annual``) and the uncaptured RMS.
+        Keys: units, the observable and its factor to the two-path harmonics
+        (``two_path_factor``: [Re f, Im f]), reference instant and orbital phase (rad), the
+        harmonic and orbit-term names, the coefficient values, the harmonics per unit
+        coefficient (``per_unit``), the :meth:`contribution` view, the annual-modulation fit
+        (``annual``) and the uncaptured RMS.
         """
+        f = complex(self.two_path_factor)
         return {
-            "units": self.units, "t_ref_utc": self.t_ref_utc,
+            "units": self.units, "observable": self.observable,
+            "two_path_factor": [f.real, f.imag], "t_ref_utc": self.t_ref_utc,
             "orbital_phase_ref_rad": self.orbital_phase_ref_rad,
             "harmonic_names": list(HARMONIC_NAMES), "orbit_terms": list(ORBIT_TERMS),
             "values": dict(self.values),
@@ -181,8 +195,12 @@ class HarmonicTable:
         rows = [n for n in self.labels if not nonzero_only or self.values.get(n, 0.0) != 0.0
                 or n == "total"] or list(self.labels)
         head = f"{'coefficient':<12}" + "".join(f"{h:>11}" for h in HARMONIC_NAMES)
+        f = complex(self.two_path_factor)
         lines = [f"C10 harmonics [{self.units}] at {self.t_ref_utc} "
                  f"(orbital phase {np.degrees(self.orbital_phase_ref_rad) % 360:.1f} deg)",
+                 f"of the observable: {self.observable}",
+                 f"two-path harmonics (C9): h_S = h / f for h = C - i B, f = "
+                 f"{f.real:.6g}{f' {f.imag:+.6g} i' if f.imag else ''}",
                  head, "-" * len(head)]
         for n in rows:
             lines.append(f"{n:<12}" + "".join(f"{contrib[n][h]:>11.3e}" for h in HARMONIC_NAMES))
@@ -216,4 +234,6 @@ def harmonic_table(setup: Setup, t_ref_s: float, values: dict[str, float] | None
     return HarmonicTable(labels=labels, units=setup.units,
                          t_ref_utc=setup.epoch.utc_iso(t_ref_s),
                          orbital_phase_ref_rad=float(orbital_phase_rad(setup.epoch, [t_ref_s])[0]),
-                         at_ref=at_ref, orbit=orbit, uncaptured_rms=unc, values=values)
+                         at_ref=at_ref, orbit=orbit, uncaptured_rms=unc, values=values,
+                         observable=setup.apparatus.observable(setup.units),
+                         two_path_factor=setup.apparatus.two_path_factor(setup.units))

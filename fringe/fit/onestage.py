@@ -7,8 +7,9 @@ turn to its 2 theta amplitudes (C_i, B_i), this module fits all samples y_n at o
 
 * g_k: the basis signal of free coefficient k (:func:`fringe.experiment.basis.basis`, with the
   recorded azimuth A_n of each sample; exact, no frozen-frame or 8-angle approximation);
-* h_j: the global nuisances of stage 3, a constant sin 2 theta column when ``settings.lab_b0``
-  (``lab_B0``), a constant cos 2 theta column when ``settings.lab_c0`` (``lab_C0``) and, for
+* h_j: the global nuisances of stage 3, a constant 2 theta column along the apparatus's
+  two-path B0 when ``settings.lab_b0`` (``lab_B0``; sin 2 theta for paths 90 deg apart), one
+  along its two-path C0 when ``settings.lab_c0`` (``lab_C0``; cos 2 theta) and, for
   each ``settings.regress`` channel ch, the 2 theta part of that channel in each turn
   (C_ch,b cos 2 theta + B_ch,b sin 2 theta, from the stage-1 table; ``aux_ch``);
 * L_l: the per-turn nuisances of stage 1, i.e. every term of the block model except cos 2 theta
@@ -162,10 +163,10 @@ def _range_sums(info: RecordInfo, demod: DemodSettings, setup: Setup, table: Tur
 
     # global columns: basis signals, then the stage-3 nuisances
     gcols = [_chunked(lambda tt, aa: basis(setup, tt, aa, names), t.size, t, az)]
-    if settings.lab_b0:
-        gcols.append(z2.imag[:, None])
-    if settings.lab_c0:
-        gcols.append(z2.real[:, None])
+    offsets = setup.apparatus.offset_directions(setup.units)     # (C, B) of lab_B0, lab_C0
+    for on, key in ((settings.lab_b0, "lab_B0"), (settings.lab_c0, "lab_C0")):
+        if on:
+            gcols.append((offsets[key][0] * z2.real + offsets[key][1] * z2.imag)[:, None])
     ic, isn = table.settings.index("c2"), table.settings.index("s2")
     for ch in settings.regress:
         aux = table.aux[ch][rows]

@@ -11,7 +11,10 @@ segment's, for any record length). The passes:
    of each group of turns (:func:`fringe.fit.solver.normal_parts`); then solve;
 2. over the cache: chi^2 of both stages at the first solutions, and the reduced chi^2 of the C
    and B rows that rescale them (:func:`fringe.fit.solver.residual_chi2`); refit from the parts;
-3. over the cache: chi^2 at the final solution and the fitted model of every turn.
+3. over the cache: chi^2 at the final solution, the fitted model of every turn and the
+   stage-2 harmonics of the coefficients' model alone (``harmonics["predicted"]``: the fitted
+   and fixed coefficients without the nuisances, fitted like the data), which the diagnostics
+   compare the data's harmonics with.
 
 The weights are s_i^2 x ninv_i (:func:`noise_level`), the same as the in-memory fits use.
 """
@@ -126,7 +129,10 @@ def design_columns(setup, t, names, table, sel, settings) -> tuple[NDArray, NDAr
     """Per-turn design (jc, jb) of the free coefficients and the nuisance columns.
 
     Columns as :func:`design_labels`, for the rows ``sel`` of ``table`` (mean times t); jc and
-    jb each have shape (n, number of labels).
+    jb each have shape (n, number of labels). ``lab_B0`` and ``lab_C0`` are constant offsets
+    along the two-path B0 and C0 of the apparatus
+    (:meth:`fringe.experiment.apparatus.Apparatus.offset_directions`): a constant B and C for
+    paths 90 deg apart; for other separations lab_B0 stays orthogonal to what ke_ZZ produces.
     """
     labels = design_labels(names, settings)
     k, kk = len(names), len(labels)
@@ -134,11 +140,12 @@ def design_columns(setup, t, names, table, sel, settings) -> tuple[NDArray, NDAr
     turn_model(setup, t, names, table=table, sel=sel, mean=False, out=(jc, jb))
     ic, isn = table.settings.index("c2"), table.settings.index("s2")
     col = k
+    offsets = setup.apparatus.offset_directions(setup.units)     # two-path B0, C0 directions
     if settings.lab_b0:
-        jc[:, col], jb[:, col] = 0.0, 1.0
+        jc[:, col], jb[:, col] = offsets["lab_B0"]
         col += 1
     if settings.lab_c0:
-        jc[:, col], jb[:, col] = 1.0, 0.0
+        jc[:, col], jb[:, col] = offsets["lab_C0"]
         col += 1
     for ch in settings.regress:
         jc[:, col], jb[:, col] = table.aux[ch][sel, ic], table.aux[ch][sel, isn]
@@ -260,10 +267,11 @@ def run_passes(setup, store: TurnStore, settings, free: tuple[str, ...] | None,
                            "by the scatter (use FitSettings.uncertainty formal for noise-free "
                            "data)")
         out.x, out.cov_formal = solve(*parts.combine(np.sqrt(out.r_c), np.sqrt(out.r_b)))
-    # pass 3: chi^2 at the final solution and the fitted model
+    # pass 3: chi^2 at the final solution, the fitted model and the harmonics it predicts
     d_c, d_b = np.sqrt(out.r_c), np.sqrt(out.r_b)
+    predicted = NormalParts.zeros(10)
     for i in range(cache.n_segments):
-        r = cache.get(i, ("c", "b", "c3", "b3", "jc", "jb", "p00", "p01", "p11"))
+        r = cache.get(i, ("phi", "c", "b", "c3", "b3", "jc", "jb", "p00", "p01", "p11"))
         if "jc" not in r:
             continue
         provider = _design_rows(r["jc"], r["jb"], r.get("c3", r["c"]), r.get("b3", r["b"]))
@@ -271,8 +279,20 @@ def run_passes(setup, store: TurnStore, settings, free: tuple[str, ...] | None,
         out.chi2 += residual_chi2(provider, w, out.x, d_c, d_b)[0]
         mc, mb = fitted(provider, w.size, out.x)
         cache.update(i, {"model_c": mc, "model_b": mb})
+        pc, pb = _coefficient_model(r, out.x[:len(free)])
+        predicted.add(normal_parts(_harmonic_rows(harmonic_basis(r["phi"]), pc, pb), w, 10))
         del r, provider
+    out.harmonics["predicted"] = solve(*predicted.combine())[0].tolist()
     return out
+
+
+def _coefficient_model(rows: dict, x: NDArray) -> tuple[NDArray, NDArray]:
+    """Per-turn (C, B) of the fitted coefficients ``x`` plus the fixed ones, no nuisances."""
+    k = x.size
+    pc, pb = rows["jc"][:, :k] @ x, rows["jb"][:, :k] @ x
+    if "c3" in rows:                       # the fixed coefficients' model was subtracted
+        pc, pb = pc + rows["c"] - rows["c3"], pb + rows["b"] - rows["b3"]
+    return pc, pb
 
 
 class _Sums:

@@ -211,8 +211,10 @@ def _package(path, setup, meta, settings, demod, info, store, harm, res, span_s,
     stage1 = Stage1(n_blocks, counts, turn_period_s=info.turn_period_s, residual_rms=rms_med,
                     white_noise_per_sample=rms_med, settings=demod.to_dict(), glitch_rule=(
                         f"residual RMS > median + {demod.glitch_threshold} x 1.4826 x MAD"))
+    factor = setup.apparatus.two_path_factor(setup.units)
     harmonics = Harmonics(harm["names"], harm["value"], harm["sigma"], harm["covariance"],
-                          harm["chi2_reduced"], setup.units)
+                          harm["chi2_reduced"], setup.units,
+                          setup.apparatus.observable(setup.units), (factor.real, factor.imag))
     return FitResult(
         theory=setup.theory.name, units=setup.units,
         coefficients={n: Estimate(float(v), float(s))

@@ -2,15 +2,21 @@
 
 * Stage 2 (harmonics, in :func:`fringe.fit.passes.run_passes`): weighted least squares of the
   per-turn (C_i, B_i) against the C10 model in the sidereal angle phi_i; gives C0 ... Bc2 with
-  covariance. B0 is zero for every photon-sector signal (up to the tiny Earth-rotation ko_XY
-  term), so a B0 beyond 3 sigma raises a warning naming a lab-fixed 2 theta systematic.
+  covariance, in the units of the apparatus's observable (its factor to the two-path
+  harmonics of C9: :meth:`fringe.experiment.apparatus.Apparatus.two_path_factor`).
+* Diagnostics (:func:`_offset_checks`): B0 and C0 compared with what the fitted coefficients
+  predict for this apparatus (or the lab_B0 / lab_C0 nuisance when fitted, an offset along
+  the two-path B0 / C0 beyond the coefficient model); beyond 3 sigma a warning names a
+  lab-fixed 2 theta systematic. While a coefficient that only C0 carries is free (ke_ZZ,
+  cq_ZZ), C0 is its measurement, and a caution (a note) says that it rests on C0 alone.
 * Stage 3 (:func:`fit_coefficients`): weighted least squares of the same amplitudes against the
   per-turn 2 theta content of each free coefficient's basis signal, evaluated with the ephemeris
   velocity and modelled as stage 1 measures it over the turn (:func:`turn_model`: the model's
   change within the turn times the block fit's response to it), plus nuisances: a constant
-  B offset (lab-fixed 2 theta systematic, on by default), optionally a constant C offset (only
-  when ke_ZZ is not free: the two are degenerate) and regressions on the 2 theta amplitudes of
-  auxiliary channels. The classical medium (nonlinear) is fitted with lmfit.
+  offset along the two-path B0 (lab-fixed 2 theta systematic, on by default), optionally one
+  along the two-path C0 (only when ke_ZZ is not free: the two are degenerate) and
+  regressions on the 2 theta amplitudes of auxiliary channels. The classical medium
+  (nonlinear) is fitted with lmfit.
 
 Uncertainties: per-turn weights from the stage-1 formal covariance; the coefficient covariance
 is scaled by the reduced chi^2 (default, the observed scatter), or replaced by a block bootstrap
@@ -25,6 +31,7 @@ medium and rms_kt fits load it whole.
 from __future__ import annotations
 
 import logging
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -191,34 +198,7 @@ def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettin
         models = TurnModels(model_c=res.model_c, model_b=res.model_b)
     if "rms_kt" in free:
         _add_rms_kt(setup, store.load(), settings, res)
-    import warnings
-
-    if "lab_B0" in res.nuisance:      # B offset beyond the fitted coefficient model (stage 3)
-        b0, sb0 = res.nuisance["lab_B0"]["value"], res.nuisance["lab_B0"]["sigma"]
-        what, key = "B0 beyond the coefficient model (lab_B0)", "lab_B0"
-    else:                             # stage-2 harmonic
-        b0, sb0 = harm["value"][5], harm["sigma"][5]
-        what, key = "B0", "B0"
-    if theory.sector == "photon" and sb0 > 0 and abs(b0) > 3 * sb0:
-        msg = (f"{what} = {b0:.3g} ± {sb0:.2g} {setup.units} is inconsistent with zero "
-               f"({abs(b0) / sb0:.1f} sigma): photon-sector signals give B0 = 0, so this points "
-               "to a lab-fixed 2 theta systematic (tilt, gravity or centrifugal deformation, "
-               "magnetics)")
-        res.warnings.append(FitWarning("b0-lab-fixed", msg, {
-            key: float(b0), "sigma": float(sb0), "n_sigma": float(abs(b0) / sb0)}))
-        warnings.warn(msg, SystematicsWarning, stacklevel=2)
-    c0, sc0 = harm["value"][0], harm["sigma"][0]
-    if "ke_ZZ" in res.names:
-        res.notes.append("ke_ZZ is determined by C0 alone, the unmodulated 2 theta term, which "
-                         "is exposed to the same lab-fixed systematics as B0")
-        if sc0 > 0 and abs(c0) > 3 * sc0:
-            msg = (f"C0 = {c0:.3g} ± {sc0:.2g} {setup.units} is inconsistent with zero "
-                   f"({abs(c0) / sc0:.1f} sigma); ke_ZZ (C0 only) may carry a lab-fixed "
-                   "systematic")
-            res.warnings.append(FitWarning("c0-lab-fixed", msg, {
-                "C0": float(c0), "sigma": float(sc0), "n_sigma": float(abs(c0) / sc0)},
-                ("ke_ZZ",)))
-            warnings.warn(msg, SystematicsWarning, stacklevel=2)
+    _offset_checks(setup, harm, res, _c0_only(setup, rotating) if theory.linear else [])
     chi2_warning = harmonics_chi2_warning(harm["chi2_reduced"], n_acc, settings.uncertainty)
     if chi2_warning is not None:
         res.warnings.append(chi2_warning)
@@ -261,3 +241,93 @@ def harmonics_chi2_warning(chi2_reduced: float, n_turns: int,
     msg = (f"harmonic fit: reduced chi2 = {red:.3g} with {dof} degrees of freedom is far from 1 "
            f"(white-noise scatter {spread:.2g}): {why}{scaled}")
     return FitWarning("harmonics-chi2", msg, {"chi2_reduced": red, "dof": float(dof)})
+
+
+_SYSTEMATICS = ("a lab-fixed 2 theta systematic (tilt, gravity or centrifugal deformation, "
+                "magnetics)")
+
+
+def _offset_estimate(key: str, harm: dict, res: CoefficientFit):
+    """(value, sigma, data, predicted, record key, what) of the B0 or C0 check, or None.
+
+    The fitted nuisance lab_<key> when there is one (an offset along the two-path <key> beyond
+    the coefficient model); else the stage-2 harmonic minus the one the fitted and fixed
+    coefficients predict (``harm["predicted"]``), with the harmonic's sigma (conservative: the
+    difference scatters less, because the coefficients come from the same turns).
+    """
+    nuisance = f"lab_{key}"
+    if nuisance in res.nuisance:
+        e = res.nuisance[nuisance]
+        return (e["value"], e["sigma"], e["value"], None, nuisance,
+                f"{key} beyond the coefficient model ({nuisance}, along the two-path {key})")
+    predicted = harm.get("predicted")
+    if predicted is None:
+        return None
+    i = harm["names"].index(key)
+    data = harm["value"][i]
+    return data - predicted[i], harm["sigma"][i], data, predicted[i], key, key
+
+
+def _c0_only(setup: Setup, names: tuple[str, ...], rtol: float = 0.05) -> list[str]:
+    """The free coefficients whose two-path harmonics are C0 alone (SME ke_ZZ, clock cq_ZZ).
+
+    From the harmonic table at the epoch (:func:`fringe.experiment.harmonics.harmonics_at`),
+    turned into the two-path normalisation by the apparatus's factor (so ke_ZZ counts at any
+    path separation): every other harmonic below ``rtol`` of C0. The tolerance admits the
+    precession-nutation pole offset p (a few mrad, C5), which moves about 2 p cot(chi) of
+    ke_ZZ's C0 into C_s1, C_c1 (below 0.04 of C0 for colatitudes chi above 10 deg).
+    """
+    from fringe.experiment.harmonics import harmonics_at
+
+    f = setup.apparatus.two_path_factor(setup.units)
+    if not names or f == 0:
+        return []
+    coef, _, labels = harmonics_at(setup, 0.0, names=names)
+    h = (coef[:5] - 1j * coef[5:]) / f
+    c0 = np.abs(h[0].real)
+    rest = np.sqrt(np.maximum(np.sum(np.abs(h) ** 2, axis=0) - c0 ** 2, 0.0))
+    return [n for j, n in enumerate(labels) if c0[j] > 0 and rest[j] < rtol * c0[j]]
+
+
+def _offset_checks(setup: Setup, harm: dict, res: CoefficientFit, c0_only: list[str]) -> None:
+    """The B0 and C0 diagnostics, added to ``res.warnings`` and ``res.notes``.
+
+    Each compares what the data show with what the fitted coefficients themselves predict for
+    this apparatus (never with zero: at a path separation other than 90 deg ke_ZZ also makes
+    a B0, kappa_tr and ko_XY make a small B0 through the Earth-rotation velocity, and every
+    kappa_e- coefficient a small C0 through the boost). While a coefficient that only C0
+    carries (``c0_only``: ke_ZZ, cq_ZZ) is free, C0 is its measurement and is not tested; a
+    caution says so.
+    """
+    for key, code in (("B0", "b0-lab-fixed"), ("C0", "c0-lab-fixed")):
+        if key == "C0" and c0_only and "lab_C0" not in res.nuisance:
+            what = " and ".join(c0_only)
+            res.notes.append(f"caution: {what} {'is' if len(c0_only) == 1 else 'are'} "
+                             "determined by C0 alone (the unmodulated 2 theta term of the "
+                             "two-path signal), where lab-fixed systematics also land; C0 is "
+                             f"therefore not tested for them, and a bound on {what} needs the "
+                             "systematics budget of the apparatus")
+            continue
+        got = _offset_estimate(key, harm, res)
+        if got is None:
+            res.notes.append(f"{key} not tested for a lab-fixed systematic (no prediction of "
+                             f"the fitted model and no lab_{key} nuisance)")
+            continue
+        value, sigma, data, predicted, record_key, what = got
+        if not (sigma > 0 and abs(value) > 3 * sigma):
+            continue
+        n_sigma = abs(value) / sigma
+        if predicted is None:
+            msg = (f"{what} = {value:.3g} ± {sigma:.2g} {setup.units} is inconsistent with zero "
+                   f"({n_sigma:.1f} sigma); the fitted coefficients carry their own {key}, so "
+                   f"this points to {_SYSTEMATICS}")
+            values = {record_key: float(value)}
+        else:
+            msg = (f"{key} = {data:.3g} ± {sigma:.2g} {setup.units} differs from "
+                   f"the {predicted:.3g} the fitted coefficients predict ({n_sigma:.1f} sigma): "
+                   f"this points to {_SYSTEMATICS}")
+            values = {key: float(data), f"{key}_predicted": float(predicted)}
+        values.update(sigma=float(sigma), n_sigma=float(n_sigma))
+        # a lab-fixed systematic in B0 or C0 puts the coefficients C0 alone carries in doubt
+        res.warnings.append(FitWarning(code, msg, values, tuple(c0_only)))
+        warnings.warn(msg, SystematicsWarning, stacklevel=3)

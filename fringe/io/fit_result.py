@@ -52,7 +52,8 @@ CONVENTIONS = {
     "sidereal_angle": "phi = ERA(UT1) + east longitude (C5)",
     "theta": "azimuth of path 1 from south toward east, theta = pi - A (C6, C7)",
     "beat": "path 1 minus path 2, path 2 at azimuth A1 + separation (C8)",
-    "normalisation": "two-path signal (C9)",
+    "normalisation": "harmonics of the apparatus's observable, in its units; "
+                     "harmonics.two_path_factor f maps them to the two-path signal (C9)",
     "fourier_model": "S = B sin 2theta + C cos 2theta, C = C0 + Cs1 sin phi + ... (C10)",
     "rms": "rms_mm = delta - beta + 1/2, rms_kt = beta - alpha - 1 (C13)",
     "uncertainties": "1 sigma",

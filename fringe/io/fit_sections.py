@@ -125,10 +125,14 @@ class Covariance:
 
 @dataclass(frozen=True)
 class Harmonics:
-    """The stage-2 C10 harmonics (C0, Cs1, ..., Bc2), unit of the observable.
+    """The stage-2 C10 harmonics (C0, Cs1, ..., Bc2) of the apparatus's observable, in its units.
 
-    ``covariance`` (rows in the order of ``names``), ``chi2_reduced`` and ``units`` are None
-    when a file does not state them.
+    ``observable`` says what was fitted (e.g. the fringe count of a Michelson); with
+    ``two_path_factor`` = (Re f, Im f), h_observable = f h_two_path for each pair h = C - i B
+    (:meth:`fringe.experiment.apparatus.Apparatus.two_path_factor`, convention C9), so
+    C_S = Re(h/f) and B_S = -Im(h/f) give the two-path harmonics. ``covariance`` (rows in the
+    order of ``names``), ``chi2_reduced``, ``units``, ``observable`` and ``two_path_factor`` are
+    None when a file does not state them.
     """
 
     names: tuple[str, ...]
@@ -137,20 +141,27 @@ class Harmonics:
     covariance: tuple[tuple[float, ...], ...] | None = None
     chi2_reduced: float | None = None
     units: str | None = None
+    observable: str | None = None
+    two_path_factor: tuple[float, float] | None = None
 
     def __post_init__(self):
         for name in ("names", "value", "sigma"):
             _set(self, name, tuple(getattr(self, name)))
         if self.covariance is not None:
             _set(self, "covariance", tuple(tuple(r) for r in self.covariance))
+        if self.two_path_factor is not None:
+            _set(self, "two_path_factor", tuple(float(x) for x in self.two_path_factor))
 
     def to_dict(self) -> dict:
-        """The record as plain JSON-ready data (the inverse of :meth:`read`)."""
+        """The ``harmonics`` object of the result file (None parts left out)."""
         return _omit_none({"names": list(self.names), "value": list(self.value),
                            "sigma": list(self.sigma),
                            "covariance": None if self.covariance is None
                            else [list(r) for r in self.covariance],
-                           "chi2_reduced": self.chi2_reduced, "units": self.units})
+                           "chi2_reduced": self.chi2_reduced, "units": self.units,
+                           "observable": self.observable,
+                           "two_path_factor": None if self.two_path_factor is None
+                           else list(self.two_path_factor)})
 
     @classmethod
     def read(cls, f: Fields, key: str) -> Harmonics | None:
@@ -158,13 +169,15 @@ class Harmonics:
         h = f.sub(key, required=False)
         if h is None:
             return None
-        h.unknown(("names", "value", "sigma", "covariance", "chi2_reduced", "units"))
+        h.unknown(("names", "value", "sigma", "covariance", "chi2_reduced", "units",
+                   "observable", "two_path_factor"))
         names = h.strings("names")
         return cls(names, h.numbers("value", length=len(names)),
                    h.numbers("sigma", length=len(names), minimum=0.0),
                    h.matrix("covariance", len(names), required=False),
                    h.number("chi2_reduced", required=False, null=True),
-                   h.string("units", required=False))
+                   h.string("units", required=False), h.string("observable", required=False),
+                   h.numbers("two_path_factor", length=2, required=False))
 
 
 #: Fields of ``stage1`` other than the per-status counts.
@@ -373,13 +386,15 @@ class FitWarning:
     whose estimate the warning puts in doubt (empty: the warning concerns the record as a
     whole); a report's headline bound leaves those out.
 
-    Codes: ``b0-lab-fixed`` (B0 or lab_B0 inconsistent with zero), ``c0-lab-fixed`` (C0
-    inconsistent with zero, ke_ZZ free; names ke_ZZ), ``near-degenerate`` (correlations above
-    0.95; names the coefficients of the pairs), ``harmonics-chi2`` (the reduced chi^2 of the
-    stage-2 harmonic fit far from one), ``simulated-noise-free`` (a simulated record without
-    noise), ``utc-before-1960``, ``leap-table-range``, ``ephemeris-range`` (the record's times
-    outside a reliable span, :func:`fringe.frames.time_span_cautions`); ``unnamed`` for a
-    plain-text warning of a version-1 result file.
+    Codes: ``b0-lab-fixed`` (lab_B0 inconsistent with zero, or B0 with the B0 the fitted
+    coefficients predict; names the coefficients C0 alone carries, when free),
+    ``c0-lab-fixed`` (likewise lab_C0 or C0, only while ke_ZZ is not free),
+    ``near-degenerate`` (correlations above 0.95; names the coefficients of the pairs),
+    ``harmonics-chi2`` (the reduced chi^2 of the stage-2 harmonic fit far from one),
+    ``simulated-noise-free`` (a simulated record without noise), ``utc-before-1960``,
+    ``leap-table-range``, ``ephemeris-range`` (the record's times outside a reliable span,
+    :func:`fringe.frames.time_span_cautions`); ``unnamed`` for a plain-text warning of a
+    version-1 result file.
     """
 
     code: str

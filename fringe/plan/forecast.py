@@ -175,10 +175,11 @@ def _turn_sums(setup, names, period_s, n_turns, max_points, stride=None,
     t = (np.arange(m) * stride + 0.5 * stride) * period_s
     c, b = two_theta_amplitudes(setup, t, [n for n in names if n not in NUISANCES])
     cols_c, cols_b, j = [], [], 0
+    offsets = setup.apparatus.offset_directions(setup.units)     # (C, B) of each NUISANCES key
     for n in names:
         if n in NUISANCES:
-            cols_c.append(np.full(m, NUISANCES[n][0]))
-            cols_b.append(np.full(m, NUISANCES[n][1]))
+            cols_c.append(np.full(m, offsets[n][0]))
+            cols_b.append(np.full(m, offsets[n][1]))
         else:
             cols_c.append(c[:, j])
             cols_b.append(b[:, j])

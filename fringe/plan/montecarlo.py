@@ -56,7 +56,7 @@ def monte_carlo_check(scenario: Scenario, n_campaigns: int, rng: np.random.Gener
         Campaigns simulated at once.
     """
     from fringe.plan.forecast import forecast
-    from fringe.plan.settings import NUISANCES, plan_settings
+    from fringe.plan.settings import plan_settings
 
     if isinstance(n_campaigns, bool) or not isinstance(n_campaigns, int) or n_campaigns < 2:
         raise ConfigError(f"monte carlo: n_campaigns: expected an integer >= 2, "
@@ -72,9 +72,11 @@ def monte_carlo_check(scenario: Scenario, n_campaigns: int, rng: np.random.Gener
     if n > max_turns:
         raise ConfigError(f"monte carlo: {n} turns exceed max_turns = {max_turns}")
     t = (np.arange(n) + 0.5) * fc.period_s
-    c, b = two_theta_amplitudes(scenario.setup(), t, st.free)
-    extra_c = [np.full(n, NUISANCES[k][0]) for k in st.nuisances]
-    extra_b = [np.full(n, NUISANCES[k][1]) for k in st.nuisances]
+    setup = scenario.setup()
+    c, b = two_theta_amplitudes(setup, t, st.free)
+    offsets = setup.apparatus.offset_directions(setup.units)     # (C, B) of each nuisance
+    extra_c = [np.full(n, offsets[k][0]) for k in st.nuisances]
+    extra_b = [np.full(n, offsets[k][1]) for k in st.nuisances]
     a = np.concatenate([np.column_stack([c] + extra_c), np.column_stack([b] + extra_b)])
     truth = np.array([scenario.coefficients.get(k, 0.0) for k in st.free]
                      + [0.0] * len(st.nuisances))

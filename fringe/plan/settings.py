@@ -15,7 +15,9 @@ from fringe.errors import ConfigError, check_finite_number
 if TYPE_CHECKING:
     from fringe.experiment.scenario import Scenario
 
-#: Nuisance columns (C row, B row) of the per-turn model: constant lab-fixed 2 theta offsets.
+#: Nuisance columns (C row, B row) of the per-turn model: constant lab-fixed 2 theta offsets,
+#: as for paths 90 deg apart; the plan and the fit use the apparatus's own directions
+#: (:meth:`fringe.experiment.apparatus.Apparatus.offset_directions`: two-path B0 and C0).
 NUISANCES: dict[str, tuple[float, float]] = {"lab_B0": (0.0, 1.0), "lab_C0": (1.0, 0.0)}
 #: Longest turn the per-turn model is used for, s (must be << a sidereal day).
 MAX_PERIOD_S = 3600.0

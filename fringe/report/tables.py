@@ -407,6 +407,48 @@ def _entries(estimates: Mapping) -> dict:
     return {n: {"value": e.value, "sigma": e.sigma} for n, e in estimates.items() if e.finite}
 
 
+def _format_factor(f: complex) -> str:
+    """A two-path factor as text: a real number, or its real and imaginary parts."""
+    if f.imag == 0.0:
+        return f"{f.real:.6g}"
+    return f"{f.real:.6g} {'+' if f.imag > 0 else '−'} {abs(f.imag):.6g} i"
+
+
+def two_path_factor_of(fit: FitResult) -> tuple[str | None, complex | None, bool]:
+    """The observable and its factor to the two-path harmonics (C9) of a fit result.
+
+    From the harmonics record; for a file that does not state them (format version 1), derived
+    from the fit's apparatus record (third item True), or (None, None, False) when that fails.
+    """
+    h = fit.harmonics
+    if h is not None and h.two_path_factor is not None:
+        return h.observable, complex(*h.two_path_factor), False
+    from fringe.experiment.apparatus import make_apparatus
+
+    try:
+        app = make_apparatus(dict(fit.apparatus or {}), source="fit apparatus")
+        units = h.units if h is not None and h.units else fit.units
+        return app.observable(units), app.two_path_factor(units), True
+    except (ConfigError, TypeError, ValueError):
+        return None, None, False
+
+
+def harmonics_caption(fit: FitResult) -> str:
+    """Caption of the harmonics table: the observable and its factor to the two-path signal."""
+    observable, f, derived = two_path_factor_of(fit)
+    head = ("C10 harmonics of the observable fitted, per turn y = B sin 2θ + C cos 2θ with "
+            "C = C0 + Cs1 sin φ + …, in the observable's units")
+    if f is None:
+        return head + "; the fit file does not state the observable's factor to the two-path " \
+                      "signal (C9)."
+    source = " (derived by the report from the fit's apparatus record)" if derived else ""
+    if f == 0:
+        return f"{head}. Observable: {observable}{source}; it has no 2θ response."
+    return (f"{head}. Observable: {observable}{source}. Two-path signal S of C9: for each pair "
+            f"h = C − iB, h_S = h / f with f = {_format_factor(f)} (for a real f: C_S = C/f, "
+            "B_S = B/f).")
+
+
 def report_tables(fit: FitResult, comparison: Sequence[Mapping] = (), style: str = "unicode"
                   ) -> dict[str, Table]:
     """The tables of a report, keyed by name.
@@ -432,9 +474,8 @@ def report_tables(fit: FitResult, comparison: Sequence[Mapping] = (), style: str
         chi = h.chi2_reduced
         out["harmonics"] = harmonics_table(
             h.names, h.value, h.sigma, units=h.units if h.units is not None else fit.units,
-            style=style, caption="C10 harmonics (S = B sin 2θ + C cos 2θ, two-path "
-            "normalisation)" + (f"; reduced χ² = {chi:.3g}" if chi is not None
-                                and math.isfinite(chi) else "") + ".")
+            style=style, caption=harmonics_caption(fit) + (
+                f" Reduced χ² = {chi:.3g}." if chi is not None and math.isfinite(chi) else ""))
     cov = fit.covariance
     if len(cov.names) >= 2:
         out["correlation"] = correlation_table(cov.names, cov.matrix, style=style,

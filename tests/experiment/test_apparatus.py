@@ -171,17 +171,50 @@ def test_fixed_reference_cavity():
 
 
 def test_ring_mode_is_minus_half_fabry_perot():
-    """[R-SME-modes]: a ring mode circulating in the plane normal to a responds with
-    -1/2 of the Fabry-Perot response along a. In fringe's trace-1 normalisation (T = K/2) the
-    ring tensor is 1/2 (1 - a a) (the reference's 1/4 (1 - a a) is in the K normalisation)."""
+    """[R-SME-modes]: a ring mode circulating in the plane normal to a has M = 1/4 (1 - a a)
+    (delta nu / nu = M : K_lab) and responds with -1/2 of the Fabry-Perot response along a;
+    mode_tensors take M in that documented normalisation."""
     rng = np.random.default_rng(7)
     state = random_state(rng, 10)
     az = rng.uniform(0, 2 * np.pi, 10)
     x, y = np.eye(3)[0], np.eye(3)[1]
-    rings = (0.5 * (np.eye(3) - np.outer(x, x)), 0.5 * (np.eye(3) - np.outer(y, y)))
+    rings = (0.25 * (np.eye(3) - np.outer(x, x)), 0.25 * (np.eye(3) - np.outer(y, y)))
     fp = basis(setup_for(CavityPair()), np.zeros(10), az, state=state)
     ring = basis(setup_for(CavityPair(mode_tensors=rings)), np.zeros(10), az, state=state)
     np.testing.assert_allclose(ring, -0.5 * fp, rtol=1e-12, atol=1e-14 * np.abs(fp).max())
+
+
+@pytest.mark.parametrize("separation_deg", [90.0, 60.0])
+def test_documented_fabry_perot_tensors_reproduce_the_cavity_pair(separation_deg):
+    """[R-SME-modes]: a Fabry-Perot mode along n has M = 1/2 n n (delta nu / nu = M : K_lab);
+    given as mode_tensors, those tensors must give exactly the cavity-pair kind (paths at table
+    angles 0 and -separation, C7/C8), for every SME coefficient."""
+    rng = np.random.default_rng(8)
+    state = random_state(rng, 12)
+    az = rng.uniform(0, 2 * np.pi, 12)
+    a2 = -np.radians(separation_deg)
+    n1, n2 = np.array([1.0, 0.0, 0.0]), np.array([np.cos(a2), np.sin(a2), 0.0])
+    tensors = (0.5 * np.outer(n1, n1), 0.5 * np.outer(n2, n2))
+    pair = CavityPair(path_separation_deg=separation_deg)
+    general = CavityPair(path_separation_deg=separation_deg, mode_tensors=tensors)
+    want = basis(setup_for(pair), np.zeros(12), az, state=state)
+    got = basis(setup_for(general), np.zeros(12), az, state=state)
+    np.testing.assert_allclose(got, want, rtol=1e-13, atol=1e-15 * np.abs(want).max())
+
+
+def test_documented_fabry_perot_tensor_keeps_the_isotropic_shift():
+    """Against an atomic reference the isotropic ktr term stays ([R-SME-cavity]); the
+    documented tensor 1/2 n n must give it in full, like the straight Fabry-Perot mode."""
+    rng = np.random.default_rng(9)
+    state = random_state(rng, 12)
+    az = rng.uniform(0, 2 * np.pi, 12)
+    params = random_sme(rng)
+    n1 = np.array([1.0, 0.0, 0.0])
+    want = signal(setup_for(CavityVsReference()), params, np.zeros(12), az, state=state)
+    got = signal(setup_for(CavityVsReference(mode_tensors=(0.5 * np.outer(n1, n1),))), params,
+                 np.zeros(12), az, state=state)
+    np.testing.assert_allclose(got, want, rtol=1e-13,
+                               atol=1e-14 * np.abs(want).max() + KTR_ROUNDING * abs(params["ktr"]))
 
 
 # ---- tilt ----------------------------------------------------------------------------------

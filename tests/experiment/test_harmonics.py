@@ -17,10 +17,11 @@ from fringe.conventions import (
     horizontal_direction_lab,
     theta_from_azimuth,
 )
-from fringe.experiment.apparatus import CavityPair, CavityVsReference
+from fringe.experiment.apparatus import CavityPair, CavityVsReference, Michelson, OrientedClock
 from fringe.experiment.basis import Setup, basis
 from fringe.frames import Epoch, FrameState, circular_orbit_beta
 from fringe.site import Site
+from fringe.theories.clock import DirectionalClock
 from fringe.theories.rms import RobertsonMansouriSexl
 from fringe.theories.sme import KE_NAMES, KO_NAMES, SME_NAMES, SmePhoton
 from tests.helpers import oracle
@@ -351,3 +352,94 @@ def test_harmonic_table_annual_modulation_and_dict():
     np.testing.assert_allclose(table.orbit[0, :, j], table.at_ref[:, j], rtol=0, atol=1e-7)
     json.dumps(table.to_dict())
     assert "ke_XY" in table.summary()
+
+
+# ---- the observable of each apparatus kind and its factor to the two-path harmonics (C9) --
+
+def pairs(coef):
+    """h = C - i B of each harmonic pair (C0, B0), (Cs1, Bs1), ..., from rows of HARMONIC_NAMES."""
+    return coef[:5] - 1j * coef[5:]
+
+
+SEP = np.radians(60.0)
+
+
+@pytest.mark.parametrize("apparatus, factor", [
+    # the beat in hertz is nu S (docs/theory.md, "Cavity and Michelson observables")
+    (CavityPair(carrier_hz=2.82e14), 2.82e14),
+    # [R-struct-single-path]: one rotating path against a fixed reference gives half
+    (CavityVsReference(reference="atomic"), 0.5),
+    (CavityVsReference(reference=30.0), 0.5),
+    # [R-SME-two-path]: Delta N = -(2L/lambda) S, per pass (folded paths); unequal arms: the
+    # mean arm length (derived from the same relation arm by arm)
+    (Michelson(arm_length_m=11.0, wavelength_m=590e-9, passes=2), -4 * 11.0 / 590e-9),
+    (Michelson(arm_length_m=1.0, arm_length_2_m=1.2, wavelength_m=633e-9), -1.1 * 2 / 633e-9),
+    # C8 with path 2 at theta - 60 deg: S_60 = 1/2 (1 - exp(-2i sep)) in h (derived)
+    (CavityPair(path_separation_deg=60.0), 0.5 * (1 - np.exp(-2j * SEP))),
+], ids=["pair-Hz", "vs-atomic", "vs-cavity", "michelson", "michelson-unequal", "pair-60deg"])
+def test_photon_observable_harmonics_are_the_two_path_ones_times_the_factor(apparatus, factor):
+    """Every harmonic pair of the kind's own observable is f x the two-path pair (C9)."""
+    t_ref = 5.0e6
+    names = SME_NAMES
+    two_path, _, _ = harmonics.harmonics_at(setup_for(CHI, CavityPair(), rotation=True), t_ref,
+                                            names=names)
+    own, _, _ = harmonics.harmonics_at(setup_for(CHI, apparatus, rotation=True), t_ref,
+                                       names=names)
+    f = apparatus.two_path_factor(apparatus.default_units)
+    assert f == pytest.approx(factor, rel=1e-12)
+    want = factor * pairs(two_path)
+    np.testing.assert_allclose(pairs(own), want, rtol=0,
+                               atol=1e-12 * np.abs(want).max() + FLOOR * abs(factor))
+    assert apparatus.observable(apparatus.default_units).startswith(apparatus.kind)
+
+
+def test_ke_zz_b0_over_c0_at_sixty_degrees(monkeypatch):
+    """At a 60 deg separation ke_ZZ also makes a B0: B0/C0 = -tan 30 deg = -0.577 (derived from
+    the factor above); at 90 deg it makes C0 alone ([R-struct-ZZ])."""
+    freeze_orbit(monkeypatch, 0.0)
+    coef, _, _ = harmonics.harmonics_at(setup_for(CHI, CavityPair(path_separation_deg=60.0)),
+                                        0.0, names=("ke_ZZ",))
+    assert coef[IDX["B0"], 0] / coef[IDX["C0"], 0] == pytest.approx(-np.tan(np.radians(30.0)),
+                                                                      rel=1e-12)
+
+
+@pytest.mark.parametrize("sensitivity_hz", [1.0, -3.5])
+def test_clock_harmonics_are_the_table_with_k_to_c_times_the_sensitivity(monkeypatch,
+                                                                           sensitivity_hz):
+    """docs/theory.md, "Direction-dependent clock": the harmonic table applies with K -> c and
+    an overall factor S_nu, which is the clock's two-path factor ([R-clock-projection]).
+    Intermediate axes: Q set to the identity (the closed form is in those axes)."""
+    fix_pole(monkeypatch)
+    clock = OrientedClock(sensitivity_hz=sensitivity_hz)
+    setup = setup_for(CHI, clock, DirectionalClock())
+    coef, _, labels = harmonics.harmonics_at(setup, 2.0e6)
+    assert clock.two_path_factor("Hz") == sensitivity_hz
+    for j, name in enumerate(labels):          # the cq_* use the component scheme of ke_*
+        closed = fourier_table(*k_components(unit_ke(name.replace("cq_", "ke_"))), CHI)
+        np.testing.assert_allclose(coef[:, j], sensitivity_hz * closed, rtol=0,
+                                   atol=FLOOR * abs(sensitivity_hz))
+    assert OrientedClock(axis="vertical").two_path_factor("Hz") == 0
+
+
+def test_harmonic_table_states_observable_and_factor():
+    table = harmonics.harmonic_table(setup_for(CHI, Michelson(arm_length_m=2.0)), 0.0,
+                                     {"ke_XY": 1e-17}, n_orbit=2)
+    d = table.to_dict()
+    assert d["observable"].startswith("michelson fringe count")
+    assert d["two_path_factor"] == pytest.approx([-2 * 2.0 / 633e-9, 0.0])
+    assert "two-path harmonics (C9)" in table.summary()
+
+
+@pytest.mark.parametrize("ot", [0.0, 1.0, 2.5])
+def test_ktr_b0_through_the_rotation_velocity(monkeypatch, ot):
+    """docs/theory.md, "The sidereal and annual harmonics" (derived): the Earth-rotation
+    velocity beta_L gives ktr an annual B0 = 2 beta_L sin chi beta_Z ktr, beta_Z the SCCEF Z
+    component of the orbital velocity over c (-beta sin eta cos Omega T on the circular orbit)."""
+    freeze_orbit(monkeypatch, BETA_ORB, ot)
+    setup = setup_for(CHI, rotation=True)
+    beta_l = OMEGA_EARTH_RAD_S * setup.site.axis_distance_m / C_M_S
+    coef, _, _ = harmonics.harmonics_at(setup, 0.0, names=("ktr",))
+    beta_z = -BETA_ORB * np.sin(ETA) * np.cos(ot)
+    closed = 2 * beta_l * np.sin(CHI) * beta_z
+    # neglected: relative order beta (the next order of the boost) -> 10 beta of the value
+    assert coef[IDX["B0"], 0] == pytest.approx(closed, rel=10 * BETA_ORB)

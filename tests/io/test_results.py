@@ -384,3 +384,34 @@ def test_library_errors_quote_no_command_line_option():
                 found.append(f"{path.relative_to(package)}:{line}: {text!r}")
     assert not found, found
     assert list(_raised_texts(ast.parse("raise ValueError('--free: x')")))    # the walker works
+
+
+def test_harmonics_state_their_observable_and_two_path_factor():
+    """The harmonics record says what was fitted and its factor f to the two-path harmonics
+    (C9); both round-trip, and a file without them (version 1) still reads."""
+    d = _v2(EXAMPLE)
+    d["harmonics"]["observable"] = "michelson fringe count (invented test value)"
+    d["harmonics"]["two_path_factor"] = [-3.5e7, 0.0]
+    h = FitResult.from_dict(d, source="test").harmonics
+    assert h.observable.startswith("michelson") and h.two_path_factor == (-3.5e7, 0.0)
+    again = FitResult.from_dict(json.loads(json.dumps(FitResult.from_dict(d).to_dict())))
+    assert again.harmonics.two_path_factor == (-3.5e7, 0.0)
+    assert FitResult.from_dict(EXAMPLE).harmonics.two_path_factor is None
+    with pytest.raises(InputFileError, match="harmonics.two_path_factor"):
+        FitResult.from_dict(_set(copy.deepcopy(d), "harmonics.two_path_factor", [1.0]),
+                            source="test")
+
+
+def test_fit_states_the_factor_of_its_apparatus(tmp_path):
+    """A Michelson fit labels its harmonics with the fringe count and f = -2L/lambda
+    ([R-SME-two-path]); the report's caption states both."""
+    from fringe.report.tables import harmonics_caption
+
+    app = {"kind": "michelson", "arm_length_m": 2.0, "wavelength_m": 633e-9}
+    path, *_ = simulate_run(tmp_path / "m.h5", seed=2, days=0.25, interval_s=2.0,
+                            period_s=60.0, apparatus=dict(app, units="fringe"))
+    res, _ = fit_run(path, FitSettings(free=("ke_XY", "ke_XXmYY")))
+    assert res.harmonics.observable.startswith("michelson fringe count")
+    assert res.harmonics.two_path_factor == pytest.approx((-2 * 2.0 / 633e-9, 0.0), rel=1e-12)
+    caption = harmonics_caption(res)
+    assert "michelson fringe count" in caption and "f = -6.31912e+06" in caption

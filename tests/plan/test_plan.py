@@ -400,3 +400,23 @@ def test_cli_writes_outputs_and_refuses_to_overwrite(tmp_path):
     assert "1-sigma forecast" in first.output
     again = runner.invoke(main, args)
     assert again.exit_code == 2 and "exists" in again.output and "\n" not in again.output.strip()
+
+
+def test_lab_b0_stays_orthogonal_to_ke_zz_at_sixty_degrees():
+    """The plan's lab_B0 lies along the apparatus's two-path B0 (as in the fit), which ke_ZZ
+    does not produce: with paths 60 deg apart sigma(ke_ZZ) is the same with and without it
+    (a constant B column would correlate with ke_ZZ at r = cos 60 deg and raise sigma(ke_ZZ)
+    by 1/sqrt(1 - r^2) = 1.155; derived). The white-FM sizing rule with the two-path factor
+    |f| = sin 60 deg (docs/conventions.md, C9) fixes the value."""
+    sc = make(apparatus={"units": "1", "path_separation_deg": 60.0}, noise={"h0": 2e-30},
+              campaign={"duration_days": 1.0},
+              plan={"max_days": 1.0, "n_days": 2, "drift": "offset"})
+    with_b0 = forecast(sc, free=["ke_ZZ"])
+    st = dataclasses.replace(plan_settings(sc, ["ke_ZZ"]), nuisances=())
+    without = forecast(sc, settings=st)
+    assert with_b0.sigma["ke_ZZ"] == pytest.approx(without.sigma["ke_ZZ"], rel=1e-9)
+    t_span = with_b0.n_turns * 45.0
+    s2 = math.sin(sc.site.colatitude_rad) ** 2
+    # [R-noise-sizing]; [R-lab-fourier] C0; the 60 deg pair carries |f| = sin 60 deg of it
+    expected = math.sqrt(2e-30 / t_span) / (0.75 * s2 * math.sin(math.radians(60.0)))
+    assert with_b0.sigma["ke_ZZ"] == pytest.approx(expected, rel=1e-6, abs=0.0)
