@@ -362,7 +362,7 @@ def test_r9_classical_ether_is_rms_with_p_half():
 
 @pytest.mark.parametrize("n_index", [1.0, 1.33, 1.5])
 def test_michelson_in_a_medium_counts_c_times_the_time_difference(n_index):
-    """C8: Delta N = c (t_1 - t_2)/lambda (vacuum wavelength) also for waves of speed c/n.
+    """C8, [R-medium-n-count]: Delta N = c (t_1 - t_2)/lambda (vacuum wavelength) for speed c/n.
 
     Each t_i is the exact Galilean round trip of [R-medium-vacuum],
     t(psi) = (2L/u) sqrt(1 - m^2 sin^2 psi)/(1 - m^2), m = v/u, u = c/n (closed form); arm 1 at
