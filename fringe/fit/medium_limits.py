@@ -90,11 +90,12 @@ def region_max(region: Region, objective: Callable[[NDArray], float],
     """Largest value of ``objective`` on the region, and where it is reached.
 
     SLSQP (scipy.optimize.minimize) in whitened coordinates z (p = best + L z, the region
-    ~ the ball |z|^2 <= threshold) from each of ``starts`` that lies in the region. By default
-    the starts are the best fit pushed to the ball's edge along the objective's gradient and
-    ``region.starts``. A result is kept only if it lies in the region; the best fit always
-    does, so the value is at least ``objective(best)``. A start from which the optimiser steps
-    where the model is undefined (:class:`~fringe.errors.ConfigError`) is skipped.
+    ~ the ball |z|^2 <= threshold) from each of ``starts``. By default the starts are the best
+    fit pushed to the ball's edge along the objective's gradient and those of
+    ``region.starts`` that lie in the region. A result is kept only if it lies in the region;
+    the best fit always does, so the value is at least ``objective(best)``. A start from which
+    the optimiser steps where the model is undefined (:class:`~fringe.errors.ConfigError`) is
+    skipped.
     """
     from scipy.optimize import minimize
 
@@ -111,12 +112,11 @@ def region_max(region: Region, objective: Callable[[NDArray], float],
         return (region.chi2_min + region.threshold - region.chi2(p_of(z))) / region.threshold
 
     if starts is None:
+        # a further start outside the region is a basin whose minimum lies above the threshold
         edge = _edge(neg, np.zeros(region.best.size), np.sqrt(region.threshold))
-        starts = (p_of(edge), *region.starts)
+        starts = (p_of(edge), *(p for p in region.starts if region.inside(p)))
     found, where = objective(region.best), region.best
     for p0 in starts:
-        if not region.inside(p0) and p0 is not starts[0]:
-            continue                          # a basin whose minimum lies above the threshold
         try:
             out = minimize(neg, lsolve @ (p0 - region.best), method="SLSQP",
                            options={"maxiter": 100, "ftol": _FTOL * max(abs(found), 1.0)},
