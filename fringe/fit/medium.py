@@ -89,6 +89,9 @@ def fit_medium(setup: Setup, table: TurnTable, settings: FitSettings) -> Coeffic
     x = np.array([out.params[n].value for n in names])
     threshold = DCHI2_95 * (red if settings.uncertainty == "reduced-chi2" else 1.0)
     derived = medium_derived(setup, t, resid_values, model_values, out, other, threshold)
+    derived["two_theta_amplitude"].update(_orbital_fraction(
+        c, b, w, model_values(dict.fromkeys(MEDIUM_NAMES, 0.0)), off,
+        settings.uncertainty == "reduced-chi2"))
     mc, mb = model(out.params)
     nuis = {}
     if off:
@@ -106,6 +109,28 @@ def fit_medium(setup: Setup, table: TurnTable, settings: FitSettings) -> Coeffic
                           upper_limits={"sun_speed_kms_95":
                                         derived["sun_speed_kms"]["upper_95"]},
                           derived=derived)
+
+
+def _orbital_fraction(c, b, w, template, offset: bool, reduced: bool) -> dict:
+    """Least-squares factor k of the orbital expectation in the per-turn data, with 1 sigma.
+
+    (C_i, B_i) = k (C0_i, B0_i) + lab_B0 (0, 1) [if ``offset``] + noise, weighted with the
+    fit's whitening ``w``; (C0, B0) = ``template``, the model with v_sun = 0. The 1-sigma is
+    scaled by this fit's own reduced chi^2 when ``reduced`` (a signal of another shape inflates
+    it). Returns ``{"orbital_fraction", "orbital_fraction_sigma"}``.
+    """
+    cols = [np.stack(template, axis=1)]
+    if offset:
+        cols.append(np.stack([np.zeros_like(c), np.ones_like(c)], axis=1))
+    x = np.stack([np.einsum("nij,nj->ni", w, col).ravel() for col in cols], axis=1)
+    y = np.einsum("nij,nj->ni", w, np.stack([c, b], axis=1)).ravel()
+    coef, *_ = np.linalg.lstsq(x, y, rcond=None)
+    cov = np.linalg.inv(x.T @ x)
+    if reduced:
+        r = y - x @ coef
+        cov = cov * float(r @ r) / (y.size - x.shape[1])
+    return {"orbital_fraction": float(coef[0]),
+            "orbital_fraction_sigma": float(np.sqrt(cov[0, 0]))}
 
 
 def _region(resid_values, out, other, threshold) -> tuple[Region, list]:
@@ -139,7 +164,8 @@ def medium_derived(setup: Setup, t: np.ndarray, resid_values, model_values, out,
     (:mod:`fringe.fit.medium_limits`); ``two_theta_amplitude``: RMS and largest 2 theta
     amplitude sqrt(C^2 + B^2) over the turns of the fitted medium signal and of the signal a
     medium at rest with the Sun would give (v_sun = 0, orbital and rotation velocity only),
-    in the unit of the observable. Upper limits are one-sided 95 % (Delta chi^2 ``threshold``).
+    in the unit of the observable (:func:`fit_medium` adds the fraction of that expectation
+    found in the data). Upper limits are one-sided 95 % (Delta chi^2 ``threshold``).
     """
     from fringe.theories.medium import MEDIUM_NAMES
 

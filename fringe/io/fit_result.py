@@ -292,7 +292,8 @@ def _derived_lines(d: Derived | None) -> list[str]:
         a = d.two_theta_amplitude
         out.append(f"2theta amplitude (RMS over the turns): fitted {a['fitted_rms']:.4g} "
                    f"{a['units']}, expected from the orbital velocity alone "
-                   f"{a['orbital_rms']:.4g} {a['units']}")
+                   f"{a['orbital_rms']:.4g} {a['units']}; the data contain "
+                   f"{a['orbital_fraction']:.3g} ± {a['orbital_fraction_sigma']:.2g} of it")
     return out
 
 

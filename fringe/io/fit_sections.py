@@ -409,7 +409,8 @@ class FitWarning:
 DERIVED_PARTS = {
     "sun_speed_kms": ("best", "upper_95"),
     "lab_speed_kms": ("best", "upper_95", "horizontal_best", "horizontal_upper_95"),
-    "two_theta_amplitude": ("fitted_rms", "fitted_max", "orbital_rms", "orbital_max"),
+    "two_theta_amplitude": ("fitted_rms", "fitted_max", "orbital_rms", "orbital_max",
+                            "orbital_fraction", "orbital_fraction_sigma"),
 }
 
 
@@ -426,8 +427,10 @@ class Derived:
       the accepted turns' mean times (``best``, ``upper_95``) and the same for its horizontal
       part (``horizontal_best``, ``horizontal_upper_95``);
     * ``two_theta_amplitude``: RMS and largest 2 theta amplitude sqrt(C^2 + B^2) over the turns,
-      of the fitted signal (``fitted_*``) and of a medium at rest with the Sun (``orbital_*``:
-      orbital and rotation velocity alone), with ``units`` the observable's.
+      of the fitted signal (``fitted_*``) and of a medium at rest with the Sun (``orbital_rms``,
+      ``orbital_max``: orbital and rotation velocity alone), with ``units`` the observable's;
+      ``orbital_fraction`` and its 1-sigma ``orbital_fraction_sigma``: the least-squares factor
+      of that expectation found in the per-turn data (1 for a medium at rest with the Sun).
 
     The definitions are in docs/fit.md and :mod:`fringe.fit.medium_limits`.
     """
@@ -459,7 +462,8 @@ class Derived:
                 continue
             extra = ("units",) if name == "two_theta_amplitude" else ()
             p.unknown(numbers + extra)
-            parts[name] = {k: p.number(k, null=True, minimum=0.0) for k in numbers}
+            parts[name] = {k: p.number(k, null=True, minimum=None if k == "orbital_fraction"
+                                       else 0.0) for k in numbers}
             if extra:
                 parts[name]["units"] = p.string("units")
         return cls(**parts)

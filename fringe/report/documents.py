@@ -254,7 +254,9 @@ def _medium_text(c: ReportContent) -> list[str]:
                 f"{a['fitted_rms']:.3g} ({a['fitted_max']:.3g}) {u}; expected for a medium at "
                 f"rest with the Sun, i.e. the orbital and rotation velocity alone, "
                 f"{a['orbital_rms']:.3g} ({a['orbital_max']:.3g}) {u}; ratio of the RMS "
-                f"{ratio:.3g}.", ""]
+                f"{ratio:.3g}. The per-turn data contain {a['orbital_fraction']:.3g} ± "
+                f"{a['orbital_fraction_sigma']:.2g} (1σ) times that expected signal "
+                "(least-squares factor; 1 for a medium at rest with the Sun).", ""]
     return out
 
 

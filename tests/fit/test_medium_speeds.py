@@ -99,3 +99,25 @@ def test_null_bounds_the_lab_speed_not_the_sun_speed(tmp_path):
     assert amp["orbital_rms"] == pytest.approx(np.sqrt(np.mean(expected ** 2)), rel=3e-3)
     assert amp["orbital_max"] == pytest.approx(expected.max(), rel=3e-3)
     assert amp["fitted_rms"] < 0.01 * amp["orbital_rms"]
+    # the lab speed is below 1 km/s, so the signal is below (1/29)^2 = 1.2e-3 of the orbital
+    # one (derived); the fraction of the orbital expectation in the data is correspondingly
+    # small, and far from 1 in units of its sigma
+    assert abs(amp["orbital_fraction"]) < 0.01
+    assert (1 - amp["orbital_fraction"]) / amp["orbital_fraction_sigma"] > 100
+
+
+def test_medium_at_rest_with_the_sun(tmp_path):
+    """v_sun = 0: the lab moves through the medium with the orbital and rotation velocity.
+
+    The data then contain the orbital expectation once: orbital_fraction = 1 within 4 sigma
+    (two-sided pull band as in tests/fit/test_fit.py), and the lab speed is the largest
+    |c beta(t_i)| (~30 km/s) within its limits.
+    """
+    res, a, rows = fit_medium_run(tmp_path, dict.fromkeys(("sun_vX_kms", "sun_vY_kms",
+                                                           "sun_vZ_kms"), 0.0), seed=33)
+    amp, lab = res.derived.two_theta_amplitude, res.derived.lab_speed_kms
+    assert abs(amp["orbital_fraction"] - 1.0) < 4 * amp["orbital_fraction_sigma"]
+    assert amp["fitted_rms"] == pytest.approx(amp["orbital_rms"], rel=1e-2)
+    full, horiz = speeds(np.zeros(3), a, rows)
+    assert lab["best"] - 4 * (lab["upper_95"] - lab["best"]) < full.max() < lab["upper_95"] \
+        + 4 * (lab["upper_95"] - lab["best"])

@@ -22,7 +22,8 @@ DERIVED = {"sun_speed_kms": {"best": 30.4, "upper_95": 31.0},
            "lab_speed_kms": {"best": 1.6, "upper_95": 2.16, "horizontal_best": 1.56,
                              "horizontal_upper_95": 2.08},
            "two_theta_amplitude": {"units": "Hz", "fitted_rms": 1.9e3, "fitted_max": 3.8e3,
-                                   "orbital_rms": 1.13e6, "orbital_max": 1.46e6}}
+                                   "orbital_rms": 1.13e6, "orbital_max": 1.46e6,
+                                   "orbital_fraction": -2e-4, "orbital_fraction_sigma": 3e-4}}
 
 
 def medium_file(derived=DERIVED, upper_limits=None) -> dict:
@@ -55,6 +56,8 @@ def test_derived_round_trips():
     ("lab_speed_kms.typo", 1.0, "derived.lab_speed_kms.typo: unknown field"),
     ("speed_of_light", {}, "derived.speed_of_light: unknown field"),
     ("two_theta_amplitude.units", 3, "derived.two_theta_amplitude.units: expected"),
+    ("two_theta_amplitude.orbital_fraction_sigma", -1.0,
+     "derived.two_theta_amplitude.orbital_fraction_sigma: expected"),
 ])
 def test_derived_fields_are_checked(dotted, value, message):
     d = medium_file()
@@ -79,6 +82,7 @@ def test_headline_states_the_laboratory_speed():
     md = markdown_report(c, [])
     assert "## Speeds through the medium" in md
     assert "1.13e+06" in md and "< 31 km/s" in md      # orbital expectation; the Sun's speed
+    assert "-0.0002 ± 0.0003 (1σ)" in md                # a negative fraction is accepted
     assert "Speeds through the medium" in latex_report(c)
 
 
