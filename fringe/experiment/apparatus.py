@@ -129,8 +129,13 @@ class Apparatus:
         """Weights per mode of the observable, linearised in the mode shifts."""
         return self.scale(units) * np.asarray(self.weights, dtype=float)
 
-    def combine(self, mode_shifts: NDArray, units: str) -> NDArray:
-        """Observable from per-mode two-way fractional changes (n, p) -> (n,); exact."""
+    def combine(self, mode_shifts: NDArray, units: str, index: float = 1.0) -> NDArray:
+        """Observable from per-mode two-way fractional changes (n, p) -> (n,); exact.
+
+        ``index`` (c over the speed the changes refer to, the theory's
+        :attr:`~fringe.theories.base.Theory.phase_index`) does not enter a resonator's or a
+        clock's fractional frequency; only the Michelson fringe count uses it.
+        """
         return mode_shifts @ self.linear_weights(units)
 
     def observable(self, units: str) -> str:
@@ -320,9 +325,12 @@ class Michelson(Apparatus):
 
     Notes
     -----
-    With t_i = 2 passes L_i / (c (1 + delta_i)), the orientation-dependent part is
-    Delta N = (2 passes / lambda) [-L_1 delta_1/(1 + delta_1) + L_2 delta_2/(1 + delta_2)]; the
-    constant 2 passes (L_1 - L_2)/lambda is dropped. Linearised: -(2 L / lambda) S for equal arms.
+    With t_i = 2 passes L_i / (u (1 + delta_i)), delta_i the two-way change relative to the
+    wave speed u = c/n (n = 1 in vacuum), the orientation-dependent part of
+    Delta N = c (t_1 - t_2)/lambda is
+    Delta N = n (2 passes / lambda) [-L_1 delta_1/(1 + delta_1) + L_2 delta_2/(1 + delta_2)];
+    the constant 2 n passes (L_1 - L_2)/lambda is dropped. Linearised: -(2 n L / lambda) S for
+    equal arms.
     """
 
     arm_length_m: float = 1.0
@@ -358,10 +366,14 @@ class Michelson(Apparatus):
         self.check_units(units)
         return -(2.0 * self.passes / self.wavelength_m) * self.arm_lengths_m * np.array([1, -1])
 
-    def combine(self, mode_shifts, units):
-        """Exact fringe count Delta N from the per-arm changes delta, (n, 2) -> (n,); see Notes."""
+    def combine(self, mode_shifts, units, index=1.0):
+        """Exact fringe count Delta N from the per-arm changes delta, (n, 2) -> (n,); see Notes.
+
+        ``index`` is n = c/u when the changes refer to waves of speed u (a medium of index n):
+        Delta N = c (t_1 - t_2)/lambda is then n times the vacuum-form count.
+        """
         self.check_units(units)
-        return (mode_shifts / (1.0 + mode_shifts)) @ self.linear_weights(units)
+        return index * ((mode_shifts / (1.0 + mode_shifts)) @ self.linear_weights(units))
 
     def observable(self, units):
         """The fringe count Delta N = c (t_1 - t_2)/lambda (C8)."""

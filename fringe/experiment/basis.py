@@ -144,7 +144,7 @@ def signal(setup: Setup, params: dict[str, float], t_s: ArrayLike, azimuth_rad: 
         return np.einsum("nij,nij->n", w_lab, t) + w_iso * s
     directions = mode_directions_lab(setup.apparatus, az, setup.tilt)
     shifts = theory.path_shift(params, directions, state)
-    return setup.apparatus.combine(shifts, setup.units)
+    return setup.apparatus.combine(shifts, setup.units, index=theory.phase_index)
 
 
 def two_theta_amplitudes(setup: Setup, t_s: ArrayLike, names: tuple[str, ...] | None = None,

@@ -41,3 +41,4 @@ class CoefficientFit:
     warnings: list      # of fringe.io.fit_sections.FitWarning
     notes: list
     upper_limits: dict = field(default_factory=dict)
+    derived: dict = field(default_factory=dict)     # plain JSON types (medium fit)

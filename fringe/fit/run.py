@@ -29,6 +29,7 @@ from fringe.io.fit_calibration import SignalCalibration, scale_sigmas
 from fringe.io.fit_result import FitResult
 from fringe.io.fit_sections import (
     Covariance,
+    Derived,
     Estimate,
     FitInput,
     FitWarning,
@@ -231,4 +232,5 @@ def _package(path, setup, meta, settings, demod, info, store, harm, res, span_s,
         software=software_versions(),
         created_utc=datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
         nuisance={n: Estimate(e["value"], e["sigma"]) for n, e in res.nuisance.items()},
-        notes=res.notes, upper_limits=res.upper_limits, one_stage=one_stage)
+        notes=res.notes, upper_limits=res.upper_limits,
+        derived=Derived(**res.derived) if res.derived else None, one_stage=one_stage)

@@ -21,6 +21,7 @@ from fringe.errors import InputFileError
 from fringe.io.fit_calibration import SignalCalibration
 from fringe.io.fit_sections import (
     Covariance,
+    Derived,
     Estimate,
     FitInput,
     FitWarning,
@@ -98,7 +99,10 @@ class FitResult:
         as null.
     notes : tuple of str
     upper_limits : mapping of str to float
-        E.g. ``speed_kms_95`` of the medium fit.
+        E.g. ``sun_speed_kms_95`` of the medium fit (``speed_kms_95`` in files written before
+        the laboratory's speed was derived: the same quantity, the Sun's speed).
+    derived : Derived or None
+        Quantities derived from the coefficients (the medium fit's speeds), None when absent.
     one_stage : OneStage or None
         The one-stage cross-check, when it was run.
     conventions : mapping of str to str, or None
@@ -133,6 +137,7 @@ class FitResult:
     nuisance: Mapping[str, Estimate] = field(default_factory=FrozenMap)
     notes: tuple[str, ...] = ()
     upper_limits: Mapping[str, float] = field(default_factory=FrozenMap)
+    derived: Derived | None = None
     one_stage: OneStage | None = None
     conventions: Mapping[str, str] | None = field(default_factory=lambda: freeze(CONVENTIONS))
     calibration: SignalCalibration | None = None
@@ -215,6 +220,7 @@ class FitResult:
             nuisance=read_estimates(f, "nuisance", required=False, null=True) or {},
             notes=f.strings("notes", required=False) or (),
             upper_limits=_numbers(f, "upper_limits", null=True) or {},
+            derived=Derived.read(f, "derived"),
             one_stage=OneStage.read(f, "one_stage"),
             conventions=_strings(f, "conventions"),
             calibration=SignalCalibration.read(f, "calibration"))
@@ -236,7 +242,8 @@ class FitResult:
         """Text for a person.
 
         The input, the turns, the uncertainty mode, a table of the coefficients (fixed and
-        nuisances too), limits, the cross-check, the calibration, warnings and notes.
+        nuisances too), limits and derived speeds, the cross-check, the calibration, warnings and
+        notes.
         """
         s1, st, nan = self.stage1, self.statistics, float("nan")
         path = self.input.path if self.input else "?"
@@ -262,6 +269,7 @@ class FitResult:
             lines.append(EFFICIENCY_DEFINITION)
         for k, v in self.upper_limits.items():
             lines.append(f"95 % upper limit {k}: {v:.4g}")
+        lines += _derived_lines(self.derived)
         if self.one_stage is not None:
             lines.append("one-stage cross-check: " + ", ".join(
                 f"{n} {v.value:.3g}±{v.sigma:.2g}"
@@ -308,6 +316,29 @@ class FitResult:
         return (f"FitResult(theory={self.theory!r}, units={self.units!r}, "
                 f"free={list(self.coefficients)}{span}{turns}, "
                 f"warnings={[w.code for w in self.warnings]})")
+
+
+def _derived_lines(d: Derived | None) -> list[str]:
+    """Summary lines of the derived speeds and amplitudes (none when absent)."""
+    if d is None:
+        return []
+    out = []
+    if d.lab_speed_kms is not None:
+        s = d.lab_speed_kms
+        out.append(f"lab speed through the medium (largest over the turns): "
+                   f"{s['best']:.4g} km/s, 95 % upper limit {s['upper_95']:.4g} km/s; "
+                   f"horizontal {s['horizontal_best']:.4g} km/s, "
+                   f"95 % upper limit {s['horizontal_upper_95']:.4g} km/s")
+    if d.sun_speed_kms is not None:
+        out.append(f"Sun's speed through the medium: {d.sun_speed_kms['best']:.4g} km/s, "
+                   f"95 % upper limit {d.sun_speed_kms['upper_95']:.4g} km/s")
+    if d.two_theta_amplitude is not None:
+        a = d.two_theta_amplitude
+        out.append(f"2theta amplitude (RMS over the turns): fitted {a['fitted_rms']:.4g} "
+                   f"{a['units']}, expected from the orbital velocity alone "
+                   f"{a['orbital_rms']:.4g} {a['units']}; the data contain "
+                   f"{a['orbital_fraction']:.3g} ± {a['orbital_fraction_sigma']:.2g} of it")
+    return out
 
 
 # ---------------------------------------------------------------------- reading parts

@@ -10,7 +10,8 @@ validating ``read()``.
 * :class:`Statistics`: reduced chi^2, degrees of freedom, the uncertainty mode;
 * :class:`FitInput`: the run file fitted (path, SHA-256, samples);
 * :class:`OneStage`: the one-stage cross-check;
-* :class:`FitWarning`: a warning the fit raised, as a named record.
+* :class:`FitWarning`: a warning the fit raised, as a named record;
+* :class:`Derived`: quantities derived from the coefficients (the medium fit's speeds).
 
 ``read(fields, key)`` takes a :class:`~fringe.io.records.Fields` view of the enclosing object
 and raises :class:`~fringe.errors.InputFileError` naming the file and the dotted field. Numbers
@@ -27,8 +28,8 @@ import numpy as np
 
 from fringe.io.records import Fields, FrozenMap, freeze
 
-__all__ = ["Covariance", "Estimate", "FitInput", "FitWarning", "Harmonics", "OneStage",
-           "Stage1", "Statistics", "read_estimates"]
+__all__ = ["Covariance", "Derived", "Estimate", "FitInput", "FitWarning", "Harmonics",
+           "OneStage", "Stage1", "Statistics", "read_estimates"]
 
 
 def _set(obj, name: str, value) -> None:
@@ -429,3 +430,67 @@ class FitWarning:
         return cls(w.string("code"), w.string("message"),
                    {k: values.number(k, null=True) for k, _ in values.items()},
                    w.strings("coefficients", required=False) or ())
+
+
+#: The parts of :class:`Derived` and the numbers each holds (all required when the part is).
+DERIVED_PARTS = {
+    "sun_speed_kms": ("best", "upper_95"),
+    "lab_speed_kms": ("best", "upper_95", "horizontal_best", "horizontal_upper_95"),
+    "two_theta_amplitude": ("fitted_rms", "fitted_max", "orbital_rms", "orbital_max",
+                            "orbital_fraction", "orbital_fraction_sigma"),
+}
+
+
+@dataclass(frozen=True)
+class Derived:
+    """Quantities derived from the fitted coefficients (written by the medium fit).
+
+    Each part is None when absent, else a read-only mapping of the numbers of
+    :data:`DERIVED_PARTS` (NaN where written as null):
+
+    * ``sun_speed_kms``: |v_sun|, the Sun's speed through the medium, km/s: ``best`` and the
+      one-sided 95 % likelihood-ratio ``upper_95``;
+    * ``lab_speed_kms``: the laboratory's speed through the medium, km/s, as the largest over
+      the accepted turns' mean times (``best``, ``upper_95``) and the same for its horizontal
+      part (``horizontal_best``, ``horizontal_upper_95``);
+    * ``two_theta_amplitude``: RMS and largest 2 theta amplitude sqrt(C^2 + B^2) over the turns,
+      of the fitted signal (``fitted_*``) and of a medium at rest with the Sun (``orbital_rms``,
+      ``orbital_max``: orbital and rotation velocity alone), with ``units`` the observable's;
+      ``orbital_fraction`` and its 1-sigma ``orbital_fraction_sigma``: the least-squares factor
+      of that expectation found in the per-turn data (1 for a medium at rest with the Sun).
+
+    The definitions are in docs/fit.md and :mod:`fringe.fit.medium_limits`.
+    """
+
+    sun_speed_kms: Mapping[str, float] | None = None
+    lab_speed_kms: Mapping[str, float] | None = None
+    two_theta_amplitude: Mapping | None = None
+
+    def __post_init__(self):
+        for name in DERIVED_PARTS:
+            if getattr(self, name) is not None:
+                _set(self, name, FrozenMap(getattr(self, name)))
+
+    def to_dict(self) -> dict:
+        """The ``derived`` object of the result file (absent parts left out)."""
+        return {k: dict(getattr(self, k)) for k in DERIVED_PARTS if getattr(self, k) is not None}
+
+    @classmethod
+    def read(cls, f: Fields, key: str) -> Derived | None:
+        """None when absent (files written before the field existed)."""
+        s = f.sub(key, required=False)
+        if s is None:
+            return None
+        s.unknown(tuple(DERIVED_PARTS))
+        parts = {}
+        for name, numbers in DERIVED_PARTS.items():
+            p = s.sub(name, required=False)
+            if p is None:
+                continue
+            extra = ("units",) if name == "two_theta_amplitude" else ()
+            p.unknown(numbers + extra)
+            parts[name] = {k: p.number(k, null=True, minimum=None if k == "orbital_fraction"
+                                       else 0.0) for k in numbers}
+            if extra:
+                parts[name]["units"] = p.string("units")
+        return cls(**parts)

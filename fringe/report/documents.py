@@ -2,9 +2,10 @@
 
 The headline and the documents report.md, report.tex, report.html and summary.json.
 
-Use :func:`headline` for the result in the trade's terms (from a checked fit result), and
-:func:`markdown_report`, :func:`latex_report`, :func:`html_report` and :func:`summary` to render
-a :class:`~fringe.report.build.ReportContent` as text (or, for summary.json, a dict of plain JSON
+The documents are report.md, report.tex, report.html and summary.json. Use :func:`headline`
+for the result in the trade's terms (from a checked fit result), and :func:`markdown_report`,
+:func:`latex_report`, :func:`html_report` and :func:`summary` to render a
+:class:`~fringe.report.build.ReportContent` as text (or, for summary.json, a dict of plain JSON
 types). Nothing is written here: :func:`fringe.report.build.write_report` writes the files (and
 :mod:`fringe.report.build` re-exports these functions).
 """
@@ -68,7 +69,9 @@ def headline(fit: FitResult, style: str = "unicode") -> dict:
       bound |value| + 1.96 sigma among the free primary coefficients (ke_*,
       :attr:`~fringe.theories.base.Theory.primary_names`);
     * ``rms``: delta - beta + 1/2 with 1 sigma, its 95 % interval and bound;
-    * ``medium``: ``upper_limits.speed_kms_95`` when present;
+    * ``medium``: ``derived.lab_speed_kms.upper_95``, the laboratory's speed through the
+      medium (files without it: the Sun's speed, ``upper_limits.sun_speed_kms_95`` or the
+      older ``speed_kms_95``);
     * otherwise (and ``clock``): the largest 95 % bound among the free coefficients.
 
     A bound is taken only from coefficients that no warning of the fit names
@@ -256,13 +259,24 @@ def _rms_headline(fit: FitResult, m: _Marks) -> dict:
 
 
 def _medium_headline(fit: FitResult, m: _Marks) -> dict:
-    if "speed_kms_95" not in fit.upper_limits:
+    lab = fit.derived.lab_speed_kms if fit.derived is not None else None
+    if lab is not None:
+        x = float(lab["upper_95"])
+        text = _esc(f"Speed of the laboratory through a stationary medium: < {x:.3g} km/s "
+                    "(95 % upper limit, the largest over "
+                    f"the observation times; horizontal part < "
+                    f"{float(lab['horizontal_upper_95']):.3g} km/s).", m.style)
+        return {"text": text, "kind": "upper-limit", "quantity": "lab_speed_kms", "bound_95": x,
+                "statement": "derived.lab_speed_kms.upper_95 of the fit: one-sided 95 % "
+                             "likelihood-ratio limit of the largest speed over the turns"}
+    key = next((k for k in ("sun_speed_kms_95", "speed_kms_95") if k in fit.upper_limits), None)
+    if key is None:
         return _largest_bound_headline(fit, m)
-    x = float(fit.upper_limits["speed_kms_95"])
-    text = _esc(f"Speed of the laboratory through a stationary medium: < {x:.3g} km/s "
-                "(95 % upper limit).", m.style)
-    return {"text": text, "kind": "upper-limit", "quantity": "speed_kms_95", "bound_95": x,
-            "statement": "upper_limits.speed_kms_95 of the fit"}
+    x = float(fit.upper_limits[key])
+    text = _esc(f"Speed of the Sun through a stationary medium: < {x:.3g} km/s (95 % upper "
+                "limit; the laboratory's own speed is not in this fit result).", m.style)
+    return {"text": text, "kind": "upper-limit", "quantity": key, "bound_95": x,
+            "statement": f"upper_limits.{key} of the fit (the Sun's speed)"}
 
 
 def _clock_headline(fit: FitResult, m: _Marks) -> dict:
@@ -317,6 +331,46 @@ def _rms_html(c: ReportContent) -> str:
     return body
 
 
+def _medium_text(c: ReportContent) -> list[str]:
+    """Markdown paragraphs of the medium section (theory medium only)."""
+    d = c.fit.derived
+    if d is None:
+        return ["This fit result has no derived speeds (written before they were computed); "
+                "its speed limit, if any, is the Sun's speed through the medium.", ""]
+    out = []
+    if d.sun_speed_kms is not None:
+        s = d.sun_speed_kms
+        out += [f"Sun's velocity through the medium: the coefficients sun_v*_kms above (SCCEF); "
+                f"its speed |v_sun| = {s['best']:.4g} km/s, < {s['upper_95']:.4g} km/s (95 %).",
+                ""]
+    if d.lab_speed_kms is not None:
+        s = d.lab_speed_kms
+        out += ["Laboratory's speed through the medium, |v_sun + v_orbit + v_rotation|, the "
+                "largest over the accepted turns' mean times: "
+                f"{s['best']:.4g} km/s, < {s['upper_95']:.4g} km/s (95 %); its horizontal "
+                f"part {s['horizontal_best']:.4g} km/s, < {s['horizontal_upper_95']:.4g} km/s "
+                "(95 %). Limits: one-sided, largest value on the likelihood-ratio region "
+                "Δχ² ≤ 1.645² (scaled by the reduced χ² in that mode).", ""]
+    if d.two_theta_amplitude is not None:
+        a, u = d.two_theta_amplitude, d.two_theta_amplitude["units"]
+        ratio = a["fitted_rms"] / a["orbital_rms"] if a["orbital_rms"] > 0 else float("nan")
+        out += [f"2θ amplitude |(C, B)|, RMS (largest) over the turns: fitted "
+                f"{a['fitted_rms']:.3g} ({a['fitted_max']:.3g}) {u}; expected for a medium at "
+                f"rest with the Sun, i.e. the orbital and rotation velocity alone, "
+                f"{a['orbital_rms']:.3g} ({a['orbital_max']:.3g}) {u}; ratio of the RMS "
+                f"{ratio:.3g}. The per-turn data contain {a['orbital_fraction']:.3g} ± "
+                f"{a['orbital_fraction_sigma']:.2g} (1σ) times that expected signal "
+                "(least-squares factor; 1 for a medium at rest with the Sun).", ""]
+    return out
+
+
+def _medium_html(c: ReportContent) -> str:
+    """HTML body of the medium section (theory medium only)."""
+    import html as _html
+
+    return "".join(f"<p>{_html.escape(p)}</p>" for p in _medium_text(c) if p)
+
+
 class _Section(NamedTuple):
     """A report section of one theory: heading, Markdown lines and HTML body."""
 
@@ -327,7 +381,8 @@ class _Section(NamedTuple):
 
 #: Sections of their own for some theory classes (after the comparison table).
 _THEORY_SECTIONS: dict[type[Theory], _Section] = {
-    RobertsonMansouriSexl: _Section("Robertson–Mansouri–Sexl parameters", _rms_text, _rms_html)}
+    RobertsonMansouriSexl: _Section("Robertson–Mansouri–Sexl parameters", _rms_text, _rms_html),
+    ClassicalMedium: _Section("Speeds through the medium", _medium_text, _medium_html)}
 
 
 def _theory_section(fit: FitResult) -> _Section | None:
@@ -376,10 +431,10 @@ def markdown_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) ->
 
 
 def latex_report(c: ReportContent) -> str:
-    """Render report.tex, a standalone article.
+    """Build report.tex: a standalone article (compiles with pdflatex, no extra packages).
 
-    The headline paragraph, the warnings and the coefficient table (plain tabular; compiles
-    with pdflatex and no extra packages).
+    It holds the headline paragraph, the warnings, the coefficient table (plain tabular) and
+    the paragraphs of the theory (medium speeds, RMS parameters).
     """
     table = to_latex(report_tables(c.fit, c.comparison, "latex")["coefficients"])
     out = [r"\documentclass{article}", r"\begin{document}",
@@ -391,6 +446,9 @@ def latex_report(c: ReportContent) -> str:
     out.append(table)
     if c.fit.fixed:
         out.append(latex_escape(f"Fixed: {_fixed_text(c.fit)}.") + "\n")
+    if c.fit.derived is not None and c.fit.theory == ClassicalMedium.name:
+        out.append(r"\paragraph{Speeds through the medium.} "
+                   + " ".join(latex_escape(p) for p in _medium_text(c) if p) + "\n")
     if c.rms is not None:
         out.append(r"\paragraph{RMS parameters.} Deviations from special relativity from this "
                    r"fit and the user's Kennedy--Thorndike and Ives--Stilwell inputs "

@@ -147,6 +147,17 @@ class Theory:
         p = np.array([params[k] for k in names])
         return np.einsum("nkij,k->nij", t, p), s @ p
 
+    @property
+    def phase_index(self) -> float:
+        """Ratio of c to the speed :meth:`path_shift` refers its two-way changes to (1 here).
+
+        The refractive index of the wave medium: a Michelson fringe count c (t_1 - t_2)/lambda
+        (C8, lambda the vacuum wavelength) is this factor times the count computed with that
+        speed (:meth:`fringe.experiment.apparatus.Michelson.combine`). Resonator frequencies do
+        not depend on it.
+        """
+        return 1.0
+
     def path_shift(self, params: Mapping[str, float], directions_lab: NDArray,
                    state: FrameState) -> NDArray:
         """Two-way fractional speed change along unit lab directions (n, p, 3) -> (n, p)."""

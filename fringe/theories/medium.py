@@ -54,6 +54,11 @@ class ClassicalMedium(Theory):
         self.wave_speed_m_s = check_finite_number(wave_speed_m_s, "theory.medium",
                                                   "wave_speed_m_s", positive=True)
 
+    @property
+    def phase_index(self) -> float:
+        """Refractive index n = c / ``wave_speed_m_s`` (waves of speed c/n)."""
+        return C_M_S / self.wave_speed_m_s
+
     def lab_velocity(self, params, state):
         """Lab velocity through the medium over the wave speed, lab axes, (n, 3)."""
         p = self.check_params(params)

@@ -363,3 +363,33 @@ def test_r9_classical_ether_is_rms_with_p_half():
     # cos 2(theta - psi) exactly; the vertical component cancels
     expected = length / wavelength * (v[0] ** 2 + v[1] ** 2) * np.cos(2 * (theta - psi))
     np.testing.assert_allclose(dn, expected, rtol=1e-12, atol=1e-12 * np.abs(expected).max())
+
+
+@pytest.mark.parametrize("n_index", [1.0, 1.33, 1.5])
+def test_michelson_in_a_medium_counts_c_times_the_time_difference(n_index):
+    """C8, [R-medium-n-count]: Delta N = c (t_1 - t_2)/lambda (vacuum wavelength) for speed c/n.
+
+    Each t_i is the exact Galilean round trip of [R-medium-vacuum],
+    t(psi) = (2L/u) sqrt(1 - m^2 sin^2 psi)/(1 - m^2), m = v/u, u = c/n (closed form); arm 1 at
+    theta, arm 2 at theta + 90 deg (C6, C8), the wind along lab x (R = identity).
+    """
+    length, wavelength, speed = 11.0, 550e-9, 30e3
+    u = C_M_S / n_index
+    theta = np.arange(16) * 2 * np.pi / 16
+    state = make_state(np.zeros(16), 0.0, np.zeros((16, 3)))
+    setup = setup_for(Michelson(arm_length_m=length, wavelength_m=wavelength),
+                      ClassicalMedium(wave_speed_m_s=u))
+    got = signal(setup, {"sun_vX_kms": speed / 1e3}, np.zeros(16), np.pi - theta, state=state)
+    m2 = (speed / u) ** 2
+
+    def t(psi):
+        return 2 * length / u * np.sqrt(1 - m2 * np.sin(psi) ** 2) / (1 - m2)
+
+    expected = C_M_S * (t(theta) - t(theta + np.pi / 2)) / wavelength
+    # float64 cancellation in the closed form: c t / lambda ~ 2 n L / lambda = 6e7 fringes
+    # times a few 1e-16 (derived): abs 1e-7 fringe
+    np.testing.assert_allclose(got, expected, rtol=0, atol=1e-7)
+    # to O(m^2) the peak-to-peak is 2 n^3 (L/lambda)(v/c)^2 (derived: n^2 from m^2, n from
+    # c/u); the exact round trip adds O(m^2) ~ 2e-8 relative: rtol 1e-6
+    assert got.max() - got.min() == pytest.approx(
+        2 * n_index ** 3 * (length / wavelength) * (speed / C_M_S) ** 2, rel=1e-6)
