@@ -22,7 +22,9 @@ signal, see :func:`fringe.fit.turn_model`).
 Rejection rules, counted in :class:`TurnTable`:
 
 * **partial**: fewer than ``min_samples`` valid samples, an angular gap (largest gap in
-  theta mod 2 pi among the valid samples) above ``max_angle_gap_deg``, or a singular
+  theta mod 2 pi among the valid samples) above ``max_angle_gap_deg`` (for swinging and
+  stepped motions: the largest gap in 2 theta mod 2 pi above ``max_2theta_gap_deg``, see
+  :mod:`fringe.demodulate.motion`), or a singular
   block (the rank guard of :mod:`fringe.demodulate.kernel`);
 * **glitch**: residual RMS above median + ``glitch_threshold`` x 1.4826 x MAD of the residual
   RMS over all otherwise-good blocks (applied once the whole record is demodulated).
@@ -60,8 +62,8 @@ def turn_boundaries(theta_rad: NDArray, theta0_rad: float, t_s: NDArray, max_gap
 
 
 def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_starts: NDArray,
-                      settings: DemodSettings, aux: dict[str, NDArray] | None = None
-                      ) -> TurnTable:
+                      settings: DemodSettings, aux: dict[str, NDArray] | None = None,
+                      gap_harmonic: int = 1) -> TurnTable:
     """Fit every block of a contiguous sample range (compiled kernel, module docstring).
 
     Parameters
@@ -73,6 +75,11 @@ def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_star
     settings : DemodSettings
     aux : dict, optional
         Auxiliary channels (name -> (n,) array) demodulated with the same design.
+    gap_harmonic : {1, 2}
+        The coverage check: 1, the largest gap in theta must not exceed
+        ``settings.max_angle_gap_deg`` (whole-turn motions); 2, the largest gap in 2 theta must
+        not exceed ``settings.max_2theta_gap_deg`` (swinging and stepped motions,
+        :mod:`fringe.demodulate.motion`).
     """
     aux = aux or {}
     names = list(aux)
@@ -87,7 +94,8 @@ def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_star
         DRIFT_TERMS[settings.drift], settings.max_harmonic,
         np.array([LEAK_KIND_CODES[k] for k, _ in kinds], np.int64),
         np.array([j for _, j in kinds], np.int64), settings.min_samples,
-        np.radians(settings.max_angle_gap_deg))
+        np.radians(settings.max_angle_gap_deg if gap_harmonic == 1
+                   else settings.max_2theta_gap_deg), int(gap_harmonic))
     status = np.where(ok, TurnTable.ACCEPTED, TurnTable.PARTIAL).astype(np.int8)
     return TurnTable(t_mid_s=t_mid, t_start_s=t_lo, t_stop_s=t_hi, n_valid=vcount, coef=coef,
                      ninv_2=ninv_2, residual_rms=rms, angle_gap_deg=np.degrees(gap_rad),

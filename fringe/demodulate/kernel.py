@@ -145,7 +145,7 @@ def _largest_angle_gap(psi):
 # bit-identical numbers.
 @njit(cache=True, nogil=True)
 def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
-               max_harmonic, leak_kind, leak_power, min_samples, max_gap_rad):
+               max_harmonic, leak_kind, leak_power, min_samples, max_gap_rad, gap_harmonic=1):
     """Fit every block of a range (see the module docstring).
 
     Parameters
@@ -169,6 +169,9 @@ def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
         Least number of valid samples of an accepted block.
     max_gap_rad : float
         Largest allowed angular gap, rad.
+    gap_harmonic : int
+        The gap is taken in ``gap_harmonic`` x theta (mod 2 pi): 1 for the table angle, 2 for
+        the coverage of 2 theta.
 
     Returns
     -------
@@ -227,7 +230,7 @@ def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
             for k in range(n_aux):
                 good = good and np.isfinite(aux[i, k])
             if good:
-                psi[cnt] = _mod_2pi(theta[i])
+                psi[cnt] = _mod_2pi(gap_harmonic * theta[i])
                 cnt += 1
                 tsum += t[i]
                 lo = min(lo, t[i])

@@ -41,3 +41,6 @@ class CoefficientFit:
     warnings: list      # of fringe.io.fit_sections.FitWarning
     notes: list
     upper_limits: dict = field(default_factory=dict)
+    #: the per-session 2 theta amplitudes (fringe.io.fit_sections.Sessions), when stage 2 was
+    #: skipped for too few sidereal phases
+    sessions: object = None

@@ -12,10 +12,10 @@ from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
-from fringe.demodulate.engine import stage1_store
+from fringe.demodulate.engine import RecordInfo, stage1_store
 from fringe.demodulate.settings import DemodSettings
-from fringe.demodulate.turn_store import Scratch
-from fringe.errors import ConfigError
+from fringe.demodulate.turn_store import Scratch, TurnStore
+from fringe.errors import ConfigError, FitError
 from fringe.experiment.apparatus import APPARATUS_KINDS, apparatus_fields, make_apparatus
 from fringe.experiment.basis import Setup
 from fringe.fit.settings import FitSettings
@@ -101,6 +101,8 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
         store, info = stage1_store(path, demod, aux_channels=tuple(settings.regress),
                                    engine=engine, scheduler=scheduler, progress=progress,
                                    scratch=scratch)
+        if not np.any(store.accepted):
+            raise FitError(no_block_message(info, store, demod))
         span_s = float(meta["time_last_s"] - meta["time_first_s"])
         # the input's hash (provenance) is read on the second core while stages 2-3 run
         with ThreadPoolExecutor(max_workers=1) as pool:
@@ -122,6 +124,22 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
     return result, TurnColumns(setup, store, models, scratch, span_s=span_s)
 
 
+def no_block_message(info: RecordInfo, store: TurnStore, demod: DemodSettings) -> str:
+    """The one-line error of a record whose every block was rejected, naming the coverage."""
+    motion = info.motion
+    counts = store.counts()
+    if motion is not None and info.gap_harmonic == 2:
+        need = (f"a largest gap in 2 theta of at most {demod.max_2theta_gap_deg:g} deg "
+                f"(max_2theta_gap_deg) and at least {demod.min_samples} valid samples")
+    else:
+        need = (f"a largest gap in theta of at most {demod.max_angle_gap_deg:g} deg "
+                f"(max_angle_gap_deg) and at least {demod.min_samples} valid samples")
+    what = motion.describe() if motion is not None else "the record"
+    return (f"{info.path}: samples/azimuth: none of the {counts['n_blocks']} blocks defines a "
+            f"2 theta pair: each needs {need} and a determined block fit (motion: {what}); "
+            "the table's positions cannot separate C from B")
+
+
 def _package(path, setup, meta, settings, demod, info, store, harm, res, span_s, input_sha256,
              engine, dut1_s, one_stage) -> FitResult:
     sig = np.sqrt(np.diag(res.cov))
@@ -132,8 +150,9 @@ def _package(path, setup, meta, settings, demod, info, store, harm, res, span_s,
     stage1 = Stage1(n_blocks, counts, turn_period_s=info.turn_period_s, residual_rms=rms_med,
                     white_noise_per_sample=rms_med, settings=demod.to_dict(), glitch_rule=(
                         f"residual RMS > median + {demod.glitch_threshold} x 1.4826 x MAD"))
-    harmonics = Harmonics(harm["names"], harm["value"], harm["sigma"], harm["covariance"],
-                          harm["chi2_reduced"], setup.units)
+    harmonics = None if harm is None else Harmonics(
+        harm["names"], harm["value"], harm["sigma"], harm["covariance"], harm["chi2_reduced"],
+        setup.units)
     return FitResult(
         theory=setup.theory.name, units=setup.units,
         coefficients={n: Estimate(float(v), float(s))
@@ -150,4 +169,5 @@ def _package(path, setup, meta, settings, demod, info, store, harm, res, span_s,
         software=software_versions(),
         created_utc=datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
         nuisance={n: Estimate(e["value"], e["sigma"]) for n, e in res.nuisance.items()},
-        notes=res.notes, upper_limits=res.upper_limits, one_stage=one_stage)
+        notes=res.notes, upper_limits=res.upper_limits, one_stage=one_stage,
+        motion=info.motion, sessions=res.sessions)

@@ -23,7 +23,9 @@ from fringe.io.fit_sections import (
     FitInput,
     FitWarning,
     Harmonics,
+    Motion,
     OneStage,
+    Sessions,
     Stage1,
     Statistics,
     read_estimates,
@@ -31,7 +33,7 @@ from fringe.io.fit_sections import (
 from fringe.io.records import Fields, FrozenMap, freeze, plain
 
 __all__ = ["CONVENTIONS", "FORMAT", "FORMAT_VERSION", "READABLE_VERSIONS", "FitResult",
-           "read_fit_result"]
+           "read_fit_result", "session_lines"]
 
 FORMAT = "fit"
 FORMAT_VERSION = 2
@@ -93,6 +95,12 @@ class FitResult:
     one_stage : OneStage or None
         The one-stage cross-check, when it was run.
     conventions : mapping of str to str, or None
+    motion : Motion or None
+        The turntable motion stage 1 detected, with its block and exclusion rules (None in
+        files written before motions were detected).
+    sessions : Sessions or None
+        The per-session 2 theta amplitudes and the chi^2 of their agreement (the result when
+        the sidereal stage is skipped; None in older files).
 
     None marks a part a (hand-made, version-1) file leaves out; ``fringe fit`` fills every
     part. Mappings are read-only (:class:`~fringe.io.records.FrozenMap`), sequences tuples;
@@ -123,6 +131,8 @@ class FitResult:
     upper_limits: Mapping[str, float] = field(default_factory=FrozenMap)
     one_stage: OneStage | None = None
     conventions: Mapping[str, str] | None = field(default_factory=lambda: freeze(CONVENTIONS))
+    motion: Motion | None = None
+    sessions: Sessions | None = None
 
     def __post_init__(self):
         for name in ("coefficients", "fixed", "efficiency", "site", "apparatus", "settings",
@@ -201,7 +211,8 @@ class FitResult:
             notes=f.strings("notes", required=False) or (),
             upper_limits=_numbers(f, "upper_limits", null=True) or {},
             one_stage=OneStage.read(f, "one_stage"),
-            conventions=_strings(f, "conventions"))
+            conventions=_strings(f, "conventions"), motion=Motion.read(f, "motion"),
+            sessions=Sessions.read(f, "sessions"))
 
     @classmethod
     def read(cls, path) -> FitResult:
@@ -227,6 +238,7 @@ class FitResult:
                  f"{s1.n_blocks if s1 else None} ({s1.n_rejected_glitch if s1 else None} "
                  f"glitch, {s1.n_rejected_partial if s1 else None} partial); turn period "
                  f"{s1.turn_period_s if s1 else nan:.4g} s",
+                 *([f"motion: {self.motion.describe()}"] if self.motion else []),
                  f"uncertainty: {st.uncertainty if st else None} (reduced chi2 "
                  f"{st.chi2_reduced if st else nan:.3f}, dof {st.dof if st else None})", "",
                  f"{'coefficient':<12}{'value':>13}{'sigma':>12}{'efficiency':>12}"]
@@ -245,6 +257,8 @@ class FitResult:
             lines.append("one-stage cross-check: " + ", ".join(
                 f"{n} {v.value:.3g}±{v.sigma:.2g}"
                 for n, v in self.one_stage.coefficients.items()))
+        if self.sessions is not None and self.harmonics is None:
+            lines += session_lines(self.sessions)
         for w in self.warnings:
             lines.append(f"WARNING: {w.sentence}")
         for n in self.notes:
@@ -258,6 +272,23 @@ class FitResult:
         return (f"FitResult(theory={self.theory!r}, units={self.units!r}, "
                 f"free={list(self.coefficients)}{span}{turns}, "
                 f"warnings={[w.code for w in self.warnings]})")
+
+
+def session_lines(sessions: Sessions) -> list[str]:
+    """The per-session 2 theta amplitudes as text lines (``fringe inspect``, the summary)."""
+    u = sessions.units
+    lines = [f"per-session 2 theta amplitudes ({u}; 1 sigma, Student t; "
+             f"{sessions.n_sidereal_phases} distinct sidereal phase(s)):",
+             f"  {'start s':>12}{'turns':>7}{'phi deg':>9}{'C':>12}{'sigma C':>10}"
+             f"{'B':>12}{'sigma B':>10}{'dof':>5}"]
+    for x in sessions.sessions:
+        lines.append(f"  {x.t_start_s:>12.1f}{x.n_turns:>7d}{x.sidereal_phase_deg:>9.1f}"
+                     f"{x.C.value:>12.4g}{x.C.sigma:>10.3g}{x.B.value:>12.4g}{x.B.sigma:>10.3g}"
+                     f"{x.dof:>5d}")
+    if sessions.dof > 0:
+        lines.append(f"  agreement of the sessions: chi2 {sessions.chi2:.3g} for {sessions.dof} "
+                     f"dof (p = {sessions.p_value:.3g})")
+    return lines
 
 
 # ---------------------------------------------------------------------- reading parts
