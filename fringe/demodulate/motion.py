@@ -215,10 +215,11 @@ def _legs(theta: NDArray, t: NDArray, max_gap_s: float) -> tuple[int, NDArray]:
     return cutter.reversals, travel
 
 
-def _rest_positions(theta: NDArray, at_rest: NDArray) -> NDArray:
-    """Angle of each run of samples at rest, rad (unwrapped)."""
-    edges = np.flatnonzero(np.diff(np.concatenate([[0], at_rest.astype(np.int8), [0]])))
-    return np.array([np.mean(theta[a:b]) for a, b in zip(edges[::2], edges[1::2])])
+def _rest_positions(theta: NDArray, tolerance_rad: float) -> NDArray:
+    """Angle of each rest (two or more consecutive samples within the tolerance), rad."""
+    still = np.abs(np.diff(theta)) <= tolerance_rad
+    edges = np.flatnonzero(np.diff(np.concatenate([[0], still.astype(np.int8), [0]])))
+    return np.array([np.mean(theta[a:b + 1]) for a, b in zip(edges[::2], edges[1::2])])
 
 
 def detect_motion(t_s: NDArray, azimuth_rad: NDArray, settings: DemodSettings,
@@ -247,7 +248,6 @@ def detect_motion(t_s: NDArray, azimuth_rad: NDArray, settings: DemodSettings,
     if t.size < 2 or not t[-1] > t[0] or travel < np.pi:
         raise FitError(f"{source}: samples/azimuth: the table travels less than half a turn in "
                        f"the first {t.size} samples; cannot demodulate a non-rotating record")
-    moving = moving_mask(azimuth_rad, math.radians(settings.rest_tolerance_deg))
     rest_fraction = float(np.mean(np.abs(d) <= math.radians(settings.rest_tolerance_deg)))
     stepped = rest_fraction >= STEPPED_REST_FRACTION
     n_rev, legs = _legs(theta, t, 10.0 * float(np.median(dt)))
@@ -274,7 +274,7 @@ def detect_motion(t_s: NDArray, azimuth_rad: NDArray, settings: DemodSettings,
     step = marks = None
     excluded = ""
     if stepped:
-        pos = _rest_positions(theta, ~moving)
+        pos = _rest_positions(theta, math.radians(settings.rest_tolerance_deg))
         steps = np.abs(np.diff(pos))
         steps = steps[steps > math.radians(settings.rest_tolerance_deg)]
         if steps.size:
@@ -325,8 +325,7 @@ def check_coverage(motion: Motion, t_s: NDArray, azimuth_rad: NDArray,
     if motion.kind != "stepped":
         return
     theta = np.unwrap(np.pi - np.asarray(azimuth_rad, float))
-    at_rest = ~moving_mask(azimuth_rad, math.radians(settings.rest_tolerance_deg))
-    marks = np.degrees(_rest_positions(theta, at_rest)) % 360.0
+    marks = np.degrees(_rest_positions(theta, math.radians(settings.rest_tolerance_deg))) % 360.0
     distinct = np.unique(np.round(marks, 1) % 360.0)
     gap2 = _largest_gap_deg(2.0 * distinct)
     need = 2 * settings.max_harmonic + 1

@@ -141,6 +141,19 @@ def _small_sample(dof: int, units: str) -> FitWarning:
                                                                    "t_factor": k})
 
 
+def _widen(res: CoefficientFit, units: str) -> None:
+    """Widen a nonlinear fit's 1 sigma by the Student-t factor of its dof (in place)."""
+    k = student_factor(res.dof)
+    res.cov = res.cov * k ** 2
+    for e in res.nuisance.values():
+        e["sigma"] *= k
+    w = _small_sample(res.dof, units)
+    if res.upper_limits:
+        w = FitWarning(w.code, w.sentence + " (the upper limits sample the covariance before "
+                       "this factor)", w.values)
+    res.warnings.append(w)
+
+
 def sessions_of(setup: Setup, store: TurnStore) -> Sessions:
     """The per-session 2 theta amplitudes of the accepted turns
     (:class:`fringe.demodulate.sessions.SessionBuilder`), a segment at a time.
@@ -243,6 +256,8 @@ def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettin
             harm = run_passes(setup, store, settings, None, sidereal=sidereal).harmonics
             res = fit_medium(setup, store.load(), settings)
             models = TurnModels(model_c=res.model_c, model_b=res.model_b)
+            if settings.uncertainty == "reduced-chi2" and res.dof < SMALL_SAMPLE_DOF:
+                _widen(res, setup.units)
     except FitError as exc:
         if sidereal:
             raise

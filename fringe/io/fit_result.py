@@ -281,7 +281,12 @@ def session_lines(sessions: Sessions) -> list[str]:
              f"{sessions.n_sidereal_phases} distinct sidereal phase(s)):",
              f"  {'start s':>12}{'turns':>7}{'phi deg':>9}{'C':>12}{'sigma C':>10}"
              f"{'B':>12}{'sigma B':>10}{'dof':>5}"]
-    for x in sessions.sessions:
+    rows = list(sessions.sessions)
+    shown = rows if len(rows) <= 40 else rows[:20] + [None] + rows[-20:]
+    for x in shown:
+        if x is None:
+            lines.append(f"  ... ({len(rows) - 40} sessions not shown)")
+            continue
         lines.append(f"  {x.t_start_s:>12.1f}{x.n_turns:>7d}{x.sidereal_phase_deg:>9.1f}"
                      f"{x.C.value:>12.4g}{x.C.sigma:>10.3g}{x.B.value:>12.4g}{x.B.sigma:>10.3g}"
                      f"{x.dof:>5d}")

@@ -50,7 +50,8 @@ __all__ = ["EXTRA_TABLES", "FIGURE_DIR", "headline", "html_report", "latex_repor
 
 FIGURE_DIR = "figures"
 #: Tables after the main ones, in report order: (key of report_tables, heading).
-EXTRA_TABLES = (("nuisance", "Nuisance parameters"), ("cross_check", "One-stage cross-check"),
+EXTRA_TABLES = (("sessions", "Per-session 2θ amplitudes"),
+                ("nuisance", "Nuisance parameters"), ("cross_check", "One-stage cross-check"),
                 ("harmonics", "C10 harmonics"), ("correlation", "Correlations"))
 
 
