@@ -1,8 +1,9 @@
 """Stage 1: per-turn demodulation of a rotating-apparatus record.
 
 The record is cut into turns (blocks) at the instants the turntable angle theta = pi - A (C7)
-passes its starting value, and at every time gap longer than ``max_gap_s``. Each block is fitted
-by linear least squares with
+passes its starting value, and at every time gap longer than ``max_gap_s`` (a table turning one
+way; a table that reverses is cut into legs, and a stepped table's samples while moving are left
+out, :mod:`fringe.demodulate.motion`). Each block is fitted by linear least squares with
 
     y(t) = a0 + a1 tau [+ a2 tau^2] + c1 cos theta + s1 sin theta + C cos 2 theta + B sin 2 theta
            [+ 3 theta, 4 theta terms],      tau = (t - t_mid)/(half span of the block),

@@ -105,8 +105,8 @@ def _leg_starts(theta, t, state, hysteresis, max_gap_s, offset, cut_turns):  # n
     Without ``cut_turns`` the legs only (no cut at whole turns).
 
     ``state`` (float64, 9): has_prev, prev_t, sense, extreme, extreme index, leg start angle,
-    next whole turn, pending cut index (-1: none), reversals so far; updated in place. Returns the starts found
-    (global sample indices).
+    next whole turn, pending cut index (-1: none), reversals so far; updated in place. Returns
+    the starts found (global sample indices).
     """
     n = theta.size
     out = np.empty(n + 1, np.int64)
@@ -203,8 +203,9 @@ def leg_starts(t_s: NDArray, azimuth_rad: NDArray, max_gap_s: float) -> NDArray:
 
 
 def _legs(theta: NDArray, t: NDArray, max_gap_s: float) -> tuple[int, NDArray]:
-    """Starts of the legs between reversals and the travel of each leg (rad, from the
-    previous leg's extreme) of an unwrapped angle series.
+    """Starts of the legs between reversals of an unwrapped angle series, and their travel.
+
+    The travel of a leg is counted from the previous leg's extreme, rad.
     """
     cutter = LegCutter(max_gap_s, cut_turns=False)
     starts = cutter.feed(t, np.pi - theta)

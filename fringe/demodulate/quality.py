@@ -4,10 +4,10 @@
 runs stage 1 (:func:`fringe.demodulate.engine.run_stage1`) for the turns (count, period, rate
 stability, glitches), states the turntable motion found in the azimuth with its block rule and
 the samples left out (:mod:`fringe.demodulate.motion`), lists the per-session 2 theta
-amplitudes with the chi^2 of their agreement (:mod:`fringe.demodulate.sessions`), and computes, on the first ``max_spectral_samples`` samples laid on a
-regular grid (missing samples NaN), the overlapping Allan deviation of the fractional signal and
-its amplitude spectrum around twice the rotation frequency, where the sidereal sidebands
-2 f_R +- f_sid, 2 f_R +- 2 f_sid are marked.
+amplitudes with the chi^2 of their agreement (:mod:`fringe.demodulate.sessions`), and computes,
+on the first ``max_spectral_samples`` samples laid on a regular grid (missing samples NaN), the
+overlapping Allan deviation of the fractional signal and its amplitude spectrum around twice the
+rotation frequency, where the sidereal sidebands 2 f_R +- f_sid, 2 f_R +- 2 f_sid are marked.
 """
 
 from __future__ import annotations

@@ -140,8 +140,9 @@ class SteppedRotation:
 
 
 def _triangle(t_s: ArrayLike, leg_s: float) -> NDArray:
-    """Fraction of the current leg travelled, folded so that odd legs run back: a triangle
-    wave in [0, 1] of period 2 leg_s (0 at t = 0).
+    """Fraction of the current leg travelled, folded so that odd legs run back.
+
+    A triangle wave in [0, 1] of period 2 leg_s (0 at t = 0).
     """
     u = np.asarray(t_s, float) / leg_s
     k = np.floor(u)

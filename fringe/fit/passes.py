@@ -2,9 +2,9 @@
 
 The per-turn rows of both stages (sidereal angle, amplitudes, weights and, for stage 3, the
 design of :func:`design_columns`) are built once, in pass 1, from each segment of the
-:class:`~fringe.demodulate.turn_store.TurnStore`, and kept in a :class:`RowCache`: in memory for a record
-of one segment, in the fit's scratch files otherwise (so the peak memory is one segment's, for
-any record length). The passes:
+:class:`~fringe.demodulate.turn_store.TurnStore`, and kept in a :class:`RowCache`: in memory for
+a record of one segment, in the fit's scratch files otherwise (so the peak memory is one
+segment's, for any record length). The passes:
 
 1. per segment: build the rows, accumulate the normal-equation parts of stage 2 (harmonics),
    of stage 3, of the Cramer-Rao reference (white per-sample noise) and, for the bootstrap,
@@ -41,9 +41,11 @@ NOISE_WINDOW_TURNS = 101
 
 
 def noise_level(residual_rms: NDArray) -> NDArray:
-    """Per-turn noise level s_i: the running median of the accepted turns' residual RMS over
-    NOISE_WINDOW_TURNS turns (signal units; a local per-sample level that follows slow changes
-    of the noise but not each turn's own scatter: weighting by a turn's own residual variance,
+    """Per-turn noise level s_i, signal units.
+
+    The running median of the accepted turns' residual RMS over NOISE_WINDOW_TURNS turns (a
+    local per-sample level that follows slow changes of the noise but not each turn's own
+    scatter: weighting by a turn's own residual variance,
     with nu ~ 40 degrees of freedom, would inflate the estimator's variance by
     (nu - 2)/(nu - 4) and correlate weights with the data).
     """
@@ -55,8 +57,9 @@ def noise_level(residual_rms: NDArray) -> NDArray:
 
 
 def segment_noise_levels(status: NDArray, residual_rms: NDArray, segment_turns: int):
-    """:func:`noise_level` of all accepted turns, one segment of ``segment_turns`` rows at a
-    time: yields each segment's accepted turns' levels. Each segment is filtered with at least
+    """:func:`noise_level` of all accepted turns, one segment of ``segment_turns`` rows at a time.
+
+    Yields each segment's accepted turns' levels. Each segment is filtered with at least
     half a window of accepted turns on each side (or up to the record's end), so the values
     equal those of the whole-record filter while only a segment's worth is in memory.
     """
@@ -103,9 +106,10 @@ def _design_rows(jc, jb, c, b):
 
 
 def design_labels(names: tuple[str, ...], settings) -> list[str]:
-    """Labels of the stage-3 columns: the free coefficients, then the nuisances
-    (lab_B0, lab_C0, aux_CHANNEL) that ``settings`` (a :class:`fringe.fit.FitSettings`) asks
-    for; shared with the one-stage fit.
+    """Labels of the stage-3 columns, shared with the one-stage fit.
+
+    The free coefficients, then the nuisances (lab_B0, lab_C0, aux_CHANNEL) that
+    ``settings`` (a :class:`fringe.fit.FitSettings`) asks for.
     """
     labels = list(names)
     if settings.lab_b0:
@@ -119,9 +123,10 @@ def design_labels(names: tuple[str, ...], settings) -> list[str]:
 
 
 def design_columns(setup, t, names, table, sel, settings) -> tuple[NDArray, NDArray]:
-    """Per-turn design of the free coefficients and the nuisance columns
-    (:func:`design_labels`) for the rows ``sel`` of ``table`` (mean times t): (jc, jb), each
-    (n, number of labels).
+    """Per-turn design of the free coefficients and the nuisance columns.
+
+    Columns as :func:`design_labels`, for the rows ``sel`` of ``table`` (mean times t): (jc,
+    jb), each (n, number of labels).
     """
     labels = design_labels(names, settings)
     k, kk = len(names), len(labels)
@@ -151,6 +156,7 @@ class RowCache:
         self.n_segments = 0
 
     def append(self, arrays: dict) -> None:
+        """Add the next segment's arrays (name -> array)."""
         self._names.append(set(arrays))
         if self._memory is not None:
             self._memory.append(dict(arrays))
@@ -159,6 +165,7 @@ class RowCache:
         self.n_segments += 1
 
     def update(self, i: int, arrays: dict) -> None:
+        """Add or replace arrays of segment i."""
         self._names[i] |= set(arrays)
         if self._memory is not None:
             self._memory[i].update(arrays)
@@ -166,6 +173,7 @@ class RowCache:
             save_arrays(self._scratch, f"rows-{i}", arrays)
 
     def get(self, i: int, names: tuple[str, ...]) -> dict:
+        """The arrays ``names`` of segment i that it holds (others left out)."""
         names = [k for k in names if k in self._names[i]]
         if self._memory is not None:
             return {k: self._memory[i][k] for k in names}
@@ -267,8 +275,10 @@ def run_passes(setup, store: TurnStore, settings, free: tuple[str, ...] | None,
 
 
 def _harmonics(x_h, inv_h, chi2_h, n, settings) -> dict:
-    """The stage-2 harmonics with their covariance scaled by the reduced chi^2 and, from few
-    degrees of freedom (below SMALL_SAMPLE_DOF), widened by the Student-t factor.
+    """The stage-2 harmonics, their covariance scaled by the reduced chi^2.
+
+    From fewer than SMALL_SAMPLE_DOF degrees of freedom the covariance is also widened by the
+    Student-t factor.
     """
     from fringe.demodulate.sessions import student_factor
 

@@ -27,8 +27,8 @@ where it is not. ``efficiency`` = white-noise Cramer-Rao
 sigma for this record (per-sample noise = median per-turn residual RMS) / reported sigma.
 
 The linear fits visit the turn table a segment at a time (:mod:`fringe.fit.passes`), so a
-table kept in scratch files (:mod:`fringe.demodulate.turn_store`) is never whole in memory; the medium
-and rms_kt fits load it whole.
+table kept in scratch files (:mod:`fringe.demodulate.turn_store`) is never whole in memory; the
+medium and rms_kt fits load it whole.
 """
 
 from __future__ import annotations
@@ -67,9 +67,10 @@ logger = logging.getLogger(__name__)
 
 @dataclass
 class TurnModels:
-    """The fitted model (C, B) of the accepted turns, per segment of the turn table
-    (:meth:`fringe.demodulate.turn_store.TurnStore.bounds`): from a row cache (linear fits) or whole
-    arrays (medium).
+    """The fitted model (C, B) of the accepted turns, per segment of the turn table.
+
+    Segments as :meth:`fringe.demodulate.turn_store.TurnStore.bounds`; from a row cache (linear
+    fits) or whole arrays (medium).
     """
 
     cache: RowCache | None = None
@@ -77,8 +78,9 @@ class TurnModels:
     model_b: NDArray | None = None
 
     def segment(self, i: int, first: int, n: int) -> tuple[NDArray, NDArray]:
-        """Model C and B of the n accepted turns of segment i (``first``: accepted turns
-        before it).
+        """Model C and B of the n accepted turns of segment i.
+
+        ``first`` is the number of accepted turns before it.
         """
         if self.cache is not None:
             got = self.cache.get(i, ("model_c", "model_b"))
@@ -91,10 +93,11 @@ class TurnModels:
 def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSettings,
                      free: tuple[str, ...], scratch: Scratch | None = None,
                      sidereal: bool = True) -> tuple[dict | None, CoefficientFit, RowCache]:
-    """Stages 2 and 3 for a linear theory (see module docstring) over the turn table (in
-    memory, or a :class:`~fringe.demodulate.turn_store.TurnStore` read a segment at a time); returns the
-    harmonics, the coefficients and the row cache that holds each segment's fitted model
-    (``model_c``, ``model_b``).
+    """Stages 2 and 3 for a linear theory (see module docstring) over the turn table.
+
+    The table is in memory, or a :class:`~fringe.demodulate.turn_store.TurnStore` read a segment
+    at a time; returns the harmonics (None when ``sidereal`` is False), the coefficients and the
+    row cache that holds each segment's fitted model (``model_c``, ``model_b``).
     """
     store = table if isinstance(table, TurnStore) else TurnStore.in_memory(table)
     labels = design_labels(free, settings)
@@ -155,8 +158,9 @@ def _widen(res: CoefficientFit, units: str) -> None:
 
 
 def sessions_of(setup: Setup, store: TurnStore) -> Sessions:
-    """The per-session 2 theta amplitudes of the accepted turns
-    (:class:`fringe.demodulate.sessions.SessionBuilder`), a segment at a time.
+    """The per-session 2 theta amplitudes of the accepted turns, a segment at a time.
+
+    Built by :class:`fringe.demodulate.sessions.SessionBuilder`.
     """
     lon = setup.site.east_longitude_rad
     builder = SessionBuilder(lambda t: sidereal_angle_rad(setup.epoch, t, lon), setup.units)
@@ -216,13 +220,41 @@ def _add_rms_kt(setup: Setup, table: TurnTable, settings: FitSettings,
                      "prefer bootstrap uncertainties")
 
 
+def _stage3(setup, store, settings, rotating, scratch, sessions, sidereal):
+    """Stage 2 (unless ``sidereal`` is False) and stage 3: (harmonics, coefficients, models).
+
+    A singular stage 3 of a record with too few sidereal phases stops with a message naming
+    the sessions.
+    """
+    try:
+        if setup.theory.linear:
+            harm, res, cache = fit_coefficients(setup, store, settings, rotating, scratch,
+                                                sidereal=sidereal)
+            return harm, res, TurnModels(cache=cache)
+        harm = run_passes(setup, store, settings, None, sidereal=sidereal).harmonics
+        res = fit_medium(setup, store.load(), settings)
+        if settings.uncertainty == "reduced-chi2" and res.dof < SMALL_SAMPLE_DOF:
+            _widen(res, setup.units)
+        return harm, res, TurnModels(model_c=res.model_c, model_b=res.model_b)
+    except FitError as exc:
+        if sidereal:
+            raise
+        n_acc = sum(x.n_turns for x in sessions.sessions)
+        raise FitError(f"{exc} -- the {n_acc} accepted turns sit at "
+                       f"{sessions.n_sidereal_phases} sidereal phase(s) in "
+                       f"{len(sessions.sessions)} session(s), too few for these coefficients; "
+                       "fringe inspect lists the per-session 2 theta amplitudes "
+                       "(free fewer coefficients, or add sessions at other sidereal times)"
+                       ) from None
+
+
 def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettings,
                  span_days: float, scratch: Scratch | None = None
                  ) -> tuple[dict | None, CoefficientFit, tuple, TurnModels]:
     """Run stage 2 (harmonics) and stage 3 (coefficients); also the systematics diagnostics.
 
-    ``table``: the stage-1 table, or its :class:`~fringe.demodulate.turn_store.TurnStore` (the linear
-    fits read it a segment at a time; the medium and rms_kt fits load it whole). Returns the
+    ``table``: the stage-1 table, or its :class:`~fringe.demodulate.turn_store.TurnStore` (the
+    linear fits read it a segment at a time; the medium and rms_kt fits load it whole). Returns the
     harmonics (None when stage 2 is skipped: too few sidereal phases; the per-session
     amplitudes are then ``sessions`` of the coefficients), the coefficients, the free names and
     the fitted model per turn (:class:`TurnModels`).
@@ -247,26 +279,7 @@ def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettin
     if "rms_kt" in free and not rotating:
         raise ConfigError("FitSettings.free rms_kt: free rms_mm as well (the offsets' model "
                           "uses the 2 theta estimate of rms_mm)")
-    try:
-        if theory.linear:
-            harm, res, cache = fit_coefficients(setup, store, settings, rotating, scratch,
-                                                sidereal=sidereal)
-            models = TurnModels(cache=cache)
-        else:
-            harm = run_passes(setup, store, settings, None, sidereal=sidereal).harmonics
-            res = fit_medium(setup, store.load(), settings)
-            models = TurnModels(model_c=res.model_c, model_b=res.model_b)
-            if settings.uncertainty == "reduced-chi2" and res.dof < SMALL_SAMPLE_DOF:
-                _widen(res, setup.units)
-    except FitError as exc:
-        if sidereal:
-            raise
-        raise FitError(f"{exc} -- the {n_acc} accepted turns sit at "
-                       f"{sessions.n_sidereal_phases} sidereal phase(s) in "
-                       f"{len(sessions.sessions)} session(s), too few for these coefficients; "
-                       "fringe inspect lists the per-session 2 theta amplitudes "
-                       "(free fewer coefficients, or add sessions at other sidereal times)"
-                       ) from None
+    harm, res, models = _stage3(setup, store, settings, rotating, scratch, sessions, sidereal)
     res.warnings[:0] = few
     if "rms_kt" in free:
         _add_rms_kt(setup, store.load(), settings, res)

@@ -1,5 +1,7 @@
-"""The fit result: a frozen record with a fixed schema and three views (repr, summary(),
-to_dict()/from_dict()), and :func:`read_fit_result`, the one reader of the result file.
+"""The fit result: a frozen record with a fixed schema and three views, and its one reader.
+
+The views are repr, summary() and to_dict()/from_dict(); :func:`read_fit_result` is the one
+reader of the result file.
 
 The JSON file written by ``fringe fit`` is ``FitResult.to_dict()`` (format "fit", version 2;
 version-1 files, whose warnings are plain strings, are read too); its per-turn amplitudes go
@@ -146,8 +148,9 @@ class FitResult:
     # ------------------------------------------------------------------ JSON
 
     def to_dict(self) -> dict:
-        """The result file's JSON (plain types; non-finite numbers as null). Parts that are
-        None are left out, except ``one_stage``, written ``{}`` when it was not run.
+        """The result file's JSON (plain types; non-finite numbers as null).
+
+        Parts that are None are left out, except ``one_stage``, written ``{}`` when it was not run.
         """
         out = {"fringe_format": FORMAT, "fringe_format_version": FORMAT_VERSION}
         for f in fields(self):
@@ -222,13 +225,17 @@ class FitResult:
     # ------------------------------------------------------------------ views
 
     def correlation(self) -> np.ndarray:
+        """Correlation matrix of the free coefficients, (k, k)."""
         m = np.array(self.covariance.matrix, float)
         s = np.sqrt(np.diag(m))
         return m / np.outer(s, s)
 
     def summary(self) -> str:
-        """Text for a person: the input, the turns, the uncertainty mode, a table of the
-        coefficients (fixed and nuisances too), limits, the cross-check, warnings and notes.
+        """Text for a person.
+
+        The input, the turns, the motion, the uncertainty mode, a table of the coefficients
+        (fixed and nuisances too), the per-session amplitudes when they are the result, limits,
+        the cross-check, warnings and notes.
         """
         s1, st, nan = self.stage1, self.statistics, float("nan")
         path = self.input.path if self.input else "?"

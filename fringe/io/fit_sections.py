@@ -1,5 +1,7 @@
-"""The parts of a fit result (:class:`~fringe.io.fit_result.FitResult`), each a frozen record
-with ``to_dict()`` (the JSON of the result file, ``docs/fit.md``) and a validating ``read()``.
+"""The parts of a fit result (:class:`~fringe.io.fit_result.FitResult`), each a frozen record.
+
+Each has ``to_dict()`` (the JSON of the result file, ``docs/fit.md``) and a validating
+``read()``.
 
 * :class:`Estimate`: a value with its 1-sigma uncertainty (coefficients, nuisances);
 * :class:`Covariance`: names and their covariance matrix (a tuple of rows);
@@ -52,10 +54,12 @@ class Estimate:
         return math.isfinite(self.value) and math.isfinite(self.sigma)
 
     def to_dict(self) -> dict:
+        """The record in the plain JSON types of the result file."""
         return {"value": self.value, "sigma": self.sigma}
 
     @classmethod
     def read(cls, f: Fields, key: str, *, null: bool = False) -> Estimate:
+        """Read and check the field ``key`` of ``f`` (:class:`~fringe.io.records.Fields`)."""
         e = f.sub(key)
         e.unknown(("value", "sigma"))
         return cls(e.number("value", null=null),
@@ -75,8 +79,9 @@ def read_estimates(f: Fields, key: str, *, required: bool = True, nonempty: bool
 
 @dataclass(frozen=True)
 class Covariance:
-    """Covariance of named quantities: ``matrix[i][j]`` of ``names[i]``, ``names[j]`` (a tuple
-    of rows; :meth:`array` gives a numpy copy).
+    """Covariance of named quantities: ``matrix[i][j]`` of ``names[i]``, ``names[j]``.
+
+    The matrix is a tuple of rows; :meth:`array` gives a numpy copy.
     """
 
     names: tuple[str, ...]
@@ -99,6 +104,7 @@ class Covariance:
                                       for b in names) for a in names))
 
     def to_dict(self) -> dict:
+        """The record in the plain JSON types of the result file."""
         return {"names": list(self.names), "matrix": [list(r) for r in self.matrix]}
 
     @classmethod
@@ -140,6 +146,7 @@ class Harmonics:
             _set(self, "covariance", tuple(tuple(r) for r in self.covariance))
 
     def to_dict(self) -> dict:
+        """The record in the plain JSON types of the result file."""
         return _omit_none({"names": list(self.names), "value": list(self.value),
                            "sigma": list(self.sigma),
                            "covariance": None if self.covariance is None
@@ -148,6 +155,7 @@ class Harmonics:
 
     @classmethod
     def read(cls, f: Fields, key: str) -> Harmonics | None:
+        """Read and check the field ``key`` of ``f`` (:class:`~fringe.io.records.Fields`)."""
         h = f.sub(key, required=False)
         if h is None:
             return None
@@ -201,17 +209,21 @@ class Stage1:
 
     @property
     def n_accepted(self) -> int:
+        """Accepted turns."""
         return self.counts["n_accepted"]
 
     @property
     def n_rejected_partial(self) -> int | None:
+        """Turns rejected as partial (None when a file does not state it)."""
         return self.counts.get("n_rejected_partial")
 
     @property
     def n_rejected_glitch(self) -> int | None:
+        """Turns rejected as glitches (None when a file does not state it)."""
         return self.counts.get("n_rejected_glitch")
 
     def to_dict(self) -> dict:
+        """The record in the plain JSON types of the result file."""
         return _omit_none({"n_blocks": self.n_blocks, **self.counts,
                            "turn_period_s": self.turn_period_s,
                            "residual_rms": self.residual_rms,
@@ -220,6 +232,7 @@ class Stage1:
 
     @classmethod
     def read(cls, f: Fields, key: str) -> Stage1 | None:
+        """Read and check the field ``key`` of ``f`` (:class:`~fringe.io.records.Fields`)."""
         s = f.sub(key, required=False)
         if s is None:
             return None
@@ -242,8 +255,10 @@ class Stage1:
 
 @dataclass(frozen=True)
 class Statistics:
-    """Goodness of fit of stage 3: reduced chi^2 (NaN: undefined), degrees of freedom, the
-    uncertainty mode, the accepted turns fitted (None when a file does not state it).
+    """Goodness of fit of stage 3.
+
+    Reduced chi^2 (NaN: undefined), degrees of freedom, the uncertainty mode, the accepted
+    turns fitted (None when a file does not state it).
     """
 
     chi2_reduced: float
@@ -252,11 +267,13 @@ class Statistics:
     n_turns_used: int | None = None
 
     def to_dict(self) -> dict:
+        """The record in the plain JSON types of the result file."""
         return _omit_none({"chi2_reduced": self.chi2_reduced, "dof": self.dof,
                            "uncertainty": self.uncertainty, "n_turns_used": self.n_turns_used})
 
     @classmethod
     def read(cls, f: Fields, key: str) -> Statistics | None:
+        """Read and check the field ``key`` of ``f`` (:class:`~fringe.io.records.Fields`)."""
         s = f.sub(key, required=False)
         if s is None:
             return None
@@ -267,8 +284,10 @@ class Statistics:
 
 @dataclass(frozen=True)
 class FitInput:
-    """The run file fitted: its path as given, SHA-256 (hex) and number of samples (None
-    when a file does not state it).
+    """The run file fitted.
+
+    Its path as given, SHA-256 (hex) and number of samples (None when a file does not state
+    it).
     """
 
     path: str
@@ -276,11 +295,13 @@ class FitInput:
     n_samples: int | None = None
 
     def to_dict(self) -> dict:
+        """The record in the plain JSON types of the result file."""
         return _omit_none({"path": self.path, "sha256": self.sha256,
                            "n_samples": self.n_samples})
 
     @classmethod
     def read(cls, f: Fields, key: str) -> FitInput | None:
+        """Read and check the field ``key`` of ``f`` (:class:`~fringe.io.records.Fields`)."""
         s = f.sub(key, required=False)
         if s is None:
             return None
@@ -290,9 +311,11 @@ class FitInput:
 
 @dataclass(frozen=True)
 class OneStage:
-    """The one-stage cross-check (:func:`fringe.fit.onestage.one_stage_fit`): coefficients and
-    nuisances, the coefficients' covariance, reduced chi^2 against the stage-1 white level
-    (NaN: undefined), the unit-weight noise RMS (signal units), dof, samples and turns used.
+    """The one-stage cross-check (:func:`fringe.fit.onestage.one_stage_fit`).
+
+    Coefficients and nuisances, the coefficients' covariance, reduced chi^2 against the stage-1
+    white level (NaN: undefined), the unit-weight noise RMS (signal units), dof, samples and
+    turns used.
     """
 
     coefficients: Mapping[str, Estimate]
@@ -318,6 +341,7 @@ class OneStage:
                    d["n_turns_used"])
 
     def to_dict(self) -> dict:
+        """The record in the plain JSON types of the result file."""
         return {"coefficients": {n: e.to_dict() for n, e in self.coefficients.items()},
                 "nuisance": {n: e.to_dict() for n, e in self.nuisance.items()},
                 "covariance": self.covariance.to_dict(), "chi2_reduced": self.chi2_reduced,
@@ -342,9 +366,11 @@ class OneStage:
 
 @dataclass(frozen=True)
 class FitWarning:
-    """A warning the fit raised: a short stable ``code`` (e.g. ``"b0-lab-fixed"``), the
-    ``sentence`` a person reads, and the numbers of the sentence unrounded (``values``: name to
-    number, unit as in the sentence). ``str()`` gives the sentence.
+    """A warning the fit raised, as a named record.
+
+    A short stable ``code`` (e.g. ``"b0-lab-fixed"``), the ``sentence`` a person reads, and the
+    numbers of the sentence unrounded (``values``: name to number, unit as in the sentence).
+    ``str()`` gives the sentence.
 
     Codes: ``b0-lab-fixed`` (B0 or lab_B0 inconsistent with zero), ``c0-lab-fixed`` (C0
     inconsistent with zero, ke_ZZ free), ``near-degenerate`` (correlations above 0.95),
@@ -365,6 +391,7 @@ class FitWarning:
         return self.sentence
 
     def to_dict(self) -> dict:
+        """The record in the plain JSON types of the result file."""
         return {"code": self.code, "message": self.sentence, "values": dict(self.values)}
 
     @classmethod
@@ -389,8 +416,9 @@ _MOTION_FIELDS = {"kind": True, "sense": True, "turn_period_s": True, "block_rul
 
 @dataclass(frozen=True)
 class Motion:
-    """The turntable motion stage 1 found in the recorded azimuth
-    (:func:`fringe.demodulate.motion.detect_motion`).
+    """The turntable motion stage 1 found in the recorded azimuth.
+
+    Made by :func:`fringe.demodulate.motion.detect_motion`.
 
     Attributes
     ----------
@@ -439,10 +467,12 @@ class Motion:
         return ", ".join(parts)
 
     def to_dict(self) -> dict:
+        """The record in the plain JSON types of the result file."""
         return _omit_none({name: getattr(self, name) for name in _MOTION_FIELDS})
 
     @classmethod
     def read(cls, f: Fields, key: str) -> Motion | None:
+        """Read and check the field ``key`` of ``f`` (:class:`~fringe.io.records.Fields`)."""
         m = f.sub(key, required=False)
         if m is None:
             return None
@@ -497,12 +527,14 @@ class Session:
     t_factor: float
 
     def to_dict(self) -> dict:
+        """The record in the plain JSON types of the result file."""
         out = {k: getattr(self, k) for k in _SESSION_FIELDS}
         out["C"], out["B"] = self.C.to_dict(), self.B.to_dict()
         return out
 
     @classmethod
     def read(cls, f: Fields, key: str) -> Session:
+        """Read and check the field ``key`` of ``f`` (:class:`~fringe.io.records.Fields`)."""
         s = f.sub(key)
         s.unknown(_SESSION_FIELDS)
         return cls(s.number("t_start_s"), s.number("t_stop_s"), s.integer("n_turns", minimum=1),
@@ -542,6 +574,7 @@ class Sessions:
         _set(self, "sessions", tuple(self.sessions))
 
     def to_dict(self) -> dict:
+        """The record in the plain JSON types of the result file."""
         return {"sessions": [x.to_dict() for x in self.sessions], "chi2": self.chi2,
                 "dof": self.dof, "p_value": self.p_value,
                 "n_sidereal_phases": self.n_sidereal_phases, "rule": self.rule,
@@ -549,6 +582,7 @@ class Sessions:
 
     @classmethod
     def read(cls, f: Fields, key: str) -> Sessions | None:
+        """Read and check the field ``key`` of ``f`` (:class:`~fringe.io.records.Fields`)."""
         s = f.sub(key, required=False)
         if s is None:
             return None

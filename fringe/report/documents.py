@@ -1,5 +1,6 @@
-"""Render what a report states: the headline and the documents report.md, report.tex, report.html
-and summary.json.
+"""Render what a report states: the headline and the documents.
+
+The documents are report.md, report.tex, report.html and summary.json.
 
 Use :func:`headline` for the result in the trade's terms (from a checked fit result), and
 :func:`markdown_report`, :func:`latex_report`, :func:`html_report` and :func:`summary` to render
@@ -274,8 +275,10 @@ def markdown_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) ->
 
 
 def latex_report(c: ReportContent) -> str:
-    """report.tex: a standalone article with the headline paragraph, the warnings and the
-    coefficient table (plain tabular; compiles with pdflatex and no extra packages).
+    """report.tex: a standalone article.
+
+    The headline paragraph, the warnings and the coefficient table (plain tabular; compiles
+    with pdflatex and no extra packages).
     """
     table = to_latex(report_tables(c.fit, c.comparison, "latex")["coefficients"])
     out = [r"\documentclass{article}", r"\begin{document}",
