@@ -24,6 +24,7 @@ from fringe.demodulate.settings import DemodSettings
 from fringe.frames import Epoch, sidereal_angle_rad
 from fringe.io.fit_result import session_lines
 from fringe.io.fit_sections import Motion, Sessions
+from fringe.io.records import plain
 from fringe.io.runreader import open_run
 from fringe.noise.allan import AllanResult, overlapping_adev
 
@@ -92,7 +93,7 @@ class InspectReport:
         if self.motion is not None:
             out["motion"] = self.motion.to_dict()
         if self.sessions is not None:
-            out["sessions"] = self.sessions.to_dict()
+            out["sessions"] = plain(self.sessions.to_dict())     # NaN (one session) -> null
         return out
 
 

@@ -10,6 +10,8 @@ invented.
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 
@@ -172,3 +174,24 @@ def test_blocks_do_not_depend_on_the_split_into_ranges(tmp_path, motion):
     assert whole.n_blocks == split.n_blocks > 10
     assert np.array_equal(whole.coef, split.coef, equal_nan=True)
     assert np.array_equal(whole.n_valid, split.n_valid)
+
+
+def test_inspect_states_the_motion_and_the_sessions(tmp_path):
+    from fringe.demodulate.quality import inspect_run
+
+    mot = SteppedRotation(step_deg=22.5, dwell_s=6.0, move_s=3.0)
+    t = np.arange(0.0, 4 * mot.period_s)
+    az = mot.azimuth_rad(t)
+    y = np.cos(2 * (np.pi - az)) + np.random.default_rng(2).normal(0, 0.1, t.size)
+    path = write_run(tmp_path / "stepped.h5", t, az, y, epoch="2027-02-03T22:00:00Z")
+    rep = inspect_run(path)
+    text = rep.summary()
+    assert "motion: stepped (ccw)" in text and "16 marks per turn" in text
+    assert rep.stats["n_moving_excluded"] == int(np.sum(moving_mask(az, np.radians(1e-3))))
+    assert "per-session 2 theta amplitudes" in text and "skips the sidereal stage" in text
+    (s,) = rep.sessions.sessions
+    assert s.n_turns == 4 and s.C.value == pytest.approx(1.0, abs=5 * s.C.sigma)
+    d = rep.to_dict()
+    assert d["motion"]["kind"] == "stepped"
+    assert d["sessions"]["chi2"] is None          # one session: no agreement chi2, JSON null
+    json.dumps(d, allow_nan=False)

@@ -147,3 +147,13 @@ def test_few_turns_at_many_sidereal_phases_run_the_sidereal_stage(tmp_path):
     small = [w for w in res.warnings if w.code == "small-sample"]
     assert small and small[0].values["dof"] == res.statistics.dof == 2 * 24 - 5
     assert small[0].values["t_factor"] == pytest.approx(student_factor(43), rel=1e-12)
+
+
+def test_result_files_without_motion_or_sessions_still_read(data_dir):
+    res = FitResult.read(data_dir / "fit_example.json")
+    assert res.motion is None and res.sessions is None
+    d = json.loads((data_dir / "fit_example.json").read_text())
+    d["motion"] = {"kind": "spinning", "sense": "ccw", "turn_period_s": 45.0,
+                   "block_rule": "one turn", "excluded_samples_rule": "", "dwell_fraction": 0.0}
+    with pytest.raises(Exception, match=r"fit.json: motion.kind: expected one of continuous"):
+        FitResult.from_dict(d, "fit.json")
