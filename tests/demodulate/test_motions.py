@@ -195,3 +195,32 @@ def test_inspect_states_the_motion_and_the_sessions(tmp_path):
     assert d["motion"]["kind"] == "stepped"
     assert d["sessions"]["chi2"] is None          # one session: no agreement chi2, JSON null
     json.dumps(d, allow_nan=False)
+
+
+def test_stepped_table_that_reverses_is_cut_into_legs(tmp_path):
+    # 16 marks out and back (a sweep of marks per leg), 5 samples at rest per mark and 2
+    # moving samples between marks (invented)
+    marks = np.concatenate([np.arange(0, 17), np.arange(15, -1, -1), np.arange(1, 17),
+                            np.arange(15, -1, -1)])
+    theta, moving = [], []
+    for a, b in zip(marks[:-1], marks[1:]):
+        theta += [a * 22.5] * 5 + [a * 22.5 + (b - a) * 22.5 * f for f in (1 / 3, 2 / 3)]
+        moving += [False] * 5 + [True] * 2
+    theta += [marks[-1] * 22.5] * 5
+    moving += [False] * 5
+    theta, moving = np.radians(np.array(theta)), np.array(moving)
+    t = np.arange(theta.size, dtype=float)
+    az = np.mod(np.pi - theta, 2 * np.pi)
+    rng = np.random.default_rng(9)
+    y = 0.02 * np.cos(2 * theta - 0.3) + 1e-4 * t + rng.normal(0, 0.005, t.size)
+    y = np.where(moving, -7.0, y)
+    path = write_run(tmp_path / "stepped_legs.h5", t, az, y)
+    table, info = run_stage1(path, DemodSettings())
+    assert (info.motion.kind, info.motion.sense) == ("stepped", "alternating")
+    assert table.n_blocks == 4 and np.all(table.accepted)
+    bounds = np.searchsorted(t, table.t_start_s), np.searchsorted(t, table.t_stop_s) + 1
+    for b, (lo, hi) in enumerate(zip(*bounds)):
+        keep = ~moving_mask(az, np.radians(1e-3))[lo:hi]
+        c, bb = lstsq_amplitudes(t[lo:hi][keep], az[lo:hi][keep], y[lo:hi][keep])
+        assert table.C[b] == pytest.approx(c, abs=1e-12)
+        assert table.B[b] == pytest.approx(bb, abs=1e-12)
