@@ -26,6 +26,7 @@ OPTION_SPELLING = (
     ("FitSettings.bootstrap_days", "--bootstrap-days"),
     ("FitSettings.lab_c0", "--lab-c0"),
     ("FitSettings.regress", "--regress"),
+    ("DemodSettings.min_samples", "--min-samples"),
     ("Scenario.with_coefficients", "--set"),
     ("plan_settings(free=...)", "--free"),
     ("engine='dask'", "--engine dask"),
@@ -40,8 +41,9 @@ _SPELLING = re.compile(r"(?<![\w./\\-])(" + "|".join(re.escape(a) for a, _ in OP
 
 
 def as_options(message: str) -> str:
-    """``message`` with the library's field and argument names spelled as the command's
-    options (:data:`OPTION_SPELLING`).
+    """``message`` with the library's field and argument names spelled as the command's options.
+
+    The names and their spellings are :data:`OPTION_SPELLING`.
     """
     table = dict(OPTION_SPELLING)
     return _SPELLING.sub(lambda m: table[m.group(1)], message)
@@ -125,5 +127,6 @@ class RegistryChoice(click.Choice):
 
     @property
     def choices(self) -> tuple[str, ...]:
+        """The registry's names, looked up when first needed."""
         module, attribute = self.registry
         return tuple(getattr(importlib.import_module(module), attribute))

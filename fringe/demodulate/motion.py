@@ -321,8 +321,8 @@ def check_coverage(motion: Motion, t_s: NDArray, azimuth_rad: NDArray,
         raise FitError(
             f"{source}: samples/azimuth: the table swings through {motion.sweep_deg:.3g} deg, "
             f"which leaves a gap of {360 - 2 * motion.sweep_deg:.3g} deg in 2 theta (more than "
-            f"max_2theta_gap_deg = {gap_max:g}): a sweep cannot separate C from B; swing through "
-            f"at least {180 - gap_max / 2:g} deg")
+            f"DemodSettings.max_2theta_gap_deg = {gap_max:g}): a sweep cannot separate C from "
+            f"B; swing through at least {180 - gap_max / 2:g} deg")
     if motion.kind != "stepped":
         return
     theta = np.unwrap(np.pi - np.asarray(azimuth_rad, float))
@@ -336,6 +336,6 @@ def check_coverage(motion: Motion, t_s: NDArray, azimuth_rad: NDArray,
         raise FitError(
             f"{source}: samples/azimuth: the table rests at {distinct.size} distinct angle(s) "
             f"theta = {shown} deg, which leave a gap of {gap2:.3g} deg in 2 theta (at most "
-            f"max_2theta_gap_deg = {gap_max:g} allowed) and need at least {need} for the block "
-            "model: the marks cannot separate C from B (e.g. steps of 90 deg give the same "
+            f"DemodSettings.max_2theta_gap_deg = {gap_max:g} allowed) and need at least {need} "
+            "for the block model: the marks cannot separate C from B (e.g. steps of 90 deg give the same "
             "sin 2 theta at every mark)")

@@ -130,14 +130,17 @@ def no_block_message(info: RecordInfo, store: TurnStore, demod: DemodSettings) -
     counts = store.counts()
     if motion is not None and info.gap_harmonic == 2:
         need = (f"a largest gap in 2 theta of at most {demod.max_2theta_gap_deg:g} deg "
-                f"(max_2theta_gap_deg) and at least {demod.min_samples} valid samples")
+                f"(DemodSettings.max_2theta_gap_deg) and at least {demod.min_samples} valid "
+                "samples (DemodSettings.min_samples)")
     else:
         need = (f"a largest gap in theta of at most {demod.max_angle_gap_deg:g} deg "
-                f"(max_angle_gap_deg) and at least {demod.min_samples} valid samples")
+                f"(DemodSettings.max_angle_gap_deg) and at least {demod.min_samples} valid "
+                "samples (DemodSettings.min_samples)")
     what = motion.describe() if motion is not None else "the record"
     return (f"{info.path}: samples/azimuth: none of the {counts['n_blocks']} blocks defines a "
             f"2 theta pair: each needs {need} and a determined block fit (motion: {what}); "
-            "the table's positions cannot separate C from B")
+            "no block gives C and B (too few readings per block, or positions that cannot "
+            "separate C from B)")
 
 
 def _package(path, setup, meta, settings, demod, info, store, harm, res, span_s, input_sha256,

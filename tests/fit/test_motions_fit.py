@@ -157,3 +157,19 @@ def test_result_files_without_motion_or_sessions_still_read(data_dir):
                    "block_rule": "one turn", "excluded_samples_rule": "", "dwell_fraction": 0.0}
     with pytest.raises(Exception, match=r"fit.json: motion.kind: expected one of continuous"):
         FitResult.from_dict(d, "fit.json")
+
+
+def test_a_record_whose_every_block_is_rejected_names_the_coverage(tmp_path):
+    # 8 hand-read marks per turn: fewer valid samples than min_samples (12) in every turn
+    rng = np.random.default_rng(3)
+    t, az, y = hand_read(rng, marks=8)
+    path = write_run(tmp_path / "eight.h5", t, az, y, epoch="2027-02-03T22:00:00Z")
+    from fringe.errors import FitError
+
+    with pytest.raises(FitError, match=r"none of the 6 blocks defines a 2 theta pair.*at least "
+                                       r"12 valid samples.*no block gives C and B"):
+        fit(path, FitSettings(theory="medium"))
+    # with min_samples lowered to the 8 readings the turns are fitted (2 dof each)
+    with pytest.warns(DegeneracyWarning, match="sidereal phase"):
+        res = fit(path, FitSettings(theory="medium", lab_b0=False), DemodSettings(min_samples=8))
+    assert res.stage1.n_accepted == 6
