@@ -337,5 +337,5 @@ def check_coverage(motion: Motion, t_s: NDArray, azimuth_rad: NDArray,
             f"{source}: samples/azimuth: the table rests at {distinct.size} distinct angle(s) "
             f"theta = {shown} deg, which leave a gap of {gap2:.3g} deg in 2 theta (at most "
             f"DemodSettings.max_2theta_gap_deg = {gap_max:g} allowed) and need at least {need} "
-            "for the block model: the marks cannot separate C from B (e.g. steps of 90 deg give the same "
-            "sin 2 theta at every mark)")
+            "for the block model: the marks cannot separate C from B (e.g. steps of 90 deg "
+            "give the same sin 2 theta at every mark)")
