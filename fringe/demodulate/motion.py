@@ -5,7 +5,8 @@
 
 * **at rest** -- a sample whose azimuth is within ``rest_tolerance_deg`` of the previous or the
   next sample's (:func:`moving_mask`); a record with at least STEPPED_REST_FRACTION of its
-  sample intervals at rest is **stepped** (positions with dwell);
+  sample intervals at rest, at three or more rest positions, is **stepped** (positions with
+  dwell);
 * **reversal** -- after moving one way the table has come back by more than
   REVERSAL_HYSTERESIS_DEG from its farthest angle; the sample at that extreme ends the leg.
   A record with reversals whose legs (median) cover at least FULL_LEG_TURNS of a turn is
@@ -250,7 +251,9 @@ def detect_motion(t_s: NDArray, azimuth_rad: NDArray, settings: DemodSettings,
         raise FitError(f"{source}: samples/azimuth: the table travels less than half a turn in "
                        f"the first {t.size} samples; cannot demodulate a non-rotating record")
     rest_fraction = float(np.mean(np.abs(d) <= math.radians(settings.rest_tolerance_deg)))
-    stepped = rest_fraction >= STEPPED_REST_FRACTION
+    tol = math.radians(settings.rest_tolerance_deg)
+    # stepped: rests at three or more positions (a table idle at one angle is not stepped)
+    stepped = rest_fraction >= STEPPED_REST_FRACTION and _rest_positions(theta, tol).size >= 3
     n_rev, legs = _legs(theta, t, 10.0 * float(np.median(dt)))
     reverses = n_rev > 0
     sense = "alternating" if reverses else ("ccw" if np.sum(d[long]) > 0 else "cw")

@@ -224,3 +224,11 @@ def test_stepped_table_that_reverses_is_cut_into_legs(tmp_path):
         c, bb = lstsq_amplitudes(t[lo:hi][keep], az[lo:hi][keep], y[lo:hi][keep])
         assert table.C[b] == pytest.approx(c, abs=1e-12)
         assert table.B[b] == pytest.approx(bb, abs=1e-12)
+
+
+def test_a_table_idle_at_one_angle_is_not_stepped():
+    # 1500 s at rest, then continuous turns: one rest position, so not a stepped table
+    t = np.arange(4000.0)
+    az = np.where(t < 1500, 0.0, ContinuousRotation(45.0).azimuth_rad(t - 1500))
+    m = detect_motion(t, az, DemodSettings())
+    assert m.kind == "continuous" and m.excluded_samples_rule == ""
