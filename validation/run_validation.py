@@ -149,7 +149,21 @@ CONFIGS = {c.name: c for c in (
     Config("sme-short-turns", "(h) SME ke_*, white FM, 20 s turns (20 samples, 14 dof per turn)",
            "coverage", "sme", KE, {n: (0.0, 4e-17, U) for n in KE},
            doc={"turntable": {"period_s": 20.0}}),
-    Config("two-device", "(i) SME ke_*, counter (overlapping 2 s gates, stamped at the end) + "
+    Config("stepped", "(i) SME ke_*, white FM, stepped table (16 marks, 8 s dwell + 2 s move), "
+           "0.5 d", "coverage", "sme", KE, {n: (0.0, 4e-17, U) for n in KE},
+           doc={"campaign": {"duration_days": 0.5},
+                "turntable": {"motion": "stepped", "step_deg": 22.5, "dwell_s": 8.0,
+                              "move_s": 2.0}}, n_default=200),
+    Config("reversing", "(j) SME ke_*, white FM, reversing table (alternate 60 s turns), 0.5 d",
+           "coverage", "sme", KE, {n: (0.0, 4e-17, U) for n in KE},
+           doc={"campaign": {"duration_days": 0.5},
+                "turntable": {"motion": "reversing", "period_s": 60.0}}, n_default=200),
+    Config("swinging", "(k) SME ke_*, white FM, swinging table (300° sweeps of 50 s), 0.5 d",
+           "coverage", "sme", KE, {n: (0.0, 4e-17, U) for n in KE},
+           doc={"campaign": {"duration_days": 0.5},
+                "turntable": {"motion": "swinging", "arc_deg": 300.0, "sweep_s": 50.0}},
+           n_default=200),
+    Config("two-device", "(l) SME ke_*, counter (overlapping 2 s gates, stamped at the end) + "
            "encoder (own clock and rate), 30 s turns, 0.5 d, two-device import",
            "coverage", "sme", KE, {n: (0.0, 1e-16, U) for n in KE}, n_default=200,
            pipeline="two-device"),
@@ -194,7 +208,9 @@ def draw_truth(cfg: Config, rng: np.random.Generator) -> dict:
 def scenario_doc(cfg: Config, truth: dict, days: float | None = None) -> dict:
     doc = copy.deepcopy(BASE_DOC)
     for section, value in cfg.doc.items():
-        if section in ("campaign", "turntable"):
+        if section == "turntable" and "motion" in value:     # another motion: its own fields
+            doc[section] = copy.deepcopy(value)
+        elif section in ("campaign", "turntable"):
             if "duration_s" in value:
                 doc[section].pop("duration_days", None)
             doc[section].update(value)

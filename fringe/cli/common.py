@@ -28,6 +28,7 @@ OPTION_SPELLING = (
     ("FitSettings.bootstrap_days", "--bootstrap-days"),
     ("FitSettings.lab_c0", "--lab-c0"),
     ("FitSettings.regress", "--regress"),
+    ("DemodSettings.min_samples", "--min-samples"),
     ("Scenario.with_coefficients", "--set"),
     ("plan_settings(free=...)", "--free"),
     ("engine='dask'", "--engine dask"),

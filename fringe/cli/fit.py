@@ -32,6 +32,9 @@ def _names(text: str | None) -> tuple[str, ...] | None:
               default="linear", show_default=True, help="Per-turn drift polynomial.")
 @click.option("--max-harmonic", type=click.IntRange(2, 4), default=2, show_default=True,
               help="Highest harmonic of the table angle in the per-turn model.")
+@click.option("--min-samples", type=click.IntRange(3), default=12, show_default=True,
+              help="Least number of valid samples of an accepted turn (e.g. 8 for a record "
+                   "read at 8 marks per turn).")
 @click.option("--regress", multiple=True, metavar="CHANNEL",
               help="Regress out the 2-theta part of an auxiliary channel (repeatable).")
 @click.option("--no-lab-b0", is_flag=True, help="Do not fit a constant B offset.")
@@ -49,8 +52,8 @@ def _names(text: str | None) -> tuple[str, ...] | None:
 @click.option("--overwrite", is_flag=True, help="Replace existing outputs.")
 @run_guarded
 def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days, drift,
-            max_harmonic, regress, no_lab_b0, lab_c0, cross_check, engine, scratch_dir, scheduler,
-            dut1_s, overwrite):
+            max_harmonic, min_samples, regress, no_lab_b0, lab_c0, cross_check, engine,
+            scratch_dir, scheduler, dut1_s, overwrite):
     """Fit RUN_FILE: per-turn demodulation, sidereal harmonics, coefficients with sigma."""
     from fringe.demodulate.settings import DemodSettings
     from fringe.experiment.scenario import parse_assignments
@@ -68,7 +71,7 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
                            fixed=parse_assignments(fixes, "--fix"), uncertainty=uncertainty,
                            bootstrap_days=bootstrap_days, lab_b0=not no_lab_b0, lab_c0=lab_c0,
                            regress=tuple(regress))
-    demod = DemodSettings(drift=drift, max_harmonic=max_harmonic)
+    demod = DemodSettings(drift=drift, max_harmonic=max_harmonic, min_samples=min_samples)
     with open_run(run_file, check_values=False) as run:
         n = run.n_samples
     with progress(n, "fit") as bar, warnings_once() as fitted:

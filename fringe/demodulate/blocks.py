@@ -1,8 +1,9 @@
 """Stage 1: per-turn demodulation of a rotating-apparatus record.
 
 The record is cut into turns (blocks) at the instants the turntable angle theta = pi - A (C7)
-passes its starting value, and at every time gap longer than ``max_gap_s``. Each block is fitted
-by linear least squares with
+passes its starting value, and at every time gap longer than ``max_gap_s`` (a table turning one
+way; a table that reverses is cut into legs, and a stepped table's samples while moving are left
+out, :mod:`fringe.demodulate.motion`). Each block is fitted by linear least squares with
 
     y(t) = a0 + a1 tau [+ a2 tau^2] + c1 cos theta + s1 sin theta + C cos 2 theta + B sin 2 theta
            [+ 3 theta, 4 theta terms],      tau = (t - t_mid)/(half span of the block),
@@ -22,7 +23,9 @@ signal, see :func:`fringe.fit.turn_model`).
 Rejection rules, counted in :class:`TurnTable`:
 
 * **partial**: fewer than ``min_samples`` valid samples, an angular gap (largest gap in
-  theta mod 2 pi among the valid samples) above ``max_angle_gap_deg``, or a singular
+  theta mod 2 pi among the valid samples) above ``max_angle_gap_deg`` (for swinging and
+  stepped motions: the largest gap in 2 theta mod 2 pi above ``max_2theta_gap_deg``, see
+  :mod:`fringe.demodulate.motion`), or a singular
   block (the rank guard of :mod:`fringe.demodulate.kernel`);
 * **glitch**: residual RMS above median + ``glitch_threshold`` x 1.4826 x MAD of the residual
   RMS over all otherwise-good blocks (applied once the whole record is demodulated).
@@ -62,8 +65,8 @@ def turn_boundaries(theta_rad: NDArray, theta0_rad: float, t_s: NDArray, max_gap
 
 def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_starts: NDArray,
                       settings: DemodSettings, aux: dict[str, NDArray] | None = None, *,
-                      weight: NDArray | None = None, gate: tuple[float, str] | None = None
-                      ) -> TurnTable:
+                      weight: NDArray | None = None, gate: tuple[float, str] | None = None,
+                      gap_harmonic: int = 1) -> TurnTable:
     """Fit every block of a contiguous sample range (compiled kernel, module docstring).
 
     Parameters
@@ -82,6 +85,11 @@ def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_star
         The counter's gate (``samples/signal.gate_s`` and ``gate_kind``): the signal's m theta
         amplitudes are divided by the gate factor (:mod:`fringe.demodulate.gate`); auxiliary
         channels are not.
+    gap_harmonic : {1, 2}
+        The coverage check: 1, the largest gap in theta must not exceed
+        ``settings.max_angle_gap_deg`` (whole-turn motions); 2, the largest gap in 2 theta must
+        not exceed ``settings.max_2theta_gap_deg`` (swinging and stepped motions,
+        :mod:`fringe.demodulate.motion`).
     """
     aux = aux or {}
     names = list(aux)
@@ -96,8 +104,10 @@ def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_star
         DRIFT_TERMS[settings.drift], settings.max_harmonic,
         np.array([LEAK_KIND_CODES[k] for k, _ in kinds], np.int64),
         np.array([j for _, j in kinds], np.int64), settings.min_samples,
-        np.radians(settings.max_angle_gap_deg),
-        np.ones(n) if weight is None else np.ascontiguousarray(weight, float))
+        np.radians(settings.max_angle_gap_deg if gap_harmonic == 1
+                   else settings.max_2theta_gap_deg),
+        np.ones(n) if weight is None else np.ascontiguousarray(weight, float),
+        int(gap_harmonic))
     if gate is not None:
         starts = np.asarray(block_starts, np.int64)
         correct_blocks(coef, ninv_2, leak, block_rates(np.asarray(t_s, float), theta, starts),

@@ -13,15 +13,23 @@ from __future__ import annotations
 import logging
 import os
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
 from fringe.demodulate.blocks import demodulate_blocks, turn_boundaries
+from fringe.demodulate.motion import (
+    LegCutter,
+    check_coverage,
+    detect_motion,
+    gap_harmonic,
+    moving_mask,
+)
 from fringe.demodulate.settings import DemodSettings, leak_terms
 from fringe.demodulate.turn_store import Scratch, SpillingTurnBuilder, TurnStore
 from fringe.demodulate.turns import TurnTable
-from fringe.errors import ConfigError, FitError, InputFileError
+from fringe.errors import ConfigError, InputFileError
+from fringe.io.fit_sections import Motion
 from fringe.io.runreader import open_run
 
 logger = logging.getLogger(__name__)
@@ -53,12 +61,27 @@ class RecordInfo:
     gate: tuple[float, str] | None = None
     #: The record has a samples/weight channel (format version 2).
     weighted: bool = False
+    motion: Motion | None = None
+    #: first sample of every block (the leg rule of motions that reverse), else None; left out
+    #: of ==, which compares the scalar description (the starts follow from it and the file)
+    block_starts: np.ndarray | None = field(default=None, compare=False)
+    rest_tolerance_deg: float = 1e-3
 
     @property
     def channels(self) -> tuple[str, ...]:
         """The channels stage 1 reads: time, azimuth, signal, [weight,] the auxiliary ones."""
         return ("time", "azimuth", "signal") + (("weight",) if self.weighted else ()) \
             + self.aux_channels
+
+    @property
+    def excludes_moving(self) -> bool:
+        """True when samples not at rest are left out of the block fits (stepped motion)."""
+        return self.motion is not None and self.motion.kind == "stepped"
+
+    @property
+    def gap_harmonic(self) -> int:
+        """The coverage check of the blocks (:func:`fringe.demodulate.motion.gap_harmonic`)."""
+        return 1 if self.motion is None else gap_harmonic(self.motion)
 
     @property
     def lookahead_samples(self) -> int:
@@ -72,7 +95,12 @@ class RecordInfo:
 
 def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = ()
            ) -> RecordInfo:
-    """Reference angle, turn period and gap threshold from the start of the record."""
+    """Motion, reference angle, turn period and gap threshold from the start of the record.
+
+    The motion is detected from the first samples (:func:`fringe.demodulate.motion
+    .detect_motion`); for a motion that reverses, the blocks of the whole record are cut here
+    (the leg rule, one streamed pass over time and azimuth).
+    """
     with open_run(path, check_values=False) as run:      # each range checks what it reads
         n = run.n_samples
         first = next(run.iter_chunks(min(n, 1 << 16), ("time", "azimuth"), copy=True))
@@ -81,26 +109,30 @@ def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = (
                 raise ConfigError(f"{path}: samples/{name}: no such auxiliary channel "
                                   f"(have {', '.join(run.aux_channels) or 'none'})")
         attrs, weighted = run.signal_attrs, run.weighted
+        t, az = first["time"], first["azimuth"]
+        motion = detect_motion(t, az, settings, source=str(path))
+        check_coverage(motion, t, az, settings, source=str(path))
+        period = motion.turn_period_s
+        max_gap = settings.max_gap_s if settings.max_gap_s is not None else 0.25 * period
+        starts = _leg_block_starts(run, max_gap) if motion.reverses else None
     gate = (attrs["gate_s"], attrs["gate_kind"]) if "gate_s" in attrs else None
-    t, az = first["time"], first["azimuth"]
     theta = np.unwrap(np.pi - az)
-    span_t = t[-1] - t[0]
-    span_theta = abs(theta[-1] - theta[0])
-    if span_t <= 0 or span_theta < np.pi:
-        raise FitError(f"{path}: samples/azimuth: the table turns less than half a turn in the "
-                       f"first {t.size} samples; cannot demodulate a non-rotating record")
     dt = np.diff(t)
-    rate = np.median(np.abs(np.diff(theta))[dt > 0] / dt[dt > 0])   # robust to long gaps
-    period = 2 * np.pi / rate if rate > 0 else np.inf
-    if not np.isfinite(period):
-        raise FitError(f"{path}: samples/azimuth: cannot estimate the turn period from the "
-                       "first samples")
-    max_gap = settings.max_gap_s if settings.max_gap_s is not None else 0.25 * period
     return RecordInfo(path=str(path), n_samples=n, theta0_rad=float(theta[0] % (2 * np.pi)),
                       turn_period_s=float(period), max_gap_s=float(max_gap),
                       aux_channels=tuple(aux_channels),
                       samples_per_turn=float(period / max(float(np.median(dt)), 1e-9)),
-                      gate=gate, weighted=weighted)
+                      gate=gate, weighted=weighted,
+                      motion=motion, block_starts=starts,
+                      rest_tolerance_deg=settings.rest_tolerance_deg)
+
+
+def _leg_block_starts(run, max_gap_s: float) -> np.ndarray:
+    """The leg rule's block starts over the whole record, streamed chunk by chunk."""
+    cutter = LegCutter(max_gap_s)
+    parts = [cutter.feed(ch["time"], ch["azimuth"])
+             for ch in run.iter_chunks(channels=("time", "azimuth"))]
+    return np.concatenate(parts) if parts else np.zeros(1, np.int64)
 
 
 def _read(run, start: int, stop: int, channels) -> dict:
@@ -121,17 +153,62 @@ def range_samples_and_blocks(info: RecordInfo, start: int, stop: int, run=None
     ``run`` is an open :class:`~fringe.io.runreader.RunFile` of ``info.path`` to read from (it
     may be shared between threads: h5py serialises its calls); None opens the file here.
     Returns (channel -> array, block start indices into those arrays), or None when no block
-    starts in the range.
+    starts in the range. For a stepped motion the channels include ``moving``, True for the
+    samples not at rest (:func:`fringe.demodulate.motion.moving_mask`, with the neighbours
+    outside the range), which the block fits leave out.
     """
     if run is None:
         with open_run(info.path, check_values=False) as own:
             return range_samples_and_blocks(info, start, stop, own)
     channels = info.channels
+    if info.block_starts is not None:
+        got = _listed_blocks(info, start, stop, run, channels)
+    else:
+        got = _crossing_blocks(info, start, stop, run, channels)
+    if got is None:
+        return None
+    data, starts, before, after = got
+    if info.excludes_moving:
+        data["moving"] = moving_mask(data["azimuth"], np.radians(
+            info.rest_tolerance_deg), before, after)
+    return data, starts
+
+
+def _listed_blocks(info: RecordInfo, start: int, stop: int, run, channels):
+    """Samples of the listed blocks (``info.block_starts``) that start in [start, stop)."""
+    bs, n = info.block_starts, info.n_samples
+    i0, i1 = np.searchsorted(bs, [start, stop], side="left")
+    if i0 == i1:
+        return None
+    first = int(bs[i0])
+    end = int(bs[i1]) if i1 < bs.size else n
+    longest = max(MAX_BLOCK_SAMPLES, 64 * info.lookahead_samples)
+    if end - first > (i1 - i0) * longest:
+        raise InputFileError(info.path, "samples/azimuth",
+                             f"blocks within {longest} samples; from sample {first} the table "
+                             "neither reverses nor completes a turn (stopped turning?): cut the "
+                             "record there or split it")
+    lo, hi = max(first - 1, 0), min(end + 1, n)
+    data = _read(run, lo, hi, channels)
+    az = data["azimuth"]
+    before = float(az[0]) if first > 0 else None
+    after = float(az[-1]) if end < n else None
+    data = {c: v[first - lo:end - lo] for c, v in data.items()}
+    return data, (bs[i0:i1] - first).astype(np.int64), before, after
+
+
+def _crossing_blocks(info: RecordInfo, start: int, stop: int, run, channels):
+    """Samples of the blocks of the crossing rule that start in [start, stop).
+
+    Read ahead to complete the last one; also the azimuths of the samples just before and after
+    them.
+    """
     n = info.n_samples
     pos = min(stop + info.lookahead_samples, n)
     lo = max(start - 1, 0)
     data = _read(run, lo, pos, channels)
     t, th = data["time"], np.pi - data["azimuth"]
+    az_lo = float(data["azimuth"][0]) if start > 0 else None
     if start > 0:
         bnd = turn_boundaries(th[1:], info.theta0_rad, t[1:], info.max_gap_s,
                               theta_prev=th[0], t_prev=t[0])
@@ -166,7 +243,10 @@ def range_samples_and_blocks(info: RecordInfo, start: int, stop: int, run=None
         data = {c: np.concatenate([p[c] for p in parts]) for c in channels}
     end = int(after[0]) if after.size else length
     first = int(inside[0])
-    return {c: v[first:end] for c, v in data.items()}, inside - first
+    az = data["azimuth"]
+    before = float(az[first - 1]) if first > 0 else az_lo
+    beyond = float(az[end]) if end < length else None
+    return {c: v[first:end] for c, v in data.items()}, inside - first, before, beyond
 
 
 def demodulate_range(info: RecordInfo, settings: DemodSettings, start: int, stop: int,
@@ -180,9 +260,13 @@ def demodulate_range(info: RecordInfo, settings: DemodSettings, start: int, stop
     if got is None:
         return _empty(settings, info)
     data, block_starts = got
-    return demodulate_blocks(data["time"], data["azimuth"], data["signal"], block_starts,
-                             settings, aux={c: data[c] for c in info.aux_channels},
-                             weight=data.get("weight"), gate=info.gate)
+    y = data["signal"]
+    aux = {c: data[c] for c in info.aux_channels}
+    if "moving" in data:                          # stepped: samples while moving left out
+        y = np.where(data["moving"], np.nan, y)
+    return demodulate_blocks(data["time"], data["azimuth"], y, block_starts, settings,
+                             aux=aux, weight=data.get("weight"), gate=info.gate,
+                             gap_harmonic=info.gap_harmonic)
 
 
 def _empty(settings: DemodSettings, info: RecordInfo) -> TurnTable:

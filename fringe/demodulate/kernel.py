@@ -145,7 +145,8 @@ def _largest_angle_gap(psi):
 # bit-identical numbers.
 @njit(cache=True, nogil=True)
 def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
-               max_harmonic, leak_kind, leak_power, min_samples, max_gap_rad, w):
+               max_harmonic, leak_kind, leak_power, min_samples, max_gap_rad, w,
+               gap_harmonic=1):
     """Fit every block of a range (see the module docstring).
 
     Parameters
@@ -172,6 +173,9 @@ def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
     w : (n,) float64
         Sample weights (> 0; NaN = missing), 1 for an unweighted record: each sample's design
         row and values are multiplied by sqrt(w), so ``rms`` is the noise of unit weight.
+    gap_harmonic : int
+        The gap is taken in ``gap_harmonic`` x theta (mod 2 pi): 1 for the table angle, 2 for
+        the coverage of 2 theta.
 
     Returns
     -------
@@ -230,7 +234,7 @@ def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
             for k in range(n_aux):
                 good = good and np.isfinite(aux[i, k])
             if good:
-                psi[cnt] = _mod_2pi(theta[i])
+                psi[cnt] = _mod_2pi(gap_harmonic * theta[i])
                 cnt += 1
                 tsum += t[i]
                 lo = min(lo, t[i])

@@ -2,10 +2,12 @@
 
 :func:`inspect_run` streams the record once for the sample statistics (span, rate, gaps, NaNs),
 runs stage 1 (:func:`fringe.demodulate.engine.run_stage1`) for the turns (count, period, rate
-stability, glitches), and computes, on the first ``max_spectral_samples`` samples laid on a
-regular grid (missing samples NaN), the overlapping Allan deviation of the fractional signal and
-its amplitude spectrum around twice the rotation frequency, where the sidereal sidebands
-2 f_R +- f_sid, 2 f_R +- 2 f_sid are marked.
+stability, glitches), states the turntable motion found in the azimuth with its block rule and
+the samples left out (:mod:`fringe.demodulate.motion`), lists the per-session 2 theta
+amplitudes with the chi^2 of their agreement (:mod:`fringe.demodulate.sessions`), and computes,
+on the first ``max_spectral_samples`` samples laid on a regular grid (missing samples NaN), the
+overlapping Allan deviation of the fractional signal and its amplitude spectrum around twice the
+rotation frequency, where the sidereal sidebands 2 f_R +- f_sid, 2 f_R +- 2 f_sid are marked.
 """
 
 from __future__ import annotations
@@ -16,7 +18,13 @@ import numpy as np
 
 from fringe.constants import STELLAR_DAY_S
 from fringe.demodulate.engine import run_stage1
+from fringe.demodulate.motion import moving_mask
+from fringe.demodulate.sessions import MIN_SIDEREAL_PHASES, SessionBuilder
 from fringe.demodulate.settings import DemodSettings
+from fringe.frames import Epoch, sidereal_angle_rad
+from fringe.io.fit_result import session_lines
+from fringe.io.fit_sections import Motion, Sessions
+from fringe.io.records import plain
 from fringe.io.runreader import open_run
 from fringe.noise.allan import AllanResult, overlapping_adev
 
@@ -33,6 +41,8 @@ class InspectReport:
     spectrum_f_hz: np.ndarray
     spectrum_amp: np.ndarray
     lines_hz: dict
+    motion: Motion | None = None
+    sessions: Sessions | None = None
 
     def summary(self) -> str:
         """The report as plain text lines.
@@ -55,8 +65,19 @@ class InspectReport:
                  f"turns: {s['n_turns']} (period {s['turn_period_s']:.6g} s, turn-to-turn "
                  f"period scatter {s['turn_duration_rel_std']:.2e} relative rms); accepted "
                  f"{s['n_accepted']}, glitch {s['n_glitch']}, partial {s['n_partial']}",
-                 f"per-turn residual rms (median): {s['residual_rms']:.3g} {m['signal_units']}",
-                 "Allan deviation of the fractional signal:"]
+                 f"per-turn residual rms (median): {s['residual_rms']:.3g} {m['signal_units']}"]
+        if self.motion is not None:
+            lines += [f"motion: {self.motion.describe()}", f"  a block is {self.motion.block_rule}"]
+            if self.motion.excluded_samples_rule:
+                lines.append(f"  left out: {self.motion.excluded_samples_rule} "
+                             f"({s.get('n_moving_excluded', 0)} samples)")
+        if self.sessions is not None:
+            lines += session_lines(self.sessions)
+            if self.sessions.n_sidereal_phases < MIN_SIDEREAL_PHASES:
+                lines.append(f"  fewer than {MIN_SIDEREAL_PHASES} distinct sidereal phases: "
+                             "fringe fit skips the sidereal stage; these amplitudes are the "
+                             "result")
+        lines.append("Allan deviation of the fractional signal:")
         for tau, dev in zip(self.allan.tau_s, self.allan.adev):
             if np.isfinite(dev):
                 lines.append(f"  tau {tau:10.4g} s  sigma_y {dev:.3e}")
@@ -67,8 +88,13 @@ class InspectReport:
 
         Plain JSON-ready types; the spectrum arrays are left out.
         """
-        return {"meta": self.meta, "stats": self.stats, "allan": self.allan.to_dict(),
-                "lines_hz": self.lines_hz}
+        out = {"meta": self.meta, "stats": self.stats, "allan": self.allan.to_dict(),
+               "lines_hz": self.lines_hz}
+        if self.motion is not None:
+            out["motion"] = self.motion.to_dict()
+        if self.sessions is not None:
+            out["sessions"] = plain(self.sessions.to_dict())     # NaN (one session) -> null
+        return out
 
 
 class _TurnClock:
@@ -109,6 +135,34 @@ class _TurnClock:
         return p
 
 
+class _RestCounter:
+    """Samples not at rest (:func:`fringe.demodulate.motion.moving_mask`), streamed.
+
+    Each chunk is judged when the next arrives, so its last sample sees its successor.
+    """
+
+    def __init__(self, tolerance_rad: float):
+        self.tol = tolerance_rad
+        self.prev = None          # azimuth of the sample before the held chunk
+        self.held = None
+        self.count = 0
+
+    def feed(self, azimuth_rad: np.ndarray) -> None:
+        if self.held is not None and azimuth_rad.size:
+            self._judge(float(azimuth_rad[0]))
+        self.held = np.array(azimuth_rad, float)
+
+    def _judge(self, next_rad) -> None:
+        self.count += int(np.sum(moving_mask(self.held, self.tol, self.prev, next_rad)))
+        self.prev = float(self.held[-1]) if self.held.size else self.prev
+
+    def finish(self) -> int:
+        if self.held is not None:
+            self._judge(None)
+            self.held = None
+        return self.count
+
+
 def _fractional_scale(meta: dict) -> float:
     if meta["signal_units"] == "Hz" and meta["apparatus"].get("carrier_hz"):
         return 1.0 / float(meta["apparatus"]["carrier_hz"])
@@ -128,9 +182,11 @@ def inspect_run(path: str, demod: DemodSettings | None = None,
         head_t, head_y = [], []
         kept = 0
         clock = _TurnClock()
+        rest = _RestCounter(np.radians(demod.rest_tolerance_deg))
         for ch in run.iter_chunks(channels=("time", "signal", "azimuth")):
             t, y = ch["time"], ch["signal"]
             clock.feed(t, ch["azimuth"])
+            rest.feed(ch["azimuth"])
             n_nan += int(np.sum(~np.isfinite(y)))
             d = np.diff(t) if last_t is None else np.diff(np.concatenate([[last_t], t]))
             dts.append(d[: 10000])
@@ -147,6 +203,13 @@ def inspect_run(path: str, demod: DemodSettings | None = None,
     table, info = run_stage1(path, demod)
     ok = table.accepted
     dur = clock.periods()
+    if info.motion is not None and info.motion.reverses:     # legs: block durations instead
+        dur = (table.t_stop_s - table.t_start_s)[ok]
+    epoch = Epoch(meta["epoch_utc"])
+    lon = np.radians(meta["site"]["longitude_deg"])
+    sessions = SessionBuilder(lambda tt: sidereal_angle_rad(epoch, tt, lon),
+                              meta["signal_units"])
+    sessions.add(table)
     stats = {"n_samples": meta["n_samples"], "span_s": meta["time_last_s"] - meta["time_first_s"],
              "sample_interval_s": tau0, "n_gaps": int(big.size),
              "gap_total_s": float(np.sum(big - tau0)),
@@ -156,7 +219,8 @@ def inspect_run(path: str, demod: DemodSettings | None = None,
              "turn_duration_rel_std": float(np.std(dur) / np.mean(dur)) if dur.size > 1 else 0.0,
              "n_accepted": int(np.sum(ok)), "n_glitch": int(np.sum(table.status == 2)),
              "n_partial": int(np.sum(table.status == 1)),
-             "residual_rms": float(np.median(table.residual_rms[ok])) if np.any(ok) else np.nan}
+             "residual_rms": float(np.median(table.residual_rms[ok])) if np.any(ok) else np.nan,
+             "n_moving_excluded": rest.finish() if info.excludes_moving else 0}
     # regular grid of the head of the record
     t = np.concatenate(head_t)
     y = np.concatenate(head_y) * _fractional_scale(meta)
@@ -187,4 +251,5 @@ def inspect_run(path: str, demod: DemodSettings | None = None,
     if np.sum(band) < 16:
         band = (f > 1.5 * f_r) & (f < 2.5 * f_r)
     return InspectReport(meta=meta, stats=stats, allan=allan, spectrum_f_hz=f[band],
-                         spectrum_amp=amp[band], lines_hz=lines)
+                         spectrum_amp=amp[band], lines_hz=lines, motion=info.motion,
+                         sessions=sessions.finish() if np.any(ok) else None)

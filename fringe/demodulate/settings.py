@@ -29,7 +29,16 @@ class DemodSettings:
     max_harmonic : int
         Highest harmonic of theta in the block model (2, 3 or 4); 1 theta is always included.
     max_angle_gap_deg : float
-        Largest allowed gap in turntable angle within a block, degrees.
+        Largest allowed gap in turntable angle within a block of a motion that covers whole
+        turns (continuous, reversing), degrees.
+    max_2theta_gap_deg : float
+        Largest allowed gap in 2 theta (twice the table angle, mod 360 degrees) among the valid
+        samples of a block of a swinging or stepped motion, degrees: the coverage that defines
+        the 2 theta pair (C, B) of a sweep or of a cycle of marks (``docs/fit.md``).
+    rest_tolerance_deg : float
+        A sample is at rest when its azimuth is within this of the previous or the next
+        sample's, degrees (motion detection; a stepped table's samples while moving, i.e. not
+        at rest, are left out of the block fits).
     min_samples : int
         Least number of valid samples in a block.
     max_gap_s : float or None
@@ -46,6 +55,8 @@ class DemodSettings:
     min_samples: int = 12
     max_gap_s: float | None = None
     glitch_threshold: float = 5.0
+    max_2theta_gap_deg: float = 120.0
+    rest_tolerance_deg: float = 1e-3
 
     def __post_init__(self):
         if self.drift not in DRIFT_TERMS:
@@ -56,6 +67,10 @@ class DemodSettings:
                               f"got {self.max_harmonic!r}")
         if not 0 < self.max_angle_gap_deg <= 360:
             raise ConfigError("demodulation: max_angle_gap_deg: expected a value in (0, 360]")
+        if not 0 < self.max_2theta_gap_deg < 180:
+            raise ConfigError("demodulation: max_2theta_gap_deg: expected a value in (0, 180)")
+        if not 0 <= self.rest_tolerance_deg < 1:
+            raise ConfigError("demodulation: rest_tolerance_deg: expected a value in [0, 1)")
         if self.glitch_threshold <= 0:
             raise ConfigError("demodulation: glitch_threshold: expected a positive number")
 

@@ -10,8 +10,8 @@ Layer 3 of the data path. Which function for which job:
 * :func:`harmonic_table` gives the sidereal and annual harmonics of each coefficient's signal;
   :func:`predict` the whole prediction of a scenario.
 * Turntable motions: :class:`ContinuousRotation`, :class:`SteppedRotation`,
-  :class:`RecordedAzimuth`, with an optional :class:`AxisTilt`; :func:`make_motion` builds one
-  from a scenario section.
+  :class:`ReversingRotation`, :class:`SwingingRotation`, :class:`RecordedAzimuth`, with an
+  optional :class:`AxisTilt`; :func:`make_motion` builds one from a scenario section.
 """
 
 from fringe.experiment.apparatus import (
@@ -36,13 +36,16 @@ from fringe.experiment.turntable import (
     AxisTilt,
     ContinuousRotation,
     RecordedAzimuth,
+    ReversingRotation,
     SteppedRotation,
+    SwingingRotation,
     make_motion,
 )
 
 __all__ = ["APPARATUS_KINDS", "Apparatus", "AxisTilt", "CavityPair", "CavityVsReference",
            "ContinuousRotation", "HarmonicTable", "Michelson", "OrientedClock", "Prediction",
-           "RecordedAzimuth", "Scenario", "Setup", "SteppedRotation", "basis", "harmonic_table",
+           "RecordedAzimuth", "ReversingRotation", "Scenario", "Setup", "SteppedRotation",
+           "SwingingRotation", "basis", "harmonic_table",
            "harmonics_at", "iter_prediction_chunks", "load_scenario", "make_apparatus",
            "make_motion", "parse_assignments", "predict", "scenario_from_dict", "signal",
            "signal_map", "two_theta_amplitudes"]

@@ -2,6 +2,10 @@
 
 * :class:`ContinuousRotation` — uniform rotation at a period, in either sense.
 * :class:`SteppedRotation` — steps of a fixed angle, with dwell marks (the time at rest).
+* :class:`ReversingRotation` — uniform rotation whose sense reverses after every leg of whole
+  turns (alternate turns).
+* :class:`SwingingRotation` — back and forth through an arc of less than (or up to) a full turn
+  at a constant rate, reversing at each end.
 * :class:`RecordedAzimuth` — orientation taken from recorded azimuth samples.
 * :class:`AxisTilt` — a tilt of the rotation axis from local vertical.
 * :func:`table_to_lab` — the rotation from the table frame to the lab frame.
@@ -135,6 +139,122 @@ class SteppedRotation:
                 "start_azimuth_deg": self.start_azimuth_deg}
 
 
+def _triangle(t_s: ArrayLike, leg_s: float) -> NDArray:
+    """Fraction of the current leg travelled, folded so that odd legs run back.
+
+    A triangle wave in [0, 1] of period 2 leg_s (0 at t = 0).
+    """
+    u = np.asarray(t_s, float) / leg_s
+    k = np.floor(u)
+    frac = u - k
+    return np.where(k % 2 == 0, frac, 1.0 - frac)
+
+
+@dataclass(frozen=True)
+class ReversingRotation:
+    """Uniform rotation that reverses its sense after every ``turns_per_leg`` whole turns.
+
+    The table turns at a constant rate through ``turns_per_leg`` turns in ``sense``, reverses at
+    once and turns back through as many, so it passes its starting azimuth at every reversal
+    (alternate turns for ``turns_per_leg = 1``).
+
+    Parameters
+    ----------
+    period_s : float
+        Time for one full turn, s.
+    turns_per_leg : int
+        Whole turns between reversals (>= 1).
+    sense : {"ccw", "cw"}
+        Sense of the first leg, seen from above.
+    start_azimuth_deg : float
+        Azimuth of path 1 at t = 0, degrees.
+    """
+
+    period_s: float
+    turns_per_leg: int = 1
+    sense: str = "ccw"
+    start_azimuth_deg: float = 0.0
+
+    def __post_init__(self):
+        check_finite_number(self.period_s, "turntable", "period_s", positive=True)
+        check_finite_number(self.start_azimuth_deg, "turntable", "start_azimuth_deg")
+        if (isinstance(self.turns_per_leg, bool) or not isinstance(self.turns_per_leg, int)
+                or self.turns_per_leg < 1):
+            raise ConfigError(f"turntable: turns_per_leg: expected a whole number >= 1, "
+                              f"got {self.turns_per_leg!r}")
+        _check_sense(self.sense)
+
+    def azimuth_rad(self, t_s: ArrayLike) -> NDArray:
+        """Azimuth of path 1 at times ``t_s`` (s), radians (unwrapped)."""
+        leg_s = self.period_s * self.turns_per_leg
+        travel = 2.0 * math.pi * self.turns_per_leg * _triangle(t_s, leg_s)
+        return math.radians(self.start_azimuth_deg) - SENSES[self.sense] * travel
+
+    def dwelling(self, t_s: ArrayLike) -> NDArray:
+        """All False, shape of ``t_s``: the table never rests at a mark."""
+        return np.zeros(np.shape(t_s), dtype=bool)
+
+    def to_dict(self) -> dict:
+        """The motion as a scenario table (``motion = "reversing"`` plus its fields)."""
+        return {"motion": "reversing", "period_s": self.period_s,
+                "turns_per_leg": self.turns_per_leg, "sense": self.sense,
+                "start_azimuth_deg": self.start_azimuth_deg}
+
+
+@dataclass(frozen=True)
+class SwingingRotation:
+    """Back and forth through an arc of ``arc_deg`` at a constant rate.
+
+    The table sweeps from its start azimuth through ``arc_deg`` in ``sense`` in ``sweep_s``,
+    reverses at once and sweeps back, and so on (a triangle wave of the angle).
+
+    Parameters
+    ----------
+    arc_deg : float
+        Angle of one sweep, degrees (0 < arc_deg <= 360; at least 120 for a defined 2 theta pair
+        per sweep, see ``docs/fit.md``).
+    sweep_s : float
+        Time of one sweep, s.
+    sense : {"ccw", "cw"}
+        Sense of the first sweep, seen from above.
+    start_azimuth_deg : float
+        Azimuth of path 1 at t = 0 (one end of the arc), degrees.
+    """
+
+    arc_deg: float
+    sweep_s: float
+    sense: str = "ccw"
+    start_azimuth_deg: float = 0.0
+
+    def __post_init__(self):
+        check_finite_number(self.arc_deg, "turntable", "arc_deg", positive=True)
+        check_finite_number(self.sweep_s, "turntable", "sweep_s", positive=True)
+        check_finite_number(self.start_azimuth_deg, "turntable", "start_azimuth_deg")
+        if self.arc_deg > 360.0:
+            raise ConfigError(f"turntable: arc_deg: expected at most 360 (a swing of more than "
+                              f"a turn is motion = \"reversing\"), got {self.arc_deg!r}")
+        _check_sense(self.sense)
+
+    @property
+    def period_s(self) -> float:
+        """Time per full turn of travel at the sweep rate, s."""
+        return self.sweep_s * 360.0 / self.arc_deg
+
+    def azimuth_rad(self, t_s: ArrayLike) -> NDArray:
+        """Azimuth of path 1 at times ``t_s`` (s), radians (unwrapped)."""
+        travel = math.radians(self.arc_deg) * _triangle(t_s, self.sweep_s)
+        return math.radians(self.start_azimuth_deg) - SENSES[self.sense] * travel
+
+    def dwelling(self, t_s: ArrayLike) -> NDArray:
+        """All False, shape of ``t_s``: the table never rests at a mark."""
+        return np.zeros(np.shape(t_s), dtype=bool)
+
+    def to_dict(self) -> dict:
+        """The motion as a scenario table (``motion = "swinging"`` plus its fields)."""
+        return {"motion": "swinging", "arc_deg": self.arc_deg, "sweep_s": self.sweep_s,
+                "sense": self.sense, "start_azimuth_deg": self.start_azimuth_deg}
+
+
 @dataclass(frozen=True)
 class RecordedAzimuth:
     """Orientation from recorded samples (linear interpolation in unwrapped azimuth)."""
@@ -209,17 +329,21 @@ def table_to_lab(azimuth_rad: ArrayLike, tilt: AxisTilt | None = None) -> NDArra
     return q
 
 
+#: Registry of the scenario motions: ``motion = NAME`` -> class.
+MOTIONS = {"continuous": ContinuousRotation, "stepped": SteppedRotation,
+           "reversing": ReversingRotation, "swinging": SwingingRotation}
+
+
 def make_motion(spec: dict, source: str = "turntable"):
     """Build a turntable motion from a scenario table (``motion`` plus its fields)."""
     spec = dict(spec)
     motion = spec.pop("motion", "continuous")
     spec.pop("tilt_south_urad", None)
     spec.pop("tilt_east_urad", None)
-    classes = {"continuous": ContinuousRotation, "stepped": SteppedRotation}
-    if motion not in classes:
-        raise ConfigError(f"{source}: motion: expected 'continuous' or 'stepped', "
+    if motion not in MOTIONS:
+        raise ConfigError(f"{source}: motion: expected one of {', '.join(MOTIONS)}, "
                           f"got {motion!r}")
-    cls = classes[motion]
+    cls = MOTIONS[motion]
     reject_unknown_fields(spec, cls.__dataclass_fields__, f"{source}:",
                           f"not a field of {motion} motion")
     try:

@@ -42,3 +42,6 @@ class CoefficientFit:
     notes: list
     upper_limits: dict = field(default_factory=dict)
     derived: dict = field(default_factory=dict)     # plain JSON types (medium fit)
+    #: the per-session 2 theta amplitudes (fringe.io.fit_sections.Sessions), when stage 2 was
+    #: skipped for too few sidereal phases
+    sessions: object = None

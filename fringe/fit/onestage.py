@@ -119,6 +119,8 @@ def _range_sums(info: RecordInfo, demod: DemodSettings, setup: Setup, table: Tur
         return None
     data, block_starts = got
     t, az, y = data["time"], data["azimuth"], data["signal"]
+    if "moving" in data:                   # stepped: samples while moving left out, as stage 1
+        y = np.where(data["moving"], np.nan, y)
     n = t.size
     nb = block_starts.size
     bid = np.repeat(np.arange(nb), np.diff(np.append(block_starts, n)))

@@ -208,10 +208,12 @@ def _weights(cache_rows: dict) -> PairWeights:
 
 
 def run_passes(setup, store: TurnStore, settings, free: tuple[str, ...] | None,
-               scratch: Scratch | None = None) -> PassesResult:
+               scratch: Scratch | None = None, sidereal: bool = True) -> PassesResult:
     """The three passes (module docstring) for stage 2 and, with ``free``, stage 3.
 
-    ``free`` None: stage 2 only (the medium fit runs on the whole table instead).
+    ``free`` None: stage 2 only (the medium fit runs on the whole table instead). ``sidereal``
+    False skips stage 2 (too few sidereal phases, :mod:`fringe.demodulate.sessions`): the
+    harmonics are then None.
     """
     levels = segment_noise_levels(store.status, store.residual_rms, store.segment_turns)
     sigma_white = store.median_accepted_rms()
@@ -227,7 +229,7 @@ def run_passes(setup, store: TurnStore, settings, free: tuple[str, ...] | None,
         done += rows["c"].size
         del tab, level, rows           # not alive while the next segment is read
     n = done
-    x_h, inv_h = solve(*sums.harm.combine())
+    x_h, inv_h = solve(*sums.harm.combine()) if sidereal else (None, None)
     out = PassesResult(harmonics={}, n=n, cache=cache)
     parts = sums.parts
     if free is not None:
@@ -242,18 +244,15 @@ def run_passes(setup, store: TurnStore, settings, free: tuple[str, ...] | None,
         if "phi" not in r:
             continue
         w = _weights(r)
-        chi2_h += residual_chi2(_harmonic_rows(harmonic_basis(r["phi"]), r["c"], r["b"]),
-                                w, x_h)[0]
+        if sidereal:
+            chi2_h += residual_chi2(_harmonic_rows(harmonic_basis(r["phi"]), r["c"], r["b"]),
+                                    w, x_h)[0]
         if free is not None and settings.uncertainty != "formal":
             _, mc, mb = residual_chi2(_design_rows(r["jc"], r["jb"], r.get("c3", r["c"]),
                                                    r.get("b3", r["b"])), w, out.x)
             rc2, rb2 = rc2 + mc * w.size, rb2 + mb * w.size
         del r
-    red_h = chi2_h / max(2 * n - 10, 1)
-    cov_h = inv_h * max(red_h, 0.0)
-    out.harmonics = {"names": list(HARMONIC_NAMES), "value": x_h.tolist(),
-                     "sigma": np.sqrt(np.diag(cov_h)).tolist(), "covariance": cov_h.tolist(),
-                     "chi2_reduced": red_h}
+    out.harmonics = _harmonics(x_h, inv_h, chi2_h, n, settings) if sidereal else None
     if free is None:
         return out
     if settings.uncertainty != "formal":
@@ -293,6 +292,30 @@ def _coefficient_model(rows: dict, x: NDArray) -> tuple[NDArray, NDArray]:
     if "c3" in rows:                       # the fixed coefficients' model was subtracted
         pc, pb = pc + rows["c"] - rows["c3"], pb + rows["b"] - rows["b3"]
     return pc, pb
+
+
+def _harmonics(x_h, inv_h, chi2_h, n, settings) -> dict:
+    """The stage-2 harmonics, their covariance scaled by the reduced chi^2.
+
+    From fewer than SMALL_SAMPLE_DOF degrees of freedom the covariance is also widened by the
+    Student-t factor.
+    """
+    from fringe.demodulate.sessions import student_factor
+
+    dof = max(2 * n - 10, 1)
+    red_h = chi2_h / dof
+    cov_h = inv_h * max(red_h, 0.0)
+    if settings.uncertainty == "reduced-chi2" and dof < SMALL_SAMPLE_DOF:
+        cov_h = cov_h * student_factor(dof) ** 2
+    return {"names": list(HARMONIC_NAMES), "value": x_h.tolist(),
+            "sigma": np.sqrt(np.diag(cov_h)).tolist(), "covariance": cov_h.tolist(),
+            "chi2_reduced": red_h}
+
+
+#: Below this many residual degrees of freedom the scatter-scaled 1 sigma of stages 2 and 3 is
+#: widened by the Student-t factor (:func:`fringe.demodulate.sessions.student_factor`; at 100 dof
+#: the factor is 1.0050, left out above).
+SMALL_SAMPLE_DOF = 100
 
 
 class _Sums:

@@ -15,11 +15,11 @@ from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
-from fringe.demodulate.engine import stage1_store
+from fringe.demodulate.engine import RecordInfo, stage1_store
 from fringe.demodulate.gate import gate_factor
 from fringe.demodulate.settings import DemodSettings
-from fringe.demodulate.turn_store import Scratch
-from fringe.errors import ConfigError, SimulationWarning, TimeScaleWarning
+from fringe.demodulate.turn_store import Scratch, TurnStore
+from fringe.errors import ConfigError, FitError, SimulationWarning, TimeScaleWarning
 from fringe.experiment.apparatus import APPARATUS_KINDS, apparatus_fields, make_apparatus
 from fringe.experiment.basis import Setup
 from fringe.fit.settings import FitSettings
@@ -153,6 +153,8 @@ def _fit(path, setup, meta, settings, demod, engine, scheduler, progress, scratc
     store, info = stage1_store(path, demod, aux_channels=tuple(settings.regress),
                                engine=engine, scheduler=scheduler, progress=progress,
                                scratch=scratch)
+    if not np.any(store.accepted):
+        raise FitError(no_block_message(info, store, demod))
     span_s = float(meta["time_last_s"] - meta["time_first_s"])
     # the input's hash (provenance) is read on the second core while stages 2-3 run
     with ThreadPoolExecutor(max_workers=1) as pool:
@@ -202,6 +204,25 @@ def _calibration(meta: dict, info, coefficients) -> SignalCalibration | None:
     return SignalCalibration(**gate, **scale, weighted=weighted)
 
 
+def no_block_message(info: RecordInfo, store: TurnStore, demod: DemodSettings) -> str:
+    """The one-line error of a record whose every block was rejected, naming the coverage."""
+    motion = info.motion
+    counts = store.counts()
+    if motion is not None and info.gap_harmonic == 2:
+        need = (f"a largest gap in 2 theta of at most {demod.max_2theta_gap_deg:g} deg "
+                f"(DemodSettings.max_2theta_gap_deg) and at least {demod.min_samples} valid "
+                "samples (DemodSettings.min_samples)")
+    else:
+        need = (f"a largest gap in theta of at most {demod.max_angle_gap_deg:g} deg "
+                f"(DemodSettings.max_angle_gap_deg) and at least {demod.min_samples} valid "
+                "samples (DemodSettings.min_samples)")
+    what = motion.describe() if motion is not None else "the record"
+    return (f"{info.path}: samples/azimuth: none of the {counts['n_blocks']} blocks defines a "
+            f"2 theta pair: each needs {need} and a determined block fit (motion: {what}); "
+            "no block gives C and B (too few readings per block, or positions that cannot "
+            "separate C from B)")
+
+
 def _package(path, setup, meta, settings, demod, info, store, harm, res, span_s, input_sha256,
              engine, dut1_s, one_stage) -> FitResult:
     sig = np.sqrt(np.diag(res.cov))
@@ -213,9 +234,9 @@ def _package(path, setup, meta, settings, demod, info, store, harm, res, span_s,
                     white_noise_per_sample=rms_med, settings=demod.to_dict(), glitch_rule=(
                         f"residual RMS > median + {demod.glitch_threshold} x 1.4826 x MAD"))
     factor = setup.apparatus.two_path_factor(setup.units)
-    harmonics = Harmonics(harm["names"], harm["value"], harm["sigma"], harm["covariance"],
-                          harm["chi2_reduced"], setup.units,
-                          setup.apparatus.observable(setup.units), (factor.real, factor.imag))
+    harmonics = None if harm is None else Harmonics(
+        harm["names"], harm["value"], harm["sigma"], harm["covariance"], harm["chi2_reduced"],
+        setup.units, setup.apparatus.observable(setup.units), (factor.real, factor.imag))
     return FitResult(
         theory=setup.theory.name, units=setup.units,
         coefficients={n: Estimate(float(v), float(s))
@@ -233,4 +254,5 @@ def _package(path, setup, meta, settings, demod, info, store, harm, res, span_s,
         created_utc=datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
         nuisance={n: Estimate(e["value"], e["sigma"]) for n, e in res.nuisance.items()},
         notes=res.notes, upper_limits=res.upper_limits,
-        derived=Derived(**res.derived) if res.derived else None, one_stage=one_stage)
+        derived=Derived(**res.derived) if res.derived else None, one_stage=one_stage,
+        motion=info.motion, sessions=res.sessions)

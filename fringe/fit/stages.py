@@ -20,7 +20,16 @@
 
 Uncertainties: per-turn weights from the stage-1 formal covariance; the coefficient covariance
 is scaled by the reduced chi^2 (default, the observed scatter), or replaced by a block bootstrap
-over days of turns (correlated noise), or left formal. ``efficiency`` = white-noise Cramer-Rao
+over days of turns (correlated noise), or left formal. Scaled by the scatter of fewer than
+SMALL_SAMPLE_DOF residual degrees of freedom nu, the 1 sigma is widened by the Student-t
+factor of nu (a 68.27 % interval; noted in the result, warning ``small-sample``).
+
+Short records: there is no fixed least number of turns. When the accepted turns sit at fewer
+than MIN_SIDEREAL_PHASES distinct sidereal phases (:mod:`fringe.demodulate.sessions`), stage 2
+is skipped with the warning ``sidereal-phases-few`` and the per-session 2 theta amplitudes
+(``sessions`` of the result) are the result; stage 3 still runs where its design is determined
+(the medium fit, or a linear fit of few free coefficients) and stops with a one-line error
+where it is not. ``efficiency`` = white-noise Cramer-Rao
 sigma for this record (per-sample noise = median per-turn residual RMS) / reported sigma.
 
 The linear fits visit the turn table a segment at a time (:mod:`fringe.fit.passes`), so a
@@ -37,6 +46,11 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
+from fringe.demodulate.sessions import (
+    MIN_SIDEREAL_PHASES,
+    SessionBuilder,
+    student_factor,
+)
 from fringe.demodulate.turn_store import Scratch, TurnStore
 from fringe.demodulate.turns import TurnTable
 from fringe.errors import ConfigError, DegeneracyWarning, FitError, SystematicsWarning
@@ -44,13 +58,15 @@ from fringe.experiment.basis import Setup
 from fringe.fit.coefficient_fit import CoefficientFit
 from fringe.fit.medium import fit_medium
 from fringe.fit.passes import (
+    SMALL_SAMPLE_DOF,
     RowCache,
     design_labels,
     run_passes,
 )
 from fringe.fit.settings import FitSettings, default_free
 from fringe.fit.solver import bootstrap_cov
-from fringe.io.fit_sections import FitWarning
+from fringe.frames import sidereal_angle_rad
+from fringe.io.fit_sections import FitWarning, Sessions
 from fringe.linalg import correlation_from_covariance
 
 logger = logging.getLogger(__name__)
@@ -82,23 +98,26 @@ class TurnModels:
 
 
 def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSettings,
-                     free: tuple[str, ...], scratch: Scratch | None = None
-                     ) -> tuple[dict, CoefficientFit, RowCache]:
+                     free: tuple[str, ...], scratch: Scratch | None = None,
+                     sidereal: bool = True) -> tuple[dict | None, CoefficientFit, RowCache]:
     """Stages 2 and 3 for a linear theory (see module docstring) over the turn table.
 
-    The table is in memory, or a :class:`~fringe.demodulate.turn_store.TurnStore` read a
-    segment at a time. Returns the harmonics, the coefficients and the row cache that holds
-    each segment's fitted model (``model_c``, ``model_b``).
+    The table is in memory, or a :class:`~fringe.demodulate.turn_store.TurnStore` read a segment
+    at a time; returns the harmonics (None when ``sidereal`` is False), the coefficients and the
+    row cache that holds each segment's fitted model (``model_c``, ``model_b``).
     """
     store = table if isinstance(table, TurnStore) else TurnStore.in_memory(table)
     labels = design_labels(free, settings)
-    p = run_passes(setup, store, settings, free, scratch)
+    p = run_passes(setup, store, settings, free, scratch, sidereal=sidereal)
     n, kk, x, cov = p.n, len(labels), p.x, p.cov_formal
     dof = max(2 * n - kk, 1)
     red = p.chi2 / dof
     notes, warns = [], []
     if settings.uncertainty == "reduced-chi2":
         cov = cov * red
+        if dof < SMALL_SAMPLE_DOF:
+            warns.append(_small_sample(dof, setup.units))
+            cov = cov * student_factor(dof) ** 2
     elif settings.uncertainty == "bootstrap":
         if len(p.group_parts) < 5:
             raise FitError(f"FitSettings.uncertainty bootstrap: only {len(p.group_parts)} "
@@ -121,6 +140,53 @@ def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSe
                          chi2_reduced=red, dof=dof, efficiency=eff, model_c=None,
                          model_b=None, warnings=warns, notes=notes)
     return p.harmonics, res, p.cache
+
+
+def _small_sample(dof: int, units: str) -> FitWarning:
+    """The ``small-sample`` warning: 1 sigma widened by the Student-t factor of ``dof``."""
+    k = student_factor(dof)
+    return FitWarning("small-sample", f"the 1 sigma uncertainties rest on the scatter of only "
+                      f"{dof} degrees of freedom: widened by the Student-t factor {k:.4g} so "
+                      "that value ± sigma is a 68.27 % interval", {"dof": float(dof),
+                                                                   "t_factor": k})
+
+
+def _widen(res: CoefficientFit, units: str) -> None:
+    """Widen a nonlinear fit's 1 sigma by the Student-t factor of its dof (in place)."""
+    k = student_factor(res.dof)
+    res.cov = res.cov * k ** 2
+    for e in res.nuisance.values():
+        e["sigma"] *= k
+    w = _small_sample(res.dof, units)
+    if res.upper_limits:
+        w = FitWarning(w.code, w.sentence + " (the upper limits sample the covariance before "
+                       "this factor)", w.values)
+    res.warnings.append(w)
+
+
+def sessions_of(setup: Setup, store: TurnStore) -> Sessions:
+    """The per-session 2 theta amplitudes of the accepted turns, a segment at a time.
+
+    Built by :class:`fringe.demodulate.sessions.SessionBuilder`.
+    """
+    lon = setup.site.east_longitude_rad
+    builder = SessionBuilder(lambda t: sidereal_angle_rad(setup.epoch, t, lon), setup.units)
+    for _, seg in store.segments():
+        builder.add(seg)
+    return builder.finish()
+
+
+def _few_phases(sessions: Sessions) -> FitWarning:
+    n = sessions.n_sidereal_phases
+    msg = (f"the accepted turns sit at {n} distinct sidereal phase(s) (occupied sidereal "
+           f"hours; fewer than {MIN_SIDEREAL_PHASES}): the sidereal harmonics are not "
+           f"supported, stage 2 is skipped, and the {len(sessions.sessions)} per-session 2 theta "
+           "amplitudes are the result (sessions)")
+    import warnings
+
+    warnings.warn(msg, DegeneracyWarning, stacklevel=3)
+    return FitWarning("sidereal-phases-few", msg, {"n_sidereal_phases": float(n),
+                                                   "n_sessions": float(len(sessions.sessions))})
 
 
 def _degeneracy(labels, cov, free=(), limit: float = 0.95) -> list[FitWarning]:
@@ -162,20 +228,52 @@ def _add_rms_kt(setup: Setup, table: TurnTable, settings: FitSettings,
                      "prefer bootstrap uncertainties")
 
 
+def _stage3(setup, store, settings, rotating, scratch, sessions, sidereal):
+    """Stage 2 (unless ``sidereal`` is False) and stage 3: (harmonics, coefficients, models).
+
+    A singular stage 3 of a record with too few sidereal phases stops with a message naming
+    the sessions.
+    """
+    try:
+        if setup.theory.linear:
+            harm, res, cache = fit_coefficients(setup, store, settings, rotating, scratch,
+                                                sidereal=sidereal)
+            return harm, res, TurnModels(cache=cache)
+        harm = run_passes(setup, store, settings, None, sidereal=sidereal).harmonics
+        res = fit_medium(setup, store.load(), settings)
+        if settings.uncertainty == "reduced-chi2" and res.dof < SMALL_SAMPLE_DOF:
+            _widen(res, setup.units)
+        return harm, res, TurnModels(model_c=res.model_c, model_b=res.model_b)
+    except FitError as exc:
+        if sidereal:
+            raise
+        n_acc = sum(x.n_turns for x in sessions.sessions)
+        raise FitError(f"{exc} -- the {n_acc} accepted turns sit at "
+                       f"{sessions.n_sidereal_phases} sidereal phase(s) in "
+                       f"{len(sessions.sessions)} session(s), too few for these coefficients; "
+                       "fringe inspect lists the per-session 2 theta amplitudes "
+                       "(free fewer coefficients, or add sessions at other sidereal times)"
+                       ) from None
+
+
 def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettings,
                  span_days: float, scratch: Scratch | None = None
-                 ) -> tuple[dict, CoefficientFit, tuple, TurnModels]:
+                 ) -> tuple[dict | None, CoefficientFit, tuple, TurnModels]:
     """Run stage 2 (harmonics) and stage 3 (coefficients); also the systematics diagnostics.
 
     ``table``: the stage-1 table, or its :class:`~fringe.demodulate.turn_store.TurnStore` (the
     linear fits read it a segment at a time; the medium and rms_kt fits load it whole). Returns the
-    harmonics, the coefficients, the free names and the fitted model per turn
-    (:class:`TurnModels`).
+    harmonics (None when stage 2 is skipped: too few sidereal phases; the per-session
+    amplitudes are then ``sessions`` of the coefficients), the coefficients, the free names and
+    the fitted model per turn (:class:`TurnModels`).
     """
     store = table if isinstance(table, TurnStore) else TurnStore.in_memory(table)
     n_acc = int(np.sum(store.accepted))
-    if n_acc < 12:
-        raise FitError(f"fit: only {n_acc} accepted turns; need at least 12")
+    if n_acc == 0:
+        raise FitError("fit: no accepted turn (see the rejection counts of fringe inspect)")
+    sessions = sessions_of(setup, store)
+    sidereal = sessions.n_sidereal_phases >= MIN_SIDEREAL_PHASES
+    few = [] if sidereal else [_few_phases(sessions)]
     theory = setup.theory
     if settings.free is not None:
         free = tuple(settings.free)
@@ -189,20 +287,22 @@ def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettin
     if "rms_kt" in free and not rotating:
         raise ConfigError("FitSettings.free rms_kt: free rms_mm as well (the offsets' model "
                           "uses the 2 theta estimate of rms_mm)")
-    if theory.linear:
-        harm, res, cache = fit_coefficients(setup, store, settings, rotating, scratch)
-        models = TurnModels(cache=cache)
-    else:
-        harm = run_passes(setup, store, settings, None).harmonics
-        res = fit_medium(setup, store.load(), settings)
-        models = TurnModels(model_c=res.model_c, model_b=res.model_b)
+    harm, res, models = _stage3(setup, store, settings, rotating, scratch, sessions, sidereal)
+    res.warnings[:0] = few
     if "rms_kt" in free:
         _add_rms_kt(setup, store.load(), settings, res)
-    _offset_checks(setup, harm, res, _c0_only(setup, rotating) if theory.linear else [])
-    chi2_warning = harmonics_chi2_warning(harm["chi2_reduced"], n_acc, settings.uncertainty)
-    if chi2_warning is not None:
-        res.warnings.append(chi2_warning)
-        warnings.warn(chi2_warning.sentence, SystematicsWarning, stacklevel=2)
+    if harm is not None:
+        _offset_checks(setup, harm, res, _c0_only(setup, rotating) if theory.linear else [])
+        chi2_warning = harmonics_chi2_warning(harm["chi2_reduced"], n_acc,
+                                              settings.uncertainty)
+        if chi2_warning is not None:
+            res.warnings.append(chi2_warning)
+            warnings.warn(chi2_warning.sentence, SystematicsWarning, stacklevel=2)
+    else:
+        res.notes.append("B0 and C0 not tested for a lab-fixed systematic: stage 2 was skipped "
+                         "(too few sidereal phases), so the per-session amplitudes stand alone")
+    if not sidereal:
+        res.sessions = sessions
     return harm, res, free, models
 
 

@@ -26,7 +26,9 @@ from fringe.io.fit_sections import (
     FitInput,
     FitWarning,
     Harmonics,
+    Motion,
     OneStage,
+    Sessions,
     Stage1,
     Statistics,
     read_estimates,
@@ -34,7 +36,7 @@ from fringe.io.fit_sections import (
 from fringe.io.records import Fields, FrozenMap, freeze, plain
 
 __all__ = ["CONVENTIONS", "FORMAT", "FORMAT_VERSION", "READABLE_VERSIONS", "FitResult",
-           "read_fit_result"]
+           "read_fit_result", "session_lines"]
 
 FORMAT = "fit"
 FORMAT_VERSION = 2
@@ -109,6 +111,12 @@ class FitResult:
     calibration : SignalCalibration or None
         Gate correction, scale uncertainty and weighting (run files of format version 2 that
         declare them); None when the run file declares none.
+    motion : Motion or None
+        The turntable motion stage 1 detected, with its block and exclusion rules (None in
+        files written before motions were detected).
+    sessions : Sessions or None
+        The per-session 2 theta amplitudes and the chi^2 of their agreement (the result when
+        the sidereal stage is skipped; None in older files).
 
     None marks a part a (hand-made, version-1) file leaves out; ``fringe fit`` fills every
     part. Mappings are read-only (:class:`~fringe.io.records.FrozenMap`), sequences tuples;
@@ -141,6 +149,8 @@ class FitResult:
     one_stage: OneStage | None = None
     conventions: Mapping[str, str] | None = field(default_factory=lambda: freeze(CONVENTIONS))
     calibration: SignalCalibration | None = None
+    motion: Motion | None = None
+    sessions: Sessions | None = None
 
     def __post_init__(self):
         for name in ("coefficients", "fixed", "efficiency", "site", "apparatus", "settings",
@@ -223,7 +233,8 @@ class FitResult:
             derived=Derived.read(f, "derived"),
             one_stage=OneStage.read(f, "one_stage"),
             conventions=_strings(f, "conventions"),
-            calibration=SignalCalibration.read(f, "calibration"))
+            calibration=SignalCalibration.read(f, "calibration"),
+            motion=Motion.read(f, "motion"), sessions=Sessions.read(f, "sessions"))
 
     @classmethod
     def read(cls, path) -> FitResult:
@@ -241,9 +252,9 @@ class FitResult:
     def summary(self) -> str:
         """Text for a person.
 
-        The input, the turns, the uncertainty mode, a table of the coefficients (fixed and
-        nuisances too), limits and derived speeds, the cross-check, the calibration, warnings and
-        notes.
+        The input, the turns, the motion, the uncertainty mode, a table of the coefficients
+        (fixed and nuisances too), the per-session amplitudes when they are the result, limits
+        and derived speeds, the cross-check, the calibration, warnings and notes.
         """
         s1, st, nan = self.stage1, self.statistics, float("nan")
         path = self.input.path if self.input else "?"
@@ -253,6 +264,7 @@ class FitResult:
                  f"{s1.n_blocks if s1 else None} ({s1.n_rejected_glitch if s1 else None} "
                  f"glitch, {s1.n_rejected_partial if s1 else None} partial); turn period "
                  f"{s1.turn_period_s if s1 else nan:.4g} s",
+                 *([f"motion: {self.motion.describe()}"] if self.motion else []),
                  f"uncertainty: {st.uncertainty if st else None} (reduced chi2 "
                  f"{st.chi2_reduced if st else nan:.3f}, dof {st.dof if st else None})", "",
                  f"{'coefficient':<12}{'value':>13}{'sigma':>12}{'efficiency':>12}"]
@@ -274,6 +286,8 @@ class FitResult:
             lines.append("one-stage cross-check: " + ", ".join(
                 f"{n} {v.value:.3g}±{v.sigma:.2g}"
                 for n, v in self.one_stage.coefficients.items()))
+        if self.sessions is not None and self.harmonics is None:
+            lines += session_lines(self.sessions)
         if self.calibration is not None:      # its sentences are among the notes
             for name, v in self.calibration.scale_sigma.items():
                 lines.append(f"{name:<12}{'':>13}{v:>12.3g}{'scale':>12}")
@@ -339,6 +353,28 @@ def _derived_lines(d: Derived | None) -> list[str]:
                    f"{a['orbital_rms']:.4g} {a['units']}; the data contain "
                    f"{a['orbital_fraction']:.3g} ± {a['orbital_fraction_sigma']:.2g} of it")
     return out
+
+
+def session_lines(sessions: Sessions) -> list[str]:
+    """The per-session 2 theta amplitudes as text lines (``fringe inspect``, the summary)."""
+    u = sessions.units
+    lines = [f"per-session 2 theta amplitudes ({u}; 1 sigma, Student t; "
+             f"{sessions.n_sidereal_phases} distinct sidereal phase(s)):",
+             f"  {'start s':>12}{'turns':>7}{'phi deg':>9}{'C':>12}{'sigma C':>10}"
+             f"{'B':>12}{'sigma B':>10}{'dof':>5}"]
+    rows = list(sessions.sessions)
+    shown = rows if len(rows) <= 40 else rows[:20] + [None] + rows[-20:]
+    for x in shown:
+        if x is None:
+            lines.append(f"  ... ({len(rows) - 40} sessions not shown)")
+            continue
+        lines.append(f"  {x.t_start_s:>12.1f}{x.n_turns:>7d}{x.sidereal_phase_deg:>9.1f}"
+                     f"{x.C.value:>12.4g}{x.C.sigma:>10.3g}{x.B.value:>12.4g}{x.B.sigma:>10.3g}"
+                     f"{x.dof:>5d}")
+    if sessions.dof > 0:
+        lines.append(f"  agreement of the sessions: chi2 {sessions.chi2:.3g} for {sessions.dof} "
+                     f"dof (p = {sessions.p_value:.3g})")
+    return lines
 
 
 # ---------------------------------------------------------------------- reading parts

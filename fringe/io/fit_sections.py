@@ -11,7 +11,9 @@ validating ``read()``.
 * :class:`FitInput`: the run file fitted (path, SHA-256, samples);
 * :class:`OneStage`: the one-stage cross-check;
 * :class:`FitWarning`: a warning the fit raised, as a named record;
-* :class:`Derived`: quantities derived from the coefficients (the medium fit's speeds).
+* :class:`Derived`: quantities derived from the coefficients (the medium fit's speeds);
+* :class:`Motion`: the turntable motion stage 1 detected, and its block and exclusion rules;
+* :class:`Sessions`: the per-session 2 theta amplitudes and their agreement.
 
 ``read(fields, key)`` takes a :class:`~fringe.io.records.Fields` view of the enclosing object
 and raises :class:`~fringe.errors.InputFileError` naming the file and the dotted field. Numbers
@@ -29,7 +31,7 @@ import numpy as np
 from fringe.io.records import Fields, FrozenMap, freeze
 
 __all__ = ["Covariance", "Derived", "Estimate", "FitInput", "FitWarning", "Harmonics",
-           "OneStage", "Stage1", "Statistics", "read_estimates"]
+           "Motion", "OneStage", "Session", "Sessions", "Stage1", "Statistics", "read_estimates"]
 
 
 def _set(obj, name: str, value) -> None:
@@ -394,8 +396,11 @@ class FitWarning:
     ``harmonics-chi2`` (the reduced chi^2 of the stage-2 harmonic fit far from one),
     ``simulated-noise-free`` (a simulated record without noise), ``utc-before-1960``,
     ``leap-table-range``, ``ephemeris-range`` (the record's times outside a reliable span,
-    :func:`fringe.frames.time_span_cautions`); ``unnamed`` for a plain-text warning of a
-    version-1 result file.
+    :func:`fringe.frames.time_span_cautions`), ``sidereal-phases-few`` (the accepted turns sit
+    at fewer distinct sidereal phases than the sidereal stage needs: stage 2 skipped, the
+    per-session amplitudes are the result), ``small-sample`` (1 sigma from few degrees of
+    freedom, widened by Student t); ``unnamed`` for a plain-text warning of a version-1 result
+    file.
     """
 
     code: str
@@ -494,3 +499,189 @@ class Derived:
             if extra:
                 parts[name]["units"] = p.string("units")
         return cls(**parts)
+
+
+#: Fields of ``motion``: name -> True when required.
+_MOTION_FIELDS = {"kind": True, "sense": True, "turn_period_s": True, "block_rule": True,
+                  "excluded_samples_rule": True, "dwell_fraction": True, "sweep_deg": False,
+                  "step_deg": False, "marks_per_turn": False}
+
+
+@dataclass(frozen=True)
+class Motion:
+    """The turntable motion stage 1 found in the recorded azimuth.
+
+    Made by :func:`fringe.demodulate.motion.detect_motion`.
+
+    Attributes
+    ----------
+    kind : {"continuous", "reversing", "swinging", "stepped"}
+    sense : {"ccw", "cw", "alternating"}
+        Counter-clockwise or clockwise seen from above (C6), or reversing.
+    turn_period_s : float
+        Time per full turn of travel (rests included), s.
+    block_rule : str
+        What a block ("turn") is for this motion, in words.
+    excluded_samples_rule : str
+        Which samples the block fits leave out ("" for none), in words.
+    dwell_fraction : float
+        Fraction of the sample intervals with the table at rest.
+    sweep_deg : float or None
+        Median angle of a leg between reversals (reversing, swinging), degrees.
+    step_deg, marks_per_turn : float or None
+        Median step between rest positions, degrees, and 360 / step (stepped).
+    """
+
+    kind: str
+    sense: str
+    turn_period_s: float
+    block_rule: str
+    excluded_samples_rule: str
+    dwell_fraction: float
+    sweep_deg: float | None = None
+    step_deg: float | None = None
+    marks_per_turn: float | None = None
+
+    @property
+    def reverses(self) -> bool:
+        """True when the sense alternates (blocks are legs between reversals)."""
+        return self.sense == "alternating"
+
+    def describe(self) -> str:
+        """One line for a person: kind, sense, period and the motion's own numbers."""
+        parts = [f"{self.kind} ({self.sense})", f"{self.turn_period_s:.4g} s per turn of travel"]
+        if self.sweep_deg is not None:
+            parts.append(f"legs of {self.sweep_deg:.4g} deg")
+        if self.step_deg is not None:
+            parts.append(f"steps of {self.step_deg:.4g} deg ({self.marks_per_turn:.3g} marks "
+                         "per turn)")
+        if self.dwell_fraction > 0:
+            parts.append(f"at rest {100 * self.dwell_fraction:.3g} % of the time")
+        return ", ".join(parts)
+
+    def to_dict(self) -> dict:
+        """The record in the plain JSON types of the result file."""
+        return _omit_none({name: getattr(self, name) for name in _MOTION_FIELDS})
+
+    @classmethod
+    def read(cls, f: Fields, key: str) -> Motion | None:
+        """Read and check the field ``key`` of ``f`` (:class:`~fringe.io.records.Fields`)."""
+        m = f.sub(key, required=False)
+        if m is None:
+            return None
+        m.unknown(tuple(_MOTION_FIELDS))
+        kind = m.string("kind")
+        if kind not in ("continuous", "reversing", "swinging", "stepped"):
+            raise m.error("kind", "one of continuous, reversing, swinging, stepped", kind)
+        sense = m.string("sense")
+        if sense not in ("ccw", "cw", "alternating"):
+            raise m.error("sense", "one of ccw, cw, alternating", sense)
+        return cls(kind, sense, m.number("turn_period_s", positive=True),
+                   m.string("block_rule"), m.string("excluded_samples_rule", empty=True),
+                   m.number("dwell_fraction", minimum=0.0),
+                   *(m.number(k, required=False, positive=True)
+                     for k in ("sweep_deg", "step_deg", "marks_per_turn")))
+
+
+_SESSION_FIELDS = ("t_start_s", "t_stop_s", "n_turns", "sidereal_phase_deg", "C", "B",
+                   "correlation", "dof", "t_factor")
+
+
+@dataclass(frozen=True)
+class Session:
+    """One session's mean 2 theta amplitudes (:mod:`fringe.demodulate.sessions`).
+
+    Attributes
+    ----------
+    t_start_s, t_stop_s : float
+        First and last accepted turn's sample times, s after the epoch.
+    n_turns : int
+        Accepted turns in the session.
+    sidereal_phase_deg : float
+        Sidereal angle phi (C5) at the session's mean time, degrees.
+    C, B : Estimate
+        Weighted mean amplitudes and their 1 sigma (Student-t widened), signal units.
+    correlation : float
+        Correlation of C and B.
+    dof : int
+        Degrees of freedom of the session's scatter (of the turn's residuals for one turn).
+    t_factor : float
+        Factor applied to the standard errors for 68.27 % intervals (Student t, ``dof``).
+    """
+
+    t_start_s: float
+    t_stop_s: float
+    n_turns: int
+    sidereal_phase_deg: float
+    C: Estimate
+    B: Estimate
+    correlation: float
+    dof: int
+    t_factor: float
+
+    def to_dict(self) -> dict:
+        """The record in the plain JSON types of the result file."""
+        out = {k: getattr(self, k) for k in _SESSION_FIELDS}
+        out["C"], out["B"] = self.C.to_dict(), self.B.to_dict()
+        return out
+
+    @classmethod
+    def read(cls, f: Fields, key: str) -> Session:
+        """Read and check the field ``key`` of ``f`` (:class:`~fringe.io.records.Fields`)."""
+        s = f.sub(key)
+        s.unknown(_SESSION_FIELDS)
+        return cls(s.number("t_start_s"), s.number("t_stop_s"), s.integer("n_turns", minimum=1),
+                   s.number("sidereal_phase_deg"), Estimate.read(s, "C"),
+                   Estimate.read(s, "B"), s.number("correlation"), s.integer("dof"),
+                   s.number("t_factor", positive=True))
+
+
+@dataclass(frozen=True)
+class Sessions:
+    """The per-session 2 theta amplitudes and the chi^2 of their agreement.
+
+    Attributes
+    ----------
+    sessions : tuple of Session
+    chi2, dof : float, int
+        chi^2 of the sessions' (C, B) about their weighted mean, and 2 (number of sessions - 1);
+        NaN and 0 for one session.
+    p_value : float
+        Probability of a chi^2 at least this large (NaN for one session).
+    n_sidereal_phases : int
+        Distinct sidereal phases of the accepted turns (occupied sidereal hours).
+    rule : str
+        How the sessions and their uncertainties are formed, in words.
+    units : str
+    """
+
+    sessions: tuple[Session, ...]
+    chi2: float
+    dof: int
+    p_value: float
+    n_sidereal_phases: int
+    rule: str
+    units: str
+
+    def __post_init__(self):
+        _set(self, "sessions", tuple(self.sessions))
+
+    def to_dict(self) -> dict:
+        """The record in the plain JSON types of the result file."""
+        return {"sessions": [x.to_dict() for x in self.sessions], "chi2": self.chi2,
+                "dof": self.dof, "p_value": self.p_value,
+                "n_sidereal_phases": self.n_sidereal_phases, "rule": self.rule,
+                "units": self.units}
+
+    @classmethod
+    def read(cls, f: Fields, key: str) -> Sessions | None:
+        """Read and check the field ``key`` of ``f`` (:class:`~fringe.io.records.Fields`)."""
+        s = f.sub(key, required=False)
+        if s is None:
+            return None
+        s.unknown(("sessions", "chi2", "dof", "p_value", "n_sidereal_phases", "rule", "units"))
+        rows = s.elements("sessions")
+        return cls(tuple(Session.read(rows, k) for k in rows.data),
+                   s.number("chi2", null=True), s.integer("dof"),
+                   s.number("p_value", null=True), s.integer("n_sidereal_phases"),
+                   s.string("rule"), s.string("units"))

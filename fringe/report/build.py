@@ -112,6 +112,7 @@ def assemble_report(fit_json_path, *, compare=None, kt: tuple[float, float] | No
         "fit statistics": plain(fit.statistics),
         "efficiency (white-noise Cramér–Rao σ / reported σ)": plain(fit.efficiency),
         "stage 1": plain(fit.stage1),
+        "turntable motion": plain(fit.motion),
         "site": plain(fit.site),
         "apparatus": plain(fit.apparatus),
         "epoch (UTC), span (s)": [fit.epoch_utc, plain(fit.span_s)],

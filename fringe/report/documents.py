@@ -1,7 +1,5 @@
 """Render what a report states.
 
-The headline and the documents report.md, report.tex, report.html and summary.json.
-
 The documents are report.md, report.tex, report.html and summary.json. Use :func:`headline`
 for the result in the trade's terms (from a checked fit result), and :func:`markdown_report`,
 :func:`latex_report`, :func:`html_report` and :func:`summary` to render a
@@ -52,7 +50,8 @@ __all__ = ["EXTRA_TABLES", "FIGURE_DIR", "headline", "html_report", "latex_repor
 
 FIGURE_DIR = "figures"
 #: Tables after the main ones, in report order: (key of report_tables, heading).
-EXTRA_TABLES = (("nuisance", "Nuisance parameters"), ("cross_check", "One-stage cross-check"),
+EXTRA_TABLES = (("sessions", "Per-session 2θ amplitudes"),
+                ("nuisance", "Nuisance parameters"), ("cross_check", "One-stage cross-check"),
                 ("harmonics", "C10 harmonics"), ("correlation", "Correlations"))
 
 

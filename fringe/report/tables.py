@@ -35,8 +35,8 @@ if TYPE_CHECKING:
 
 __all__ = ["Table", "Z68", "Z95", "bound95", "coefficient_label", "coefficient_table",
            "comparison_table", "correlation_table",
-           "cross_check_table", "harmonics_table", "latex_escape", "report_tables", "to_html",
-           "to_latex", "to_markdown", "value_table"]
+           "cross_check_table", "harmonics_table", "latex_escape", "report_tables",
+           "sessions_table", "to_html", "to_latex", "to_markdown", "value_table"]
 
 #: Half-widths of the Gaussian 68 % and 95 % intervals, in sigma (two-sided; 1.96 is the
 #: customary rounding of the 0.975 normal quantile 1.95996...).
@@ -393,6 +393,28 @@ def to_html(table: Table) -> str:
     return "\n".join(out) + "\n"
 
 
+def sessions_table(sessions, *, style: str = "unicode", label: str = "tab:sessions") -> Table:
+    """Table of the per-session 2θ amplitudes: start, turns, sidereal phase, C ± σ, B ± σ, dof.
+
+    ``sessions`` is a :class:`~fringe.io.fit_sections.Sessions`; values are rounded by the PDG
+    rule of their σ (1σ Student-t widened, see the sessions' ``rule``). The caption states the
+    χ² of the sessions' agreement when there are two or more.
+    """
+    rows = []
+    for x in sessions.sessions:
+        c = format_mantissas(*pdg_round(x.C.value, x.C.sigma), style)
+        b = format_mantissas(*pdg_round(x.B.value, x.B.sigma), style)
+        rows.append((f"{x.t_start_s:.0f}", str(x.n_turns), f"{x.sidereal_phase_deg:.1f}", c, b,
+                     str(x.dof)))
+    agree = (f" Agreement of the sessions: χ² = {sessions.chi2:.3g} for {sessions.dof} dof "
+             f"(p = {sessions.p_value:.3g})." if sessions.dof > 0 else "")
+    caption = (f"Per-session 2θ amplitudes ({sessions.units}): weighted mean of each session's "
+               "turns, 1σ from their scatter widened by the Student-t factor of the dof; "
+               f"{sessions.n_sidereal_phases} distinct sidereal phase(s)." + agree)
+    return Table(("start (s)", "turns", "φ (deg)", "C", "B", "dof"), tuple(rows),
+                 caption=caption, label=label, style=style)
+
+
 # ------------------------------------------------------------------------ a report's tables
 
 def _coefficient_units(theory: str) -> dict:
@@ -453,8 +475,8 @@ def report_tables(fit: FitResult, comparison: Sequence[Mapping] = (), style: str
                   ) -> dict[str, Table]:
     """The tables of a report, keyed by name.
 
-    ``coefficients`` always; ``harmonics``, ``correlation``, ``nuisance``, ``cross_check`` and
-    ``comparison`` when the fit (or the user's table) provides them.
+    ``coefficients`` always; ``sessions``, ``harmonics``, ``correlation``, ``nuisance``,
+    ``cross_check`` and ``comparison`` when the fit (or the user's table) provides them.
 
     Parameters
     ----------
@@ -469,6 +491,8 @@ def report_tables(fit: FitResult, comparison: Sequence[Mapping] = (), style: str
         coefficients, style=style, units=_coefficient_units(fit.theory),
         caption=f"Free coefficients of the {fit.theory} fit: value ± 1σ (Particle Data Group "
                 "rounding) and Gaussian 68 % and 95 % intervals.")}
+    if fit.sessions is not None:
+        out["sessions"] = sessions_table(fit.sessions, style=style)
     h = fit.harmonics
     if h is not None:
         chi = h.chi2_reduced
