@@ -118,13 +118,31 @@ def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = (
     gate = (attrs["gate_s"], attrs["gate_kind"]) if "gate_s" in attrs else None
     theta = np.unwrap(np.pi - az)
     dt = np.diff(t)
-    return RecordInfo(path=str(path), n_samples=n, theta0_rad=float(theta[0] % (2 * np.pi)),
+    return RecordInfo(path=str(path), n_samples=n, theta0_rad=reference_angle(theta),
                       turn_period_s=float(period), max_gap_s=float(max_gap),
                       aux_channels=tuple(aux_channels),
                       samples_per_turn=float(period / max(float(np.median(dt)), 1e-9)),
                       gate=gate, weighted=weighted,
                       motion=motion, block_starts=starts,
                       rest_tolerance_deg=settings.rest_tolerance_deg)
+
+
+def reference_angle(theta_rad: np.ndarray) -> float:
+    """theta0 of the turn rule (rad, in [0, 2 pi)): where the first block starts.
+
+    The first sample's theta, except for a table turning toward smaller theta (clockwise seen
+    from above, C6), where it is moved half the first step back against the motion: a block
+    starts where theta - theta0 crosses a multiple of 2 pi, and for a decreasing theta the
+    crossing at the first sample itself would otherwise cut a block of that one sample and
+    start every turn one sample late (a hand-read turn of marks would lose its first mark
+    to the turn before).
+    """
+    steps = np.diff(theta_rad)
+    moving = steps[steps != 0]
+    theta0 = float(theta_rad[0])
+    if moving.size and moving[0] < 0:
+        theta0 += 0.5 * float(-moving[0])
+    return theta0 % (2 * np.pi)
 
 
 def _leg_block_starts(run, max_gap_s: float) -> np.ndarray:
