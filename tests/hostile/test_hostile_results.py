@@ -382,3 +382,20 @@ def test_unperturbed_examples_are_read_into_a_report(tmp_path):
         check_result_case(tmp_path, (base, []))
         fit = read_fit_result(tmp_path / "fit.json")
         assert fit.covariance is not None and len(fit.coefficients) == 5
+
+
+@pytest.mark.parametrize(("n", "texts"), [(5, 25), (16, 256), (300, 0)])
+def test_correlation_figure_of_many_coefficients_has_no_cell_numbers(n, texts):
+    # 300 coefficients: 90 000 cell labels made the report take minutes; colours alone remain
+    import matplotlib.pyplot as plt
+
+    from fringe.report.figures.fit import CORRELATION_LABELS_MAX, plot_correlation
+
+    names = [f"c{i:03d}" for i in range(n)]
+    ax = plot_correlation(names, np.eye(n) * 4.0)
+    try:
+        assert len(ax.texts) == texts
+        assert len(ax.get_xticklabels()) <= max(n, CORRELATION_LABELS_MAX)
+        assert max(ax.figure.get_size_inches()) <= 12.0
+    finally:
+        plt.close(ax.figure)
