@@ -33,6 +33,7 @@ OPTION_SPELLING = (
     ("scratch_dir=DIR", "--scratch-dir DIR"),
     ("kt/is_", "--kt/--is"),
     ("overwrite=True", "--overwrite"),
+    ("simulate(seed=...)", "--seed"),
 )
 # a name counts only where it stands alone (not inside a longer name or a path)
 _SPELLING = re.compile(r"(?<![\w./\\-])(" + "|".join(re.escape(a) for a, _ in OPTION_SPELLING)
