@@ -458,9 +458,11 @@ def import_csv(csv_path: str | os.PathLike, out_path: str | os.PathLike, *,
                 prev = _check_increasing(table, t_s, cells["time"], lines, t_col, prev)
                 first = t_s[0] if first is None else first
                 az = _numbers(table, cells["azimuth"], lines, columns["azimuth"], False)
+                _first_bad(table, ~np.isfinite(az), cells["azimuth"], lines,
+                           columns["azimuth"], "a finite azimuth")
                 rad = np.pi / 180.0 if units["azimuth"] == "deg" else 1.0
-                _first_bad(table, ~(np.abs(az) * rad <= AZIMUTH_MAX_RAD), cells["azimuth"],
-                           lines, columns["azimuth"], "a finite azimuth within 2**32 rad "
+                _first_bad(table, np.abs(az) * rad > AZIMUTH_MAX_RAD, cells["azimuth"],
+                           lines, columns["azimuth"], "an azimuth within 2**32 rad "
                            "(float64 resolves about 1e-6 rad there; wrap larger ones)")
                 sig = _numbers(table, cells["signal"], lines, columns["signal"], True)
                 _first_bad(table, np.isinf(sig), cells["signal"], lines, columns["signal"],
