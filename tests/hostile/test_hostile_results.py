@@ -173,8 +173,10 @@ def _apply_cov(doc: dict, p: Cov) -> None:
     if not isinstance(part, dict):
         return
     m = part.get("matrix" if p.where == "covariance" else "covariance")
-    if not isinstance(m, list) or not m:
-        return
+    if not isinstance(m, list) or not m or not all(
+            isinstance(r, list) and len(r) == len(m) and all(
+                isinstance(x, (int, float)) and not isinstance(x, bool) for x in r) for r in m):
+        return                                  # already broken by another perturbation
     n = len(m)
     i, j = p.i % n, p.j % n
     if p.what == "pair":
@@ -399,3 +401,21 @@ def test_correlation_figure_of_many_coefficients_has_no_cell_numbers(n, texts):
         assert max(ax.figure.get_size_inches()) <= 12.0
     finally:
         plt.close(ax.figure)
+
+
+@pytest.mark.slow
+@given(case=st.tuples(st.sampled_from((0, 1)), st.lists(
+    st.builds(Scale, st.integers(0, 500), st.sampled_from((1e100, 1e-100, 0.0, -1.0, 1e140,
+                                                           1e-140, 3.0))) | perturbations,
+    min_size=1, max_size=3)))
+@_settings(40, fixed=False)
+def test_accepted_results_render_every_figure_long(tmp_path, case):
+    # a result the reader accepts renders whole: figures, documents, summary
+    from fringe.report.build import write_report
+
+    check_result_case(tmp_path, case)
+    try:
+        content = assemble_report(tmp_path / "fit.json")
+    except (InputFileError, FileNotFoundError):
+        return
+    write_report(content, tmp_path / "out", overwrite=True)
