@@ -9,6 +9,9 @@ recorded hash; the reader refuses such files with one line naming the file and t
 
 from __future__ import annotations
 
+import shutil
+from pathlib import Path
+
 import h5py
 import numpy as np
 import pytest
@@ -134,3 +137,27 @@ def test_fit_of_a_linked_run_is_one_line_and_writes_nothing(small_run, tmp_path)
         "link to 'signal' in 'data.h5' (a run file holds all its data: the SHA-256 a fit records "
         "covers this file only)"]
     assert not (tmp_path / "fit.json").exists()
+
+
+@pytest.mark.parametrize("how", ["external link", "virtual dataset"])
+def test_turns_file_with_data_in_another_file_is_refused(tmp_path, how):
+    from fringe.io.turns_file import read_turns
+
+    src = Path(__file__).resolve().parents[1] / "data" / "fit_example.turns.h5"
+    turns = tmp_path / "fit.turns.h5"
+    shutil.copy(src, turns)
+    with h5py.File(turns, "a") as f:
+        data = f["turns/C"][()]
+        with h5py.File(tmp_path / "other.h5", "w") as g:
+            g.create_dataset("signal", data=data)
+        del f["turns/C"]
+        if how == "external link":
+            f["turns/C"] = h5py.ExternalLink(str(tmp_path / "other.h5"), "signal")
+        else:
+            layout = h5py.VirtualLayout(shape=data.shape, dtype=data.dtype)
+            layout[:] = h5py.VirtualSource(str(tmp_path / "other.h5"), "signal",
+                                           shape=data.shape)
+            f["turns"].create_virtual_dataset("C", layout)
+    with pytest.raises(InputFileError) as info:
+        read_turns(turns)
+    assert str(info.value).startswith(f"{turns}: turns/C: expected data stored in this file")
