@@ -37,6 +37,7 @@ OPTION_SPELLING = (
     ("kt/is_", "--kt/--is"),
     ("overwrite=True", "--overwrite"),
     ("azimuth_log=PATH", "--azimuth-log FILE"),
+    ("simulate(seed=...)", "--seed"),
 )
 # a name counts only where it stands alone (not inside a longer name or a path)
 _SPELLING = re.compile(r"(?<![\w./\\-])(" + "|".join(re.escape(a) for a, _ in OPTION_SPELLING)

@@ -34,8 +34,9 @@ def command(out, seed, overwrite):
     from fringe.fit.settings import FitSettings
     from fringe.io.atomic import write_json_atomic, write_text_atomic
     from fringe.io.turns_file import write_turns
-    from fringe.simulation.campaign import simulate
+    from fringe.simulation.campaign import check_seed, simulate
 
+    check_seed(seed)                                   # before anything is written
     d = out_dir(out)
     src = demo_scenario_path()
     sc = load_scenario(src)

@@ -174,6 +174,40 @@ def _coefficients_from(doc: dict, source: str, theory: Theory) -> dict[str, floa
     return theory.check_params(spec, source=f"{source}: [coefficients]")
 
 
+#: Most samples a scenario may ask for (1e11 samples of 24 bytes are 2.4 TB of run file).
+MAX_SAMPLES = 10 ** 11
+#: Longest campaign, s (100 Julian years: a sanity bound, no experiment runs longer).
+MAX_DURATION_S = 100 * 365.25 * 86400.0
+#: Most samples per turn below which the 2 theta signal aliases: it runs at twice the turn
+#: rate, so the sampling theorem needs a sample interval below period_s / 4.
+MIN_SAMPLES_PER_TURN = 4
+#: Largest unwrapped azimuth of the simulated table, rad (that of the run-file reader).
+MAX_AZIMUTH_RAD = 2.0 ** 32
+
+
+def _check_sampling(source: str, duration: float, interval: float, motion) -> None:
+    """Refuse a campaign no run file can hold or whose sampling aliases the 2 theta signal."""
+    if duration > MAX_DURATION_S:
+        raise ConfigError(f"{source}: [campaign] duration: expected at most 100 years "
+                          f"({MAX_DURATION_S:.4g} s), got {duration:.4g} s")
+    if duration / interval > MAX_SAMPLES:
+        raise ConfigError(f"{source}: [campaign] sample_interval_s: expected at most "
+                          f"{MAX_SAMPLES:.0e} samples (duration / sample_interval_s), got "
+                          f"{duration / interval:.3g}")
+    period = getattr(motion, "period_s", None)
+    if period is None:
+        return
+    if interval >= period / MIN_SAMPLES_PER_TURN:
+        raise ConfigError(f"{source}: [campaign] sample_interval_s: expected less than a "
+                          f"quarter of the turn period ({period:.6g} s / 4: the 2 theta "
+                          f"signal would alias), got {interval:.6g} s")
+    if 2 * math.pi * duration / period > MAX_AZIMUTH_RAD:
+        raise ConfigError(f"{source}: [turntable] period_s: expected at most "
+                          f"{MAX_AZIMUTH_RAD / (2 * math.pi):.3g} turns in the campaign (the "
+                          f"unwrapped azimuth must stay within 2**32 rad), got "
+                          f"{duration / period:.3g}")
+
+
 def load_scenario(path: str | Path) -> Scenario:
     """Read and validate a scenario TOML file; errors name the file, section and field."""
     path = Path(path)
@@ -187,6 +221,13 @@ def load_scenario(path: str | Path) -> Scenario:
         raise InputFileError(path, "file", f"cannot be read ({exc.strerror})") from None
     except tomllib.TOMLDecodeError as exc:
         raise InputFileError(path, "TOML", f"not valid TOML ({exc})") from None
+    except UnicodeDecodeError as exc:
+        raise InputFileError(path, "file", f"expected UTF-8 text, got byte "
+                             f"0x{exc.object[exc.start]:02x} at byte offset {exc.start}") \
+            from None
+    except RecursionError:
+        raise InputFileError(path, "TOML", "expected tables and arrays nested less deeply "
+                             "(too deep to read)") from None
     return scenario_from_dict(doc, source)
 
 
@@ -258,6 +299,7 @@ def scenario_from_dict(doc: dict, source: str = "scenario") -> Scenario:
     tilt = _wrap(source, "turntable", AxisTilt,
                  1e-6 * tt.get("tilt_south_urad", 0.0), 1e-6 * tt.get("tilt_east_urad", 0.0))
     motion = _wrap(source, "turntable", make_motion, tt, "turntable")
+    _check_sampling(source, duration, interval, motion)
 
     theory, rot = _theory_from(doc, source)
     coefficients = _coefficients_from(doc, source, theory)

@@ -44,6 +44,7 @@ from fringe.errors import ConfigError, InputFileError, TimeScaleWarning
 from fringe.frames import UTC_FIRST_YEAR, leap_table_last_year
 from fringe.io.runformat import (
     APPARATUS_KINDS,
+    AZIMUTH_MAX_RAD,
     AZIMUTH_UNITS,
     CORE_CHANNELS,
     DEFAULT_CHUNK_SAMPLES,
@@ -170,6 +171,9 @@ def read_import_metadata(path: str | os.PathLike) -> dict:
         raise InputFileError(path, "file", "expected an existing file") from None
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise InputFileError(path, "file", f"expected valid TOML ({exc})") from None
+    except RecursionError:
+        raise InputFileError(path, "file", "expected valid TOML (tables and arrays nested "
+                             "too deeply to read)") from None
 
     def err(obj, expected):
         return InputFileError(path, obj, expected)
@@ -231,6 +235,13 @@ def _checked_units(merged: dict, err_for: Callable) -> dict:
     for key in core:
         if key not in columns:
             raise err_for("columns")(f"columns.{key}", "missing entry; expected a header name")
+    seen = {}
+    for key, header in columns.items():
+        if header in seen:
+            raise err_for("columns")(f"columns.{key}", f"expected a column other than that of "
+                                     f"columns.{seen[header]} ({header!r}): each column holds "
+                                     "one channel")
+        seen[header] = key
     units.setdefault("time", "s")
     u_err = err_for("units")
     for key in columns:
@@ -689,6 +700,10 @@ def _stream(job: _Import, table: _Table, log_fh, block_rows: int, progress,
                 az = _numbers(table, cells["azimuth"], lines, columns["azimuth"], False)
                 _first_bad(table, ~np.isfinite(az), cells["azimuth"], lines,
                            columns["azimuth"], "a finite azimuth")
+                rad = np.pi / 180.0 if units["azimuth"] == "deg" else 1.0
+                _first_bad(table, np.abs(az) * rad > AZIMUTH_MAX_RAD, cells["azimuth"],
+                           lines, columns["azimuth"], "an azimuth within 2**32 rad "
+                           "(float64 resolves about 1e-6 rad there; wrap larger ones)")
                 keep = None
             sig = _numbers(table, cells["signal"], lines, columns["signal"], True)
             _first_bad(table, np.isinf(sig), cells["signal"], lines, columns["signal"],

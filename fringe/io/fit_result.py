@@ -33,7 +33,7 @@ from fringe.io.fit_sections import (
     Statistics,
     read_estimates,
 )
-from fringe.io.records import Fields, FrozenMap, freeze, plain
+from fringe.io.records import MAX_DEPTH, Fields, FrozenMap, check_depth, freeze, plain
 
 __all__ = ["CONVENTIONS", "FORMAT", "FORMAT_VERSION", "READABLE_VERSIONS", "FitResult",
            "read_fit_result", "session_lines"]
@@ -197,6 +197,7 @@ class FitResult:
             ``coefficients``.
         """
         f = Fields(source, d)
+        check_depth(d, source)
         fmt, version = d.get("fringe_format"), d.get("fringe_format_version")
         if fmt != FORMAT:
             raise f.error("fringe_format", "'fit' (a result of fringe fit)", fmt)
@@ -211,10 +212,13 @@ class FitResult:
         if amplitudes is not None and not isinstance(amplitudes, str):
             raise f.error("amplitudes_file", "a file name relative to the JSON file",
                           amplitudes)
+        if amplitudes:
+            f.check_string("amplitudes_file", amplitudes)
         return cls(
             theory=f.string("theory"), units=f.string("units"), coefficients=coefficients,
             fixed=_numbers(f, "fixed") or {},
-            covariance=Covariance.read(f, "covariance", tuple(coefficients), required=False),
+            covariance=Covariance.read(f, "covariance", tuple(coefficients), required=False,
+                                       sigmas={n: e.sigma for n, e in coefficients.items()}),
             harmonics=Harmonics.read(f, "harmonics"),
             warnings=() if w is None else tuple(FitWarning.read(w, k, version)
                                                 for k in w.data),
@@ -437,4 +441,7 @@ def read_fit_result(path) -> FitResult:
     except json.JSONDecodeError as exc:
         raise InputFileError(path, "JSON", f"expected valid JSON ({exc.msg} at line "
                                            f"{exc.lineno})") from None
+    except RecursionError:
+        raise InputFileError(path, "JSON", f"expected objects and lists nested at most "
+                                           f"{MAX_DEPTH} deep") from None
     return FitResult.from_dict(d, source=path)

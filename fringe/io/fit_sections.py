@@ -31,7 +31,8 @@ import numpy as np
 from fringe.io.records import Fields, FrozenMap, freeze
 
 __all__ = ["Covariance", "Derived", "Estimate", "FitInput", "FitWarning", "Harmonics",
-           "Motion", "OneStage", "Session", "Sessions", "Stage1", "Statistics", "read_estimates"]
+           "Motion", "OneStage", "Session", "Sessions", "Stage1", "Statistics",
+           "check_covariance", "read_estimates"]
 
 
 def _set(obj, name: str, value) -> None:
@@ -40,6 +41,74 @@ def _set(obj, name: str, value) -> None:
 
 def _omit_none(d: dict) -> dict:
     return {k: v for k, v in d.items() if v is not None}
+
+
+#: Tolerances of :func:`check_covariance` (relative; a matrix written by ``fringe fit`` meets
+#: them to ~1e-15, one rounded by hand to 7 significant digits still does).
+COVARIANCE_RTOL = 1e-6
+#: Largest relative difference of sqrt(diagonal) from the stated sigma.
+SIGMA_RTOL = 1e-3
+
+
+def _covariance_problem(m: np.ndarray, names, sigmas) -> str | None:
+    """What is wrong with the covariance ``m`` (rows of ``names``), or None."""
+    d = np.diag(m)
+    for i, n in enumerate(names):
+        if d[i] < 0:
+            return f"a non-negative variance of {n}, got {d[i]!r}"
+        s = sigmas.get(n) if sigmas is not None else None
+        if s is not None and math.isfinite(s):
+            r = math.sqrt(d[i])
+            if abs(r - s) > SIGMA_RTOL * max(r, s):
+                return (f"a variance of {n} equal to its sigma squared ({s!r}**2), got "
+                        f"{d[i]!r}")
+    scale = np.sqrt(np.outer(d, d))
+    asym = np.abs(m - m.T) > COVARIANCE_RTOL * scale
+    if asym.any():
+        i, j = np.argwhere(asym)[0]
+        return (f"a symmetric matrix, got {m[i, j]!r} for ({names[i]}, {names[j]}) and "
+                f"{m[j, i]!r} for ({names[j]}, {names[i]})")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rho = np.where(scale > 0, m / np.where(scale > 0, scale, 1.0), 0.0)
+    bad = (np.abs(rho) > 1 + COVARIANCE_RTOL) | ((scale == 0) & (m != 0))
+    if bad.any():
+        i, j = np.argwhere(bad)[0]
+        return (f"correlations within [-1, 1], got {m[i, j]!r} for ({names[i]}, {names[j]}) "
+                f"with variances {d[i]!r} and {d[j]!r}")
+    keep = d > 0
+    if keep.sum() > 2:
+        r = rho[np.ix_(keep, keep)]
+        low = float(np.linalg.eigvalsh((r + r.T) / 2)[0])
+        if low < -COVARIANCE_RTOL * len(r):
+            return (f"a positive semi-definite matrix, got a correlation matrix with "
+                    f"eigenvalue {low:.3g}")
+    return None
+
+
+def check_covariance(f: Fields, key: str, matrix, names, sigmas=None) -> None:
+    """Refuse a covariance matrix that no fit can give.
+
+    Parameters
+    ----------
+    f : Fields
+        The enclosing object (named in the error).
+    key : str
+        The field of the matrix.
+    matrix : sequence of sequences of float
+        Rows in the order of ``names`` (finite numbers, already checked).
+    names : sequence of str
+        The quantities of the rows.
+    sigmas : mapping of str to float, optional
+        Stated 1-sigma uncertainties; sqrt of each diagonal element must match its sigma to
+        :data:`SIGMA_RTOL` (NaN sigmas are not compared).
+
+    The matrix must have non-negative variances, be symmetric and positive semi-definite to
+    :data:`COVARIANCE_RTOL` (relative), with correlations within [-1, 1].
+    """
+    m = np.array(matrix, dtype=float).reshape(len(names), len(names))
+    bad = _covariance_problem(m, tuple(names), sigmas)
+    if bad is not None:
+        raise f.error(key, bad)
 
 
 @dataclass(frozen=True)
@@ -110,9 +179,13 @@ class Covariance:
         return {"names": list(self.names), "matrix": [list(r) for r in self.matrix]}
 
     @classmethod
-    def read(cls, f: Fields, key: str, order: tuple[str, ...], *, required: bool = True
-             ) -> Covariance | None:
-        """Read and reorder to ``order`` (the names must be those of ``order``)."""
+    def read(cls, f: Fields, key: str, order: tuple[str, ...], *, required: bool = True,
+             sigmas: Mapping[str, float] | None = None) -> Covariance | None:
+        """Read, check (:func:`check_covariance`) and reorder to ``order``.
+
+        The names must be those of ``order``; ``sigmas`` (name to 1 sigma) are compared with
+        the diagonal.
+        """
         c = f.sub(key, required=required)
         if c is None:
             return None
@@ -122,6 +195,7 @@ class Covariance:
             raise c.error("names", f"the names of the free coefficients {list(order)}",
                           list(names))
         m = c.matrix("matrix", len(names))
+        check_covariance(c, "matrix", m, names, sigmas)
         idx = [names.index(n) for n in order]
         return cls(order, tuple(tuple(m[i][j] for j in idx) for i in idx))
 
@@ -175,9 +249,13 @@ class Harmonics:
         h.unknown(("names", "value", "sigma", "covariance", "chi2_reduced", "units",
                    "observable", "two_path_factor"))
         names = h.strings("names")
-        return cls(names, h.numbers("value", length=len(names)),
-                   h.numbers("sigma", length=len(names), minimum=0.0),
-                   h.matrix("covariance", len(names), required=False),
+        if len(set(names)) != len(names):
+            raise h.error("names", "distinct names", list(names))
+        sigma = h.numbers("sigma", length=len(names), minimum=0.0)
+        cov = h.matrix("covariance", len(names), required=False)
+        if cov is not None:
+            check_covariance(h, "covariance", cov, names, dict(zip(names, sigma)))
+        return cls(names, h.numbers("value", length=len(names)), sigma, cov,
                    h.number("chi2_reduced", required=False, null=True),
                    h.string("units", required=False), h.string("observable", required=False),
                    h.numbers("two_path_factor", length=2, required=False))
@@ -373,7 +451,8 @@ class OneStage:
                    "dof", "n_samples", "n_turns_used"))
         coefs = read_estimates(s, "coefficients", nonempty=True, null=True)
         return cls(coefs, read_estimates(s, "nuisance", null=True),
-                   Covariance.read(s, "covariance", tuple(coefs)),
+                   Covariance.read(s, "covariance", tuple(coefs),
+                                   sigmas={n: e.sigma for n, e in coefs.items()}),
                    s.number("chi2_reduced", null=True),
                    s.number("noise_rms", null=True, minimum=0.0), s.integer("dof"),
                    s.integer("n_samples"), s.integer("n_turns_used"))
@@ -428,7 +507,7 @@ class FitWarning:
         if version == 1:
             if not isinstance(f.data[key], str):
                 raise f.error(key, "a string (version-1 warning)", f.data[key])
-            return cls("unnamed", f.data[key])
+            return cls("unnamed", f.check_string(key, f.data[key]))
         w = f.sub(key)
         w.unknown(("code", "message", "values", "coefficients"))
         values = w.sub("values")

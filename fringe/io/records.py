@@ -7,6 +7,13 @@
 * :class:`Fields` checks the fields of one JSON object read from a file and raises
   :class:`~fringe.errors.InputFileError` with one line "SOURCE: FIELD: EXPECTED, got VALUE"
   (FIELD dotted from the top of the file, e.g. ``coefficients.ke_XY.sigma``).
+
+What every getter refuses, whatever the field (a result file is checked as strictly as a run
+file): names (object keys) and strings with control characters (a newline could fake a line of
+output) or lone surrogates (they cannot be written as UTF-8); numbers that are not finite or
+whose magnitude is outside [:data:`MIN_MAGNITUDE`, :data:`MAX_MAGNITUDE`] (zero is allowed),
+integers beyond :data:`MAX_INTEGER`, and free-form records nested deeper than
+:data:`MAX_DEPTH`. :func:`check_depth` bounds the nesting of a whole JSON document.
 """
 
 from __future__ import annotations
@@ -18,7 +25,18 @@ import numpy as np
 
 from fringe.errors import InputFileError
 
-__all__ = ["Fields", "FrozenMap", "freeze", "plain"]
+__all__ = ["MAX_DEPTH", "MAX_INTEGER", "MAX_MAGNITUDE", "MIN_MAGNITUDE", "Fields", "FrozenMap",
+           "check_depth", "check_text", "freeze", "plain"]
+
+#: Largest magnitude of a number read from a record: the square of a covariance element or a
+#: product of two such numbers must stay finite in float64 (max ~1.8e308).
+MAX_MAGNITUDE = 1e150
+#: Smallest non-zero magnitude (squares and products must not underflow to zero).
+MIN_MAGNITUDE = 1e-150
+#: Largest magnitude of an integer (2**53: every such integer is exact as a float64).
+MAX_INTEGER = 2 ** 53
+#: Deepest nesting of objects and lists in a result file (the deepest written is 4).
+MAX_DEPTH = 32
 
 
 class FrozenMap(Mapping):
@@ -95,6 +113,50 @@ def _is_number(x) -> bool:
     return isinstance(x, (int, float)) and not isinstance(x, bool)
 
 
+def check_text(text: str) -> str | None:
+    """What is wrong with ``text`` as a name or string of a record, or None when it is fine.
+
+    Refused: control characters (C0, DEL, C1: a newline or carriage return could fake a line
+    of output) and lone surrogates (not encodable as UTF-8).
+    """
+    for ch in text:
+        o = ord(ch)
+        if o < 0x20 or 0x7F <= o < 0xA0:
+            return "a string without control characters (newline, tab, ...)"
+        if 0xD800 <= o < 0xE000:
+            return "a valid Unicode string (no lone surrogate)"
+    return None
+
+
+def _magnitude_problem(v) -> str | None:
+    """What is wrong with the number ``v`` (int or float), or None."""
+    if isinstance(v, int):
+        return None if abs(v) <= MAX_INTEGER else "an integer of magnitude <= 2**53"
+    if not math.isfinite(v):
+        return "a finite number"
+    a = abs(v)
+    if a > MAX_MAGNITUDE or 0 < a < MIN_MAGNITUDE:
+        return (f"a number of magnitude between {MIN_MAGNITUDE:g} and {MAX_MAGNITUDE:g} "
+                "(or zero)")
+    return None
+
+
+def check_depth(obj, source, limit: int = MAX_DEPTH) -> None:
+    """Refuse a JSON value nested deeper than ``limit`` (objects and lists), iteratively.
+
+    Raises :class:`~fringe.errors.InputFileError` "SOURCE: JSON: expected ...".
+    """
+    stack = [(obj, 1)]
+    while stack:
+        value, depth = stack.pop()
+        if isinstance(value, (Mapping, list, tuple)):
+            if depth > limit:
+                raise InputFileError(str(source), "JSON", f"expected objects and lists nested "
+                                     f"at most {limit} deep")
+            items = value.values() if isinstance(value, Mapping) else value
+            stack.extend((v, depth + 1) for v in items)
+
+
 _MISSING = object()
 
 
@@ -120,7 +182,17 @@ class Fields:
         if not isinstance(data, Mapping):
             raise InputFileError(self.source, where or "top level",
                                  f"expected a JSON object, got {_show(data)}")
+        for key in data:
+            self._check_key(key)
         self.data = data
+
+    def _check_key(self, key) -> None:
+        """Refuse a name that is not a string or holds control characters or surrogates."""
+        bad = "a string" if not isinstance(key, str) else check_text(key)
+        if bad is not None:
+            raise InputFileError(self.source, self.where or "top level",
+                                 f"expected names that are {bad.removeprefix('a ')}, "
+                                 f"got {_show(key)}")
 
     def name(self, key: str) -> str:
         """The dotted name of ``key`` in the file (``[i]`` for a list element)."""
@@ -184,6 +256,13 @@ class Fields:
             return None
         if not isinstance(v, str) or (not empty and not v):
             raise self.error(key, want, v)
+        return self.check_string(key, v)
+
+    def check_string(self, key: str, v: str) -> str:
+        """``v`` (the string at ``key``) refused if it has control characters or surrogates."""
+        bad = check_text(v)
+        if bad is not None:
+            raise self.error(key, bad, v)
         return v
 
     def number(self, key: str, *, required: bool = True, null: bool = False,
@@ -205,8 +284,11 @@ class Fields:
         """``v`` (the value of ``key``, or of an element named ``key``) checked as a number."""
         if null and v is None:
             return math.nan
-        if not _is_number(v) or not math.isfinite(v):
+        if not _is_number(v):
             raise self.error(key, "a finite number" + (" or null" if null else ""), v)
+        bad = _magnitude_problem(v)
+        if bad is not None:
+            raise self.error(key, bad + (" or null" if null else ""), v)
         if positive and not v > 0:
             raise self.error(key, "a positive number", v)
         if minimum is not None and v < minimum:
@@ -220,6 +302,8 @@ class Fields:
             return None
         if not isinstance(v, int) or isinstance(v, bool) or v < minimum:
             raise self.error(key, f"an integer >= {minimum}", v)
+        if v > MAX_INTEGER:
+            raise self.error(key, "an integer of magnitude <= 2**53", v)
         return v
 
     def strings(self, key: str, *, required: bool = True) -> tuple[str, ...] | None:
@@ -229,7 +313,7 @@ class Fields:
             return None
         if not isinstance(v, list) or not all(isinstance(x, str) for x in v):
             raise self.error(key, "a list of strings", v)
-        return tuple(v)
+        return tuple(self.check_string(f"{key}[{i}]", x) for i, x in enumerate(v))
 
     def numbers(self, key: str, *, length: int | None = None, required: bool = True,
                 minimum: float | None = None) -> tuple[float, ...] | None:
@@ -252,11 +336,11 @@ class Fields:
         if v is None:
             return None
         ok = isinstance(v, list) and len(v) == n and all(
-            isinstance(r, list) and len(r) == n and all(_is_number(x) and math.isfinite(x)
-                                                        for x in r) for r in v)
+            isinstance(r, list) and len(r) == n for r in v)
         if not ok:
             raise InputFileError(self.source, self.name(key), f"expected {want}")
-        return tuple(tuple(r) for r in v)
+        return tuple(tuple(self.check_number(f"{key}[{i}][{j}]", x) for j, x in enumerate(r))
+                     for i, r in enumerate(v))
 
     def record(self, key: str, *, required: bool = True) -> FrozenMap | None:
         """A free-form JSON object, frozen (its own schema belongs to another module)."""
@@ -265,4 +349,24 @@ class Fields:
             return None
         if not isinstance(v, Mapping):
             raise self.error(key, "a JSON object", v)
+        self._check_free(key, v, 1)
         return freeze(v)
+
+    def _check_free(self, key: str, v, depth: int) -> None:
+        """Check a free-form JSON value at ``key``: names, strings, numbers and depth."""
+        if depth > MAX_DEPTH:
+            raise self.error(key, f"objects and lists nested at most {MAX_DEPTH} deep")
+        if isinstance(v, Mapping):
+            sub = Fields(self.source, v, self.name(key))
+            for k, x in v.items():
+                sub._check_free(k, x, depth + 1)
+        elif isinstance(v, (list, tuple)):
+            for i, x in enumerate(v):
+                self._check_free(f"{key}[{i}]", x, depth + 1)
+        elif isinstance(v, str):
+            self.check_string(key, v)
+        elif _is_number(v):
+            self.check_number(key, v)
+        elif v is not None and not isinstance(v, bool):
+            raise self.error(key, "a JSON value (object, list, string, number, true, false "
+                             "or null)", v)

@@ -345,12 +345,28 @@ def _order_error(value: float, before: float, index: int, obj: str):
                   f"{before!r}", obj)
 
 
-def check_azimuth_values(azimuth: NDArray, start: int, obj: str = "samples/azimuth") -> None:
-    """Azimuth (any angle unit) must be finite; ``start`` is the index of ``azimuth[0]``."""
+#: Largest |azimuth|, rad: float64 resolves 2**-20 rad (about 1e-6 rad) there; beyond, an
+#: unwrapped azimuth loses the resolution of a sample step (1e15 rad resolves only 0.125 rad).
+AZIMUTH_MAX_RAD = 2.0 ** 32
+
+
+def check_azimuth_values(azimuth: NDArray, start: int, obj: str = "samples/azimuth", *,
+                         rad_per_unit: float = 1.0) -> None:
+    """Azimuth must be finite and within :data:`AZIMUTH_MAX_RAD`.
+
+    ``start`` is the index of ``azimuth[0]``; ``rad_per_unit`` converts the values given to
+    radians (pi/180 for degrees).
+    """
     bad = ~np.isfinite(azimuth)
     if bad.any():
         i = _first(bad)
         raise Invalid(f"expected finite values (azimuth has no dropped samples), got "
+                      f"{float(azimuth[i])!r} at index {start + i}", obj)
+    bad = np.abs(azimuth) * rad_per_unit > AZIMUTH_MAX_RAD
+    if bad.any():
+        i = _first(bad)
+        raise Invalid(f"expected |azimuth| <= 2**32 rad (float64 resolves about 1e-6 rad "
+                      f"there; store the azimuth wrapped, e.g. to [0, 2 pi)), got "
                       f"{float(azimuth[i])!r} at index {start + i}", obj)
 
 

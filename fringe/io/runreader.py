@@ -11,6 +11,12 @@ The format rules (constants, :data:`APPARATUS_KINDS`, metadata and value checks)
 :mod:`fringe.io.runwriter`. Both are re-exported here, so ``from fringe.io.runreader import X``
 works for every name that was defined here before the split.
 
+A run file holds all its data: an object reached through an external link (into another
+file), a virtual dataset (mapped from other files) or a dataset with external raw storage is
+refused, since the SHA-256 a fit records covers this file's bytes only and could not identify
+data stored elsewhere. Soft links are followed; they always resolve inside the same file (one
+that leads on to an external link is refused like the external link).
+
 Every violation of the format raises :class:`~fringe.errors.InputFileError` with one line
 ``PATH: OBJECT: EXPECTED``, where OBJECT is a dataset path (``samples/time``), a group attribute
 (``site.latitude_deg``) or a dataset attribute (``samples/time.units``).
@@ -60,6 +66,7 @@ __all__ = ["RunFile", "open_run", "sha256"]
 logger = logging.getLogger(__name__)
 
 
+_WHY_LOCAL = "a run file holds all its data: the SHA-256 a fit records covers this file only"
 _CORRUPT = "expected a readable HDF5 file, got a corrupt one (HDF5 could not read its contents)"
 
 
@@ -214,9 +221,36 @@ class RunFile:
     def _group(self, name: str, what: str) -> h5py.Group:
         if name not in self._file:
             raise self._err(name, f"missing group; expected {what}")
-        obj = self._file[name]
+        obj = self._get(self._file, name, name)
         if not isinstance(obj, h5py.Group):
             raise self._err(name, "expected a group, got a dataset")
+        return obj
+
+    def _get(self, group: h5py.Group, key: str, label: str):
+        """``group[key]``, refused (one line) unless its data are stored in this file."""
+        link = group.get(key, getlink=True)
+        if isinstance(link, h5py.ExternalLink):
+            raise self._err(label, f"expected an object stored in this file, got an external "
+                            f"link to {link.path!r} in {link.filename!r} ({_WHY_LOCAL})")
+        return self._local(group[key], label)
+
+    def _local(self, obj, label: str):
+        """``obj`` if its data are stored in this file; else the one-line refusal.
+
+        Refused: an object of another file (reached through an external link), a virtual
+        dataset, a dataset with external raw storage. The fit's SHA-256 covers this file only.
+        """
+        why = _WHY_LOCAL
+        if obj.file.id.fileno != self._file.id.fileno:
+            raise self._err(label, f"expected an object stored in this file, got a link that "
+                            f"leads into another file ({why})")
+        if isinstance(obj, h5py.Dataset):
+            if obj.is_virtual:
+                raise self._err(label, f"expected data stored in this file, got a virtual "
+                                f"dataset mapped from other files ({why})")
+            if obj.external:
+                raise self._err(label, f"expected data stored in this file, got a dataset "
+                                f"with external raw storage ({why})")
         return obj
 
     def _attr(self, obj, label: str, name: str, what: str):
@@ -243,8 +277,9 @@ class RunFile:
         apparatus = self._group("apparatus", "an attribute 'kind'")
         self.apparatus: dict = check_apparatus(dict(apparatus.attrs), self._err)
         self._validate_samples(self._group("samples", "datasets time, azimuth and signal"))
+        extra = [k for k in f if k not in RESERVED_GROUPS]
         self.extra_groups: tuple[str, ...] = tuple(
-            k for k, v in f.items() if k not in RESERVED_GROUPS and isinstance(v, h5py.Group))
+            k for k in extra if isinstance(self._get(f, k, k), h5py.Group))
 
     def _units(self, ds: h5py.Dataset, label: str, allowed: Sequence[str]) -> str:
         shown = " or ".join(repr(u) for u in allowed)
@@ -265,8 +300,8 @@ class RunFile:
         core = CORE_CHANNELS + ((WEIGHT_CHANNEL,) if self.weighted else ())
         names = list(core) + sorted(k for k in samples if k not in core)
         for name in names:
-            ds = samples[name]
             label = f"samples/{name}"
+            ds = self._get(samples, name, label)
             if not isinstance(ds, h5py.Dataset):
                 raise self._err(label, "expected a one-dimensional dataset, got a group")
             if ds.shape is None:  # an HDF5 null dataspace (h5py.Empty)
@@ -418,7 +453,8 @@ class RunFile:
         with self._guard():
             group = self._group(name, "a group of that name")
             out = {}
-            for key, ds in group.items():
+            for key in group:
+                ds = self._get(group, key, f"{name}/{key}")
                 if isinstance(ds, h5py.Dataset):
                     try:
                         text = h5py.check_string_dtype(ds.dtype) is not None

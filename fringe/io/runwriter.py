@@ -287,7 +287,8 @@ class RunWriter:
                                        f"got {arr.size}")
         try:
             last = check_time_values(arrays["time"], self.n_samples, self._last_t)
-            check_azimuth_values(arrays["azimuth"], self.n_samples)
+            check_azimuth_values(arrays["azimuth"], self.n_samples, rad_per_unit=(
+                np.pi / 180.0 if self.azimuth_units == "deg" else 1.0))
             check_signal_values(arrays["signal"], self.n_samples)
             if self.weighted:
                 check_weight_values(arrays[WEIGHT_CHANNEL], self.n_samples)

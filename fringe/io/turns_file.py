@@ -127,6 +127,21 @@ def write_turns(path, *, units: str, epoch_utc: str, columns, overwrite: bool = 
     write_atomic(path, _w, overwrite=overwrite, protect=protect)
 
 
+def _check_stored_here(path, fh, obj, label: str) -> None:
+    """Refuse ``obj`` unless its data are stored in ``fh``.
+
+    Refused: behind an external link, virtual, or with external raw storage (the hash of the
+    file must identify the data, as for run files).
+    """
+    import h5py
+
+    other = obj.file.id.fileno != fh.id.fileno
+    if other or (isinstance(obj, h5py.Dataset) and (obj.is_virtual or obj.external)):
+        raise InputFileError(path, label, "expected data stored in this file, got "
+                             + ("a link into another file" if other else
+                                "a virtual or externally stored dataset"))
+
+
 def read_turns(path) -> dict:
     """Read and check a per-turn amplitudes file (HDF5, format "turns", version 1).
 
@@ -167,11 +182,13 @@ def read_turns(path) -> dict:
         group = fh.get("turns")
         if not isinstance(group, h5py.Group):
             raise InputFileError(path, "turns", "expected a group of per-turn datasets")
+        _check_stored_here(path, fh, group, "turns")
         out, n = {}, None
         for name in list(REQUIRED_COLUMNS) + [k for k in group if k not in REQUIRED_COLUMNS]:
             ds = group.get(name)
             if not isinstance(ds, h5py.Dataset) or ds.ndim != 1 or ds.dtype.kind not in "biuf":
                 raise InputFileError(path, f"turns/{name}", "expected a 1-D numeric dataset")
+            _check_stored_here(path, fh, ds, f"turns/{name}")
             if n is not None and ds.shape[0] != n:
                 raise InputFileError(path, f"turns/{name}", f"expected {n} values (one per "
                                                             f"turn), got {ds.shape[0]}")

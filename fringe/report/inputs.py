@@ -72,6 +72,9 @@ def _comparison_toml(path: Path, text: str) -> list[dict]:
         raw = tomllib.loads(text).get("limits")
     except tomllib.TOMLDecodeError as exc:
         raise InputFileError(path, "TOML", f"expected valid TOML ({exc})") from None
+    except RecursionError:
+        raise InputFileError(path, "TOML", "expected valid TOML (tables and arrays nested "
+                             "too deeply to read)") from None
     if not isinstance(raw, list) or not all(isinstance(r, dict) for r in raw):
         raise InputFileError(path, "limits", "expected an array of tables [[limits]] with "
                                              f"keys {', '.join(COMPARE_COLUMNS)}")

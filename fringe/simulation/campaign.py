@@ -132,6 +132,13 @@ def _warn_if_noiseless(scenario: Scenario, noise: PowerLawNoise) -> None:
                   "to ask for the bare signal)", SimulationWarning, stacklevel=3)
 
 
+def check_seed(seed) -> None:
+    """Refuse a seed ``numpy.random.default_rng`` cannot take (a negative or non-integer)."""
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise ConfigError(f"simulate(seed=...): expected an integer >= 0 (the seed of "
+                          f"numpy.random.default_rng), got {seed!r}")
+
+
 def simulate(scenario: Scenario, out_path, *, seed: int, overwrite: bool = False,
              protect=(), chunk_samples: int = CHUNK_SAMPLES, progress=None,
              noise_free: bool = False) -> dict:
@@ -149,6 +156,7 @@ def simulate(scenario: Scenario, out_path, *, seed: int, overwrite: bool = False
     """
     from fringe.io.runwriter import RunWriter
 
+    check_seed(seed)
     src = scenario.source
     noise = noise_model_from_section(scenario.sections.get("noise", {}), src,
                                      scenario.sample_interval_s)

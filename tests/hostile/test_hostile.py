@@ -417,6 +417,7 @@ def assert_obeys_spec(got: dict) -> None:
     assert np.all(np.isfinite(t_s)) and np.all(np.diff(t_s) > 0)
     assert (t_s[0], t_s[-1]) == (run.time_first_s, run.time_last_s)
     assert np.all(np.isfinite(data["azimuth"])) and not np.any(np.isinf(data["signal"]))
+    assert np.all(np.abs(data["azimuth"]) <= 2.0 ** 32)   # float64 resolves ~1e-6 rad there
     for name in run.aux_channels:
         assert np.concatenate([c[name] for c in got["aux"]]).shape == (n,)
         assert isinstance(run.aux_channels[name], str) and run.aux_channels[name].strip()

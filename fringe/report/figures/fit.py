@@ -297,20 +297,37 @@ def plot_limits(entries: Sequence[Mapping], ax=None):
     return ax
 
 
+#: Largest number of coefficients whose correlations are printed in the cells (beyond it the
+#: colours alone are shown: n**2 text labels make a figure slow and unreadable).
+CORRELATION_NUMBERS_MAX = 16
+#: Largest side of the correlation figure, inches.
+CORRELATION_SIDE_MAX_IN = 12.0
+#: Most tick labels along each axis of the correlation figure.
+CORRELATION_LABELS_MAX = 40
+
+
 def plot_correlation(names: Sequence[str], covariance: ArrayLike, ax=None):
-    """Correlation matrix of the coefficients, colour image with the numbers."""
+    """Correlation matrix of the coefficients, colour image with the numbers.
+
+    Up to :data:`CORRELATION_NUMBERS_MAX` coefficients each cell shows its number; beyond, the
+    colours alone, and at most :data:`CORRELATION_LABELS_MAX` names label each axis.
+    """
+    n = len(names)
     if ax is None:
-        ax = new_axes(figsize=(1.6 + 0.55 * len(names), 1.2 + 0.5 * len(names)))
+        ax = new_axes(figsize=(min(1.6 + 0.55 * n, CORRELATION_SIDE_MAX_IN),
+                               min(1.2 + 0.5 * n, CORRELATION_SIDE_MAX_IN - 0.4)))
     rho = correlation_from_covariance(covariance, unit_diagonal=True)
     im = ax.imshow(rho, vmin=-1, vmax=1, cmap="RdBu_r")
-    n = len(names)
-    for i in range(n):
-        for j in range(n):
-            v = rho[i, j]
-            ax.text(j, i, "n/a" if not np.isfinite(v) else f"{v:.2f}", ha="center",
-                    va="center", fontsize=7, color="w" if abs(v) > 0.6 else "k")
-    ax.set_xticks(range(n), names, rotation=60, fontsize=7, ha="right")
-    ax.set_yticks(range(n), names, fontsize=7)
+    if n <= CORRELATION_NUMBERS_MAX:
+        for i in range(n):
+            for j in range(n):
+                v = rho[i, j]
+                ax.text(j, i, "n/a" if not np.isfinite(v) else f"{v:.2f}", ha="center",
+                        va="center", fontsize=7, color="w" if abs(v) > 0.6 else "k")
+    step = -(-n // CORRELATION_LABELS_MAX)
+    ticks = range(0, n, step)
+    ax.set_xticks(ticks, [names[k] for k in ticks], rotation=60, fontsize=7, ha="right")
+    ax.set_yticks(ticks, [names[k] for k in ticks], fontsize=7)
     ax.figure.colorbar(im, ax=ax, label="correlation")
     return ax
 
