@@ -2,12 +2,11 @@
 
 from __future__ import annotations
 
-import dataclasses
 from pathlib import Path
 
 import click
 
-from fringe.cli.common import RegistryChoice, progress, run_guarded
+from fringe.cli.common import RegistryChoice, note_first_compile, progress, run_guarded
 
 
 def _names(text: str | None) -> tuple[str, ...] | None:
@@ -17,7 +16,7 @@ def _names(text: str | None) -> tuple[str, ...] | None:
 
 
 @click.command("fit")
-@click.argument("run_file", type=click.Path(dir_okay=False))
+@click.argument("run_file")
 @click.option("--out", "out_path", required=True, help="Result file to write (JSON).")
 @click.option("--theory", type=RegistryChoice("fringe.theories", "THEORIES"), default="sme",
               show_default=True)
@@ -56,14 +55,12 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
     from fringe.experiment.scenario import parse_assignments
     from fringe.fit.run import fit_run
     from fringe.fit.settings import FitSettings
-    from fringe.io.atomic import check_output_path, write_json_atomic
+    from fringe.io.fit_files import fit_outputs, turns_path_of, write_fit_files
     from fringe.io.runreader import open_run
-    from fringe.io.turns_file import write_turns
 
     out = Path(out_path)
-    turns_path = out.with_suffix(".turns.h5")
-    for p in (out, turns_path):
-        check_output_path(p, overwrite=overwrite, protect=[run_file])
+    turns_path = turns_path_of(out)
+    outputs = fit_outputs(out, overwrite=overwrite, protect=[run_file])  # checked before the fit
     settings = FitSettings(theory=theory, free=_names(free),
                            fixed=parse_assignments(fixes, "--fix"), uncertainty=uncertainty,
                            bootstrap_days=bootstrap_days, lab_b0=not no_lab_b0, lab_c0=lab_c0,
@@ -71,14 +68,12 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
     demod = DemodSettings(drift=drift, max_harmonic=max_harmonic)
     with open_run(run_file, check_values=False) as run:
         n = run.n_samples
-    with progress(n, "fit") as bar:
+    note_first_compile()
+    with outputs, progress(n, "fit") as bar:
         result, columns = fit_run(run_file, settings, demod, engine=engine, scheduler=scheduler,
                                   dut1_s=dut1_s, progress=bar.update, one_stage=cross_check,
                                   scratch_dir=scratch_dir or str(out.resolve().parent))
-    result = dataclasses.replace(result, amplitudes_file=turns_path.name)
-    with columns:
-        write_turns(turns_path, units=result.units, epoch_utc=result.epoch_utc,
-                    columns=columns, overwrite=overwrite, protect=[run_file])
-    write_json_atomic(out, result.to_dict(), overwrite=overwrite, protect=[run_file])
+        with columns:
+            result = write_fit_files(outputs, result, columns)
     click.echo(result.summary())
     click.echo(f"\nwrote {out}\nwrote {turns_path}")

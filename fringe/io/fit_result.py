@@ -12,6 +12,7 @@ to an HDF5 file beside it (:mod:`fringe.io.turns_file`). Both formats are docume
 from __future__ import annotations
 
 import json
+import re
 from collections.abc import Mapping
 from dataclasses import dataclass, field, fields
 from pathlib import Path
@@ -36,6 +37,7 @@ __all__ = ["CONVENTIONS", "FORMAT", "FORMAT_VERSION", "READABLE_VERSIONS", "FitR
            "read_fit_result"]
 
 FORMAT = "fit"
+_SHA256 = re.compile(r"[0-9a-f]{64}")
 FORMAT_VERSION = 2
 #: Versions :meth:`FitResult.from_dict` reads (1: warnings as plain strings).
 READABLE_VERSIONS = (1, 2)
@@ -86,6 +88,9 @@ class FitResult:
     created_utc : str or None
     amplitudes_file : str
         The per-turn amplitudes file, relative to the result file ("" for none).
+    amplitudes_sha256 : str
+        SHA-256 (64 hex digits) of that file as written with this result, so a reader can tell
+        it from a turns file of another fit ("" in files written before it was recorded).
     nuisance : mapping of str to Estimate
         Nuisances fitted with the coefficients (unit of the observable); NaN where written
         as null.
@@ -120,6 +125,7 @@ class FitResult:
     software: Mapping[str, str] | None
     created_utc: str | None
     amplitudes_file: str = ""
+    amplitudes_sha256: str = ""
     nuisance: Mapping[str, Estimate] = field(default_factory=FrozenMap)
     notes: tuple[str, ...] = ()
     upper_limits: Mapping[str, float] = field(default_factory=FrozenMap)
@@ -185,6 +191,10 @@ class FitResult:
         if amplitudes is not None and not isinstance(amplitudes, str):
             raise f.error("amplitudes_file", "a file name relative to the JSON file",
                           amplitudes)
+        digest = d.get("amplitudes_sha256", "")
+        if not (isinstance(digest, str) and (digest == "" or _SHA256.fullmatch(digest))):
+            raise f.error("amplitudes_sha256", "64 lowercase hexadecimal digits (the SHA-256 "
+                          "of amplitudes_file)", digest)
         return cls(
             theory=f.string("theory"), units=f.string("units"), coefficients=coefficients,
             fixed=_numbers(f, "fixed") or {},
@@ -201,6 +211,7 @@ class FitResult:
             software=_strings(f, "software"),
             created_utc=f.string("created_utc", required=False),
             amplitudes_file=amplitudes or "",
+            amplitudes_sha256=digest,
             nuisance=read_estimates(f, "nuisance", required=False, null=True) or {},
             notes=f.strings("notes", required=False) or (),
             upper_limits=_numbers(f, "upper_limits", null=True) or {},
