@@ -216,6 +216,23 @@ def check_directory_writable(directory, shown=None) -> None:
                           "choose a directory you may write to")
 
 
+def check_name_length(path, shown=None) -> None:
+    """Refuse (OutputError) a path with a component longer than its filesystem allows.
+
+    Checked before anything touches the path (a stat of such a path raises ENAMETOOLONG).
+    """
+    shown = path if shown is None else shown
+    p = Path(os.path.abspath(path))
+    existing = p
+    while not os.path.isdir(existing) and existing != existing.parent:
+        existing = existing.parent
+    limit = name_max(existing)
+    for part in p.parts:
+        if len(os.fsencode(part)) > limit:
+            raise OutputError(f"{shown}: file name too long ({len(os.fsencode(part))} bytes, "
+                              f"at most {limit}); choose a shorter name")
+
+
 def real_target(path) -> Path:
     """The file a write to ``path`` replaces: ``path``, or what it points to if a symlink."""
     p = Path(path)
@@ -231,6 +248,7 @@ def check_output_path(path: str | os.PathLike, *, overwrite: bool = False,
     than the filesystem allows, and a directory that is missing, read-only or not writable.
     """
     out = Path(path)
+    check_name_length(out)
     for p in protect:
         try:
             if Path(p).exists() and out.exists() and os.path.samefile(p, out):
@@ -246,10 +264,7 @@ def check_output_path(path: str | os.PathLike, *, overwrite: bool = False,
     if out.exists() and not overwrite:
         raise OutputError(f"{out}: exists (pass overwrite=True to replace it)")
     check_directory_writable(target.parent, shown=out)
-    limit = name_max(target.parent)
-    if len(os.fsencode(target.name)) > limit:
-        raise OutputError(f"{out}: file name too long ({len(os.fsencode(target.name))} bytes, "
-                          f"at most {limit}); choose a shorter name")
+    check_name_length(target, shown=out)
     return out
 
 

@@ -32,7 +32,7 @@ def fit_outputs(out, *, overwrite: bool = False, protect=()) -> OutputSet:
     """
     out = Path(out)
     return OutputSet(out.parent, [turns_path_of(out).name, out.name], overwrite=overwrite,
-                     protect=protect)
+                     protect=protect, shown=out)
 
 
 def write_fit_files(outputs: OutputSet, result, columns):

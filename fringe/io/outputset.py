@@ -28,6 +28,7 @@ from pathlib import Path
 from fringe.errors import OutputError
 from fringe.io.atomic import (
     check_directory_writable,
+    check_name_length,
     check_output_path,
     output_error,
     pending_interrupt,
@@ -54,6 +55,8 @@ class OutputSet:
         Replace existing outputs.
     protect : iterable of path
         Inputs that must never be written over.
+    shown : path, optional
+        What messages about the directory name (default ``root``; a fit names its result).
 
     Raises
     ------
@@ -67,17 +70,20 @@ class OutputSet:
     """
 
     def __init__(self, root, names: Sequence[str], *, overwrite: bool = False,
-                 protect: Iterable = ()):
+                 protect: Iterable = (), shown=None):
         self.root = Path(root)
+        shown = self.root if shown is None else shown
         self.names = tuple(names)
+        for name in self.names:
+            check_name_length(self.root / name, shown=shown)
         self.overwrite = overwrite
         self.protect = tuple(protect)
         if self.root.exists() and not self.root.is_dir():
             raise OutputError(f"{self.root}: exists and is not a directory; remove it or "
                               "choose another output directory")
         base = self.root if self.root.is_dir() else _existing_ancestor(self.root)
-        check_directory_writable(base, shown=self.root)
-        self._base = base
+        check_directory_writable(base, shown=shown)
+        self._base, self._shown = base, shown
         for name in self.names:
             target = self.root / name
             if target.parent.exists() and not target.parent.is_dir():
@@ -101,7 +107,7 @@ class OutputSet:
         except OSError as exc:
             with contextlib.suppress(OSError):
                 shutil.rmtree(staging)
-            raise output_error(self.root, exc) from None
+            raise output_error(self._shown, exc) from None
         self._staging = staging
         return self
 
