@@ -227,6 +227,13 @@ def check_name_length(path, shown=None) -> None:
     while not os.path.isdir(existing) and existing != existing.parent:
         existing = existing.parent
     limit = name_max(existing)
+    try:
+        path_max = int(os.pathconf(existing, "PC_PATH_MAX"))
+    except (OSError, ValueError):
+        path_max = 4096
+    if len(os.fsencode(str(p))) >= path_max:
+        raise OutputError(f"{shown}: path too long ({len(os.fsencode(str(p)))} bytes, at most "
+                          f"{path_max - 1}); choose a shorter path")
     for part in p.parts:
         if len(os.fsencode(part)) > limit:
             raise OutputError(f"{shown}: file name too long ({len(os.fsencode(part))} bytes, "

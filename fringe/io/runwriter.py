@@ -20,6 +20,7 @@ import numpy as np
 from fringe.errors import ConfigError, OutputError
 from fringe.io.atomic import (
     check_directory_writable,
+    check_name_length,
     name_max,
     output_error,
     real_target,
@@ -56,6 +57,7 @@ logger = logging.getLogger(__name__)
 
 def _check_output_path(path: str, overwrite: bool, protect: Sequence) -> None:
     """Refuse (OutputError) an output that would replace an input or an existing file."""
+    check_name_length(path)
     real = os.path.realpath(path)
     for item in protect:
         p = os.fspath(item)

@@ -241,6 +241,15 @@ def test_a_name_too_long(tmp_path, fitted, command):
     assert tree(folder) == before and leftovers(folder) == []
 
 
+def test_a_path_too_long(tmp_path):
+    scenario_copy(tmp_path)
+    deep = "/".join(["d" * 200] * 25) + "/run.h5"           # 5000 bytes: above PATH_MAX
+    run = run_command(tmp_path, ["simulate", "scenario.toml", "--seed", "1", "--out", deep])
+    assert run.exit_code == 2
+    assert "path too long" in one_error_line(run.stderr)
+    assert sorted(os.listdir(tmp_path)) == ["scenario.toml"]
+
+
 def test_an_unwritable_folder_without_root(tmp_path):
     if os.geteuid() == 0:
         pytest.skip("root writes into a mode 0o555 folder anyway")

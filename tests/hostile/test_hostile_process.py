@@ -277,29 +277,66 @@ def test_no_writable_cache_at_all_turns_caching_off(monkeypatch):
     assert cache is False and "compiled on every run" in note and "\n" not in note
 
 
-def test_an_unwritable_install_still_imports_the_kernel(tmp_path):
-    # a read-only copy of the package whose numba cache locations cannot be written; before:
-    # "RuntimeError: cannot cache function ...: no locator available" with a traceback
-    copy = tmp_path / "pkg"
-    shutil.copytree(Path(__file__).resolve().parents[2] / "fringe", copy / "fringe",
-                    ignore=shutil.ignore_patterns("__pycache__"))
-    home = tmp_path / "home"
-    home.mkdir()
-    probe = "import fringe.demodulate.kernel\n"
-    env = {**os.environ, "PYTHONPATH": str(copy), "HOME": str(home)}
+KERNEL_PROBE = (
+    "import numpy as np\n"
+    "from fringe.demodulate.kernel import block_starts\n"     # compiles and caches
+    "t = np.arange(8.0)\n"
+    "print(int(block_starts(2 * np.pi * t / 4, t, 0.0, 10.0, 0.0, 0.0, False).sum()))\n")
+
+
+def _read_only_install(tmp_path: Path) -> tuple[Path, Path]:
+    """A copy of the package and a home directory that cannot be written.
+
+    Without root: folders of mode 0o555. As root (who writes there anyway): a tmpfs holding
+    both, remounted read-only; skipped where mounts are not allowed.
+    """
+    from tests.helpers.fs_faults import can_mount, tmpfs
+
+    source = Path(__file__).resolve().parents[2] / "fringe"
+    if not can_mount():
+        copy, home = tmp_path / "pkg", tmp_path / "home"
+        shutil.copytree(source, copy / "fringe", ignore=shutil.ignore_patterns("__pycache__"))
+        home.mkdir()
+        for d in [*(p for p in (copy / "fringe").rglob("*") if p.is_dir()), copy / "fringe",
+                  home]:
+            d.chmod(0o555)
+        return copy, home
+    root = tmpfs(tmp_path / "ro", "64m")
+    shutil.copytree(source, root / "pkg" / "fringe", ignore=shutil.ignore_patterns("__pycache__"))
+    (root / "home").mkdir()
+    res = subprocess.run(["mount", "-o", "remount,ro", str(root)], capture_output=True,
+                         text=True)
+    if res.returncode != 0:
+        pytest.skip(f"cannot remount read-only ({res.stderr.strip()})")
+    return root / "pkg", root / "home"
+
+
+def test_an_unwritable_install_still_compiles_the_kernel(tmp_path):
+    # the package and the home directory cannot be written (a cluster node, a container, a
+    # read-only install); before: "RuntimeError: cannot cache function ...: no locator
+    # available" with a traceback. Now: a cache under the temporary directory, said in one line
+    from tests.helpers.fs_faults import unmount
+
+    copy, home = _read_only_install(tmp_path)
+    scratch = tmp_path / "tmp"
+    scratch.mkdir()
+    env = {**os.environ, "PYTHONPATH": str(copy), "HOME": str(home), "TMPDIR": str(scratch)}
     env.pop("NUMBA_CACHE_DIR", None)
-    for d in [copy / "fringe", copy / "fringe" / "demodulate", home]:
-        d.chmod(0o555)
     try:
-        if os.access(copy / "fringe" / "demodulate", os.W_OK):
-            pytest.skip("root writes into read-only folders anyway (see the injected tests)")
-        res = subprocess.run([sys.executable, "-c", probe],
-                             env=env, cwd=tmp_path, capture_output=True, text=True, timeout=300)
+        res = subprocess.run([sys.executable, "-c", "import logging; logging.basicConfig()\n"
+                              + KERNEL_PROBE], env=env, cwd=tmp_path, capture_output=True,
+                             text=True, timeout=600)
     finally:
-        for d in [copy / "fringe", copy / "fringe" / "demodulate", home]:
-            d.chmod(0o755)
+        if (tmp_path / "ro").is_mount():
+            unmount(tmp_path / "ro")
+        else:
+            for d in [*(p for p in copy.rglob("*") if p.is_dir()), home]:
+                d.chmod(0o755)
     assert res.returncode == 0, res.stderr
     assert "Traceback" not in res.stderr
+    notes = [ln for ln in res.stderr.splitlines() if "compiled-kernel cache" in ln]
+    assert len(notes) == 1 and str(scratch) in notes[0], res.stderr
+    assert any(scratch.rglob("kernel.*.nbi"))         # the compiled code was cached there
 
 
 def test_the_first_compile_is_announced_on_a_terminal_only(monkeypatch, capsys):
