@@ -37,22 +37,24 @@ class GuardedFile:
     def write(self, data) -> int:
         """Write ``data`` at the current position (dropped after a failure); return its size."""
         view = memoryview(data).cast("B")
+        size = view.nbytes
         if self.error is None:
             try:
-                done = 0
-                while done < view.nbytes:
+                done = self._fh.write(view)
+                while done < size:                 # a short write: go on with the rest
                     done += self._fh.write(view[done:])
             except OSError as exc:
                 self.error = exc
         else:
-            self._fh.seek(view.nbytes, os.SEEK_CUR)
-        return view.nbytes
+            self._fh.seek(size, os.SEEK_CUR)
+        return size
 
     def readinto(self, buffer) -> int:
         """Read into ``buffer``; bytes past the end of the file read as zeros."""
+        got = self._fh.readinto(buffer) or 0
         view = memoryview(buffer).cast("B")
-        got = self._fh.readinto(view) or 0
-        view[got:] = bytes(view.nbytes - got)
+        if got < view.nbytes:
+            view[got:] = bytes(view.nbytes - got)
         return view.nbytes
 
     def read(self, size: int = -1) -> bytes:
