@@ -208,7 +208,7 @@ def fit_record(run_path: PathLike, out: PathLike | None = None, *, theory: str =
             return result
     out = Path(out)
     outputs = fit_outputs(out, overwrite=overwrite, protect=[run_path])  # checked first
-    run_options.setdefault("scratch_dir", str(out.resolve().parent))
+    run_options.setdefault("scratch_dir", str(outputs.base.resolve()))
     with outputs:
         result, columns = fit_run(str(run_path), settings, DemodSettings(drift=drift),
                                   engine=engine, **run_options)

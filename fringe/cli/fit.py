@@ -72,7 +72,7 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
     with outputs, progress(n, "fit") as bar:
         result, columns = fit_run(run_file, settings, demod, engine=engine, scheduler=scheduler,
                                   dut1_s=dut1_s, progress=bar.update, one_stage=cross_check,
-                                  scratch_dir=scratch_dir or str(out.resolve().parent))
+                                  scratch_dir=scratch_dir or str(outputs.base.resolve()))
         with columns:
             result = write_fit_files(outputs, result, columns)
     click.echo(result.summary())

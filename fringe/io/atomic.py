@@ -285,6 +285,7 @@ def write_atomic(path: str | os.PathLike, writer: Callable[[str], None], *,
     """
     out = check_output_path(path, overwrite=overwrite, protect=protect)
     target = real_target(out)
+    sweep_leftovers(target.parent)
     tmp = os.path.join(target.parent, temp_name(target.name, "part"))
     try:
         os.close(os.open(tmp, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o666))

@@ -94,6 +94,11 @@ class OutputSet:
         self._staging: Path | None = None
 
     @property
+    def base(self) -> Path:
+        """The existing directory that holds the staging directory (``root`` if it exists)."""
+        return self._base
+
+    @property
     def targets(self) -> list[Path]:
         """The final paths of the outputs, in order."""
         return [self.root / n for n in self.names]
