@@ -38,8 +38,7 @@ def _names(text: str | None) -> tuple[str, ...] | None:
 @click.option("--cross-check", is_flag=True, help="Also run the one-stage global fit.")
 @click.option("--engine", type=RegistryChoice("fringe.demodulate.engine", "ENGINES"),
               default="local", show_default=True)
-@click.option("--scratch-dir", "scratch_dir", default=None,
-              type=click.Path(exists=True, file_okay=False, writable=True),
+@click.option("--scratch-dir", "scratch_dir", default=None, metavar="DIR",
               help="Where a long record keeps its turn table while it is fitted (removed "
                    "afterwards; default: the directory of --out).")
 @click.option("--scheduler", default=None, help="dask scheduler address (with --engine dask).")
@@ -55,12 +54,15 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
     from fringe.experiment.scenario import parse_assignments
     from fringe.fit.run import fit_run
     from fringe.fit.settings import FitSettings
+    from fringe.io.atomic import check_directory_writable
     from fringe.io.fit_files import fit_outputs, turns_path_of, write_fit_files
     from fringe.io.runreader import open_run
 
     out = Path(out_path)
     turns_path = turns_path_of(out)
     outputs = fit_outputs(out, overwrite=overwrite, protect=[run_file])  # checked before the fit
+    if scratch_dir is not None:
+        check_directory_writable(scratch_dir, shown=f"--scratch-dir {scratch_dir}")
     settings = FitSettings(theory=theory, free=_names(free),
                            fixed=parse_assignments(fixes, "--fix"), uncertainty=uncertainty,
                            bootstrap_days=bootstrap_days, lab_b0=not no_lab_b0, lab_c0=lab_c0,

@@ -264,6 +264,18 @@ def test_an_unwritable_folder_without_root(tmp_path):
     assert run.exit_code == 2 and "no permission" in one_error_line(run.stderr)
 
 
+@pytest.mark.parametrize("kind", ["missing", "file"])
+def test_an_unusable_scratch_dir_is_one_line_before_the_fit(fitted, kind):
+    if kind == "file":
+        (fitted / "scratch").write_text("x", encoding="utf-8")
+    run = run_command(fitted, ["fit", "run.h5", "--out", "new.json", "--scratch-dir",
+                               "scratch"])
+    assert run.exit_code == 2
+    line = one_error_line(run.stderr)
+    assert line.startswith("error: --scratch-dir scratch: "), line
+    assert not (fitted / "new.json").exists() and leftovers(fitted) == []
+
+
 # == output sets ================================================================================
 
 def test_the_fit_records_its_turns_file_and_the_report_checks_it(fitted, tmp_path):
