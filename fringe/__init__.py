@@ -183,14 +183,13 @@ def fit_record(run_path: PathLike, out: PathLike | None = None, *, theory: str =
     fringe.io.fit_result.FitResult
         ``summary()`` for a person, ``to_dict()`` for the JSON file.
     """
-    from dataclasses import fields, replace
+    from dataclasses import fields
 
     from fringe.demodulate.settings import DemodSettings
     from fringe.errors import ConfigError
     from fringe.fit.run import fit_run
     from fringe.fit.settings import FitSettings
-    from fringe.io.atomic import check_output_path, write_json_atomic
-    from fringe.io.turns_file import write_turns
+    from fringe.io.fit_files import fit_outputs, write_fit_files
 
     setting_names = {f.name for f in fields(FitSettings)}
     run_names = {"scheduler", "dut1_s", "one_stage", "scratch_dir"}
@@ -208,18 +207,13 @@ def fit_record(run_path: PathLike, out: PathLike | None = None, *, theory: str =
         with columns:                   # the per-turn columns are not kept: release them
             return result
     out = Path(out)
-    turns_path = out.with_suffix(".turns.h5")
-    for p in (out, turns_path):
-        check_output_path(p, overwrite=overwrite, protect=[run_path])
-    run_options.setdefault("scratch_dir", str(out.resolve().parent))
-    result, columns = fit_run(str(run_path), settings, DemodSettings(drift=drift),
-                              engine=engine, **run_options)
-    result = replace(result, amplitudes_file=turns_path.name)
-    with columns:
-        write_turns(turns_path, units=result.units, epoch_utc=result.epoch_utc, columns=columns,
-                    overwrite=overwrite, protect=[run_path])
-    write_json_atomic(out, result.to_dict(), overwrite=overwrite, protect=[run_path])
-    return result
+    outputs = fit_outputs(out, overwrite=overwrite, protect=[run_path])  # checked first
+    run_options.setdefault("scratch_dir", str(outputs.base.resolve()))
+    with outputs:
+        result, columns = fit_run(str(run_path), settings, DemodSettings(drift=drift),
+                                  engine=engine, **run_options)
+        with columns:
+            return write_fit_files(outputs, result, columns)
 
 
 def load_fit(path: PathLike) -> FitResult:

@@ -18,6 +18,19 @@ class FringeError(Exception):
         one_line = " ".join(str(message).split())
         super().__init__(one_line)
 
+    def __reduce__(self):
+        # pickled as (class, message, attributes): a subclass whose __init__ takes other
+        # arguments (InputFileError) is rebuilt in a process pool or on a dask worker as is
+        return _rebuild, (type(self), self.args, dict(self.__dict__))
+
+
+def _rebuild(cls, args, state):
+    """Rebuild a pickled :class:`FringeError` without calling its ``__init__``."""
+    exc = cls.__new__(cls)
+    exc.args = args
+    exc.__dict__.update(state)
+    return exc
+
 
 class ConfigError(FringeError):
     """A scenario, option or configuration value is invalid."""
@@ -104,3 +117,33 @@ def reject_unknown_fields(given, allowed, where: str, what: str = "unknown field
     if unknown:
         raise ConfigError(f"{where} {unknown[0]}: {what} (expected some of "
                           f"{', '.join(sorted(allowed))})")
+
+
+def check_regular_file(path, expected: str):
+    """Refuse (:class:`InputFileError`) an input that is missing or not a regular file.
+
+    A FIFO or a device would block a reader forever and a directory cannot be read as a file;
+    nothing is opened here (``os.stat`` only). Returns ``path``.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The input.
+    expected : str
+        What the input should be, e.g. ``"a scenario (TOML) file"``.
+    """
+    import os
+    import stat
+
+    try:
+        mode = os.stat(path).st_mode
+    except FileNotFoundError:
+        raise InputFileError(path, "file", f"expected an existing file: {expected}") from None
+    except OSError as exc:
+        raise InputFileError(path, "file", f"expected a readable file: {expected} "
+                                           f"({exc.strerror})") from None
+    if stat.S_ISREG(mode):
+        return path
+    kind = ("a directory" if stat.S_ISDIR(mode) else "a FIFO (named pipe)" if stat.S_ISFIFO(mode)
+            else "a socket" if stat.S_ISSOCK(mode) else "a device")
+    raise InputFileError(path, "file", f"expected a regular file: {expected}, got {kind}")

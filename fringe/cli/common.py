@@ -9,14 +9,16 @@ from __future__ import annotations
 import contextlib
 import functools
 import importlib
+import logging
 import re
+import signal
 import sys
 import warnings
 from pathlib import Path
 
 import click
 
-from fringe.errors import FringeError, FringeWarning
+from fringe.errors import FringeError, FringeWarning, OutputError
 
 #: How the commands spell what the library's messages call a settings field or a keyword
 #: argument (the library names what a Python caller passed; a user of ``fringe`` passed an
@@ -53,12 +55,29 @@ def as_options(message: str) -> str:
     return _SPELLING.sub(lambda m: table[m.group(1)], message)
 
 
+def _interrupted(signum: int) -> None:
+    """Print the one line of an interrupted command and exit 128 + the signal number."""
+    name = "SIGTERM" if signum == signal.SIGTERM else "SIGINT"
+    click.echo("error: interrupted; no partial output was kept", err=True)
+    logging.getLogger(__name__).info("stopped by %s", name)
+    sys.exit(128 + signum)
+
+
 def run_guarded(func):
-    """Turn user errors into a one-line message and exit status 2."""
+    """Turn user errors, environment failures and interrupts into one line and an exit status.
+
+    A :class:`~fringe.errors.FringeError` exits with its ``exit_code`` (2); an :class:`OSError`
+    that no writer or reader turned into one (the operating system refused something) exits 1
+    with its path and cause; SIGINT and SIGTERM (what batch schedulers send) exit 130 and 143.
+    An interrupt that something swallowed on the way (a clean-up callback) still counts: the
+    command's outputs are discarded (:mod:`fringe.io.outputset`) and it exits 130/143.
+    """
 
     @functools.wraps(func)
     def wrapper(*args, **kwargs):
         import warnings
+
+        from fringe.io.atomic import clear_interrupt, interrupt_received, note_interrupt
 
         def show_warning(message, category, filename, lineno, file=None, line=None):
             if issubclass(category, FringeWarning):
@@ -66,29 +85,37 @@ def run_guarded(func):
             else:
                 click.echo(f"warning: {category.__name__}: {message}", err=True)
 
-        import signal as _signal
-
-        def on_term(signum, frame):          # batch schedulers stop jobs with SIGTERM
+        def on_signal(signum, frame):
+            note_interrupt(signum)
             raise KeyboardInterrupt
 
         old = warnings.showwarning
         warnings.showwarning = show_warning
+        clear_interrupt()
+        old_handlers = {}
+        for sig in (signal.SIGINT, signal.SIGTERM):
+            try:
+                old_handlers[sig] = signal.signal(sig, on_signal)
+            except ValueError:               # not in the main thread
+                pass
         try:
-            old_term = _signal.signal(_signal.SIGTERM, on_term)
-        except ValueError:                   # not in the main thread
-            old_term = None
-        try:
-            return func(*args, **kwargs)
+            result = func(*args, **kwargs)
+            if interrupt_received() is not None:     # swallowed on the way, still an interrupt
+                _interrupted(interrupt_received())
+            return result
         except FringeError as exc:
             click.echo(f"error: {as_options(str(exc))}", err=True)
             sys.exit(exc.exit_code)
         except KeyboardInterrupt:
-            click.echo("error: interrupted; no partial output was kept", err=True)
-            sys.exit(130)
+            _interrupted(interrupt_received() or signal.SIGINT)
+        except OSError as exc:
+            where = f"{exc.filename}: " if exc.filename else ""
+            click.echo(f"error: {where}{exc.strerror or exc}", err=True)
+            sys.exit(1)
         finally:
             warnings.showwarning = old
-            if old_term is not None:
-                _signal.signal(_signal.SIGTERM, old_term)
+            for sig, handler in old_handlers.items():
+                signal.signal(sig, handler)
 
     return wrapper
 
@@ -113,10 +140,37 @@ def warnings_once():
 
 
 def out_dir(path: str) -> Path:
-    """Return ``path`` as a Path, creating the directory (and its parents) if missing."""
+    """Return ``path`` as a Path, creating the directory (and its parents) if missing.
+
+    A path that exists and is not a directory, or a directory that cannot be created, is an
+    :class:`~fringe.errors.OutputError` naming it and the fix.
+    """
+    from fringe.io.atomic import output_error
+
     out = Path(path)
-    out.mkdir(parents=True, exist_ok=True)
+    if out.exists() and not out.is_dir():
+        raise OutputError(f"{out}: exists and is not a directory; remove it or choose another "
+                          "--out")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise output_error(out, exc) from None
     return out
+
+
+def note_first_compile() -> None:
+    """On a terminal, say once that the compiled kernel is built now (first run after install).
+
+    Nothing is printed when stderr is not a terminal or when compiled code is already cached
+    (:func:`fringe.demodulate.kernel_cache.cache_is_warm`).
+    """
+    if not sys.stderr.isatty():
+        return
+    from fringe.demodulate.kernel_cache import cache_is_warm
+
+    if not cache_is_warm():
+        click.echo("note: compiling the demodulation kernel (the first run after an install "
+                   "takes 6-9 s more; later runs reuse it)", err=True)
 
 
 def progress(total: int, label: str):

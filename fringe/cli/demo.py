@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import dataclasses
 import time
 from importlib import resources
 from pathlib import Path
@@ -33,7 +32,7 @@ def command(out, seed, overwrite):
     from fringe.fit.run import fit_run
     from fringe.fit.settings import FitSettings
     from fringe.io.atomic import write_json_atomic, write_text_atomic
-    from fringe.io.turns_file import write_turns
+    from fringe.io.fit_files import fit_outputs, write_fit_files
     from fringe.simulation.campaign import check_seed, simulate
 
     check_seed(seed)                                   # before anything is written
@@ -71,15 +70,13 @@ def command(out, seed, overwrite):
 
     click.echo("[3/5] fit (theory sme, free ke_*)")
     fit_path = d / "fit.json"
-    with warnings_once() as fitted:
-        result, columns = fit_run(str(run_path), FitSettings(), one_stage=True,
-                                  scratch_dir=str(d))
-        fitted.append(result)
-    result = dataclasses.replace(result, amplitudes_file="fit.turns.h5")
-    with columns:
-        write_turns(d / "fit.turns.h5", units=result.units, epoch_utc=result.epoch_utc,
-                    columns=columns, overwrite=overwrite)
-    write_json_atomic(fit_path, result.to_dict(), overwrite=overwrite)
+    with fit_outputs(fit_path, overwrite=overwrite) as outputs:
+        with warnings_once() as fitted:
+            result, columns = fit_run(str(run_path), FitSettings(), one_stage=True,
+                                      scratch_dir=str(d))
+            fitted.append(result)
+        with columns:
+            result = write_fit_files(outputs, result, columns)
     click.echo(result.summary())
     truth = sc.coefficients
     click.echo("      injected: " + ", ".join(f"{k}={v:.3g}" for k, v in truth.items()))

@@ -2,12 +2,17 @@
 
 from __future__ import annotations
 
-import dataclasses
 from pathlib import Path
 
 import click
 
-from fringe.cli.common import RegistryChoice, progress, run_guarded, warnings_once
+from fringe.cli.common import (
+    RegistryChoice,
+    note_first_compile,
+    progress,
+    run_guarded,
+    warnings_once,
+)
 
 
 def _names(text: str | None) -> tuple[str, ...] | None:
@@ -17,7 +22,7 @@ def _names(text: str | None) -> tuple[str, ...] | None:
 
 
 @click.command("fit")
-@click.argument("run_file", type=click.Path(dir_okay=False))
+@click.argument("run_file")
 @click.option("--out", "out_path", required=True, help="Result file to write (JSON).")
 @click.option("--theory", type=RegistryChoice("fringe.theories", "THEORIES"), default="sme",
               show_default=True)
@@ -42,8 +47,7 @@ def _names(text: str | None) -> tuple[str, ...] | None:
 @click.option("--cross-check", is_flag=True, help="Also run the one-stage global fit.")
 @click.option("--engine", type=RegistryChoice("fringe.demodulate.engine", "ENGINES"),
               default="local", show_default=True)
-@click.option("--scratch-dir", "scratch_dir", default=None,
-              type=click.Path(exists=True, file_okay=False, writable=True),
+@click.option("--scratch-dir", "scratch_dir", default=None, metavar="DIR",
               help="Where a long record keeps its turn table while it is fitted (removed "
                    "afterwards; default: the directory of --out).")
 @click.option("--scheduler", default=None, help="dask scheduler address (with --engine dask).")
@@ -59,14 +63,15 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
     from fringe.experiment.scenario import parse_assignments
     from fringe.fit.run import fit_run
     from fringe.fit.settings import FitSettings
-    from fringe.io.atomic import check_output_path, write_json_atomic
+    from fringe.io.atomic import check_directory_writable
+    from fringe.io.fit_files import fit_outputs, turns_path_of, write_fit_files
     from fringe.io.runreader import open_run
-    from fringe.io.turns_file import write_turns
 
     out = Path(out_path)
-    turns_path = out.with_suffix(".turns.h5")
-    for p in (out, turns_path):
-        check_output_path(p, overwrite=overwrite, protect=[run_file])
+    turns_path = turns_path_of(out)
+    outputs = fit_outputs(out, overwrite=overwrite, protect=[run_file])  # checked before the fit
+    if scratch_dir is not None:
+        check_directory_writable(scratch_dir, shown=f"--scratch-dir {scratch_dir}")
     settings = FitSettings(theory=theory, free=_names(free),
                            fixed=parse_assignments(fixes, "--fix"), uncertainty=uncertainty,
                            bootstrap_days=bootstrap_days, lab_b0=not no_lab_b0, lab_c0=lab_c0,
@@ -74,15 +79,15 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
     demod = DemodSettings(drift=drift, max_harmonic=max_harmonic, min_samples=min_samples)
     with open_run(run_file, check_values=False) as run:
         n = run.n_samples
-    with progress(n, "fit") as bar, warnings_once() as fitted:
-        result, columns = fit_run(run_file, settings, demod, engine=engine, scheduler=scheduler,
-                                  dut1_s=dut1_s, progress=bar.update, one_stage=cross_check,
-                                  scratch_dir=scratch_dir or str(out.resolve().parent))
-        fitted.append(result)
-    result = dataclasses.replace(result, amplitudes_file=turns_path.name)
-    with columns:
-        write_turns(turns_path, units=result.units, epoch_utc=result.epoch_utc,
-                    columns=columns, overwrite=overwrite, protect=[run_file])
-    write_json_atomic(out, result.to_dict(), overwrite=overwrite, protect=[run_file])
+    note_first_compile()
+    with outputs, progress(n, "fit") as bar:
+        with warnings_once() as fitted:
+            result, columns = fit_run(run_file, settings, demod, engine=engine,
+                                      scheduler=scheduler, dut1_s=dut1_s, progress=bar.update,
+                                      one_stage=cross_check,
+                                      scratch_dir=scratch_dir or str(outputs.base.resolve()))
+            fitted.append(result)
+        with columns:
+            result = write_fit_files(outputs, result, columns)
     click.echo(result.summary())
     click.echo(f"\nwrote {out}\nwrote {turns_path}")

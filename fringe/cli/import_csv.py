@@ -8,8 +8,8 @@ from fringe.cli.common import run_guarded
 
 
 @click.command("import")
-@click.argument("csv_file", type=click.Path(dir_okay=False))
-@click.option("--meta", "meta", required=True, type=click.Path(dir_okay=False),
+@click.argument("csv_file")
+@click.option("--meta", "meta", required=True,
               help="TOML with epoch, site, apparatus, column mapping and units "
                    "(docs/run-format.md).")
 @click.option("--azimuth-log", "azimuth_log", type=click.Path(dir_okay=False), default=None,

@@ -4,21 +4,27 @@ from __future__ import annotations
 
 import click
 
-from fringe.cli.common import out_dir, run_guarded
+from fringe.cli.common import note_first_compile, run_guarded
 
 
 @click.command("inspect")
-@click.argument("run_file", type=click.Path(dir_okay=False))
+@click.argument("run_file")
 @click.option("--out", "out", default=None, help="Directory for the figures and summary.json.")
 @click.option("--overwrite", is_flag=True, help="Replace existing outputs.")
 @run_guarded
 def command(run_file, out, overwrite):
     """Print the quality summary of RUN_FILE (and write figures with --out)."""
     from fringe.demodulate.quality import inspect_run
+    from fringe.io.outputset import OutputSet
 
+    outputs = None
+    if out is not None:                  # refuse unwritable outputs before the work
+        outputs = OutputSet(out, ["inspect.json", "allan.png", "allan.pdf", "spectrum.png",
+                                  "spectrum.pdf"], overwrite=overwrite, protect=[run_file])
+    note_first_compile()
     rep = inspect_run(run_file)
     click.echo(rep.summary())
-    if out is None:
+    if outputs is None:
         return
     import matplotlib
 
@@ -28,20 +34,18 @@ def command(run_file, out, overwrite):
     from fringe.io.atomic import save_figure_atomic, write_json_atomic
     from fringe.report.figures.quality import allan_plot, spectrum_plot
 
-    d = out_dir(out)
-    written = [write_json_atomic(d / "inspect.json", rep.to_dict(), overwrite=overwrite,
-                                 protect=[run_file])]
-    fig, ax = plt.subplots(figsize=(5.6, 4.0))
-    allan_plot(rep.allan.tau_s, rep.allan.adev, turn_period_s=rep.stats["turn_period_s"], ax=ax)
-    for sfx in ("png", "pdf"):
-        written.append(save_figure_atomic(fig, d / f"allan.{sfx}", overwrite=overwrite,
-                                          protect=[run_file]))
-    plt.close(fig)
-    fig, ax = plt.subplots(figsize=(6.4, 4.0))
-    spectrum_plot(rep.spectrum_f_hz, rep.spectrum_amp, rep.lines_hz, ax=ax)
-    for sfx in ("png", "pdf"):
-        written.append(save_figure_atomic(fig, d / f"spectrum.{sfx}", overwrite=overwrite,
-                                          protect=[run_file]))
-    plt.close(fig)
-    for p in written:
+    with outputs:
+        write_json_atomic(outputs.path("inspect.json"), rep.to_dict())
+        fig, ax = plt.subplots(figsize=(5.6, 4.0))
+        allan_plot(rep.allan.tau_s, rep.allan.adev, turn_period_s=rep.stats["turn_period_s"],
+                   ax=ax)
+        for sfx in ("png", "pdf"):
+            save_figure_atomic(fig, outputs.path(f"allan.{sfx}"))
+        plt.close(fig)
+        fig, ax = plt.subplots(figsize=(6.4, 4.0))
+        spectrum_plot(rep.spectrum_f_hz, rep.spectrum_amp, rep.lines_hz, ax=ax)
+        for sfx in ("png", "pdf"):
+            save_figure_atomic(fig, outputs.path(f"spectrum.{sfx}"))
+        plt.close(fig)
+    for p in outputs.targets:
         click.echo(f"wrote {p}")

@@ -4,12 +4,11 @@ from __future__ import annotations
 
 import click
 
-from fringe.cli.common import out_dir as _out_dir
 from fringe.cli.common import run_guarded as _run_guarded
 
 
 @click.command("plan")
-@click.argument("scenario", type=click.Path(dir_okay=False))
+@click.argument("scenario")
 @click.option("--out", "out", default="fringe-plan", show_default=True,
               help="Directory for plan.json, plan.txt and the figures.")
 @click.option("--free", default=None, metavar="NAMES",
@@ -23,31 +22,21 @@ from fringe.cli.common import run_guarded as _run_guarded
 def command(scenario, out, free, targets, overwrite):
     """Forecast 1-sigma bounds for SCENARIO (which needs a [noise] section)."""
     from fringe.experiment.scenario import load_scenario, parse_assignments
-    from fringe.io.atomic import (
-        check_output_path,
-        save_figure_atomic,
-        write_json_atomic,
-        write_text_atomic,
-    )
+    from fringe.io.atomic import save_figure_atomic, write_json_atomic, write_text_atomic
+    from fringe.io.outputset import OutputSet
     from fringe.plan.forecast import forecast
     from fringe.plan.settings import plan_settings
 
     sc = load_scenario(scenario)
     settings = plan_settings(sc, free=free, targets=parse_assignments(targets, "--target"))
-    directory = _out_dir(out)
     protect = [scenario]
     figures = ["plan_sigma_vs_days", "plan_sigma_vs_period"]
     if settings.latitudes_deg:
         figures.append("plan_sigma_vs_latitude")
-    paths = [directory / "plan.json", directory / "plan.txt"] + [
-        directory / f"{f}.{s}" for f in figures for s in ("png", "pdf")]
-    for p in paths:                      # refuse before computing or writing anything
-        check_output_path(p, overwrite=overwrite, protect=protect)
+    names = ["plan.json", "plan.txt"] + [f"{f}.{s}" for f in figures for s in ("png", "pdf")]
+    # refuse before computing or writing anything; all outputs appear together
+    outputs = OutputSet(out, names, overwrite=overwrite, protect=protect)
     result = forecast(sc, settings=settings)
-
-    kw = {"overwrite": overwrite, "protect": protect}
-    written = [write_json_atomic(paths[0], result.to_dict(), **kw),
-               write_text_atomic(paths[1], result.summary() + "\n", **kw)]
 
     import matplotlib
 
@@ -56,15 +45,18 @@ def command(scenario, out, free, targets, overwrite):
 
     import fringe.report.figures.plan as plan_figures
 
-    for name in figures:
-        fig, ax = plt.subplots(figsize=(7.2, 4.8))
-        getattr(plan_figures, name.removeprefix("plan_"))(result, ax=ax)
-        fig.tight_layout()
-        for suffix in ("png", "pdf"):
-            written.append(save_figure_atomic(fig, directory / f"{name}.{suffix}", **kw))
-        plt.close(fig)
+    with outputs:
+        write_json_atomic(outputs.path("plan.json"), result.to_dict())
+        write_text_atomic(outputs.path("plan.txt"), result.summary() + "\n")
+        for name in figures:
+            fig, ax = plt.subplots(figsize=(7.2, 4.8))
+            getattr(plan_figures, name.removeprefix("plan_"))(result, ax=ax)
+            fig.tight_layout()
+            for suffix in ("png", "pdf"):
+                save_figure_atomic(fig, outputs.path(f"{name}.{suffix}"))
+            plt.close(fig)
 
     click.echo(result.summary())
     click.echo("")
-    for p in written:
+    for p in outputs.targets:
         click.echo(f"wrote {p}")

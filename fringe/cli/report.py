@@ -11,7 +11,6 @@ import math
 
 import click
 
-from fringe.cli.common import out_dir as _out_dir
 from fringe.cli.common import run_guarded as _run_guarded
 from fringe.errors import ConfigError
 
@@ -35,10 +34,10 @@ def parse_value_sigma(text: str | None, option: str) -> tuple[float, float] | No
 
 
 @click.command("report")
-@click.argument("fit_json", type=click.Path(dir_okay=False))
+@click.argument("fit_json")
 @click.option("--out", "out", default="fringe-report", show_default=True,
               help="Directory for report.md, report.tex, report.html, figures/, summary.json.")
-@click.option("--compare", type=click.Path(dir_okay=False), default=None,
+@click.option("--compare", default=None,
               help="CSV or TOML table of earlier results (name, value, sigma, citation).")
 @click.option("--kt", default=None, metavar="VALUE,SIGMA",
               help="Kennedy-Thorndike result beta - alpha - 1 (RMS fits: solve alpha, beta, "
@@ -53,7 +52,7 @@ def command(fit_json, out, compare, kt, is_, overwrite):
 
     content = assemble_report(fit_json, compare=compare, kt=parse_value_sigma(kt, "--kt"),
                               is_=parse_value_sigma(is_, "--is"))
-    written = write_report(content, _out_dir(out), overwrite=overwrite)
+    written = write_report(content, out, overwrite=overwrite)
     click.echo(content.headline["text"])
     for w in content.warnings:
         click.echo(f"warning (from the fit): {w}", err=True)

@@ -8,7 +8,7 @@ from fringe.cli.common import progress, run_guarded
 
 
 @click.command("simulate")
-@click.argument("scenario", type=click.Path(dir_okay=False))
+@click.argument("scenario")
 @click.option("--out", "out_path", required=True, help="Run file to write (HDF5).")
 @click.option("--seed", type=int, required=True, help="Random seed (same seed, same file).")
 @click.option("--set", "assignments", multiple=True, metavar="NAME=VALUE",

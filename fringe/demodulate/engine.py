@@ -10,6 +10,7 @@ and runs them with the local engine (a plain loop: the fastest on one machine) o
 
 from __future__ import annotations
 
+import dataclasses
 import logging
 import os
 from collections.abc import Callable
@@ -387,6 +388,23 @@ def _run_local(info, settings, parts, progress, collect):
         pool.shutdown(wait=True)
 
 
+#: Seconds to wait for a dask scheduler before giving up (dask's own default is 30 s).
+SCHEDULER_TIMEOUT_S = 10.0
+
+
+def _connect(client_class, address):
+    """A client of the scheduler at ``address``, or a one-line ConfigError if unreachable."""
+    try:
+        return client_class(address, timeout=SCHEDULER_TIMEOUT_S)
+    except (OSError, TimeoutError, ValueError) as exc:
+        reason = " ".join(str(exc).split()) or type(exc).__name__
+        if len(reason) > 160:
+            reason = reason[:157] + "..."
+        raise ConfigError(f"scheduler=ADDRESS: cannot reach a dask scheduler at {address!r} "
+                          f"within {SCHEDULER_TIMEOUT_S:g} s ({reason}); check the address "
+                          "and that the scheduler is running") from None
+
+
 def _run_dask(info, settings, parts, scheduler, collect):
     try:
         from distributed import Client
@@ -396,7 +414,10 @@ def _run_dask(info, settings, parts, scheduler, collect):
     if scheduler is None:
         raise ConfigError("engine='dask': needs scheduler=ADDRESS (e.g. tcp://host:8786)")
     own = not isinstance(scheduler, Client)
-    client = Client(scheduler) if own else scheduler
+    client = _connect(Client, scheduler) if own else scheduler
+    # the workers resolve a relative path against their own working directory: send the
+    # absolute one (on a shared filesystem it names the same file)
+    info = dataclasses.replace(info, path=os.path.abspath(info.path))
     try:
         futures = [client.submit(demodulate_range, info, settings, a, b, pure=False)
                    for a, b in parts]

@@ -16,8 +16,9 @@ blocks within a factor p above it may be too.
 Arithmetic: IEEE double precision; only the dot products of (2) may be reassociated and fused
 (numba ``fastmath`` flags ``reassoc`` and ``contract``, for SIMD), never the NaN/inf handling.
 A block's numbers depend only on its own samples and the fixed code, so they do not depend on
-how the record is split into ranges or threads. ``cache=True`` stores the compiled code beside
-this module (or in numba's cache directory), so only the first run after an install compiles.
+how the record is split into ranges or threads. The compiled code is cached beside
+this module (or in numba's cache directory, or a temporary one: :mod:`fringe.demodulate.
+kernel_cache`), so only the first run after an install compiles.
 The kernels are tested against a plain per-block ``numpy.linalg.lstsq`` statement of the model
 (``tests/demodulate/test_demodulate.py``).
 """
@@ -26,6 +27,8 @@ from __future__ import annotations
 
 import numpy as np
 from numba import njit
+
+from fringe.demodulate.kernel_cache import CACHE  # a writable cache, or none (decorators)
 
 #: Smallest eigenvalue of the unit-diagonal block normal matrix below which a block is singular.
 MIN_EIGENVALUE = 1e-8
@@ -36,7 +39,7 @@ LEAK_KIND_CODES = {"C": 0, "B": 1, "A": 2}
 TWO_PI = 2.0 * np.pi
 
 
-@njit(cache=True, nogil=True, inline="always")
+@njit(cache=CACHE, nogil=True, inline="always")
 def _mod_2pi(v):
     """Return v mod 2 pi as v - 2 pi floor(v / 2 pi), in [0, 2 pi] to rounding.
 
@@ -46,7 +49,7 @@ def _mod_2pi(v):
     return v - TWO_PI * np.floor(v / TWO_PI)
 
 
-@njit(cache=True, nogil=True, inline="always")
+@njit(cache=CACHE, nogil=True, inline="always")
 def _design_row(x, tau, c1, s1, nd, max_harmonic):
     """Fill x with 1, tau[, tau^2], cos theta, sin theta, ..., cos m theta, sin m theta."""
     x[0] = 1.0
@@ -61,7 +64,7 @@ def _design_row(x, tau, c1, s1, nd, max_harmonic):
         c, s = c * c1 - s * s1, c * s1 + s * c1
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=CACHE, nogil=True)
 def _cholesky_inverse(a, p, low, li, inv):
     """Set inv to the inverse of the symmetric positive-definite p x p matrix a.
 
@@ -100,7 +103,7 @@ def _cholesky_inverse(a, p, low, li, inv):
     return True
 
 
-@njit(cache=True, nogil=True, fastmath={"reassoc", "contract"})
+@njit(cache=CACHE, nogil=True, fastmath={"reassoc", "contract"})
 def _dot(a, b, m):
     """Return the sum of a[:m] b[:m], reassociated (SIMD).
 
@@ -113,7 +116,7 @@ def _dot(a, b, m):
     return acc
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=CACHE, nogil=True)
 def _largest_angle_gap(psi):
     """Largest gap (rad) between consecutive angles psi (in [0, 2 pi)) around the circle."""
     n = psi.size
@@ -143,7 +146,7 @@ def _largest_angle_gap(psi):
 # One compiled loop on purpose: it makes three passes over each block's samples while they
 # are in cache; split into functions it would pay call overhead in the hot loop and risk the
 # bit-identical numbers.
-@njit(cache=True, nogil=True)
+@njit(cache=CACHE, nogil=True)
 def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
                max_harmonic, leak_kind, leak_power, min_samples, max_gap_rad, w,
                gap_harmonic=1):
@@ -330,14 +333,14 @@ def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
 ANGLE_TIE_RAD = 1e-7
 
 
-@njit(cache=True, nogil=True, inline="always")
+@njit(cache=CACHE, nogil=True, inline="always")
 def _psi(theta, theta0):
     """(theta - theta0) mod 2 pi, with values within ANGLE_TIE_RAD below 2 pi moved to ~0."""
     psi = _mod_2pi(theta - theta0)
     return psi - TWO_PI * (psi >= TWO_PI - ANGLE_TIE_RAD)
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=CACHE, nogil=True)
 def block_starts(theta, t, theta0, max_gap_s, theta_prev, t_prev, has_prev):
     """Boolean (n,): True where a new block starts before sample i.
 

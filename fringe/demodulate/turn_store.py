@@ -28,6 +28,7 @@ from numpy.typing import NDArray
 from fringe.demodulate.settings import DemodSettings
 from fringe.demodulate.turns import TurnTable, TurnTableBuilder, glitch_status, status_counts
 from fringe.errors import OutputError
+from fringe.io.atomic import sweep_leftovers, temp_name
 
 #: Turns per segment of stages 2-3 and per write of the scratch table (65536 turns: 34 days of
 #: 45 s turns; about 17 MB of table and 14 MB of stage 2-3 rows per segment).
@@ -55,10 +56,12 @@ class Scratch:
     def file(self, name: str) -> Path:
         """Path of a scratch file (creates the directory on first use)."""
         if self.path is None:
+            where = Path(self.parent if self.parent is not None else tempfile.gettempdir())
             try:
-                self.path = Path(tempfile.mkdtemp(
-                    prefix=".fringe-scratch-",
-                    dir=None if self.parent is None else str(self.parent)))
+                sweep_leftovers(where)            # scratch of runs killed by SIGKILL
+                path = where / temp_name("", "scratch")
+                path.mkdir(mode=0o700)
+                self.path = path
             except OSError as exc:
                 where = self.parent if self.parent is not None else tempfile.gettempdir()
                 raise OutputError(f"{where}: scratch directory: expected a writable directory "

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import difflib
 import math
+import os
 
 try:
     import tomllib
@@ -23,7 +24,7 @@ from pathlib import Path
 
 import numpy as np
 
-from fringe.errors import ConfigError, InputFileError, check_finite_number
+from fringe.errors import ConfigError, InputFileError, check_finite_number, check_regular_file
 from fringe.experiment.apparatus import Apparatus, make_apparatus
 from fringe.experiment.basis import Setup
 from fringe.experiment.turntable import AxisTilt, make_motion
@@ -212,6 +213,8 @@ def load_scenario(path: str | Path) -> Scenario:
     """Read and validate a scenario TOML file; errors name the file, section and field."""
     path = Path(path)
     source = str(path)
+    if os.path.lexists(path):             # a FIFO would block the read forever
+        check_regular_file(path, "a scenario (TOML) file")
     try:
         with open(path, "rb") as fh:
             doc = tomllib.load(fh)

@@ -40,7 +40,7 @@ try:
 except ModuleNotFoundError:  # Python 3.10
     import tomli as tomllib
 
-from fringe.errors import ConfigError, InputFileError, TimeScaleWarning
+from fringe.errors import ConfigError, InputFileError, TimeScaleWarning, check_regular_file
 from fringe.frames import UTC_FIRST_YEAR, leap_table_last_year
 from fringe.io.runformat import (
     APPARATUS_KINDS,
@@ -164,6 +164,8 @@ def read_import_metadata(path: str | os.PathLike) -> dict:
         ``PATH: FIELD: EXPECTED``, e.g. ``meta.toml: site.latitude_deg: expected ...``.
     """
     path = os.fspath(path)
+    if os.path.lexists(path):             # a FIFO would block the read forever
+        check_regular_file(path, "the import's metadata (TOML) file")
     try:
         with open(path, "rb") as fh:
             raw = tomllib.load(fh)

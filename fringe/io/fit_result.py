@@ -11,6 +11,7 @@ an HDF5 file beside it (:mod:`fringe.io.turns_file`). Both formats are documente
 from __future__ import annotations
 
 import json
+import re
 from collections.abc import Mapping
 from dataclasses import dataclass, field, fields
 from pathlib import Path
@@ -39,6 +40,7 @@ __all__ = ["CONVENTIONS", "FORMAT", "FORMAT_VERSION", "READABLE_VERSIONS", "FitR
            "read_fit_result", "session_lines"]
 
 FORMAT = "fit"
+_SHA256 = re.compile(r"[0-9a-f]{64}")
 FORMAT_VERSION = 2
 #: The line under the coefficient table of :meth:`FitResult.summary`.
 EFFICIENCY_DEFINITION = ("efficiency = white-noise Cramer-Rao sigma of this record (per-sample "
@@ -96,6 +98,9 @@ class FitResult:
     created_utc : str or None
     amplitudes_file : str
         The per-turn amplitudes file, relative to the result file ("" for none).
+    amplitudes_sha256 : str
+        SHA-256 (64 hex digits) of that file as written with this result, so a reader can tell
+        it from a turns file of another fit ("" in files written before it was recorded).
     nuisance : mapping of str to Estimate
         Nuisances fitted with the coefficients (unit of the observable); NaN where written
         as null.
@@ -142,6 +147,7 @@ class FitResult:
     software: Mapping[str, str] | None
     created_utc: str | None
     amplitudes_file: str = ""
+    amplitudes_sha256: str = ""
     nuisance: Mapping[str, Estimate] = field(default_factory=FrozenMap)
     notes: tuple[str, ...] = ()
     upper_limits: Mapping[str, float] = field(default_factory=FrozenMap)
@@ -214,6 +220,10 @@ class FitResult:
                           amplitudes)
         if amplitudes:
             f.check_string("amplitudes_file", amplitudes)
+        digest = d.get("amplitudes_sha256", "")
+        if not (isinstance(digest, str) and (digest == "" or _SHA256.fullmatch(digest))):
+            raise f.error("amplitudes_sha256", "64 lowercase hexadecimal digits (the SHA-256 "
+                          "of amplitudes_file)", digest)
         return cls(
             theory=f.string("theory"), units=f.string("units"), coefficients=coefficients,
             fixed=_numbers(f, "fixed") or {},
@@ -231,6 +241,7 @@ class FitResult:
             software=_strings(f, "software"),
             created_utc=f.string("created_utc", required=False),
             amplitudes_file=amplitudes or "",
+            amplitudes_sha256=digest,
             nuisance=read_estimates(f, "nuisance", required=False, null=True) or {},
             notes=f.strings("notes", required=False) or (),
             upper_limits=_numbers(f, "upper_limits", null=True) or {},

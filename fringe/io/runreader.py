@@ -34,7 +34,7 @@ import h5py
 import numpy as np
 from numpy.typing import NDArray
 
-from fringe.errors import ConfigError, InputFileError
+from fringe.errors import ConfigError, InputFileError, check_regular_file
 from fringe.io.runformat import (
     APPARATUS_KINDS,
     AZIMUTH_UNITS,
@@ -117,6 +117,7 @@ def _open_hdf5(path: str) -> h5py.File:
         raise InputFileError(path, "file", "expected an existing file")
     if os.path.isdir(path):
         raise InputFileError(path, "file", "expected a file, got a directory")
+    check_regular_file(path, "a run file (HDF5)")     # a FIFO would block the read forever
     try:
         is_hdf5 = h5py.is_hdf5(path)
     except OSError as exc:

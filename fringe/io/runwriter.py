@@ -12,13 +12,23 @@ from __future__ import annotations
 import contextlib
 import logging
 import os
-import secrets
 from collections.abc import Mapping, Sequence
 
 import h5py
 import numpy as np
 
 from fringe.errors import ConfigError, OutputError
+from fringe.io.atomic import (
+    check_directory_writable,
+    check_name_length,
+    name_max,
+    output_error,
+    real_target,
+    signals_deferred,
+    sweep_leftovers,
+    temp_name,
+)
+from fringe.io.h5guard import open_h5_output
 from fringe.io.runformat import (
     APPARATUS_KINDS,
     AZIMUTH_UNITS,
@@ -50,6 +60,7 @@ logger = logging.getLogger(__name__)
 
 def _check_output_path(path: str, overwrite: bool, protect: Sequence) -> None:
     """Refuse (OutputError) an output that would replace an input or an existing file."""
+    check_name_length(path)
     real = os.path.realpath(path)
     for item in protect:
         p = os.fspath(item)
@@ -59,11 +70,17 @@ def _check_output_path(path: str, overwrite: bool, protect: Sequence) -> None:
         if same:
             raise OutputError(f"{path}: refusing to write over the input file {p}")
     if os.path.isdir(path):
-        raise OutputError(f"{path}: expected an output file path, got a directory")
+        raise OutputError(f"{path}: expected an output file path, got a directory; remove it "
+                          "or choose another name")
     if not os.path.isdir(os.path.dirname(real)):
         raise OutputError(f"{path}: the output directory does not exist")
     if os.path.exists(path) and not overwrite:
         raise OutputError(f"{path}: the output file exists (overwriting was not requested)")
+    check_directory_writable(os.path.dirname(real), shown=path)
+    name = os.path.basename(real)
+    if len(os.fsencode(name)) > name_max(os.path.dirname(real)):
+        raise OutputError(f"{path}: file name too long ({len(os.fsencode(name))} bytes, at most "
+                          f"{name_max(os.path.dirname(real))}); choose a shorter name")
 
 
 def _fixed_strings(values) -> np.ndarray:
@@ -92,16 +109,24 @@ def _attr_value(value, err, obj: str):
               f"{type(value).__name__}")
 
 
-def _create_temp(directory: str, name: str) -> str:
-    """Create an empty temporary file beside the output (mode from the umask, like any file)."""
+def _create_temp(path: str) -> str:
+    """Create an empty temporary file beside the output (mode from the umask, like any file).
+
+    Beside the file a symlink ``path`` points to, so the final rename stays on one filesystem.
+    Temporary files of dead runs in that directory are removed first.
+    """
+    target = real_target(path)
+    sweep_leftovers(target.parent)
     for _ in range(100):
-        tmp = os.path.join(directory, f".{name}.{secrets.token_hex(6)}.tmp")
+        tmp = os.path.join(target.parent, temp_name(target.name, "part"))
         try:
             os.close(os.open(tmp, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o666))
             return tmp
         except FileExistsError:
             continue
-    raise OutputError(f"{os.path.join(directory, name)}: cannot create a temporary file")
+        except OSError as exc:
+            raise output_error(path, exc) from None
+    raise OutputError(f"{path}: cannot create a temporary file")
 
 
 class RunWriter:
@@ -200,6 +225,7 @@ class RunWriter:
         self._overwrite, self._protect = overwrite, tuple(protect)
         _check_output_path(self.path, overwrite, self._protect)
         self._file: h5py.File | None = None
+        self._guard = None
         self._tmp: str | None = None
         self._groups: set[str] = set()
         self.n_samples = 0
@@ -212,10 +238,10 @@ class RunWriter:
         return OutputError(f"{self.path}: {obj}: {expected}")
 
     def __enter__(self) -> RunWriter:
-        directory = os.path.dirname(os.path.realpath(self.path))
-        self._tmp = _create_temp(directory, os.path.basename(self.path))
+        self._tmp = _create_temp(self.path)
         try:
-            self._file = f = h5py.File(self._tmp, "w", libver=("v108", "latest"))
+            self._file, self._guard = open_h5_output(self._tmp, libver=("v108", "latest"))
+            f = self._file
             f.attrs["fringe_format"] = _fixed_strings(FORMAT_NAME)
             f.attrs["fringe_format_version"] = np.int64(
                 version_needed(self.signal_attrs, self.weighted))
@@ -238,6 +264,9 @@ class RunWriter:
             for key, value in self.signal_attrs.items():
                 samples["signal"].attrs[key] = _attr_value(value, self._config_err,
                                                            f"samples/signal.{key}")
+        except OSError as exc:
+            self.abort()
+            raise output_error(self.path, exc) from None
         except BaseException:
             self.abort()
             raise
@@ -302,6 +331,8 @@ class RunWriter:
             ds.resize((n + m,))
             ds.write_direct(arr, dest_sel=np.s_[n:n + m])
         self.n_samples, self._last_t = n + m, last
+        if self._guard.error is not None:     # e.g. the disk is full: stop at once
+            raise output_error(self.path, self._guard.error)
 
     def write_group(self, name: str, attrs: Mapping, datasets: Mapping | None = None) -> None:
         """Write an extra root group (e.g. ``truth``, ``settings``, ``provenance``).
@@ -328,26 +359,38 @@ class RunWriter:
             if self.n_samples == 0:
                 raise self._output_err("samples", "expected at least one sample, none appended")
             self._file.close()
-            with open(self._tmp, "rb+") as fh:
-                os.fsync(fh.fileno())
+            self._file = None
+            self._guard.close()           # syncs to the disk
+            if self._guard.error is not None:
+                raise output_error(self.path, self._guard.error)
             if os.path.exists(self.path) and not self._overwrite:
                 raise OutputError(f"{self.path}: the output file exists (overwriting was not "
                                   f"requested)")
-            os.replace(self._tmp, self.path)
-            self._file, self._tmp = None, None
+            try:
+                os.replace(self._tmp, real_target(self.path))
+            except OSError as exc:
+                raise output_error(self.path, exc) from None
+            self._tmp = None
         except BaseException:
             self.abort()
             raise
 
     def abort(self) -> None:
-        """Discard the temporary file; the output is left as it was."""
-        if self._file is not None:
-            try:
-                self._file.close()
-            except (OSError, RuntimeError) as exc:  # the file is discarded anyway
-                logger.debug("closing %s failed: %s", self._tmp, exc)
-            self._file = None
-        if self._tmp is not None:
-            with contextlib.suppress(FileNotFoundError):
-                os.remove(self._tmp)
-            self._tmp = None
+        """Discard the temporary file; the output is left as it was.
+
+        SIGINT and SIGTERM wait until it is gone.
+        """
+        with signals_deferred():
+            if self._file is not None:
+                try:
+                    self._file.close()
+                except (OSError, RuntimeError) as exc:  # the file is discarded anyway
+                    logger.debug("closing %s failed: %s", self._tmp, exc)
+                self._file = None
+            if self._guard is not None:
+                self._guard.close()
+                self._guard = None
+            if self._tmp is not None:
+                with contextlib.suppress(FileNotFoundError):
+                    os.remove(self._tmp)
+                self._tmp = None

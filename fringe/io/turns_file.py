@@ -100,29 +100,37 @@ def write_turns(path, *, units: str, epoch_utc: str, columns, overwrite: bool = 
     ``columns``: a dict of equal-length arrays, or :class:`TurnColumns` (written a segment at
     a time).
     """
-    import h5py
-
     from fringe.io.atomic import write_atomic
+    from fringe.io.h5guard import open_h5_output
 
     def _w(tmp):
-        with h5py.File(tmp, "w") as f:
-            f.attrs["fringe_format"] = "turns"
-            f.attrs["fringe_format_version"] = 1
-            f.attrs["units"] = units
-            f.attrs["epoch_utc"] = epoch_utc
-            g = f.create_group("turns")
-            if isinstance(columns, dict):
-                for name, arr in columns.items():
-                    g.create_dataset(name, data=np.asarray(arr))
-                return
-            n, done = len(columns), 0
-            for part in columns.segments():
-                m = part["t_mid_s"].size
-                for name, arr in part.items():
-                    if name not in g:
-                        g.create_dataset(name, shape=(n,), dtype=np.asarray(arr).dtype)
-                    g[name][done:done + m] = arr
-                done += m
+        f, guard = open_h5_output(tmp)
+        try:
+            _fill(f)
+        finally:
+            f.close()
+            guard.close()
+        if guard.error is not None:
+            raise guard.error
+
+    def _fill(f):
+        f.attrs["fringe_format"] = "turns"
+        f.attrs["fringe_format_version"] = 1
+        f.attrs["units"] = units
+        f.attrs["epoch_utc"] = epoch_utc
+        g = f.create_group("turns")
+        if isinstance(columns, dict):
+            for name, arr in columns.items():
+                g.create_dataset(name, data=np.asarray(arr))
+            return
+        n, done = len(columns), 0
+        for part in columns.segments():
+            m = part["t_mid_s"].size
+            for name, arr in part.items():
+                if name not in g:
+                    g.create_dataset(name, shape=(n,), dtype=np.asarray(arr).dtype)
+                g[name][done:done + m] = arr
+            done += m
 
     write_atomic(path, _w, overwrite=overwrite, protect=protect)
 

@@ -146,18 +146,30 @@ def turn_shape_matrix(scenario, drift: str = "linear") -> NDArray:
     with whichever 2 theta component is odd about the turn's middle (up to ~1.6x in variance).
     Exact for white noise; used as the shape for coloured noise too (an approximation).
     Stepped rotation: the identity (the dwell-mark averages are handled by the duty factor).
+
+    The 2 x 2 block is computed here with numpy from the design of
+    :mod:`fringe.demodulate.blocks` (the same columns and time scaling as the compiled kernel;
+    ``tests/plan/test_plan.py`` compares the two), so a forecast never compiles the kernel.
     """
-    from fringe.demodulate.blocks import demodulate_blocks
-    from fringe.demodulate.settings import DemodSettings
+    from fringe.demodulate.settings import DRIFT_TERMS, DemodSettings
 
     motion = scenario.motion
     if isinstance(motion, SteppedRotation):
         return np.eye(2)
+    settings = DemodSettings(drift=drift)
     n = max(int(round(motion.period_s / scenario.sample_interval_s)), 8)
     t = np.arange(n) * scenario.sample_interval_s
-    az = motion.azimuth_rad(t)
-    table = demodulate_blocks(t, az, np.zeros(n), np.array([0]), DemodSettings(drift=drift))
-    return 0.5 * n * table.ninv_2[0]
+    theta = np.pi - motion.azimuth_rad(t)                         # C7
+    half = max(0.5 * (t[-1] - t[0]), 1e-9)
+    tau = (t - t.mean()) / half
+    nd = DRIFT_TERMS[settings.drift]
+    cols = [tau ** j for j in range(nd)]
+    for m in range(1, settings.max_harmonic + 1):
+        cols += [np.cos(m * theta), np.sin(m * theta)]
+    x = np.stack(cols, axis=1)
+    inv = np.linalg.inv(x.T @ x)
+    ic = nd + 2                                                   # cos 2 theta (C), then B
+    return 0.5 * n * inv[ic:ic + 2, ic:ic + 2]
 
 
 def _turn_sums(setup, names, period_s, n_turns, max_points, stride=None,

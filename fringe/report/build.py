@@ -19,14 +19,14 @@ from __future__ import annotations
 
 import dataclasses
 import datetime
-import os
-from collections.abc import Sequence
 from pathlib import Path
 
 import fringe.report.figures.fit as F
-from fringe.errors import ConfigError, OutputError
+from fringe.errors import ConfigError
 from fringe.io.atomic import save_figure_atomic, write_json_atomic, write_text_atomic
+from fringe.io.fit_files import check_companion
 from fringe.io.fit_sections import Covariance
+from fringe.io.outputset import OutputSet
 from fringe.io.records import plain
 from fringe.report.content import ReportContent
 from fringe.report.documents import (
@@ -78,6 +78,8 @@ def assemble_report(fit_json_path, *, compare=None, kt: tuple[float, float] | No
     turns_path = turns = None
     if fit.amplitudes_file:
         turns_path = fit_path.parent / fit.amplitudes_file
+        if turns_path.is_file():          # the turns file written with this fit, no other
+            check_companion(fit, turns_path)
         turns = load_turns(turns_path, fit)
     else:
         notes.append("The fit names no per-turn amplitudes file: the figures of the per-turn "
@@ -137,44 +139,37 @@ def assemble_report(fit_json_path, *, compare=None, kt: tuple[float, float] | No
 
 # ------------------------------------------------------------------------------- write
 
-def _check_targets(targets: Sequence[Path], protect: Sequence[Path], overwrite: bool) -> None:
-    for p in targets:
-        for i in protect:
-            if os.path.abspath(p) == os.path.abspath(i) or (
-                    p.exists() and Path(i).exists() and os.path.samefile(p, i)):
-                raise OutputError(f"{p}: refusing to write over an input file")
-        if p.exists() and not overwrite:
-            raise OutputError(f"{p}: exists (pass overwrite=True to replace it)")
-
-
 def write_report(content: ReportContent, out_dir, *, overwrite: bool = False) -> list[Path]:
     """Render ``content`` into ``out_dir`` (created if missing); return the paths written.
 
     Refuses with :class:`~fringe.errors.OutputError`, before writing anything, when a target
-    exists and ``overwrite`` is false or when a target is one of the inputs.
+    exists and ``overwrite`` is false, when a target is one of the inputs, or when the
+    directory cannot be written. Every file is rendered into a staging directory first and
+    all are moved into place together (:class:`~fringe.io.outputset.OutputSet`): a failure
+    (full disk) or an interrupt leaves the directory as it was.
     """
     out = Path(out_dir)
-    if out.exists() and not out.is_dir():
-        raise OutputError(f"{out}: exists and is not a directory")
     names = F.report_figure_names(content.fit, content.turns)
-    targets = [out / n for n in OUTPUT_FILES]
-    targets += [out / FIGURE_DIR / f"{n}.{ext}" for n in names for ext in ("png", "pdf")]
-    _check_targets(targets, content.inputs, overwrite)
-    (out / FIGURE_DIR).mkdir(parents=True, exist_ok=True)
-    kw = {"overwrite": overwrite, "protect": content.inputs}
-    written, figs = [], []
-    for name, caption, fig in F.report_figures(content.fit, content.turns, content.comparison):
-        for ext in ("png", "pdf"):
-            written.append(save_figure_atomic(fig, out / FIGURE_DIR / f"{name}.{ext}", **kw))
-        # embed the very PNG just written (read back: one rendering, identical bytes)
-        figs.append((name, caption, written[-2].read_bytes()))
-    written.append(write_text_atomic(out / "report.md", markdown_report(content, figs), **kw))
-    written.append(write_text_atomic(out / "report.tex", latex_report(content), **kw))
-    written.append(write_text_atomic(out / "report.html", html_report(content, figs), **kw))
-    files = [p.relative_to(out).as_posix() for p in written] + ["summary.json"]
-    written.append(write_json_atomic(out / "summary.json",
-                                     summary(content, [f[0] for f in figs], files), **kw))
-    return written
+    figure_files = [f"{FIGURE_DIR}/{n}.{ext}" for n in names for ext in ("png", "pdf")]
+    # figures first, summary.json (which lists the rest) last
+    outputs = OutputSet(out, figure_files + list(OUTPUT_FILES), overwrite=overwrite,
+                        protect=content.inputs)
+    figs, rendered = [], []
+    with outputs:
+        for name, caption, fig in F.report_figures(content.fit, content.turns,
+                                                   content.comparison):
+            for ext in ("png", "pdf"):
+                rendered.append(f"{FIGURE_DIR}/{name}.{ext}")
+                save_figure_atomic(fig, outputs.path(rendered[-1]))
+            # embed the very PNG just written (read back: one rendering, identical bytes)
+            figs.append((name, caption, outputs.path(rendered[-2]).read_bytes()))
+        write_text_atomic(outputs.path("report.md"), markdown_report(content, figs))
+        write_text_atomic(outputs.path("report.tex"), latex_report(content))
+        write_text_atomic(outputs.path("report.html"), html_report(content, figs))
+        files = rendered + ["report.md", "report.tex", "report.html", "summary.json"]
+        write_json_atomic(outputs.path("summary.json"),
+                          summary(content, [f[0] for f in figs], files))
+    return [out / f for f in files]
 
 
 def build_report(fit_json_path, out_dir, *, compare=None, kt=None, is_=None,

@@ -240,7 +240,8 @@ def test_interrupted_fit_removes_its_scratch(run_path, small_segments, tmp_path,
     def interrupted(*args, **kwargs):
         calls.append(1)
         if len(calls) == 2:
-            assert any(p.name.startswith(".fringe-scratch-") for p in tmp_path.iterdir())
+            assert any(p.name.endswith(".scratch") and p.name.startswith(".fringe-")
+                       for p in tmp_path.iterdir())
             raise KeyboardInterrupt
         return real(*args, **kwargs)
 

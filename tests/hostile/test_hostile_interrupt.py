@@ -39,7 +39,8 @@ with RunWriter(path, site={"latitude_deg": 10.0, "longitude_deg": 20.0},
         if mode == "wait":
             sys.stdin.readline()
 """
-TEMP_NAME = re.compile(r"\.run\.h5\.[0-9a-f]{12}\.tmp")  # RunWriter's hidden temporary file
+# RunWriter's hidden temporary file: .NAME.fringe-HOST-PID-RANDOM.part (fringe/io/atomic.py)
+TEMP_NAME = re.compile(r"\.run\.h5\.fringe-[0-9a-f]{6}-\d+-[0-9a-f]{8}\.part")
 
 
 def write_and_kill(path: Path, sig: int, *, overwrite: bool, mode: str, appends: int = 3):
@@ -93,23 +94,28 @@ def test_killed_writer_leaves_output_untouched(tmp_path, sig, mode, existing):
         assert len(leftovers) == 1 and TEMP_NAME.fullmatch(leftovers[0]), leftovers
 
 
-def test_stale_temporary_files_accumulate_and_are_refused(tmp_path):
-    """Each killed write leaves its own hidden temporary file (documented, not cleaned up);
-    opened by mistake, one is refused with one line (in a subprocess: a hang would show)."""
+def test_stale_temporary_files_are_swept_by_the_next_write_and_refused(tmp_path):
+    """A killed write leaves its hidden temporary file; the next write in that directory
+    removes it (its process is gone), so they never pile up; opened by mistake, one is refused
+    with one line (in a subprocess: a hang would show)."""
     path = tmp_path / "run.h5"
-    for _ in range(2):
-        write_and_kill(path, signal.SIGKILL, overwrite=False, mode="wait", appends=2)
-    leftovers = sorted(os.listdir(tmp_path))
-    assert len(leftovers) == 2 and all(TEMP_NAME.fullmatch(p) for p in leftovers)
+    write_and_kill(path, signal.SIGKILL, overwrite=False, mode="wait", appends=2)
+    first = sorted(os.listdir(tmp_path))
+    assert len(first) == 1 and TEMP_NAME.fullmatch(first[0]), first
     probe = ("import sys\nfrom fringe.errors import InputFileError\n"
              "from fringe.io.runreader import open_run\n"
              "try:\n    open_run(sys.argv[1]).close()\n    print('ok')\n"
              "except InputFileError as exc:\n    print(exc)\n")
-    stale = tmp_path / leftovers[0]
+    stale = tmp_path / first[0]
     res = subprocess.run([sys.executable, "-c", probe, str(stale)], capture_output=True,
                          text=True, timeout=120)
     assert res.returncode == 0, res.stderr
     assert res.stdout.startswith(f"{stale}: ") and res.stdout.count("\n") == 1, res.stdout
+    write_and_kill(path, signal.SIGKILL, overwrite=False, mode="wait", appends=2)
+    second = sorted(os.listdir(tmp_path))
+    assert len(second) == 1 and TEMP_NAME.fullmatch(second[0]) and second != first, second
+    small_run(path)                       # a write that completes sweeps the last one too
+    assert sorted(os.listdir(tmp_path)) == ["run.h5"]
 
 
 def cli(*args: str, **kw) -> subprocess.Popen:
@@ -160,7 +166,8 @@ def test_simulate_interrupted(tmp_path, sig):
         assert leftovers == []
     else:
         assert proc.returncode == -signal.SIGKILL
-        assert len(leftovers) == 1 and re.fullmatch(r"\.sim\.h5\.[0-9a-f]{12}\.tmp",
+        assert len(leftovers) == 1 and re.fullmatch(r"\.sim\.h5\.fringe-[0-9a-f]{6}-\d+-"
+                                                    r"[0-9a-f]{8}\.part",
                                                     leftovers[0])
 
 
@@ -205,5 +212,13 @@ def test_fit_killed_mid_way_writes_nothing(tmp_path):
             proc.kill()
             proc.communicate()
     assert proc.returncode == -signal.SIGKILL
-    assert os.listdir(out_dir) == []  # no result.json, no result.turns.h5, no temporary file
+    # no result.json, no result.turns.h5: only the hidden staging directory of the killed run,
+    # which the next run in that directory removes (its process is gone)
+    left = os.listdir(out_dir)
+    assert len(left) == 1 and re.fullmatch(r"\.fringe-[0-9a-f]{6}-\d+-[0-9a-f]{8}\.staging",
+                                           left[0]), left
+    from fringe.io.atomic import sweep_leftovers
+
+    assert sweep_leftovers(out_dir) == [out_dir / left[0]]
+    assert os.listdir(out_dir) == []
     assert digest(run_path) == before

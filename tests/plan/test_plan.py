@@ -94,6 +94,23 @@ def test_turn_shape_matches_demodulated_white_noise():
     assert max(f[0, 0], f[1, 1]) > 1.1      # the linear drift term does inflate one component
 
 
+@pytest.mark.parametrize("drift", ["offset", "linear", "quadratic"])
+def test_turn_shape_equals_the_kernel_inverse(drift):
+    # turn_shape_matrix computes (n/2) (X^T X)^-1 of the stage-1 design with numpy, so a
+    # forecast never compiles the kernel; the compiled kernel's ninv_2 on the same turn is the
+    # reference (same design, same scaling; agreement to rounding, 1e-9 relative)
+    from fringe.demodulate.blocks import demodulate_blocks
+    from fringe.demodulate.settings import DemodSettings
+    from fringe.plan.forecast import turn_shape_matrix
+
+    sc = _white_fm_scenario(1.0, drift=drift)
+    n = max(int(round(sc.motion.period_s / sc.sample_interval_s)), 8)
+    t = np.arange(n) * sc.sample_interval_s
+    table = demodulate_blocks(t, sc.motion.azimuth_rad(t), np.zeros(n), np.array([0]),
+                              DemodSettings(drift=drift))
+    assert turn_shape_matrix(sc, drift) == pytest.approx(0.5 * n * table.ninv_2[0], rel=1e-9)
+
+
 def test_sizing_rule_c0_line():
     # docs/references.md [R-noise-sizing]: sigma_C = sqrt(h0 / T) for white FM;
     # [R-lab-fourier]: C0 = 3/4 sin^2 chi K^ZZ (ke_ZZ enters C0 only). With ke_ZZ alone
