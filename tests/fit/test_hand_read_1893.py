@@ -83,3 +83,20 @@ def test_the_first_block_starts_at_the_first_sample_in_either_sense(step_deg):
     psi = (theta - theta0) % (2 * np.pi)
     assert np.all(np.abs(np.diff(psi)) < np.pi)          # no crossing among the first samples
     assert theta0 == pytest.approx(1.0 if step_deg > 0 else 1.0 - np.radians(step_deg) / 2)
+
+
+def test_the_report_figure_says_the_sidereal_curve_is_absent(session_fit):
+    """A fit without stage 2 draws no C10 curve, and the caption says why."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from fringe.report.figures.fit import report_figures
+
+    result, turns, _ = session_fit
+    keep = turns["accepted"].astype(bool)
+    accepted = {k: np.asarray(v)[keep] for k, v in turns.items() if k != "accepted"}
+    accepted["turn_period_s"] = result.stage1.turn_period_s
+    figures = {name: (caption, fig) for name, caption, fig in report_figures(result, accepted)}
+    caption = figures["amplitudes"][0]
+    assert "no C10 curve: the sidereal stage was skipped" in caption
+    assert "dashed" not in caption

@@ -409,8 +409,11 @@ def report_figures(fit: FitResult, turns: Mapping | None, comparison: Sequence[M
                     f"the {t['t_mid_s'].size} accepted turns against the sidereal angle φ: "
                     "weighted means in 15° bins (± 1σ, scaled up by the Birge ratio where the "
                     "scatter exceeds the stated uncertainties), the fitted coefficient model "
-                    "(model_C, model_B) averaged over the same turns and bins (line), and the "
-                    "curve of the fitted C10 harmonics (dashed).", axes[0].figure))
+                    "(model_C, model_B) averaged over the same turns and bins (line)"
+                    + (", and the curve of the fitted C10 harmonics (dashed)." if h is not None
+                       else "; no C10 curve: the sidereal stage was skipped (too few sidereal "
+                            "phases), the per-session amplitudes stand in for it."),
+                    axes[0].figure))
         ax = plot_spectrum(t["t_mid_s"], {"C": (t["C"], t["sigma_C"]),
                                           "B": (t["B"], t["sigma_B"])}, units=units)
         out.append(("spectrum", "Least-squares amplitude spectrum of the per-turn C and B "
