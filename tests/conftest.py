@@ -22,6 +22,16 @@ GOLDEN = DATA / "golden"
 UPDATE_GOLDEN = "FRINGE_UPDATE_GOLDEN"
 
 
+@pytest.hookimpl(trylast=True)
+def pytest_configure(config):
+    """Keep hypothesis's storage (example database, constants cache) under pytest's temporary
+    base directory: by default hypothesis writes ``.hypothesis/`` into the working directory,
+    and tests write only under pytest's temporary directories."""
+    from hypothesis.configuration import set_hypothesis_home_dir
+
+    set_hypothesis_home_dir(config._tmp_path_factory.getbasetemp() / "hypothesis")
+
+
 @pytest.fixture(scope="session")
 def data_dir() -> Path:
     """tests/data: stored inputs (the fit example) and tests/data/golden."""
