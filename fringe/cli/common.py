@@ -63,6 +63,16 @@ def _interrupted(signum: int) -> None:
     sys.exit(128 + signum)
 
 
+def _exit_unless_interrupted(line: str, code: int) -> None:
+    """Print ``line`` and exit ``code``, unless an interrupt came meanwhile (then 130/143)."""
+    from fringe.io.atomic import interrupt_received
+
+    if interrupt_received() is not None:
+        _interrupted(interrupt_received())
+    click.echo(line, err=True)
+    sys.exit(code)
+
+
 def run_guarded(func):
     """Turn user errors, environment failures and interrupts into one line and an exit status.
 
@@ -85,9 +95,12 @@ def run_guarded(func):
             else:
                 click.echo(f"warning: {category.__name__}: {message}", err=True)
 
+        exiting = []         # once the command is ending, a signal is noted, not raised
+
         def on_signal(signum, frame):
             note_interrupt(signum)
-            raise KeyboardInterrupt
+            if not exiting:
+                raise KeyboardInterrupt
 
         old = warnings.showwarning
         warnings.showwarning = show_warning
@@ -99,19 +112,25 @@ def run_guarded(func):
             except ValueError:               # not in the main thread
                 pass
         try:
-            result = func(*args, **kwargs)
+            try:
+                result = func(*args, **kwargs)
+            except FringeError as exc:
+                exiting.append(True)
+                _exit_unless_interrupted(f"error: {as_options(str(exc))}", exc.exit_code)
+            except KeyboardInterrupt:
+                exiting.append(True)
+                _interrupted(interrupt_received() or signal.SIGINT)
+            except OSError as exc:
+                exiting.append(True)
+                where = f"{exc.filename}: " if exc.filename else ""
+                _exit_unless_interrupted(f"error: {where}{exc.strerror or exc}", 1)
+            exiting.append(True)
             if interrupt_received() is not None:     # swallowed on the way, still an interrupt
                 _interrupted(interrupt_received())
             return result
-        except FringeError as exc:
-            click.echo(f"error: {as_options(str(exc))}", err=True)
-            sys.exit(exc.exit_code)
-        except KeyboardInterrupt:
+        except KeyboardInterrupt:            # raced with the handling of another outcome
+            exiting.append(True)
             _interrupted(interrupt_received() or signal.SIGINT)
-        except OSError as exc:
-            where = f"{exc.filename}: " if exc.filename else ""
-            click.echo(f"error: {where}{exc.strerror or exc}", err=True)
-            sys.exit(1)
         finally:
             warnings.showwarning = old
             for sig, handler in old_handlers.items():
