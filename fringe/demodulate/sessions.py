@@ -113,31 +113,42 @@ class SessionBuilder:
         self._bins = np.zeros(int(360 / SIDEREAL_BIN_DEG), bool)
 
     def add(self, table: TurnTable) -> None:
-        """Add the accepted turns of a segment of the turn table (in time order)."""
+        """Add the accepted turns of a segment of the turn table (in time order).
+
+        One vectorised pass: the weights, weighted amplitudes and chi^2 terms of every turn at
+        once, then a sum per session (a year of 45 s turns is 700 000 of them).
+        """
         sel = table.accepted
         if not np.any(sel):
             return
         t_lo, t_hi, t_mid = table.t_start_s[sel], table.t_stop_s[sel], table.t_mid_s[sel]
         self._bins[sidereal_bins(self._phi_of(t_mid))] = True
-        cov = table.formal_cov()[sel]
+        p = np.linalg.inv(table.formal_cov()[sel])                      # (n, 2, 2)
         y = np.stack([table.C[sel], table.B[sel]], axis=1)
+        py = np.einsum("nij,nj->ni", p, y)
+        ypy = np.einsum("ni,ni->n", y, py)
         dof = table.n_valid[sel] - table.settings.n_terms
-        for i in range(t_mid.size):
-            pause = t_lo[i] - self._last_stop
-            if self._open is None or pause > max(SESSION_GAP_S, 3.0 * self._last_dur):
+        prev_stop = np.concatenate([[self._last_stop], t_hi[:-1]])
+        prev_dur = np.concatenate([[self._last_dur], (t_hi - t_lo)[:-1]])
+        new = t_lo - prev_stop > np.maximum(SESSION_GAP_S, 3.0 * prev_dur)   # NaN: False
+        new[0] |= self._open is None
+        edges = np.unique(np.concatenate([[0], np.flatnonzero(new)]))
+        sums = (np.add.reduceat(p, edges, axis=0), np.add.reduceat(py, edges, axis=0),
+                np.add.reduceat(ypy, edges), np.add.reduceat(t_mid, edges))
+        for j, (lo, hi) in enumerate(zip(edges, np.append(edges[1:], t_lo.size))):
+            if new[lo]:
                 self._close()
                 self._open = _Open()
-                self._open.t_lo = float(t_lo[i])
-            s = self._open
-            p = np.linalg.inv(cov[i])
-            s.p += p
-            s.py += p @ y[i]
-            s.ypy += float(y[i] @ p @ y[i])
-            s.n += 1
-            s.t_hi = float(t_hi[i])
-            s.t_sum += float(t_mid[i])
-            s.dof_turn = int(dof[i])
-            self._last_stop, self._last_dur = float(t_hi[i]), float(t_hi[i] - t_lo[i])
+                self._open.t_lo = float(t_lo[lo])
+            o = self._open
+            o.p += sums[0][j]
+            o.py += sums[1][j]
+            o.ypy += float(sums[2][j])
+            o.t_sum += float(sums[3][j])
+            o.n += int(hi - lo)
+            o.t_hi = float(t_hi[hi - 1])
+            o.dof_turn = int(dof[hi - 1])
+        self._last_stop, self._last_dur = float(t_hi[-1]), float(t_hi[-1] - t_lo[-1])
 
     def _close(self) -> None:
         s = self._open
