@@ -18,6 +18,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from fringe.conventions import theta_from_azimuth
 from fringe.demodulate.blocks import demodulate_blocks, turn_boundaries
 from fringe.demodulate.motion import (
     LegCutter,
@@ -117,7 +118,7 @@ def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = (
         max_gap = settings.max_gap_s if settings.max_gap_s is not None else 0.25 * period
         starts = _leg_block_starts(run, max_gap) if motion.reverses else None
     gate = (attrs["gate_s"], attrs["gate_kind"]) if "gate_s" in attrs else None
-    theta = np.unwrap(np.pi - az)
+    theta = np.unwrap(theta_from_azimuth(az))
     dt = np.diff(t)
     return RecordInfo(path=str(path), n_samples=n, theta0_rad=reference_angle(theta),
                       turn_period_s=float(period), max_gap_s=float(max_gap),

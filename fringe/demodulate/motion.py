@@ -45,6 +45,7 @@ import numpy as np
 from numba import njit
 from numpy.typing import NDArray
 
+from fringe.conventions import azimuth_from_theta, theta_from_azimuth
 from fringe.demodulate.settings import DemodSettings
 from fringe.errors import FitError
 from fringe.io.fit_sections import Motion
@@ -173,7 +174,7 @@ class LegCutter:
 
     def feed(self, t_s: NDArray, azimuth_rad: NDArray) -> NDArray:
         """Block starts (global sample indices) decided by this chunk's samples."""
-        th = np.unwrap(np.pi - np.asarray(azimuth_rad, float))
+        th = np.unwrap(theta_from_azimuth(azimuth_rad))
         if self._last is not None and th.size:
             th = th + (self._last + _wrapped(th[0] - self._last) - th[0])
         if th.size:
@@ -209,7 +210,7 @@ def _legs(theta: NDArray, t: NDArray, max_gap_s: float) -> tuple[int, NDArray]:
     The travel of a leg is counted from the previous leg's extreme, rad.
     """
     cutter = LegCutter(max_gap_s, cut_turns=False)
-    starts = cutter.feed(t, np.pi - theta)
+    starts = cutter.feed(t, azimuth_from_theta(theta))
     ends = np.append(starts[1:], theta.size)
     gap = np.append(np.diff(t) > max_gap_s, False)
     travel = np.array([np.ptp(theta[a - 1 if a > 0 and not gap[a - 1] else a:b])
@@ -243,7 +244,7 @@ def detect_motion(t_s: NDArray, azimuth_rad: NDArray, settings: DemodSettings,
         When the table travels less than half a turn over the samples.
     """
     t = np.asarray(t_s, float)
-    theta = np.unwrap(np.pi - np.asarray(azimuth_rad, float))
+    theta = np.unwrap(theta_from_azimuth(azimuth_rad))
     d, dt = np.diff(theta), np.diff(t)
     long = dt <= 10.0 * np.median(dt) if dt.size else dt > 0    # leave out time gaps
     travel = float(np.sum(np.abs(d[long])))
@@ -328,7 +329,7 @@ def check_coverage(motion: Motion, t_s: NDArray, azimuth_rad: NDArray,
             f"B; swing through at least {180 - gap_max / 2:g} deg")
     if motion.kind != "stepped":
         return
-    theta = np.unwrap(np.pi - np.asarray(azimuth_rad, float))
+    theta = np.unwrap(theta_from_azimuth(azimuth_rad))
     marks = np.degrees(_rest_positions(theta, math.radians(settings.rest_tolerance_deg))) % 360.0
     distinct = np.unique(np.round(marks, 1) % 360.0)
     gap2 = _largest_gap_deg(2.0 * distinct)
