@@ -8,16 +8,16 @@ cache of the per-turn design (:mod:`fringe.fit.passes`):
   (demodulated by stage 1 like the signal) are a column of the stage-3 design with its fitted
   coupling a_j. By the omitted-variable formula of least squares (docs/references.md
   [R-stat-omitted-variable]) the coefficients of the fit without the channel's columns differ
-  from those with them by exactly P a, with P = N_oo^-1 N_oJ = -V_oJ V_JJ^-1 (N the normal matrix, V = N^-1 the fit's covariance, J the
-  channels' columns, o the others): P is the channel's 2 theta content propagated through the
-  coefficient map, and P a the shift the regression removed (``shift``). Its uncertainty has two
-  parts: the coupling's, |P_kj| sigma_j (term ``aux:CHANNEL``; already inside the fit's sigma,
-  so it is split out of it: ``statistical`` = sqrt(sigma_fit^2 - [V_oJ V_JJ^-1 V_Jo]_kk), the
-  sigma of the fit without the channels), and the channel's own noise, a_j x the sigma of P
-  from the scatter of the channel's amplitudes about their projection (term
-  ``aux-noise:CHANNEL``; not in the fit's sigma). The channel's own C10 harmonics (a
-  weighted fit of its per-turn amplitudes, as stage 2 fits the signal's) are recorded for the
-  reader.
+  from those with them by exactly P a, with P = N_oo^-1 N_oJ = -V_oJ V_JJ^-1 (N the normal
+  matrix, V = N^-1 the fit's covariance, J the channels' columns, o the others): P is the
+  channel's 2 theta content propagated through the coefficient map, and P a the shift the
+  regression removed (``shift``). Its uncertainty has two parts: the coupling's, |P_kj|
+  sigma_j (term ``aux:CHANNEL``; already inside the fit's sigma, so it is split out of it:
+  ``statistical`` = sqrt(sigma_fit^2 - [V_oJ V_JJ^-1 V_Jo]_kk), the sigma of the fit without
+  the channels), and the channel's own noise, a_j x the sigma of P from the scatter of the
+  channel's amplitudes about their projection (term ``aux-noise:CHANNEL``; not in the fit's
+  sigma). The channel's own C10 harmonics (a weighted fit of its per-turn amplitudes, as
+  stage 2 fits the signal's) are recorded for the reader.
 * **Declared terms** of a budget file (:mod:`fringe.io.budget_file`): a size on a coefficient
   enters that coefficient as given; a size on a harmonic is the per-turn template of that
   harmonic (1, sin phi, ... of C10 in C or B) projected on the coefficients through the same
