@@ -162,7 +162,9 @@ def _blinding_text(fit) -> list[str]:
     b = fit.blinding
     if b is None:
         return []
-    return [BLINDED_BANNER + " " + b.sentence() + "." if b.blinded else b.sentence() + "."]
+    if b.blinded:
+        return [b.sentence() + "; fringe unblind with the key removes the offsets once."]
+    return [b.sentence() + "."]
 
 
 def budget_markdown(fit) -> list[str]:
