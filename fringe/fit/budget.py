@@ -173,7 +173,10 @@ def systematics_of(res, cache, budget: Budget | None, scale_rel: float | None,
         Units of each auxiliary channel.
     """
     labels = list(res.labels_all or [])
-    k, names = len(res.names), list(res.names)
+    # the coefficients of the stage-3 design (rms_kt, fitted from the per-turn offsets after
+    # it, has no column there and no budget)
+    names = [n for n in res.names if n in labels]
+    k = len(names)
     aux, joint, channels = _aux_part(res, cache, k, labels, aux_units)
     if not aux and budget is None:
         return None
@@ -216,5 +219,5 @@ def systematics_of(res, cache, budget: Budget | None, scale_rel: float | None,
                       {n: float(joint[i]) for i, n in enumerate(names)} if aux else {},
                       CORRELATIONS,
                       {"path": budget.path, "sha256": budget.sha256} if budget else None)
-    return out.with_scales({n: float(v) for n, v in zip(names, res.value)})
+    return out.with_scales({n: float(v) for n, v in zip(res.names, res.value)})
 
