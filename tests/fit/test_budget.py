@@ -239,3 +239,53 @@ def test_no_budget_no_section(fits):
     assert fits["unregressed"].systematics is None
     assert "systematics" not in fits["unregressed"].to_dict()
     assert np.isfinite(fits["clean"].coefficients["ke_ZZ"].sigma)
+
+
+def test_calibration_scale_is_one_budget_entry(fits, tmp_path):
+    """A run file declaring a relative scale uncertainty (format version 2): the budget's
+    term ``calibration scale`` is the calibration's own scale_sigma (relative x |value|), not
+    a second copy of it."""
+    import shutil
+
+    import h5py
+
+    path = tmp_path / "cal.h5"
+    shutil.copy(fits["dir"] / "coupled.h5", path)
+    with h5py.File(path, "r+") as f:
+        f.attrs["fringe_format_version"] = 2
+        attrs = f["samples/signal"].attrs
+        attrs["scale_factor"], attrs["scale_rel_sigma"] = 1.0, 0.03
+        attrs["instrument_units"] = "Hz"
+    res = _fit(str(path), settings={"regress": ("temp",)})
+    for n in FREE:
+        terms = res.systematics.coefficients[n]["terms"]
+        assert terms["calibration scale"] == res.calibration.scale_sigma[n]
+        assert terms["calibration scale"] == pytest.approx(0.03 * abs(res.coefficients[n].value))
+    assert [t["name"] for t in res.systematics.terms].count("calibration scale") == 1
+
+
+def test_blinded_budget_withholds_the_scale_terms_until_unblinding(fits):
+    """Blinded, the scale terms (relative x |value|) are withheld and the totals leave them out;
+    unblinding restores them from the true values and redoes the totals; the other terms do not
+    depend on the values and are the same blinded or not."""
+    from fringe.fit.blinding import blind_fit, unblind
+
+    budget = read_budget(fits["dir"] / "budget.toml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", FringeWarning)
+        res, columns = fit_run(str(fits["dir"] / "coupled.h5"),
+                               FitSettings(free=FREE, regress=("temp",)), budget=budget)
+    with columns:
+        blinded, _, key = blind_fit(res, columns, entropy=b"budget".ljust(32, b"."))
+    s = blinded.systematics
+    assert s.withheld == ("frequency calibration",)
+    for n, c in s.coefficients.items():
+        assert c["terms"]["frequency calibration"] is None
+        for term in ("aux:temp", "aux-noise:temp", "mount creep", "tilt residual"):
+            assert c["terms"][term] == res.systematics.coefficients[n]["terms"][term]
+    plain, _ = unblind(blinded, key.bound_to("0" * 64), "0" * 64)
+    for n, c in plain.systematics.coefficients.items():
+        ref = res.systematics.coefficients[n]
+        assert c["terms"]["frequency calibration"] == pytest.approx(
+            ref["terms"]["frequency calibration"], rel=1e-9)
+        assert c["total"] == pytest.approx(ref["total"], rel=1e-12)
