@@ -13,6 +13,7 @@ from fringe.cli.common import (
     run_guarded,
     warnings_once,
 )
+from fringe.errors import ConfigError
 
 
 def _names(text: str | None) -> tuple[str, ...] | None:
@@ -89,6 +90,12 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
 
         budget = read_budget(budget_path)
     spent = _key_before_fit(blind_key, overwrite, [run_file, out_path, turns_path])
+    if blind_key is not None and spent is None:
+        from fringe.theories import make_theory
+
+        if not make_theory(theory).linear:
+            raise ConfigError(f"--blind: theory {theory!r} is not linear; blinding covers the "
+                              "linear theories")
     with open_run(run_file, check_values=False) as run:
         n = run.n_samples
     note_first_compile()
