@@ -110,3 +110,17 @@ def test_budget_option(folder):
     bad = run_command(folder, FIT + ["--out", "g.json", "--budget", "bad.toml"])
     assert bad.exit_code == 2 and "bad.toml: scale[0].relativ: unknown field" in bad.stderr
     assert "did you mean 'relative'" in bad.stderr and not (folder / "g.json").exists()
+
+
+def test_a_key_that_cannot_be_written_keeps_no_blinded_result(folder, monkeypatch):
+    """Whole or nothing: when the key cannot be written (a full disk), neither the key nor the
+    blinded result nor its turns file is kept, and the error is one line."""
+    from tests.helpers.fs_faults import fail_writes, leftovers
+
+    fail_writes(monkeypatch, ["k.key"])
+    run = run_command(folder, FIT + ["--out", "b.json", "--blind", "k.key"])
+    assert run.exit_code != 0 and len(run.stderr.strip().splitlines()) == 1
+    assert "k.key" in run.stderr
+    for name in ("k.key", "b.json", "b.turns.h5"):
+        assert not (folder / name).exists()
+    assert not leftovers(folder)
