@@ -13,6 +13,7 @@ from fringe.cli.common import (
     run_guarded,
     warnings_once,
 )
+from fringe.errors import ConfigError
 
 
 def _names(text: str | None) -> tuple[str, ...] | None:
@@ -54,10 +55,16 @@ def _names(text: str | None) -> tuple[str, ...] | None:
 @click.option("--dut1", "dut1_s", type=float, default=0.0, show_default=True,
               help="UT1 - UTC at the record's epoch, s.")
 @click.option("--overwrite", is_flag=True, help="Replace existing outputs.")
+@click.option("--budget", "budget_path", default=None, metavar="FILE",
+              help="Systematic budget (TOML) of declared terms (docs/fit.md).")
+@click.option("--blind", "blind_key", default=None, metavar="KEYFILE",
+              help="Blind the values with secret offsets kept in KEYFILE (written, mode "
+                   "0600); a key already used by fringe unblind gives an unblinded fit that "
+                   "records whether the settings changed since.")
 @run_guarded
 def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days, drift,
             max_harmonic, min_samples, regress, no_lab_b0, lab_c0, cross_check, engine,
-            scratch_dir, scheduler, dut1_s, overwrite):
+            scratch_dir, scheduler, dut1_s, overwrite, budget_path, blind_key):
     """Fit RUN_FILE: per-turn demodulation, sidereal harmonics, coefficients with sigma."""
     from fringe.demodulate.settings import DemodSettings
     from fringe.experiment.scenario import parse_assignments
@@ -77,17 +84,89 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
                            bootstrap_days=bootstrap_days, lab_b0=not no_lab_b0, lab_c0=lab_c0,
                            regress=tuple(regress))
     demod = DemodSettings(drift=drift, max_harmonic=max_harmonic, min_samples=min_samples)
+    budget = None
+    if budget_path is not None:
+        from fringe.io.budget_file import read_budget
+
+        budget = read_budget(budget_path)
+    spent = _key_before_fit(blind_key, overwrite, [run_file, out_path, turns_path])
+    if blind_key is not None and spent is None:
+        from fringe.theories import make_theory
+
+        if not make_theory(theory).linear:
+            raise ConfigError(f"--blind: theory {theory!r} is not linear; blinding covers the "
+                              "linear theories")
     with open_run(run_file, check_values=False) as run:
         n = run.n_samples
     note_first_compile()
-    with outputs, progress(n, "fit") as bar:
-        with warnings_once() as fitted:
-            result, columns = fit_run(run_file, settings, demod, engine=engine,
-                                      scheduler=scheduler, dut1_s=dut1_s, progress=bar.update,
-                                      one_stage=cross_check,
-                                      scratch_dir=scratch_dir or str(outputs.base.resolve()))
-            fitted.append(result)
-        with columns:
-            result = write_fit_files(outputs, result, columns)
+    key = None
+    try:
+        with outputs, progress(n, "fit") as bar:
+            with warnings_once() as fitted:
+                result, columns = fit_run(run_file, settings, demod, engine=engine,
+                                          scheduler=scheduler, dut1_s=dut1_s,
+                                          progress=bar.update, one_stage=cross_check,
+                                          scratch_dir=scratch_dir or str(outputs.base.resolve()),
+                                          budget=budget)
+                fitted.append(result)
+            result, columns, key = _blind(result, columns, blind_key, spent)
+            with columns:
+                result = write_fit_files(outputs, result, columns)
+            if key is not None:
+                _write_key(blind_key, key, outputs, overwrite)
+    except BaseException:
+        if key is not None:                 # the result it names was not kept
+            Path(blind_key).unlink(missing_ok=True)
+        raise
     click.echo(result.summary())
     click.echo(f"\nwrote {out}\nwrote {turns_path}")
+    if key is not None:
+        click.echo(f"wrote {blind_key} (the blinding key: keep it away from the analysis)")
+
+
+def _key_before_fit(blind_key, overwrite: bool, protect):
+    """Check the key target before the fit; return a used key (a fit after unblinding) or None.
+
+    An unused key that exists is refused unless ``--overwrite`` (it belongs to a blinded
+    result not yet unblinded).
+    """
+    if blind_key is None:
+        return None
+    from fringe.errors import OutputError
+    from fringe.io.atomic import check_output_path
+    from fringe.io.blind_key import read_key
+
+    if Path(blind_key).exists():
+        key = read_key(blind_key)
+        if key.unblinded is not None:
+            return key
+        if not overwrite:
+            raise OutputError(f"{blind_key}: exists and belongs to the blinded result "
+                              f"sha256 {key.result_sha256[:12]}... (not yet unblinded); "
+                              "unblind it first, or pass --overwrite to draw a new key")
+    check_output_path(blind_key, overwrite=overwrite, protect=protect)
+    return None
+
+
+def _blind(result, columns, blind_key, spent):
+    """(result, columns, key to write or None) for --blind."""
+    if blind_key is None:
+        return result, columns, None
+    from fringe.fit.blinding import after_unblinding, blind_fit
+
+    if spent is not None:
+        return after_unblinding(result, spent), columns, None
+    try:
+        return blind_fit(result, columns)
+    except BaseException:
+        columns.close()
+        raise
+
+
+def _write_key(blind_key, key, outputs, overwrite: bool) -> None:
+    """Bind the key to the staged result file and write it (mode 0600), before the commit."""
+    from fringe.io.blind_key import write_key
+    from fringe.io.runreader import sha256
+
+    staged = outputs.path(outputs.names[1])
+    write_key(blind_key, key.bound_to(sha256(staged)), overwrite=overwrite)

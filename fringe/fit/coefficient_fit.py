@@ -45,3 +45,7 @@ class CoefficientFit:
     #: the per-session 2 theta amplitudes (fringe.io.fit_sections.Sessions), when stage 2 was
     #: skipped for too few sidereal phases
     sessions: object = None
+    #: the covariance of every stage-3 column (free coefficients, then the nuisances) and
+    #: their labels (:func:`fringe.fit.passes.design_labels`), for the systematic budget
+    cov_all: NDArray | None = None
+    labels_all: list | None = None

@@ -66,7 +66,7 @@ def setup_from_run(path: str, theory: str, dut1_s: float = 0.0) -> tuple[Setup, 
 
 def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None, *,
             engine: str = "local", scheduler=None, dut1_s: float = 0.0, progress=None,
-            one_stage: bool = False, scratch_dir: str | None = None
+            one_stage: bool = False, scratch_dir: str | None = None, budget=None
             ) -> tuple[FitResult, TurnColumns]:
     """Fit a run file end to end.
 
@@ -91,6 +91,10 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
         Where a record of more than SEGMENT_TURNS turns keeps its turn table and fit rows
         while it is fitted (:mod:`fringe.demodulate.turn_store`; default: the system's temporary
         directory). Shorter records are fitted in memory.
+    budget : fringe.io.budget_file.Budget, optional
+        Declared systematic terms (:func:`fringe.io.budget_file.read_budget`); with it, or with
+        ``settings.regress``, the result holds its ``systematics`` part
+        (:mod:`fringe.fit.budget`; linear theories).
 
     Returns
     -------
@@ -104,13 +108,15 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
         if ch not in meta["aux_channels"]:
             raise ConfigError(f"FitSettings.regress {ch}: {path} has no auxiliary channel "
                               f"{ch!r} (has {', '.join(meta['aux_channels']) or 'none'})")
+    _check_budget_early(budget, setup, settings)
     scratch = Scratch(scratch_dir)
     try:
         with warnings.catch_warnings():   # the time-scale cautions are records (cautions)
             warnings.simplefilter("ignore", TimeScaleWarning)
             cautions = record_cautions(path, setup, meta)
             result, store, models = _fit(path, setup, meta, settings, demod, engine, scheduler,
-                                         progress, scratch, one_stage, dut1_s, cautions)
+                                         progress, scratch, one_stage, dut1_s, cautions,
+                                         budget)
     except BaseException:
         scratch.close()
         raise
@@ -147,8 +153,41 @@ def record_cautions(path: str, setup: Setup, meta: dict) -> list[FitWarning]:
     return out
 
 
+def _check_budget_early(budget, setup: Setup, settings: FitSettings) -> None:
+    """Refuse, before any work, a budget the fit cannot use (theory, names, units)."""
+    if budget is None and not settings.regress:
+        return
+    if not setup.theory.linear:
+        if budget is not None:
+            raise ConfigError(f"{budget.path}: a systematic budget needs a linear theory "
+                              f"(FitSettings.theory {settings.theory!r} is not)")
+        return
+    if budget is None:
+        return
+    from fringe.fit.budget import check_budget
+
+    names = tuple(n for n in setup.theory.parameter_names if n != "rms_kt")
+    check_budget(budget, names, dict(setup.theory.parameter_units), setup.units)
+
+
+def _systematics(res, models, settings, budget, calibration, meta):
+    """The result's ``systematics`` part (linear fits with regressions or a budget), or None."""
+    if models.cache is None or res.cov_all is None or not (settings.regress or budget):
+        return None
+    from fringe.fit.budget import systematics_of
+
+    if budget is not None:
+        for i, t in enumerate(budget.terms):
+            if t.coefficient is not None and t.coefficient not in res.names:
+                raise ConfigError(f"{budget.path}: term[{i}].coefficient: expected a free "
+                                  f"coefficient of this fit ({', '.join(res.names)}), got "
+                                  f"{t.coefficient!r}")
+    rel = calibration.scale_rel_sigma if calibration is not None else None
+    return systematics_of(res, models.cache, budget, rel, dict(meta["aux_channels"]))
+
+
 def _fit(path, setup, meta, settings, demod, engine, scheduler, progress, scratch, one_stage,
-         dut1_s, cautions):
+         dut1_s, cautions, budget=None):
     """Stages 1-3 and the packaging (:func:`fit_run`); returns the result, store and models."""
     store, info = stage1_store(path, demod, aux_channels=tuple(settings.regress),
                                engine=engine, scheduler=scheduler, progress=progress,
@@ -178,6 +217,9 @@ def _fit(path, setup, meta, settings, demod, engine, scheduler, progress, scratc
             notes += ("the one-stage cross-check fits the samples without the gate "
                       "correction and unweighted",)
         result = dataclasses.replace(result, calibration=calibration, notes=notes)
+    systematics = _systematics(res, models, settings, budget, calibration, meta)
+    if systematics is not None:
+        result = dataclasses.replace(result, systematics=systematics)
     return result, store, models
 
 

@@ -138,7 +138,8 @@ def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSe
             for i, lab in enumerate(labels) if i >= k}
     res = CoefficientFit(names=list(free), value=x[:k], cov=cov[:k, :k], nuisance=nuis,
                          chi2_reduced=red, dof=dof, efficiency=eff, model_c=None,
-                         model_b=None, warnings=warns, notes=notes)
+                         model_b=None, warnings=warns, notes=notes, cov_all=cov,
+                         labels_all=list(labels))
     return p.harmonics, res, p.cache
 
 

@@ -19,6 +19,7 @@ from pathlib import Path
 import numpy as np
 
 from fringe.errors import InputFileError
+from fringe.io.fit_budget import Blinding, Systematics
 from fringe.io.fit_calibration import SignalCalibration
 from fringe.io.fit_sections import (
     Covariance,
@@ -122,6 +123,10 @@ class FitResult:
     sessions : Sessions or None
         The per-session 2 theta amplitudes and the chi^2 of their agreement (the result when
         the sidereal stage is skipped; None in older files).
+    systematics : Systematics or None
+        The systematic budget (``fringe fit --regress`` or ``--budget``); None when absent.
+    blinding : Blinding or None
+        The blinding state (``fringe fit --blind``, ``fringe unblind``); None when absent.
 
     None marks a part a (hand-made, version-1) file leaves out; ``fringe fit`` fills every
     part. Mappings are read-only (:class:`~fringe.io.records.FrozenMap`), sequences tuples;
@@ -157,6 +162,8 @@ class FitResult:
     calibration: SignalCalibration | None = None
     motion: Motion | None = None
     sessions: Sessions | None = None
+    systematics: Systematics | None = None
+    blinding: Blinding | None = None
 
     def __post_init__(self):
         for name in ("coefficients", "fixed", "efficiency", "site", "apparatus", "settings",
@@ -249,7 +256,9 @@ class FitResult:
             one_stage=OneStage.read(f, "one_stage"),
             conventions=_strings(f, "conventions"),
             calibration=SignalCalibration.read(f, "calibration"),
-            motion=Motion.read(f, "motion"), sessions=Sessions.read(f, "sessions"))
+            motion=Motion.read(f, "motion"), sessions=Sessions.read(f, "sessions"),
+            systematics=Systematics.read(f, "systematics"),
+            blinding=Blinding.read(f, "blinding"))
 
     @classmethod
     def read(cls, path) -> FitResult:
@@ -274,7 +283,9 @@ class FitResult:
         s1, st, nan = self.stage1, self.statistics, float("nan")
         path = self.input.path if self.input else "?"
         span = f"{self.span_s / 86400:.2f} d" if self.span_s is not None else "? d"
-        lines = [f"fit of {path} — theory {self.theory}, {span}, units {self.units}",
+        lines = [*([("*** " if self.blinding.blinded else "") + self.blinding.sentence()]
+                   if self.blinding is not None else []),
+                 f"fit of {path} — theory {self.theory}, {span}, units {self.units}",
                  f"turns: {s1.n_accepted if s1 else None} accepted of "
                  f"{s1.n_blocks if s1 else None} ({s1.n_rejected_glitch if s1 else None} "
                  f"glitch, {s1.n_rejected_partial if s1 else None} partial); turn period "
@@ -306,6 +317,8 @@ class FitResult:
         if self.calibration is not None:      # its sentences are among the notes
             for name, v in self.calibration.scale_sigma.items():
                 lines.append(f"{name:<12}{'':>13}{v:>12.3g}{'scale':>12}")
+        if self.systematics is not None:
+            lines += _budget_lines(self.systematics)
         caution = self.efficiency_caution()
         for w in self.warnings:
             lines.append(f"WARNING: {w.sentence}")
@@ -345,6 +358,17 @@ class FitResult:
         return (f"FitResult(theory={self.theory!r}, units={self.units!r}, "
                 f"free={list(self.coefficients)}{span}{turns}, "
                 f"warnings={[w.code for w in self.warnings]})")
+
+
+def _budget_lines(s: Systematics) -> list[str]:
+    """Summary lines of the systematic budget: statistical, systematic and total sigma."""
+    lines = [f"{'budget':<12}{'statistical':>13}{'systematic':>12}{'total':>12}"]
+    for name, c in s.coefficients.items():
+        syst = (max(c["total"] ** 2 - c["statistical"] ** 2, 0.0)) ** 0.5
+        lines.append(f"{name:<12}{c['statistical']:>13.3g}{syst:>12.3g}{c['total']:>12.3g}")
+    if s.withheld:
+        lines.append(f"(withheld while blinded: {', '.join(s.withheld)})")
+    return lines
 
 
 def _derived_lines(d: Derived | None) -> list[str]:

@@ -45,6 +45,11 @@ class TurnColumns:
     def __len__(self) -> int:
         return self._store.n_blocks
 
+    @property
+    def models(self):
+        """The fit's per-turn models (``fringe.fit.stages.TurnModels``; its row cache)."""
+        return self._models
+
     def __repr__(self) -> str:
         span = f", span {self._span_s / 86400:.3g} d" if self._span_s is not None else ""
         return (f"TurnColumns({len(self)} turns, {int(np.sum(self._store.accepted))} "

@@ -28,6 +28,7 @@ from fringe.io.fit_files import check_companion
 from fringe.io.fit_sections import Covariance
 from fringe.io.outputset import OutputSet
 from fringe.io.records import plain
+from fringe.report.budget import total_headline
 from fringe.report.content import ReportContent
 from fringe.report.documents import (
     FIGURE_DIR,
@@ -133,7 +134,7 @@ def assemble_report(fit_json_path, *, compare=None, kt: tuple[float, float] | No
     return ReportContent(fit=fit, fit_path=fit_path, turns=turns, turns_path=turns_path,
                          comparison=comparison,
                          compare_path=Path(compare) if compare is not None else None,
-                         rms=rms, headline=headline(fit), notes=tuple(notes),
+                         rms=rms, headline=total_headline(fit, headline), notes=tuple(notes),
                          provenance={k: v for k, v in prov.items() if v is not None})
 
 

@@ -15,6 +15,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, NamedTuple
 
+from fringe.report import budget as _budget
 from fringe.report.rms_solve import RmsSolution
 from fringe.report.rounding import (
     format_bound,
@@ -411,6 +412,7 @@ def markdown_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) ->
     out += ["## Coefficients", "", to_markdown(tables["coefficients"])]
     if fit.fixed:
         out += [f"Fixed: {_fixed_text(fit)}.", ""]
+    out += _budget.budget_markdown(fit)
     if "comparison" in tables:
         out += ["## Comparison with earlier results", "", to_markdown(tables["comparison"])]
     section = _theory_section(fit)
@@ -438,11 +440,12 @@ def latex_report(c: ReportContent) -> str:
     table = to_latex(report_tables(c.fit, c.comparison, "latex")["coefficients"])
     out = [r"\documentclass{article}", r"\begin{document}",
            r"\section*{" + latex_escape(f"Result of the {c.fit.theory} fit") + "}",
-           headline(c.fit, "latex")["text"], ""]
+           _budget.total_headline(c.fit, headline, "latex")["text"], ""]
     if c.warnings:
         out += [r"\paragraph{Warnings raised by the fit.}", r"\begin{itemize}"]
         out += [r"\item " + latex_escape(w) for w in c.warnings] + [r"\end{itemize}"]
     out.append(table)
+    out += _budget.budget_latex(c.fit)
     if c.fit.fixed:
         out.append(latex_escape(f"Fixed: {_fixed_text(c.fit)}.") + "\n")
     if c.fit.derived is not None and c.fit.theory == ClassicalMedium.name:
@@ -466,6 +469,7 @@ def html_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) -> str
     sections = [("Coefficients", to_html(tables["coefficients"]))]
     if c.fit.fixed:
         sections.append(("Fixed coefficients", f"<p>{_html.escape(_fixed_text(c.fit))}</p>"))
+    sections += _budget.budget_html(c.fit)
     if "comparison" in tables:
         sections.append(("Comparison with earlier results", to_html(tables["comparison"])))
     section = _theory_section(c.fit)
@@ -494,4 +498,5 @@ def summary(c: ReportContent, figure_names: Sequence[str], files: Sequence[str])
             "headline": c.headline, "warnings": list(c.warnings), "notes": list(c.notes),
             "coefficients": coefs, "comparison": list(c.comparison),
             "rms": c.rms.to_dict() if c.rms is not None else None,
-            "figures": list(figure_names), "files": list(files), "provenance": c.provenance}
+            "figures": list(figure_names), "files": list(files), "provenance": c.provenance,
+            **_budget.budget_summary(c.fit)}
