@@ -425,6 +425,15 @@ def _first_bad(table, mask, cells, lines, col, expected) -> None:
                              f"expected {expected}, got {cells[i]!r}")
 
 
+def _check_azimuth_range(table: _Table, az: NDArray, cells: list[str], lines: list[int],
+                         col: str, units: str) -> None:
+    """Refuse an azimuth beyond 2**32 rad, naming the file's line and column."""
+    rad = np.pi / 180.0 if units == "deg" else 1.0
+    _first_bad(table, np.abs(az) * rad > AZIMUTH_MAX_RAD, cells, lines, col,
+               "an azimuth within 2**32 rad (float64 resolves about 1e-6 rad there; wrap "
+               "larger ones)")
+
+
 def _seconds(table: _Table, cells: list[str], lines: list[int], col: str, units: str,
              e_parts, row_err) -> NDArray[np.float64]:
     """Elapsed s since the epoch (``e_parts`` from :func:`_utc_parts`) of a block of times."""
@@ -514,6 +523,8 @@ class _Import:
                 az = _numbers(table, cells["azimuth"], lines, acol, False)
                 _first_bad(table, ~np.isfinite(az), cells["azimuth"], lines, acol,
                            "a finite azimuth")
+                _check_azimuth_range(table, az, cells["azimuth"], lines, acol,
+                                     log["units"]["azimuth"])
                 shifted = t_s + offset
                 _first_bad(table, np.diff(shifted, prepend=-np.inf) <= 0, cells["time"], lines,
                            tcol, "times that stay strictly increasing once moved onto the "
@@ -535,9 +546,22 @@ class _Import:
                 f"{self.log['max_gap_s']:g} s apart, got a gap of {gap[i]:.6g} s around the "
                 f"signal time {t_s[i]:.6f} s ({os.path.basename(self.csv_path)} line "
                 f"{lines[i]}); or set azimuth_log.on_gap = 'drop'")
+        self._check_unwrapped(az, inside, line)
         keep = inside & ~bad
         self.n_dropped += int(keep.size - np.count_nonzero(keep))
         return az, keep
+
+    def _check_unwrapped(self, az: NDArray, inside: NDArray, line: NDArray) -> None:
+        """Refuse an azimuth that unwrapping (whole turns added) took beyond 2**32 rad."""
+        rad = np.pi / 180.0 if self.log["units"]["azimuth"] == "deg" else 1.0
+        big = inside & (np.abs(az) * rad > AZIMUTH_MAX_RAD)
+        if big.any():
+            i = int(np.argmax(big))
+            raise InputFileError(
+                self.log_path, f"line {int(line[i])}, column {self.log['columns']['azimuth']!r}",
+                f"expected an azimuth that stays within 2**32 rad once unwrapped (whole turns "
+                f"added where consecutive samples jump by more than half a turn), got "
+                f"{az[i] * rad:.12g} rad; wrap the log's azimuth to one turn, or split the log")
 
     def no_overlap(self) -> InputFileError:
         """The error for a two-device import that kept no row."""
@@ -702,10 +726,8 @@ def _stream(job: _Import, table: _Table, log_fh, block_rows: int, progress,
                 az = _numbers(table, cells["azimuth"], lines, columns["azimuth"], False)
                 _first_bad(table, ~np.isfinite(az), cells["azimuth"], lines,
                            columns["azimuth"], "a finite azimuth")
-                rad = np.pi / 180.0 if units["azimuth"] == "deg" else 1.0
-                _first_bad(table, np.abs(az) * rad > AZIMUTH_MAX_RAD, cells["azimuth"],
-                           lines, columns["azimuth"], "an azimuth within 2**32 rad "
-                           "(float64 resolves about 1e-6 rad there; wrap larger ones)")
+                _check_azimuth_range(table, az, cells["azimuth"], lines, columns["azimuth"],
+                                     units["azimuth"])
                 keep = None
             sig = _numbers(table, cells["signal"], lines, columns["signal"], True)
             _first_bad(table, np.isinf(sig), cells["signal"], lines, columns["signal"],
