@@ -107,16 +107,28 @@ def check_finite_number(value, source: str, field: str, *, positive: bool = Fals
     return x
 
 
+def closest_hint(name, known) -> str:
+    """``"; closest: NAME"`` for the known name nearest a misspelt one, or ``""`` if none is near.
+
+    Nearness is :func:`difflib.get_close_matches` with its similarity cut-off 0.6.
+    """
+    import difflib
+
+    close = difflib.get_close_matches(str(name), [str(k) for k in known], n=1, cutoff=0.6)
+    return f"; closest: {close[0]}" if close else ""
+
+
 def reject_unknown_fields(given, allowed, where: str, what: str = "unknown field") -> None:
     """Raise ConfigError for the first (sorted) name of ``given`` that is not in ``allowed``.
 
-    The message reads "WHERE NAME: WHAT (expected some of ...)"; ``where`` ends with ":" or a
+    The message reads "WHERE NAME: WHAT (expected some of ...); closest: KNOWN" (the closest
+    part only when a known name is near, :func:`closest_hint`); ``where`` ends with ":" or a
     section label.
     """
     unknown = sorted(set(given) - set(allowed))
     if unknown:
         raise ConfigError(f"{where} {unknown[0]}: {what} (expected some of "
-                          f"{', '.join(sorted(allowed))})")
+                          f"{', '.join(sorted(allowed))}){closest_hint(unknown[0], allowed)}")
 
 
 def check_regular_file(path, expected: str):

@@ -1,14 +1,33 @@
-"""``fringe demo``: the whole job end to end on the built-in, invented scenario."""
+"""``fringe demo``: the whole job end to end on the built-in, invented scenario.
+
+The demo's outputs are one set: every step writes into a hidden staging directory beside
+``--out`` (:class:`fringe.io.outputset.OutputTree`), and the whole folder moves into place
+when the last step has finished, or not at all (a failure or an interrupt removes the staging
+directory). The steps run inside the staging directory with the outputs' relative names, so the
+files name each other as ``run.h5``, ``fit.json``, ``fit.turns.h5`` (the folder can be moved)
+and no staging path is ever recorded.
+"""
 
 from __future__ import annotations
 
+import contextlib
+import os
 import time
 from importlib import resources
 from pathlib import Path
 
 import click
 
-from fringe.cli.common import out_dir, run_guarded, warnings_once
+from fringe.cli.common import run_guarded, warnings_once
+from fringe.errors import FringeError, InputFileError
+
+#: The demo's outputs known before it runs (checked at once; the report's figures are added
+#: when written), in the order they move into an existing folder: the fit's turns file before
+#: the result that records its hash.
+DEMO_OUTPUTS = ("scenario.toml", "run.h5", "inspect.txt", "inspect_allan.png",
+                "inspect_spectrum.png", "fit.turns.h5", "fit.json", "report/report.md",
+                "report/report.tex", "report/report.html", "report/summary.json", "plan.json",
+                "plan.txt")
 
 
 def demo_scenario_path() -> Path:
@@ -28,79 +47,108 @@ def command(out, seed, overwrite):
 
     matplotlib.use("Agg")
 
-    from fringe.experiment.scenario import load_scenario
-    from fringe.fit.run import fit_run
-    from fringe.fit.settings import FitSettings
-    from fringe.io.atomic import write_json_atomic, write_text_atomic
-    from fringe.io.fit_files import fit_outputs, write_fit_files
-    from fringe.simulation.campaign import check_seed, simulate
+    from fringe.io.outputset import OutputTree
+    from fringe.simulation.campaign import check_seed
 
     check_seed(seed)                                   # before anything is written
-    d = out_dir(out)
-    src = demo_scenario_path()
-    sc = load_scenario(src)
-    scenario_copy = write_text_atomic(d / "scenario.toml", src.read_text(encoding="utf-8"),
-                                      overwrite=overwrite)
+    final = Path(out)
+    text = demo_scenario_path().read_text(encoding="utf-8")
+    tree = OutputTree(final, DEMO_OUTPUTS, overwrite=overwrite)   # checked before any work
     t0 = time.time()
+    with tree, _inside(tree.directory, final):
+        _run_steps(text, seed, t0)
+    click.echo(f"\ndone in {time.time() - t0:.1f} s. Outputs:")
+    for label, name in [("scenario (copy)", "scenario.toml"), ("run file", "run.h5"),
+                        ("inspection", "inspect.txt"), ("fit result", "fit.json"),
+                        ("per-turn amplitudes", "fit.turns.h5"),
+                        ("report (open in a browser)", "report/report.html"),
+                        ("report (Markdown / LaTeX)", "report/report.md"),
+                        ("forecast", "plan.txt")]:
+        click.echo(f"  {label:<28} {final / name}")
+
+
+@contextlib.contextmanager
+def _inside(staging: Path, final: Path):
+    """Work in ``staging``; an error naming a staged output names its final path instead."""
+    here = os.getcwd()
+    os.chdir(staging)
+    tops = {n.split("/")[0] for n in DEMO_OUTPUTS}
+    try:
+        yield
+    except FringeError as exc:
+        head, sep, rest = str(exc).partition(": ")
+        if sep and not os.path.isabs(head) and head.split("/")[0] in tops:
+            exc.args = (f"{final / head}: {rest}",)
+            if isinstance(exc, InputFileError):
+                exc.path = str(final / head)
+        raise
+    finally:
+        os.chdir(here)
+
+
+def _run_steps(scenario_text: str, seed: int, t0: float) -> None:
+    """The demo's five steps, in the working directory, with the outputs' relative names."""
+    from fringe.experiment.scenario import load_scenario
+    from fringe.io.atomic import write_json_atomic, write_text_atomic
+    from fringe.plan.forecast import forecast
+    from fringe.report.build import build_report
+    from fringe.simulation.campaign import simulate
+
+    write_text_atomic("scenario.toml", scenario_text)
+    sc = load_scenario("scenario.toml")
     click.echo(f"[1/5] simulate {sc.duration_s / 86400:.0f} days at "
                f"{sc.sample_interval_s:g} s: {sc.title}")
-    run_path = d / "run.h5"
-    info = simulate(sc, run_path, seed=seed, overwrite=overwrite)
+    info = simulate(sc, "run.h5", seed=seed)
     click.echo(f"      {info['n_samples']} samples, {info['n_gaps']} gaps, "
                f"{info['n_glitches']} glitches ({time.time() - t0:.1f} s)")
 
     click.echo("[2/5] inspect")
-    from fringe.demodulate.quality import inspect_run
-    from fringe.report.figures.quality import allan_plot, spectrum_plot
+    _inspect_step("run.h5")
 
-    rep = inspect_run(str(run_path))
-    write_text_atomic(d / "inspect.txt", rep.summary() + "\n", overwrite=overwrite)
+    click.echo("[3/5] fit (theory sme, free ke_*)")
+    result = _fit_step("run.h5", "fit.json")
+    click.echo(result.summary())
+    click.echo("      injected: " + ", ".join(f"{k}={v:.3g}" for k, v in sc.coefficients.items()))
+
+    click.echo("[4/5] report")
+    build_report("fit.json", "report")
+
+    click.echo("[5/5] plan (forecast for this scenario; days to reach 1e-18 on ke_XY)")
+    plan = forecast(sc, targets={"ke_XY": 1e-18})
+    write_json_atomic("plan.json", plan.to_dict())
+    write_text_atomic("plan.txt", plan.summary() + "\n")
+    click.echo(plan.summary())
+
+
+def _inspect_step(run_path: str) -> None:
+    """Quality summary, Allan deviation and spectrum figures of the run file."""
     import matplotlib.pyplot as plt
 
-    from fringe.io.atomic import save_figure_atomic
+    from fringe.demodulate.quality import inspect_run
+    from fringe.io.atomic import save_figure_atomic, write_text_atomic
+    from fringe.report.figures.quality import allan_plot, spectrum_plot
 
+    rep = inspect_run(run_path)
+    write_text_atomic("inspect.txt", rep.summary() + "\n")
     fig, ax = plt.subplots(figsize=(5.6, 4.0))
     allan_plot(rep.allan.tau_s, rep.allan.adev, turn_period_s=rep.stats["turn_period_s"], ax=ax)
-    save_figure_atomic(fig, d / "inspect_allan.png", overwrite=overwrite)
+    save_figure_atomic(fig, "inspect_allan.png")
     plt.close(fig)
     fig, ax = plt.subplots(figsize=(6.4, 4.0))
     spectrum_plot(rep.spectrum_f_hz, rep.spectrum_amp, rep.lines_hz, ax=ax)
-    save_figure_atomic(fig, d / "inspect_spectrum.png", overwrite=overwrite)
+    save_figure_atomic(fig, "inspect_spectrum.png")
     plt.close(fig)
 
-    click.echo("[3/5] fit (theory sme, free ke_*)")
-    fit_path = d / "fit.json"
-    with fit_outputs(fit_path, overwrite=overwrite) as outputs:
+
+def _fit_step(run_path: str, fit_path: str):
+    """Fit the run with the default settings (and the one-stage cross-check); return the result."""
+    from fringe.fit.run import fit_run
+    from fringe.fit.settings import FitSettings
+    from fringe.io.fit_files import fit_outputs, write_fit_files
+
+    with fit_outputs(fit_path) as outputs:
         with warnings_once() as fitted:
-            result, columns = fit_run(str(run_path), FitSettings(), one_stage=True,
-                                      scratch_dir=str(d))
+            result, columns = fit_run(run_path, FitSettings(), one_stage=True, scratch_dir=".")
             fitted.append(result)
         with columns:
-            result = write_fit_files(outputs, result, columns)
-    click.echo(result.summary())
-    truth = sc.coefficients
-    click.echo("      injected: " + ", ".join(f"{k}={v:.3g}" for k, v in truth.items()))
-
-    click.echo("[4/5] report")
-    from fringe.report.build import build_report
-
-    report_dir = d / "report"
-    report_files = build_report(fit_path, report_dir, overwrite=overwrite)
-
-    click.echo("[5/5] plan (forecast for this scenario; days to reach 1e-18 on ke_XY)")
-    from fringe.plan.forecast import forecast
-
-    plan = forecast(sc, targets={"ke_XY": 1e-18})
-    write_json_atomic(d / "plan.json", plan.to_dict(), overwrite=overwrite)
-    write_text_atomic(d / "plan.txt", plan.summary() + "\n", overwrite=overwrite)
-    click.echo(plan.summary())
-
-    click.echo(f"\ndone in {time.time() - t0:.1f} s. Outputs:")
-    for label, p in [("scenario (copy)", scenario_copy), ("run file", run_path),
-                     ("inspection", d / "inspect.txt"), ("fit result", fit_path),
-                     ("per-turn amplitudes", d / "fit.turns.h5"),
-                     ("report (open in a browser)", report_dir / "report.html"),
-                     ("report (Markdown / LaTeX)", report_dir / "report.md"),
-                     ("forecast", d / "plan.txt")]:
-        click.echo(f"  {label:<28} {p}")
-    del report_files
+            return write_fit_files(outputs, result, columns)

@@ -24,7 +24,14 @@ from pathlib import Path
 
 import numpy as np
 
-from fringe.errors import ConfigError, InputFileError, check_finite_number, check_regular_file
+from fringe.errors import (
+    ConfigError,
+    InputFileError,
+    check_finite_number,
+    check_regular_file,
+    closest_hint,
+    reject_unknown_fields,
+)
 from fringe.experiment.apparatus import Apparatus, make_apparatus
 from fringe.experiment.basis import Setup
 from fringe.experiment.turntable import AxisTilt, make_motion
@@ -143,9 +150,30 @@ def _wrap(source: str, section: str, func, *args, **kwargs):
     try:
         return func(*args, **kwargs)
     except ConfigError as exc:
-        raise ConfigError(f"{source}: [{section}] {exc}") from None
+        text = str(exc)
+        if text.startswith(f"{section}: "):       # the constructor named the section too
+            text = text[len(section) + 2:]
+        raise ConfigError(f"{source}: [{section}] {text}") from None
     except TypeError as exc:
         raise ConfigError(f"{source}: [{section}]: {exc}") from None
+
+
+#: The fields of ``[site]`` (:class:`fringe.site.Site`) and ``[campaign]``.
+SITE_FIELDS = ("latitude_deg", "longitude_deg", "height_m", "name")
+CAMPAIGN_FIELDS = ("start_utc", "duration_days", "duration_s", "sample_interval_s", "dut1_s")
+#: ``[theory]`` keys of every theory (for the "closest" hint of a misspelt option).
+THEORY_OPTIONS = ("name", "rotation_velocity", "preferred_frame", "wave_speed_m_s")
+
+
+def _site_from(doc: dict, source: str) -> Site:
+    spec = _table(doc, "site", source)
+    reject_unknown_fields(spec, SITE_FIELDS, f"{source}: [site]")
+    for key in ("latitude_deg", "longitude_deg"):
+        if key not in spec:
+            raise ConfigError(f"{source}: [site] {key}: missing; expected the site's "
+                              + ("geodetic latitude in degrees, north positive"
+                                 if key == "latitude_deg" else "east longitude in degrees"))
+    return _wrap(source, "site", Site, **spec)
 
 
 def _theory_from(doc: dict, source: str) -> tuple[Theory, bool]:
@@ -157,8 +185,9 @@ def _theory_from(doc: dict, source: str) -> tuple[Theory, bool]:
     cls = THEORIES.get(name)
     options = cls.scenario_options(spec, source) if cls is not None else {}
     if spec:
-        raise ConfigError(f"{source}: [theory] {sorted(spec)[0]}: unknown option for theory "
-                          f"{name!r}")
+        unknown = sorted(spec)[0]
+        raise ConfigError(f"{source}: [theory] {unknown}: unknown option for theory {name!r}"
+                          f"{closest_hint(unknown, THEORY_OPTIONS)}")
     return _wrap(source, "theory", make_theory, name, **options), rotation_velocity
 
 
@@ -260,9 +289,10 @@ def scenario_from_dict(doc: dict, source: str = "scenario") -> Scenario:
         known ones and the closest match.
     """
     _check_sections(doc, source)
-    site = _wrap(source, "site", Site, **_table(doc, "site", source))
+    site = _site_from(doc, source)
 
     camp = _table(doc, "campaign", source)
+    reject_unknown_fields(camp, CAMPAIGN_FIELDS, f"{source}: [campaign]")
     start = camp.pop("start_utc", None)
     if start is None:
         raise ConfigError(f"{source}: [campaign] start_utc: missing (ISO 8601 UTC expected)")
@@ -284,8 +314,6 @@ def scenario_from_dict(doc: dict, source: str = "scenario") -> Scenario:
     interval = _wrap(source, "campaign", check_finite_number,
                      camp.pop("sample_interval_s", 1.0), "campaign", "sample_interval_s",
                      positive=True)
-    if camp:
-        raise ConfigError(f"{source}: [campaign] {sorted(camp)[0]}: unknown field")
     if duration < 2 * interval:
         raise ConfigError(f"{source}: [campaign] duration: expected at least two samples")
 

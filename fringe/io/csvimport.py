@@ -40,7 +40,13 @@ try:
 except ModuleNotFoundError:  # Python 3.10
     import tomli as tomllib
 
-from fringe.errors import ConfigError, InputFileError, TimeScaleWarning, check_regular_file
+from fringe.errors import (
+    ConfigError,
+    InputFileError,
+    TimeScaleWarning,
+    check_regular_file,
+    closest_hint,
+)
 from fringe.frames import UTC_FIRST_YEAR, leap_table_last_year
 from fringe.io.runformat import (
     APPARATUS_KINDS,
@@ -64,7 +70,8 @@ from fringe.io.twodevice import (
 )
 from fringe.site import Site
 
-__all__ = ["TIME_FORMATS", "CsvImportSummary", "import_csv", "read_import_metadata"]
+__all__ = ["TIME_FORMATS", "CsvImportSummary", "check_import_metadata", "import_csv",
+           "read_import_metadata"]
 
 TIME_FORMATS = ("s", "iso8601")
 #: Units of the weight column: a relative weight, or the number of readings a value averages.
@@ -118,9 +125,11 @@ def _check_section(name: str, value, err):
             value = value.replace(tzinfo=None).isoformat()  # an unquoted TOML date-time, UTC
         return check_epoch_utc(value, err, "epoch_utc", strict=False)
     if name == "site":
-        return value if isinstance(value, Site) else check_site(_table(value, err, name), err)
+        return value if isinstance(value, Site) else _check_site_table(value, err)
     if name == "apparatus":
-        return check_apparatus(_table(value, err, name), err)
+        table = _table(value, err, name)
+        _check_apparatus_names(table, err)
+        return check_apparatus(table, err)
     if name in _OPTION_SECTIONS:
         return _OPTION_SECTIONS[name](_table(value, err, name), err)
     table = _table(value, err, name)
@@ -130,7 +139,8 @@ def _check_section(name: str, value, err):
     if name == "csv":
         for key in table:
             if key not in ("delimiter", "comment"):
-                raise err(f"csv.{key}", "expected only the keys delimiter and comment")
+                raise err(f"csv.{key}", "expected only the keys delimiter and comment"
+                          + closest_hint(key, ("delimiter", "comment")))
         if len(table.get("delimiter", ",")) != 1:
             raise err("csv.delimiter", f"expected one character, got {table['delimiter']!r}")
     if name == "columns":
@@ -138,6 +148,38 @@ def _check_section(name: str, value, err):
             if key not in CORE_CHANNELS and ("/" in key or "." in key):
                 raise err(f"columns.{key}", "expected a channel name without '/' or '.'")
     return table
+
+
+#: The keys of the metadata's ``[site]`` table.
+SITE_KEYS = ("latitude_deg", "longitude_deg", "height_m", "name")
+
+
+def _check_site_table(value, err) -> Site:
+    table = _table(value, err, "site")
+    for key in table:
+        if key not in SITE_KEYS:
+            raise err(f"site.{key}", f"expected only the keys {', '.join(SITE_KEYS)}"
+                      + closest_hint(key, SITE_KEYS))
+    return check_site(table, err)
+
+
+def _check_apparatus_names(attrs: Mapping, err) -> None:
+    """Refuse an apparatus attribute no model reads that is close to one it does (a typo).
+
+    Other further attributes (a serial number, a description) are stored as the run-file
+    format allows (docs/run-format.md).
+    """
+    from fringe.experiment.apparatus import APPARATUS_KINDS as MODELS
+    from fringe.experiment.apparatus import apparatus_fields
+
+    if not isinstance(attrs.get("kind"), str) or attrs["kind"] not in MODELS:
+        return                                  # check_apparatus names the kind's problem
+    known = sorted(apparatus_fields(MODELS[attrs["kind"]]))
+    for key in attrs:
+        hint = closest_hint(key, known) if key != "kind" and key not in known else ""
+        if hint:
+            raise err(f"apparatus.{key}", f"expected an attribute of kind {attrs['kind']!r} "
+                      f"({', '.join(known)}); this one is read by no model" + hint)
 
 
 def _check_log(table: Mapping, err) -> dict:
@@ -188,6 +230,22 @@ def read_import_metadata(path: str | os.PathLike) -> dict:
                       + (f"; closest: {close[0]}" if close else ""))
         out[name] = _check_section(name, value, err)
     return out
+
+
+def check_import_metadata(path: str | os.PathLike) -> dict:
+    """Validate a metadata file as :func:`import_csv` would, without reading any CSV.
+
+    Every section on its own (:func:`read_import_metadata`) and together: the required
+    sections, a column and units for every core channel, units allowed for the apparatus kind,
+    ``epoch_utc`` for times in seconds, no azimuth column with ``[azimuth_log]``.
+
+    Returns
+    -------
+    dict
+        The merged, validated sections (as :func:`read_import_metadata`).
+    """
+    merged, _ = _merge(path, {})
+    return merged
 
 
 def _merge(metadata, kwargs: dict) -> tuple[dict, Callable]:
@@ -425,6 +483,15 @@ def _first_bad(table, mask, cells, lines, col, expected) -> None:
                              f"expected {expected}, got {cells[i]!r}")
 
 
+def _check_azimuth_range(table: _Table, az: NDArray, cells: list[str], lines: list[int],
+                         col: str, units: str) -> None:
+    """Refuse an azimuth beyond 2**32 rad, naming the file's line and column."""
+    rad = np.pi / 180.0 if units == "deg" else 1.0
+    _first_bad(table, np.abs(az) * rad > AZIMUTH_MAX_RAD, cells, lines, col,
+               "an azimuth within 2**32 rad (float64 resolves about 1e-6 rad there; wrap "
+               "larger ones)")
+
+
 def _seconds(table: _Table, cells: list[str], lines: list[int], col: str, units: str,
              e_parts, row_err) -> NDArray[np.float64]:
     """Elapsed s since the epoch (``e_parts`` from :func:`_utc_parts`) of a block of times."""
@@ -514,6 +581,8 @@ class _Import:
                 az = _numbers(table, cells["azimuth"], lines, acol, False)
                 _first_bad(table, ~np.isfinite(az), cells["azimuth"], lines, acol,
                            "a finite azimuth")
+                _check_azimuth_range(table, az, cells["azimuth"], lines, acol,
+                                     log["units"]["azimuth"])
                 shifted = t_s + offset
                 _first_bad(table, np.diff(shifted, prepend=-np.inf) <= 0, cells["time"], lines,
                            tcol, "times that stay strictly increasing once moved onto the "
@@ -535,9 +604,22 @@ class _Import:
                 f"{self.log['max_gap_s']:g} s apart, got a gap of {gap[i]:.6g} s around the "
                 f"signal time {t_s[i]:.6f} s ({os.path.basename(self.csv_path)} line "
                 f"{lines[i]}); or set azimuth_log.on_gap = 'drop'")
+        self._check_unwrapped(az, inside, line)
         keep = inside & ~bad
         self.n_dropped += int(keep.size - np.count_nonzero(keep))
         return az, keep
+
+    def _check_unwrapped(self, az: NDArray, inside: NDArray, line: NDArray) -> None:
+        """Refuse an azimuth that unwrapping (whole turns added) took beyond 2**32 rad."""
+        rad = np.pi / 180.0 if self.log["units"]["azimuth"] == "deg" else 1.0
+        big = inside & (np.abs(az) * rad > AZIMUTH_MAX_RAD)
+        if big.any():
+            i = int(np.argmax(big))
+            raise InputFileError(
+                self.log_path, f"line {int(line[i])}, column {self.log['columns']['azimuth']!r}",
+                f"expected an azimuth that stays within 2**32 rad once unwrapped (whole turns "
+                f"added where consecutive samples jump by more than half a turn), got "
+                f"{az[i] * rad:.12g} rad; wrap the log's azimuth to one turn, or split the log")
 
     def no_overlap(self) -> InputFileError:
         """The error for a two-device import that kept no row."""
@@ -702,10 +784,8 @@ def _stream(job: _Import, table: _Table, log_fh, block_rows: int, progress,
                 az = _numbers(table, cells["azimuth"], lines, columns["azimuth"], False)
                 _first_bad(table, ~np.isfinite(az), cells["azimuth"], lines,
                            columns["azimuth"], "a finite azimuth")
-                rad = np.pi / 180.0 if units["azimuth"] == "deg" else 1.0
-                _first_bad(table, np.abs(az) * rad > AZIMUTH_MAX_RAD, cells["azimuth"],
-                           lines, columns["azimuth"], "an azimuth within 2**32 rad "
-                           "(float64 resolves about 1e-6 rad there; wrap larger ones)")
+                _check_azimuth_range(table, az, cells["azimuth"], lines, columns["azimuth"],
+                                     units["azimuth"])
                 keep = None
             sig = _numbers(table, cells["signal"], lines, columns["signal"], True)
             _first_bad(table, np.isinf(sig), cells["signal"], lines, columns["signal"],

@@ -14,6 +14,10 @@ move one by one: only a power cut or SIGKILL in those microseconds can leave som
 some not, and ``fringe fit`` names last the file that ties the set together (the result, which
 records the SHA-256 of its turns file). What SIGKILL leaves (the staging directory
 ``.fringe-HOST-PID-RANDOM.staging``) the next :class:`OutputSet` in that directory removes.
+
+:class:`OutputTree` is the same for a command whose outputs are only known once written
+(``fringe demo``: a report's figures depend on its content): the command writes anywhere under
+:attr:`OutputTree.directory`, and everything found there is moved into place.
 """
 
 from __future__ import annotations
@@ -38,7 +42,7 @@ from fringe.io.atomic import (
     temp_name,
 )
 
-__all__ = ["OutputSet"]
+__all__ = ["OutputSet", "OutputTree"]
 
 
 class OutputSet:
@@ -184,6 +188,52 @@ class OutputSet:
                 _place(staged / name, real_target(target))
             except OSError as exc:
                 raise output_error(target, exc) from None
+
+
+class OutputTree(OutputSet):
+    """An :class:`OutputSet` whose files are whatever is written under :attr:`directory`.
+
+    Parameters
+    ----------
+    root : str or os.PathLike
+        The output directory (it appears whole, with one rename, if it does not exist).
+    names : sequence of str
+        The outputs known in advance, checked before any work (as :class:`OutputSet` does) and
+        moved into place last, in this order; files written besides them (a report's figures)
+        are checked when the tree is committed and moved first.
+    overwrite, protect, shown
+        As for :class:`OutputSet`.
+    """
+
+    @property
+    def directory(self) -> Path:
+        """The staging directory to write the outputs into (same layout as ``root``)."""
+        if self._staging is None:
+            raise RuntimeError("OutputTree is not open: use it as a context manager")
+        return self._staging / "out"
+
+    def path(self, name: str) -> Path:
+        """Where to write the output ``name`` (any path relative to ``root``) now."""
+        p = self.directory / name
+        p.parent.mkdir(parents=True, exist_ok=True)
+        return p
+
+    def commit(self) -> None:
+        """Check the files written besides the known names, then move everything into place."""
+        staged = self.directory
+        found = sorted(p.relative_to(staged).as_posix() for p in staged.rglob("*")
+                       if p.is_file() or p.is_symlink())
+        extra = [n for n in found if n not in self.names]
+        try:
+            for name in extra:
+                target = self.root / name
+                if target.parent.is_dir():
+                    check_output_path(target, overwrite=self.overwrite, protect=self.protect)
+        except BaseException:
+            self.discard()
+            raise
+        self.names = tuple(extra) + self.names
+        super().commit()
 
 
 def _existing_ancestor(path: Path) -> Path:

@@ -10,7 +10,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
-from fringe.errors import ConfigError, check_finite_number
+from fringe.errors import ConfigError, check_finite_number, reject_unknown_fields
 
 if TYPE_CHECKING:
     from fringe.experiment.scenario import Scenario
@@ -128,6 +128,11 @@ def _plan_free(theory, free, sec: dict, where: str) -> tuple[str, ...]:
     return tuple(names)
 
 
+#: The fields of a scenario's ``[plan]`` section (docs/plan.md).
+PLAN_FIELDS = ("free", "targets", "max_days", "n_days", "decoupling_threshold",
+               "max_turn_points", "drift", "nuisances", "periods_s", "latitudes_deg")
+
+
 def _plan_fields(sec: dict, where: str) -> dict:
     """The section's optional numeric and list fields as PlanSettings keywords (popped)."""
     kw = {}
@@ -165,7 +170,7 @@ def plan_settings(scenario: Scenario, free: str | Sequence[str] | None = None,
     tg = {**tg, **(targets or {})}
     kw = _plan_fields(sec, where)
     if sec:
-        raise ConfigError(f"{where} {sorted(sec)[0]}: unknown field")
+        reject_unknown_fields(sec, PLAN_FIELDS, where)
     try:
         return PlanSettings(free=tuple(names), targets=tg, **kw)
     except ConfigError as exc:

@@ -17,7 +17,7 @@ from typing import ClassVar
 import numpy as np
 from numpy.typing import NDArray
 
-from fringe.errors import ConfigError
+from fringe.errors import ConfigError, closest_hint
 from fringe.frames import FrameState
 
 
@@ -109,7 +109,8 @@ class Theory:
         for key, value in params.items():
             if key not in self.parameter_names:
                 raise ConfigError(f"{source}: {key}: not a coefficient of theory '{self.name}' "
-                                  f"(expected one of {', '.join(self.parameter_names)})")
+                                  f"(expected one of {', '.join(self.parameter_names)})"
+                                  f"{closest_hint(key, self.parameter_names)}")
             if isinstance(value, bool) or not isinstance(value, (int, float)) \
                     or not np.isfinite(value):
                 raise ConfigError(f"{source}: {key}: expected a finite number, got {value!r}")

@@ -180,6 +180,12 @@ CASES = [
      "(--azimuth-log FILE), or neither"),
     ("log-missing", {"meta.toml": TWO_FILE}, ["--azimuth-log", "absent.csv"], "absent.csv",
      "file: expected an existing file"),
+    ("log-azimuth-beyond-2**32-rad", {"meta.toml": TWO_FILE,
+                                      "enc.csv": _edit(_encoder_rows(), "-1.900,337.200000",
+                                                       "-1.900,3e11")},
+     ["--azimuth-log", "enc.csv"], "enc.csv",
+     "line 3, column 'angle': expected an azimuth within 2**32 rad (float64 resolves about "
+     "1e-6 rad there; wrap larger ones), got '3e11'"),
 ]
 
 
@@ -217,6 +223,30 @@ def test_the_good_inputs_import(tmp_path):
         res, _, out = _run(tmp_path / str(len(extra)), files, extra)
         assert res.exit_code == 0, res.stderr
         assert os.listdir(out) == ["run.h5"]
+
+
+def test_an_azimuth_log_unwrapped_beyond_2_32_rad_names_the_log_line(tmp_path):
+    """Raw values below 2**32 rad that the unwrap lifts above it: the log's line is named.
+
+    The log (rad) starts 0.9 rad below 2**32 rad and turns at 0.2 rad/s, its values wrapped
+    back by 2 pi before they reach the bound; unwrapped, it passes 2**32 rad at t = 2.5 s. The
+    first signal time beyond is 3 s, interpolated between the log samples at 3.0 s and 3.1 s;
+    the latter is the log's 52nd sample (t = -2 + 0.1 * 51), on line 53 after the header
+    (derived).
+    """
+    t = np.round(np.arange(-2.0, 32.0, 0.1), 3)
+    raw = 2.0 ** 32 - 0.9 + 0.2 * (t + 2.0)
+    raw = np.where(raw < 2.0 ** 32 - 0.2, raw, raw - 2 * np.pi)
+    enc = "clock_s,angle\n" + "".join(f"{x:.3f},{a:.6f}\n" for x, a in zip(t, raw))
+    meta = _edit(TWO_FILE, 'units = { time = "s", azimuth = "deg" }',
+                 'units = { time = "s", azimuth = "rad" }')
+    res, src, out = _run(tmp_path, {"meta.toml": meta, "enc.csv": enc},
+                         ["--azimuth-log", "enc.csv"])
+    assert res.exit_code == 2 and "Traceback" not in res.stdout + res.stderr
+    assert res.stderr.startswith(f"error: {src / 'enc.csv'}: line 53, column 'angle': expected "
+                                 "an azimuth that stays within 2**32 rad once unwrapped")
+    assert res.stderr.count("\n") == 1 and "samples/azimuth" not in res.stderr
+    assert os.listdir(out) == []
 
 
 def test_output_over_the_azimuth_log_is_refused(tmp_path):
