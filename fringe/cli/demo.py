@@ -8,7 +8,14 @@ from pathlib import Path
 
 import click
 
-from fringe.cli.common import out_dir, run_guarded, warnings_once
+from fringe.cli.common import (
+    out_dir,
+    progress,
+    run_guarded,
+    step,
+    verbosity_options,
+    warnings_once,
+)
 
 
 def demo_scenario_path() -> Path:
@@ -17,10 +24,14 @@ def demo_scenario_path() -> Path:
 
 
 @click.command("demo")
-@click.option("--out", "out", default="fringe-demo", show_default=True,
-              help="Directory for every output of the demo.")
-@click.option("--seed", type=int, default=2027, show_default=True)
-@click.option("--overwrite", is_flag=True, help="Replace the outputs of an earlier demo.")
+@click.option("--out", "out", default="fringe-demo", show_default=True, metavar="DIR",
+              help="Directory to write every output of the demo into (created if missing).")
+@click.option("--seed", type=int, default=2027, show_default=True,
+              help="Seed of the simulated noise (printed, and recorded in run.h5 as "
+                   "settings/seed).")
+@click.option("--overwrite", is_flag=True, show_default=True,
+              help="Replace the outputs of an earlier demo in --out.")
+@verbosity_options
 @run_guarded
 def command(out, seed, overwrite):
     """Simulate, inspect, fit, report and plan an invented campaign; print where it all is."""
@@ -28,6 +39,7 @@ def command(out, seed, overwrite):
 
     matplotlib.use("Agg")
 
+    from fringe.cli.fit import significance_lines
     from fringe.experiment.scenario import load_scenario
     from fringe.fit.run import fit_run
     from fringe.fit.settings import FitSettings
@@ -43,9 +55,10 @@ def command(out, seed, overwrite):
                                       overwrite=overwrite)
     t0 = time.time()
     click.echo(f"[1/5] simulate {sc.duration_s / 86400:.0f} days at "
-               f"{sc.sample_interval_s:g} s: {sc.title}")
+               f"{sc.sample_interval_s:g} s, seed {seed}: {sc.title}")
     run_path = d / "run.h5"
-    info = simulate(sc, run_path, seed=seed, overwrite=overwrite)
+    with progress(sc.n_samples, "simulate") as bar:
+        info = simulate(sc, run_path, seed=seed, overwrite=overwrite, progress=bar.update)
     click.echo(f"      {info['n_samples']} samples, {info['n_gaps']} gaps, "
                f"{info['n_glitches']} glitches ({time.time() - t0:.1f} s)")
 
@@ -53,7 +66,8 @@ def command(out, seed, overwrite):
     from fringe.demodulate.quality import inspect_run
     from fringe.report.figures.quality import allan_plot, spectrum_plot
 
-    rep = inspect_run(str(run_path))
+    with step("inspect: turns, gaps, Allan deviation, spectrum"):
+        rep = inspect_run(str(run_path))
     write_text_atomic(d / "inspect.txt", rep.summary() + "\n", overwrite=overwrite)
     import matplotlib.pyplot as plt
 
@@ -68,16 +82,20 @@ def command(out, seed, overwrite):
     save_figure_atomic(fig, d / "inspect_spectrum.png", overwrite=overwrite)
     plt.close(fig)
 
-    click.echo("[3/5] fit (theory sme, free ke_*)")
+    settings = FitSettings(theory=sc.theory.name)
+    click.echo(f"[3/5] fit (theory {settings.theory}, the scenario's; free ke_*)")
     fit_path = d / "fit.json"
-    with fit_outputs(fit_path, overwrite=overwrite) as outputs:
+    with fit_outputs(fit_path, overwrite=overwrite) as outputs, \
+            progress(info["n_samples"], "fit, stage 1 (per-turn demodulation)") as bar:
         with warnings_once() as fitted:
-            result, columns = fit_run(str(run_path), FitSettings(), one_stage=True,
-                                      scratch_dir=str(d))
+            result, columns = fit_run(str(run_path), settings, one_stage=True,
+                                      scratch_dir=str(d), progress=bar.update)
             fitted.append(result)
         with columns:
             result = write_fit_files(outputs, result, columns)
     click.echo(result.summary())
+    for line in significance_lines(result):
+        click.echo(line)
     truth = sc.coefficients
     click.echo("      injected: " + ", ".join(f"{k}={v:.3g}" for k, v in truth.items()))
 
@@ -85,12 +103,14 @@ def command(out, seed, overwrite):
     from fringe.report.build import build_report
 
     report_dir = d / "report"
-    report_files = build_report(fit_path, report_dir, overwrite=overwrite)
+    with step("report: tables, figures and pages"):
+        report_files = build_report(fit_path, report_dir, overwrite=overwrite)
 
     click.echo("[5/5] plan (forecast for this scenario; days to reach 1e-18 on ke_XY)")
     from fringe.plan.forecast import forecast
 
-    plan = forecast(sc, targets={"ke_XY": 1e-18})
+    with step("plan: Fisher forecast"):
+        plan = forecast(sc, targets={"ke_XY": 1e-18})
     write_json_atomic(d / "plan.json", plan.to_dict(), overwrite=overwrite)
     write_text_atomic(d / "plan.txt", plan.summary() + "\n", overwrite=overwrite)
     click.echo(plan.summary())

@@ -5,19 +5,25 @@ from __future__ import annotations
 import click
 
 from fringe.cli.common import run_guarded as _run_guarded
+from fringe.cli.common import step, verbosity_options
 
 
 @click.command("plan")
 @click.argument("scenario")
-@click.option("--out", "out", default="fringe-plan", show_default=True,
-              help="Directory for plan.json, plan.txt and the figures.")
+@click.option("--out", "out", default="fringe-plan", show_default=True, metavar="DIR",
+              help="Directory to write plan.json, plan.txt and the figures (.png, .pdf) into "
+                   "(created if missing).")
 @click.option("--free", default=None, metavar="NAMES",
-              help="Comma-separated free coefficients (default: [plan] free, else the five "
-                   "ke_* for the SME), e.g. --free ke_XY,ke_XZ,ko_XY.")
+              help="Comma-separated free coefficients, e.g. --free ke_XY,ke_XZ,ko_XY  "
+                   "[default: the scenario's [plan] free, else the theory's usual set (the "
+                   "five ke_* for the SME)]")
 @click.option("--target", "targets", multiple=True, metavar="NAME=VALUE",
-              help="Report the days needed for sigma(NAME) <= VALUE, e.g. --target "
-                   "ke_XY=1e-18 (repeatable).")
-@click.option("--overwrite", is_flag=True, help="Replace existing outputs.")
+              help="Report the days needed for sigma(NAME) <= VALUE (VALUE dimensionless, as "
+                   "the coefficient), e.g. --target ke_XY=1e-18 (repeatable)  [default: the "
+                   "scenario's [plan] targets]")
+@click.option("--overwrite", is_flag=True, show_default=True,
+              help="Replace the files of an earlier plan in --out.")
+@verbosity_options
 @_run_guarded
 def command(scenario, out, free, targets, overwrite):
     """Forecast 1-sigma bounds for SCENARIO (which needs a [noise] section)."""
@@ -36,7 +42,8 @@ def command(scenario, out, free, targets, overwrite):
     names = ["plan.json", "plan.txt"] + [f"{f}.{s}" for f in figures for s in ("png", "pdf")]
     # refuse before computing or writing anything; all outputs appear together
     outputs = OutputSet(out, names, overwrite=overwrite, protect=protect)
-    result = forecast(sc, settings=settings)
+    with step("plan: Fisher forecast over campaign length and rotation period"):
+        result = forecast(sc, settings=settings)
 
     import matplotlib
 

@@ -350,7 +350,9 @@ def stage1_store(path: str, settings: DemodSettings, *, aux_channels: tuple[str,
             progress(info.n_samples)
     store = builder.finish()
     store.apply_glitch_rule()
-    logger.info("stage 1: %s", store.counts())
+    c = store.counts()
+    logger.info("stage 1: %d turns accepted of %d (%d partial, %d with a glitch)",
+                c["n_accepted"], c["n_blocks"], c["n_rejected_partial"], c["n_rejected_glitch"])
     return store, info
 
 

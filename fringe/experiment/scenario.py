@@ -11,7 +11,6 @@ give a noise-free campaign without a word).
 
 from __future__ import annotations
 
-import difflib
 import math
 import os
 
@@ -24,7 +23,16 @@ from pathlib import Path
 
 import numpy as np
 
-from fringe.errors import ConfigError, InputFileError, check_finite_number, check_regular_file
+from fringe.errors import (
+    ConfigError,
+    InputFileError,
+    check_dataclass_keywords,
+    check_finite_number,
+    check_regular_file,
+    missing_input,
+    reject_unknown_fields,
+    unknown_name,
+)
 from fringe.experiment.apparatus import Apparatus, make_apparatus
 from fringe.experiment.basis import Setup
 from fringe.experiment.turntable import AxisTilt, make_motion
@@ -140,10 +148,13 @@ def _table(doc: dict, key: str, source: str, required: bool = True) -> dict:
 
 def _wrap(source: str, section: str, func, *args, **kwargs):
     """Call a constructor, prefixing ConfigError messages with the file and section."""
+    if not args:                                   # keywords only: name the fields
+        check_dataclass_keywords(func, kwargs, f"{source}: [{section}]")
     try:
         return func(*args, **kwargs)
     except ConfigError as exc:
-        raise ConfigError(f"{source}: [{section}] {exc}") from None
+        text = str(exc).removeprefix(f"{section}: ")       # the section is named once
+        raise ConfigError(f"{source}: [{section}] {text}") from None
     except TypeError as exc:
         raise ConfigError(f"{source}: [{section}]: {exc}") from None
 
@@ -157,8 +168,9 @@ def _theory_from(doc: dict, source: str) -> tuple[Theory, bool]:
     cls = THEORIES.get(name)
     options = cls.scenario_options(spec, source) if cls is not None else {}
     if spec:
-        raise ConfigError(f"{source}: [theory] {sorted(spec)[0]}: unknown option for theory "
-                          f"{name!r}")
+        known = ["name", "rotation_velocity"] + list(getattr(cls, "SCENARIO_OPTIONS", ()))
+        raise ConfigError(f"{source}: [theory] " + unknown_name(
+            sorted(spec)[0], known, f"option for theory {name!r}"))
     return _wrap(source, "theory", make_theory, name, **options), rotation_velocity
 
 
@@ -219,7 +231,7 @@ def load_scenario(path: str | Path) -> Scenario:
         with open(path, "rb") as fh:
             doc = tomllib.load(fh)
     except FileNotFoundError:
-        raise InputFileError(path, "file", "not found") from None
+        raise missing_input(path, "a scenario (TOML) file") from None
     except OSError as exc:
         raise InputFileError(path, "file", f"cannot be read ({exc.strerror})") from None
     except tomllib.TOMLDecodeError as exc:
@@ -240,14 +252,13 @@ def _check_sections(doc: dict, source: str) -> None:
     for key, value in doc.items():
         if key in KNOWN_SECTIONS or key in STAGE_SECTIONS:
             continue
-        close = difflib.get_close_matches(key, sections + ["title"], n=1, cutoff=0.6)
-        hint = ""
-        if close:
-            hint = f"; closest: {close[0]}" if close[0] == "title" else f"; closest: [{close[0]}]"
-        what = f"[{key}]: unknown section" if isinstance(value, dict) else \
-            f"{key}: unknown top-level key"
-        raise ConfigError(f"{source}: {what}; known sections: "
-                          + ", ".join(f"[{n}]" for n in sections) + f" (and the key title){hint}")
+        table = isinstance(value, dict)
+
+        def shown(n, key=key, table=table):
+            return f"[{n}]" if n in sections or (n == key and table) else n
+
+        raise ConfigError(f"{source}: " + unknown_name(
+            key, sections + ["title"], "section" if table else "top-level key", shown=shown))
 
 
 def scenario_from_dict(doc: dict, source: str = "scenario") -> Scenario:
@@ -285,7 +296,8 @@ def scenario_from_dict(doc: dict, source: str = "scenario") -> Scenario:
                      camp.pop("sample_interval_s", 1.0), "campaign", "sample_interval_s",
                      positive=True)
     if camp:
-        raise ConfigError(f"{source}: [campaign] {sorted(camp)[0]}: unknown field")
+        reject_unknown_fields(camp, ("start_utc", "dut1_s", "duration_days", "duration_s",
+                                     "sample_interval_s"), f"{source}: [campaign]")
     if duration < 2 * interval:
         raise ConfigError(f"{source}: [campaign] duration: expected at least two samples")
 

@@ -10,7 +10,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
-from fringe.errors import ConfigError, check_finite_number
+from fringe.errors import ConfigError, check_finite_number, reject_unknown_fields, unknown_name
 
 if TYPE_CHECKING:
     from fringe.experiment.scenario import Scenario
@@ -73,8 +73,8 @@ class PlanSettings:
                               f"got {self.drift!r}")
         for n in self.nuisances:
             if n not in NUISANCES:
-                raise ConfigError(f"plan: nuisances: unknown {n!r} (expected some of "
-                                  f"{', '.join(NUISANCES)})")
+                raise ConfigError("plan: nuisances: " + unknown_name(n, NUISANCES, "nuisance",
+                                                                     ordered=True))
         if "lab_C0" in self.nuisances and "ke_ZZ" in self.free:
             raise ConfigError("plan: nuisances: lab_C0 (a constant C offset) is degenerate with "
                               "ke_ZZ; drop lab_C0 or leave ke_ZZ out of free")
@@ -120,12 +120,17 @@ def _plan_free(theory, free, sec: dict, where: str) -> tuple[str, ...]:
         names = theory.primary_names
     for n in names:
         if n not in theory.parameter_names:
-            raise ConfigError(f"{where_free}: {n!r} is not a coefficient of theory "
-                              f"{theory.name!r} (expected some of "
-                              f"{', '.join(theory.parameter_names)})")
+            raise ConfigError(f"{where_free}: " + unknown_name(
+                n, theory.parameter_names, f"coefficient of theory '{theory.name}'",
+                ordered=True))
     if not names or len(set(names)) != len(names):
         raise ConfigError(f"{where_free}: expected distinct coefficient names")
     return tuple(names)
+
+
+#: The fields of a scenario's ``[plan]`` section (for the unknown-field message).
+_PLAN_FIELDS_KNOWN = ("free", "targets", "max_days", "n_days", "decoupling_threshold",
+                      "max_turn_points", "drift", "nuisances", "periods_s", "latitudes_deg")
 
 
 def _plan_fields(sec: dict, where: str) -> dict:
@@ -165,7 +170,7 @@ def plan_settings(scenario: Scenario, free: str | Sequence[str] | None = None,
     tg = {**tg, **(targets or {})}
     kw = _plan_fields(sec, where)
     if sec:
-        raise ConfigError(f"{where} {sorted(sec)[0]}: unknown field")
+        reject_unknown_fields(sec, _PLAN_FIELDS_KNOWN, where)
     try:
         return PlanSettings(free=tuple(names), targets=tg, **kw)
     except ConfigError as exc:
