@@ -244,3 +244,18 @@ def check_dataclass_keywords(cls, kwargs, where: str) -> None:
         required = f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING
         if required and f.name not in kwargs:
             raise ConfigError(f"{where} {f.name}: missing (a required field)")
+
+
+def not_utf8(path, exc: UnicodeDecodeError) -> InputFileError:
+    """The one wording of a text input that is not UTF-8: the first bad byte and its offset.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The input.
+    exc : UnicodeDecodeError
+        The decoder's complaint (its codec text is not shown).
+    """
+    return InputFileError(path, "file", f"expected UTF-8 text, got byte "
+                                        f"0x{exc.object[exc.start]:02x} at byte offset "
+                                        f"{exc.start}; save it as UTF-8")

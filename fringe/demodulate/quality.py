@@ -26,8 +26,8 @@ from fringe.io.fit_result import session_lines
 from fringe.io.fit_sections import Motion, Sessions
 from fringe.io.records import plain
 from fringe.io.runreader import open_run
-from fringe.io.text_table import number, text_table
 from fringe.noise.allan import AllanResult, overlapping_adev
+from fringe.text_table import number, text_table
 
 MAX_SPECTRAL_SAMPLES = 1 << 22
 

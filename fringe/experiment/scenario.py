@@ -30,6 +30,7 @@ from fringe.errors import (
     check_finite_number,
     check_regular_file,
     missing_input,
+    not_utf8,
     reject_unknown_fields,
     unknown_name,
 )
@@ -237,9 +238,7 @@ def load_scenario(path: str | Path) -> Scenario:
     except tomllib.TOMLDecodeError as exc:
         raise InputFileError(path, "TOML", f"not valid TOML ({exc})") from None
     except UnicodeDecodeError as exc:
-        raise InputFileError(path, "file", f"expected UTF-8 text, got byte "
-                             f"0x{exc.object[exc.start]:02x} at byte offset {exc.start}") \
-            from None
+        raise not_utf8(path, exc) from None
     except RecursionError:
         raise InputFileError(path, "TOML", "expected tables and arrays nested less deeply "
                              "(too deep to read)") from None

@@ -45,6 +45,7 @@ from fringe.errors import (
     TimeScaleWarning,
     check_regular_file,
     missing_input,
+    not_utf8,
     unknown_text,
 )
 from fringe.frames import UTC_FIRST_YEAR, leap_table_last_year
@@ -178,7 +179,9 @@ def read_import_metadata(path: str | os.PathLike) -> dict:
             raw = tomllib.load(fh)
     except FileNotFoundError:
         raise missing_input(path, "the import's metadata (TOML) file") from None
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+    except UnicodeDecodeError as exc:
+        raise not_utf8(path, exc) from None
+    except tomllib.TOMLDecodeError as exc:
         raise InputFileError(path, "file", f"expected valid TOML ({exc})") from None
     except RecursionError:
         raise InputFileError(path, "file", "expected valid TOML (tables and arrays nested "

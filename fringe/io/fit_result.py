@@ -18,7 +18,7 @@ from pathlib import Path
 
 import numpy as np
 
-from fringe.errors import InputFileError, missing_input
+from fringe.errors import InputFileError, missing_input, not_utf8
 from fringe.io.fit_calibration import SignalCalibration
 from fringe.io.fit_sections import (
     Covariance,
@@ -372,7 +372,7 @@ def _derived_lines(d: Derived | None) -> list[str]:
 
 def session_lines(sessions: Sessions) -> list[str]:
     """The per-session 2 theta amplitudes as text lines (``fringe inspect``, the summary)."""
-    from fringe.io.text_table import number, text_table
+    from fringe.text_table import number, text_table
 
     u = sessions.units
     lines = [f"per-session 2 theta amplitudes ({u}; 1 sigma, Student t; "
@@ -448,9 +448,11 @@ def read_fit_result(path) -> FitResult:
                                            "or a special file")
     try:
         d = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputFileError(path, "file", f"expected a readable UTF-8 JSON file ({exc})") \
-            from None
+    except UnicodeDecodeError as exc:
+        raise not_utf8(path, exc) from None
+    except OSError as exc:
+        raise InputFileError(path, "file", f"expected a readable JSON file "
+                                           f"({exc.strerror or 'cannot be read'})") from None
     except json.JSONDecodeError as exc:
         raise InputFileError(path, "JSON", f"expected valid JSON ({exc.msg} at line "
                                            f"{exc.lineno})") from None

@@ -13,7 +13,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass, fields
 
 from fringe.io.records import Fields, freeze, plain
-from fringe.io.text_table import text_table
+from fringe.text_table import text_table
 
 __all__ = ["MonteCarloCheck", "PlanResult", "TargetAnswer"]
 

@@ -10,7 +10,13 @@ from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
-from fringe.errors import ConfigError, check_finite_number, reject_unknown_fields, unknown_name
+from fringe.errors import (
+    ConfigError,
+    check_finite_number,
+    reject_unknown_fields,
+    unknown_name,
+    unknown_text,
+)
 
 if TYPE_CHECKING:
     from fringe.experiment.scenario import Scenario
@@ -91,8 +97,8 @@ class PlanSettings:
             check_finite_number(lat, "plan", "latitudes_deg", minimum=-90.0, maximum=90.0)
         for k, v in self.targets.items():
             if k not in self.free:
-                raise ConfigError(f"plan: target {k}: not a free coefficient (free: "
-                                  f"{', '.join(self.free)})")
+                raise ConfigError(f"plan: target {k}: "
+                                  + unknown_text(k, self.free, "free coefficient", ordered=True))
             check_finite_number(v, "plan", f"target {k}", positive=True)
 
 
