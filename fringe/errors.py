@@ -226,7 +226,7 @@ def check_regular_file(path, expected: str):
     raise InputFileError(path, "file", f"expected a regular file: {expected}, got {kind}")
 
 
-def check_dataclass_keywords(cls, kwargs, where: str) -> None:
+def check_dataclass_keywords(cls, kwargs, where: str, what: str = "field") -> None:
     """Refuse keywords a dataclass ``cls`` does not take, or required ones that are missing.
 
     What would otherwise be a Python ``TypeError`` naming ``__init__`` becomes a
@@ -239,7 +239,7 @@ def check_dataclass_keywords(cls, kwargs, where: str) -> None:
     if not dataclasses.is_dataclass(cls):
         return
     fields = [f for f in dataclasses.fields(cls) if f.init]
-    reject_unknown_fields(kwargs, [f.name for f in fields], where)
+    reject_unknown_fields(kwargs, [f.name for f in fields], where, what)
     for f in fields:
         required = f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING
         if required and f.name not in kwargs:

@@ -221,7 +221,11 @@ class Epoch:
             jd1, jd2 = _erfa_call(erfa.dtf2d, "UTC", int(y), int(mo), int(d), int(h),
                                   int(mi), float(s))
         except erfa.ErfaError as exc:
-            raise ConfigError(f"epoch_utc: not a valid UTC instant: {self.utc!r} ({exc})") from None
+            # ERFA says e.g. 'function "dtf2d" yielded 1 of "bad month"': keep the reason only
+            found = re.search(r'of "([^"]+)"', str(exc))
+            reason = found.group(1) if found else "not a calendar date and time"
+            raise ConfigError(f"epoch_utc: not a valid UTC instant: {self.utc!r} "
+                              f"({reason})") from None
         return float(jd1), float(jd2)
 
     @cached_property

@@ -28,7 +28,6 @@ def _names(text: str | None) -> tuple[str, ...] | None:
               help="Result file to write (one JSON file, e.g. fit.json; the per-turn "
                    "amplitudes go beside it as FILE.turns.h5; not a directory).")
 @click.option("--theory", type=RegistryChoice("fringe.theories", "THEORIES"), default="sme",
-              show_default=True,
               help="Theory whose coefficients are fitted  [default: the theory of the run "
                    "file's scenario when it records one (simulated runs), else sme]")
 @click.option("--free", "free", default=None, metavar="NAMES",

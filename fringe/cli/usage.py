@@ -97,6 +97,8 @@ class FringeGroup(click.Group):
         """Parse the group's own options; a usage error becomes one line."""
         try:
             return super().make_context(info_name, args, parent=parent, **extra)
+        except click.exceptions.NoArgsIsHelpError:
+            raise                          # "fringe" alone: the help, as click prints it
         except click.UsageError as exc:
             raise OneLineUsageError(usage_line(exc)) from None
 
@@ -113,7 +115,7 @@ class FringeGroup(click.Group):
         """Run the command; a usage error while parsing its options becomes one line."""
         try:
             return super().invoke(ctx)
-        except OneLineUsageError:
+        except (OneLineUsageError, click.exceptions.NoArgsIsHelpError):
             raise
         except click.UsageError as exc:
             raise OneLineUsageError(usage_line(exc)) from None
