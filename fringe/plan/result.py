@@ -373,7 +373,8 @@ class MonteCarloCheck:
 
     def summary(self) -> str:
         """Text for a person: forecast and Monte Carlo scatter per coefficient, and their ratio."""
-        rows = [f"  {n:<9} {f:.4g}  {s:.4g}  {s / f:.3f}" for n, f, s in
+        rows = [[n, f"{f:.4g}", f"{s:.4g}", f"{s / f:.3f}"] for n, f, s in
                 zip(self.names, self.sigma_forecast, self.sigma_scatter, strict=True)]
         return "\n".join([f"Monte Carlo check: {self.n_campaigns} campaigns of {self.n_turns} "
-                          f"turns; {self.method}", "  name      forecast  scatter  ratio"] + rows)
+                          f"turns; {self.method}"]
+                         + text_table(["coefficient", "forecast", "scatter", "ratio"], rows))

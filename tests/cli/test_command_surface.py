@@ -374,3 +374,20 @@ def test_the_plan_of_the_example_prints_merged_round_rows(tmp_path):
     days = [line.split()[0] for line in res.stdout.split("sigma versus campaign length:")[1]
             .split("\n\n")[0].splitlines()[2:]]
     assert all(len(d.replace(".", "")) <= 3 for d in days), days   # round values
+
+
+def test_plan_monte_carlo_records_its_seed_and_repeats_with_it(tmp_path):
+    import json
+
+    sc = _short(tmp_path, days=0.5)
+    res = _invoke(["plan", sc, "--out", tmp_path / "a", "--monte-carlo", "4"])
+    assert res.exit_code == 0, res.output
+    seed = int(re.search(r"seed (\d+) \(drawn at random", res.stdout).group(1))
+    first = json.loads((tmp_path / "a" / "plan_check.json").read_text("utf-8"))
+    assert first["seed"] == seed and first["check"]["n_campaigns"] == 4
+    again = _invoke(["plan", sc, "--out", tmp_path / "b", "--monte-carlo", "4", "--seed",
+                     str(seed)])
+    assert again.exit_code == 0, again.output
+    second = json.loads((tmp_path / "b" / "plan_check.json").read_text("utf-8"))
+    assert second == first                                  # same seed, same check
+    assert "drawn at random" not in again.stdout
