@@ -107,28 +107,102 @@ def check_finite_number(value, source: str, field: str, *, positive: bool = Fals
     return x
 
 
-def closest_hint(name, known) -> str:
-    """``"; closest: NAME"`` for the known name nearest a misspelt one, or ``""`` if none is near.
+def nearest_name(name: str, known) -> str | None:
+    """The name of ``known`` closest in spelling to ``name`` (None when none is close).
 
-    Nearness is :func:`difflib.get_close_matches` with its similarity cut-off 0.6.
+    Parameters
+    ----------
+    name : str
+        The name given (a field, section, option or coefficient).
+    known : iterable of str
+        The names that would have been accepted.
     """
     import difflib
 
-    close = difflib.get_close_matches(str(name), [str(k) for k in known], n=1, cutoff=0.6)
-    return f"; closest: {close[0]}" if close else ""
+    known = [str(k) for k in known]
+    close = difflib.get_close_matches(str(name), known, n=1, cutoff=0.6)
+    if not close:          # a difference of case only ("KE_XY") is still a near miss
+        lower = {k.lower(): k for k in known}
+        close = [lower[n] for n in difflib.get_close_matches(str(name).lower(), list(lower),
+                                                             n=1, cutoff=0.6)]
+    return close[0] if close else None
 
 
-def reject_unknown_fields(given, allowed, where: str, what: str = "unknown field") -> None:
+def closest_hint(name, known) -> str:
+    """``"; did you mean NAME?"`` for the known name nearest a misspelt one, else ``""``.
+
+    For messages that list the known names themselves; :func:`nearest_name` finds the name.
+    """
+    near = nearest_name(name, known)
+    return f"; did you mean {near}?" if near is not None else ""
+
+
+def unknown_name(name: str, known, what: str = "field", *, ordered: bool = False,
+                 shown=None) -> str:
+    """The one wording of an unknown name: "NAME: unknown WHAT; did you mean X? (known: ...)".
+
+    Every message about an unknown field, section, option, coefficient or setting uses it, so
+    that the same mistake reads the same everywhere (a scenario, the import's metadata, the
+    options ``--set``, ``--fix``, ``--free``, ``--target``). The caller puts the source (file,
+    section, option) in front.
+
+    Parameters
+    ----------
+    name : str
+        The name given.
+    known : iterable of str
+        The accepted names (listed sorted unless ``ordered``).
+    what : str
+        What the name should have been ("field", "section", "coefficient of theory 'sme'").
+    ordered : bool
+        Keep the order of ``known`` in the list (e.g. the order of a theory's coefficients).
+    shown : callable, optional
+        How a name is written in the message (e.g. ``lambda s: f"[{s}]"`` for a section).
+    """
+    shown = shown or str
+    return f"{shown(name)}: " + unknown_text(name, known, what, ordered=ordered, shown=shown)
+
+
+def unknown_text(name: str, known, what: str = "field", *, ordered: bool = False,
+                 shown=None) -> str:
+    """:func:`unknown_name` without the leading "NAME: " (for messages that name it already)."""
+    shown = shown or str
+    names = list(known) if ordered else sorted(known)
+    near = nearest_name(name, names)
+    hint = f"; did you mean {shown(near)}?" if near is not None else ""
+    return f"unknown {what}{hint} (known: {', '.join(shown(n) for n in names) or 'none'})"
+
+
+def reject_unknown_fields(given, allowed, where: str, what: str = "field") -> None:
     """Raise ConfigError for the first (sorted) name of ``given`` that is not in ``allowed``.
 
-    The message reads "WHERE NAME: WHAT (expected some of ...); closest: KNOWN" (the closest
-    part only when a known name is near, :func:`closest_hint`); ``where`` ends with ":" or a
-    section label.
+    The message reads "WHERE NAME: unknown WHAT; did you mean X? (known: ...)"
+    (:func:`unknown_name`); ``where`` ends with ":" or a section label.
     """
     unknown = sorted(set(given) - set(allowed))
     if unknown:
-        raise ConfigError(f"{where} {unknown[0]}: {what} (expected some of "
-                          f"{', '.join(sorted(allowed))}){closest_hint(unknown[0], allowed)}")
+        raise ConfigError(f"{where} {unknown_name(unknown[0], allowed, what)}")
+
+
+def output_exists(path) -> OutputError:
+    """The one wording of an output that exists when replacing it was not asked for.
+
+    The command line spells ``overwrite=True`` as its option ``--overwrite``.
+    """
+    return OutputError(f"{path}: exists (pass overwrite=True to replace it)")
+
+
+def missing_input(path, expected: str) -> InputFileError:
+    """The one wording of an input file that does not exist ("PATH: file: not found; ...").
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The input as given.
+    expected : str
+        What it should be, e.g. ``"a scenario (TOML) file"``.
+    """
+    return InputFileError(path, "file", f"not found; expected {expected}; check the path")
 
 
 def check_regular_file(path, expected: str):
@@ -150,7 +224,7 @@ def check_regular_file(path, expected: str):
     try:
         mode = os.stat(path).st_mode
     except FileNotFoundError:
-        raise InputFileError(path, "file", f"expected an existing file: {expected}") from None
+        raise missing_input(path, expected) from None
     except OSError as exc:
         raise InputFileError(path, "file", f"expected a readable file: {expected} "
                                            f"({exc.strerror})") from None
@@ -159,3 +233,38 @@ def check_regular_file(path, expected: str):
     kind = ("a directory" if stat.S_ISDIR(mode) else "a FIFO (named pipe)" if stat.S_ISFIFO(mode)
             else "a socket" if stat.S_ISSOCK(mode) else "a device")
     raise InputFileError(path, "file", f"expected a regular file: {expected}, got {kind}")
+
+
+def check_dataclass_keywords(cls, kwargs, where: str, what: str = "field") -> None:
+    """Refuse keywords a dataclass ``cls`` does not take, or required ones that are missing.
+
+    What would otherwise be a Python ``TypeError`` naming ``__init__`` becomes a
+    :class:`ConfigError` in the words of a settings file: "WHERE NAME: unknown field; did you
+    mean X? (known: ...)" or "WHERE NAME: missing (a required field)". Not a dataclass: nothing
+    is checked.
+    """
+    import dataclasses
+
+    if not dataclasses.is_dataclass(cls):
+        return
+    fields = [f for f in dataclasses.fields(cls) if f.init]
+    reject_unknown_fields(kwargs, [f.name for f in fields], where, what)
+    for f in fields:
+        required = f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING
+        if required and f.name not in kwargs:
+            raise ConfigError(f"{where} {f.name}: missing (a required field)")
+
+
+def not_utf8(path, exc: UnicodeDecodeError) -> InputFileError:
+    """The one wording of a text input that is not UTF-8: the first bad byte and its offset.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The input.
+    exc : UnicodeDecodeError
+        The decoder's complaint (its codec text is not shown).
+    """
+    return InputFileError(path, "file", f"expected UTF-8 text, got byte "
+                                        f"0x{exc.object[exc.start]:02x} at byte offset "
+                                        f"{exc.start}; save it as UTF-8")

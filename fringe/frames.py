@@ -127,7 +127,13 @@ def leap_table_last_year() -> int:
 def _calendar(epoch: Epoch, t_s: float) -> tuple[int, int, int]:
     """UTC calendar date of ``t_s`` after the epoch (leap seconds ignored: whole days only)."""
     u1, u2 = epoch.utc_jd
-    y, mo, d, _ = erfa.jd2cal(u1, u2 + float(t_s) / DAY_S)
+    try:
+        y, mo, d, _ = erfa.jd2cal(u1, u2 + float(t_s) / DAY_S)
+    except erfa.ErfaError:
+        # beyond ERFA's calendar (JD below -68569.5 or above 1e9): only the year matters to
+        # the cautions, from 365.25-day years counted from J2000 (JD 2451545.0)
+        jd = u1 + u2 + float(t_s) / DAY_S
+        return int(math.floor(2000.0 + (jd - 2451545.0) / 365.25)), 1, 1
     return int(y), int(mo), int(d)
 
 
@@ -221,7 +227,11 @@ class Epoch:
             jd1, jd2 = _erfa_call(erfa.dtf2d, "UTC", int(y), int(mo), int(d), int(h),
                                   int(mi), float(s))
         except erfa.ErfaError as exc:
-            raise ConfigError(f"epoch_utc: not a valid UTC instant: {self.utc!r} ({exc})") from None
+            # ERFA says e.g. 'function "dtf2d" yielded 1 of "bad month"': keep the reason only
+            found = re.search(r'of "([^"]+)"', str(exc))
+            reason = found.group(1) if found else "not a calendar date and time"
+            raise ConfigError(f"epoch_utc: not a valid UTC instant: {self.utc!r} "
+                              f"({reason})") from None
         return float(jd1), float(jd2)
 
     @cached_property

@@ -6,20 +6,20 @@ stderr and a non-zero exit, with no traceback.
 
 from __future__ import annotations
 
-import logging
-
 import click
 
+from fringe.cli.common import QUIET_HELP, VERBOSE_HELP, reset_verbosity
+from fringe.cli.usage import FringeGroup
 from fringe.version import __version__
 
 
-@click.group(context_settings={"help_option_names": ["-h", "--help"]})
-@click.version_option(__version__, prog_name="fringe")
-@click.option("-v", "--verbose", count=True, help="More log output (repeat for debug).")
-def main(verbose: int):
+@click.group(cls=FringeGroup, context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="fringe", help="Show the version and exit.")
+@click.option("-v", "--verbose", count=True, help=VERBOSE_HELP)
+@click.option("-q", "--quiet", is_flag=True, help=QUIET_HELP)
+def main(verbose: int, quiet: bool):
     """fringe: design, fit and publish rotating-apparatus tests of light-speed isotropy."""
-    level = logging.WARNING - 10 * min(verbose, 2)
-    logging.basicConfig(level=level, format="%(levelname)s %(name)s: %(message)s")
+    reset_verbosity(verbose, quiet)
 
 
 #: The modules of the commands, one each (``fringe/cli/<module>.py``, each defines ``command``).

@@ -38,6 +38,7 @@ OPTION_SPELLING = (
     ("scratch_dir=DIR", "--scratch-dir DIR"),
     ("kt/is_", "--kt/--is"),
     ("overwrite=True", "--overwrite"),
+    ("noise_free=True", "--noise-free"),
     ("azimuth_log=PATH", "--azimuth-log FILE"),
     ("simulate(seed=...)", "--seed"),
 )
@@ -183,7 +184,7 @@ def note_first_compile() -> None:
     Nothing is printed when stderr is not a terminal or when compiled code is already cached
     (:func:`fringe.demodulate.kernel_cache.cache_is_warm`).
     """
-    if not sys.stderr.isatty():
+    if not sys.stderr.isatty() or quiet():
         return
     from fringe.demodulate.kernel_cache import cache_is_warm
 
@@ -192,21 +193,160 @@ def note_first_compile() -> None:
                    "takes 6-9 s more; later runs reuse it)", err=True)
 
 
-def progress(total: int, label: str):
-    """A click progress bar on stderr when the job is long, else a no-op context."""
-    import contextlib
+# -- verbosity -----------------------------------------------------------------------------
+#: The verbosity of the running command: ``verbose`` (count of -v) and ``quiet`` (-q). Reset by
+#: the group at the start of every invocation; -v/-q before or after the command both count.
+VERBOSITY = {"verbose": 0, "quiet": False}
 
-    if total < 2_000_000 or not sys.stderr.isatty():
-        @contextlib.contextmanager
-        def _null():
-            class _P:
-                def update(self, n):
-                    pass
-            yield _P()
-        return _null()
-    return click.progressbar(length=total, label=label, file=sys.stderr)
+_LOG_FORMAT = "%(levelname)s %(name)s: %(message)s"
 
 
+def reset_verbosity(verbose: int = 0, quiet: bool = False) -> None:
+    """Start an invocation with the group's -v count and -q flag, and set the log level."""
+    VERBOSITY.update(verbose=0, quiet=False)
+    _apply_verbosity(verbose, quiet)
+
+
+def _apply_verbosity(verbose: int, quiet: bool) -> None:
+    VERBOSITY["verbose"] = max(VERBOSITY["verbose"], int(verbose or 0))
+    VERBOSITY["quiet"] = VERBOSITY["quiet"] or bool(quiet)
+    if VERBOSITY["quiet"]:
+        level = logging.ERROR
+    else:
+        level = logging.WARNING - 10 * min(VERBOSITY["verbose"], 2)
+    logging.basicConfig(level=level, format=_LOG_FORMAT)
+    logging.getLogger().setLevel(level)
+
+
+def quiet() -> bool:
+    """True when -q was given: no info lines, no notes, no progress."""
+    return VERBOSITY["quiet"]
+
+
+def info(line: str) -> None:
+    """Print an information line on stderr (a step, a note), unless -q was given."""
+    if not quiet():
+        click.echo(line, err=True)
+
+
+def _verbosity_callback(ctx, param, value):
+    if param.name == "verbose":
+        _apply_verbosity(value, False)
+    else:
+        _apply_verbosity(0, value)
+    return value
+
+
+VERBOSE_HELP = "More log output on stderr (-vv for debug); also accepted after the command."
+QUIET_HELP = ("Only results, warnings and errors: no information lines and no progress bar; "
+              "also accepted after the command.")
+
+
+def verbosity_options(func):
+    """Add -v/--verbose and -q/--quiet to a command (the same flags as before the command)."""
+    func = click.option("-q", "--quiet", "quiet", is_flag=True, expose_value=False,
+                        callback=_verbosity_callback, help=QUIET_HELP)(func)
+    return click.option("-v", "--verbose", "verbose", count=True, expose_value=False,
+                        callback=_verbosity_callback, help=VERBOSE_HELP)(func)
+
+
+# -- progress --------------------------------------------------------------------------------
+def progress_shown() -> bool:
+    """True when a progress bar may be drawn: stderr is a terminal, no -q, not under pytest."""
+    import os
+
+    return (sys.stderr.isatty() and not quiet()
+            and "PYTEST_CURRENT_TEST" not in os.environ)
+
+
+class _NoBar:
+    """What :func:`progress` yields when no bar is drawn: every call does nothing."""
+
+    def update(self, n: int) -> None:
+        """Ignore ``n`` units of progress."""
+
+    def then(self, line: str) -> None:
+        """Ignore the next step's line."""
+
+
+class _Bar:
+    """A click progress bar with :meth:`then`: close the bar and say what comes next."""
+
+    def __init__(self, bar):
+        self._bar = bar
+        self._closed = False
+
+    def update(self, n: int) -> None:
+        """Advance the bar by ``n`` units."""
+        if not self._closed:
+            self._bar.update(n)
+
+    def then(self, line: str) -> None:
+        """Finish the bar now and print ``line`` (the step that follows, e.g. stages 2-3)."""
+        if not self._closed:
+            self._closed = True
+            self._bar.render_finish()
+            click.echo(line, err=True)
+
+    def close(self) -> None:
+        """Finish the bar (once)."""
+        if not self._closed:
+            self._closed = True
+            self._bar.render_finish()
+
+
+@contextlib.contextmanager
+def _bar(total: int, label: str):
+    bar = _Bar(click.progressbar(length=int(total), label=label, file=sys.stderr,
+                                 show_eta=True, show_percent=True))
+    try:
+        yield bar
+    finally:
+        bar.close()
+
+
+def progress(total: int, label: str, *, min_total: int = 2_000_000):
+    """A progress bar on stderr with the time left, on a terminal only; else a no-op.
+
+    Parameters
+    ----------
+    total : int
+        Units of work (samples, bytes, campaigns).
+    label : str
+        What is being done, e.g. ``"simulate"``.
+    min_total : int
+        Below this many units the job is short and no bar is drawn (default two million
+        samples, a few seconds of work).
+
+    Returns
+    -------
+    context manager
+        Yields an object with ``update(n)`` and ``then(line)`` (finish the bar, print the next
+        step's line). Never draws in a pipe, under pytest or with -q.
+    """
+    if total < max(min_total, 1) or not progress_shown():
+        return contextlib.nullcontext(_NoBar())
+    return _bar(total, label)
+
+
+@contextlib.contextmanager
+def step(label: str):
+    """Say on a terminal that a step without a count has started, and when it is done.
+
+    For steps that can take a few seconds but report no progress of their own (stages 2-3 of
+    a fit, a forecast, the report's figures). Prints nothing in a pipe, under pytest or with -q.
+    """
+    import time
+
+    if not progress_shown():
+        yield
+        return
+    t0 = time.monotonic()
+    click.echo(f"{label} ...", err=True, nl=False)
+    try:
+        yield
+    finally:
+        click.echo(f" {time.monotonic() - t0:.1f} s", err=True)
 
 
 class RegistryChoice(click.Choice):

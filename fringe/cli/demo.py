@@ -18,7 +18,7 @@ from pathlib import Path
 
 import click
 
-from fringe.cli.common import run_guarded, warnings_once
+from fringe.cli.common import progress, run_guarded, step, verbosity_options, warnings_once
 from fringe.errors import FringeError, InputFileError
 
 #: The demo's outputs known before it runs (checked at once; the report's figures are added
@@ -36,10 +36,15 @@ def demo_scenario_path() -> Path:
 
 
 @click.command("demo")
-@click.option("--out", "out", default="fringe-demo", show_default=True,
-              help="Directory for every output of the demo.")
-@click.option("--seed", type=int, default=2027, show_default=True)
-@click.option("--overwrite", is_flag=True, help="Replace the outputs of an earlier demo.")
+@click.option("--out", "out", default="fringe-demo", show_default=True, metavar="DIR",
+              help="Directory to write every output of the demo into (created if missing; "
+                   "written whole or not at all).")
+@click.option("--seed", type=int, default=2027, show_default=True,
+              help="Seed of the simulated noise (printed, and recorded in run.h5 as "
+                   "settings/seed).")
+@click.option("--overwrite", is_flag=True, show_default=True,
+              help="Replace the outputs of an earlier demo in --out.")
+@verbosity_options
 @run_guarded
 def command(out, seed, overwrite):
     """Simulate, inspect, fit, report and plan an invented campaign; print where it all is."""
@@ -97,24 +102,31 @@ def _run_steps(scenario_text: str, seed: int, t0: float) -> None:
     write_text_atomic("scenario.toml", scenario_text)
     sc = load_scenario("scenario.toml")
     click.echo(f"[1/5] simulate {sc.duration_s / 86400:.0f} days at "
-               f"{sc.sample_interval_s:g} s: {sc.title}")
-    info = simulate(sc, "run.h5", seed=seed)
+               f"{sc.sample_interval_s:g} s, seed {seed}: {sc.title}")
+    with progress(sc.n_samples, "simulate") as bar:
+        info = simulate(sc, "run.h5", seed=seed, progress=bar.update)
     click.echo(f"      {info['n_samples']} samples, {info['n_gaps']} gaps, "
                f"{info['n_glitches']} glitches ({time.time() - t0:.1f} s)")
 
     click.echo("[2/5] inspect")
     _inspect_step("run.h5")
 
-    click.echo("[3/5] fit (theory sme, free ke_*)")
-    result = _fit_step("run.h5", "fit.json")
+    from fringe.cli.fit import significance_lines
+
+    click.echo(f"[3/5] fit (theory {sc.theory.name}, the scenario's; free ke_*)")
+    result = _fit_step("run.h5", "fit.json", sc.theory.name, info["n_samples"])
     click.echo(result.summary())
+    for line in significance_lines(result):
+        click.echo(line)
     click.echo("      injected: " + ", ".join(f"{k}={v:.3g}" for k, v in sc.coefficients.items()))
 
     click.echo("[4/5] report")
-    build_report("fit.json", "report")
+    with step("report: tables, figures and pages"):
+        build_report("fit.json", "report")
 
     click.echo("[5/5] plan (forecast for this scenario; days to reach 1e-18 on ke_XY)")
-    plan = forecast(sc, targets={"ke_XY": 1e-18})
+    with step("plan: Fisher forecast"):
+        plan = forecast(sc, targets={"ke_XY": 1e-18})
     write_json_atomic("plan.json", plan.to_dict())
     write_text_atomic("plan.txt", plan.summary() + "\n")
     click.echo(plan.summary())
@@ -128,7 +140,8 @@ def _inspect_step(run_path: str) -> None:
     from fringe.io.atomic import save_figure_atomic, write_text_atomic
     from fringe.report.figures.quality import allan_plot, spectrum_plot
 
-    rep = inspect_run(run_path)
+    with step("inspect: turns, gaps, Allan deviation, spectrum"):
+        rep = inspect_run(run_path)
     write_text_atomic("inspect.txt", rep.summary() + "\n")
     fig, ax = plt.subplots(figsize=(5.6, 4.0))
     allan_plot(rep.allan.tau_s, rep.allan.adev, turn_period_s=rep.stats["turn_period_s"], ax=ax)
@@ -140,15 +153,17 @@ def _inspect_step(run_path: str) -> None:
     plt.close(fig)
 
 
-def _fit_step(run_path: str, fit_path: str):
-    """Fit the run with the default settings (and the one-stage cross-check); return the result."""
+def _fit_step(run_path: str, fit_path: str, theory: str, n_samples: int):
+    """Fit the run with the default settings of ``theory`` (and the one-stage cross-check)."""
     from fringe.fit.run import fit_run
     from fringe.fit.settings import FitSettings
     from fringe.io.fit_files import fit_outputs, write_fit_files
 
-    with fit_outputs(fit_path) as outputs:
+    with fit_outputs(fit_path) as outputs, \
+            progress(n_samples, "fit, stage 1 (per-turn demodulation)") as bar:
         with warnings_once() as fitted:
-            result, columns = fit_run(run_path, FitSettings(), one_stage=True, scratch_dir=".")
+            result, columns = fit_run(run_path, FitSettings(theory=theory), one_stage=True,
+                                      scratch_dir=".", progress=bar.update)
             fitted.append(result)
         with columns:
             return write_fit_files(outputs, result, columns)

@@ -11,6 +11,7 @@ from fringe.cli.common import (
     note_first_compile,
     progress,
     run_guarded,
+    verbosity_options,
     warnings_once,
 )
 from fringe.errors import ConfigError
@@ -24,43 +25,60 @@ def _names(text: str | None) -> tuple[str, ...] | None:
 
 @click.command("fit")
 @click.argument("run_file")
-@click.option("--out", "out_path", required=True, help="Result file to write (JSON).")
+@click.option("--out", "out_path", required=True, metavar="FILE",
+              help="Result file to write (one JSON file, e.g. fit.json; the per-turn "
+                   "amplitudes go beside it as FILE.turns.h5; not a directory).")
 @click.option("--theory", type=RegistryChoice("fringe.theories", "THEORIES"), default="sme",
-              show_default=True)
+              help="Theory whose coefficients are fitted  [default: the theory of the run "
+                   "file's scenario when it records one (simulated runs), else sme]")
 @click.option("--free", "free", default=None, metavar="NAMES",
-              help="Comma-separated free coefficients (default: the theory's usual set).")
+              help="Comma-separated free coefficients, e.g. ke_XY,ke_XZ  [default: the "
+                   "theory's usual set for the record's span]")
 @click.option("--fix", "fixes", multiple=True, metavar="NAME=VALUE",
-              help="Hold a coefficient at a value (repeatable).")
+              help="Hold a coefficient at a value (dimensionless; repeatable)  [default: none]")
 @click.option("--uncertainty", type=RegistryChoice("fringe.fit.settings", "UNCERTAINTY_MODES"),
-              default="reduced-chi2", show_default=True)
-@click.option("--bootstrap-days", type=float, default=1.0, show_default=True)
+              default="reduced-chi2", show_default=True,
+              help="How sigma is set: scaled by the reduced chi2, by a bootstrap over blocks "
+                   "of days, or the formal sigma of the per-turn errors.")
+@click.option("--bootstrap-days", type=float, default=1.0, show_default=True,
+              help="Block length of the bootstrap, days (with --uncertainty bootstrap).")
 @click.option("--drift", type=RegistryChoice("fringe.demodulate.settings", "DRIFT_TERMS"),
-              default="linear", show_default=True, help="Per-turn drift polynomial.")
+              default="linear", show_default=True,
+              help="Per-turn drift polynomial removed with the harmonics.")
 @click.option("--max-harmonic", type=click.IntRange(2, 4), default=2, show_default=True,
-              help="Highest harmonic of the table angle in the per-turn model.")
+              help="Highest harmonic of the table angle in the per-turn model (2..4).")
 @click.option("--min-samples", type=click.IntRange(3), default=12, show_default=True,
               help="Least number of valid samples of an accepted turn (e.g. 8 for a record "
                    "read at 8 marks per turn).")
 @click.option("--regress", multiple=True, metavar="CHANNEL",
-              help="Regress out the 2-theta part of an auxiliary channel (repeatable).")
-@click.option("--no-lab-b0", is_flag=True, help="Do not fit a constant B offset.")
-@click.option("--lab-c0", is_flag=True, help="Fit a constant C offset (needs ke_ZZ fixed).")
-@click.option("--cross-check", is_flag=True, help="Also run the one-stage global fit.")
+              help="Regress out the 2-theta part of an auxiliary channel of the run file "
+                   "(repeatable)  [default: none]")
+@click.option("--no-lab-b0", is_flag=True, show_default=True,
+              help="Do not fit a constant B offset (a lab-fixed 2-theta term).")
+@click.option("--lab-c0", is_flag=True, show_default=True,
+              help="Fit a constant C offset (needs ke_ZZ fixed).")
+@click.option("--cross-check", is_flag=True, show_default=True,
+              help="Also run the one-stage global fit and print its coefficients.")
 @click.option("--engine", type=RegistryChoice("fringe.demodulate.engine", "ENGINES"),
-              default="local", show_default=True)
+              default="local", show_default=True,
+              help="Where stage 1 runs: this machine, or a dask cluster (--scheduler).")
 @click.option("--scratch-dir", "scratch_dir", default=None, metavar="DIR",
               help="Where a long record keeps its turn table while it is fitted (removed "
-                   "afterwards; default: the directory of --out).")
-@click.option("--scheduler", default=None, help="dask scheduler address (with --engine dask).")
+                   "afterwards)  [default: the directory of --out]")
+@click.option("--scheduler", default=None, metavar="ADDRESS",
+              help="dask scheduler address, e.g. tcp://host:8786 (with --engine dask)  "
+                   "[default: a local cluster]")
 @click.option("--dut1", "dut1_s", type=float, default=0.0, show_default=True,
               help="UT1 - UTC at the record's epoch, s.")
-@click.option("--overwrite", is_flag=True, help="Replace existing outputs.")
+@click.option("--overwrite", is_flag=True, show_default=True,
+              help="Replace an existing --out file and its .turns.h5.")
 @click.option("--budget", "budget_path", default=None, metavar="FILE",
               help="Systematic budget (TOML) of declared terms (docs/fit.md).")
 @click.option("--blind", "blind_key", default=None, metavar="KEYFILE",
               help="Blind the values with secret offsets kept in KEYFILE (written, mode "
                    "0600); a key already used by fringe unblind gives an unblinded fit that "
                    "records whether the settings changed since.")
+@verbosity_options
 @run_guarded
 def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days, drift,
             max_harmonic, min_samples, regress, no_lab_b0, lab_c0, cross_check, engine,
@@ -74,6 +92,7 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
     from fringe.io.fit_files import fit_outputs, turns_path_of, write_fit_files
     from fringe.io.runreader import open_run
 
+    theory, why = choose_theory(run_file, theory)
     out = Path(out_path)
     turns_path = turns_path_of(out)
     outputs = fit_outputs(out, overwrite=overwrite, protect=[run_file])  # checked before the fit
@@ -98,14 +117,23 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
                               "linear theories")
     with open_run(run_file, check_values=False) as run:
         n = run.n_samples
+    click.echo(f"theory: {theory}, {why}")
     note_first_compile()
     key = None
     try:
-        with outputs, progress(n, "fit") as bar:
+        with outputs, progress(n, "fit, stage 1 (per-turn demodulation)") as bar:
+            done = {"samples": 0}
+
+            def advance(k):
+                bar.update(k)
+                done["samples"] += k
+                if done["samples"] >= n:
+                    bar.then("fit, stages 2-3 (sidereal harmonics, coefficients) ...")
+
             with warnings_once() as fitted:
                 result, columns = fit_run(run_file, settings, demod, engine=engine,
                                           scheduler=scheduler, dut1_s=dut1_s,
-                                          progress=bar.update, one_stage=cross_check,
+                                          progress=advance, one_stage=cross_check,
                                           scratch_dir=scratch_dir or str(outputs.base.resolve()),
                                           budget=budget)
                 fitted.append(result)
@@ -119,6 +147,8 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
             Path(blind_key).unlink(missing_ok=True)
         raise
     click.echo(result.summary())
+    for line in significance_lines(result):
+        click.echo(line)
     click.echo(f"\nwrote {out}\nwrote {turns_path}")
     if key is not None:
         click.echo(f"wrote {blind_key} (the blinding key: keep it away from the analysis)")
@@ -170,3 +200,46 @@ def _write_key(blind_key, key, outputs, overwrite: bool) -> None:
 
     staged = outputs.path(outputs.names[1])
     write_key(blind_key, key.bound_to(sha256(staged)), overwrite=overwrite)
+
+
+def choose_theory(run_file: str, given: str) -> tuple[str, str]:
+    """The theory to fit and why: --theory when given, else the run's scenario, else the default.
+
+    Returns ``(name, reason)``; the reason is printed ("the default; ...", "from the run
+    file's scenario", "from --theory").
+    """
+    from fringe.errors import FringeError
+    from fringe.io.runreader import open_run
+
+    ctx = click.get_current_context()
+    if ctx.get_parameter_source("theory") is not click.core.ParameterSource.DEFAULT:
+        return given, "as --theory asks"
+    try:
+        with open_run(run_file, check_values=False) as run:
+            recorded = run.read_group_attrs("truth").get("theory")
+    except (FringeError, OSError, KeyError):
+        recorded = None
+    from fringe.theories import THEORIES
+
+    if isinstance(recorded, str) and recorded in THEORIES:
+        return recorded, "the theory of the run file's scenario (--theory chooses another)"
+    return given, "the default (--theory chooses another)"
+
+
+#: A coefficient this many sigma from zero is far outside any noise (printed in words).
+FAR_SIGMA = 1000.0
+
+
+def significance_lines(result) -> list[str]:
+    """Sentences for coefficients beyond :data:`FAR_SIGMA` sigma from zero (else none)."""
+    lines = []
+    for name, v in result.coefficients.items():
+        if not v.sigma or not v.sigma > 0:
+            continue
+        z = abs(v.value) / v.sigma
+        if z >= FAR_SIGMA:
+            lines.append(f"note: {name} is {z:,.0f} sigma from zero: no noise does that; the "
+                         "record holds a large signal of this shape (an injected value, a "
+                         "systematic effect) or a mismatch of units or calibration. Read it as "
+                         "a detection to explain, not as a limit.")
+    return lines

@@ -4,13 +4,22 @@ from __future__ import annotations
 
 import click
 
-from fringe.cli.common import note_first_compile, run_guarded
+from fringe.cli.common import note_first_compile, run_guarded, step, verbosity_options
+
+#: What ``fringe inspect --out DIR`` writes into DIR.
+OUTPUTS = ("inspect.txt", "inspect.json", "allan.png", "allan.pdf", "spectrum.png",
+           "spectrum.pdf")
 
 
 @click.command("inspect")
 @click.argument("run_file")
-@click.option("--out", "out", default=None, help="Directory for the figures and summary.json.")
-@click.option("--overwrite", is_flag=True, help="Replace existing outputs.")
+@click.option("--out", "out", default=None, metavar="DIR",
+              help="Directory to write inspect.txt (the printed summary), inspect.json, "
+                   "allan.png/.pdf and spectrum.png/.pdf into (created if missing)  [default: "
+                   "print the summary only, write nothing]")
+@click.option("--overwrite", is_flag=True, show_default=True,
+              help="Replace the files of an earlier inspect in --out.")
+@verbosity_options
 @run_guarded
 def command(run_file, out, overwrite):
     """Print the quality summary of RUN_FILE (and write figures with --out)."""
@@ -19,10 +28,10 @@ def command(run_file, out, overwrite):
 
     outputs = None
     if out is not None:                  # refuse unwritable outputs before the work
-        outputs = OutputSet(out, ["inspect.json", "allan.png", "allan.pdf", "spectrum.png",
-                                  "spectrum.pdf"], overwrite=overwrite, protect=[run_file])
+        outputs = OutputSet(out, list(OUTPUTS), overwrite=overwrite, protect=[run_file])
     note_first_compile()
-    rep = inspect_run(run_file)
+    with step("inspect: turns, gaps, Allan deviation, spectrum"):
+        rep = inspect_run(run_file)
     click.echo(rep.summary())
     if outputs is None:
         return
@@ -31,10 +40,11 @@ def command(run_file, out, overwrite):
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    from fringe.io.atomic import save_figure_atomic, write_json_atomic
+    from fringe.io.atomic import save_figure_atomic, write_json_atomic, write_text_atomic
     from fringe.report.figures.quality import allan_plot, spectrum_plot
 
     with outputs:
+        write_text_atomic(outputs.path("inspect.txt"), rep.summary() + "\n")
         write_json_atomic(outputs.path("inspect.json"), rep.to_dict())
         fig, ax = plt.subplots(figsize=(5.6, 4.0))
         allan_plot(rep.allan.tau_s, rep.allan.adev, turn_period_s=rep.stats["turn_period_s"],

@@ -6,19 +6,25 @@ from pathlib import Path
 
 import click
 
-from fringe.cli.common import progress, run_guarded
+from fringe.cli.common import progress, run_guarded, verbosity_options
 from fringe.version import __version__
 
 
 @click.command("predict")
 @click.argument("scenario")
 @click.option("--set", "assignments", multiple=True, metavar="NAME=VALUE",
-              help="Hypothetical coefficient value, e.g. --set ke_XY=1e-17 (repeatable).")
+              help="Hypothetical coefficient value (dimensionless), e.g. --set ke_XY=1e-17 "
+                   "(repeatable)  [default: the scenario's [coefficients]]")
 @click.option("--out", "out_dir", default="fringe-prediction", show_default=True,
-              help="Directory for the outputs.")
+              metavar="DIR",
+              help="Directory to write harmonics.json, harmonics.txt, signal_map.png/.pdf and "
+                   "prediction.h5 into (created if missing).")
 @click.option("--series/--no-series", default=True, show_default=True,
-              help="Write the noise-free time series of the campaign as a run file.")
-@click.option("--overwrite", is_flag=True, help="Replace existing outputs.")
+              help="Write the noise-free time series of the campaign as a run file "
+                   "(prediction.h5).")
+@click.option("--overwrite", is_flag=True, show_default=True,
+              help="Replace the files of an earlier prediction in --out.")
+@verbosity_options
 @run_guarded
 def command(scenario, assignments, out_dir, series, overwrite):
     """Signal, signal map and harmonic table of hypothetical coefficients for SCENARIO."""

@@ -12,6 +12,7 @@ import math
 import click
 
 from fringe.cli.common import run_guarded as _run_guarded
+from fringe.cli.common import step, verbosity_options
 from fringe.errors import ConfigError
 
 
@@ -35,24 +36,31 @@ def parse_value_sigma(text: str | None, option: str) -> tuple[float, float] | No
 
 @click.command("report")
 @click.argument("fit_json")
-@click.option("--out", "out", default="fringe-report", show_default=True,
-              help="Directory for report.md, report.tex, report.html, figures/, summary.json.")
-@click.option("--compare", default=None,
-              help="CSV or TOML table of earlier results (name, value, sigma, citation).")
+@click.option("--out", "out", default="fringe-report", show_default=True, metavar="DIR",
+              help="Directory to write report.md, report.tex, report.html, figures/ and "
+                   "summary.json into (created if missing).")
+@click.option("--compare", default=None, metavar="FILE",
+              help="CSV or TOML table of earlier results (name, value, sigma, citation) to set "
+                   "beside this one  [default: none]")
 @click.option("--kt", default=None, metavar="VALUE,SIGMA",
-              help="Kennedy-Thorndike result beta - alpha - 1 (RMS fits: solve alpha, beta, "
-                   "delta).")
+              help="Kennedy-Thorndike result beta - alpha - 1, dimensionless (RMS fits: solve "
+                   "alpha, beta, delta)  [default: none]")
 @click.option("--is", "is_", default=None, metavar="VALUE,SIGMA",
-              help="Ives-Stilwell result alpha + 1/2 (with --kt).")
-@click.option("--overwrite", is_flag=True, help="Replace existing outputs.")
+              help="Ives-Stilwell result alpha + 1/2, dimensionless (with --kt)  [default: "
+                   "none]")
+@click.option("--overwrite", is_flag=True, show_default=True,
+              help="Replace the files of an earlier report in --out.")
+@verbosity_options
 @_run_guarded
 def command(fit_json, out, compare, kt, is_, overwrite):
     """Tables, figures and a self-contained HTML page stating the limits in FIT_JSON."""
     from fringe.report.build import assemble_report, write_report
 
-    content = assemble_report(fit_json, compare=compare, kt=parse_value_sigma(kt, "--kt"),
-                              is_=parse_value_sigma(is_, "--is"))
-    written = write_report(content, out, overwrite=overwrite)
+    kt_is = parse_value_sigma(kt, "--kt"), parse_value_sigma(is_, "--is")
+    with step("report: tables"):
+        content = assemble_report(fit_json, compare=compare, kt=kt_is[0], is_=kt_is[1])
+    with step("report: figures and pages"):
+        written = write_report(content, out, overwrite=overwrite)
     click.echo(content.headline["text"])
     for w in content.warnings:
         click.echo(f"warning (from the fit): {w}", err=True)

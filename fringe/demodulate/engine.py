@@ -345,12 +345,12 @@ def stage1_store(path: str, settings: DemodSettings, *, aux_channels: tuple[str,
     if engine == "local":
         _run_local(info, settings, parts, progress, builder.append)
     else:
-        _run_dask(info, settings, parts, scheduler, builder.append)
-        if progress:
-            progress(info.n_samples)
+        _run_dask(info, settings, parts, scheduler, builder.append, progress)
     store = builder.finish()
     store.apply_glitch_rule()
-    logger.info("stage 1: %s", store.counts())
+    c = store.counts()
+    logger.info("stage 1: %d turns accepted of %d (%d partial, %d with a glitch)",
+                c["n_accepted"], c["n_blocks"], c["n_rejected_partial"], c["n_rejected_glitch"])
     return store, info
 
 
@@ -406,7 +406,8 @@ def _connect(client_class, address):
                           "and that the scheduler is running") from None
 
 
-def _run_dask(info, settings, parts, scheduler, collect):
+def _run_dask(info, settings, parts, scheduler, collect, progress=None):
+    """Run the ranges on a dask cluster; join them in range order, reporting each one done."""
     try:
         from distributed import Client
     except ImportError:
@@ -422,9 +423,11 @@ def _run_dask(info, settings, parts, scheduler, collect):
     try:
         futures = [client.submit(demodulate_range, info, settings, a, b, pure=False)
                    for a, b in parts]
-        for future in futures:            # in range order; each result is dropped once joined
-            collect(future.result())
+        for (a, b), future in zip(parts, futures, strict=True):
+            collect(future.result())      # in range order; each result is dropped once joined
             future.release()
+            if progress:
+                progress(b - a)
     finally:
         if own:
             client.close()

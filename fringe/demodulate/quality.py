@@ -27,6 +27,7 @@ from fringe.io.fit_sections import Motion, Sessions
 from fringe.io.records import plain
 from fringe.io.runreader import open_run
 from fringe.noise.allan import AllanResult, overlapping_adev
+from fringe.text_table import number, text_table
 
 MAX_SPECTRAL_SAMPLES = 1 << 22
 
@@ -63,7 +64,7 @@ class InspectReport:
                  f"longest {s['gap_longest_s']:.1f} s",
                  f"NaN samples: {s['n_nan']} ({100 * s['n_nan'] / max(s['n_samples'], 1):.3f} %)",
                  f"turns: {s['n_turns']} (period {s['turn_period_s']:.6g} s, turn-to-turn "
-                 f"period scatter {s['turn_duration_rel_std']:.2e} relative rms); accepted "
+                 f"period scatter {_scatter_text(s)}); accepted "
                  f"{s['n_accepted']}, glitch {s['n_glitch']}, partial {s['n_partial']}",
                  f"per-turn residual rms (median): {s['residual_rms']:.3g} {m['signal_units']}"]
         if self.motion is not None:
@@ -78,9 +79,10 @@ class InspectReport:
                              "fringe fit skips the sidereal stage; these amplitudes are the "
                              "result")
         lines.append("Allan deviation of the fractional signal:")
-        for tau, dev in zip(self.allan.tau_s, self.allan.adev):
-            if np.isfinite(dev):
-                lines.append(f"  tau {tau:10.4g} s  sigma_y {dev:.3e}")
+        lines += text_table(["tau [s]", "sigma_y"],
+                            [[number(tau, ".4g"), number(dev, ".3e")]
+                             for tau, dev in zip(self.allan.tau_s, self.allan.adev)
+                             if np.isfinite(dev)], left=0)
         return "\n".join(lines)
 
     def to_dict(self) -> dict:
@@ -95,6 +97,22 @@ class InspectReport:
         if self.sessions is not None:
             out["sessions"] = plain(self.sessions.to_dict())     # NaN (one session) -> null
         return out
+
+
+def _scatter_text(s: dict) -> str:
+    """The turn-to-turn period scatter in words; 0 below the rounding of the time stamps.
+
+    Float64 times of magnitude up to the span T carry a rounding of about eps * T, so a
+    relative scatter below 4 eps T / T_R (T_R the turn period) is rounding, not motion.
+    """
+    rel, period = s.get("turn_duration_rel_std"), s.get("turn_period_s")
+    if rel is None or not np.isfinite(rel):
+        return "- (too few turns)"
+    floor = 0.0
+    if period and np.isfinite(period) and period > 0:
+        floor = 4.0 * np.finfo(float).eps * max(s.get("span_s", 0.0), period) / period
+    text = number(rel, ".2e", zero_below=floor)
+    return "0, below the rounding of the time stamps" if text == "0" else f"{text} relative rms"
 
 
 class _TurnClock:

@@ -37,7 +37,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from fringe.conventions import DEFAULT_PATH_SEPARATION_DEG
-from fringe.errors import ConfigError, check_finite_number, reject_unknown_fields
+from fringe.errors import ConfigError, check_finite_number, reject_unknown_fields, unknown_name
 
 
 @dataclass(frozen=True)
@@ -455,11 +455,11 @@ def make_apparatus(attrs: dict, source: str = "apparatus") -> Apparatus:
     attrs = dict(attrs)
     kind = attrs.pop("kind", None)
     if kind not in APPARATUS_KINDS:
-        raise ConfigError(f"{source}: kind: expected one of {', '.join(APPARATUS_KINDS)}, "
-                          f"got {kind!r}")
+        raise ConfigError(f"{source}: kind: " + unknown_name(str(kind), APPARATUS_KINDS,
+                                                             "apparatus kind", ordered=True))
     cls = APPARATUS_KINDS[kind]
     allowed = apparatus_fields(cls)
-    reject_unknown_fields(attrs, allowed, f"{source}:", f"not a field of kind '{kind}'")
+    reject_unknown_fields(attrs, allowed, f"{source}:", f"field of kind '{kind}'")
     if "passes" in attrs and isinstance(attrs["passes"], float) and attrs["passes"].is_integer():
         attrs["passes"] = int(attrs["passes"])
     return cls(**attrs)

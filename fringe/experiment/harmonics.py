@@ -45,6 +45,7 @@ from fringe.frames import (
     orbital_phase_rad,
     rotation_velocity_beta,
 )
+from fringe.text_table import number, text_table
 
 ORBIT_TERMS = ("mean", "sin_OT", "cos_OT", "sin_2OT", "cos_2OT")
 
@@ -194,16 +195,21 @@ class HarmonicTable:
         contrib = self.contribution()
         rows = [n for n in self.labels if not nonzero_only or self.values.get(n, 0.0) != 0.0
                 or n == "total"] or list(self.labels)
-        head = f"{'coefficient':<12}" + "".join(f"{h:>11}" for h in HARMONIC_NAMES)
         f = complex(self.two_path_factor)
-        lines = [f"C10 harmonics [{self.units}] at {self.t_ref_utc} "
-                 f"(orbital phase {np.degrees(self.orbital_phase_ref_rad) % 360:.1f} deg)",
+        lines = [f"sidereal harmonics of the 2 theta amplitudes [{self.units}] at "
+                 f"{self.t_ref_utc} (orbital phase "
+                 f"{np.degrees(self.orbital_phase_ref_rad) % 360:.1f} deg): C = C0 + Cs1 sin "
+                 "phi + Cc1 cos phi + Cs2 sin 2phi + Cc2 cos 2phi, likewise B",
                  f"of the observable: {self.observable}",
-                 f"two-path harmonics (C9): h_S = h / f for h = C - i B, f = "
-                 f"{f.real:.6g}{f' {f.imag:+.6g} i' if f.imag else ''}",
-                 head, "-" * len(head)]
+                 f"two-path harmonics: h_S = h / f for h = C - i B, f = "
+                 f"{f.real:.6g}{f' {f.imag:+.6g} i' if f.imag else ''}"]
+        cells = []
         for n in rows:
-            lines.append(f"{n:<12}" + "".join(f"{contrib[n][h]:>11.3e}" for h in HARMONIC_NAMES))
+            # a harmonic 1e-12 of the row's largest is rounding of the projection: printed 0
+            scale = max((abs(contrib[n][h]) for h in HARMONIC_NAMES), default=0.0)
+            cells.append([n] + [number(contrib[n][h], ".3e", zero_below=1e-12 * scale)
+                                for h in HARMONIC_NAMES])
+        lines += text_table(["coefficient", *HARMONIC_NAMES], cells, indent="")
         annual = [n for n in self.annual_modulation_present() if n in rows]
         if annual:
             lines.append("annual modulation present for: " + ", ".join(annual))

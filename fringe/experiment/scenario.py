@@ -11,7 +11,6 @@ give a noise-free campaign without a word).
 
 from __future__ import annotations
 
-import difflib
 import math
 import os
 
@@ -27,10 +26,13 @@ import numpy as np
 from fringe.errors import (
     ConfigError,
     InputFileError,
+    check_dataclass_keywords,
     check_finite_number,
     check_regular_file,
-    closest_hint,
+    missing_input,
+    not_utf8,
     reject_unknown_fields,
+    unknown_name,
 )
 from fringe.experiment.apparatus import Apparatus, make_apparatus
 from fringe.experiment.basis import Setup
@@ -147,12 +149,12 @@ def _table(doc: dict, key: str, source: str, required: bool = True) -> dict:
 
 def _wrap(source: str, section: str, func, *args, **kwargs):
     """Call a constructor, prefixing ConfigError messages with the file and section."""
+    if not args:                                   # keywords only: name the fields
+        check_dataclass_keywords(func, kwargs, f"{source}: [{section}]")
     try:
         return func(*args, **kwargs)
     except ConfigError as exc:
-        text = str(exc)
-        if text.startswith(f"{section}: "):       # the constructor named the section too
-            text = text[len(section) + 2:]
+        text = str(exc).removeprefix(f"{section}: ")       # the section is named once
         raise ConfigError(f"{source}: [{section}] {text}") from None
     except TypeError as exc:
         raise ConfigError(f"{source}: [{section}]: {exc}") from None
@@ -185,9 +187,9 @@ def _theory_from(doc: dict, source: str) -> tuple[Theory, bool]:
     cls = THEORIES.get(name)
     options = cls.scenario_options(spec, source) if cls is not None else {}
     if spec:
-        unknown = sorted(spec)[0]
-        raise ConfigError(f"{source}: [theory] {unknown}: unknown option for theory {name!r}"
-                          f"{closest_hint(unknown, THEORY_OPTIONS)}")
+        known = ["name", "rotation_velocity"] + list(getattr(cls, "SCENARIO_OPTIONS", ()))
+        raise ConfigError(f"{source}: [theory] " + unknown_name(
+            sorted(spec)[0], known, f"option for theory {name!r}"))
     return _wrap(source, "theory", make_theory, name, **options), rotation_velocity
 
 
@@ -248,15 +250,13 @@ def load_scenario(path: str | Path) -> Scenario:
         with open(path, "rb") as fh:
             doc = tomllib.load(fh)
     except FileNotFoundError:
-        raise InputFileError(path, "file", "not found") from None
+        raise missing_input(path, "a scenario (TOML) file") from None
     except OSError as exc:
         raise InputFileError(path, "file", f"cannot be read ({exc.strerror})") from None
     except tomllib.TOMLDecodeError as exc:
         raise InputFileError(path, "TOML", f"not valid TOML ({exc})") from None
     except UnicodeDecodeError as exc:
-        raise InputFileError(path, "file", f"expected UTF-8 text, got byte "
-                             f"0x{exc.object[exc.start]:02x} at byte offset {exc.start}") \
-            from None
+        raise not_utf8(path, exc) from None
     except RecursionError:
         raise InputFileError(path, "TOML", "expected tables and arrays nested less deeply "
                              "(too deep to read)") from None
@@ -269,14 +269,13 @@ def _check_sections(doc: dict, source: str) -> None:
     for key, value in doc.items():
         if key in KNOWN_SECTIONS or key in STAGE_SECTIONS:
             continue
-        close = difflib.get_close_matches(key, sections + ["title"], n=1, cutoff=0.6)
-        hint = ""
-        if close:
-            hint = f"; closest: {close[0]}" if close[0] == "title" else f"; closest: [{close[0]}]"
-        what = f"[{key}]: unknown section" if isinstance(value, dict) else \
-            f"{key}: unknown top-level key"
-        raise ConfigError(f"{source}: {what}; known sections: "
-                          + ", ".join(f"[{n}]" for n in sections) + f" (and the key title){hint}")
+        table = isinstance(value, dict)
+
+        def shown(n, key=key, table=table):
+            return f"[{n}]" if n in sections or (n == key and table) else n
+
+        raise ConfigError(f"{source}: " + unknown_name(
+            key, sections + ["title"], "section" if table else "top-level key", shown=shown))
 
 
 def scenario_from_dict(doc: dict, source: str = "scenario") -> Scenario:
@@ -314,6 +313,9 @@ def scenario_from_dict(doc: dict, source: str = "scenario") -> Scenario:
     interval = _wrap(source, "campaign", check_finite_number,
                      camp.pop("sample_interval_s", 1.0), "campaign", "sample_interval_s",
                      positive=True)
+    if camp:
+        reject_unknown_fields(camp, ("start_utc", "dut1_s", "duration_days", "duration_s",
+                                     "sample_interval_s"), f"{source}: [campaign]")
     if duration < 2 * interval:
         raise ConfigError(f"{source}: [campaign] duration: expected at least two samples")
 

@@ -23,7 +23,12 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from fringe.conventions import theta_from_azimuth
-from fringe.errors import ConfigError, check_finite_number, reject_unknown_fields
+from fringe.errors import (
+    ConfigError,
+    check_dataclass_keywords,
+    check_finite_number,
+    unknown_name,
+)
 
 SENSES = {"ccw": 1.0, "cw": -1.0}
 
@@ -341,11 +346,10 @@ def make_motion(spec: dict, source: str = "turntable"):
     spec.pop("tilt_south_urad", None)
     spec.pop("tilt_east_urad", None)
     if motion not in MOTIONS:
-        raise ConfigError(f"{source}: motion: expected one of {', '.join(MOTIONS)}, "
-                          f"got {motion!r}")
+        raise ConfigError(f"{source}: motion: "
+                          + unknown_name(str(motion), MOTIONS, "motion", ordered=True))
     cls = MOTIONS[motion]
-    reject_unknown_fields(spec, cls.__dataclass_fields__, f"{source}:",
-                          f"not a field of {motion} motion")
+    check_dataclass_keywords(cls, spec, f"{source}:", f"field of {motion} motion")
     try:
         return cls(**spec)
     except TypeError as exc:

@@ -56,7 +56,8 @@ def setup_from_run(path: str, theory: str, dut1_s: float = 0.0) -> tuple[Setup, 
     fields = apparatus_fields(cls) if cls else set()
     ignored = sorted(set(attrs) - fields - {"kind"})
     if ignored:      # the run format passes other labs' extra attributes through
-        logger.info("%s: apparatus attributes not used by the model: %s", path, ignored)
+        logger.info("%s: apparatus attributes not used by the model: %s", path,
+                    ", ".join(map(str, ignored)))
     apparatus = make_apparatus({k: v for k, v in attrs.items() if k in fields or k == "kind"},
                                source=f"{path}: apparatus")
     setup = Setup(site=site, epoch=Epoch(meta["epoch_utc"], dut1_s), apparatus=apparatus,

@@ -39,7 +39,7 @@ import warnings
 from collections.abc import Callable, Iterable
 from pathlib import Path
 
-from fringe.errors import FringeWarning, OutputError
+from fringe.errors import FringeWarning, OutputError, output_exists
 
 logger = logging.getLogger(__name__)
 
@@ -269,7 +269,7 @@ def check_output_path(path: str | os.PathLike, *, overwrite: bool = False,
         raise OutputError(f"{out}: is a directory, expected a file path; remove it or "
                           "choose another name")
     if out.exists() and not overwrite:
-        raise OutputError(f"{out}: exists (pass overwrite=True to replace it)")
+        raise output_exists(out)
     check_directory_writable(target.parent, shown=out)
     check_name_length(target, shown=out)
     return out

@@ -24,7 +24,6 @@ from __future__ import annotations
 
 import csv
 import datetime
-import difflib
 import hashlib
 import io
 import os
@@ -46,6 +45,9 @@ from fringe.errors import (
     TimeScaleWarning,
     check_regular_file,
     closest_hint,
+    missing_input,
+    not_utf8,
+    unknown_text,
 )
 from fringe.frames import UTC_FIRST_YEAR, leap_table_last_year
 from fringe.io.runformat import (
@@ -139,8 +141,8 @@ def _check_section(name: str, value, err):
     if name == "csv":
         for key in table:
             if key not in ("delimiter", "comment"):
-                raise err(f"csv.{key}", "expected only the keys delimiter and comment"
-                          + closest_hint(key, ("delimiter", "comment")))
+                raise err(f"csv.{key}", unknown_text(key, ("delimiter", "comment"), "field",
+                                                     ordered=True))
         if len(table.get("delimiter", ",")) != 1:
             raise err("csv.delimiter", f"expected one character, got {table['delimiter']!r}")
     if name == "columns":
@@ -212,8 +214,10 @@ def read_import_metadata(path: str | os.PathLike) -> dict:
         with open(path, "rb") as fh:
             raw = tomllib.load(fh)
     except FileNotFoundError:
-        raise InputFileError(path, "file", "expected an existing file") from None
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise missing_input(path, "the import's metadata (TOML) file") from None
+    except UnicodeDecodeError as exc:
+        raise not_utf8(path, exc) from None
+    except tomllib.TOMLDecodeError as exc:
         raise InputFileError(path, "file", f"expected valid TOML ({exc})") from None
     except RecursionError:
         raise InputFileError(path, "file", "expected valid TOML (tables and arrays nested "
@@ -225,9 +229,7 @@ def read_import_metadata(path: str | os.PathLike) -> dict:
     out = {}
     for name, value in raw.items():
         if name not in _SECTIONS:
-            close = difflib.get_close_matches(name, _SECTIONS, n=1, cutoff=0.6)
-            raise err(name, f"expected only the keys {', '.join(_SECTIONS)}"
-                      + (f"; closest: {close[0]}" if close else ""))
+            raise err(name, unknown_text(name, _SECTIONS, "section", ordered=True))
         out[name] = _check_section(name, value, err)
     return out
 
@@ -743,7 +745,7 @@ def import_csv(csv_path: str | os.PathLike, out_path: str | os.PathLike, *,
     _check_output_path(out_path, overwrite, protect)
     for path in (csv_path, log_path):
         if path is not None and not os.path.isfile(path):
-            raise InputFileError(path, "file", "expected an existing file")
+            raise missing_input(path, "a CSV file")
     job = _Import(meta, err_for, csv_path, log_path)
     job.out_path = out_path
     with open(csv_path, "rb") as fh, open(log_path or csv_path, "rb") as log_fh:

@@ -18,7 +18,7 @@ from pathlib import Path
 
 import numpy as np
 
-from fringe.errors import InputFileError
+from fringe.errors import InputFileError, missing_input, not_utf8
 from fringe.io.fit_budget import Blinding, Systematics
 from fringe.io.fit_calibration import SignalCalibration
 from fringe.io.fit_sections import (
@@ -396,20 +396,19 @@ def _derived_lines(d: Derived | None) -> list[str]:
 
 def session_lines(sessions: Sessions) -> list[str]:
     """The per-session 2 theta amplitudes as text lines (``fringe inspect``, the summary)."""
+    from fringe.text_table import number, text_table
+
     u = sessions.units
     lines = [f"per-session 2 theta amplitudes ({u}; 1 sigma, Student t; "
-             f"{sessions.n_sidereal_phases} distinct sidereal phase(s)):",
-             f"  {'start s':>12}{'turns':>7}{'phi deg':>9}{'C':>12}{'sigma C':>10}"
-             f"{'B':>12}{'sigma B':>10}{'dof':>5}"]
+             f"{sessions.n_sidereal_phases} distinct sidereal phase(s)):"]
     rows = list(sessions.sessions)
     shown = rows if len(rows) <= 40 else rows[:20] + [None] + rows[-20:]
-    for x in shown:
-        if x is None:
-            lines.append(f"  ... ({len(rows) - 40} sessions not shown)")
-            continue
-        lines.append(f"  {x.t_start_s:>12.1f}{x.n_turns:>7d}{x.sidereal_phase_deg:>9.1f}"
-                     f"{x.C.value:>12.4g}{x.C.sigma:>10.3g}{x.B.value:>12.4g}{x.B.sigma:>10.3g}"
-                     f"{x.dof:>5d}")
+    cells = [f"... ({len(rows) - 40} sessions not shown)" if x is None else
+             [f"{x.t_start_s:.1f}", str(x.n_turns), f"{x.sidereal_phase_deg:.1f}",
+              number(x.C.value, ".4g"), number(x.C.sigma, ".3g"), number(x.B.value, ".4g"),
+              number(x.B.sigma, ".3g"), str(x.dof)] for x in shown]
+    lines += text_table(["start [s]", "turns", "phi [deg]", "C", "sigma C", "B", "sigma B",
+                         "dof"], cells, left=0)
     if sessions.dof > 0:
         lines.append(f"  agreement of the sessions: chi2 {sessions.chi2:.3g} for {sessions.dof} "
                      f"dof (p = {sessions.p_value:.3g})")
@@ -466,13 +465,18 @@ def read_fit_result(path) -> FitResult:
     refuses. The file is only read.
     """
     path = Path(path)
+    if not path.exists():
+        raise missing_input(path, "a fit result (JSON) file")
     if not path.is_file():
-        raise InputFileError(path, "file", "expected an existing fit result (JSON) file")
+        raise InputFileError(path, "file", "expected a fit result (JSON) file, got a directory "
+                                           "or a special file")
     try:
         d = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputFileError(path, "file", f"expected a readable UTF-8 JSON file ({exc})") \
-            from None
+    except UnicodeDecodeError as exc:
+        raise not_utf8(path, exc) from None
+    except OSError as exc:
+        raise InputFileError(path, "file", f"expected a readable JSON file "
+                                           f"({exc.strerror or 'cannot be read'})") from None
     except json.JSONDecodeError as exc:
         raise InputFileError(path, "JSON", f"expected valid JSON ({exc.msg} at line "
                                            f"{exc.lineno})") from None

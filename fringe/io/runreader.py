@@ -34,7 +34,7 @@ import h5py
 import numpy as np
 from numpy.typing import NDArray
 
-from fringe.errors import ConfigError, InputFileError, check_regular_file
+from fringe.errors import ConfigError, InputFileError, check_regular_file, missing_input
 from fringe.io.runformat import (
     APPARATUS_KINDS,
     AZIMUTH_UNITS,
@@ -114,7 +114,7 @@ def open_run(path: str | os.PathLike, *, check_values: bool = True,
 
 def _open_hdf5(path: str) -> h5py.File:
     if not os.path.exists(path):
-        raise InputFileError(path, "file", "expected an existing file")
+        raise missing_input(path, "a run file (HDF5)")
     if os.path.isdir(path):
         raise InputFileError(path, "file", "expected a file, got a directory")
     check_regular_file(path, "a run file (HDF5)")     # a FIFO would block the read forever

@@ -17,7 +17,7 @@ from collections.abc import Mapping, Sequence
 import h5py
 import numpy as np
 
-from fringe.errors import ConfigError, OutputError
+from fringe.errors import ConfigError, OutputError, output_exists
 from fringe.io.atomic import (
     check_directory_writable,
     check_name_length,
@@ -75,7 +75,7 @@ def _check_output_path(path: str, overwrite: bool, protect: Sequence) -> None:
     if not os.path.isdir(os.path.dirname(real)):
         raise OutputError(f"{path}: the output directory does not exist")
     if os.path.exists(path) and not overwrite:
-        raise OutputError(f"{path}: the output file exists (overwriting was not requested)")
+        raise output_exists(path)
     check_directory_writable(os.path.dirname(real), shown=path)
     name = os.path.basename(real)
     if len(os.fsencode(name)) > name_max(os.path.dirname(real)):
@@ -364,8 +364,7 @@ class RunWriter:
             if self._guard.error is not None:
                 raise output_error(self.path, self._guard.error)
             if os.path.exists(self.path) and not self._overwrite:
-                raise OutputError(f"{self.path}: the output file exists (overwriting was not "
-                                  f"requested)")
+                raise output_exists(self.path)
             try:
                 os.replace(self._tmp, real_target(self.path))
             except OSError as exc:

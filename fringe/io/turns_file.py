@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
-from fringe.errors import InputFileError
+from fringe.errors import InputFileError, missing_input
 
 #: Columns of the per-turn amplitudes file, in order (docs/fit.md).
 TURN_COLUMNS = ("t_mid_s", "phi_rad", "C", "B", "sigma_C", "sigma_B", "accepted", "status",
@@ -174,9 +174,11 @@ def read_turns(path) -> dict:
     import h5py
 
     path = Path(path)
+    if not path.exists():
+        raise missing_input(path, "a per-turn amplitudes (HDF5) file")
     if not path.is_file():
-        raise InputFileError(path, "file", "expected an existing per-turn amplitudes (HDF5) "
-                                           "file")
+        raise InputFileError(path, "file", "expected a per-turn amplitudes (HDF5) file, got a "
+                                           "directory or a special file")
     try:
         fh = h5py.File(path, "r")
     except OSError:

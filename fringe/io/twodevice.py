@@ -27,6 +27,7 @@ from collections.abc import Callable, Iterator, Mapping
 import numpy as np
 from numpy.typing import NDArray
 
+from fringe.errors import unknown_text
 from fringe.io.runformat import AZIMUTH_UNITS, GATE_KINDS
 
 __all__ = ["GAP_ACTIONS", "GATE_STAMPS", "AzimuthTrack", "check_azimuth_log",
@@ -80,7 +81,7 @@ _WHAT = {"scale_factor": "the signal units per instrument unit",
 def _keys(table: Mapping, allowed, required, err, prefix: str) -> None:
     for key in table:
         if key not in allowed:
-            raise err(f"{prefix}.{key}", f"expected only the keys {', '.join(allowed)}")
+            raise err(f"{prefix}.{key}", unknown_text(key, allowed, "field", ordered=True))
     for key in required:
         if key not in table:
             raise err(f"{prefix}.{key}", f"missing entry; expected {_WHAT[key]}")

@@ -222,12 +222,29 @@ def _sigmas(fisher, idx):
 
 # ----------------------------------------------------------------------------- forecast
 
+#: Mantissas of the round rotation periods of the period grid (1, 1.5, 2, 3, 5, 7 x 10^k).
+ROUND_MANTISSAS = (1.0, 1.5, 2.0, 3.0, 5.0, 7.0)
+
+
 def _period_grid(period, tau0):
+    """Round periods (:data:`ROUND_MANTISSAS` x 10^k) from max(T/10, 8 tau0) to 10 T, and T."""
     lo, hi = max(period / 10.0, 8.0 * tau0), min(10.0 * period, MAX_PERIOD_S)
     if lo >= hi:
         return (period,)
-    grid = np.geomspace(lo, hi, 13)
-    return tuple(sorted(set(np.round(grid, 6).tolist()) | {period}))
+    grid = {float(f"{m * 10.0 ** k:.6g}") for k in range(math.floor(math.log10(lo)),
+                                                          math.ceil(math.log10(hi)) + 1)
+            for m in ROUND_MANTISSAS}
+    grid = {p for p in grid if lo <= p <= hi}
+    if len(grid) < 3:                  # a narrow range: its ends too
+        grid |= {float(f"{lo:.4g}"), float(f"{hi:.4g}")}
+    return tuple(sorted(grid | {period}))
+
+
+def _days_grid(first, last, n):
+    """``n`` days from ``first`` to ``last``, evenly in log, inner ones rounded to 2 digits."""
+    days = np.geomspace(first, last, n)
+    days[1:-1] = [float(f"{d:.2g}") for d in days[1:-1]]
+    return days
 
 
 def forecast(scenario: Scenario, free: str | Sequence[str] | None = None,
@@ -309,7 +326,7 @@ def forecast(scenario: Scenario, free: str | Sequence[str] | None = None,
                       f" in this campaign (sigma infinite)", DegeneracyWarning, stacklevel=2)
     corr = correlation_from_covariance(cov)
 
-    days = np.geomspace(min(1.0, camp_days), top_days, st.n_days)
+    days = _days_grid(min(1.0, camp_days), top_days, st.n_days)
     turns = np.maximum((days * DAY_S // period).astype(int), 1)
     curve = np.array([_sigmas(fisher(n), free_idx)[: len(st.free)] for n in turns])
     comp = {}

@@ -10,7 +10,7 @@ this module imports :mod:`fringe.plan` only when the check runs (no import cycle
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import replace
 from typing import TYPE_CHECKING
 
@@ -31,7 +31,8 @@ __all__ = ["monte_carlo_check"]
 def monte_carlo_check(scenario: Scenario, n_campaigns: int, rng: np.random.Generator, *,
                       free: str | Sequence[str] | None = None,
                       settings: PlanSettings | None = None, duration_s: float | None = None,
-                      max_turns: int = 200_000, batch: int = 16) -> MonteCarloCheck:
+                      max_turns: int = 200_000, batch: int = 16,
+                      progress: Callable[[int], None] | None = None) -> MonteCarloCheck:
     """Fit simulated per-turn amplitudes ``n_campaigns`` times; compare scatter with forecast.
 
     Every turn of the campaign is evaluated (no subsampling); (C_i, B_i) = J_i p + white noise
@@ -54,6 +55,8 @@ def monte_carlo_check(scenario: Scenario, n_campaigns: int, rng: np.random.Gener
         Refuse campaigns with more turns than this (memory ~ 2 turns x coefficients doubles).
     batch : int
         Campaigns simulated at once.
+    progress : callable, optional
+        Called with the number of campaigns done after each batch (a progress bar).
     """
     from fringe.plan.forecast import forecast
     from fringe.plan.settings import plan_settings
@@ -88,6 +91,8 @@ def monte_carlo_check(scenario: Scenario, n_campaigns: int, rng: np.random.Gener
         m = min(batch, n_campaigns - start)
         y = y0 + fc.turn_sigma * rng.standard_normal((m, a.shape[0]))
         est.append(np.linalg.solve(r, (y @ q).T).T / colscale)
+        if progress is not None:
+            progress(m)
     est = np.concatenate(est)[:, : len(st.free)]
     k = len(st.free)
     return MonteCarloCheck(names=tuple(st.free), truth=tuple(truth[:k].tolist()),

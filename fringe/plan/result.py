@@ -13,12 +13,43 @@ from collections.abc import Mapping
 from dataclasses import dataclass, fields
 
 from fringe.io.records import Fields, freeze, plain
+from fringe.text_table import text_table
 
 __all__ = ["MonteCarloCheck", "PlanResult", "TargetAnswer"]
 
 
 def _fmt(x: float) -> str:
     return "unconstrained" if not math.isfinite(x) else f"{x:.3g}"
+
+
+def _label(x: float) -> str:
+    """A grid value as printed: up to 4 significant digits, no trailing zeros."""
+    return f"{x:.4g}"
+
+
+def collapsed_rows(labels, cells, marks=None) -> list[list[str]]:
+    """Table rows with runs of identical cells merged into one row labelled "FIRST-LAST".
+
+    Parameters
+    ----------
+    labels : sequence of str
+        The grid value of each row (first column).
+    cells : sequence of sequence of str
+        The other columns, formatted as printed; rows whose cells print the same are merged.
+    marks : sequence of str, optional
+        A marker per row (e.g. "<" for the scenario's own value), kept on the merged row.
+    """
+    marks = list(marks) if marks is not None else [""] * len(labels)
+    out, i = [], 0
+    while i < len(labels):
+        j = i
+        while j + 1 < len(labels) and list(cells[j + 1]) == list(cells[i]):
+            j += 1
+        label = labels[i] if j == i else f"{labels[i]}-{labels[j]}"
+        mark = " ".join(m for m in dict.fromkeys(marks[i:j + 1]) if m)
+        out.append([label, *cells[i], mark])
+        i = j + 1
+    return out
 
 
 def _freeze_fields(obj, names) -> None:
@@ -249,6 +280,21 @@ class PlanResult:
                 f"campaign_days={self.campaign_days:.4g}, n_turns={self.n_turns}, "
                 f"best_sigma={best:.3g})")
 
+    def _table(self, title, grid, curves, rows, marks=None) -> list[str]:
+        """An aligned sigma table over ``grid``; rows that print the same are merged.
+
+        A merged row reads "FIRST-LAST"; a note says how many rows were merged.
+        """
+        rows = list(rows)
+        cells = [[_fmt(curves[n][i]) for n in self.free] for i in rows]
+        merged = collapsed_rows([_label(g) for g in grid], cells,
+                                None if marks is None else [marks[i] for i in rows])
+        out = text_table([title, *self.free, ""], merged)
+        if len(merged) < len(rows):
+            out.append(f"  (a row A-B stands for the grid values from A to B, whose sigmas "
+                       f"print the same: {len(rows)} grid values in {len(merged)} rows)")
+        return out
+
     def summary(self) -> str:
         """Text for a person: the forecast, its curves and the answers to the targets."""
         nz = {k: v for k, v in self.noise.items() if k != "f_h_hz" and v}
@@ -262,31 +308,28 @@ class PlanResult:
                  f"(T_R = {self.period_s:g} s, duty {self.duty:.3g})",
                  f"campaign: {self.campaign_days:.4g} d from {self.start_utc}, "
                  f"{self.n_turns} turns", "", "1-sigma forecast for the campaign:"]
-        lines += [f"  {k:<9} {_fmt(v)}" for k, v in self.sigma.items()]
-        lines += ["", "sigma versus campaign length:",
-                  "  days      " + " ".join(f"{n:>9}" for n in self.free)]
+        lines += text_table(["coefficient", "sigma"], [[k, _fmt(v)] for k, v in
+                                                       self.sigma.items()])
+        lines += ["", "sigma versus campaign length:"]
         step = max(1, len(self.days) // 8)
-        for i in list(range(0, len(self.days), step))[:-1] + [len(self.days) - 1]:
-            lines.append(f"  {self.days[i]:<9.4g} " + " ".join(
-                f"{_fmt(self.sigma_vs_days[n][i]):>9}" for n in self.free))
+        rows = list(range(0, len(self.days), step))[:-1] + [len(self.days) - 1]
+        lines += self._table("days", [self.days[i] for i in rows], self.sigma_vs_days, rows)
         if self.decoupling_ratio:
             lines += ["", f"ko_*/ke_* decoupling (joint ke+ko sigma within "
                       f"{self.decoupling_threshold:g}x of the ke-only sigma for every ke_*): "
                       + (f"from {self.decoupling_days:.3g} d on" if self.decoupling_days
                          else f"not within {self.days[-1]:.0f} d"),
                       f"  ratio at {self.days[-1]:.0f} d: {self.decoupling_ratio[-1]:.3f}"]
-        lines += ["", "sigma versus rotation period (this campaign, this noise):",
-                  "  T_R [s]   " + " ".join(f"{n:>9}" for n in self.free)]
-        for i, p in enumerate(self.periods_s):
-            mark = " <" if abs(p - self.period_s) < 1e-9 * p else ""
-            lines.append(f"  {p:<9.4g} " + " ".join(
-                f"{_fmt(self.sigma_vs_period[n][i]):>9}" for n in self.free) + mark)
+        lines += ["", "sigma versus rotation period (this campaign, this noise):"]
+        marks = ["<" if abs(p - self.period_s) < 1e-9 * p else "" for p in self.periods_s]
+        lines += self._table("T_R [s]", self.periods_s, self.sigma_vs_period,
+                             range(len(self.periods_s)), marks)
+        if any(marks):
+            lines.append(f"  < marks the scenario's own period, {self.period_s:g} s")
         if self.latitudes_deg:
-            lines += ["", "sigma versus site latitude:",
-                      "  lat [deg] " + " ".join(f"{n:>9}" for n in self.free)]
-            for i, lat in enumerate(self.latitudes_deg):
-                lines.append(f"  {lat:<9.4g} " + " ".join(
-                    f"{_fmt(self.sigma_vs_latitude[n][i]):>9}" for n in self.free))
+            lines += ["", "sigma versus site latitude:"]
+            lines += self._table("lat [deg]", self.latitudes_deg, self.sigma_vs_latitude,
+                                 range(len(self.latitudes_deg)))
         if self.targets:
             lines += ["", "targets:"] + [f"  {a.text()}" for a in self.targets]
         lines += ["", "approximations: per-turn amplitudes white across turns with the noise "
@@ -330,7 +373,8 @@ class MonteCarloCheck:
 
     def summary(self) -> str:
         """Text for a person: forecast and Monte Carlo scatter per coefficient, and their ratio."""
-        rows = [f"  {n:<9} {f:.4g}  {s:.4g}  {s / f:.3f}" for n, f, s in
+        rows = [[n, f"{f:.4g}", f"{s:.4g}", f"{s / f:.3f}"] for n, f, s in
                 zip(self.names, self.sigma_forecast, self.sigma_scatter, strict=True)]
         return "\n".join([f"Monte Carlo check: {self.n_campaigns} campaigns of {self.n_turns} "
-                          f"turns; {self.method}", "  name      forecast  scatter  ratio"] + rows)
+                          f"turns; {self.method}"]
+                         + text_table(["coefficient", "forecast", "scatter", "ratio"], rows))

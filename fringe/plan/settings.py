@@ -10,7 +10,13 @@ from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
-from fringe.errors import ConfigError, check_finite_number, reject_unknown_fields
+from fringe.errors import (
+    ConfigError,
+    check_finite_number,
+    reject_unknown_fields,
+    unknown_name,
+    unknown_text,
+)
 
 if TYPE_CHECKING:
     from fringe.experiment.scenario import Scenario
@@ -73,8 +79,8 @@ class PlanSettings:
                               f"got {self.drift!r}")
         for n in self.nuisances:
             if n not in NUISANCES:
-                raise ConfigError(f"plan: nuisances: unknown {n!r} (expected some of "
-                                  f"{', '.join(NUISANCES)})")
+                raise ConfigError("plan: nuisances: " + unknown_name(n, NUISANCES, "nuisance",
+                                                                     ordered=True))
         if "lab_C0" in self.nuisances and "ke_ZZ" in self.free:
             raise ConfigError("plan: nuisances: lab_C0 (a constant C offset) is degenerate with "
                               "ke_ZZ; drop lab_C0 or leave ke_ZZ out of free")
@@ -91,8 +97,8 @@ class PlanSettings:
             check_finite_number(lat, "plan", "latitudes_deg", minimum=-90.0, maximum=90.0)
         for k, v in self.targets.items():
             if k not in self.free:
-                raise ConfigError(f"plan: target {k}: not a free coefficient (free: "
-                                  f"{', '.join(self.free)})")
+                raise ConfigError(f"plan: target {k}: "
+                                  + unknown_text(k, self.free, "free coefficient", ordered=True))
             check_finite_number(v, "plan", f"target {k}", positive=True)
 
 
@@ -120,9 +126,9 @@ def _plan_free(theory, free, sec: dict, where: str) -> tuple[str, ...]:
         names = theory.primary_names
     for n in names:
         if n not in theory.parameter_names:
-            raise ConfigError(f"{where_free}: {n!r} is not a coefficient of theory "
-                              f"{theory.name!r} (expected some of "
-                              f"{', '.join(theory.parameter_names)})")
+            raise ConfigError(f"{where_free}: " + unknown_name(
+                n, theory.parameter_names, f"coefficient of theory '{theory.name}'",
+                ordered=True))
     if not names or len(set(names)) != len(names):
         raise ConfigError(f"{where_free}: expected distinct coefficient names")
     return tuple(names)

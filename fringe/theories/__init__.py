@@ -13,7 +13,7 @@ clock    :class:`~.clock.DirectionalClock`     cq_XY cq_XZ cq_YZ cq_XXmYY cq_ZZ
 
 from __future__ import annotations
 
-from fringe.errors import ConfigError
+from fringe.errors import ConfigError, unknown_name
 from fringe.theories.base import Theory
 from fringe.theories.clock import CLOCK_NAMES, DirectionalClock
 from fringe.theories.medium import MEDIUM_NAMES, ClassicalMedium, cmb_rest_medium
@@ -34,8 +34,8 @@ def make_theory(name: str, **options) -> Theory:
     try:
         cls = THEORIES[name]
     except KeyError:
-        raise ConfigError(f"theory: unknown name {name!r} (expected one of "
-                          f"{', '.join(THEORIES)})") from None
+        raise ConfigError("name: " + unknown_name(str(name), THEORIES, "theory",
+                                                  ordered=True)) from None
     try:
         return cls(**options)
     except TypeError as exc:

@@ -17,7 +17,7 @@ from typing import ClassVar
 import numpy as np
 from numpy.typing import NDArray
 
-from fringe.errors import ConfigError, closest_hint
+from fringe.errors import ConfigError, unknown_name
 from fringe.frames import FrameState
 
 
@@ -82,6 +82,9 @@ class Theory:
             cls.primary_names = cls.parameter_names
 
     # -- configuration ---------------------------------------------------------------------
+    #: The names :meth:`scenario_options` reads from a ``[theory]`` table (for the messages).
+    SCENARIO_OPTIONS: tuple[str, ...] = ()
+
     @classmethod
     def scenario_options(cls, spec: dict, source: str) -> dict:
         """Constructor options from a scenario's ``[theory]`` table.
@@ -108,9 +111,9 @@ class Theory:
         out = {}
         for key, value in params.items():
             if key not in self.parameter_names:
-                raise ConfigError(f"{source}: {key}: not a coefficient of theory '{self.name}' "
-                                  f"(expected one of {', '.join(self.parameter_names)})"
-                                  f"{closest_hint(key, self.parameter_names)}")
+                raise ConfigError(f"{source}: " + unknown_name(
+                    key, self.parameter_names, f"coefficient of theory '{self.name}'",
+                    ordered=True))
             if isinstance(value, bool) or not isinstance(value, (int, float)) \
                     or not np.isfinite(value):
                 raise ConfigError(f"{source}: {key}: expected a finite number, got {value!r}")

@@ -45,6 +45,8 @@ class ClassicalMedium(Theory):
     description: ClassVar[str] = "classical stationary medium, exact round-trip formula"
     rest_frames: ClassVar[dict] = {"cmb": cmb_rest_medium}
 
+    SCENARIO_OPTIONS = ("wave_speed_m_s",)
+
     @classmethod
     def scenario_options(cls, spec, source):
         """``wave_speed_m_s``: the wave speed, m/s (default c)."""

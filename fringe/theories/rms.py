@@ -53,6 +53,8 @@ class RobertsonMansouriSexl(Theory):
                               f"components with |v| < c, got {sun_velocity_beta!r}")
         self.sun_velocity_beta = v
 
+    SCENARIO_OPTIONS = ("preferred_frame",)
+
     @classmethod
     def scenario_options(cls, spec, source):
         """Constructor options from the ``[theory]`` table: ``preferred_frame``.

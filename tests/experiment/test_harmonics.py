@@ -427,7 +427,7 @@ def test_harmonic_table_states_observable_and_factor():
     d = table.to_dict()
     assert d["observable"].startswith("michelson fringe count")
     assert d["two_path_factor"] == pytest.approx([-2 * 2.0 / 633e-9, 0.0])
-    assert "two-path harmonics (C9)" in table.summary()
+    assert "two-path harmonics: h_S = h / f" in table.summary()
 
 
 @pytest.mark.parametrize("ot", [0.0, 1.0, 2.5])

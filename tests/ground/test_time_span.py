@@ -60,3 +60,17 @@ def test_before_1960_utc_is_taken_as_ut():
     want = erfa.era00(jd1, jd2 + (6 * 3600.0 + 0.2 + t) / 86400.0)
     # float64 two-part JDs: ~1e-11 rad (eps x 2.4e6 d x 2 pi); tolerance 1e-9 rad
     assert np.max(np.abs(np.angle(np.exp(1j * (got - want))))) < 1e-9
+
+
+@pytest.mark.parametrize("t_s,codes", [
+    (1e14, {"leap-table-range", "ephemeris-range"}),         # about 3 million years on
+    (-1e14, {"utc-before-1960", "ephemeris-range"}),         # as far back
+])
+def test_times_beyond_erfa_calendar_give_cautions_not_an_erfa_error(t_s, codes):
+    # erfa.jd2cal refuses JD below -68569.5 or above 1e9 (ERFA's jd2cal, its Note 1); the
+    # cautions need the year only, here far outside every range either way
+    epoch = Epoch("2027-02-03T00:00:00Z")
+    first, last = min(0.0, t_s), max(0.0, t_s)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", TimeScaleWarning)
+        assert {c.code for c in time_span_cautions(epoch, first, last)} == codes

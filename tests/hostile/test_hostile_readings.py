@@ -94,8 +94,8 @@ CASES = [
                       "standard uncertainty of scale_factor (>= 0)"),
     ("calibration-extra", {"meta.toml": _edit(ONE_FILE, "scale_rel_sigma = 0.01",
                                               "scale_rel_sigma = 0.01\noffset = 3")},
-     [], "meta.toml", "calibration.offset: expected only the keys scale_factor, "
-                      "scale_rel_sigma, instrument_units"),
+     [], "meta.toml", "calibration.offset: unknown field (known: scale_factor, "
+                      "scale_rel_sigma, instrument_units)"),
     ("weight-negative", {"data.csv": _edit(_signal_rows(), "3.0,36.000,0.030,1",
                                            "3.0,36.000,0.030,-2")},
      [], "data.csv", "line 5, column 'n': expected a finite weight > 0 or an empty cell "
@@ -179,7 +179,7 @@ CASES = [
      "azimuth_log: expected the azimuth_log section together with an azimuth log file "
      "(--azimuth-log FILE), or neither"),
     ("log-missing", {"meta.toml": TWO_FILE}, ["--azimuth-log", "absent.csv"], "absent.csv",
-     "file: expected an existing file"),
+     "file: not found; expected a CSV file; check the path"),
     ("log-azimuth-beyond-2**32-rad", {"meta.toml": TWO_FILE,
                                       "enc.csv": _edit(_encoder_rows(), "-1.900,337.200000",
                                                        "-1.900,3e11")},

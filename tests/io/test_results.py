@@ -152,7 +152,7 @@ def test_read_fit_result_refuses_non_objects_and_bad_json(tmp_path, text, expect
     path.write_text(text, "utf-8")
     with pytest.raises(InputFileError, match=re.escape(f"{path}: {expected}")):
         read_fit_result(path)
-    with pytest.raises(InputFileError, match="file: expected an existing fit result"):
+    with pytest.raises(InputFileError, match="file: not found; expected a fit result"):
         read_fit_result(tmp_path / "missing.json")
 
 
@@ -282,7 +282,7 @@ def test_turns_file_refuses_other_files(tmp_path):
     junk.write_bytes(b"not hdf5")
     with pytest.raises(InputFileError, match="junk.h5: file: expected a readable HDF5 file"):
         read_turns(junk)
-    with pytest.raises(InputFileError, match="file: expected an existing per-turn"):
+    with pytest.raises(InputFileError, match="file: not found; expected a per-turn"):
         read_turns(tmp_path / "missing.h5")
 
 

@@ -318,7 +318,7 @@ def _scramble_superblock(path: Path):
                 "records)"),
     (_scramble_superblock, "expected a readable HDF5 file, got a corrupt one (HDF5 could not "
                            "read its contents)"),
-    (lambda p: p.unlink(), "expected an existing file"),
+    (lambda p: p.unlink(), "not found; expected a run file (HDF5); check the path"),
 ], ids=["not-hdf5", "truncated", "corrupt", "missing"])
 def test_damaged_or_foreign_file(tmp_path, damage, expected):
     path = write_spec_file(tmp_path / "run.h5")
@@ -442,7 +442,7 @@ def test_existing_output_is_refused_without_overwrite(tmp_path):
     path.write_bytes(b"previous result")
     with pytest.raises(OutputError) as info:
         _writer(path)
-    assert str(info.value) == f"{path}: the output file exists (overwriting was not requested)"
+    assert str(info.value) == f"{path}: exists (pass overwrite=True to replace it)"
     assert path.read_bytes() == b"previous result"
     with _writer(path, overwrite=True) as w:
         w.append([0.0], [0.0], [0.0], temp=[1.0])

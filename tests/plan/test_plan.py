@@ -366,7 +366,7 @@ def test_bad_noise_section_is_one_line_config_error(tmp_path, noise, field):
 
 @pytest.mark.parametrize("plan, text", [
     ({"free": ["ke_XY", "k_bogus"]}, "k_bogus"),
-    ({"targets": {"ko_XY": 1e-15}}, "not a free coefficient"),
+    ({"targets": {"ko_XY": 1e-15}}, "unknown free coefficient"),
     ({"max_days": 0.5}, "max_days"),
     ({"speed": 3}, "speed: unknown field"),
 ])

@@ -322,7 +322,7 @@ def test_cli_rms_combination(tmp_path):
 
 
 @pytest.mark.parametrize(("args", "needle"), [
-    (["missing.json"], "missing.json: file: expected an existing fit result"),
+    (["missing.json"], "missing.json: file: not found; expected a fit result"),
     (["{run}"], "fringe_format: expected 'fit'"),
     (["{fit}", "--kt", "1e-8"], "--kt: expected VALUE,SIGMA"),
     (["{fit}", "--kt", "1e-8,1e-8"], "--kt/--is: both"),
