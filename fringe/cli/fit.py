@@ -73,11 +73,12 @@ def _names(text: str | None) -> tuple[str, ...] | None:
 @click.option("--overwrite", is_flag=True, show_default=True,
               help="Replace an existing --out file and its .turns.h5.")
 @click.option("--budget", "budget_path", default=None, metavar="FILE",
-              help="Systematic budget (TOML) of declared terms (docs/fit.md).")
+              help="Systematic budget file (TOML) of declared terms (docs/fit.md)  "
+                   "[default: none; only the --regress channels and the calibration]")
 @click.option("--blind", "blind_key", default=None, metavar="KEYFILE",
               help="Blind the values with secret offsets kept in KEYFILE (written, mode "
                    "0600); a key already used by fringe unblind gives an unblinded fit that "
-                   "records whether the settings changed since.")
+                   "records whether the settings changed since  [default: not blinded]")
 @verbosity_options
 @run_guarded
 def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days, drift,

@@ -14,10 +14,11 @@ from fringe.cli.common import run_guarded
 @click.command("unblind")
 @click.argument("fit_json")
 @click.option("--key", "key_path", required=True, metavar="KEYFILE",
-              help="The key written by fringe fit --blind for this result.")
+              help="The key file written by fringe fit --blind for this result.")
 @click.option("--out", "out_path", required=True, metavar="FILE",
-              help="The unblinded result to write (JSON).")
-@click.option("--overwrite", is_flag=True, help="Replace an existing --out file.")
+              help="The unblinded result file to write (JSON).")
+@click.option("--overwrite", is_flag=True, show_default=True,
+              help="Replace an existing --out file.")
 @run_guarded
 def command(fit_json, key_path, out_path, overwrite):
     """Unblind FIT_JSON with its key, once; the key records when and the settings hash."""
