@@ -51,22 +51,13 @@ def command(out, seed, overwrite):
 
     click.echo("[2/5] inspect")
     from fringe.demodulate.quality import inspect_run
-    from fringe.report.figures.quality import allan_plot, spectrum_plot
+    from fringe.report.figures.quality import inspect_figures
+    from fringe.report.figures.style import save_figure_file
 
     rep = inspect_run(str(run_path))
     write_text_atomic(d / "inspect.txt", rep.summary() + "\n", overwrite=overwrite)
-    import matplotlib.pyplot as plt
-
-    from fringe.io.atomic import save_figure_atomic
-
-    fig, ax = plt.subplots(figsize=(5.6, 4.0))
-    allan_plot(rep.allan.tau_s, rep.allan.adev, turn_period_s=rep.stats["turn_period_s"], ax=ax)
-    save_figure_atomic(fig, d / "inspect_allan.png", overwrite=overwrite)
-    plt.close(fig)
-    fig, ax = plt.subplots(figsize=(6.4, 4.0))
-    spectrum_plot(rep.spectrum_f_hz, rep.spectrum_amp, rep.lines_hz, ax=ax)
-    save_figure_atomic(fig, d / "inspect_spectrum.png", overwrite=overwrite)
-    plt.close(fig)
+    for name, fig in inspect_figures(rep):
+        save_figure_file(fig, d / f"inspect_{name}.png", overwrite=overwrite)
 
     click.echo("[3/5] fit (theory sme, free ke_*)")
     fit_path = d / "fit.json"
