@@ -36,8 +36,9 @@ CORRELATION_NUMBERS_MAX = 16
 CORRELATION_SIDE_MAX_IN = 12.0
 #: Most tick labels along each axis of the correlation figure.
 CORRELATION_LABELS_MAX = 40
-#: Most labelled decades on each side of zero of a symmetric-log axis.
-SYMLOG_DECADES_MAX = 4
+#: Most labelled decades on each side of zero of a symmetric-log axis (at one column width,
+#: labels such as -10^-16 run together beyond five in all).
+SYMLOG_DECADES_MAX = 2
 
 
 def symlog_ticks(linthresh: float, lim: float) -> tuple[list[float], list[str], list[float]]:
@@ -102,13 +103,13 @@ def _symlog_params(sig, lim):
 
 
 def choose_limits_scale(entries: Sequence[Mapping], unit: str = "1") -> str:
-    """The axis of the limits figure that leaves every 68 % bar visible.
+    """The axis of the limits figure that leaves the most 68 % bars visible.
 
-    ``"symlog"`` (dimensionless coefficients, when each bar spans at least
-    :data:`MIN_BAR_FRACTION` of the symmetric-log axis), else ``"linear"`` (an axis symmetric
-    about zero when the bars are wide enough on it), else ``"zoom"`` (a linear axis around the
-    intervals; zero need not be on it). Coefficients with a unit (the medium's velocities) are
-    never put on a logarithmic axis.
+    A bar is visible when it spans at least :data:`MIN_BAR_FRACTION` of the axis. Candidates,
+    in order of preference on a tie: ``"symlog"`` (dimensionless coefficients only: those with
+    a unit, the medium's velocities, are never put on a logarithmic axis), ``"linear"`` (an
+    axis symmetric about zero) and ``"zoom"`` (a linear axis around the intervals; zero need
+    not be on it).
     """
     from matplotlib.scale import SymmetricalLogTransform
 
@@ -117,16 +118,19 @@ def choose_limits_scale(entries: Sequence[Mapping], unit: str = "1") -> str:
     ours = np.array([bool(e.get("ours")) for e in entries]) & np.isfinite(sig) & (sig > 0)
     if not ours.any():
         return "symlog" if unit == "1" else "linear"
+    v, s = vals[ours], sig[ours]
     lim = float(np.nanmax(np.abs(vals) + Z95 * sig)) * 1.12
+    counts = {}
     if unit == "1":
-        tr = SymmetricalLogTransform(10, _symlog_params(sig, lim), SYMLOG_LINSCALE)
-        lo, hi = tr.transform(vals[ours] - sig[ours]), tr.transform(vals[ours] + sig[ours])
-        width = float(np.diff(tr.transform(np.array([-lim, lim])))[0])
-        if np.min(hi - lo) >= MIN_BAR_FRACTION * width:
-            return "symlog"
-    if np.min(2 * sig[ours]) >= MIN_BAR_FRACTION * 2 * lim:
-        return "linear"
-    return "zoom"
+        big = lim * 10.0 ** 0.25 / 1.12
+        tr = SymmetricalLogTransform(10, _symlog_params(sig, big), SYMLOG_LINSCALE)
+        width = float(np.diff(tr.transform(np.array([-big, big])))[0])
+        counts["symlog"] = int(np.sum(tr.transform(v + s) - tr.transform(v - s)
+                                      >= MIN_BAR_FRACTION * width))
+    counts["linear"] = int(np.sum(2 * s >= MIN_BAR_FRACTION * 2 * lim))
+    span = float(np.nanmax(vals + Z95 * sig) - np.nanmin(vals - Z95 * sig)) * 1.24
+    counts["zoom"] = int(np.sum(2 * s >= MIN_BAR_FRACTION * span))
+    return max(counts, key=lambda k: counts[k])          # first of the largest: preference
 
 
 #: Width of the linear part of the symmetric-log axis, in decades.
@@ -163,8 +167,9 @@ def plot_limits(entries: Sequence[Mapping], *, scale: str = "auto", unit: str = 
         What the values are (the axis label, before the unit).
     """
     n = len(entries)
-    if ax is None:
-        ax = S.new_figure("one", 0.95 + 0.24 * max(n, 1))
+    if ax is None:                # earlier results have long row names: a full-width figure
+        wide = any(not e.get("ours") for e in entries)
+        ax = S.new_figure("two" if wide else "one", 0.95 + 0.24 * max(n, 1))
     if not entries:
         ax.text(0.5, 0.5, "no coefficients", ha="center", va="center", transform=ax.transAxes)
         ax.set_axis_off()
@@ -189,7 +194,8 @@ def plot_limits(entries: Sequence[Mapping], *, scale: str = "auto", unit: str = 
     y = np.arange(n)[::-1]
     _interval_rows(ax, [dict(e, value=e["value"] * f, sigma=e["sigma"] * f) for e in entries], y)
     ax.axvline(0.0, color="k", lw=0.5, zorder=1)
-    if scale == "symlog":
+    if scale == "symlog":               # 1.12 is too little room on a log axis: half a decade
+        lim *= 10.0 ** 0.25 / 1.12
         ax.set_xlim(-lim, lim)
         _set_symlog(ax, sig, lim)
     else:
