@@ -134,23 +134,16 @@ def _run_steps(scenario_text: str, seed: int, t0: float) -> None:
 
 def _inspect_step(run_path: str) -> None:
     """Quality summary, Allan deviation and spectrum figures of the run file."""
-    import matplotlib.pyplot as plt
-
     from fringe.demodulate.quality import inspect_run
-    from fringe.io.atomic import save_figure_atomic, write_text_atomic
-    from fringe.report.figures.quality import allan_plot, spectrum_plot
+    from fringe.io.atomic import write_text_atomic
+    from fringe.report.figures.quality import inspect_figures
+    from fringe.report.figures.style import save_figure_file
 
     with step("inspect: turns, gaps, Allan deviation, spectrum"):
         rep = inspect_run(run_path)
     write_text_atomic("inspect.txt", rep.summary() + "\n")
-    fig, ax = plt.subplots(figsize=(5.6, 4.0))
-    allan_plot(rep.allan.tau_s, rep.allan.adev, turn_period_s=rep.stats["turn_period_s"], ax=ax)
-    save_figure_atomic(fig, "inspect_allan.png")
-    plt.close(fig)
-    fig, ax = plt.subplots(figsize=(6.4, 4.0))
-    spectrum_plot(rep.spectrum_f_hz, rep.spectrum_amp, rep.lines_hz, ax=ax)
-    save_figure_atomic(fig, "inspect_spectrum.png")
-    plt.close(fig)
+    for name, fig in inspect_figures(rep):
+        save_figure_file(fig, f"inspect_{name}.png")
 
 
 def _fit_step(run_path: str, fit_path: str, theory: str, n_samples: int):

@@ -38,24 +38,15 @@ def command(run_file, out, overwrite):
     import matplotlib
 
     matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    from fringe.io.atomic import save_figure_atomic, write_json_atomic, write_text_atomic
-    from fringe.report.figures.quality import allan_plot, spectrum_plot
+    from fringe.io.atomic import write_json_atomic, write_text_atomic
+    from fringe.report.figures.quality import inspect_figures
+    from fringe.report.figures.style import save_figure_file
 
     with outputs:
         write_text_atomic(outputs.path("inspect.txt"), rep.summary() + "\n")
         write_json_atomic(outputs.path("inspect.json"), rep.to_dict())
-        fig, ax = plt.subplots(figsize=(5.6, 4.0))
-        allan_plot(rep.allan.tau_s, rep.allan.adev, turn_period_s=rep.stats["turn_period_s"],
-                   ax=ax)
-        for sfx in ("png", "pdf"):
-            save_figure_atomic(fig, outputs.path(f"allan.{sfx}"))
-        plt.close(fig)
-        fig, ax = plt.subplots(figsize=(6.4, 4.0))
-        spectrum_plot(rep.spectrum_f_hz, rep.spectrum_amp, rep.lines_hz, ax=ax)
-        for sfx in ("png", "pdf"):
-            save_figure_atomic(fig, outputs.path(f"spectrum.{sfx}"))
-        plt.close(fig)
+        for name, fig in inspect_figures(rep):
+            for sfx in ("png", "pdf"):
+                save_figure_file(fig, outputs.path(f"{name}.{sfx}"))
     for p in outputs.targets:
         click.echo(f"wrote {p}")

@@ -35,7 +35,7 @@ from fringe.cli.common import run_guarded as _run_guarded
 def command(scenario, out, free, targets, overwrite, n_campaigns, seed):
     """Forecast 1-sigma bounds for SCENARIO (which needs a [noise] section)."""
     from fringe.experiment.scenario import load_scenario, parse_assignments
-    from fringe.io.atomic import save_figure_atomic, write_json_atomic, write_text_atomic
+    from fringe.io.atomic import write_json_atomic, write_text_atomic
     from fringe.io.outputset import OutputSet
     from fringe.plan.forecast import forecast
     from fringe.plan.settings import plan_settings
@@ -74,9 +74,8 @@ def command(scenario, out, free, targets, overwrite, n_campaigns, seed):
     import matplotlib
 
     matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
     import fringe.report.figures.plan as plan_figures
+    from fringe.report.figures.style import save_figure_file
 
     with outputs:
         write_json_atomic(outputs.path("plan.json"), result.to_dict())
@@ -85,12 +84,9 @@ def command(scenario, out, free, targets, overwrite, n_campaigns, seed):
             write_json_atomic(outputs.path("plan_check.json"),
                               {"seed": int(seed), "check": check.to_dict()})
         for name in figures:
-            fig, ax = plt.subplots(figsize=(7.2, 4.8))
-            getattr(plan_figures, name.removeprefix("plan_"))(result, ax=ax)
-            fig.tight_layout()
+            ax = getattr(plan_figures, name.removeprefix("plan_"))(result)
             for suffix in ("png", "pdf"):
-                save_figure_atomic(fig, outputs.path(f"{name}.{suffix}"))
-            plt.close(fig)
+                save_figure_file(ax.figure, outputs.path(f"{name}.{suffix}"))
 
     click.echo(result.summary())
     if check is not None:

@@ -30,7 +30,7 @@ def command(scenario, assignments, out_dir, series, overwrite):
     """Signal, signal map and harmonic table of hypothetical coefficients for SCENARIO."""
     from fringe.experiment.prediction import predict
     from fringe.experiment.scenario import load_scenario, parse_assignments
-    from fringe.io.atomic import save_figure_atomic, write_json_atomic, write_text_atomic
+    from fringe.io.atomic import write_json_atomic, write_text_atomic
     from fringe.io.outputset import OutputSet
 
     sc = load_scenario(scenario)
@@ -46,28 +46,17 @@ def command(scenario, assignments, out_dir, series, overwrite):
     import matplotlib
 
     matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    from fringe.report.figures.prediction import harmonic_bars, signal_map
+    from fringe.report.figures.prediction import prediction_figure
+    from fringe.report.figures.style import save_figure_file
 
     with outputs:
         write_json_atomic(outputs.path("harmonics.json"), result.to_dict())
         write_text_atomic(outputs.path("harmonics.txt"), result.summary() + "\n")
-        fig, axes = plt.subplots(1, 2, figsize=(12, 4.6),
-                                 gridspec_kw={"width_ratios": [1.1, 1]})
-        signal_map(result.map_azimuth_deg, result.map_phi_deg, result.map_signal,
-                   units=result.units, ax=axes[0],
-                   title=f"{sc.title or Path(scenario).name}: signal at "
-                         f"{result.table.t_ref_utc}")
-        contrib = {k: v for k, v in result.table.contribution().items()
-                   if k == "total" or sc.coefficients.get(k)}
-        if contrib:
-            harmonic_bars(contrib, units=result.units, ax=axes[1])
-        axes[1].set_title("C10 harmonics (contribution of each coefficient)", fontsize=10)
-        fig.tight_layout()
+        fig = prediction_figure(result, coefficients=sc.coefficients,
+                                title=f"{sc.title or Path(scenario).name}\n"
+                                      f"signal at {result.table.t_ref_utc}")
         for suffix in ("png", "pdf"):
-            save_figure_atomic(fig, outputs.path(f"signal_map.{suffix}"))
-        plt.close(fig)
+            save_figure_file(fig, outputs.path(f"signal_map.{suffix}"))
         if series:
             _write_series(sc, scenario, outputs.path("prediction.h5"))
 

@@ -23,7 +23,7 @@ from pathlib import Path
 
 import fringe.report.figures.fit as F
 from fringe.errors import ConfigError
-from fringe.io.atomic import save_figure_atomic, write_json_atomic, write_text_atomic
+from fringe.io.atomic import write_json_atomic, write_text_atomic
 from fringe.io.fit_files import check_companion
 from fringe.io.fit_sections import Covariance
 from fringe.io.outputset import OutputSet
@@ -38,6 +38,7 @@ from fringe.report.documents import (
     markdown_report,
     summary,
 )
+from fringe.report.figures.style import save_figure_file
 from fringe.report.inputs import load_comparison, load_fit, load_turns
 from fringe.report.rms_solve import solve_rms
 from fringe.version import software_versions
@@ -161,7 +162,7 @@ def write_report(content: ReportContent, out_dir, *, overwrite: bool = False) ->
                                                    content.comparison):
             for ext in ("png", "pdf"):
                 rendered.append(f"{FIGURE_DIR}/{name}.{ext}")
-                save_figure_atomic(fig, outputs.path(rendered[-1]))
+                save_figure_file(fig, outputs.path(rendered[-1]))
             # embed the very PNG just written (read back: one rendering, identical bytes)
             figs.append((name, caption, outputs.path(rendered[-2]).read_bytes()))
         write_text_atomic(outputs.path("report.md"), markdown_report(content, figs))

@@ -98,5 +98,5 @@ def test_the_report_figure_says_the_sidereal_curve_is_absent(session_fit):
     accepted["turn_period_s"] = result.stage1.turn_period_s
     figures = {name: (caption, fig) for name, caption, fig in report_figures(result, accepted)}
     caption = figures["amplitudes"][0]
-    assert "no C10 curve: the sidereal stage was skipped" in caption
+    assert "no curve of the sidereal harmonics: the sidereal stage was skipped" in caption
     assert "dashed" not in caption

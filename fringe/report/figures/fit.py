@@ -3,16 +3,20 @@
 Which function for which figure:
 
 * :func:`plot_amplitude_vs_sidereal` -- per-turn 2-theta amplitude (C or B) against the sidereal
-  angle: binned means with error bars, the fitted model binned the same way, the C10 curve.
+  angle: binned means with 1-sigma error bars, the fitted model binned the same way, the curve
+  of the fitted sidereal harmonics.
 * :func:`plot_spectrum` -- amplitude spectrum of the per-turn C and B series in cycles per
-  sidereal day, lines at 1 and 2 and their annual sidebands marked (:func:`amplitude_spectrum`).
-* :func:`plot_limits` -- |bound| of each coefficient (1 and 2 sigma) beside earlier results,
-  log scale.
-* :func:`plot_correlation` -- the correlation matrix as an image with its numbers.
+  sidereal day, lines at 1 and 2 (and their annual sidebands when the record resolves them)
+  marked (:func:`amplitude_spectrum`).
+* :func:`~fringe.report.figures.limits.plot_limits` -- each coefficient's value with its 68 %
+  and 95 % intervals beside earlier results; :func:`~fringe.report.figures.limits.
+  plot_correlation` -- the correlation matrix (both in :mod:`fringe.report.figures.limits`).
 * :func:`plot_residual_adev` -- overlapping Allan deviation of the per-turn residuals.
+* :func:`report_figures` -- every figure of a report with its caption.
 
-Every plot function takes ``ax=None`` (then it makes a new :class:`matplotlib.figure.Figure`)
-and returns the axes; saving is the caller's job. The numerical helpers
+Every plot function takes ``ax=None`` (then it makes a new :class:`matplotlib.figure.Figure`
+through :func:`fringe.report.figures.style.new_figure`) and returns the axes; saving is the
+caller's job (:func:`fringe.report.figures.style.save_figure`). The numerical helpers
 (:func:`binned_by_phase`, :func:`amplitude_spectrum`, :func:`regular_grid`) are pure array
 functions.
 """
@@ -27,16 +31,28 @@ from numpy.typing import ArrayLike, NDArray
 
 from fringe.constants import OMEGA_EARTH_RAD_S, OMEGA_ORBIT_RAD_S, STELLAR_DAY_S
 from fringe.errors import ConfigError
-from fringe.linalg import correlation_from_covariance
 from fringe.noise.allan import overlapping_adev
+from fringe.report.figures import captions
+from fringe.report.figures import style as S
+from fringe.report.figures.limits import (
+    CORRELATION_LABELS_MAX,
+    CORRELATION_NUMBERS_MAX,
+    CORRELATION_SIDE_MAX_IN,
+    choose_limits_scale,
+    plot_correlation,
+    plot_limits,
+    plot_speed_limits,
+)
 
 if TYPE_CHECKING:
     from fringe.io.fit_result import FitResult
 
-__all__ = ["ANNUAL_CYCLES_PER_SIDEREAL_DAY", "amplitude_spectrum", "binned_by_phase",
+__all__ = ["ANNUAL_CYCLES_PER_SIDEREAL_DAY", "CORRELATION_LABELS_MAX", "CORRELATION_NUMBERS_MAX",
+           "CORRELATION_SIDE_MAX_IN", "amplitude_spectrum", "binned_by_phase", "limit_entries",
            "new_axes", "plot_amplitude_vs_sidereal", "plot_correlation", "plot_limits",
-           "plot_residual_adev", "plot_spectrum", "regular_grid", "report_figure_names",
-           "report_figures"]
+           "plot_residual_adev", "plot_speed_limits", "plot_spectrum", "regular_grid",
+           "report_figure_names", "report_figures", "sidebands_resolved",
+           "speed_rows"]
 
 #: Orbital frequency in cycles per sidereal (ERA) day: the annual sideband offset.
 ANNUAL_CYCLES_PER_SIDEREAL_DAY = OMEGA_ORBIT_RAD_S / OMEGA_EARTH_RAD_S
@@ -48,13 +64,9 @@ SPECTRUM_MAX_POINTS = 20_000
 SPECTRUM_MAX_FREQS = 8_000
 
 
-def new_axes(figsize=(6.4, 4.0), ncols: int = 1):
-    """A new Figure (no pyplot) and its axes (one, or an array of ``ncols``)."""
-    from matplotlib.figure import Figure
-
-    fig = Figure(figsize=figsize)
-    axes = fig.subplots(1, ncols)
-    return axes
+def new_axes(width="one", ncols: int = 1, height_in: float | None = None):
+    """A new styled Figure (no pyplot) and its axes: :func:`~.style.new_figure`."""
+    return S.new_figure(width, height_in, ncols=ncols)
 
 
 # ------------------------------------------------------------------------------ computation
@@ -195,11 +207,22 @@ def regular_grid(t_s: ArrayLike, y: ArrayLike, step_s: float) -> tuple[NDArray, 
 
 # ----------------------------------------------------------------------------------- plots
 
+def _sidereal_curve(harmonics: Mapping[str, float], name: str):
+    p = np.linspace(0.0, 2.0 * np.pi, 361)
+    h = {k: float(harmonics.get(f"{name}{k}", 0.0)) for k in ("0", "s1", "c1", "s2", "c2")}
+    curve = (h["0"] + h["s1"] * np.sin(p) + h["c1"] * np.cos(p) + h["s2"] * np.sin(2 * p)
+             + h["c2"] * np.cos(2 * p))
+    return np.degrees(p), curve
+
+
+@S.styled
 def plot_amplitude_vs_sidereal(phi_rad: ArrayLike, amplitude: ArrayLike, sigma: ArrayLike,
                                model: ArrayLike, *, name: str, units: str,
                                harmonics: Mapping[str, float] | None = None,
-                               n_bins: int = 24, ax=None):
+                               n_bins: int = 24, legend: bool = True, ax=None):
     """Per-turn amplitude ``name`` (C or B) against sidereal angle, with the fitted model.
+
+    The values are shown in units of a power of ten of ``units`` (in the axis label).
 
     Parameters
     ----------
@@ -207,165 +230,141 @@ def plot_amplitude_vs_sidereal(phi_rad: ArrayLike, amplitude: ArrayLike, sigma: 
         Sidereal angle (rad), per-turn amplitude, its 1-sigma, and the fitted coefficient
         model at each turn (``model_C``/``model_B``), amplitudes in ``units``.
     name : {"C", "B"}
+    units : str
+        Unit of the amplitudes.
     harmonics : mapping, optional
-        C10 harmonic values (``{"C0": .., "Cs1": .., ...}``); draws the C10 curve.
+        Sidereal harmonic values (``{"C0": .., "Cs1": .., ...}``); draws their curve.
+    n_bins : int
+        Bins of the sidereal angle.
+    legend : bool
+        Draw the legend (above the axes).
     """
     if ax is None:
-        ax = new_axes()
+        ax = S.new_figure("one")
     centre, mean, err, _ = binned_by_phase(phi_rad, amplitude, sigma, n_bins)
     _, mod, _, _ = binned_by_phase(phi_rad, model, np.ones_like(np.asarray(model, float)),
                                    n_bins)
+    curve = _sidereal_curve(harmonics, name) if harmonics else None
+    k = S.power_of_ten(np.concatenate([np.abs(mean) + err, np.abs(mod)]))
+    f = 10.0 ** -k
     deg = np.degrees(centre)
-    ax.errorbar(deg, mean, yerr=err, fmt="o", ms=4, capsize=2, color="C0",
-                label=f"{name}: binned mean ± 1σ")
-    ax.plot(deg, mod, "-", color="C3", lw=1.5, label="fitted model (same bins)")
-    if harmonics:
-        p = np.linspace(0.0, 2.0 * np.pi, 361)
-        h = {k: float(harmonics.get(f"{name}{k}", 0.0)) for k in ("0", "s1", "c1", "s2", "c2")}
-        curve = (h["0"] + h["s1"] * np.sin(p) + h["c1"] * np.cos(p) + h["s2"] * np.sin(2 * p)
-                 + h["c2"] * np.cos(2 * p))
-        ax.plot(np.degrees(p), curve, "--", color="0.4", lw=1,
-                label="C10 harmonics of the fit")
-    ax.axhline(0.0, color="k", lw=0.5)
+    ax.errorbar(deg, mean * f, yerr=err * f, fmt="o", color=S.COLORS[0], zorder=3,
+                label=r"binned mean $\pm1\sigma$")
+    ax.plot(deg, mod * f, "-", color=S.COLORS[1], lw=1.4, zorder=4,
+            label="fitted model (same bins)")
+    if curve is not None:
+        ax.plot(curve[0], curve[1] * f, "--", color="k", lw=0.9, zorder=5,
+                label="fitted sidereal harmonics")
+    ax.axhline(0.0, color=S.GREY, lw=0.5, zorder=1)
     ax.set_xlim(0, 360)
     ax.set_xticks(np.arange(0, 361, 60))
-    ax.set_xlabel("sidereal angle φ [deg]")
-    ax.set_ylabel(f"{name} (2θ amplitude) [{units}]")
-    ax.legend(fontsize=7)
-    return ax
+    ax.set_xlabel(r"sidereal angle $\varphi$ [deg]")
+    kind = {"C": r"$\cos 2\theta$", "B": r"$\sin 2\theta$"}.get(name, r"$2\theta$")
+    ax.set_ylabel(S.scaled_label(f"${name}$ (amplitude of {kind})", units, k))
+    if legend:
+        S.legend_outside(ax, where="above", ncols=2)
+    return S.finish(ax)
 
 
+def sidebands_resolved(span_days: float) -> bool:
+    """Whether a record of ``span_days`` separates the annual sidebands from their line.
+
+    True when the sideband offset (1 cycle per year) exceeds 1.5 / span, 1.5 times the
+    frequency resolution of the record (common practice).
+    """
+    return span_days > 0 and ANNUAL_CYCLES_PER_SIDEREAL_DAY > 1.5 / span_days
+
+
+@S.styled
 def plot_spectrum(t_s: ArrayLike, series: Mapping[str, tuple[ArrayLike, ArrayLike]], *,
                   units: str, f_max_cpsd: float = 2.5, ax=None):
     """Amplitude spectra of per-turn series (``{"C": (y, sigma), "B": (y, sigma)}``).
 
-    Solid lines mark 1 and 2 cycles per sidereal day, dotted lines their annual sidebands
-    (+- :data:`ANNUAL_CYCLES_PER_SIDEREAL_DAY`).
+    Vertical lines mark 1 and 2 cycles per sidereal day (labelled above the axes); dotted lines
+    their annual sidebands (+- :data:`ANNUAL_CYCLES_PER_SIDEREAL_DAY`) when
+    :func:`sidebands_resolved`. Horizontal dotted lines: the mean white-noise amplitude.
     """
     if ax is None:
-        ax = new_axes()
-    for i, (label, (y, s)) in enumerate(series.items()):
-        f, amp, noise = amplitude_spectrum(t_s, y, s, f_max_cpsd=f_max_cpsd)
-        ax.plot(f, amp, color=f"C{i}", lw=1, label=label)
-        ax.axhline(noise, color=f"C{i}", lw=0.8, ls=":",
-                   label=f"{label}: white-noise mean level")
+        ax = S.new_figure("one")
+    spectra = [(label, *amplitude_spectrum(t_s, y, s, f_max_cpsd=f_max_cpsd))
+               for label, (y, s) in series.items()]
+    k = S.power_of_ten(np.concatenate([a for _, _, a, _ in spectra]))
+    for i, (label, f, amp, noise) in enumerate(spectra):
+        c = S.COLORS[i % len(S.COLORS)]
+        ax.plot(f, amp / 10.0 ** k, color=c, lw=0.9, label=f"${label}$")
+        ax.axhline(noise / 10.0 ** k, color=c, lw=0.8, ls=":",
+                   label=f"${label}$: white-noise mean")
+    t = np.asarray(t_s, float)
+    span_days = float(t.max() - t.min()) / STELLAR_DAY_S if t.size else 0.0
     fa = ANNUAL_CYCLES_PER_SIDEREAL_DAY
     for line in (1.0, 2.0):
-        ax.axvline(line, color="k", lw=0.8, alpha=0.6)
-        for sb in (line - fa, line + fa):
-            ax.axvline(sb, color="k", lw=0.6, ls=":", alpha=0.6)
+        ax.axvline(line, color="k", lw=0.6, alpha=0.7, zorder=0)
+        if sidebands_resolved(span_days):
+            for sb in (line - fa, line + fa):
+                ax.axvline(sb, color="k", lw=0.5, ls=":", alpha=0.6, zorder=0)
+    top = ax.secondary_xaxis("top")
+    top.set_xticks([1.0, 2.0], [r"$\omega_\oplus$", r"$2\omega_\oplus$"])
+    top.tick_params(length=0, labelsize=S.rc_params()["xtick.labelsize"])
     ax.set_xlim(0, f_max_cpsd)
     ax.set_ylim(bottom=0)
     ax.set_xlabel("frequency [cycles per sidereal day]")
-    ax.set_ylabel(f"amplitude [{units}]")
-    ax.legend(fontsize=7)
-    return ax
+    ax.set_ylabel(S.scaled_label("amplitude", units, k))
+    S.legend_outside(ax, where="below", ncols=2)
+    return S.finish(ax)
 
 
-def plot_limits(entries: Sequence[Mapping], ax=None):
-    """Absolute bounds |value| + 1 sigma (thick) and + 2 sigma (thin), log scale.
-
-    Parameters
-    ----------
-    entries : sequence of mapping
-        ``{"label": str, "value": float, "sigma": float, "ours": bool}``, top to bottom.
-    """
-    if ax is None:
-        ax = new_axes(figsize=(6.4, 0.6 + 0.32 * max(len(entries), 1)))
-    if not entries:
-        ax.text(0.5, 0.5, "no coefficients", ha="center", va="center",
-                transform=ax.transAxes)
-        return ax
-    b1 = np.array([abs(e["value"]) + e["sigma"] for e in entries], dtype=float)
-    b2 = np.array([abs(e["value"]) + 2.0 * e["sigma"] for e in entries], dtype=float)
-    positive = b2[b2 > 0]
-    top = positive.max() if positive.size else 1.0
-    lo = (positive.min() if positive.size else 1.0) / 10.0
-    y = np.arange(len(entries))[::-1]
-    for yi, e, x1, x2 in zip(y, entries, b1, b2, strict=True):
-        color = "C0" if e.get("ours") else "0.45"
-        ax.plot([lo, max(x2, lo)], [yi, yi], color=color, lw=1.2)
-        ax.plot([lo, max(x1, lo)], [yi, yi], color=color, lw=5, solid_capstyle="butt")
-        if abs(e["value"]) > lo:
-            ax.plot([abs(e["value"])], [yi], "|", color="k", ms=9)
-    ax.set_xscale("log")
-    ax.set_xlim(lo, top * 3.0)
-    ax.set_yticks(y, [e["label"] for e in entries], fontsize=7)
-    ax.set_ylim(-0.7, len(entries) - 0.3)
-    ax.set_xlabel("|bound|: |value| + 1σ (thick), + 2σ (thin); tick: |value|")
-    ax.grid(True, axis="x", which="major", lw=0.3)
-    return ax
-
-
-#: Largest number of coefficients whose correlations are printed in the cells (beyond it the
-#: colours alone are shown: n**2 text labels make a figure slow and unreadable).
-CORRELATION_NUMBERS_MAX = 16
-#: Largest side of the correlation figure, inches.
-CORRELATION_SIDE_MAX_IN = 12.0
-#: Most tick labels along each axis of the correlation figure.
-CORRELATION_LABELS_MAX = 40
-
-
-def plot_correlation(names: Sequence[str], covariance: ArrayLike, ax=None):
-    """Correlation matrix of the coefficients, colour image with the numbers.
-
-    Up to :data:`CORRELATION_NUMBERS_MAX` coefficients each cell shows its number; beyond, the
-    colours alone, and at most :data:`CORRELATION_LABELS_MAX` names label each axis.
-    """
-    n = len(names)
-    if ax is None:
-        ax = new_axes(figsize=(min(1.6 + 0.55 * n, CORRELATION_SIDE_MAX_IN),
-                               min(1.2 + 0.5 * n, CORRELATION_SIDE_MAX_IN - 0.4)))
-    rho = correlation_from_covariance(covariance, unit_diagonal=True)
-    im = ax.imshow(rho, vmin=-1, vmax=1, cmap="RdBu_r")
-    if n <= CORRELATION_NUMBERS_MAX:
-        for i in range(n):
-            for j in range(n):
-                v = rho[i, j]
-                ax.text(j, i, "n/a" if not np.isfinite(v) else f"{v:.2f}", ha="center",
-                        va="center", fontsize=7, color="w" if abs(v) > 0.6 else "k")
-    step = -(-n // CORRELATION_LABELS_MAX)
-    ticks = range(0, n, step)
-    ax.set_xticks(ticks, [names[k] for k in ticks], rotation=60, fontsize=7, ha="right")
-    ax.set_yticks(ticks, [names[k] for k in ticks], fontsize=7)
-    ax.figure.colorbar(im, ax=ax, label="correlation")
-    return ax
-
-
+@S.styled
 def plot_residual_adev(t_s: ArrayLike, residuals: Mapping[str, ArrayLike], turn_period_s: float,
                        *, units: str, ax=None):
-    """Overlapping Allan deviation of per-turn residuals (``{"C − model": r, ...}``).
+    """Overlapping Allan deviation of per-turn residuals (``{"$C - C_{model}$": r, ...}``).
 
     The residuals are laid on the turn grid (tau0 = ``turn_period_s``; rejected or missing turns
-    are NaN and excluded by :func:`fringe.noise.allan.overlapping_adev`). A dotted tau^-1/2 line
-    from the first point shows white noise; vertical lines mark half a sidereal day and a
-    sidereal day.
+    are NaN and excluded by :func:`fringe.noise.allan.overlapping_adev`). A dotted
+    tau^(-1/2) line from the first point shows white noise; vertical lines mark half a sidereal
+    day and a sidereal day (labelled above the axes). The keys of ``residuals`` are the legend
+    labels (mathtext allowed).
     """
+    from matplotlib.lines import Line2D
+
     if ax is None:
-        ax = new_axes()
+        ax = S.new_figure("one")
     tmax = 0.0
     for i, (label, r) in enumerate(residuals.items()):
         grid, _ = regular_grid(t_s, r, turn_period_s)
         res = overlapping_adev(grid, turn_period_s)
         ok = np.isfinite(res.adev)
-        ax.errorbar(res.tau_s[ok], res.adev[ok], yerr=res.adev_err[ok], fmt="o-", ms=3,
-                    capsize=2, color=f"C{i}", label=label)
+        st = S.series_style(i)
+        ax.errorbar(res.tau_s[ok], res.adev[ok], yerr=res.adev_err[ok], fmt="-",
+                    marker=st["marker"], color=st["color"], label=label, zorder=3)
         if ok.any():
             t0 = res.tau_s[ok][0]
             ax.plot(res.tau_s[ok], res.adev[ok][0] * np.sqrt(t0 / res.tau_s[ok]), ":",
-                    color=f"C{i}", lw=1)
+                    color=st["color"], lw=0.9, zorder=2)
             tmax = max(tmax, float(res.tau_s[ok][-1]))
-    for tau, text in ((STELLAR_DAY_S / 2, "½ sidereal day"), (STELLAR_DAY_S, "sidereal day")):
-        if tau <= tmax:
-            ax.axvline(tau, color="k", lw=0.6, ls="--", alpha=0.6)
-            ax.text(tau, 0.98, text, rotation=90, va="top", ha="right", fontsize=6,
-                    transform=ax.get_xaxis_transform())
+    marks = [(tau, text) for tau, text in ((STELLAR_DAY_S / 2, r"$T_\mathrm{sid}/2$"),
+                                            (STELLAR_DAY_S, r"$T_\mathrm{sid}$")) if tau <= tmax]
+    for tau, _ in marks:
+        ax.axvline(tau, color=S.GREY, lw=0.6, ls="--", zorder=1)
     ax.set_xscale("log")
     ax.set_yscale("log")
-    ax.set_xlabel("averaging time τ [s]")
-    ax.set_ylabel(f"Allan deviation of residual [{units}]")
-    ax.legend(fontsize=7, title="dotted: τ^-1/2 (white noise)", title_fontsize=6)
-    return ax
+    if marks:
+        top = ax.secondary_xaxis("top")
+        top.set_xticks([m[0] for m in marks], [m[1] for m in marks])
+        top.xaxis.set_minor_locator(_null_locator())
+        top.tick_params(length=0, labelsize=S.rc_params()["xtick.labelsize"])
+    ax.set_xlabel(r"averaging time $\tau$ [s]")
+    ax.set_ylabel("Allan deviation of the residual" + S.unit_suffix(units))
+    handles, labels = ax.get_legend_handles_labels()
+    handles.append(Line2D([], [], color=S.GREY, ls=":", lw=0.9))
+    labels.append(r"white noise, $\propto\tau^{-1/2}$")
+    S.legend_outside(ax, where="below", ncols=3, handles=handles, labels=labels)
+    return S.finish(ax)
+
+
+def _null_locator():
+    from matplotlib.ticker import NullLocator
+
+    return NullLocator()
 
 
 # --------------------------------------------------------------------- a report's figures
@@ -379,6 +378,61 @@ def report_figure_names(fit: FitResult, turns: Mapping | None) -> list[str]:
     return names
 
 
+def limit_entries(fit: FitResult, comparison: Sequence[Mapping] = ()) -> list[dict]:
+    """Rows of the limits figure: each free coefficient, then the earlier results of its name."""
+    coefs = fit.coefficients
+    entries = []
+    for n in dict.fromkeys(list(coefs) + [e["name"] for e in comparison]):
+        label = S.coefficient_label(n)
+        if n in coefs:
+            entries.append({"label": label + (" (this work)" if comparison else ""),
+                            "value": coefs[n].value, "sigma": coefs[n].sigma, "ours": True})
+        entries += [{"label": f"{label}: {S.coefficient_label(e['citation'][:32])}",
+                     "value": e["value"], "sigma": e["sigma"], "ours": False}
+                    for e in comparison if e["name"] == n]
+    return entries
+
+
+def speed_rows(fit: FitResult) -> list[dict]:
+    """Rows of the speed-limit panel of a medium fit (its ``derived`` speeds, km/s); [] if none."""
+    d = fit.derived
+    if d is None:
+        return []
+    rows = []
+    sun, lab = d.sun_speed_kms or {}, d.lab_speed_kms or {}
+    for label, part, best, upper in (
+            (r"Sun, $|v_\odot|$", sun, "best", "upper_95"),
+            (r"laboratory, $|v_\mathrm{lab}|$", lab, "best", "upper_95"),
+            ("laboratory, horizontal", lab, "horizontal_best", "horizontal_upper_95")):
+        if np.isfinite(part.get(upper, np.nan)):
+            rows.append({"label": label, "best": float(part.get(best, np.nan)),
+                         "upper_95": float(part[upper])})
+    return rows
+
+
+def _limits_figure(fit: FitResult, comparison: Sequence[Mapping]):
+    """The limits figure: (caption, Figure); medium fits add their speed limits below."""
+    from fringe.theories import THEORIES
+
+    entries = limit_entries(fit, comparison)
+    cls = THEORIES.get(fit.theory)
+    units = {cls.parameter_units.get(n, "1") for n in fit.coefficients} if cls else {"1"}
+    unit = units.pop() if len(units) == 1 else "1"
+    scale = choose_limits_scale(entries, unit)
+    speeds = speed_rows(fit) if fit.theory == "medium" else []
+    if not speeds:
+        ax = plot_limits(entries, scale=scale, unit=unit)
+        return captions.limits(bool(comparison), scale), ax.figure
+    n = len(entries)
+    axes = S.new_figure("one", 1.6 + 0.24 * n + 0.26 * len(speeds), nrows=2,
+                        gridspec_kw={"height_ratios": [n + 1.5, len(speeds) + 1.5]})
+    plot_limits(entries, scale=scale, unit=unit, ax=axes[0],
+                quantity="velocity component of the Sun")
+    plot_speed_limits(speeds, unit="km/s", ax=axes[1])
+    return captions.limits(bool(comparison), scale, speeds=True), axes[0].figure
+
+
+@S.styled
 def report_figures(fit: FitResult, turns: Mapping | None, comparison: Sequence[Mapping] = ()
                    ) -> list[tuple[str, str, object]]:
     """Every figure a report shows, as ``(name, caption, Figure)``.
@@ -401,54 +455,30 @@ def report_figures(fit: FitResult, turns: Mapping | None, comparison: Sequence[M
     hmap = dict(zip(h.names, h.value, strict=True)) if h is not None else None
     if turns is not None:
         t = turns
-        axes = new_axes(figsize=(11.5, 4.0), ncols=2)
+        axes = S.new_figure("two", ncols=2, aspect=0.82)
         for ax, n in zip(axes, ("C", "B"), strict=True):
             plot_amplitude_vs_sidereal(t["phi_rad"], t[n], t[f"sigma_{n}"], t[f"model_{n}"],
-                                       name=n, units=units, harmonics=hmap, ax=ax)
-        out.append(("amplitudes", "Per-turn 2θ amplitudes C (of cos 2θ) and B (of sin 2θ) of "
-                    f"the {t['t_mid_s'].size} accepted turns against the sidereal angle φ: "
-                    "weighted means in 15° bins (± 1σ, scaled up by the Birge ratio where the "
-                    "scatter exceeds the stated uncertainties), the fitted coefficient model "
-                    "(model_C, model_B) averaged over the same turns and bins (line)"
-                    + (", and the curve of the fitted C10 harmonics (dashed)." if h is not None
-                       else "; no C10 curve: the sidereal stage was skipped (too few sidereal "
-                            "phases), the per-session amplitudes stand in for it."),
+                                       name=n, units=units, harmonics=hmap, legend=False,
+                                       ax=ax)
+        handles, labels = axes[0].get_legend_handles_labels()
+        order = sorted(range(len(labels)), key=lambda i: not labels[i].startswith("binned"))
+        axes[0].figure.legend([handles[i] for i in order], [labels[i] for i in order],
+                              loc="outside upper center", ncols=3)
+        out.append(("amplitudes", captions.amplitudes(t["t_mid_s"].size, h is not None),
                     axes[0].figure))
         ax = plot_spectrum(t["t_mid_s"], {"C": (t["C"], t["sigma_C"]),
                                           "B": (t["B"], t["sigma_B"])}, units=units)
-        out.append(("spectrum", "Least-squares amplitude spectrum of the per-turn C and B "
-                    "series, frequency in cycles per sidereal day. Solid lines: 1 and 2 cycles "
-                    "per sidereal day (ω⊕, 2ω⊕); dotted: their annual sidebands (± 1 cycle per "
-                    "sidereal year). The spectrum of the per-turn amplitudes around zero "
-                    "frequency is equivalent to the spectrum of the raw signal around 2ω_R "
-                    "(demodulation at 2θ shifts 2ω_R to zero), so these lines are the "
-                    "raw-signal lines 2ω_R ± ω⊕, 2ω_R ± 2ω⊕ and their sidebands. Horizontal "
-                    "dotted lines: mean amplitude expected from white noise of the stated "
-                    "per-turn uncertainties.", ax.figure))
-        ax = plot_residual_adev(t["t_mid_s"], {"C − model_C": t["C"] - t["model_C"],
-                                               "B − model_B": t["B"] - t["model_B"]},
+        span_days = float(np.ptp(t["t_mid_s"])) / STELLAR_DAY_S if t["t_mid_s"].size else 0.0
+        out.append(("spectrum", captions.spectrum(sidebands_resolved(span_days)), ax.figure))
+        ax = plot_residual_adev(t["t_mid_s"],
+                                {r"$C - C_\mathrm{model}$": t["C"] - t["model_C"],
+                                 r"$B - B_\mathrm{model}$": t["B"] - t["model_B"]},
                                 t["turn_period_s"], units=units)
-        out.append(("residual_adev", "Overlapping Allan deviation of the per-turn residuals "
-                    f"C − model_C and B − model_B; τ0 = turn period = {t['turn_period_s']:g} s "
-                    "(rejected and missing turns excluded, not bridged). Error bars: ADEV/√N of "
-                    f"the independent terms. Unit: that of the observable ({units}).",
+        out.append(("residual_adev", captions.residual_adev(t["turn_period_s"], units),
                     ax.figure))
-    coefs = fit.coefficients
-    entries = []
-    for n in dict.fromkeys(list(coefs) + [e["name"] for e in comparison]):
-        if n in coefs:
-            entries.append({"label": f"{n} (this work)", "value": coefs[n].value,
-                            "sigma": coefs[n].sigma, "ours": True})
-        entries += [{"label": f"{n}: {e['citation'][:40]}", "value": e["value"],
-                     "sigma": e["sigma"], "ours": False} for e in comparison if e["name"] == n]
-    ax = plot_limits(entries)
-    out.append(("limits", "Absolute bounds |value| + 1σ (thick bar) and |value| + 2σ (thin "
-                "bar) of each free coefficient of this work (blue)"
-                + (" beside the user-supplied earlier results (grey; citations as given by the "
-                   "user, not checked by fringe)" if comparison else "")
-                + "; log scale. The tick marks |value|.", ax.figure))
+    out.append(("limits", *_limits_figure(fit, comparison)))
     cov = fit.covariance
     if len(cov.names) >= 2:
         ax = plot_correlation(cov.names, cov.matrix)
-        out.append(("correlation", "Correlation matrix of the free coefficients.", ax.figure))
+        out.append(("correlation", captions.correlation(), ax.figure))
     return out
