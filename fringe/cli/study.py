@@ -147,7 +147,8 @@ def command(scenario, campaigns, out, seed, mode, inject_sigma, vary, theory, fr
                                  vary=parse_vary(vary, "--vary"), engine=engine,
                                  workers=workers, scheduler=scheduler,
                                  scheduler_file=scheduler_file,
-                                 scratch_dir=scratch_dir or str(own_scratch))
+                                 scratch_dir=scratch_dir if own_scratch is None
+                                 else str(own_scratch))
         n_rows = len(settings.vary[1]) if settings.vary else 1
         with outputs, _Bar(campaigns * n_rows) as bar:
             with warnings.catch_warnings(record=True) as caught:

@@ -94,12 +94,13 @@ def simulate_run(doc: dict, source: str, path: str, seed: int) -> dict:
     return simulate(scenario_from_dict(doc, source), path, seed=seed)
 
 
-def fit_record(path: str, settings, demod=None) -> dict:
+def fit_record(path: str, settings, demod=None, keep=None) -> dict:
     """Fit ``path`` with :func:`fringe.fit.run.fit_run` (``fringe fit``'s path); a plain record.
 
     The record holds each free coefficient's value and sigma, the covariance, the white-noise
     efficiency, the reduced chi-square, the turns used, the warnings raised (class and the
-    first 40 characters) and the time taken (s).
+    first 40 characters) and the time taken (s). ``keep(result, columns)``, if given, returns
+    more fields (a dict) taken from the fit result and its per-turn columns.
     """
     from fringe.fit.run import fit_run
 
@@ -107,9 +108,10 @@ def fit_record(path: str, settings, demod=None) -> dict:
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         res, cols = fit_run(path, settings, demod)
-        cols.close()
+    with cols:
+        extra = keep(res, cols) if keep is not None else {}
     names = list(res.covariance.names)
-    return {"value": {n: res.coefficients[n].value for n in names},
+    return {**extra, "value": {n: res.coefficients[n].value for n in names},
             "sigma": {n: res.coefficients[n].sigma for n in names},
             "cov_names": names, "cov": [list(map(float, row)) for row in res.covariance.matrix],
             "efficiency": dict(res.efficiency or {}),

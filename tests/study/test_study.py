@@ -303,7 +303,7 @@ def test_dask_cluster_of_two_workers_equals_the_loop(scenario, tmp_path, monkeyp
     distributed = pytest.importorskip("distributed")
     local = run_study(scenario, settings())
     cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
-                                       dashboard_address=None, scheduler_port=0)
+                                       dashboard_address=":0", scheduler_port=0)
     try:
         monkeypatch.chdir(tmp_path)
         (tmp_path / "scratch").mkdir()
@@ -370,3 +370,29 @@ def test_coverage_numbers_are_finite(scenario):
     a = run_study(scenario, settings())
     for c in a["rows"][0]["coefficients"].values():
         assert math.isfinite(c["pull_std"]["value"]) and c["sigma_median"] > 0
+
+
+def test_command_on_a_dask_cluster_and_an_unreachable_scheduler(scenario, tmp_path):
+    distributed = pytest.importorskip("distributed")
+    args = ["study", "study.toml", "--campaigns", "2", "--seed", "3", "--free", ",".join(FREE)]
+    local = run_command(tmp_path, args + ["--workers", "1", "--out", "here"])
+    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False,
+                                       dashboard_address=":0", scheduler_port=0)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", DeprecationWarning)
+            remote = run_command(tmp_path, args + ["--engine", "dask", "--scheduler",
+                                                   cluster.scheduler_address, "--out", "there"])
+    finally:
+        cluster.close()
+    assert local.exit_code == 0 and remote.exit_code == 0, remote.stderr
+    a, b = (json.loads((tmp_path / d / "study.json").read_text(encoding="utf-8"))
+            for d in ("here", "there"))
+    assert strip_times(a) == strip_times(b)
+    t0 = time.monotonic()
+    r = run_command(tmp_path, args + ["--engine", "dask", "--scheduler", "tcp://127.0.0.1:9",
+                                      "--out", "nowhere"])
+    assert time.monotonic() - t0 < 60         # the connection timeout is 10 s
+    lines = r.stderr.strip().splitlines()
+    assert r.exit_code == 2 and len(lines) == 1 and "--scheduler ADDRESS" in lines[0], r.stderr
+    assert not (tmp_path / "nowhere").exists()

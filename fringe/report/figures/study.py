@@ -12,6 +12,8 @@ import numpy as np
 
 __all__ = ["coverage", "pull_histograms", "sigma_vs_forecast"]
 
+_MARKERS = ("o", "s", "^", "v", "D", "P", "X", "*")
+
 
 def _axes(ax, figsize=(6.4, 4.4)):
     import matplotlib.pyplot as plt
@@ -78,7 +80,8 @@ def coverage(study: dict, ax=None):
     """Coverage of the 1σ and 1.96σ intervals per coefficient and row, with binomial bands.
 
     The shaded bands are the expected fractions (68.27 %, 95.00 %) ± 1 and ± 2 binomial
-    standard deviations for the row's number of campaigns (the first row's N).
+    standard deviations for the row's number of campaigns (the first row's N). Colour: the
+    interval; marker: the grid row.
     """
     ax = _axes(ax, (7.2, 4.4))
     rows = study["rows"]
@@ -93,17 +96,20 @@ def coverage(study: dict, ax=None):
             ax.axhspan(100 * (p - k * sd), 100 * (p + k * sd), color=colour, alpha=alpha, lw=0)
         ax.axhline(100 * p, color=colour, lw=0.8)
         for j, row in enumerate(rows):
-            dx = (j - 0.5 * (len(rows) - 1)) * 0.12
+            dx = (j - 0.5 * (len(rows) - 1)) * min(0.12, 0.6 / len(rows))
             y = [100 * row["coefficients"][n][key]["value"] if n in row["coefficients"]
                  else np.nan for n in names]
-            ax.plot(x + dx, y, "o", color=colour, ms=4,
-                    label=f"{'≤ 1σ' if key == 'coverage_68' else '≤ 1.96σ'} {_row_label(row)}"
-                    if j == 0 or len(rows) < 5 else None)
+            ax.plot(x + dx, y, _MARKERS[j % len(_MARKERS)], color=colour, ms=4,
+                    label=("≤ 1σ" if key == "coverage_68" else "≤ 1.96σ") if j == 0 else None)
+    if len(rows) > 1:                 # one marker per grid row, explained in grey
+        for j, row in enumerate(rows):
+            ax.plot([], [], _MARKERS[j % len(_MARKERS)], color="0.4", ms=4,
+                    label=_row_label(row))
     ax.set_xticks(x, names)
     ax.set_ylim(top=101.0)
     ax.set_ylabel("campaigns inside the interval (%)")
     ax.set_title("coverage; bands: expected ± 1 and ± 2 binomial σ", fontsize=10)
-    ax.legend(fontsize=7, loc="center right")
+    ax.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     return ax
 
 
