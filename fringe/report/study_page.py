@@ -20,6 +20,10 @@ def _g(x) -> str:
     return "—" if x is None else f"{x:.3g}"
 
 
+def _ratio(x) -> str:
+    return "—" if x is None else f"{x:.3f}"
+
+
 def _row_title(row: dict) -> str:
     v = row["vary"]
     head = "" if v is None else f"{v['field']} = {v['value']:g} {v['unit']}: "
@@ -40,14 +44,14 @@ def study_tables(study: dict) -> list[tuple[str, list[str], list[list[str]]]]:
                           f"{c['pull_std']['value']:.3f} ± {c['pull_std']['uncertainty']:.3f}",
                           _pct(c["coverage_68"]), _pct(c["coverage_95"]),
                           _g(c["sigma_median"]), _g(c["sigma_forecast"]),
-                          _g(c["efficiency_coloured"]), _g(c["efficiency_white"])])
+                          _ratio(c["efficiency_coloured"]), _ratio(c["efficiency_white"])])
         out.append((_row_title(row), header, cells))
     return out
 
 
 def _intro(study: dict) -> list[str]:
     fit = study["fit"]
-    return [f"Scenario `{study['scenario']}` ({study['title']}); mode {study['mode']}; "
+    return [f"Scenario {study['scenario']} ({study['title']}); mode {study['mode']}; "
             f"{study['campaigns_per_row']} campaigns per row; master seed "
             f"{study['master_seed']}; theory {fit['theory']}, uncertainty "
             f"{fit['uncertainty']}" + (f"; truth drawn from N(0, ({study['inject_sigma']:g} "

@@ -339,6 +339,11 @@ def test_command_writes_the_set_and_refuses_to_replace_it(scenario, tmp_path):
     study = json.loads((out / "study.json").read_text(encoding="utf-8"))
     assert study["master_seed"] == 3 and study["fit"]["free"] == list(FREE)
     assert study["scenario"] == "study.toml"
+    page = (out / "study.md").read_text(encoding="utf-8")
+    for name in FREE:
+        assert f"| {name} | 2 |" in page
+    assert all(f"![{f}]({f})" in page for f in names if f.endswith(".png"))
+    assert "<img src='study_pulls.png'" in (out / "study.html").read_text(encoding="utf-8")
     assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []   # no scratch
     again = run_command(tmp_path, ["study", "study.toml", "--campaigns", "2", "--out", "st"])
     assert again.exit_code != 0 and len(again.stderr.strip().splitlines()) == 1
