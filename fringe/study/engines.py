@@ -119,8 +119,10 @@ def _pool_round(func, items, indices, fail, workers, out, tick) -> list[int]:
     """Run ``items[i]`` for i in ``indices`` in one pool; return the indices a broken pool lost."""
     lost = []
     ctx = multiprocessing.get_context("spawn")
-    with _one_thread_per_process(), ProcessPoolExecutor(workers, mp_context=ctx) as pool:
-        futures = {pool.submit(func, items[i]): i for i in indices}
+    pool = ProcessPoolExecutor(workers, mp_context=ctx)
+    try:
+        with _one_thread_per_process():          # the workers start at the submissions
+            futures = {pool.submit(func, items[i]): i for i in indices}
         for fut in as_completed(futures):
             i = futures[fut]
             exc = fut.exception()
@@ -129,7 +131,19 @@ def _pool_round(func, items, indices, fail, workers, out, tick) -> list[int]:
                 continue
             out[i] = fail(items[i], exc) if exc is not None else fut.result()
             tick()
+    except BaseException:             # an interrupt: drop the queue, end the workers now
+        _stop(pool)
+        raise
+    pool.shutdown(wait=True)
     return sorted(lost)
+
+
+def _stop(pool: ProcessPoolExecutor) -> None:
+    """Cancel what is queued and terminate the worker processes (no waiting for campaigns)."""
+    pool.shutdown(wait=False, cancel_futures=True)
+    for proc in list((getattr(pool, "_processes", None) or {}).values()):
+        with contextlib.suppress(OSError, AttributeError):
+            proc.terminate()
 
 
 def _pool(func, items, fail, workers, tick) -> list:

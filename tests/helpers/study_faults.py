@@ -37,3 +37,12 @@ def failing_campaign(task):
 def fail_record(item, reason) -> dict:
     """What the tests keep for a failed item: the item and the reason's text."""
     return {"failed": item, "reason": str(reason)}
+
+
+def quick_then_slow(item: int) -> int:
+    """Item 0 returns at once; every other item sleeps 120 s (a long campaign)."""
+    import time
+
+    if item:
+        time.sleep(120.0)
+    return item

@@ -180,6 +180,17 @@ def test_process_pool_survives_an_error_and_a_lost_worker():
     assert out[2] == {"failed": 2, "reason": WORKER_LOST}
 
 
+def test_an_interrupt_stops_the_pool_without_waiting_for_the_queue():
+    def interrupt(done, total):
+        raise KeyboardInterrupt
+
+    t0 = time.monotonic()
+    with pytest.raises(KeyboardInterrupt):
+        map_tasks(study_faults.quick_then_slow, [0, 1, 2, 3, 4, 5], study_faults.fail_record,
+                  workers=2, progress=interrupt)
+    assert time.monotonic() - t0 < 100       # not 2 x 120 s of queued items
+
+
 def test_unreachable_scheduler_is_one_line_quickly():
     pytest.importorskip("distributed")
     t0 = time.monotonic()
