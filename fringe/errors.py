@@ -74,6 +74,10 @@ class SimulationWarning(FringeWarning):
     """A simulated record is not what it may seem (e.g. no noise: no ``[noise]`` section)."""
 
 
+class CampaignWarning(FringeWarning):
+    """One campaign of a study failed (its seed and reason); the others were kept."""
+
+
 def check_finite_number(value, source: str, field: str, *, positive: bool = False,
                         minimum: float | None = None, maximum: float | None = None) -> float:
     """Return ``value`` as a float, or raise :class:`ConfigError` naming ``source`` and ``field``.

@@ -25,6 +25,7 @@ LAYERS = (
     ("fringe.io",),
     ("fringe.demodulate", "fringe.simulation"),
     ("fringe.fit", "fringe.plan"),
+    ("fringe.study",),
     ("fringe.report",),
     ("fringe.cli",),
     ("fringe",),                      # fringe/__init__.py: the Python face

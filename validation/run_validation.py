@@ -1,11 +1,13 @@
 """Statistical validation of ``fringe fit``: coverage, null tests and efficiency.
 
-Many small simulated campaigns with a known injected truth are written with
-:func:`fringe.simulation.campaign.simulate` and fitted with :func:`fringe.fit.run.fit_run`,
-exactly as a user would. For every coefficient the study reports the coverage of the reported
-1 sigma and 1.96 sigma intervals, the mean and standard deviation of the pulls
-(estimate - truth)/sigma, the efficiency (white-noise Cramer-Rao sigma / reported sigma, the
-result's ``efficiency``) and the ratio of the scatter of the estimates to the reported sigma.
+Many small simulated campaigns with a known injected truth are written and fitted with the
+study library behind ``fringe study`` (:mod:`fringe.study.campaign`: ``simulate_run``,
+``fit_record``, ``scramble_turns``; :func:`fringe.study.engines.map_tasks` runs them, in a pool
+of spawned processes that a failing campaign does not stop or hang), exactly as a user would.
+For every coefficient the study reports the coverage of the reported 1 sigma and 1.96 sigma
+intervals, the mean and standard deviation of the pulls (estimate - truth)/sigma, the
+efficiency (white-noise Cramer-Rao sigma / reported sigma, the result's ``efficiency``) and the
+ratio of the scatter of the estimates to the reported sigma.
 Null tests: campaigns with nothing injected, and campaigns with a real signal whose sidereal
 phase is scrambled (turns permuted). A constant shift of the analysis epoch is also run: it
 rotates the sidereal phase by a constant, which maps the signal onto other coefficients instead
@@ -31,14 +33,12 @@ import copy
 import datetime
 import json
 import math
-import multiprocessing
 import os
 import platform
 import shutil
 import sys
 import tempfile
 import time
-import warnings
 import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -223,35 +223,6 @@ def scenario_doc(cfg: Config, truth: dict, days: float | None = None) -> dict:
     return doc
 
 
-def scramble_turns(src: str, dst: str, rng: np.random.Generator) -> int:
-    """Copy a run file, permuting the signal of whole turns among the turn slots.
-
-    Needs a record without gaps whose turn is a whole number m of samples, sampled so that the
-    azimuth repeats exactly every m samples (checked). Times, azimuths and metadata are kept,
-    so each turn's amplitudes move to a random sidereal time. Returns the number of turns.
-    """
-    import h5py
-
-    shutil.copyfile(src, dst)
-    with h5py.File(dst, "r+") as f:
-        t = f["samples/time"][:]
-        az = f["samples/azimuth"][:]
-        y = f["samples/signal"][:]
-        dt = float(np.median(np.diff(t)))
-        period = 2 * np.pi * (t[-1] - t[0]) / abs(np.unwrap(az)[-1] - np.unwrap(az)[0])
-        m = int(round(period / dt))
-        n_turns = t.size // m
-        idx = np.arange(n_turns * m).reshape(n_turns, m)
-        same = np.abs(np.angle(np.exp(1j * (az[idx] - az[idx[0]])))) < 1e-6
-        if not (np.all(np.abs(np.diff(t) - dt) < 1e-6 * dt) and abs(period - m * dt) < 1e-6 * dt
-                and np.all(same)):
-            raise ValueError(f"{src}: scramble needs a gap-free record with a whole number of "
-                             "samples per turn")
-        y[idx] = y[idx[rng.permutation(n_turns)]]
-        f["samples/signal"][...] = y
-    return n_turns
-
-
 def shift_epoch(src: str, dst: str, rng: np.random.Generator) -> float:
     """Copy a run file with samples/time.epoch_utc moved by 30-365 days plus a random
     fraction of a day; returns the shift in seconds."""
@@ -336,30 +307,19 @@ def _true_speeds(path: str, cols, truth: dict) -> dict:
 
 
 def _fit_record(path: str, cfg: Config, fit: Fit, truth: dict | None = None) -> dict:
+    """One fit of a campaign through the study library (fringe.study.campaign.fit_record)."""
     from fringe.demodulate.settings import DemodSettings
-    from fringe.fit.run import fit_run
     from fringe.fit.settings import FitSettings
+    from fringe.study.campaign import fit_record
 
-    t0 = time.perf_counter()
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        res, cols = fit_run(path, FitSettings(theory=cfg.theory, **fit.settings),
-                            DemodSettings(**fit.demod))
-    names = list(res.covariance.names)
-    extra = {}
-    if res.derived is not None and truth is not None:
-        extra = {"derived": res.derived.to_dict(),
-                 "true_speeds": _true_speeds(path, cols, truth)}
-    return {**extra, "value": {n: res.coefficients[n].value for n in names},
-            "sigma": {n: res.coefficients[n].sigma for n in names},
-            "cov_names": names, "cov": [list(row) for row in res.covariance.matrix],
-            "efficiency": dict(res.efficiency), "chi2_reduced": res.statistics.chi2_reduced,
-            "n_turns_used": res.statistics.n_turns_used,
-            "stage1": {k: res.stage1.to_dict()[k]
-                       for k in ("n_blocks", "n_rejected_partial", "n_rejected_glitch")},
-            "warnings": sorted({w.category.__name__ + ": " + str(w.message)[:40]
-                                for w in caught}),
-            "epoch_utc": res.epoch_utc, "fit_s": time.perf_counter() - t0}
+    def keep(res, cols):
+        if res.derived is None or truth is None:
+            return {}
+        return {"derived": res.derived.to_dict(),
+                "true_speeds": _true_speeds(path, cols, truth)}
+
+    return fit_record(path, FitSettings(theory=cfg.theory, **fit.settings),
+                      DemodSettings(**fit.demod), keep=keep)
 
 
 def run_campaign(job: tuple, workdir: str | os.PathLike | None = None) -> dict:
@@ -369,7 +329,7 @@ def run_campaign(job: tuple, workdir: str | os.PathLike | None = None) -> dict:
     are deleted afterwards. ``days`` overrides the campaign length (days).
     """
     from fringe.experiment.scenario import scenario_from_dict
-    from fringe.simulation.campaign import simulate
+    from fringe.study.campaign import scramble_turns, simulate_run
 
     name, index, study_seed = job[:3]
     days = job[3] if len(job) > 3 else None
@@ -378,12 +338,13 @@ def run_campaign(job: tuple, workdir: str | os.PathLike | None = None) -> dict:
     truth = draw_truth(cfg, np.random.default_rng(truth_seed))
     if cfg.pipeline == "two-device":
         return two_device_campaign(cfg, index, sim_seed, truth, days, workdir)
-    sc = scenario_from_dict(scenario_doc(cfg, truth, days), f"validation:{name}")
+    doc = scenario_doc(cfg, truth, days)
+    sc = scenario_from_dict(doc, f"validation:{name}")
     out = {"config": name, "index": index, "seed": sim_seed, "truth": truth, "fits": {}}
     with tempfile.TemporaryDirectory(prefix="fringe-val-", dir=workdir) as tmp:
         run = str(Path(tmp) / "run.h5")
         t0 = time.perf_counter()
-        summary = simulate(sc, run, seed=sim_seed)
+        summary = simulate_run(doc, f"validation:{name}", run, sim_seed)
         out["sim_s"] = time.perf_counter() - t0
         out["n_gaps"], out["n_glitches"] = summary["n_gaps"], summary["n_glitches"]
         rng = np.random.default_rng(aux_seed)
@@ -744,18 +705,23 @@ def jobs_for(configs, n: int | None, n_null: int | None, seed: int) -> list[tupl
     return out
 
 
+def _failed(job: tuple, reason) -> dict:
+    """The record of a campaign that failed (kept out of the tables, reported on stderr)."""
+    return {"config": job[0], "index": job[1], "error": " ".join(str(reason).split())[:400]}
+
+
 def run_jobs(jobs: list[tuple], workers: int, progress=None) -> list[dict]:
-    if workers <= 1:
-        return [run_campaign(j) for j in jobs]
-    ctx = multiprocessing.get_context("spawn")
-    out = []
-    with ctx.Pool(workers) as pool:
-        for rec in pool.imap_unordered(run_campaign, jobs, chunksize=2):
-            out.append(rec)
-            if progress:
-                progress(len(out), len(jobs))
-    out.sort(key=lambda r: (r["config"], r["index"]))
-    return out
+    """Run the campaigns with the study library's engine (fringe.study.engines.map_tasks):
+    here for ``workers`` <= 1, else in a pool of spawned processes that a failing campaign or a
+    lost worker does not stop or hang."""
+    from fringe.study.engines import map_tasks
+
+    out = map_tasks(run_campaign, jobs, _failed, workers=workers, progress=progress)
+    for rec in out:
+        if "error" in rec:
+            print(f"warning: campaign {rec['index']} of {rec['config']} failed: {rec['error']}",
+                  file=sys.stderr)
+    return sorted((r for r in out if "error" not in r), key=lambda r: (r["config"], r["index"]))
 
 
 def library_identity() -> dict:

@@ -41,6 +41,13 @@ OPTION_SPELLING = (
     ("noise_free=True", "--noise-free"),
     ("azimuth_log=PATH", "--azimuth-log FILE"),
     ("simulate(seed=...)", "--seed"),
+    ("StudySettings.campaigns", "--campaigns"),
+    ("StudySettings.seed", "--seed"),
+    ("StudySettings.mode", "--mode"),
+    ("StudySettings.inject_sigma", "--inject-sigma"),
+    ("StudySettings.vary", "--vary"),
+    ("StudySettings.workers", "--workers"),
+    ("scheduler_file=FILE", "--scheduler-file FILE"),
 )
 # a name counts only where it stands alone (not inside a longer name or a path)
 _SPELLING = re.compile(r"(?<![\w./\\-])(" + "|".join(re.escape(a) for a, _ in OPTION_SPELLING)
