@@ -24,7 +24,7 @@ def main(verbose: int):
 
 #: The modules of the commands, one each (``fringe/cli/<module>.py``, each defines ``command``).
 COMMAND_MODULES = ("predict", "simulate", "inspection", "import_csv", "fit", "report", "plan",
-                   "demo")
+                   "demo", "watch")
 
 
 def _register_commands() -> None:

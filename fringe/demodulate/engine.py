@@ -329,13 +329,14 @@ def run_stage1(path: str, settings: DemodSettings, *, aux_channels: tuple[str, .
 
 def stage1_store(path: str, settings: DemodSettings, *, aux_channels: tuple[str, ...] = (),
                  engine: str = "local", scheduler=None, range_samples: int = RANGE_SAMPLES,
-                 progress: Callable[[int], None] | None = None, scratch: Scratch | None = None
-                 ) -> tuple[TurnStore, RecordInfo]:
+                 progress: Callable[[int], None] | None = None, scratch: Scratch | None = None,
+                 glitch_rule: bool = True) -> tuple[TurnStore, RecordInfo]:
     """As :func:`run_stage1`, but the table goes to a turn store; returns (store, info).
 
     The store is a :class:`~fringe.demodulate.turn_store.TurnStore`. With a ``scratch``
     directory, a record of more than SEGMENT_TURNS turns is kept in scratch files instead of in
-    memory (:mod:`fringe.demodulate.turn_store`).
+    memory (:mod:`fringe.demodulate.turn_store`). ``glitch_rule`` False leaves the glitch rule
+    to the caller (the incremental fit applies it to the whole campaign).
     """
     if engine not in ENGINES:
         raise ConfigError(f"engine: expected one of {', '.join(ENGINES)}, got {engine!r}")
@@ -349,7 +350,8 @@ def stage1_store(path: str, settings: DemodSettings, *, aux_channels: tuple[str,
         if progress:
             progress(info.n_samples)
     store = builder.finish()
-    store.apply_glitch_rule()
+    if glitch_rule:
+        store.apply_glitch_rule()
     logger.info("stage 1: %s", store.counts())
     return store, info
 
