@@ -178,11 +178,21 @@ def sessions_of(setup: Setup, store: TurnStore) -> Sessions:
 
     Built by :class:`fringe.demodulate.sessions.SessionBuilder`.
     """
+    return session_builder(setup, store).finish()
+
+
+def session_builder(setup: Setup, store: TurnStore) -> SessionBuilder:
+    """The session builder fed every segment of ``store`` (sessions and sidereal phases).
+
+    Its :meth:`~fringe.demodulate.sessions.SessionBuilder.finish` (the sessions' Student-t
+    factors and agreement, which load scipy.stats) is called only when the sessions are
+    reported: too few sidereal phases.
+    """
     lon = setup.site.east_longitude_rad
     builder = SessionBuilder(lambda t: sidereal_angle_rad(setup.epoch, t, lon), setup.units)
     for _, seg in store.segments():
         builder.add(seg)
-    return builder.finish()
+    return builder
 
 
 def _few_phases(sessions: Sessions) -> FitWarning:
@@ -280,8 +290,9 @@ def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettin
     n_acc = int(np.sum(store.accepted))
     if n_acc == 0:
         raise FitError("fit: no accepted turn (see the rejection counts of fringe inspect)")
-    sessions = sessions_of(setup, store)
-    sidereal = sessions.n_sidereal_phases >= MIN_SIDEREAL_PHASES
+    builder = session_builder(setup, store)
+    sidereal = builder.n_sidereal_phases >= MIN_SIDEREAL_PHASES
+    sessions = None if sidereal else builder.finish()
     few = [] if sidereal else [_few_phases(sessions)]
     theory = setup.theory
     if settings.free is not None:
