@@ -37,7 +37,8 @@ def _line(entry: dict) -> str:
 @click.option("--free", "free", default=None, metavar="NAMES",
               help="Comma-separated free coefficients (default: the theory's usual set for "
                    "the span so far).")
-@click.option("--uncertainty", type=click.Choice(["reduced-chi2", "formal"]),
+@click.option("--uncertainty",
+              type=RegistryChoice("fringe.fit.incremental", "INCREMENTAL_UNCERTAINTY_MODES"),
               default="reduced-chi2", show_default=True)
 @click.option("--regress", multiple=True, metavar="CHANNEL",
               help="Regress out the 2-theta part of an auxiliary channel (repeatable).")

@@ -56,6 +56,9 @@ from fringe.fit.passes import (
 from fringe.fit.settings import FitSettings, default_free
 from fringe.fit.solver import NormalParts, PairWeights, solve
 
+#: Registry of the uncertainty modes the incremental fit keeps exact (also the CLI's choices).
+INCREMENTAL_UNCERTAINTY_MODES = ("reduced-chi2", "formal")
+
 #: Span (days) at which the candidate coefficients are taken (the theory's largest default set).
 CANDIDATE_SPAN_DAYS = 1e6
 
@@ -194,9 +197,10 @@ def check_settings(setup, settings: FitSettings) -> tuple[str, ...]:
     if not setup.theory.linear:
         raise ConfigError(f"theory {setup.theory.name}: the incremental fit needs a linear "
                           "theory (fit the medium with fringe fit)")
-    if settings.uncertainty == "bootstrap":
-        raise ConfigError("uncertainty bootstrap: not available incrementally (use "
-                          "reduced-chi2 or formal, or fringe fit on the joined record)")
+    if settings.uncertainty not in INCREMENTAL_UNCERTAINTY_MODES:
+        raise ConfigError(f"uncertainty {settings.uncertainty}: not available incrementally "
+                          f"(use {' or '.join(INCREMENTAL_UNCERTAINTY_MODES)}, or fringe fit on "
+                          "the joined record)")
     if settings.fixed:
         raise ConfigError("fixed coefficients: not available incrementally (free fewer "
                           "coefficients instead)")
