@@ -68,7 +68,7 @@ def command(folder, out_dir, theory, free, uncertainty, regress, no_lab_b0, plan
 
         plan = forecast(load_scenario(plan_path), free=settings.free)
     watch = Watch(folder, out_dir, settings, plan=plan, report=not no_report)
-    done = 0
+    done, shown = 0, set()
     while True:
         left = None if stop_after is None else stop_after - done
         for entry in watch.poll(limit=left):
@@ -76,6 +76,9 @@ def command(folder, out_dir, theory, free, uncertainty, regress, no_lab_b0, plan
             done += 1
         for name, why in watch.waiting.items():
             click.echo(f"waiting: {name}: {why}", err=True)
+        for name in sorted(set(watch.refused) - shown):       # each named once
+            click.echo(f"refused: {name}: {watch.refused[name]}", err=True)
+            shown.add(name)
         if once or (stop_after is not None and done >= stop_after):
             break
         time.sleep(interval)

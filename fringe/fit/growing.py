@@ -149,7 +149,17 @@ class IncrementalFit:
         return shift
 
     def add_piece(self, path: str) -> dict:
-        """Stage 1 on one new run file and the exact update of the sums; returns its entry."""
+        """Stage 1 on one new run file and the exact update of the sums; returns its entry.
+
+        On any error (the file, or an interrupt) the fit is back at its last saved state.
+        """
+        try:
+            return self._add_piece(path)
+        except BaseException:
+            self._reset()        # the in-memory sums may be half updated: back to the state
+            raise
+
+    def _add_piece(self, path: str) -> dict:
         from fringe.fit.run import setup_from_run
 
         setup, meta = setup_from_run(path, self.settings.theory)
@@ -162,13 +172,24 @@ class IncrementalFit:
         candidates = check_settings(self.setup, self.settings)
         for ch in self.settings.regress:
             if ch not in meta["aux_channels"]:
-                raise ConfigError(f"{path}: samples/{ch}: no such auxiliary channel (regress)")
+                raise FitError(f"{path}: samples/{ch}: no such auxiliary channel (regress)")
         store, info = stage1_store(path, self.demod, aux_channels=tuple(self.settings.regress),
                                    glitch_rule=False)
         table = store.load()
-        labels = design_labels(candidates, self.settings)
         if self.sums is None:
-            self.sums = sums_zero(len(labels))
+            self.sums = sums_zero(len(design_labels(candidates, self.settings)))
+        return self._commit_piece(path, meta, table, info, shift, candidates)
+
+    def _reset(self) -> None:
+        """Forget what is in memory and read the last saved state (or start empty)."""
+        self.pieces, self.first, self.sums, self.size_used = [], None, None, 0
+        self.setup = None
+        self.raw, self.rms, self.level = np.zeros(0, np.int8), np.zeros(0), np.zeros(0)
+        self._rows_cache = {}
+        if (self.dir / "state.json").exists():
+            self._load()
+
+    def _commit_piece(self, path, meta, table, info, shift, candidates) -> dict:
         i = len(self.pieces)
         rows = self._piece_rows(table, shift, candidates)
         _save_npz(self.dir / f"rows-{i:05d}.npz", rows)

@@ -104,6 +104,9 @@ class Watch:
         self.history: list[dict] = self._read_history()
         #: file name -> reason, for files left for a later poll
         self.waiting: dict[str, str] = {}
+        #: file name -> reason, for files that cannot join this campaign (not retried while
+        #: this watch runs: a different site or apparatus, out of time order, ...)
+        self.refused: dict[str, str] = {}
 
     def _read_history(self) -> list[dict]:
         import json
@@ -119,7 +122,8 @@ class Watch:
 
     def pending(self) -> list[Path]:
         """Finished run files not yet in the fit."""
-        return [p for p in finished_run_files(self.folder) if not self.fit.known(p.name)]
+        return [p for p in finished_run_files(self.folder)
+                if not self.fit.known(p.name) and p.name not in self.refused]
 
     def poll(self, limit: int | None = None) -> list[dict]:
         """Add the pending pieces (at most ``limit``); rewrite the outputs; return the entries."""
@@ -132,6 +136,9 @@ class Watch:
             except (InputFileError, OSError) as exc:
                 self.waiting[path.name] = str(exc).splitlines()[0]
                 logger.info("%s: not readable yet, left for the next poll (%s)", path, exc)
+                continue
+            except FitError as exc:           # a piece that does not belong: never fatal
+                self.refused[path.name] = str(exc).splitlines()[0]
                 continue
             self.waiting.pop(path.name, None)
             added.append(self._after_piece(piece))

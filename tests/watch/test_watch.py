@@ -160,6 +160,20 @@ def test_watch_command_skips_unfinished_files_and_retries(campaign, tmp_path):
     assert fit["input"]["n_samples"] == n
 
 
+def test_a_piece_that_does_not_belong_is_refused_not_fatal(campaign, tmp_path):
+    _, days = campaign
+    folder, out = tmp_path / "drop", tmp_path / "out"
+    folder.mkdir()
+    shutil.copy(days[1], folder / "a_day1.h5")
+    shutil.copy(days[0], folder / "b_day0.h5")          # earlier in time than the first piece
+    res = CliRunner().invoke(main, ["watch", str(folder), "--out", str(out), "--once",
+                                    "--no-report"])
+    assert res.exit_code == 0, res.output
+    assert "refused: b_day0.h5:" in res.output and "pieces must follow in time" in res.output
+    state = json.loads((out / "state" / "state.json").read_text())
+    assert [p["name"] for p in state["pieces"]] == ["a_day1.h5"]
+
+
 def test_watch_refuses_what_it_cannot_do_exactly(campaign, tmp_path):
     _, days = campaign
     folder = tmp_path / "drop"
