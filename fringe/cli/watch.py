@@ -40,6 +40,8 @@ def _line(entry: dict) -> str:
 @click.option("--uncertainty",
               type=RegistryChoice("fringe.fit.incremental", "INCREMENTAL_UNCERTAINTY_MODES"),
               default="reduced-chi2", show_default=True)
+@click.option("--bootstrap-days", type=float, default=1.0, show_default=True,
+              help="Length of the resampled blocks of turns (with --uncertainty bootstrap).")
 @click.option("--regress", multiple=True, metavar="CHANNEL",
               help="Regress out the 2-theta part of an auxiliary channel (repeatable).")
 @click.option("--no-lab-b0", is_flag=True, help="Do not fit a constant B offset.")
@@ -53,14 +55,15 @@ def _line(entry: dict) -> str:
 @click.option("--stop-after", type=click.IntRange(min=1), default=None, metavar="N",
               help="Exit after N new pieces.")
 @run_guarded
-def command(folder, out_dir, theory, free, uncertainty, regress, no_lab_b0, plan_path,
-            no_report, once, interval, stop_after):
+def command(folder, out_dir, theory, free, uncertainty, bootstrap_days, regress, no_lab_b0,
+            plan_path, no_report, once, interval, stop_after):
     """Follow FOLDER, where run files arrive, and keep the fit of all of them up to date."""
     from fringe.fit.settings import FitSettings
     from fringe.report.watching import Watch
 
     settings = FitSettings(theory=theory, free=_names(free), uncertainty=uncertainty,
-                           lab_b0=not no_lab_b0, regress=tuple(regress))
+                           bootstrap_days=bootstrap_days, lab_b0=not no_lab_b0,
+                           regress=tuple(regress))
     plan = None
     if plan_path is not None:
         from fringe.experiment.scenario import load_scenario

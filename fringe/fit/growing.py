@@ -33,8 +33,10 @@ from fringe.demodulate.turns import TurnTable, glitch_status
 from fringe.errors import ConfigError, FitError, TimeScaleWarning
 from fringe.fit.incremental import (
     add_contribution,
+    add_groups,
     check_settings,
     epoch_offset_s,
+    groups_zero,
     noise_levels_from,
     passes_from_sums,
     sums_zero,
@@ -47,7 +49,7 @@ from fringe.io.atomic import signals_deferred, write_atomic, write_json_atomic
 from fringe.io.runreader import sha256
 
 STATE_VERSION = 1
-_ROW_NAMES = ("c", "b", "jc", "jb", "phi", "ninv")
+_ROW_NAMES = ("c", "b", "jc", "jb", "phi", "ninv", "t")
 
 
 def _save_npz(path: Path, arrays: dict) -> None:
@@ -177,7 +179,8 @@ class IncrementalFit:
                                    glitch_rule=False)
         table = store.load()
         if self.sums is None:
-            self.sums = sums_zero(len(design_labels(candidates, self.settings)))
+            k = len(design_labels(candidates, self.settings))
+            self.sums = {**sums_zero(k), **groups_zero(k)}
         return self._commit_piece(path, meta, table, info, shift, candidates)
 
     def _reset(self) -> None:
@@ -216,7 +219,7 @@ class IncrementalFit:
         jc, jb = design_columns(self.setup, t, candidates, table, sel, self.settings)
         phi = sidereal_angle_rad(self.setup.epoch, t, self.setup.site.east_longitude_rad)
         return {"c": table.C[sel], "b": table.B[sel], "jc": jc, "jb": jb, "phi": phi,
-                "ninv": table.ninv_2[sel]}
+                "ninv": table.ninv_2[sel], "t": t}
 
     def status(self) -> np.ndarray:
         """Stage-1 status of every turn so far, with the glitch rule over all of them."""
@@ -246,6 +249,40 @@ class IncrementalFit:
         self._move(changed, old, new_level)
         self.level, self.size_used = new_level, size
 
+    @property
+    def bootstrap(self) -> bool:
+        """True when the bootstrap groups are kept (``uncertainty`` bootstrap)."""
+        return self.settings.uncertainty == "bootstrap"
+
+    def _first_accepted_t(self, status: np.ndarray) -> float:
+        j = int(np.flatnonzero(status == TurnTable.ACCEPTED)[0])
+        firsts = np.array([p["first_turn"] for p in self.pieces])
+        i = int(np.searchsorted(firsts, j, side="right") - 1)
+        p = self.pieces[i]
+        raw = self.raw[p["first_turn"]:p["first_turn"] + p["n_turns"]]
+        return float(self._rows(i)["t"][np.cumsum(raw == TurnTable.ACCEPTED)[j - p[
+            "first_turn"]] - 1])
+
+    def _check_groups(self, status: np.ndarray) -> None:
+        """Rebuild the bootstrap groups if the first accepted turn is no longer their origin.
+
+        (A glitch-rule change of the first turns: rare; the rebuild reads every piece.)
+        """
+        t0 = self._first_accepted_t(status)
+        if self.sums["grp_t0"][0] == t0:
+            return
+        k = self.sums["grp_g"].shape[-1]
+        self.sums.update(groups_zero(k))
+        self.sums["grp_t0"][0] = t0
+        for i, p in enumerate(self.pieces):
+            lv = self.level[p["first_turn"]:p["first_turn"] + p["n_turns"]]
+            raw = self.raw[p["first_turn"]:p["first_turn"] + p["n_turns"]]
+            lv = lv[raw == TurnTable.ACCEPTED]
+            keep = ~np.isnan(lv)
+            rows = self._rows(i)
+            add_groups(self.sums, {n: v[keep] for n, v in rows.items()}, lv[keep], 1.0,
+                       self.settings.bootstrap_days)
+
     def _move(self, changed: np.ndarray, old: np.ndarray, new: np.ndarray) -> None:
         """Take the changed turns out of the sums with their old level, in with the new one."""
         firsts = np.array([p["first_turn"] for p in self.pieces])
@@ -261,6 +298,12 @@ class IncrementalFit:
                 keep = ~np.isnan(level)
                 sub = {k: v[r[keep]] for k, v in rows.items()}
                 add_contribution(self.sums, sub, level[keep], sign)
+                if self.bootstrap:
+                    try:
+                        add_groups(self.sums, sub, level[keep], sign,
+                                   self.settings.bootstrap_days)
+                    except ValueError:     # a turn before the first: rebuilt in result()
+                        self.sums["grp_t0"][0] = -np.inf
 
     # ------------------------------------------------------------------ result
     def span_days(self) -> float:
@@ -291,6 +334,8 @@ class IncrementalFit:
         wanted = design_labels(free, settings)
         idx = np.array([labels.index(n) for n in wanted])
         status = self.status()
+        if self.bootstrap:
+            self._check_groups(status)
         store = TurnStore(self.demod, status, self.rms)
         p = passes_from_sums(self.sums, idx, len(free), settings, store.median_accepted_rms())
         res = coefficients_from_passes(setup, p, settings, free)

@@ -16,7 +16,11 @@ needs only
   residual RMS at the end);
 * the cross product of the harmonic rows with the design rows (the harmonics the fitted
   coefficients predict, for the B0 / C0 diagnostics);
-* the count of accepted turns per sidereal hour.
+* the count of accepted turns per sidereal hour;
+* for bootstrap uncertainties, the stage-3 Gram matrices and right-hand sides of each block of
+  ``FitSettings.bootstrap_days`` (counted from the first accepted turn, as the whole-record fit
+  counts them), resampled at the end exactly as :func:`fringe.fit.solver.bootstrap_cov` does
+  (same seed, same blocks; their number grows with the campaign, one k x k matrix a day).
 
 The matrices are kept for a superset of the coefficients (the theory's largest default set, or
 ``FitSettings.free``) plus the nuisances (lab_B0, lab_C0, aux_CHANNEL); a fit of fewer free
@@ -36,7 +40,7 @@ enters with the new one, from its stored design rows. The design rows are stored
 Exact, then (to rounding): the coefficients, covariance, chi^2, row scales, harmonics,
 nuisances, efficiency and diagnostics of one fit of all the pieces as one record, provided the
 pieces cut the record at turn boundaries (a turn cut in two is two partial turns). Not
-supported here (one-line error): the bootstrap uncertainty, fixed coefficients, rms_kt (its
+supported here (one-line error): fixed coefficients, rms_kt (its
 offset fit takes a polynomial drift over the whole record) and nonlinear theories (medium).
 """
 
@@ -57,7 +61,7 @@ from fringe.fit.settings import FitSettings, default_free
 from fringe.fit.solver import NormalParts, PairWeights, solve
 
 #: Registry of the uncertainty modes the incremental fit keeps exact (also the CLI's choices).
-INCREMENTAL_UNCERTAINTY_MODES = ("reduced-chi2", "formal")
+INCREMENTAL_UNCERTAINTY_MODES = ("reduced-chi2", "formal", "bootstrap")
 
 #: Span (days) at which the candidate coefficients are taken (the theory's largest default set).
 CANDIDATE_SPAN_DAYS = 1e6
@@ -113,6 +117,51 @@ def add_contribution(sums: dict, rows: dict, level: NDArray, sign: float) -> Non
     sums["n"] += sign * level.size
 
 
+def add_groups(sums: dict, rows: dict, level: NDArray, sign: float, days: float) -> None:
+    """Add (sign +1) or remove (-1) the turns to the bootstrap groups' sums (in place).
+
+    A group is ``days`` of turns counted from ``sums["grp_t0"]`` (the first accepted turn's
+    mean time, s; set by the first call), as :func:`fringe.fit.passes.run_passes` groups them.
+    ``rows`` as :func:`add_contribution`, with ``t`` (m,) the turns' mean times, s.
+    """
+    if not level.size or sums["grp_t0"][0] == -np.inf:      # -inf: to be rebuilt
+        return
+    if np.isnan(sums["grp_t0"][0]):
+        sums["grp_t0"][0] = rows["t"][0]
+    gid = np.floor((rows["t"] - sums["grp_t0"][0]) / (86400.0 * days)).astype(int)
+    if gid.min() < 0:
+        raise ValueError("bootstrap group before the first turn")   # the caller rebuilds
+    need = int(gid.max()) + 1
+    if need > sums["grp_n"].size:
+        extra = need - sums["grp_n"].size
+        for key in ("grp_g", "grp_h", "grp_n"):
+            pad = np.zeros((extra,) + sums[key].shape[1:])
+            sums[key] = np.concatenate([sums[key], pad])
+    w = PairWeights.from_cov(level[:, None, None] ** 2 * rows["ninv"])
+    for g in np.unique(gid):
+        m = gid == g
+        sub = PairWeights(w.p00[m], w.p01[m], w.p11[m])
+        got = _pair_parts(rows["jc"][m], rows["jb"][m], rows["c"][m], rows["b"][m], sub)
+        sums["grp_g"][g] += sign * got[0]
+        sums["grp_h"][g] += sign * got[1]
+        sums["grp_n"][g] += sign * np.count_nonzero(m)
+
+
+def groups_zero(k: int) -> dict[str, NDArray]:
+    """Empty bootstrap-group sums for k design columns."""
+    return {"grp_g": np.zeros((0, 3, k, k)), "grp_h": np.zeros((0, 3, k)),
+            "grp_n": np.zeros(0), "grp_t0": np.full(1, np.nan)}
+
+
+def group_parts(sums: dict, idx: NDArray) -> list[NormalParts]:
+    """The normal-equation parts of each non-empty bootstrap group, columns ``idx``."""
+    out = []
+    for g in np.flatnonzero(np.round(sums["grp_n"]) > 0):
+        gg, hh = sums["grp_g"][g][:, idx][:, :, idx], sums["grp_h"][g][:, idx]
+        out.append(NormalParts(gg[0], gg[1], gg[2], hh[0], hh[1], hh[2]))
+    return out
+
+
 def _parts(sums: dict, key: str, idx: NDArray | None = None) -> NormalParts:
     g, h = sums[f"{key}_g"], sums.get(f"{key}_h", np.zeros(sums[f"{key}_g"].shape[:2]))
     if idx is not None:
@@ -159,6 +208,8 @@ def passes_from_sums(sums: dict, idx: NDArray, k_free: int, settings: FitSetting
                            "by the scatter (use uncertainty formal for noise-free data)")
         out.x, out.cov_formal = solve(*parts.combine(np.sqrt(out.r_c), np.sqrt(out.r_b)))
     out.chi2 = _chi2(parts, sums["des_s"], out.x, np.sqrt(out.r_c), np.sqrt(out.r_b))
+    if settings.uncertainty == "bootstrap":
+        out.group_parts = group_parts(sums, idx)
     h_pred = sums["cross"][:, idx[:k_free]] @ out.x[:k_free]
     harmonics["predicted"] = solve(harm.combine()[0], h_pred)[0].tolist()
     return out

@@ -120,6 +120,18 @@ def test_thirty_days_a_day_at_a_time_equal_one_fit(campaign, tmp_path):
     _same(ref, fit.result("days"))
 
 
+def test_bootstrap_uncertainties_a_day_at_a_time_equal_one_fit(campaign, tmp_path):
+    # the same seed resamples the same day blocks, whose normal equations the watch keeps
+    _, days = campaign
+    settings = FitSettings(uncertainty="bootstrap", n_bootstrap=50)
+    ref, cols = fit_run(str(days[0].parent.parent / "whole.h5"), settings)
+    cols.close()
+    fit = IncrementalFit(tmp_path, settings)
+    for path in days:
+        fit.add_piece(str(path))
+    _same(ref, fit.result("days"))
+
+
 def test_running_median_from_a_start_equals_the_whole_filter():
     rms = np.random.default_rng(4).gamma(40.0, 1.0, 1000)
     whole = noise_level(rms)
