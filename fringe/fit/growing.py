@@ -98,19 +98,24 @@ class IncrementalFit:
             with np.load(self.dir / "state.npz") as z:
                 arrays = {k: z[k] for k in z.files}
         except (OSError, ValueError, KeyError) as exc:
-            raise ConfigError(f"{path}: unreadable watch state ({exc}); use a new --out "
+            raise ConfigError(f"{path}: unreadable watch state ({exc}); use a new state "
                               "directory") from None
-        if doc.get("settings") != json.loads(json.dumps(self._settings_record())):
+        ours = json.loads(json.dumps(self._settings_record()))
+        if doc.get("settings") != ours:
+            theirs = doc.get("settings") or {}
+            diff = sorted(f"{part}.{k}" for part in ours for k in ours[part]
+                          if (theirs.get(part) or {}).get(k) != ours[part][k])
             raise ConfigError(f"{path}: settings: the state was made with other fit settings "
-                              f"({doc.get('settings')}); use a new --out directory")
+                              f"({', '.join(diff) or 'format'} differ); use a new state "
+                              "directory")
         if int(arrays["n_pieces"][0]) != len(doc["pieces"]):
             raise ConfigError(f"{path}: pieces: state.json and state.npz disagree; use a new "
-                              "--out directory")
+                              "state directory")
         self.pieces, self.first = doc["pieces"], doc["first"]
         if not Path(self.first["path"]).exists():
             raise ConfigError(f"{path}: first: the campaign's first piece "
                               f"{self.first['path']} is gone (it defines the site, apparatus "
-                              "and epoch); use a new --out directory")
+                              "and epoch); use a new state directory")
         self.setup, _ = setup_from_run(self.first["path"], self.settings.theory)
         self.raw, self.rms, self.level = arrays["raw"], arrays["rms"], arrays["level"]
         self.size_used = int(arrays["size_used"][0])
