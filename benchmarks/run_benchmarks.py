@@ -21,6 +21,12 @@ ratio against a floor measured in the same run:
   noise-free signal of one chunk, as a ratio of the two timed in the same run (best of five).
 
 ``--orientation-only`` measures the last item alone (no record is written).
+
+``--watch-only`` measures ``fringe watch``'s update: a ``--days``-day record of the benchmark
+scenario (default 30 here) is split into one run file per day and fed to the incremental fit a
+day at a time; it reports each update's time (stage 1 of the day, the re-weighting, the solve;
+no report page), the ratio of the last update to the second, and the largest difference from one
+fit of the whole record in units of sigma.
 """
 
 from __future__ import annotations
@@ -208,15 +214,76 @@ def orientation_share(sc, repeats: int = 5) -> dict:
             "orientation_over_signal": part / sig}
 
 
+def split_by_day(src: Path, outdir: Path, day_s: float = 86400.0) -> list[Path]:
+    """One run file per day of ``src`` (same epoch and metadata)."""
+    from fringe.io.runreader import open_run
+    from fringe.io.runwriter import RunWriter
+
+    outdir.mkdir(parents=True, exist_ok=True)
+    with open_run(src) as run:
+        meta, data = run.to_dict(), run.read_all()
+    t, out = data["time"], []
+    for i, lo in enumerate(np.arange(0.0, t[-1] + 1.0, day_s)):
+        m = (t >= lo) & (t < lo + day_s)
+        path = outdir / f"day{i:03d}.h5"
+        if not path.exists():
+            with RunWriter(path, site=meta["site"], apparatus=meta["apparatus"],
+                           epoch_utc=meta["epoch_utc"], signal_units=meta["signal_units"],
+                           azimuth_units=meta["azimuth_units"]) as w:
+                w.append(t[m], data["azimuth"][m], data["signal"][m])
+        out.append(path)
+    return out
+
+
+def watch_updates(days: float, work: Path) -> dict:
+    """Update times of the incremental fit, a day at a time, and its agreement with one fit."""
+    import shutil
+
+    from fringe.fit.growing import IncrementalFit
+    from fringe.fit.run import fit_run
+    from fringe.fit.settings import FitSettings
+
+    whole = work / f"watch_{days:g}d.h5"
+    if not whole.exists():
+        simulate_in_subprocess(days, whole)
+    files = split_by_day(whole, work / f"watch_{days:g}d_days")
+    state = work / "watch_state"
+    shutil.rmtree(state, ignore_errors=True)
+    state.mkdir()
+    fit = IncrementalFit(state, FitSettings())
+    times = []
+    for path in files:
+        t0 = time.perf_counter()
+        fit.add_piece(str(path))
+        got = fit.result("days")
+        times.append(time.perf_counter() - t0)
+    t0 = time.perf_counter()
+    ref, cols = fit_run(str(whole), FitSettings())
+    whole_s = time.perf_counter() - t0
+    cols.close()
+    dev = max(abs(got.coefficients[n].value - e.value) / e.sigma
+              for n, e in ref.coefficients.items())
+    dsig = max(abs(got.coefficients[n].sigma / e.sigma - 1) for n, e in ref.coefficients.items())
+    return {"update_s": times, "update_last_over_second": times[-1] / times[1],
+            "update_median_s": float(np.median(times[1:])), "whole_fit_s": whole_s,
+            "max_value_difference_sigma": dev, "max_sigma_relative_difference": dsig}
+
+
 def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--days", type=float, default=365.0)
     ap.add_argument("--workdir", default="bench-work")
     ap.add_argument("--skip-memory", action="store_true")
     ap.add_argument("--orientation-only", action="store_true")
+    ap.add_argument("--watch-only", action="store_true")
     args = ap.parse_args()
     work = Path(args.workdir)
     work.mkdir(parents=True, exist_ok=True)
+    if args.watch_only:
+        got = watch_updates(args.days if args.days != 365.0 else 30.0, work)
+        (work / "watch_results.json").write_text(json.dumps(got, indent=2))
+        print(json.dumps(got, indent=2))
+        return
     import tomllib
 
     from fringe.experiment.scenario import scenario_from_dict

@@ -95,28 +95,31 @@ class RecordInfo:
         return int(1.05 * self.n_samples / max(self.samples_per_turn, 1.0)) + 64
 
 
-def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = ()
-           ) -> RecordInfo:
+def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = (), *,
+           run=None) -> RecordInfo:
     """Motion, reference angle, turn period and gap threshold from the start of the record.
 
     The motion is detected from the first samples (:func:`fringe.demodulate.motion
     .detect_motion`); for a motion that reverses, the blocks of the whole record are cut here
-    (the leg rule, one streamed pass over time and azimuth).
+    (the leg rule, one streamed pass over time and azimuth). ``run``: the record already open
+    (a :class:`~fringe.io.runreader.RunFile` of ``path``), else it is opened here.
     """
-    with open_run(path, check_values=False) as run:      # each range checks what it reads
-        n = run.n_samples
-        first = next(run.iter_chunks(min(n, 1 << 16), ("time", "azimuth"), copy=True))
-        for name in aux_channels:
-            if name not in run.aux_channels:
-                raise ConfigError(f"{path}: samples/{name}: no such auxiliary channel "
-                                  f"(have {', '.join(run.aux_channels) or 'none'})")
-        attrs, weighted = run.signal_attrs, run.weighted
-        t, az = first["time"], first["azimuth"]
-        motion = detect_motion(t, az, settings, source=str(path))
-        check_coverage(motion, t, az, settings, source=str(path))
-        period = motion.turn_period_s
-        max_gap = settings.max_gap_s if settings.max_gap_s is not None else 0.25 * period
-        starts = _leg_block_starts(run, max_gap) if motion.reverses else None
+    if run is None:
+        with open_run(path, check_values=False) as own:   # each range checks what it reads
+            return survey(path, settings, aux_channels, run=own)
+    n = run.n_samples
+    first = next(run.iter_chunks(min(n, 1 << 16), ("time", "azimuth"), copy=True))
+    for name in aux_channels:
+        if name not in run.aux_channels:
+            raise ConfigError(f"{path}: samples/{name}: no such auxiliary channel "
+                              f"(have {', '.join(run.aux_channels) or 'none'})")
+    attrs, weighted = run.signal_attrs, run.weighted
+    t, az = first["time"], first["azimuth"]
+    motion = detect_motion(t, az, settings, source=str(path))
+    check_coverage(motion, t, az, settings, source=str(path))
+    period = motion.turn_period_s
+    max_gap = settings.max_gap_s if settings.max_gap_s is not None else 0.25 * period
+    starts = _leg_block_starts(run, max_gap) if motion.reverses else None
     gate = (attrs["gate_s"], attrs["gate_kind"]) if "gate_s" in attrs else None
     theta = np.unwrap(theta_from_azimuth(az))
     dt = np.diff(t)
@@ -329,25 +332,31 @@ def run_stage1(path: str, settings: DemodSettings, *, aux_channels: tuple[str, .
 
 def stage1_store(path: str, settings: DemodSettings, *, aux_channels: tuple[str, ...] = (),
                  engine: str = "local", scheduler=None, range_samples: int = RANGE_SAMPLES,
-                 progress: Callable[[int], None] | None = None, scratch: Scratch | None = None
-                 ) -> tuple[TurnStore, RecordInfo]:
+                 progress: Callable[[int], None] | None = None, scratch: Scratch | None = None,
+                 glitch_rule: bool = True) -> tuple[TurnStore, RecordInfo]:
     """As :func:`run_stage1`, but the table goes to a turn store; returns (store, info).
 
     The store is a :class:`~fringe.demodulate.turn_store.TurnStore`. With a ``scratch``
     directory, a record of more than SEGMENT_TURNS turns is kept in scratch files instead of in
-    memory (:mod:`fringe.demodulate.turn_store`).
+    memory (:mod:`fringe.demodulate.turn_store`). ``glitch_rule`` False leaves the glitch rule
+    to the caller (the incremental fit applies it to the whole campaign).
     """
     if engine not in ENGINES:
         raise ConfigError(f"engine: expected one of {', '.join(ENGINES)}, got {engine!r}")
-    info = survey(path, settings, aux_channels)
-    parts = ranges(info.n_samples, range_samples)
-    builder = SpillingTurnBuilder(settings, info.expected_blocks(), scratch)
-    if engine == "local":
-        _run_local(info, settings, parts, progress, builder.append)
+    if engine == "local":        # one opening of the file for the survey and the ranges
+        with open_run(path, check_values=False) as run:
+            info = survey(path, settings, aux_channels, run=run)
+            parts = ranges(info.n_samples, range_samples)
+            builder = SpillingTurnBuilder(settings, info.expected_blocks(), scratch)
+            _run_local(info, settings, parts, progress, builder.append, run=run)
     else:
+        info = survey(path, settings, aux_channels)
+        parts = ranges(info.n_samples, range_samples)
+        builder = SpillingTurnBuilder(settings, info.expected_blocks(), scratch)
         _run_dask(info, settings, parts, scheduler, builder.append, progress)
     store = builder.finish()
-    store.apply_glitch_rule()
+    if glitch_rule:
+        store.apply_glitch_rule()
     c = store.counts()
     logger.info("stage 1: %d turns accepted of %d (%d partial, %d with a glitch)",
                 c["n_accepted"], c["n_blocks"], c["n_rejected_partial"], c["n_rejected_glitch"])
@@ -358,35 +367,38 @@ def stage1_store(path: str, settings: DemodSettings, *, aux_channels: tuple[str,
 LOCAL_THREADS = min(2, os.cpu_count() or 1)
 
 
-def _run_local(info, settings, parts, progress, collect):
+def _run_local(info, settings, parts, progress, collect, run=None):
     """Run the ranges in order, two at a time in threads.
 
     Each range's table goes to ``collect`` in range order (deterministic) as soon as it and its
-    predecessors are done.
+    predecessors are done. ``run``: the record already open (else opened here).
     """
     from concurrent.futures import ThreadPoolExecutor
 
-    with open_run(info.path, check_values=False) as run:
-        def one(ab):
-            table = demodulate_range(info, settings, *ab, run=run)
-            if progress:
-                progress(ab[1] - ab[0])
-            return table
+    if run is None:
+        with open_run(info.path, check_values=False) as own:
+            return _run_local(info, settings, parts, progress, collect, run=own)
 
-        if LOCAL_THREADS <= 1 or len(parts) < 2:
-            for ab in parts:
-                collect(one(ab))
-            return
-        pool = ThreadPoolExecutor(max_workers=LOCAL_THREADS)
-        try:
-            for table in pool.map(one, parts):
-                collect(table)
-        except BaseException:
-            # a bad range (or an interrupt) stops the rest at once instead of after every
-            # queued range has run
-            pool.shutdown(wait=True, cancel_futures=True)
-            raise
-        pool.shutdown(wait=True)
+    def one(ab):
+        table = demodulate_range(info, settings, *ab, run=run)
+        if progress:
+            progress(ab[1] - ab[0])
+        return table
+
+    if LOCAL_THREADS <= 1 or len(parts) < 2:
+        for ab in parts:
+            collect(one(ab))
+        return
+    pool = ThreadPoolExecutor(max_workers=LOCAL_THREADS)
+    try:
+        for table in pool.map(one, parts):
+            collect(table)
+    except BaseException:
+        # a bad range (or an interrupt) stops the rest at once instead of after every
+        # queued range has run
+        pool.shutdown(wait=True, cancel_futures=True)
+        raise
+    pool.shutdown(wait=True)
 
 
 #: Seconds to wait for a dask scheduler before giving up (dask's own default is 30 s).

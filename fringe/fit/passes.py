@@ -281,7 +281,8 @@ def run_passes(setup, store: TurnStore, settings, free: tuple[str, ...] | None,
         pc, pb = _coefficient_model(r, out.x[:len(free)])
         predicted.add(normal_parts(_harmonic_rows(harmonic_basis(r["phi"]), pc, pb), w, 10))
         del r, provider
-    out.harmonics["predicted"] = solve(*predicted.combine())[0].tolist()
+    if out.harmonics is not None:          # None: stage 2 skipped (too few sidereal phases)
+        out.harmonics["predicted"] = solve(*predicted.combine())[0].tolist()
     return out
 
 

@@ -52,6 +52,8 @@ def setup_from_run(path: str, theory: str, dut1_s: float = 0.0) -> tuple[Setup, 
         meta = run.to_dict()
         site = run.site
         attrs = dict(run.apparatus)
+        if "settings" in meta["extra_groups"]:      # for record_cautions, read while open
+            meta["settings_attrs"] = run.read_group_attrs("settings")
     cls = APPARATUS_KINDS.get(attrs.get("kind"))
     fields = apparatus_fields(cls) if cls else set()
     ignored = sorted(set(attrs) - fields - {"kind"})
@@ -137,8 +139,10 @@ def record_cautions(path: str, setup: Setup, meta: dict) -> list[FitWarning]:
     out = [FitWarning(c.code, c.sentence, c.values) for c in time_span_cautions(
         setup.epoch, float(meta["time_first_s"]), float(meta["time_last_s"]))]
     if "settings" in meta.get("extra_groups", ()):
-        with open_run(path, check_values=False) as run:
-            attrs = run.read_group_attrs("settings")
+        attrs = meta.get("settings_attrs")
+        if attrs is None:
+            with open_run(path, check_values=False) as run:
+                attrs = run.read_group_attrs("settings")
         try:
             noise = json.loads(attrs.get("noise_json", "null"))
         except (TypeError, ValueError):

@@ -107,8 +107,18 @@ def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSe
     row cache that holds each segment's fitted model (``model_c``, ``model_b``).
     """
     store = table if isinstance(table, TurnStore) else TurnStore.in_memory(table)
-    labels = design_labels(free, settings)
     p = run_passes(setup, store, settings, free, scratch, sidereal=sidereal)
+    return p.harmonics, coefficients_from_passes(setup, p, settings, free), p.cache
+
+
+def coefficients_from_passes(setup: Setup, p, settings: FitSettings,
+                             free: tuple[str, ...]) -> CoefficientFit:
+    """The stage-3 result from the sums of the passes (a :class:`~fringe.fit.passes.PassesResult`).
+
+    Shared by :func:`fit_coefficients` and the incremental fit (:mod:`fringe.fit.incremental`),
+    which forms the same sums from accumulated normal equations.
+    """
+    labels = design_labels(free, settings)
     n, kk, x, cov = p.n, len(labels), p.x, p.cov_formal
     dof = max(2 * n - kk, 1)
     red = p.chi2 / dof
@@ -136,11 +146,10 @@ def fit_coefficients(setup: Setup, table: TurnTable | TurnStore, settings: FitSe
                      f"({p.r_c:.3g}, {p.r_b:.3g}): coloured noise")
     nuis = {lab: {"value": float(x[i]), "sigma": float(sig[i])}
             for i, lab in enumerate(labels) if i >= k}
-    res = CoefficientFit(names=list(free), value=x[:k], cov=cov[:k, :k], nuisance=nuis,
-                         chi2_reduced=red, dof=dof, efficiency=eff, model_c=None,
-                         model_b=None, warnings=warns, notes=notes, cov_all=cov,
-                         labels_all=list(labels))
-    return p.harmonics, res, p.cache
+    return CoefficientFit(names=list(free), value=x[:k], cov=cov[:k, :k], nuisance=nuis,
+                          chi2_reduced=red, dof=dof, efficiency=eff, model_c=None,
+                          model_b=None, warnings=warns, notes=notes, cov_all=cov,
+                          labels_all=list(labels))
 
 
 def _small_sample(dof: int, units: str) -> FitWarning:
@@ -170,11 +179,21 @@ def sessions_of(setup: Setup, store: TurnStore) -> Sessions:
 
     Built by :class:`fringe.demodulate.sessions.SessionBuilder`.
     """
+    return session_builder(setup, store).finish()
+
+
+def session_builder(setup: Setup, store: TurnStore) -> SessionBuilder:
+    """The session builder fed every segment of ``store`` (sessions and sidereal phases).
+
+    Its :meth:`~fringe.demodulate.sessions.SessionBuilder.finish` (the sessions' Student-t
+    factors and agreement, which load scipy.stats) is called only when the sessions are
+    reported: too few sidereal phases.
+    """
     lon = setup.site.east_longitude_rad
     builder = SessionBuilder(lambda t: sidereal_angle_rad(setup.epoch, t, lon), setup.units)
     for _, seg in store.segments():
         builder.add(seg)
-    return builder.finish()
+    return builder
 
 
 def _few_phases(sessions: Sessions) -> FitWarning:
@@ -272,8 +291,9 @@ def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettin
     n_acc = int(np.sum(store.accepted))
     if n_acc == 0:
         raise FitError("fit: no accepted turn (see the rejection counts of fringe inspect)")
-    sessions = sessions_of(setup, store)
-    sidereal = sessions.n_sidereal_phases >= MIN_SIDEREAL_PHASES
+    builder = session_builder(setup, store)
+    sidereal = builder.n_sidereal_phases >= MIN_SIDEREAL_PHASES
+    sessions = None if sidereal else builder.finish()
     few = [] if sidereal else [_few_phases(sessions)]
     theory = setup.theory
     if settings.free is not None:
@@ -292,19 +312,29 @@ def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettin
     res.warnings[:0] = few
     if "rms_kt" in free:
         _add_rms_kt(setup, store.load(), settings, res)
+    systematics_checks(setup, harm, res, rotating, settings, n_acc)
+    if not sidereal:
+        res.sessions = sessions
+    return harm, res, free, models
+
+
+def systematics_checks(setup: Setup, harm: dict | None, res: CoefficientFit,
+                       rotating: tuple[str, ...], settings: FitSettings, n_acc: int) -> None:
+    """The B0 / C0 diagnostics and the stage-2 chi^2 warning, added to ``res`` (in place).
+
+    ``harm`` None (stage 2 skipped) adds the note that B0 and C0 were not tested.
+    """
     if harm is not None:
-        _offset_checks(setup, harm, res, _c0_only(setup, rotating) if theory.linear else [])
+        _offset_checks(setup, harm, res,
+                       _c0_only(setup, rotating) if setup.theory.linear else [])
         chi2_warning = harmonics_chi2_warning(harm["chi2_reduced"], n_acc,
                                               settings.uncertainty)
         if chi2_warning is not None:
             res.warnings.append(chi2_warning)
-            warnings.warn(chi2_warning.sentence, SystematicsWarning, stacklevel=2)
+            warnings.warn(chi2_warning.sentence, SystematicsWarning, stacklevel=3)
     else:
         res.notes.append("B0 and C0 not tested for a lab-fixed systematic: stage 2 was skipped "
                          "(too few sidereal phases), so the per-session amplitudes stand alone")
-    if not sidereal:
-        res.sessions = sessions
-    return harm, res, free, models
 
 
 #: Reduced chi^2 of the harmonic fit outside [1/HARMONICS_CHI2_FACTOR, HARMONICS_CHI2_FACTOR]

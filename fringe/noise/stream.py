@@ -31,7 +31,6 @@ from collections.abc import Iterator
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
-from scipy.signal import lfilter
 
 from fringe.errors import ConfigError, check_finite_number
 from fringe.noise.powerlaw import PowerLawNoise
@@ -232,6 +231,8 @@ class NoiseStream:
             out += w[:-1] + self._srw * (0.5 * u1 + u2 / (2.0 * math.sqrt(3.0)))
             self._w = float(w[-1])
             col += 2
+        if self._a.size:
+            from scipy.signal import lfilter  # lazy: scipy.signal costs ~70 MB to import
         for j in range(self._a.size):
             z, zf = lfilter([self._b[j]], [1.0, -self._a[j]], u[:, col + j],
                             zi=self._zi[j:j + 1])
