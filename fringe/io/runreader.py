@@ -475,6 +475,22 @@ class RunFile:
                               check=not self._values_checked, copy=False)
         return next(chunks)
 
+    def samples_sha256(self, start: int = 0, stop: int | None = None) -> str:
+        """SHA-256 identifying samples [start, stop) of every channel (hexadecimal string).
+
+        The digest of the lines ``NAME DIGEST`` (one per channel of :attr:`channels`, in that
+        order), DIGEST being the SHA-256 of the channel's values as read (float64,
+        little-endian; azimuth in radians). Unlike :func:`sha256` of the file's bytes, it stays
+        the same while a writer appends after ``stop`` (the identity ``fringe watch`` records
+        for the part of a growing file it took).
+        """
+        digests = {name: hashlib.sha256() for name in self.channels}
+        for chunk in self.iter_chunks(channels=self.channels, start=start, stop=stop):
+            for name, values in chunk.items():
+                digests[name].update(np.ascontiguousarray(values, "<f8").tobytes())
+        lines = "".join(f"{name} {d.hexdigest()}\n" for name, d in digests.items())
+        return hashlib.sha256(lines.encode()).hexdigest()
+
     def read_group_attrs(self, name: str) -> dict:
         """Attributes of group ``name`` (e.g. ``"truth"``), as a dict.
 
