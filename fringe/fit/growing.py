@@ -428,7 +428,7 @@ class IncrementalFit:
         files = len({p["name"] for p in self.pieces})
         ranges = "" if files == len(self.pieces) else \
             f" in {len(self.pieces)} pieces (sample ranges of files followed while written)"
-        res.notes.append(f"incremental fit of {files} run files{ranges} (fringe watch): "
+        res.notes.append(f"incremental fit of {files} run file(s){ranges} (fringe watch): "
                          "stage 1 per piece, stages 2-3 from accumulated normal equations")
         first, last = self.pieces[0], self.pieces[-1]
         with warnings.catch_warnings():    # recorded as cautions, as fringe fit does
