@@ -21,11 +21,15 @@ def _names(text: str | None) -> tuple[str, ...] | None:
 
 
 def _line(entry: dict) -> str:
+    piece = entry["piece"]
+    if "samples" in entry:                     # a part of a file followed while written
+        a, b = entry["samples"]
+        piece += f" [samples {a}-{b - 1}{', still written' if entry['being_written'] else ''}]"
     if "coefficients" not in entry:
-        return f"{entry['piece']}: {entry['days']:.2f} d so far, no fit yet ({entry['waiting']})"
+        return f"{piece}: {entry['days']:.2f} d so far, no fit yet ({entry['waiting']})"
     best = ", ".join(f"{n} {e['value']:.3g} ± {e['sigma']:.2g}"
                      for n, e in list(entry["coefficients"].items())[:3])
-    return f"{entry['piece']}: {entry['days']:.2f} d, {best}, ..."
+    return f"{piece}: {entry['days']:.2f} d, {best}, ..."
 
 
 @click.command("watch")
