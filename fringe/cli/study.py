@@ -123,7 +123,7 @@ def _write(outputs, study):
               help="dask scheduler file (with --engine dask, instead of "
                    "--scheduler)  [default: none]")
 @click.option("--scratch-dir", default=None, metavar="DIR",
-              help="Where the campaigns' temporary run files live   [default: a hidden "
+              help="Where the campaigns' temporary run files live  [default: a hidden "
                    "folder beside the outputs, removed; on dask workers their temporary "
                    "directory]")
 @click.option("--overwrite", is_flag=True, help="Replace existing outputs.")
