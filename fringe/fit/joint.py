@@ -380,8 +380,8 @@ def fit_joint(paths, settings, demod=None, *, engine: str = "local", scheduler=N
     Each file is fitted as by :func:`fringe.fit.run.fit_run` with the same settings and free
     coefficients, one after another (stage 1 on ``engine``; the turns of a run are released
     before the next run starts), and the runs are combined from their normal equations.
-    Refused before any work: a nonlinear theory, rms_kt free; after a run's fit: a run file
-    given twice (by its SHA-256).
+    Refused before any work: a nonlinear theory, rms_kt free, a run file given twice (by its
+    SHA-256), a regressed channel a run lacks.
 
     Returns
     -------
@@ -403,8 +403,15 @@ def fit_joint(paths, settings, demod=None, *, engine: str = "local", scheduler=N
     if not make_theory(settings.theory).linear:
         raise ConfigError(f"FitSettings.theory {settings.theory!r}: a joint fit needs a linear "
                           "theory (fit each run alone)")
-    setups = []
+    from fringe.io.runreader import sha256
+
+    setups, seen = [], {}
     for p in paths:                      # every file checked before the first long fit
+        digest = sha256(p)
+        if digest in seen:
+            raise ConfigError(f"{p}: the same run file as {seen[digest]} (sha256 "
+                              f"{digest[:12]}...); a run enters a joint fit once")
+        seen[digest] = p
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", TimeScaleWarning)
             setup, meta = setup_from_run(p, settings.theory, dut1_s)
@@ -415,18 +422,13 @@ def fit_joint(paths, settings, demod=None, *, engine: str = "local", scheduler=N
                                   f"{ch!r} (has {', '.join(meta['aux_channels']) or 'none'})")
     free, notes = joint_free(setups, settings)
     run_settings = dataclasses.replace(settings, free=free)
-    parts, seen = [], {}
+    parts = []
     for p in paths:
         result, columns = fit_run(p, run_settings, demod, engine=engine, scheduler=scheduler,
                                   dut1_s=dut1_s, progress=progress,
                                   scratch_dir=scratch_dir or str(Path(p).resolve().parent))
         columns.close()                  # the run's turns and scratch files go now
-        part = run_part(result)
-        if part.sha256 in seen:
-            raise ConfigError(f"{p}: the same run file as {seen[part.sha256]} (sha256 "
-                              f"{part.sha256[:12]}...); a run enters a joint fit once")
-        seen[part.sha256] = p
-        parts.append(part)
+        parts.append(run_part(result))
     return combine_parts(parts, theory=settings.theory, fixed=dict(settings.fixed),
                          method="joint fit", route="schur",
                          settings={"fit": run_settings.to_dict(), "engine": engine,

@@ -317,4 +317,8 @@ def runs_table_lines(runs: Runs) -> list[str]:
     lines.append(f"{'sigma alone':<12}" + "".join(
         f"  {n} " + " / ".join(f"{r.alone[n].sigma:.3g}" for r in runs.runs)
         for n in names if all(n in r.alone for r in runs.runs)))
+    for r in runs.runs:
+        if r.nuisance:
+            lines.append(f"{r.label} nuisances at the joint solution ({r.units}): " + ", ".join(
+                f"{n} {e.value:.4g} ± {e.sigma:.3g}" for n, e in r.nuisance.items()))
     return lines
