@@ -227,8 +227,8 @@ class FitResult:
         if fmt != FORMAT:
             raise f.error("fringe_format", "'fit' (a result of fringe fit)", fmt)
         if isinstance(version, bool) or version not in READABLE_VERSIONS:
-            raise f.error("fringe_format_version",
-                          " or ".join(map(str, READABLE_VERSIONS)), version)
+            raise f.error("fringe_format_version", ", ".join(map(str, READABLE_VERSIONS[:-1]))
+                          + f" or {READABLE_VERSIONS[-1]}", version)
         f.unknown(("fringe_format", "fringe_format_version")
                   + tuple(x.name for x in fields(cls)))
         coefficients = read_estimates(f, "coefficients", nonempty=True)
