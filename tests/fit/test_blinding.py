@@ -118,7 +118,8 @@ def _differing(x: dict, y: dict, rtol: float = 0.0) -> list[str]:
 
 def test_only_the_blinded_fields_depend_on_the_key(two_truths):
     """Two keys on one fit: only the coefficient values (also in the likelihood), the
-    harmonics' values, the key id and the note naming it differ; no number of the file equals an offset or a true value."""
+    harmonics' values, the key id and the note naming it differ; no number of the file equals
+    an offset or a true value."""
     (a, ca), _ = two_truths[0]
     k1 = blind_fit(a, ca, entropy=_entropy("k", 1))
     k2 = blind_fit(a, ca, entropy=_entropy("k", 2))
