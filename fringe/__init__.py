@@ -12,6 +12,7 @@ stays light and loads neither matplotlib nor the fit):
 :func:`load_fit`          read a fit-result file (JSON) back
 :func:`write_report`      the report of a fit: Markdown, LaTeX, HTML, figures, provenance
 :func:`forecast`          Fisher-matrix forecast of a scenario's bounds; days to a target
+:func:`run_study`         many simulated campaigns of a scenario, each fitted: pulls, coverage
 ========================  ===================================================================
 
 The packages below hold the stages of the data path (``DEVELOPERS.md`` draws the map):
@@ -43,7 +44,7 @@ if TYPE_CHECKING:
     from fringe.plan.result import PlanResult
 
 __all__ = ["__version__", "fit_record", "forecast", "load_fit", "load_scenario", "predict",
-           "read_run", "simulate", "write_report"]
+           "read_run", "run_study", "simulate", "write_report"]
 
 PathLike = str | os.PathLike
 
@@ -284,3 +285,65 @@ def forecast(scenario: Scenario | PathLike, *, free: Sequence[str] | None = None
     from fringe.plan.forecast import forecast as _forecast
 
     return _forecast(_scenario(scenario, {}), free=free, targets=targets)
+
+
+def run_study(scenario_path: PathLike, *, campaigns: int = 100, seed: int | None = None,
+          free: Sequence[str] | None = None, theory: str | None = None,
+          mode: str = "coverage", workers: int | None = None, **options) -> dict:
+    """Simulate and fit a scenario's campaign many times: pulls, coverage, σ against the forecast.
+
+    Parameters
+    ----------
+    scenario_path : str or os.PathLike
+        A scenario file (TOML) with a ``[noise]`` section.
+    campaigns : int
+        Campaigns per grid value, each with its own seeds.
+    seed : int, optional
+        Master seed (default: drawn; it is recorded in the result as ``master_seed``).
+    free : sequence of str, optional
+        Free coefficients of every fit (default: the theory's usual set).
+    theory : str, optional
+        Theory of the fits (default: the scenario's).
+    mode : str
+        "coverage" (pulls against the injected truth), "null" or "scramble" (``docs/study.md``).
+    workers : int, optional
+        Local worker processes (default: the CPU count; 1 runs in this process).
+    **options
+        Further fields of :class:`fringe.study.settings.StudySettings` (``inject_sigma``,
+        ``vary``, ``engine``, ``scheduler``, ``scheduler_file``, ``scratch_dir``, ``demod``).
+
+    Notes
+    -----
+    Not called ``study``: that name is the subpackage :mod:`fringe.study`, which replaces the
+    attribute of :mod:`fringe` as soon as it is imported.
+
+    Returns
+    -------
+    dict
+        What ``fringe study`` writes as study.json: per coefficient ``pull_mean``, ``pull_std``,
+        ``coverage_68``, ``coverage_95`` with their binomial uncertainties, the median σ and the
+        forecast σ; and every campaign's seeds and estimates.
+    """
+    from dataclasses import fields
+
+    from fringe.errors import ConfigError
+    from fringe.fit.settings import FitSettings
+    from fringe.study.run import run_study as _run_study
+    from fringe.study.settings import StudySettings
+
+    known = {f.name for f in fields(StudySettings)} - {"campaigns", "seed", "mode", "workers",
+                                                        "fit"}
+    unknown = sorted(set(options) - known)
+    if unknown:
+        raise ConfigError(f"run_study: unknown option {unknown[0]!r}; known: "
+                          f"{', '.join(sorted(known))}")
+    fit = None
+    if free is not None or theory is not None:
+        if theory is None:
+            from fringe.experiment.scenario import load_scenario
+
+            theory = load_scenario(scenario_path).theory.name
+        fit = FitSettings(theory=theory, free=tuple(free) if free is not None else None)
+    settings = StudySettings(campaigns=campaigns, seed=seed, fit=fit, mode=mode,
+                             workers=workers, **options)
+    return _run_study(scenario_path, settings)

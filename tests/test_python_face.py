@@ -14,7 +14,7 @@ ROOT = Path(__file__).resolve().parents[1]
 
 def test_the_face_lists_the_whole_job():
     for name in ("load_scenario", "predict", "simulate", "read_run", "fit_record", "load_fit",
-                 "write_report", "forecast"):
+                 "write_report", "forecast", "run_study"):
         func = getattr(fringe, name)
         assert callable(func) and func.__doc__ and "Parameters" in func.__doc__, name
     assert set(fringe.__all__) >= {"fit_record", "forecast", "__version__"}
@@ -42,3 +42,17 @@ def test_python_md_session_runs(tmp_path, monkeypatch, capsys):
     assert result.theory == "sme"
     assert (tmp_path / "session" / "fit.json").is_file()
     assert (tmp_path / "session" / "report" / "report.md").is_file()
+
+
+def test_study_runs_campaigns_and_refuses_an_unknown_option(tmp_path):
+    from fringe.errors import ConfigError
+    from tests.study.test_study import FREE, SCENARIO
+
+    path = tmp_path / "study.toml"
+    path.write_text(SCENARIO, encoding="utf-8")
+    with pytest.raises(ConfigError, match="unknown option 'inject_sigmaa'"):
+        fringe.run_study(path, inject_sigmaa=1.0)
+    result = fringe.run_study(path, campaigns=2, seed=5, free=FREE, workers=1)
+    assert result["master_seed"] == 5 and result["fit"]["free"] == list(FREE)
+    assert result["rows"][0]["n_campaigns"] == 2
+    assert set(result["rows"][0]["coefficients"]) == set(FREE)

@@ -101,35 +101,43 @@ def _run_steps(scenario_text: str, seed: int, t0: float) -> None:
 
     write_text_atomic("scenario.toml", scenario_text)
     sc = load_scenario("scenario.toml")
-    click.echo(f"[1/5] simulate {sc.duration_s / 86400:.0f} days at "
-               f"{sc.sample_interval_s:g} s, seed {seed}: {sc.title}")
+    _heading(f"[1/5] simulate {sc.duration_s / 86400:.0f} days at "
+             f"{sc.sample_interval_s:g} s, seed {seed}: {sc.title}")
     with progress(sc.n_samples, "simulate") as bar:
         info = simulate(sc, "run.h5", seed=seed, progress=bar.update)
-    click.echo(f"      {info['n_samples']} samples, {info['n_gaps']} gaps, "
-               f"{info['n_glitches']} glitches ({time.time() - t0:.1f} s)")
+    _heading(f"      {info['n_samples']} samples, {info['n_gaps']} gaps, "
+             f"{info['n_glitches']} glitches ({time.time() - t0:.1f} s)")
 
-    click.echo("[2/5] inspect")
+    _heading("[2/5] inspect")
     _inspect_step("run.h5")
 
     from fringe.cli.fit import significance_lines
 
-    click.echo(f"[3/5] fit (theory {sc.theory.name}, the scenario's; free ke_*)")
+    _heading(f"[3/5] fit (theory {sc.theory.name}, the scenario's; free ke_*)")
     result = _fit_step("run.h5", "fit.json", sc.theory.name, info["n_samples"])
     click.echo(result.summary())
     for line in significance_lines(result):
         click.echo(line)
     click.echo("      injected: " + ", ".join(f"{k}={v:.3g}" for k, v in sc.coefficients.items()))
 
-    click.echo("[4/5] report")
+    _heading("[4/5] report")
     with step("report: tables, figures and pages"):
         build_report("fit.json", "report")
 
-    click.echo("[5/5] plan (forecast for this scenario; days to reach 1e-18 on ke_XY)")
+    _heading("[5/5] plan (forecast for this scenario; days to reach 1e-18 on ke_XY)")
     with step("plan: Fisher forecast"):
         plan = forecast(sc, targets={"ke_XY": 1e-18})
     write_json_atomic("plan.json", plan.to_dict())
     write_text_atomic("plan.txt", plan.summary() + "\n")
     click.echo(plan.summary())
+
+
+def _heading(line: str) -> None:
+    """A step's heading on stdout, unless -q was given (only results, warnings and errors)."""
+    from fringe.cli.common import quiet
+
+    if not quiet():
+        click.echo(line)
 
 
 def _inspect_step(run_path: str) -> None:

@@ -16,9 +16,10 @@ def command():
 @click.argument("file")
 @run_guarded
 def check(file):
-    """Validate FILE, a scenario or the metadata of ``fringe import`` (told apart by sections).
+    """Validate FILE: a scenario, the metadata of ``fringe import``, or a systematic budget.
 
-    Prints one line, "FILE: valid scenario (...)" or "FILE: valid import metadata (...)", and
+    The kinds are told apart by their sections. Prints one line, "FILE: valid scenario (...)",
+    "FILE: valid import metadata (...)" or "FILE: valid systematic budget (...)", and
     exits 0; or prints the one-line error and exits 2. Nothing is simulated or written.
     """
     from fringe.plan.file_check import check_input_file

@@ -77,45 +77,55 @@ def _write(outputs, study):
 @click.argument("scenario")
 @click.option("--campaigns", type=int, default=100, show_default=True,
               help="Campaigns per grid value, each with its own seeds.")
-@click.option("--out", "out", default="fringe-study", show_default=True,
+@click.option("--out", "out", default="fringe-study", show_default=True, metavar="DIR",
               help="Directory for study.json, study.md, study.html and the figures.")
 @click.option("--seed", type=click.IntRange(0), default=None,
-              help="Master seed (default: drawn, and recorded in study.json).")
+              help="Master seed  [default: drawn, and recorded in study.json]")
 @click.option("--mode", type=RegistryChoice("fringe.study.settings", "STUDY_MODES"),
               default="coverage", show_default=True,
               help="coverage: pulls against the truth; null: nothing injected; scramble: "
                    "whole turns permuted in time before the fit.")
 @click.option("--inject-sigma", type=float, default=None, metavar="K",
-              help="Draw each free coefficient from N(0, (K x forecast sigma)^2) per campaign.")
+              help="Draw each free coefficient from N(0, (K x forecast sigma)^2) per campaign  "
+                   "[default: none injected]")
 @click.option("--vary", default=None, metavar="FIELD=V1,V2,...",
-              help="One scenario field over a grid: period_s, latitude_deg or duration_days.")
+              help="One scenario field over a grid: period_s, latitude_deg or duration_days  "
+                   "[default: none]")
 @click.option("--theory", type=RegistryChoice("fringe.theories", "THEORIES"), default=None,
-              help="Theory of the fit (default: the scenario's).")
+              help="Theory of the fit  [default: the scenario's]")
 @click.option("--free", default=None, metavar="NAMES",
-              help="Comma-separated free coefficients (default: the theory's usual set).")
+              help="Comma-separated free coefficients  [default: the theory's usual set]")
 @click.option("--fix", "fixes", multiple=True, metavar="NAME=VALUE",
-              help="Hold a coefficient at a value in every fit (repeatable).")
+              help="Hold a coefficient at a value in every fit (dimensionless; "
+                   "repeatable)  [default: none]")
 @click.option("--uncertainty", type=RegistryChoice("fringe.fit.settings", "UNCERTAINTY_MODES"),
-              default="reduced-chi2", show_default=True)
-@click.option("--bootstrap-days", type=float, default=1.0, show_default=True)
+              default="reduced-chi2", show_default=True,
+              help="How the coefficient uncertainties are scaled.")
+@click.option("--bootstrap-days", type=float, default=1.0, show_default=True,
+              help="Block length of the bootstrap, days (with --uncertainty bootstrap).")
 @click.option("--drift", type=RegistryChoice("fringe.demodulate.settings", "DRIFT_TERMS"),
               default="linear", show_default=True, help="Per-turn drift polynomial.")
-@click.option("--max-harmonic", type=click.IntRange(2, 4), default=2, show_default=True)
-@click.option("--min-samples", type=click.IntRange(3), default=12, show_default=True)
+@click.option("--max-harmonic", type=click.IntRange(2, 4), default=2, show_default=True,
+              help="Highest harmonic of the rotation angle fitted per turn.")
+@click.option("--min-samples", type=click.IntRange(3), default=12, show_default=True,
+              help="Fewest samples a turn needs to be fitted.")
 @click.option("--no-lab-b0", is_flag=True, help="Do not fit a constant B offset.")
 @click.option("--lab-c0", is_flag=True, help="Fit a constant C offset (needs ke_ZZ fixed).")
 @click.option("--engine", type=RegistryChoice("fringe.study.settings", "STUDY_ENGINES"),
               default="local", show_default=True,
-              help="local: this machine (--workers processes); dask: one task per campaign.")
+              help="local: this machine (--workers processes); dask: one task per campaign  "
+                   "[default: none injected]")
 @click.option("--workers", type=click.IntRange(1), default=None,
-              help="Local processes (default: the CPU count).")
+              help="Local processes  [default: the CPU count]")
 @click.option("--scheduler", default=None, metavar="ADDRESS",
-              help="dask scheduler address (with --engine dask).")
+              help="dask scheduler address (with --engine dask)  [default: a local cluster]")
 @click.option("--scheduler-file", default=None, metavar="FILE",
-              help="dask scheduler file (with --engine dask, instead of --scheduler).")
+              help="dask scheduler file (with --engine dask, instead of "
+                   "--scheduler)  [default: none]")
 @click.option("--scratch-dir", default=None, metavar="DIR",
-              help="Where the campaigns' temporary run files live (default: a hidden folder "
-                   "beside the outputs, removed; on dask workers their temporary directory).")
+              help="Where the campaigns' temporary run files live   [default: a hidden "
+                   "folder beside the outputs, removed; on dask workers their temporary "
+                   "directory]")
 @click.option("--overwrite", is_flag=True, help="Replace existing outputs.")
 @run_guarded
 def command(scenario, campaigns, out, seed, mode, inject_sigma, vary, theory, free, fixes,

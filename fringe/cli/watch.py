@@ -21,39 +21,45 @@ def _names(text: str | None) -> tuple[str, ...] | None:
 
 
 def _line(entry: dict) -> str:
+    piece = entry["piece"]
+    if "samples" in entry:                     # a part of a file followed while written
+        a, b = entry["samples"]
+        piece += f" [samples {a}-{b - 1}{', still written' if entry['being_written'] else ''}]"
     if "coefficients" not in entry:
-        return f"{entry['piece']}: {entry['days']:.2f} d so far, no fit yet ({entry['waiting']})"
+        return f"{piece}: {entry['days']:.2f} d so far, no fit yet ({entry['waiting']})"
     best = ", ".join(f"{n} {e['value']:.3g} ± {e['sigma']:.2g}"
                      for n, e in list(entry["coefficients"].items())[:3])
-    return f"{entry['piece']}: {entry['days']:.2f} d, {best}, ..."
+    return f"{piece}: {entry['days']:.2f} d, {best}, ..."
 
 
 @click.command("watch")
 @click.argument("folder")
-@click.option("--out", "out_dir", required=True,
+@click.option("--out", "out_dir", required=True, metavar="DIR",
               help="Directory for fit.json, report/, history.json, history.png and state/.")
 @click.option("--theory", type=RegistryChoice("fringe.theories", "THEORIES"), default="sme",
-              show_default=True)
+              show_default=True, help="Theory whose coefficients are fitted.")
 @click.option("--free", "free", default=None, metavar="NAMES",
-              help="Comma-separated free coefficients (default: the theory's usual set for "
-                   "the span so far).")
+              help="Comma-separated free coefficients   [default: the theory's usual set "
+                   "for the span so far]")
 @click.option("--uncertainty",
               type=RegistryChoice("fringe.fit.incremental", "INCREMENTAL_UNCERTAINTY_MODES"),
-              default="reduced-chi2", show_default=True)
+              default="reduced-chi2", show_default=True,
+              help="How the coefficient uncertainties are scaled.")
 @click.option("--bootstrap-days", type=float, default=1.0, show_default=True,
               help="Length of the resampled blocks of turns (with --uncertainty bootstrap).")
 @click.option("--regress", multiple=True, metavar="CHANNEL",
-              help="Regress out the 2-theta part of an auxiliary channel (repeatable).")
+              help="Regress out the 2-theta part of an auxiliary channel "
+                   "(repeatable)  [default: none]")
 @click.option("--no-lab-b0", is_flag=True, help="Do not fit a constant B offset.")
 @click.option("--plan", "plan_path", default=None, metavar="SCENARIO",
               help="Scenario with a [noise] section: its forecast sigma goes beside the "
-                   "history.")
+                   "history  [default: none]")
 @click.option("--no-report", is_flag=True, help="Do not rewrite the report page.")
 @click.option("--once", is_flag=True, help="Process what is there and exit.")
 @click.option("--interval", type=click.FloatRange(min=0.0), default=60.0, show_default=True,
               help="Seconds between looks at the folder.")
 @click.option("--stop-after", type=click.IntRange(min=1), default=None, metavar="N",
-              help="Exit after N new pieces.")
+              help="Exit after N new pieces  [default: never]")
 @run_guarded
 def command(folder, out_dir, theory, free, uncertainty, bootstrap_days, regress, no_lab_b0,
             plan_path, no_report, once, interval, stop_after):

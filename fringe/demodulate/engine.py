@@ -44,6 +44,10 @@ RANGE_SAMPLES = 1 << 17
 #: no time gap would otherwise make one block of the rest of the record, all of it in memory.
 MAX_BLOCK_SAMPLES = 1 << 21
 
+#: Samples at the start of a record that the survey reads (motion, turn period, reference
+#: angle): a record's stage 1 depends on its first SURVEY_SAMPLES samples and the blocks' own.
+SURVEY_SAMPLES = 1 << 16
+
 #: Registry of the engines of stage 1 (also the CLI's choices).
 ENGINES = ("local", "dask")
 
@@ -108,7 +112,7 @@ def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = (
         with open_run(path, check_values=False) as own:   # each range checks what it reads
             return survey(path, settings, aux_channels, run=own)
     n = run.n_samples
-    first = next(run.iter_chunks(min(n, 1 << 16), ("time", "azimuth"), copy=True))
+    first = next(run.iter_chunks(min(n, SURVEY_SAMPLES), ("time", "azimuth"), copy=True))
     for name in aux_channels:
         if name not in run.aux_channels:
             raise ConfigError(f"{path}: samples/{name}: no such auxiliary channel "
@@ -272,6 +276,30 @@ def _crossing_blocks(info: RecordInfo, start: int, stop: int, run, channels):
     return {c: v[first:end] for c, v in data.items()}, inside - first, before, beyond
 
 
+def last_turn_start(info: RecordInfo, run, start: int, stop: int) -> int | None:
+    """The last block start of the crossing rule in (start, stop), or None if there is none.
+
+    The blocks starting in [start, that index) end before it, so they are whole whatever
+    follows ``stop``: what :class:`fringe.fit.growing.IncrementalFit` takes of a file still
+    being written. A block start depends only on a sample and the one before it, so the search
+    reads back from ``stop`` about four turns at a time. Only for records without listed blocks
+    (``info.block_starts`` None).
+    """
+    width = info.lookahead_samples
+    pos = stop
+    while pos > start + 1:
+        lo = max(start, pos - width)
+        data = _read(run, lo, pos, ("time", "azimuth"))
+        t, th = data["time"], np.pi - data["azimuth"]
+        bnd = turn_boundaries(th[1:], info.theta0_rad, t[1:], info.max_gap_s,
+                              theta_prev=th[0], t_prev=t[0])
+        hit = np.flatnonzero(bnd)
+        if hit.size:
+            return lo + 1 + int(hit[-1])
+        pos = lo + 1
+    return None
+
+
 def demodulate_range(info: RecordInfo, settings: DemodSettings, start: int, stop: int,
                      run=None) -> TurnTable:
     """Stage 1 on the blocks starting in samples [start, stop) of ``info.path``.
@@ -333,25 +361,36 @@ def run_stage1(path: str, settings: DemodSettings, *, aux_channels: tuple[str, .
 def stage1_store(path: str, settings: DemodSettings, *, aux_channels: tuple[str, ...] = (),
                  engine: str = "local", scheduler=None, range_samples: int = RANGE_SAMPLES,
                  progress: Callable[[int], None] | None = None, scratch: Scratch | None = None,
-                 glitch_rule: bool = True) -> tuple[TurnStore, RecordInfo]:
+                 glitch_rule: bool = True, run=None, start: int = 0, stop: int | None = None
+                 ) -> tuple[TurnStore, RecordInfo]:
     """As :func:`run_stage1`, but the table goes to a turn store; returns (store, info).
 
     The store is a :class:`~fringe.demodulate.turn_store.TurnStore`. With a ``scratch``
     directory, a record of more than SEGMENT_TURNS turns is kept in scratch files instead of in
     memory (:mod:`fringe.demodulate.turn_store`). ``glitch_rule`` False leaves the glitch rule
     to the caller (the incremental fit applies it to the whole campaign).
+
+    ``run`` (local engine): the record already open (:func:`fringe.io.runreader.open_run`, e.g.
+    the flushed part of a file still being written), left open. ``start``, ``stop``: only the
+    blocks that start in samples [start, stop) (default: all); the survey still reads the
+    record's start, so the blocks are those of the whole record's stage 1 in that range.
     """
     if engine not in ENGINES:
         raise ConfigError(f"engine: expected one of {', '.join(ENGINES)}, got {engine!r}")
-    if engine == "local":        # one opening of the file for the survey and the ranges
-        with open_run(path, check_values=False) as run:
-            info = survey(path, settings, aux_channels, run=run)
-            parts = ranges(info.n_samples, range_samples)
-            builder = SpillingTurnBuilder(settings, info.expected_blocks(), scratch)
-            _run_local(info, settings, parts, progress, builder.append, run=run)
+    if engine == "local" and run is None:   # one opening for the survey and the ranges
+        with open_run(path, check_values=False) as own:
+            return stage1_store(path, settings, aux_channels=aux_channels,
+                                range_samples=range_samples, progress=progress,
+                                scratch=scratch, glitch_rule=glitch_rule, run=own,
+                                start=start, stop=stop)
+    if engine == "local":
+        info = survey(path, settings, aux_channels, run=run)
+        parts = _sub_ranges(info.n_samples, range_samples, start, stop)
+        builder = SpillingTurnBuilder(settings, info.expected_blocks(), scratch)
+        _run_local(info, settings, parts, progress, builder.append, run=run)
     else:
         info = survey(path, settings, aux_channels)
-        parts = ranges(info.n_samples, range_samples)
+        parts = _sub_ranges(info.n_samples, range_samples, start, stop)
         builder = SpillingTurnBuilder(settings, info.expected_blocks(), scratch)
         _run_dask(info, settings, parts, scheduler, builder.append, progress)
     store = builder.finish()
@@ -361,6 +400,17 @@ def stage1_store(path: str, settings: DemodSettings, *, aux_channels: tuple[str,
     logger.info("stage 1: %d turns accepted of %d (%d partial, %d with a glitch)",
                 c["n_accepted"], c["n_blocks"], c["n_rejected_partial"], c["n_rejected_glitch"])
     return store, info
+
+
+def _sub_ranges(n_samples: int, range_samples: int, start: int, stop: int | None):
+    """:func:`ranges` of samples [start, stop) (stop None: the end); checked."""
+    stop = n_samples if stop is None else stop
+    if not 0 <= start < stop <= n_samples:
+        raise ConfigError(f"start, stop: expected 0 <= start < stop <= {n_samples}, got "
+                          f"{start}, {stop}")
+    if start == 0 and stop == n_samples:
+        return ranges(n_samples, range_samples)
+    return [(a, min(a + range_samples, stop)) for a in range(start, stop, range_samples)]
 
 
 #: Threads of the local engine (numpy and HDF5 reads release the GIL for the heavy parts).

@@ -11,6 +11,14 @@ far. The state lives in a directory:
   entered the sums with (17 bytes a turn);
 * ``rows-NNNNN.npz`` — the design rows of each piece's turns, written once.
 
+A piece is a sample range [start, stop) of a run file: a whole finished file, or the whole
+turns that a writer holding the file in SWMR mode has flushed so far
+(:class:`fringe.io.livewriter.LiveRunWriter`). The pieces of one such file follow each other;
+the last is taken once the writer has closed it. Stage 1 of a range is the whole record's stage
+1 there (the survey reads the file's first :data:`~fringe.demodulate.engine.SURVEY_SAMPLES`
+samples, so a file being written is followed once that many are flushed), and a range ends
+where a turn starts, so no turn is ever cut in two.
+
 ``state.json`` and ``state.npz`` are replaced together at the end of each update (each written
 whole under a temporary name and renamed; the piece count in both must agree), so a watch
 stopped at any point continues from the last complete update.
@@ -25,7 +33,7 @@ from pathlib import Path
 
 import numpy as np
 
-from fringe.demodulate.engine import stage1_store
+from fringe.demodulate.engine import SURVEY_SAMPLES, last_turn_start, stage1_store, survey
 from fringe.demodulate.sessions import MIN_SIDEREAL_PHASES
 from fringe.demodulate.settings import DemodSettings
 from fringe.demodulate.turn_store import TurnStore
@@ -46,10 +54,14 @@ from fringe.fit.passes import design_columns, design_labels
 from fringe.fit.settings import FitSettings, default_free
 from fringe.frames import sidereal_angle_rad, time_span_cautions
 from fringe.io.atomic import signals_deferred, write_atomic, write_json_atomic
-from fringe.io.runreader import sha256
+from fringe.io.runreader import open_run, sha256
 
-STATE_VERSION = 1
+STATE_VERSION = 2      # 2: pieces are sample ranges (start, stop, complete); 1 still read
 _ROW_NAMES = ("c", "b", "jc", "jb", "phi", "ninv", "t")
+
+
+class StillWritten(Exception):  # noqa: N818 - a state, not a failure
+    """A file a writer still holds has nothing new to take yet (the message says why)."""
 
 
 def _save_npz(path: Path, arrays: dict) -> None:
@@ -116,7 +128,8 @@ class IncrementalFit:
             raise ConfigError(f"{path}: first: the campaign's first piece "
                               f"{self.first['path']} is gone (it defines the site, apparatus "
                               "and epoch); use a new state directory")
-        self.setup, _ = setup_from_run(self.first["path"], self.settings.theory)
+        self.setup, _ = setup_from_run(self.first["path"], self.settings.theory,
+                                       while_written=True)
         self.raw, self.rms, self.level = arrays["raw"], arrays["rms"], arrays["level"]
         self.size_used = int(arrays["size_used"][0])
         self.sums = {k[5:]: v for k, v in arrays.items() if k.startswith("sums_")}
@@ -140,8 +153,13 @@ class IncrementalFit:
 
     # ------------------------------------------------------------------ pieces
     def known(self, name: str) -> bool:
-        """True when a piece of this file name was added."""
-        return any(p["name"] == name for p in self.pieces)
+        """True when the whole file of this name is in the fit (its last piece taken)."""
+        return any(p["name"] == name and p.get("complete", True) for p in self.pieces)
+
+    def consumed(self, name: str) -> int:
+        """Samples of the file of this name already in the fit (0: none)."""
+        mine = [p for p in self.pieces if p["name"] == name]
+        return int(mine[-1].get("stop", mine[-1]["n_samples"])) if mine else 0
 
     def _check_piece(self, path: str, meta: dict) -> float:
         """The piece's time offset to the first piece's epoch, s; FitError if it does not fit."""
@@ -156,9 +174,18 @@ class IncrementalFit:
         return shift
 
     def add_piece(self, path: str) -> dict:
-        """Stage 1 on one new run file and the exact update of the sums; returns its entry.
+        """Stage 1 on the new part of a run file and the exact update of the sums; its entry.
 
-        On any error (the file, or an interrupt) the fit is back at its last saved state.
+        The new part is the whole file, or for a file that a writer still holds in SWMR mode,
+        its flushed whole turns after the samples already taken (then the entry's
+        ``complete`` is False and the file is offered again later). On any error (the file, or
+        an interrupt) the fit is back at its last saved state.
+
+        Raises
+        ------
+        StillWritten
+            The file is being written and has no new whole turn yet (or fewer than
+            SURVEY_SAMPLES flushed samples, or a motion whose blocks need the whole record).
         """
         try:
             return self._add_piece(path)
@@ -169,24 +196,72 @@ class IncrementalFit:
     def _add_piece(self, path: str) -> dict:
         from fringe.fit.run import setup_from_run
 
-        setup, meta = setup_from_run(path, self.settings.theory)
+        setup, meta = setup_from_run(path, self.settings.theory, while_written=True)
         if self.first is None:
             self.setup = setup
             self.first = {"name": Path(path).name, "path": str(path),
                           **{k: meta[k] for k in ("site", "apparatus", "signal_units",
                                                   "epoch_utc")}}
-        shift = self._check_piece(path, meta)
         candidates = check_settings(self.setup, self.settings)
         for ch in self.settings.regress:
             if ch not in meta["aux_channels"]:
                 raise FitError(f"{path}: samples/{ch}: no such auxiliary channel (regress)")
-        store, info = stage1_store(path, self.demod, aux_channels=tuple(self.settings.regress),
-                                   glitch_rule=False)
+        aux = tuple(self.settings.regress)
+        with open_run(path, check_values=False, while_written=True) as run:
+            start, stop = self._new_range(path, run, aux)
+            shift = self._check_piece(path, {**meta, "time_first_s": _time_at(run, start)})
+            store, info = stage1_store(path, self.demod, aux_channels=aux, glitch_rule=False,
+                                       run=run, start=start, stop=stop)
+            partial = run.being_written or start > 0
+            part = {"start": start, "stop": stop, "complete": not run.being_written,
+                    "being_written": run.being_written,
+                    "file_time_first_s": run.time_first_s,
+                    "time_first_s": _time_at(run, start), "time_last_s": _time_at(run, stop - 1),
+                    "sha256": run.samples_sha256(start, stop) if partial else None,
+                    "sha256_of": "samples" if partial else "file"}
+        if part["sha256"] is None:
+            part["sha256"] = sha256(path)
+        elif part["complete"]:          # the rest of a followed file: also its final bytes
+            part["file_sha256"] = sha256(path)
         table = store.load()
         if self.sums is None:
             k = len(design_labels(candidates, self.settings))
             self.sums = {**sums_zero(k), **groups_zero(k)}
-        return self._commit_piece(path, meta, table, info, shift, candidates)
+        return self._commit_piece(path, {**meta, **part}, table, info, shift, candidates)
+
+    def _new_range(self, path: str, run, aux: tuple[str, ...]) -> tuple[int, int]:
+        """Samples [start, stop) of ``run`` not yet in the fit, cut at a turn while written."""
+        name = Path(path).name
+        start = self.consumed(name)
+        if start:
+            self._check_same_file(path, run, start)
+        if not run.being_written:
+            return start, run.n_samples
+        n = run.n_samples
+        if n < SURVEY_SAMPLES:
+            raise StillWritten(f"being written: {n} samples flushed; followed from "
+                               f"{SURVEY_SAMPLES} on (stage 1 surveys the first "
+                               f"{SURVEY_SAMPLES})")
+        info = survey(path, self.demod, aux, run=run)
+        if info.block_starts is not None:
+            raise StillWritten("being written: its motion reverses, and its blocks are cut "
+                               "over the whole record: taken whole once the writer closes it")
+        stop = last_turn_start(info, run, start, n)
+        if stop is None:
+            raise StillWritten(f"being written: {n} samples flushed, no whole turn after "
+                               f"sample {start} yet")
+        return start, stop
+
+    def _check_same_file(self, path: str, run, start: int) -> None:
+        """FitError unless ``run`` is the file whose samples [0, start) are in the fit."""
+        last = [p for p in self.pieces if p["name"] == Path(path).name][-1]
+        ok = (run.n_samples > start and run.epoch_utc == last.get("epoch_utc")
+              and run.time_first_s == last.get("file_time_first_s")
+              and _time_at(run, start - 1) + last["shift_s"] == last["time_last_s"])
+        if not ok:
+            raise FitError(f"{path}: samples: not the file whose samples 0-{start - 1} are "
+                           f"in the fit (epoch, first time or time at sample {start - 1} "
+                           "differ, or it is shorter now); pieces of a file must continue it")
 
     def _reset(self) -> None:
         """Forget what is in memory and read the last saved state (or start empty)."""
@@ -201,8 +276,13 @@ class IncrementalFit:
         i = len(self.pieces)
         rows = self._piece_rows(table, shift, candidates)
         _save_npz(self.dir / f"rows-{i:05d}.npz", rows)
-        entry = {"name": Path(path).name, "path": str(path), "sha256": sha256(path),
-                 "n_samples": int(meta["n_samples"]), "shift_s": shift,
+        entry = {"name": Path(path).name, "path": str(path), "sha256": meta["sha256"],
+                 "sha256_of": meta["sha256_of"],
+                 **({"file_sha256": meta["file_sha256"]} if "file_sha256" in meta else {}),
+                 "start": meta["start"], "stop": meta["stop"], "complete": meta["complete"],
+                 "being_written": meta["being_written"], "epoch_utc": meta["epoch_utc"],
+                 "file_time_first_s": meta["file_time_first_s"],
+                 "n_samples": int(meta["stop"] - meta["start"]), "shift_s": shift,
                  "time_first_s": float(meta["time_first_s"]) + shift,
                  "time_last_s": float(meta["time_last_s"]) + shift,
                  "first_turn": int(self.raw.size), "n_turns": int(table.n_blocks),
@@ -345,8 +425,11 @@ class IncrementalFit:
         p = passes_from_sums(self.sums, idx, len(free), settings, store.median_accepted_rms())
         res = coefficients_from_passes(setup, p, settings, free)
         systematics_checks(setup, p.harmonics, res, free, settings, int(np.sum(store.accepted)))
-        res.notes.append(f"incremental fit of {len(self.pieces)} run files (fringe watch): "
-                         "stage 1 per file, stages 2-3 from accumulated normal equations")
+        files = len({p["name"] for p in self.pieces})
+        ranges = "" if files == len(self.pieces) else \
+            f" in {len(self.pieces)} pieces (sample ranges of files followed while written)"
+        res.notes.append(f"incremental fit of {files} run file(s){ranges} (fringe watch): "
+                         "stage 1 per piece, stages 2-3 from accumulated normal equations")
         first, last = self.pieces[0], self.pieces[-1]
         with warnings.catch_warnings():    # recorded as cautions, as fringe fit does
             warnings.simplefilter("ignore", TimeScaleWarning)
@@ -370,3 +453,8 @@ class IncrementalFit:
         span_s = last["time_last_s"] - first["time_first_s"]
         return _package(source, setup, meta, settings, self.demod, info, store, harm, res,
                         span_s, digest, "local", 0.0, None)
+
+
+def _time_at(run, i: int) -> float:
+    """samples/time at sample ``i`` of an open run file (s since its epoch)."""
+    return float(next(run.iter_chunks(1, ("time",), start=i, stop=i + 1))["time"][0])

@@ -46,9 +46,14 @@ from fringe.version import software_versions
 logger = logging.getLogger(__name__)
 
 
-def setup_from_run(path: str, theory: str, dut1_s: float = 0.0) -> tuple[Setup, dict]:
-    """Build the Setup (site, epoch, apparatus, theory, units) from a run file's metadata."""
-    with open_run(path, check_values=False) as run:
+def setup_from_run(path: str, theory: str, dut1_s: float = 0.0, *,
+                   while_written: bool = False) -> tuple[Setup, dict]:
+    """Build the Setup (site, epoch, apparatus, theory, units) from a run file's metadata.
+
+    ``while_written``: also from a file a writer still holds (:func:`fringe.io.runreader
+    .open_run`); the metadata's sample counts and times are then those of its flushed part.
+    """
+    with open_run(path, check_values=False, while_written=while_written) as run:
         meta = run.to_dict()
         site = run.site
         attrs = dict(run.apparatus)

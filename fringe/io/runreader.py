@@ -80,7 +80,7 @@ def sha256(path: str | os.PathLike, *, block_bytes: int = 1 << 20) -> str:
 
 
 def open_run(path: str | os.PathLike, *, check_values: bool = True,
-             chunk_samples: int = DEFAULT_CHUNK_SAMPLES) -> RunFile:
+             chunk_samples: int = DEFAULT_CHUNK_SAMPLES, while_written: bool = False) -> RunFile:
     """Open and validate a run file (read-only); use as a context manager.
 
     Parameters
@@ -93,6 +93,12 @@ def open_run(path: str | os.PathLike, *, check_values: bool = True,
         every chunk that :meth:`RunFile.iter_chunks` or :meth:`RunFile.read_all` returns.
     chunk_samples : int
         Samples per read in the open-time pass.
+    while_written : bool
+        Also open a file that a writer holds in HDF5's single-writer/multiple-reader (SWMR)
+        mode (:class:`fringe.io.livewriter.LiveRunWriter`): it is opened in SWMR read mode and
+        the :class:`RunFile` covers the part the writer has flushed, ``n_samples`` being the
+        shortest flushed length of the sample datasets (``being_written`` is then True). A
+        finished file opens as usual. Without it such a file is refused as unreadable.
 
     Returns
     -------
@@ -109,10 +115,12 @@ def open_run(path: str | os.PathLike, *, check_values: bool = True,
     ...     for chunk in run.iter_chunks():
     ...         t_s, azimuth_rad = chunk["time"], chunk["azimuth"]
     """
-    return RunFile(path, check_values=check_values, chunk_samples=chunk_samples)
+    return RunFile(path, check_values=check_values, chunk_samples=chunk_samples,
+                   while_written=while_written)
 
 
-def _open_hdf5(path: str) -> h5py.File:
+def _open_hdf5(path: str, while_written: bool = False) -> tuple[h5py.File, bool]:
+    """The open HDF5 file and whether a writer holds it in SWMR mode (only ``while_written``)."""
     if not os.path.exists(path):
         raise missing_input(path, "a run file (HDF5)")
     if os.path.isdir(path):
@@ -125,9 +133,19 @@ def _open_hdf5(path: str) -> h5py.File:
     if not is_hdf5:
         raise InputFileError(path, "file", "expected an HDF5 file (no HDF5 signature found)")
     try:
-        return h5py.File(path, "r")
+        return h5py.File(path, "r"), False
     except OSError as exc:
         logger.debug("h5py could not open %s: %s", path, exc)
+        if while_written:    # a writer in SWMR mode marks the file open for writing
+            try:
+                return h5py.File(path, "r", libver="latest", swmr=True), True
+            except OSError as exc2:
+                logger.debug("h5py could not open %s in SWMR mode either: %s", path, exc2)
+        if "already open for write" in str(exc):
+            raise InputFileError(path, "file", "expected a closed run file, got one a writer "
+                                 "still holds open (HDF5 marks it open for writing; fringe "
+                                 "watch follows such a file; after a writer died, HDF5's "
+                                 "h5clear -s removes the mark)") from exc
         if "truncated" in str(exc):
             raise InputFileError(path, "file", "expected a complete HDF5 file, got a truncated "
                                  "one (shorter than its header records)") from exc
@@ -167,12 +185,17 @@ class RunFile:
         (:data:`fringe.io.runformat.SIGNAL_ATTRS`); empty for version 1.
     weighted : bool
         Version 2: the file has a ``samples/weight`` channel (read as channel ``"weight"``).
+    being_written : bool
+        A writer holds the file in SWMR mode (opened with ``while_written``): the samples are
+        the flushed part, ``n_samples`` the shortest flushed length of the sample datasets;
+        ``flushed_lengths`` holds each dataset's.
     """
 
     def __init__(self, path: str | os.PathLike, *, check_values: bool = True,
-                 chunk_samples: int = DEFAULT_CHUNK_SAMPLES):
+                 chunk_samples: int = DEFAULT_CHUNK_SAMPLES, while_written: bool = False):
         self.path = os.fspath(path)
-        self._file = _open_hdf5(self.path)
+        self._file, self.being_written = _open_hdf5(self.path, while_written)
+        self.flushed_lengths: dict[str, int] = {}
         self._values_checked = False
         try:
             with self._guard():
@@ -289,6 +312,19 @@ class RunFile:
             raise self._err(f"{label}.units", f"expected {shown}, got {show(value)}")
         return value
 
+    def _check_length(self, name: str, ds: h5py.Dataset, label: str) -> None:
+        """Every dataset as long as samples/time; a file being written: note each length."""
+        if self.being_written:
+            ds.refresh()           # the extent the writer has flushed
+            self.flushed_lengths[name] = int(ds.shape[0])
+        elif name == "time":
+            self.n_samples = int(ds.shape[0])
+            if self.n_samples == 0:
+                raise self._err(label, "expected at least one sample, got an empty dataset")
+        elif ds.shape[0] != self.n_samples:
+            raise self._err(label, f"expected the length of samples/time "
+                            f"({self.n_samples}), got {ds.shape[0]}")
+
     def _validate_samples(self, samples: h5py.Group) -> None:
         self._datasets: dict[str, h5py.Dataset] = {}
         what = {"time": "seconds since samples/time.epoch_utc",
@@ -311,15 +347,14 @@ class RunFile:
             if len(ds.shape) != 1:
                 raise self._err(label, f"expected a one-dimensional dataset, got shape "
                                 f"{tuple(ds.shape)}")
-            if name == "time":
-                self.n_samples = int(ds.shape[0])
-                if self.n_samples == 0:
-                    raise self._err(label, "expected at least one sample, got an empty dataset")
-            elif ds.shape[0] != self.n_samples:
-                raise self._err(label, f"expected the length of samples/time "
-                                f"({self.n_samples}), got {ds.shape[0]}")
+            self._check_length(name, ds, label)
             _check_dtype(ds.dtype, name, lambda exp, lab=label: self._err(lab, exp))
             self._datasets[name] = ds
+        if self.being_written:         # consistent: the shortest flushed dataset
+            self.n_samples = min(self.flushed_lengths.values())
+            if self.n_samples == 0:
+                raise self._err("samples", "expected at least one flushed sample in every "
+                                "dataset (the writer has flushed none in some yet)")
         time = self._datasets["time"]
         self._units(time, "samples/time", TIME_UNITS)
         self.epoch_utc: str = check_epoch_utc(
@@ -440,6 +475,22 @@ class RunFile:
                               check=not self._values_checked, copy=False)
         return next(chunks)
 
+    def samples_sha256(self, start: int = 0, stop: int | None = None) -> str:
+        """SHA-256 identifying samples [start, stop) of every channel (hexadecimal string).
+
+        The digest of the lines ``NAME DIGEST`` (one per channel of :attr:`channels`, in that
+        order), DIGEST being the SHA-256 of the channel's values as read (float64,
+        little-endian; azimuth in radians). Unlike :func:`sha256` of the file's bytes, it stays
+        the same while a writer appends after ``stop`` (the identity ``fringe watch`` records
+        for the part of a growing file it took).
+        """
+        digests = {name: hashlib.sha256() for name in self.channels}
+        for chunk in self.iter_chunks(channels=self.channels, start=start, stop=stop):
+            for name, values in chunk.items():
+                digests[name].update(np.ascontiguousarray(values, "<f8").tobytes())
+        lines = "".join(f"{name} {d.hexdigest()}\n" for name, d in digests.items())
+        return hashlib.sha256(lines.encode()).hexdigest()
+
     def read_group_attrs(self, name: str) -> dict:
         """Attributes of group ``name`` (e.g. ``"truth"``), as a dict.
 
@@ -477,7 +528,7 @@ class RunFile:
                 "time_first_s": self.time_first_s, "time_last_s": self.time_last_s,
                 "signal_units": self.signal_units, "azimuth_units": self.azimuth_units,
                 "aux_channels": dict(self.aux_channels), "extra_groups": list(self.extra_groups),
-                **extra}
+                **extra, **({"being_written": True} if self.being_written else {})}
 
 
 def _check_dtype(dtype: np.dtype, name: str, err) -> None:

@@ -241,29 +241,7 @@ class RunWriter:
         self._tmp = _create_temp(self.path)
         try:
             self._file, self._guard = open_h5_output(self._tmp, libver=("v108", "latest"))
-            f = self._file
-            f.attrs["fringe_format"] = _fixed_strings(FORMAT_NAME)
-            f.attrs["fringe_format_version"] = np.int64(
-                version_needed(self.signal_attrs, self.weighted))
-            f.attrs["written_by"] = _fixed_strings(f"fringe {__version__}")
-            site = f.create_group("site")
-            for key, value in self.site.to_dict().items():
-                if key != "name" or value:
-                    site.attrs[key] = _attr_value(value, self._config_err, f"site.{key}")
-            app = f.create_group("apparatus")
-            for key, value in self.apparatus.items():
-                app.attrs[key] = _attr_value(value, self._config_err, f"apparatus.{key}")
-            samples = f.create_group("samples")
-            units = {"time": "s", "azimuth": self.azimuth_units, "signal": self.signal_units,
-                     **({WEIGHT_CHANNEL: "1"} if self.weighted else {}), **self.aux_channels}
-            for name, unit in units.items():
-                ds = samples.create_dataset(name, shape=(0,), maxshape=(None,), dtype="f8",
-                                            chunks=(self._chunk,), compression=self._compression)
-                ds.attrs["units"] = _fixed_strings(unit)
-            samples["time"].attrs["epoch_utc"] = _fixed_strings(self.epoch_utc)
-            for key, value in self.signal_attrs.items():
-                samples["signal"].attrs[key] = _attr_value(value, self._config_err,
-                                                           f"samples/signal.{key}")
+            self._write_layout(self._file)
         except OSError as exc:
             self.abort()
             raise output_error(self.path, exc) from None
@@ -271,6 +249,32 @@ class RunWriter:
             self.abort()
             raise
         return self
+
+    def _write_layout(self, f: h5py.File, fillvalue: float | None = None) -> None:
+        """The root attributes, site, apparatus and the empty extendable sample datasets."""
+        f.attrs["fringe_format"] = _fixed_strings(FORMAT_NAME)
+        f.attrs["fringe_format_version"] = np.int64(
+            version_needed(self.signal_attrs, self.weighted))
+        f.attrs["written_by"] = _fixed_strings(f"fringe {__version__}")
+        site = f.create_group("site")
+        for key, value in self.site.to_dict().items():
+            if key != "name" or value:
+                site.attrs[key] = _attr_value(value, self._config_err, f"site.{key}")
+        app = f.create_group("apparatus")
+        for key, value in self.apparatus.items():
+            app.attrs[key] = _attr_value(value, self._config_err, f"apparatus.{key}")
+        samples = f.create_group("samples")
+        units = {"time": "s", "azimuth": self.azimuth_units, "signal": self.signal_units,
+                 **({WEIGHT_CHANNEL: "1"} if self.weighted else {}), **self.aux_channels}
+        for name, unit in units.items():
+            ds = samples.create_dataset(name, shape=(0,), maxshape=(None,), dtype="f8",
+                                        chunks=(self._chunk,), compression=self._compression,
+                                        fillvalue=fillvalue)
+            ds.attrs["units"] = _fixed_strings(unit)
+        samples["time"].attrs["epoch_utc"] = _fixed_strings(self.epoch_utc)
+        for key, value in self.signal_attrs.items():
+            samples["signal"].attrs[key] = _attr_value(value, self._config_err,
+                                                       f"samples/signal.{key}")
 
     def __exit__(self, exc_type, exc, tb) -> None:
         if exc_type is None:
@@ -291,6 +295,21 @@ class RunWriter:
         and always for a ``weighted`` writer) finite and > 0, or NaN.
         """
         f = self._require_open()
+        arrays, last = self._checked(time_s, azimuth, signal, weight, aux)
+        m = arrays["time"].size
+        if m == 0:
+            return
+        n = self.n_samples
+        for name, arr in arrays.items():
+            ds = f["samples"][name]
+            ds.resize((n + m,))
+            ds.write_direct(arr, dest_sel=np.s_[n:n + m])
+        self.n_samples, self._last_t = n + m, last
+        if self._guard.error is not None:     # e.g. the disk is full: stop at once
+            raise output_error(self.path, self._guard.error)
+
+    def _checked(self, time_s, azimuth, signal, weight, aux) -> tuple[dict, float | None]:
+        """The appended channels as float64 arrays, checked; and the new last time (s)."""
         if set(aux) != set(self.aux_channels):
             raise self._output_err("samples", f"expected auxiliary channels "
                                    f"{sorted(self.aux_channels)}, got {sorted(aux)}")
@@ -323,16 +342,7 @@ class RunWriter:
                 check_weight_values(arrays[WEIGHT_CHANNEL], self.n_samples)
         except Invalid as exc:
             raise self._output_err(exc.obj, exc.expected) from None
-        if m == 0:
-            return
-        n = self.n_samples
-        for name, arr in arrays.items():
-            ds = f["samples"][name]
-            ds.resize((n + m,))
-            ds.write_direct(arr, dest_sel=np.s_[n:n + m])
-        self.n_samples, self._last_t = n + m, last
-        if self._guard.error is not None:     # e.g. the disk is full: stop at once
-            raise output_error(self.path, self._guard.error)
+        return arrays, last
 
     def write_group(self, name: str, attrs: Mapping, datasets: Mapping | None = None) -> None:
         """Write an extra root group (e.g. ``truth``, ``settings``, ``provenance``).

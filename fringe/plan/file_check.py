@@ -27,8 +27,10 @@ __all__ = ["FILE_KINDS", "CheckedFile", "check_input_file", "file_kind"]
 SCENARIO_ONLY = ("title", "campaign", "turntable", "theory", "coefficients", "noise",
                  "systematics", "plan")
 METADATA_ONLY = ("epoch_utc", "columns", "units", "csv", "calibration", "gate", "azimuth_log")
+#: The tables of a systematic budget file (``fringe fit --budget``).
+BUDGET_ONLY = ("term", "scale")
 #: The kinds of file :func:`check_input_file` recognises.
-FILE_KINDS = ("scenario", "import metadata")
+FILE_KINDS = ("scenario", "import metadata", "systematic budget")
 
 
 @dataclass(frozen=True)
@@ -85,11 +87,14 @@ def file_kind(doc: dict, path: str) -> str:
     """
     scenario = sum(k in doc for k in SCENARIO_ONLY)
     metadata = sum(k in doc for k in METADATA_ONLY)
+    if scenario == metadata == 0 and any(k in doc for k in BUDGET_ONLY):
+        return "systematic budget"
     if scenario == metadata == 0:
         found = ", ".join(sorted(doc)) or "nothing"
         raise InputFileError(path, "file", "expected a scenario (sections [campaign], "
-                             "[turntable], [theory], ...) or import metadata (epoch_utc, "
-                             f"[columns], [units], ...), found {found}")
+                             "[turntable], [theory], ...), import metadata (epoch_utc, "
+                             "[columns], [units], ...) or a systematic budget ([[term]], "
+                             f"[[scale]]), found {found}")
     return "scenario" if scenario >= metadata else "import metadata"
 
 
@@ -117,8 +122,19 @@ def check_input_file(path: str | os.PathLike) -> CheckedFile:
     """
     path = os.fspath(path)
     kind = file_kind(_read(path), path)
-    summary = _scenario_summary(path) if kind == "scenario" else _metadata_summary(path)
+    summary = {"scenario": _scenario_summary, "import metadata": _metadata_summary,
+               "systematic budget": _budget_summary}[kind](path)
     return CheckedFile(path, kind, summary)
+
+
+def _budget_summary(path: str) -> str:
+    """The declared terms of a budget file (whether they fit a theory is the fit's check)."""
+    from fringe.io.budget_file import read_budget
+
+    budget = read_budget(path)
+    parts = [f"{len(budget.terms)} term(s)", f"{len(budget.scales)} scale(s)"]
+    names = [t.name for t in budget.terms] + [s.name for s in budget.scales]
+    return ", ".join(parts) + (": " + "; ".join(names) if names else "")
 
 
 def _duration(seconds: float) -> str:

@@ -8,6 +8,11 @@ renames it when the file is whole, so a file still being written is never seen; 
 fails to open or to read (a copy in progress, a foreign writer) is left for the next poll and
 named in :attr:`Watch.waiting`, never fatal.
 
+A run file that a writer holds in HDF5's SWMR mode (:class:`fringe.io.livewriter
+.LiveRunWriter`) is followed while it grows: each poll takes its flushed whole turns after those
+already in the fit, and the rest once the writer closes it; the files after it in name order
+wait until then (their samples follow its own).
+
 After the pieces of a poll, the outputs are rewritten, each whole or not at all:
 ``DIR/fit.json`` (the fit of all pieces so far, a fit result like ``fringe fit`` writes, without
 a per-turn amplitudes file), ``DIR/report/`` (the report page of :mod:`fringe.report.build`),
@@ -22,7 +27,7 @@ import logging
 from pathlib import Path
 
 from fringe.errors import FitError, FringeError, InputFileError
-from fringe.fit.growing import IncrementalFit
+from fringe.fit.growing import IncrementalFit, StillWritten
 from fringe.io.atomic import TEMP_PATTERN, write_json_atomic
 
 logger = logging.getLogger(__name__)
@@ -60,7 +65,7 @@ def forecast_sigmas(plan, days: float) -> dict[str, float]:
 
 def history_entry(result, piece: dict, days: float, plan) -> dict:
     """One history entry for the fit ``result`` after ``piece``."""
-    entry = {"piece": piece["name"], "days": days,
+    entry = {"piece": piece["name"], "days": days, **_range_of(piece),
              "n_accepted": result.statistics.n_turns_used,
              "coefficients": {n: {"value": e.value, "sigma": e.sigma}
                               for n, e in result.coefficients.items()},
@@ -75,6 +80,14 @@ def history_entry(result, piece: dict, days: float, plan) -> dict:
             i = list(h.names).index(key)
             entry[key] = {"value": float(h.value[i]), "sigma": float(h.sigma[i])}
     return entry
+
+
+def _range_of(piece: dict) -> dict:
+    """The history's ``samples`` [start, stop) and ``being_written`` of a part of a file."""
+    if piece.get("sha256_of", "file") == "file":
+        return {}
+    return {"samples": [piece["start"], piece["stop"]],
+            "being_written": piece["being_written"]}
 
 
 class Watch:
@@ -127,12 +140,19 @@ class Watch:
 
     def poll(self, limit: int | None = None) -> list[dict]:
         """Add the pending pieces (at most ``limit``); rewrite the outputs; return the entries."""
-        added = []
+        added, held = [], None
         for path in self.pending():
             if limit is not None and len(added) >= limit:
                 break
+            if held is not None:          # its samples follow those of a file still written
+                self.waiting[path.name] = f"after {held}, which is still being written"
+                continue
             try:
                 piece = self.fit.add_piece(str(path))
+            except StillWritten as exc:
+                self.waiting[path.name] = str(exc)
+                held = path.name
+                continue
             except (InputFileError, OSError) as exc:
                 self.waiting[path.name] = str(exc).splitlines()[0]
                 logger.info("%s: not readable yet, left for the next poll (%s)", path, exc)
@@ -142,6 +162,8 @@ class Watch:
                 continue
             self.waiting.pop(path.name, None)
             added.append(self._after_piece(piece))
+            if not piece.get("complete", True):
+                held = path.name
         if added:
             self._write_outputs()
         return added
@@ -155,7 +177,7 @@ class Watch:
         else:
             why = "fewer than 4 sidereal hours covered" if result is None else None
         if result is None:
-            entry = {"piece": piece["name"], "days": days, "waiting": why}
+            entry = {"piece": piece["name"], "days": days, **_range_of(piece), "waiting": why}
         else:
             entry = history_entry(result, piece, days, self.plan)
             self._result = result

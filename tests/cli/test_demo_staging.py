@@ -134,3 +134,12 @@ def test_sigint_during_the_demo_leaves_nothing(short_demo, tmp_path):
     assert proc.returncode == 130, err
     assert err.splitlines()[-1] == "error: interrupted; no partial output was kept"
     assert os.listdir(short_demo) == []
+
+
+def test_quiet_demo_prints_its_results_without_the_step_headings(short_demo):
+    loud = run_command(short_demo, ["demo", "--out", "loud", "--seed", "3"])
+    hushed = run_command(short_demo, ["demo", "--out", "hushed", "--seed", "3", "-q"])
+    assert loud.exit_code == 0 and hushed.exit_code == 0, hushed.stderr
+    assert "[1/5] simulate" in loud.stdout and "[5/5] plan" in loud.stdout
+    assert "[1/5]" not in hushed.stdout and "[3/5]" not in hushed.stdout
+    assert "ke_XY" in hushed.stdout                      # the fit's table is a result

@@ -22,6 +22,7 @@ DEMO = ROOT / "fringe" / "data" / "demo.toml"
 EVERY = ROOT / "examples" / "every_section.toml"
 STARTER = ROOT / "examples" / "starter" / "cavity_rotation.toml"
 METADATA = {"session.toml", "cavity_rotation.toml"}        # the examples that are import metadata
+BUDGETS = {"budget.toml"}                                  # ... and systematic budgets
 
 
 def test_the_examples_folder_has_files_of_both_kinds():
@@ -34,7 +35,8 @@ def test_the_examples_folder_has_files_of_both_kinds():
 def test_every_example_passes(tmp_path, path):
     before = digest(path)
     run = run_command(tmp_path, ["scenario", "check", str(path)])
-    kind = "import metadata" if path.name in METADATA else "scenario"
+    kind = ("import metadata" if path.name in METADATA
+            else "systematic budget" if path.name in BUDGETS else "scenario")
     assert run.exit_code == 0, run.stderr
     assert run.stdout.startswith(f"{path}: valid {kind} (") and run.stdout.endswith(")\n")
     assert run.stdout.count("\n") == 1
@@ -125,8 +127,12 @@ def test_a_typo_is_refused_with_the_closest_name(tmp_path, case):
 
 @pytest.mark.parametrize("text, rest", [
     ('[site]\nlatitude_deg = 1.0\nlongitude_deg = 2.0\n',
-     "file: expected a scenario (sections [campaign], [turntable], [theory], ...) or import "
-     "metadata (epoch_utc, [columns], [units], ...), found site"),
+     "file: expected a scenario (sections [campaign], [turntable], [theory], ...), import "
+     "metadata (epoch_utc, [columns], [units], ...) or a systematic budget ([[term]], "
+     "[[scale]]), found site"),
+    ('[[term]]\nname = "x"\ncoefficent = "ke_XY"\nsize = 1e-18\nunits = "1"\n',
+     "term[0].coefficent: unknown field (expected some of name, coefficient, harmonic, size, "
+     "units, note); did you mean 'coefficient'?"),
     ("title = 'x'\n[campaign\n", "TOML: not valid TOML ("),
 ])
 def test_a_file_of_neither_kind_or_broken_is_one_line(tmp_path, text, rest):

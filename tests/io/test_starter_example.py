@@ -21,6 +21,7 @@ from tests.helpers.hostile import digest
 
 STARTER = Path(__file__).resolve().parents[2] / "examples" / "starter"
 CSV, META = STARTER / "cavity_rotation.csv", STARTER / "cavity_rotation.toml"
+BUDGET = STARTER / "budget.toml"
 
 
 def _generator():
@@ -39,6 +40,7 @@ def test_the_starter_record_is_reproducible_and_small(tmp_path):
 def test_the_starter_record_imports_fits_and_reports(tmp_path):
     gen = _generator()
     before = (digest(CSV), digest(META))
+    budget_before = digest(BUDGET)
     run = run_command(tmp_path, ["import", str(CSV), "--meta", str(META), "--out", "run.h5"])
     assert run.exit_code == 0, run.stderr
     with open_run(tmp_path / "run.h5") as rec:
@@ -66,4 +68,19 @@ def test_the_starter_record_imports_fits_and_reports(tmp_path):
     assert run.exit_code == 0, run.stderr
     for name in ("report.html", "report.md", "report.tex", "summary.json"):
         assert (tmp_path / "report" / name).stat().st_size > 0
+
+    # the example budget file: the fit reads it, and every declared term reaches the result
+    # and the report's budget table
+    run = run_command(tmp_path, ["fit", "run.h5", "--regress", "vessel_temp", "--budget",
+                                 str(BUDGET), "--out", "budget.json"])
+    assert run.exit_code == 0, run.stderr
+    text = (tmp_path / "budget.json").read_text(encoding="utf-8")
+    for name in ("cavity mount creep", "table tilt residual", "beat-frequency calibration",
+                 "vessel_temp"):
+        assert name in text, name
+    run = run_command(tmp_path, ["report", "budget.json", "--out", "budget_report"])
+    assert run.exit_code == 0, run.stderr
+    page = (tmp_path / "budget_report" / "report.md").read_text(encoding="utf-8")
+    assert "cavity mount creep" in page and "table tilt residual" in page
     assert (digest(CSV), digest(META)) == before                   # inputs untouched
+    assert digest(BUDGET) == budget_before
