@@ -18,6 +18,7 @@ A result file without these parts reads as before (None). ``docs/fit.md`` docume
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 
@@ -296,8 +297,8 @@ def joint_header_lines(runs: Runs, theory: str) -> list[str]:
     return [f"{runs.method} of {len(runs.runs)} runs — theory {theory}, {n_turns} accepted "
             f"turns, {len(sites)} site(s), apparatus {', '.join(kinds)}",
             f"agreement of the runs: chi2 {a.get('chi2', float('nan')):.3g} for "
-            f"{a.get('dof')} dof (p = {p:.3g})" if isinstance(p, float) else
-            "agreement of the runs: not tested (one run)"]
+            f"{a.get('dof')} dof (p = {p:.3g})" if isinstance(p, float) and math.isfinite(p)
+            else "agreement of the runs: not tested (one run)"]
 
 
 def runs_table_lines(runs: Runs) -> list[str]:

@@ -250,6 +250,13 @@ def test_likelihood_is_the_reported_fit_and_is_blinded_with_it(runs, singles):
         assert blinded.likelihood.value[i] == pytest.approx(
             res.likelihood.value[i] + key.offsets[n], rel=1e-12)
         assert blinded.likelihood.value[i] == blinded.coefficients[n].value
+    from fringe.fit.blinding import unblind
+
+    plain, _ = unblind(blinded, key.bound_to("a" * 64), "a" * 64)
+    np.testing.assert_allclose(plain.likelihood.value, res.likelihood.value, rtol=1e-12)
+    assert plain.blinding.blinded is False
+    combined = combine_results([("u.json", plain), ("b.json", singles[1])])   # allowed again
+    assert combined.runs.runs[0].sha256 == res.input.sha256
 
 
 def test_run_part_of_a_result_without_likelihood_is_one_line(singles):
@@ -257,3 +264,16 @@ def test_run_part_of_a_result_without_likelihood_is_one_line(singles):
     with pytest.raises(ConfigError) as info:
         run_part(bare, "x.json")
     assert str(info.value).startswith("x.json: likelihood: ")
+
+
+def test_joint_fit_of_one_run_is_that_run_s_fit(runs, singles):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        one = fit_joint(runs[:1], FitSettings())
+    for n, e in singles[0].coefficients.items():
+        assert one.coefficients[n].value == pytest.approx(e.value, rel=1e-9)
+        assert one.coefficients[n].sigma == pytest.approx(e.sigma, rel=1e-9)
+    assert one.runs.agreement["dof"] == 0
+    assert "agreement of the runs: not tested (one run)" in one.summary()
+    back = FitResult.from_dict(json.loads(json.dumps(one.to_dict())), source="one.json")
+    assert back.to_dict()["runs"] == one.to_dict()["runs"]          # p_value NaN, as null
