@@ -352,8 +352,11 @@ def fit_joint(paths, settings, demod=None, *, engine: str = "local", scheduler=N
     """Fit several run files jointly: one set of coefficients (see module docstring).
 
     Each file is fitted as by :func:`fringe.fit.run.fit_run` with the same settings and free
-    coefficients, one after another (stage 1 on ``engine``; the turns of a run are released
-    before the next run starts), and the runs are combined from their normal equations.
+    coefficients, one after another (the turns of a run are released before the next run
+    starts), and the runs are combined from their normal equations. With ``engine="dask"``
+    every run is one task of the cluster (the whole fit of the run on a worker, which opens
+    the file itself by its absolute path): the cluster fits as many runs at once as it has
+    worker threads, and this process keeps only the runs' likelihoods.
     Refused before any work: a nonlinear theory, rms_kt free, a run file given twice (by its
     SHA-256), a regressed channel a run lacks.
 
@@ -389,21 +392,74 @@ def fit_joint(paths, settings, demod=None, *, engine: str = "local", scheduler=N
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", TimeScaleWarning)
             setup, meta = setup_from_run(p, settings.theory, dut1_s)
-        setups.append((setup, float(meta["time_last_s"] - meta["time_first_s"])))
+        setups.append((setup, float(meta["time_last_s"] - meta["time_first_s"]),
+                       int(meta["n_samples"])))
         for ch in settings.regress:
             if ch not in meta["aux_channels"]:
                 raise ConfigError(f"FitSettings.regress {ch}: {p} has no auxiliary channel "
                                   f"{ch!r} (has {', '.join(meta['aux_channels']) or 'none'})")
-    free, notes = joint_free(setups, settings)
+    free, notes = joint_free([(a, b) for a, b, _ in setups], settings)
     run_settings = dataclasses.replace(settings, free=free)
-    parts = []
-    for p in paths:
-        result, columns = fit_run(p, run_settings, demod, engine=engine, scheduler=scheduler,
-                                  dut1_s=dut1_s, progress=progress,
-                                  scratch_dir=scratch_dir or str(Path(p).resolve().parent))
-        columns.close()                  # the run's turns and scratch files go now
-        parts.append(run_part(result))
+    if engine == "dask":
+        parts = _parts_on_dask(paths, run_settings, demod, dut1_s, scheduler, progress,
+                               [n for _, _, n in setups])
+    else:
+        parts = []
+        for p in paths:
+            result, columns = fit_run(p, run_settings, demod, engine=engine, dut1_s=dut1_s,
+                                      progress=progress,
+                                      scratch_dir=scratch_dir or str(Path(p).resolve().parent))
+            columns.close()                  # the run's turns and scratch files go now
+            parts.append(run_part(result))
     return combine_parts(parts, theory=settings.theory, fixed=dict(settings.fixed),
                          method="joint fit", route="schur",
                          settings={"fit": run_settings.to_dict(), "engine": engine,
                                    "dut1_s": dut1_s}, notes=tuple(notes))
+
+
+def _fit_part(path: str, settings, demod, dut1_s: float) -> RunPart:
+    """One run's fit on a dask worker (stage 1 local there): its RunPart."""
+    import tempfile
+    import warnings
+
+    from fringe.fit.run import fit_run
+
+    with warnings.catch_warnings(), tempfile.TemporaryDirectory(prefix="fringe-joint-") as tmp:
+        warnings.simplefilter("ignore")      # the warnings are records of the result
+        result, columns = fit_run(path, settings, demod, dut1_s=dut1_s, scratch_dir=tmp)
+        columns.close()
+    return run_part(result)
+
+
+def _parts_on_dask(paths, settings, demod, dut1_s, scheduler, progress, n_samples):
+    """The runs' RunParts fitted on a dask cluster, one task per run, in the order of paths."""
+    import os
+
+    try:
+        from distributed import Client, as_completed
+    except ImportError:
+        raise ConfigError("engine='dask': needs the 'dask' extra (pip install "
+                          "'fringe[dask]')") from None
+    if scheduler is None:
+        raise ConfigError("engine='dask': needs scheduler=ADDRESS (e.g. tcp://host:8786)")
+    own = not isinstance(scheduler, Client)
+    if own:
+        from fringe.demodulate.engine import connect_scheduler
+
+        client = connect_scheduler(scheduler)
+    else:
+        client = scheduler
+    try:
+        futures = {client.submit(_fit_part, os.path.abspath(p), settings, demod, dut1_s,
+                                 pure=False): i for i, p in enumerate(paths)}
+        out: list = [None] * len(paths)
+        for fut in as_completed(list(futures)):
+            i = futures[fut]
+            out[i] = fut.result()         # a run's one-line error stops the joint fit
+            fut.release()
+            if progress:
+                progress(n_samples[i])
+        return out
+    finally:
+        if own:
+            client.close()

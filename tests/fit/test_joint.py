@@ -277,3 +277,19 @@ def test_joint_fit_of_one_run_is_that_run_s_fit(runs, singles):
     assert "agreement of the runs: not tested (one run)" in one.summary()
     back = FitResult.from_dict(json.loads(json.dumps(one.to_dict())), source="one.json")
     assert back.to_dict()["runs"] == one.to_dict()["runs"]          # p_value NaN, as null
+
+
+def test_dask_engine_fits_the_runs_as_tasks_with_the_same_numbers(runs, joint):
+    distributed = pytest.importorskip("distributed")
+    cluster = distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False,
+                                       dashboard_address=None)
+    client = distributed.Client(cluster)
+    try:
+        got = fit_joint(runs, FitSettings(), engine="dask", scheduler=client)
+    finally:
+        client.close()
+        cluster.close()
+    assert [r.sha256 for r in got.runs.runs] == [r.sha256 for r in joint.runs.runs]
+    for n, e in joint.coefficients.items():
+        assert got.coefficients[n].value == pytest.approx(e.value, rel=1e-12)
+        assert got.coefficients[n].sigma == pytest.approx(e.sigma, rel=1e-12)
