@@ -73,6 +73,7 @@ class RunPart:
     likelihood: Likelihood
     warnings: tuple = ()
     source: str = ""          # the fit result file it came from ("" for a run fitted here)
+    notes: tuple = ()         # the run's own notes (cautions among them)
 
 
 def run_part(result: FitResult, source: str = "") -> RunPart:
@@ -94,7 +95,7 @@ def run_part(result: FitResult, source: str = "") -> RunPart:
         uncertainty=st.uncertainty if st else result.likelihood.uncertainty,
         chi2_reduced=float(st.chi2_reduced) if st else float("nan"),
         dof=int(st.dof) if st else result.likelihood.dof, likelihood=result.likelihood,
-        warnings=tuple(result.warnings), source=source)
+        warnings=tuple(result.warnings), source=source, notes=tuple(result.notes))
 
 
 def _parts_of_entry(entry: RunEntry, source: str) -> RunPart:
@@ -246,6 +247,7 @@ def combine_parts(parts: list[RunPart], *, theory: str, fixed: dict, method: str
         f"{method} of {len(parts)} runs: one set of coefficients, each run with its own "
         "nuisances and its own chi2 scaling; the runs are assumed independent (no shared "
         "noise or systematic)"]
+    all_notes += _run_notes(entries, parts)
     if len(units) > 1:
         all_notes.append(f"the runs' observables have different units ({', '.join(units)}): "
                          "each run's nuisances are in its own (runs table)")
@@ -262,6 +264,16 @@ def combine_parts(parts: list[RunPart], *, theory: str, fixed: dict, method: str
         stage1=None, site=None, apparatus=None, epoch_utc=None, span_s=None,
         settings=settings or {}, input=None, software=software_versions(),
         created_utc=now, notes=tuple(all_notes), conventions=CONVENTIONS, runs=runs)
+
+
+def _run_notes(entries, parts) -> list[str]:
+    """The runs' cautions, each once, prefixed with the runs that raised it."""
+    seen: dict[str, list[str]] = {}
+    for e, p in zip(entries, parts):
+        for n in p.notes:
+            if n.startswith("caution"):
+                seen.setdefault(n, []).append(e.label)
+    return [f"{', '.join(labels)}: {n}" for n, labels in seen.items()]
 
 
 def _upper_tail(chi2: float, dof: int) -> float:

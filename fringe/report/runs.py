@@ -17,6 +17,7 @@ import html
 from fringe.report.tables import (
     Table,
     coefficient_label,
+    latex_escape,
     to_html,
     to_latex,
     to_markdown,
@@ -42,8 +43,10 @@ def runs_table(fit, style: str = "unicode") -> Table | None:
     if style == "latex":
         header = tuple(h.replace("χ²", "$\\chi^2$").replace("Δ", "$\\Delta$")
                        .replace("$$", "") for h in header)
-    rows = tuple((r.label, r.path, _site(r.site), str(r.apparatus.get("kind", "?")),
-                  str(r.n_turns), f"{r.chi2_reduced:.3f}", f"{r.delta_chi2:.3g}")
+    text = latex_escape if style == "latex" else str       # file and site names as given
+    rows = tuple((r.label, text(r.path), text(_site(r.site)),
+                  text(str(r.apparatus.get("kind", "?"))), str(r.n_turns),
+                  f"{r.chi2_reduced:.3f}", f"{r.delta_chi2:.3g}")
                  + tuple(f"{r.information_fraction.get(n, float('nan')):.3f}" for n in names)
                  for r in fit.runs.runs)
     a = fit.runs.agreement
