@@ -24,7 +24,7 @@ def main(verbose: int, quiet: bool):
 
 #: The modules of the commands, one each (``fringe/cli/<module>.py``, each defines ``command``).
 COMMAND_MODULES = ("predict", "simulate", "inspection", "import_csv", "fit", "report", "plan",
-                   "demo", "unblind", "scenario", "study", "watch")
+                   "demo", "unblind", "combine", "scenario", "study", "watch")
 
 
 def _register_commands() -> None:

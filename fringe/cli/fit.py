@@ -1,4 +1,8 @@
-"""``fringe fit``: anisotropy coefficients from a recorded (or simulated) run file."""
+"""``fringe fit``: anisotropy coefficients from a recorded (or simulated) run file.
+
+Several run files (``fringe fit RUN1.h5 RUN2.h5 ... --out FIT.json``, or a folder of run files)
+are fitted jointly (:func:`fringe.fit.joint.fit_joint`).
+"""
 
 from __future__ import annotations
 
@@ -24,10 +28,11 @@ def _names(text: str | None) -> tuple[str, ...] | None:
 
 
 @click.command("fit")
-@click.argument("run_file")
+@click.argument("run_files", nargs=-1, required=True, metavar="RUN_FILE")
 @click.option("--out", "out_path", required=True, metavar="FILE",
               help="Result file to write (one JSON file, e.g. fit.json; the per-turn "
-                   "amplitudes go beside it as FILE.turns.h5; not a directory).")
+                   "amplitudes go beside it as FILE.turns.h5; not a directory). A joint fit "
+                   "of several run files writes the JSON file only.")
 @click.option("--theory", type=RegistryChoice("fringe.theories", "THEORIES"), default="sme",
               help="Theory whose coefficients are fitted  [default: the theory of the run "
                    "file's scenario when it records one (simulated runs), else sme]")
@@ -81,10 +86,14 @@ def _names(text: str | None) -> tuple[str, ...] | None:
                    "records whether the settings changed since  [default: not blinded]")
 @verbosity_options
 @run_guarded
-def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days, drift,
+def command(run_files, out_path, theory, free, fixes, uncertainty, bootstrap_days, drift,
             max_harmonic, min_samples, regress, no_lab_b0, lab_c0, cross_check, engine,
             scratch_dir, scheduler, dut1_s, overwrite, budget_path, blind_key):
-    """Fit RUN_FILE: per-turn demodulation, sidereal harmonics, coefficients with sigma."""
+    """Fit RUN_FILE: per-turn demodulation, sidereal harmonics, coefficients with sigma.
+
+    Several RUN_FILEs (or a folder of run files) are fitted jointly: one set of coefficients,
+    each run with its own nuisances and chi2 scaling (docs/fit.md, "Joint fit").
+    """
     from fringe.demodulate.settings import DemodSettings
     from fringe.experiment.scenario import parse_assignments
     from fringe.fit.run import fit_run
@@ -93,12 +102,29 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
     from fringe.io.fit_files import fit_outputs, turns_path_of, write_fit_files
     from fringe.io.runreader import open_run
 
+    paths, folder = run_paths(run_files)
+    if scratch_dir is not None:
+        check_directory_writable(scratch_dir, shown=f"--scratch-dir {scratch_dir}")
+    if len(paths) > 1 or folder:
+        for given, option in ((blind_key, "--blind"), (budget_path, "--budget"),
+                              (cross_check or None, "--cross-check")):
+            if given is not None:
+                raise ConfigError(f"{option}: not available for a joint fit of several run "
+                                  "files (fit each run with it, then fringe combine)")
+        theory, why = choose_theory(paths[0], theory)
+        settings = FitSettings(theory=theory, free=_names(free),
+                               fixed=parse_assignments(fixes, "--fix"),
+                               uncertainty=uncertainty, bootstrap_days=bootstrap_days,
+                               lab_b0=not no_lab_b0, lab_c0=lab_c0, regress=tuple(regress))
+        demod = DemodSettings(drift=drift, max_harmonic=max_harmonic, min_samples=min_samples)
+        _joint(paths, out_path, settings, demod, why, engine=engine, scheduler=scheduler,
+               dut1_s=dut1_s, scratch_dir=scratch_dir, overwrite=overwrite)
+        return
+    run_file = paths[0]
     theory, why = choose_theory(run_file, theory)
     out = Path(out_path)
     turns_path = turns_path_of(out)
     outputs = fit_outputs(out, overwrite=overwrite, protect=[run_file])  # checked before the fit
-    if scratch_dir is not None:
-        check_directory_writable(scratch_dir, shown=f"--scratch-dir {scratch_dir}")
     settings = FitSettings(theory=theory, free=_names(free),
                            fixed=parse_assignments(fixes, "--fix"), uncertainty=uncertainty,
                            bootstrap_days=bootstrap_days, lab_b0=not no_lab_b0, lab_c0=lab_c0,
@@ -153,6 +179,70 @@ def command(run_file, out_path, theory, free, fixes, uncertainty, bootstrap_days
     click.echo(f"\nwrote {out}\nwrote {turns_path}")
     if key is not None:
         click.echo(f"wrote {blind_key} (the blinding key: keep it away from the analysis)")
+
+
+def run_paths(given) -> tuple[list[str], bool]:
+    """The run files of the arguments and whether a folder was given.
+
+    A folder stands for the run files in it (``*.h5`` but the per-turn files ``*.turns.h5`` of
+    fits, in name order).
+    """
+    from fringe.errors import InputFileError
+
+    out, folder = [], False
+    for g in given:
+        p = Path(g)
+        if p.is_dir():
+            folder = True
+            found = sorted(str(x) for x in p.iterdir() if x.suffix == ".h5"
+                           and not x.name.endswith(".turns.h5") and x.is_file())
+            if not found:
+                raise InputFileError(p, "folder", "expected run files (*.h5) in it, found none")
+            out += found
+        else:
+            out.append(str(g))
+    return out, folder
+
+
+def _joint(paths, out_path, settings, demod, why, *, engine, scheduler, dut1_s, scratch_dir,
+           overwrite) -> None:
+    """The joint fit of several run files: fit each, combine, write FIT.json only."""
+    from fringe.fit.joint import fit_joint
+    from fringe.io.atomic import check_output_path, write_json_atomic
+    from fringe.io.runreader import open_run
+
+    check_output_path(out_path, overwrite=overwrite, protect=paths)
+    n = 0
+    for p in paths:                      # each file opened (and so checked) before the work
+        with open_run(p, check_values=False) as run:
+            n += run.n_samples
+    click.echo(f"theory: {settings.theory}, {why}")
+    click.echo(f"joint fit of {len(paths)} run files")
+    note_first_compile()
+    with progress(n, "joint fit, stage 1 of each run") as bar, warnings_once() as fitted:
+        result = fit_joint(paths, settings, demod, engine=engine, scheduler=scheduler,
+                           dut1_s=dut1_s, progress=bar.update,
+                           scratch_dir=scratch_dir or str(Path(out_path).resolve().parent))
+        fitted.append(result)
+        fitted.append(_run_warnings(result))
+    write_json_atomic(out_path, result.to_dict(), overwrite=overwrite, protect=paths)
+    click.echo(result.summary())
+    for line in significance_lines(result):
+        click.echo(line)
+    click.echo(f"\nwrote {out_path}")
+
+
+def _run_warnings(result):
+    """The runs' own warning sentences of a joint result (without the "run i (path): " label)."""
+    from types import SimpleNamespace
+
+    labels = [f"{e.label} ({e.path}): " for e in result.runs.runs]
+    out = []
+    for w in result.warnings:
+        text = next((w.sentence[len(lab):] for lab in labels if w.sentence.startswith(lab)),
+                    w.sentence)
+        out.append(SimpleNamespace(sentence=text))
+    return SimpleNamespace(warnings=out)
 
 
 def _key_before_fit(blind_key, overwrite: bool, protect):

@@ -468,6 +468,13 @@ def _connect(client_class, address):
                           "and that the scheduler is running") from None
 
 
+def connect_scheduler(address):
+    """A ``distributed.Client`` of the scheduler at ``address`` (one-line ConfigError)."""
+    from distributed import Client
+
+    return _connect(Client, address)
+
+
 def _run_dask(info, settings, parts, scheduler, collect, progress=None):
     """Run the ranges on a dask cluster; join them in range order, reporting each one done."""
     try:

@@ -13,7 +13,8 @@
   cross-check, the C10 harmonics (by the offsets' own harmonics: the per-turn model of the
   offsets fitted like the data), the B0 / C0 diagnostics of the warnings, and the per-turn
   C, B and model columns of the amplitudes file (by the per-turn model of the offsets; their
-  residuals are unchanged). Values that scale with |value| (the calibration's ``scale_sigma``
+  residuals are unchanged) and the coefficients' part of the portable likelihood's solution
+  (``likelihood.value``). Values that scale with |value| (the calibration's ``scale_sigma``
   and every scale term of the budget) are withheld; the C, B of rejected turns are written as
   NaN. What does not depend on the values (sigmas, covariance, chi^2, nuisances, efficiency,
   the per-turn residuals) is left as it is.
@@ -51,7 +52,7 @@ __all__ = ["SPREAD_SIGMAS", "BlindedColumns", "after_unblinding", "blind_fit", "
 SPREAD_SIGMAS = 100.0
 
 #: What a blinded result leaves out or changes besides the coefficient values.
-WITHHELD = ("coefficients, one_stage, harmonics and B0/C0 warning values offset",
+WITHHELD = ("coefficients, one_stage, harmonics, likelihood and B0/C0 warning values offset",
             "calibration.scale_sigma and budget scale terms withheld",
             "per-turn C, B, model_C, model_B offset; C, B of rejected turns withheld (NaN)")
 
@@ -147,9 +148,14 @@ def _offset_result(result, offsets: dict, harm_offsets, sign: float):
                        one.chi2_reduced, one.noise_rms, one.dof, one.n_samples,
                        one.n_turns_used)
     units = h.units if h is not None and h.units else result.units
+    lik = result.likelihood
+    if lik is not None:          # the portable likelihood's solution carries the offsets too
+        lik = dataclasses.replace(lik, value=tuple(
+            v + sign * offsets.get(n, 0.0) if i < lik.n_coefficients else v
+            for i, (n, v) in enumerate(zip(lik.columns, lik.value))))
     return dataclasses.replace(
         result, coefficients=shifted(result.coefficients), harmonics=harmonics, one_stage=one,
-        warnings=tuple(_shift_warning(w, dh, units) for w in result.warnings))
+        warnings=tuple(_shift_warning(w, dh, units) for w in result.warnings), likelihood=lik)
 
 
 def _with_scales(result, values: dict | None):

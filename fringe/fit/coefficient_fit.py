@@ -49,3 +49,5 @@ class CoefficientFit:
     #: their labels (:func:`fringe.fit.passes.design_labels`), for the systematic budget
     cov_all: NDArray | None = None
     labels_all: list | None = None
+    #: (r_c, r_b): the reduced chi^2 of the C and B rows that rescaled the weights (linear fits)
+    row_scales: tuple | None = None

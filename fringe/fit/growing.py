@@ -26,6 +26,7 @@ stopped at any point continues from the last complete update.
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
 import json
 import warnings
@@ -451,8 +452,13 @@ class IncrementalFit:
         digest = hashlib.sha256("".join(f"{p['name']} {p['sha256']}\n"
                                         for p in self.pieces).encode()).hexdigest()
         span_s = last["time_last_s"] - first["time_first_s"]
-        return _package(source, setup, meta, settings, self.demod, info, store, harm, res,
-                        span_s, digest, "local", 0.0, None)
+        result = _package(source, setup, meta, settings, self.demod, info, store, harm, res,
+                          span_s, digest, "local", 0.0, None)
+        from fringe.fit.likelihood import likelihood_of
+
+        likelihood = likelihood_of(setup, res, settings, span_s)   # combinable (fringe combine)
+        return result if likelihood is None else dataclasses.replace(result,
+                                                                     likelihood=likelihood)
 
 
 def _time_at(run, i: int) -> float:

@@ -230,6 +230,11 @@ def _fit(path, setup, meta, settings, demod, engine, scheduler, progress, scratc
     systematics = _systematics(res, models, settings, budget, calibration, meta)
     if systematics is not None:
         result = dataclasses.replace(result, systematics=systematics)
+    from fringe.fit.likelihood import likelihood_of
+
+    likelihood = likelihood_of(setup, res, settings, span_s)
+    if likelihood is not None:
+        result = dataclasses.replace(result, likelihood=likelihood)
     return result, store, models
 
 

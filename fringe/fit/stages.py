@@ -149,7 +149,7 @@ def coefficients_from_passes(setup: Setup, p, settings: FitSettings,
     return CoefficientFit(names=list(free), value=x[:k], cov=cov[:k, :k], nuisance=nuis,
                           chi2_reduced=red, dof=dof, efficiency=eff, model_c=None,
                           model_b=None, warnings=warns, notes=notes, cov_all=cov,
-                          labels_all=list(labels))
+                          labels_all=list(labels), row_scales=(float(p.r_c), float(p.r_b)))
 
 
 def _small_sample(dof: int, units: str) -> FitWarning:

@@ -1,11 +1,13 @@
 """The fit result and :func:`read_fit_result`, the one reader of the result file.
 
 The record has a fixed schema and three views (repr, summary(), to_dict()/from_dict()). The
-JSON file written by ``fringe fit`` is ``FitResult.to_dict()`` (format "fit", version 2;
-version-1 files, whose warnings are plain strings, are read too); its per-turn amplitudes go to
-an HDF5 file beside it (:mod:`fringe.io.turns_file`). Both formats are documented in
-``docs/fit.md``. The parts of the result are the records of :mod:`fringe.io.fit_sections` and
-:mod:`fringe.io.fit_calibration`.
+JSON file written by ``fringe fit`` is ``FitResult.to_dict()`` (format "fit", version 3:
+the version that added the optional ``systematics``, ``blinding``, ``likelihood`` and ``runs``
+parts; version-2 files, and version-1 files, whose warnings are plain strings, are read too);
+its per-turn amplitudes go to an HDF5 file beside it (:mod:`fringe.io.turns_file`). Both
+formats are documented in ``docs/fit.md``. The parts of the result are the records of
+:mod:`fringe.io.fit_sections`, :mod:`fringe.io.fit_calibration`, :mod:`fringe.io.fit_budget`
+and :mod:`fringe.io.fit_joint`.
 """
 
 from __future__ import annotations
@@ -21,6 +23,7 @@ import numpy as np
 from fringe.errors import InputFileError, missing_input, not_utf8
 from fringe.io.fit_budget import Blinding, Systematics
 from fringe.io.fit_calibration import SignalCalibration
+from fringe.io.fit_joint import Likelihood, Runs, joint_header_lines, runs_table_lines
 from fringe.io.fit_sections import (
     Covariance,
     Derived,
@@ -42,15 +45,16 @@ __all__ = ["CONVENTIONS", "FORMAT", "FORMAT_VERSION", "READABLE_VERSIONS", "FitR
 
 FORMAT = "fit"
 _SHA256 = re.compile(r"[0-9a-f]{64}")
-FORMAT_VERSION = 2
+FORMAT_VERSION = 3
 #: The line under the coefficient table of :meth:`FitResult.summary`.
 EFFICIENCY_DEFINITION = ("efficiency = white-noise Cramer-Rao sigma of this record (per-sample "
                          "noise = median per-turn residual RMS) / reported sigma; 1 is the "
                          "white-noise limit, below 1 the noise or correlations cost precision, "
                          "* marks a value above 1 (see the note)")
 
-#: Versions :meth:`FitResult.from_dict` reads (1: warnings as plain strings).
-READABLE_VERSIONS = (1, 2)
+#: Versions :meth:`FitResult.from_dict` reads (1: warnings as plain strings; 2: no
+#: likelihood or runs parts; 3: the portable likelihood, ``fringe combine``).
+READABLE_VERSIONS = (1, 2, 3)
 
 CONVENTIONS = {
     "coefficient_frame": "SCCEF (J2000/ICRS equatorial axes), C2",
@@ -127,6 +131,12 @@ class FitResult:
         The systematic budget (``fringe fit --regress`` or ``--budget``); None when absent.
     blinding : Blinding or None
         The blinding state (``fringe fit --blind``, ``fringe unblind``); None when absent.
+    likelihood : Likelihood or None
+        The run's portable likelihood (linear fits of one run file, version 3); None in older
+        files, for nonlinear theories and for joint results (whose runs carry theirs).
+    runs : Runs or None
+        The runs of a joint fit or a combination (``fringe fit RUN1 RUN2 ...``,
+        ``fringe combine``); None for a fit of one run file.
 
     None marks a part a (hand-made, version-1) file leaves out; ``fringe fit`` fills every
     part. Mappings are read-only (:class:`~fringe.io.records.FrozenMap`), sequences tuples;
@@ -164,6 +174,8 @@ class FitResult:
     sessions: Sessions | None = None
     systematics: Systematics | None = None
     blinding: Blinding | None = None
+    likelihood: Likelihood | None = None
+    runs: Runs | None = None
 
     def __post_init__(self):
         for name in ("coefficients", "fixed", "efficiency", "site", "apparatus", "settings",
@@ -198,7 +210,7 @@ class FitResult:
         Parameters
         ----------
         d : object
-            The parsed JSON (format "fit", version 1 or 2).
+            The parsed JSON (format "fit", version 1, 2 or 3).
         source : str or path
             Named first in every error (the file's path, when read from one).
 
@@ -215,8 +227,8 @@ class FitResult:
         if fmt != FORMAT:
             raise f.error("fringe_format", "'fit' (a result of fringe fit)", fmt)
         if isinstance(version, bool) or version not in READABLE_VERSIONS:
-            raise f.error("fringe_format_version",
-                          " or ".join(map(str, READABLE_VERSIONS)), version)
+            raise f.error("fringe_format_version", ", ".join(map(str, READABLE_VERSIONS[:-1]))
+                          + f" or {READABLE_VERSIONS[-1]}", version)
         f.unknown(("fringe_format", "fringe_format_version")
                   + tuple(x.name for x in fields(cls)))
         coefficients = read_estimates(f, "coefficients", nonempty=True)
@@ -258,7 +270,8 @@ class FitResult:
             calibration=SignalCalibration.read(f, "calibration"),
             motion=Motion.read(f, "motion"), sessions=Sessions.read(f, "sessions"),
             systematics=Systematics.read(f, "systematics"),
-            blinding=Blinding.read(f, "blinding"))
+            blinding=Blinding.read(f, "blinding"),
+            likelihood=Likelihood.read(f, "likelihood"), runs=Runs.read(f, "runs"))
 
     @classmethod
     def read(cls, path) -> FitResult:
@@ -280,17 +293,11 @@ class FitResult:
         (fixed and nuisances too), the per-session amplitudes when they are the result, limits
         and derived speeds, the cross-check, the calibration, warnings and notes.
         """
-        s1, st, nan = self.stage1, self.statistics, float("nan")
-        path = self.input.path if self.input else "?"
-        span = f"{self.span_s / 86400:.2f} d" if self.span_s is not None else "? d"
+        st, nan = self.statistics, float("nan")
         lines = [*([("*** " if self.blinding.blinded else "") + self.blinding.sentence()]
                    if self.blinding is not None else []),
-                 f"fit of {path} — theory {self.theory}, {span}, units {self.units}",
-                 f"turns: {s1.n_accepted if s1 else None} accepted of "
-                 f"{s1.n_blocks if s1 else None} ({s1.n_rejected_glitch if s1 else None} "
-                 f"glitch, {s1.n_rejected_partial if s1 else None} partial); turn period "
-                 f"{s1.turn_period_s if s1 else nan:.4g} s",
-                 *([f"motion: {self.motion.describe()}"] if self.motion else []),
+                 *(joint_header_lines(self.runs, self.theory) if self.runs is not None
+                   else self._run_header_lines()),
                  f"uncertainty: {st.uncertainty if st else None} (reduced chi2 "
                  f"{st.chi2_reduced if st else nan:.3f}, dof {st.dof if st else None})", "",
                  f"{'coefficient':<12}{'value':>13}{'sigma':>12}{'efficiency':>12}"]
@@ -319,12 +326,26 @@ class FitResult:
                 lines.append(f"{name:<12}{'':>13}{v:>12.3g}{'scale':>12}")
         if self.systematics is not None:
             lines += _budget_lines(self.systematics)
+        if self.runs is not None:
+            lines += runs_table_lines(self.runs)
         caution = self.efficiency_caution()
         for w in self.warnings:
             lines.append(f"WARNING: {w.sentence}")
         for n in self.notes + ((caution,) if caution else ()):
             lines.append(f"note: {n}")
         return "\n".join(lines)
+
+    def _run_header_lines(self) -> list[str]:
+        """The summary's first lines for a fit of one run file: input, span, turns, motion."""
+        s1, nan = self.stage1, float("nan")
+        path = self.input.path if self.input else "?"
+        span = f"{self.span_s / 86400:.2f} d" if self.span_s is not None else "? d"
+        return [f"fit of {path} — theory {self.theory}, {span}, units {self.units}",
+                f"turns: {s1.n_accepted if s1 else None} accepted of "
+                f"{s1.n_blocks if s1 else None} ({s1.n_rejected_glitch if s1 else None} "
+                f"glitch, {s1.n_rejected_partial if s1 else None} partial); turn period "
+                f"{s1.turn_period_s if s1 else nan:.4g} s",
+                *([f"motion: {self.motion.describe()}"] if self.motion else [])]
 
     def efficiency_caution(self) -> str | None:
         """A note on efficiencies above 1 (marked ``*`` in :meth:`summary`), or None.
@@ -458,7 +479,7 @@ def _settings(f: Fields) -> Mapping | None:
 
 
 def read_fit_result(path) -> FitResult:
-    """Read and check a fit result file (JSON, format "fit", version 1 or 2).
+    """Read and check a fit result file (JSON, format "fit", version 1, 2 or 3).
 
     Raises :class:`~fringe.errors.InputFileError` with one line "PATH: FIELD: EXPECTED" for a
     missing or unreadable file, invalid JSON or any field :meth:`FitResult.from_dict`

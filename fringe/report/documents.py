@@ -16,6 +16,7 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, NamedTuple
 
 from fringe.report import budget as _budget
+from fringe.report import runs as _runs
 from fringe.report.rms_solve import RmsSolution
 from fringe.report.rounding import (
     format_bound,
@@ -413,6 +414,7 @@ def markdown_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) ->
     if fit.fixed:
         out += [f"Fixed: {_fixed_text(fit)}.", ""]
     out += _budget.budget_markdown(fit)
+    out += _runs.runs_markdown(fit)
     if "comparison" in tables:
         out += ["## Comparison with earlier results", "", to_markdown(tables["comparison"])]
     section = _theory_section(fit)
@@ -446,6 +448,7 @@ def latex_report(c: ReportContent) -> str:
         out += [r"\item " + latex_escape(w) for w in c.warnings] + [r"\end{itemize}"]
     out.append(table)
     out += _budget.budget_latex(c.fit)
+    out += _runs.runs_latex(c.fit)
     if c.fit.fixed:
         out.append(latex_escape(f"Fixed: {_fixed_text(c.fit)}.") + "\n")
     if c.fit.derived is not None and c.fit.theory == ClassicalMedium.name:
@@ -470,6 +473,7 @@ def html_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) -> str
     if c.fit.fixed:
         sections.append(("Fixed coefficients", f"<p>{_html.escape(_fixed_text(c.fit))}</p>"))
     sections += _budget.budget_html(c.fit)
+    sections += _runs.runs_html(c.fit)
     if "comparison" in tables:
         sections.append(("Comparison with earlier results", to_html(tables["comparison"])))
     section = _theory_section(c.fit)
@@ -499,4 +503,4 @@ def summary(c: ReportContent, figure_names: Sequence[str], files: Sequence[str])
             "coefficients": coefs, "comparison": list(c.comparison),
             "rms": c.rms.to_dict() if c.rms is not None else None,
             "figures": list(figure_names), "files": list(files), "provenance": c.provenance,
-            **_budget.budget_summary(c.fit)}
+            **_budget.budget_summary(c.fit), **_runs.runs_summary(c.fit)}

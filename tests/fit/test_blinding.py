@@ -98,7 +98,8 @@ def test_blinded_values_do_not_reveal_the_true_ones(two_truths):
 
 
 #: Fields of a blinded result that carry the offsets (by design) or the key's id.
-BLINDED_FIELDS = ("coefficients.", "harmonics.value", "blinding.key_id", "notes")
+BLINDED_FIELDS = ("coefficients.", "harmonics.value", "likelihood.value", "blinding.key_id",
+                  "notes")
 
 
 def _differing(x: dict, y: dict, rtol: float = 0.0) -> list[str]:
@@ -116,14 +117,18 @@ def _differing(x: dict, y: dict, rtol: float = 0.0) -> list[str]:
 
 
 def test_only_the_blinded_fields_depend_on_the_key(two_truths):
-    """Two keys on one fit: only the coefficient values, the harmonics' values, the key id
-    and the note naming it differ; no number of the file equals an offset or a true value."""
+    """Two keys on one fit: only the coefficient values (also in the likelihood), the
+    harmonics' values, the key id and the note naming it differ; no number of the file equals
+    an offset or a true value."""
     (a, ca), _ = two_truths[0]
     k1 = blind_fit(a, ca, entropy=_entropy("k", 1))
     k2 = blind_fit(a, ca, entropy=_entropy("k", 2))
     diff = _differing(k1[0].to_dict(), k2[0].to_dict())
     assert diff and all(k.lstrip(".").startswith(BLINDED_FIELDS) for k in diff), diff
     assert all(k.endswith(".value") for k in diff if k.startswith(".coefficients"))
+    k_free = k1[0].likelihood.n_coefficients          # the likelihood's nuisances stay as they are
+    assert all(int(k[len(".likelihood.value["):-1]) < k_free for k in diff
+               if k.startswith(".likelihood"))
     numbers = {v for _, v in _leaves(k1[0].to_dict()) if isinstance(v, float)}
     secrets = set(k1[2].offsets.values()) | set(k1[2].harmonic_offsets)
     truths = {e.value for e in a.coefficients.values()} | set(a.harmonics.value)
@@ -141,9 +146,9 @@ def test_the_rest_of_the_file_does_not_depend_on_the_truth(two_truths):
     rest = [k for k in _differing(da, db, rtol=1e-3)
             if not k.lstrip(".").startswith(BLINDED_FIELDS + (
                 "input.", "blinding.settings_sha256", "created_utc", "covariance.matrix",
-                "harmonics.covariance"))]
+                "harmonics.covariance", "likelihood.covariance"))]
     assert not rest, rest
-    for key in ("covariance", "harmonics"):
+    for key in ("covariance", "harmonics", "likelihood"):
         m1 = np.array(da[key]["matrix" if key == "covariance" else "covariance"])
         m2 = np.array(db[key]["matrix" if key == "covariance" else "covariance"])
         scale = np.sqrt(np.outer(np.diag(m1), np.diag(m1)))

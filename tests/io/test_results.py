@@ -63,8 +63,8 @@ BAD_FIELDS = [
     # (field, new value, version 1 or 2, expected text after "PATH: ")
     ("fringe_format", "run", 1, "fringe_format: expected 'fit' (a result of fringe fit), "
                                 "got 'run'"),
-    ("fringe_format_version", 3, 1, "fringe_format_version: expected 1 or 2, got 3"),
-    ("fringe_format_version", True, 1, "fringe_format_version: expected 1 or 2, got True"),
+    ("fringe_format_version", 4, 1, "fringe_format_version: expected 1, 2 or 3, got 4"),
+    ("fringe_format_version", True, 1, "fringe_format_version: expected 1, 2 or 3, got True"),
     ("colour", "blue", 1, "colour: unknown field (expected only fringe_format"),
     ("theory", "", 1, "theory: expected a non-empty string, got ''"),
     ("units", "-", 1, "units: missing; expected a non-empty string"),
@@ -174,7 +174,7 @@ def test_version_1_file_reads_with_unnamed_warnings():
     assert [str(w) for w in res.warnings] == EXAMPLE["warnings"]
     assert all(w.values == {} for w in res.warnings)
     out = res.to_dict()
-    assert out["fringe_format_version"] == FORMAT_VERSION == 2
+    assert out["fringe_format_version"] == FORMAT_VERSION == 3
     assert out["warnings"][0] == {"code": "unnamed", "message": EXAMPLE["warnings"][0],
                                   "values": {}}
     # everything but the version and the warnings is written back as read
