@@ -17,11 +17,11 @@ A result without ``systematics`` and ``blinding`` gives no section and the headl
 from __future__ import annotations
 
 import dataclasses
-import html
 import math
 from collections.abc import Callable
 
 from fringe.io.fit_sections import Estimate
+from fringe.report.markup import html_text
 from fringe.report.rounding import (
     format_bound,
     mantissa_str,
@@ -182,13 +182,13 @@ def budget_markdown(fit) -> list[str]:
 
 def budget_html(fit) -> list[tuple[str, str]]:
     """report.html sections (title, HTML body)."""
-    out = [("Blinding", "".join(f"<p><strong>{html.escape(t)}</strong></p>"
+    out = [("Blinding", "".join(f"<p><strong>{html_text(t)}</strong></p>"
                                 for t in _blinding_text(fit)))] if fit.blinding else []
     table = budget_table(fit)
     if table is not None:
         body = to_html(table) + "<ul>" + "".join(
-            f"<li>{html.escape(x)}</li>" for x in limit_lines(fit)) + "</ul>" + "".join(
-            f"<p>{html.escape(x)}</p>" for x in _channel_lines(fit))
+            f"<li>{html_text(x)}</li>" for x in limit_lines(fit)) + "</ul>" + "".join(
+            f"<p>{html_text(x)}</p>" for x in _channel_lines(fit))
         out.append(("Systematic budget", body))
     return out
 

@@ -125,10 +125,11 @@ def assemble_report(fit_json_path, *, compare=None, kt: tuple[float, float] | No
             "rounding": "Particle Data Group rule (RPP Introduction, sec. 5.3 'Rounding')",
             "intervals": "Gaussian: 68 % = value ± 1σ, 95 % = value ± 1.96σ",
             "95 % bound": "|value| + 1.96σ, rounded up to two significant digits",
-            "rms": "Mansouri–Sexl α, β, δ (SR: −½, ½, 0); P_MM = δ − β + ½ (C13)",
-            "harmonics": "C10: y = B sin 2θ + C cos 2θ of the apparatus's observable y, "
-                         "in its units; factor f to the two-path signal (C9) in the "
-                         "harmonics caption"},
+            "rms": "Mansouri–Sexl α, β, δ (special relativity: −½, ½, 0); "
+                   "P_MM = δ − β + ½ (docs/conventions.md, RMS parameters)",
+            "harmonics": "sidereal harmonics of the 2θ signal: y = B sin 2θ + C cos 2θ of the "
+                         "apparatus's observable y, in its units (docs/conventions.md, Fourier "
+                         "model); its factor f to the two-path signal in the harmonics caption"},
         "software of the fit": plain(fit.software),
         "software of this report": software_versions("matplotlib"),
     }

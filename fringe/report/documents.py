@@ -17,6 +17,7 @@ from typing import TYPE_CHECKING, NamedTuple
 
 from fringe.report import budget as _budget
 from fringe.report import runs as _runs
+from fringe.report.markup import html_text
 from fringe.report.rms_solve import RmsSolution
 from fringe.report.rounding import (
     format_bound,
@@ -51,10 +52,12 @@ __all__ = ["EXTRA_TABLES", "FIGURE_DIR", "headline", "html_report", "latex_repor
            "markdown_report", "summary"]
 
 FIGURE_DIR = "figures"
+#: Heading of the harmonics table (docs/conventions.md, "Fourier model and harmonic names").
+HARMONICS_HEADING = "Sidereal harmonics of the 2θ signal"
 #: Tables after the main ones, in report order: (key of report_tables, heading).
 EXTRA_TABLES = (("sessions", "Per-session 2θ amplitudes"),
                 ("nuisance", "Nuisance parameters"), ("cross_check", "One-stage cross-check"),
-                ("harmonics", "C10 harmonics"), ("correlation", "Correlations"))
+                ("harmonics", HARMONICS_HEADING), ("correlation", "Correlations"))
 
 
 # --------------------------------------------------------------------------- the headline
@@ -301,7 +304,8 @@ def _rms_lines(sol: RmsSolution, style: str) -> list[str]:
 
 def _rms_text(c: ReportContent) -> list[str]:
     """Markdown paragraphs of the RMS section (theory rms only)."""
-    out = ["Convention C13: Mansouri–Sexl α, β, δ (SR: α = −½, β = ½, δ = 0). Papers that quote "
+    out = ["Parameters: the Mansouri–Sexl α, β, δ (special relativity: α = −½, β = ½, δ = 0; "
+           "docs/conventions.md, \"RMS parameters and their combinations\"). Papers that quote "
            "β − δ − ½ quote −(δ − β + ½).", ""]
     sol = c.rms
     if sol is None:
@@ -322,12 +326,10 @@ def _rms_text(c: ReportContent) -> list[str]:
 
 def _rms_html(c: ReportContent) -> str:
     """HTML body of the RMS section (theory rms only)."""
-    import html as _html
-
-    body = "".join(f"<p>{_html.escape(p)}</p>" for p in _rms_text(c)
+    body = "".join(f"<p>{html_text(p)}</p>" for p in _rms_text(c)
                    if p and not p.startswith("- "))
     if c.rms is not None:
-        body += "<ul>" + "".join(f"<li>{_html.escape(x)}</li>"
+        body += "<ul>" + "".join(f"<li>{html_text(x)}</li>"
                                  for x in _rms_lines(c.rms, "unicode")) + "</ul>"
     return body
 
@@ -367,9 +369,7 @@ def _medium_text(c: ReportContent) -> list[str]:
 
 def _medium_html(c: ReportContent) -> str:
     """HTML body of the medium section (theory medium only)."""
-    import html as _html
-
-    return "".join(f"<p>{_html.escape(p)}</p>" for p in _medium_text(c) if p)
+    return "".join(f"<p>{html_text(p)}</p>" for p in _medium_text(c) if p)
 
 
 class _Section(NamedTuple):
@@ -464,14 +464,12 @@ def latex_report(c: ReportContent) -> str:
 
 def html_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) -> str:
     """report.html: one self-contained page (:func:`fringe.report.page.html_page`)."""
-    import html as _html
-
     from fringe.report.page import html_page
 
     tables = report_tables(c.fit, c.comparison, "unicode")
     sections = [("Coefficients", to_html(tables["coefficients"]))]
     if c.fit.fixed:
-        sections.append(("Fixed coefficients", f"<p>{_html.escape(_fixed_text(c.fit))}</p>"))
+        sections.append(("Fixed coefficients", f"<p>{html_text(_fixed_text(c.fit))}</p>"))
     sections += _budget.budget_html(c.fit)
     sections += _runs.runs_html(c.fit)
     if "comparison" in tables:

@@ -1,4 +1,4 @@
-"""Tables of a fit result: coefficients, C10 harmonics, correlations, earlier limits.
+"""Tables of a fit result: coefficients, sidereal harmonics (C10), correlations, earlier limits.
 
 Each ``*_table`` function turns plain numbers into a :class:`Table` (header and string cells,
 rounded by the Particle Data Group rule of :mod:`fringe.report.rounding`) in one text style;
@@ -12,7 +12,6 @@ bound" of a coefficient is max(|low|, |high|) of its 95 % interval = |value| + 1
 
 from __future__ import annotations
 
-import html
 import math
 import re
 from collections.abc import Mapping, Sequence
@@ -21,6 +20,7 @@ from typing import TYPE_CHECKING
 
 from fringe.errors import ConfigError
 from fringe.linalg import correlation_from_covariance
+from fringe.report.markup import html_text
 from fringe.report.rounding import (
     STYLES,
     format_bound,
@@ -379,8 +379,12 @@ def to_latex(table: Table) -> str:
 
 
 def to_html(table: Table) -> str:
-    """An HTML ``<table>`` (cells escaped; Unicode style expected)."""
-    e = html.escape
+    """An HTML ``<table>`` of a Unicode-style table.
+
+    Every text goes through :func:`fringe.report.markup.html_text` (escaped; names and
+    subscripts marked up).
+    """
+    e = html_text
     out = ["<table>"]
     if table.caption:
         out.append(f"<caption>{e(table.caption)}</caption>")
@@ -458,17 +462,19 @@ def two_path_factor_of(fit: FitResult) -> tuple[str | None, complex | None, bool
 def harmonics_caption(fit: FitResult) -> str:
     """Caption of the harmonics table: the observable and its factor to the two-path signal."""
     observable, f, derived = two_path_factor_of(fit)
-    head = ("C10 harmonics of the observable fitted, per turn y = B sin 2θ + C cos 2θ with "
-            "C = C0 + Cs1 sin φ + …, in the observable's units")
+    head = ("Sidereal harmonics of the 2θ signal of the observable fitted: per turn "
+            "y = B sin 2θ + C cos 2θ with C = C0 + Cs1 sin φ + Cc1 cos φ + Cs2 sin 2φ + "
+            "Cc2 cos 2φ and B alike, in the observable's units (sine and cosine amplitudes as "
+            "defined in docs/conventions.md, \"Fourier model and harmonic names\")")
     if f is None:
         return head + "; the fit file does not state the observable's factor to the two-path " \
-                      "signal (C9)."
+                      "signal (docs/conventions.md, \"Normalisation: two paths\")."
     source = " (derived by the report from the fit's apparatus record)" if derived else ""
     if f == 0:
         return f"{head}. Observable: {observable}{source}; it has no 2θ response."
-    return (f"{head}. Observable: {observable}{source}. Two-path signal S of C9: for each pair "
-            f"h = C − iB, h_S = h / f with f = {_format_factor(f)} (for a real f: C_S = C/f, "
-            "B_S = B/f).")
+    return (f"{head}. Observable: {observable}{source}. Two-path signal S (docs/conventions.md, "
+            f"\"Normalisation: two paths\"): for each pair h = C − iB, h_S = h / f with "
+            f"f = {_format_factor(f)} (for a real f: C_S = C/f, B_S = B/f).")
 
 
 def report_tables(fit: FitResult, comparison: Sequence[Mapping] = (), style: str = "unicode"
