@@ -34,6 +34,8 @@ __all__ = ["SCHEDULER_TIMEOUT_S", "connect", "map_tasks"]
 
 #: Seconds to wait for a dask scheduler before giving up.
 SCHEDULER_TIMEOUT_S = 10.0
+#: seconds to wait for each ended worker process and for the pool's thread after an interrupt
+STOP_JOIN_S = 10.0
 
 #: What a worker process that ended abruptly is reported as.
 WORKER_LOST = ("the worker process ended abruptly (killed, out of memory or crashed) while "
@@ -139,11 +141,23 @@ def _pool_round(func, items, indices, fail, workers, out, tick) -> list[int]:
 
 
 def _stop(pool: ProcessPoolExecutor) -> None:
-    """Cancel what is queued and terminate the worker processes (no waiting for campaigns)."""
+    """Cancel what is queued and terminate the worker processes (no waiting for campaigns).
+
+    The processes and the pool's management thread are taken before ``shutdown``, which
+    forgets them; after the workers are ended the thread sees the broken pool and is joined, so
+    no thread of the pool outlives the call (it would keep the interpreter from exiting).
+    """
+    processes = list((getattr(pool, "_processes", None) or {}).values())
+    manager = getattr(pool, "_executor_manager_thread", None)
     pool.shutdown(wait=False, cancel_futures=True)
-    for proc in list((getattr(pool, "_processes", None) or {}).values()):
-        with contextlib.suppress(OSError, AttributeError):
+    for proc in processes:
+        with contextlib.suppress(OSError, AttributeError, ValueError):
             proc.terminate()
+    for proc in processes:
+        with contextlib.suppress(OSError, AttributeError, ValueError, AssertionError):
+            proc.join(STOP_JOIN_S)
+    if manager is not None:
+        manager.join(STOP_JOIN_S)
 
 
 def _pool(func, items, fail, workers, tick) -> list:

@@ -346,7 +346,10 @@ def test_a_folder_as_input_is_one_line_not_the_usage_text(tmp_path, args):
     run = run_command(tmp_path, args)
     assert run.exit_code == 2
     line = one_error_line(run.stderr)
-    assert line.startswith("error: adir: file: expected"), line
+    if args[0] == "fit":              # fit takes a folder of run files (a joint fit)
+        assert line == "error: adir: folder: expected run files (*.h5) in it, found none", line
+    else:
+        assert line.startswith("error: adir: file: expected"), line
     assert sorted(os.listdir(tmp_path)) == ["adir"]
 
 

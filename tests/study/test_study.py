@@ -10,6 +10,7 @@ from __future__ import annotations
 import json
 import math
 import pickle
+import threading
 import time
 import warnings
 
@@ -184,11 +185,15 @@ def test_an_interrupt_stops_the_pool_without_waiting_for_the_queue():
     def interrupt(done, total):
         raise KeyboardInterrupt
 
+    before = set(threading.enumerate())
     t0 = time.monotonic()
     with pytest.raises(KeyboardInterrupt):
         map_tasks(study_faults.quick_then_slow, [0, 1, 2, 3, 4, 5], study_faults.fail_record,
                   workers=2, progress=interrupt)
     assert time.monotonic() - t0 < 100       # not 2 x 120 s of queued items
+    # before: the pool's management thread stayed alive and kept the interpreter from exiting
+    left = [t for t in threading.enumerate() if t not in before and t.is_alive() and not t.daemon]
+    assert left == []
 
 
 def test_unreachable_scheduler_is_one_line_quickly():
