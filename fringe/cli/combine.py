@@ -17,11 +17,15 @@ from fringe.cli.common import run_guarded, verbosity_options
 @click.option("--out", "out_path", required=True, metavar="FILE",
               help="Combined result file to write (one JSON file, e.g. joint.json; not a "
                    "directory).")
+@click.option("--budget", "budget_path", default=None, metavar="FILE",
+              help="Systematic budget file (TOML) of terms declared on the combined "
+                   "coefficients: coefficient and scale terms (docs/fit.md); the results' own "
+                   "budgets are carried in any case  [default: none]")
 @click.option("--overwrite", is_flag=True, show_default=True,
               help="Replace an existing --out file.")
 @verbosity_options
 @run_guarded
-def command(fit_files, out_path, overwrite):
+def command(fit_files, out_path, budget_path, overwrite):
     """Combine fit results of different runs (sites, apparatus) into one set of coefficients.
 
     Each FIT_FILE is a result of fringe fit (format 3: it carries its run's likelihood) or of
@@ -37,8 +41,13 @@ def command(fit_files, out_path, overwrite):
         raise ConfigError(f"FIT_FILE: expected at least two fit results to combine, got "
                           f"{len(fit_files)}")
     check_output_path(out_path, overwrite=overwrite, protect=fit_files)
+    budget = None
+    if budget_path is not None:
+        from fringe.io.budget_file import read_budget
+
+        budget = read_budget(budget_path)
     results = [(path, read_fit_result(path)) for path in fit_files]
-    combined = combine_results(results)
+    combined = combine_results(results, budget=budget)
     write_json_atomic(out_path, combined.to_dict(), overwrite=overwrite, protect=fit_files)
     click.echo(combined.summary())
     click.echo(f"\nwrote {out_path}")

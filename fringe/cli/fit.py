@@ -106,8 +106,7 @@ def command(run_files, out_path, theory, free, fixes, uncertainty, bootstrap_day
     if scratch_dir is not None:
         check_directory_writable(scratch_dir, shown=f"--scratch-dir {scratch_dir}")
     if len(paths) > 1 or folder:
-        for given, option in ((blind_key, "--blind"), (budget_path, "--budget"),
-                              (cross_check or None, "--cross-check")):
+        for given, option in ((blind_key, "--blind"), (cross_check or None, "--cross-check")):
             if given is not None:
                 raise ConfigError(f"{option}: not available for a joint fit of several run "
                                   "files (fit each run with it, then fringe combine)")
@@ -118,7 +117,8 @@ def command(run_files, out_path, theory, free, fixes, uncertainty, bootstrap_day
                                lab_b0=not no_lab_b0, lab_c0=lab_c0, regress=tuple(regress))
         demod = DemodSettings(drift=drift, max_harmonic=max_harmonic, min_samples=min_samples)
         _joint(paths, out_path, settings, demod, why, engine=engine, scheduler=scheduler,
-               dut1_s=dut1_s, scratch_dir=scratch_dir, overwrite=overwrite)
+               dut1_s=dut1_s, scratch_dir=scratch_dir, overwrite=overwrite,
+               budget=_read_budget(budget_path))
         return
     run_file = paths[0]
     theory, why = choose_theory(run_file, theory)
@@ -204,8 +204,17 @@ def run_paths(given) -> tuple[list[str], bool]:
     return out, folder
 
 
+def _read_budget(budget_path):
+    """The budget file's declared terms (None without --budget)."""
+    if budget_path is None:
+        return None
+    from fringe.io.budget_file import read_budget
+
+    return read_budget(budget_path)
+
+
 def _joint(paths, out_path, settings, demod, why, *, engine, scheduler, dut1_s, scratch_dir,
-           overwrite) -> None:
+           overwrite, budget=None) -> None:
     """The joint fit of several run files: fit each, combine, write FIT.json only."""
     from fringe.fit.joint import fit_joint
     from fringe.io.atomic import check_output_path, write_json_atomic
@@ -222,7 +231,8 @@ def _joint(paths, out_path, settings, demod, why, *, engine, scheduler, dut1_s, 
     with progress(n, "joint fit, stage 1 of each run") as bar, warnings_once() as fitted:
         result = fit_joint(paths, settings, demod, engine=engine, scheduler=scheduler,
                            dut1_s=dut1_s, progress=bar.update,
-                           scratch_dir=scratch_dir or str(Path(out_path).resolve().parent))
+                           scratch_dir=scratch_dir or str(Path(out_path).resolve().parent),
+                           budget=budget)
         fitted.append(result)
         fitted.append(_run_warnings(result))
     write_json_atomic(out_path, result.to_dict(), overwrite=overwrite, protect=paths)

@@ -74,6 +74,7 @@ class RunPart:
     warnings: tuple = ()
     source: str = ""          # the fit result file it came from ("" for a run fitted here)
     notes: tuple = ()         # the run's own notes (cautions among them)
+    systematics: object = None  # the run's own budget (Systematics), carried into the joint one
 
 
 def run_part(result: FitResult, source: str = "") -> RunPart:
@@ -95,7 +96,8 @@ def run_part(result: FitResult, source: str = "") -> RunPart:
         uncertainty=st.uncertainty if st else result.likelihood.uncertainty,
         chi2_reduced=float(st.chi2_reduced) if st else float("nan"),
         dof=int(st.dof) if st else result.likelihood.dof, likelihood=result.likelihood,
-        warnings=tuple(result.warnings), source=source, notes=tuple(result.notes))
+        warnings=tuple(result.warnings), source=source, notes=tuple(result.notes),
+        systematics=result.systematics)
 
 
 def _parts_of_entry(entry: RunEntry, source: str) -> RunPart:
@@ -191,11 +193,13 @@ def _check_parts(parts: list[RunPart], theory: str, fixed_of: list) -> tuple[str
 
 def combine_parts(parts: list[RunPart], *, theory: str, fixed: dict, method: str,
                   route: str = "marginal", settings: dict | None = None,
-                  notes: tuple[str, ...] = ()) -> FitResult:
+                  notes: tuple[str, ...] = (), budget=None) -> FitResult:
     """The joint result of the runs ``parts`` (see module docstring).
 
     ``route``: "schur" (from each run's normal equations, the joint fit) or "marginal" (from
-    the marginal covariances, the combination); ``method`` as :data:`JOINT_METHODS`.
+    the marginal covariances, the combination); ``method`` as :data:`JOINT_METHODS`;
+    ``budget``: terms declared on the joint coefficients (:mod:`fringe.fit.joint_budget`, which
+    also carries each run's own budget through its weight matrix).
     """
     if not parts:
         raise ConfigError("joint fit: no run to combine")
@@ -210,7 +214,7 @@ def combine_parts(parts: list[RunPart], *, theory: str, fixed: dict, method: str
     except SingularMatrixError:
         raise FitError("joint fit: singular joint information matrix") from None
     x = cov @ b_tot
-    entries, chi2_at, dof_sum, agreement = [], 0.0, 0, 0.0
+    entries, chi2_at, dof_sum, agreement, budgets = [], 0.0, 0, 0.0, []
     diag_tot = np.diag(f_tot)
     for i, (p, (f, _)) in enumerate(zip(parts, fb), start=1):
         own_idx = [p.likelihood.columns.index(n) for n in names]
@@ -219,7 +223,9 @@ def combine_parts(parts: list[RunPart], *, theory: str, fixed: dict, method: str
         d = x - own
         delta = float(max(d @ f @ d, 0.0))
         agreement += delta
-        weight = np.diag(cov @ f)
+        weight_matrix = cov @ f
+        weight = np.diag(weight_matrix)
+        budgets.append((f"run {i}", p.path, p.systematics, own, weight_matrix))
         entries.append(RunEntry(
             label=f"run {i}", path=p.path, sha256=p.sha256, site=p.site,
             apparatus=p.apparatus, epoch_utc=p.epoch_utc, span_s=p.span_s, units=p.units,
@@ -252,7 +258,12 @@ def combine_parts(parts: list[RunPart], *, theory: str, fixed: dict, method: str
         all_notes.append(f"the runs' observables have different units ({', '.join(units)}): "
                          "each run's nuisances are in its own (runs table)")
     now = datetime.datetime.now(datetime.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+    from fringe.fit.joint_budget import joint_systematics
+    from fringe.theories import make_theory
     from fringe.version import software_versions
+
+    systematics = joint_systematics(budgets, names, x, cov, budget,
+                                    dict(make_theory(theory).parameter_units))
 
     return FitResult(
         theory=theory, units=units[0] if len(units) == 1 else "per run",
@@ -263,7 +274,8 @@ def combine_parts(parts: list[RunPart], *, theory: str, fixed: dict, method: str
                               sum(p.n_turns for p in parts)),
         stage1=None, site=None, apparatus=None, epoch_utc=None, span_s=None,
         settings=settings or {}, input=None, software=software_versions(),
-        created_utc=now, notes=tuple(all_notes), conventions=CONVENTIONS, runs=runs)
+        created_utc=now, notes=tuple(all_notes), conventions=CONVENTIONS, runs=runs,
+        systematics=systematics)
 
 
 def _run_notes(entries, parts) -> list[str]:
@@ -285,19 +297,20 @@ def _upper_tail(chi2: float, dof: int) -> float:
 
 # ------------------------------------------------------------------ combine stored results
 
-def combine_results(results: list[tuple[str, FitResult]]) -> FitResult:
+def combine_results(results: list[tuple[str, FitResult]], budget=None) -> FitResult:
     """``fringe combine``: the joint result of stored fit results (see module docstring).
 
     ``results``: (file, result) pairs. A result of one run contributes its likelihood; a joint
     result contributes each of its runs. Refused with one line (ConfigError): a blinded
     result, one without a likelihood (older format, nonlinear theory), results of another
     theory, other conventions, another free set or other fixed values, and the same run file
-    (by its SHA-256) twice.
+    (by its SHA-256) twice. Each result's own budget is carried into the combination's
+    (:mod:`fringe.fit.joint_budget`); ``budget`` declares terms on the combined coefficients.
     """
     if len(results) < 2:
         raise ConfigError("combine: expected at least two fit results")
     first_src, first = results[0]
-    parts, sources = [], []
+    parts, sources, notes = [], [], []
     for src, r in results:
         if r.blinding is not None and r.blinding.blinded:
             raise ConfigError(f"{src}: blinding: the result is blinded; combine unblinded "
@@ -317,12 +330,16 @@ def combine_results(results: list[tuple[str, FitResult]]) -> FitResult:
                               f"{dict(r.fixed) or 'none'}")
         if r.runs is not None:
             parts += [_parts_of_entry(e, src) for e in r.runs.runs]
+            if r.systematics is not None:
+                notes.append(f"the systematic budget of {src} (a joint result) is not carried "
+                             "into this combination: combine its runs' own results instead")
         else:
             parts.append(run_part(r, src))
         sources.append(src)
     return combine_parts(parts, theory=first.theory, fixed=dict(first.fixed),
                          method="combination", route="marginal",
-                         settings={"combined_from": [str(s) for s in sources]})
+                         settings={"combined_from": [str(s) for s in sources]},
+                         notes=tuple(notes), budget=budget)
 
 
 # ------------------------------------------------------------------ the joint fit of run files
@@ -359,8 +376,8 @@ def joint_free(setups_spans, settings) -> tuple[tuple[str, ...], list[str]]:
 
 
 def fit_joint(paths, settings, demod=None, *, engine: str = "local", scheduler=None,
-              dut1_s: float = 0.0, progress=None, scratch_dir: str | None = None
-              ) -> FitResult:
+              dut1_s: float = 0.0, progress=None, scratch_dir: str | None = None,
+              budget=None) -> FitResult:
     """Fit several run files jointly: one set of coefficients (see module docstring).
 
     Each file is fitted as by :func:`fringe.fit.run.fit_run` with the same settings and free
@@ -426,7 +443,7 @@ def fit_joint(paths, settings, demod=None, *, engine: str = "local", scheduler=N
     return combine_parts(parts, theory=settings.theory, fixed=dict(settings.fixed),
                          method="joint fit", route="schur",
                          settings={"fit": run_settings.to_dict(), "engine": engine,
-                                   "dut1_s": dut1_s}, notes=tuple(notes))
+                                   "dut1_s": dut1_s}, notes=tuple(notes), budget=budget)
 
 
 def _fit_part(path: str, settings, demod, dut1_s: float) -> RunPart:

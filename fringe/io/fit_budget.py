@@ -22,9 +22,10 @@ from fringe.io.records import Fields, FrozenMap, freeze, plain
 __all__ = ["TERM_KINDS", "Blinding", "Systematics", "quadrature_total"]
 
 #: Kinds of budget terms: an auxiliary channel's coupling, a declared size on a coefficient,
-#: on a harmonic, a relative scale (declared, or the run file's calibration).
+#: on a harmonic, a relative scale (declared, or the run file's calibration), and in a joint
+#: result a run's scale carried through the run's weights (a fixed size).
 TERM_KINDS = ("aux-channel", "aux-channel-noise", "declared-coefficient", "declared-harmonic",
-              "scale")
+              "scale", "run-scale")
 
 _SYS_KEYS = ("coefficients", "terms", "channels", "aux_joint_variance", "correlations",
              "budget_file", "withheld")

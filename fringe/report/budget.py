@@ -72,9 +72,11 @@ def budget_table(fit, style: str = "unicode") -> Table | None:
             cells.append("withheld" if v is None else format_bound(v, style))
         rows.append((coefficient_label(name, style), *cells,
                      format_bound(c["total"], style)))
-    caption = ("Systematic budget, 1σ in coefficient units: statistical (the fit's σ without "
-               "the auxiliary couplings' part), each term, and the total in quadrature. "
-               + s.correlations + ".")
+    stat = ("the joint σ, the runs' auxiliary couplings inside it" if fit.runs is not None
+            else "the fit's σ without the auxiliary couplings' part")
+    caption = (f"Systematic budget, 1σ in coefficient units: statistical ({stat}), each term, "
+               "and the total in quadrature. " + s.correlations[:1].upper()
+               + s.correlations[1:] + ".")
     return Table(header, tuple(rows), caption=caption, label="tab:budget", style=style)
 
 

@@ -127,3 +127,40 @@ def test_combine_refuses_a_blinded_result_and_fit_refuses_blind_joint(labs, tmp_
                               str(tmp_path / "y.json"), "--blind", str(tmp_path / "k2.key")]),
               "--blind: not available for a joint fit")
     assert not (tmp_path / "x.json").exists() and not (tmp_path / "y.json").exists()
+
+
+def test_the_two_laboratories_budgets_reach_the_combined_report(labs, tmp_path):
+    # issue 16's done-when: runs, budget and limits with statistical and systematic parts
+    d, _ = labs
+    budget = tmp_path / "cavity_budget.toml"
+    budget.write_text('[[term]]\nname = "mount creep"\ncoefficient = "ke_ZZ"\nsize = 3e-17\n'
+                      'units = "1"\n[[scale]]\nname = "beat calibration"\nrelative = 0.02\n',
+                      encoding="utf-8")
+    shared = tmp_path / "shared.toml"
+    shared.write_text('[[term]]\nname = "reference drift"\ncoefficient = "ke_XY"\n'
+                      'size = 1e-17\nunits = "1"\n', encoding="utf-8")
+    for args in (["fit", "cavity.h5", "--out", str(tmp_path / "cav.json"), "--budget",
+                  str(budget)],
+                 ["combine", str(tmp_path / "cav.json"), "michelson.json", "--out",
+                  str(tmp_path / "both.json"), "--budget", str(shared)],
+                 ["fit", "cavity.h5", "michelson.h5", "--out", str(tmp_path / "jb.json"),
+                  "--budget", str(shared)],
+                 ["report", str(tmp_path / "both.json"), "--out", str(tmp_path / "rep")]):
+        got = run_command(d, args)
+        assert got.exit_code == 0, got.stderr
+    both = _json(tmp_path / "both.json")["systematics"]
+    assert [t["name"] for t in both["terms"]] == [
+        "run 1: mount creep", "run 1: beat calibration", "reference drift"]
+    zz = both["coefficients"]["ke_ZZ"]
+    assert 0 < zz["terms"]["run 1: mount creep"] < 3e-17         # shared with the Michelson
+    assert _json(tmp_path / "jb.json")["systematics"]["coefficients"]["ke_XY"]["terms"] == {
+        "reference drift": 1e-17}
+    md = (tmp_path / "rep" / "report.md").read_text("utf-8")
+    assert "## Runs" in md and "run 1: mount creep" in md and "(stat)" in md and "(syst)" in md
+    bad = tmp_path / "harmonic.toml"
+    bad.write_text('[[term]]\nname = "t"\nharmonic = "Cs2"\nsize = 1e-3\nunits = "Hz"\n',
+                   encoding="utf-8")
+    _one_line(run_command(d, ["combine", "cavity.json", "michelson.json", "--out",
+                              str(tmp_path / "z.json"), "--budget", str(bad)]),
+              "term[0].harmonic: expected a coefficient term for a joint result")
+    assert not (tmp_path / "z.json").exists()
