@@ -143,6 +143,7 @@ def run_guarded(func):
             warnings.showwarning = old
             for sig, handler in old_handlers.items():
                 signal.signal(sig, handler)
+            clear_interrupt()                # a later write in this process is not refused
 
     return wrapper
 

@@ -105,8 +105,8 @@ def joint_systematics(runs, names, values, cov, budget: Budget | None,
         where = f"{budget.path}: term[{i}]"
         if t.coefficient is None:
             raise ConfigError(f"{where}.harmonic: expected a coefficient term for a joint "
-                              "result (a harmonic belongs to one run: fit that run with "
-                              "--budget, then combine)")
+                              "result (a harmonic belongs to one run: fit that run with its "
+                              "budget, then combine the results)")
         if t.coefficient not in names:
             raise ConfigError(f"{where}.coefficient: expected a coefficient of the joint "
                               f"result ({', '.join(names)}), got {t.coefficient!r}")

@@ -293,7 +293,10 @@ def write_atomic(path: str | os.PathLike, writer: Callable[[str], None], *,
         raise output_error(out, exc) from None
     try:
         writer(tmp)
-        os.replace(tmp, target)
+        with signals_deferred():          # an interrupt before the rename discards the file
+            if pending_interrupt():       # held now, or swallowed on the way (a finaliser)
+                raise KeyboardInterrupt
+            os.replace(tmp, target)
     except OSError as exc:
         _remove_quietly(tmp)
         raise output_error(out, exc) from None

@@ -23,6 +23,7 @@ from fringe.io.atomic import (
     check_name_length,
     name_max,
     output_error,
+    pending_interrupt,
     real_target,
     signals_deferred,
     sweep_leftovers,
@@ -375,11 +376,14 @@ class RunWriter:
                 raise output_error(self.path, self._guard.error)
             if os.path.exists(self.path) and not self._overwrite:
                 raise output_exists(self.path)
-            try:
-                os.replace(self._tmp, real_target(self.path))
-            except OSError as exc:
-                raise output_error(self.path, exc) from None
-            self._tmp = None
+            with signals_deferred():      # the rename and its record, or neither
+                if pending_interrupt():   # held now, or swallowed on the way (a finaliser)
+                    raise KeyboardInterrupt
+                try:
+                    os.replace(self._tmp, real_target(self.path))
+                except OSError as exc:
+                    raise output_error(self.path, exc) from None
+                self._tmp = None
         except BaseException:
             self.abort()
             raise

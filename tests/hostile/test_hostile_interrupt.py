@@ -226,3 +226,44 @@ def test_fit_killed_mid_way_writes_nothing(tmp_path):
     assert sweep_leftovers(out_dir) == [out_dir / left[0]]
     assert os.listdir(out_dir) == []
     assert digest(run_path) == before
+
+
+# == an interrupt that something swallowed before the commit ====================================
+# Python drops an exception raised inside a finaliser ("Exception ignored in ..."), so the
+# KeyboardInterrupt of a SIGINT that lands there never reaches the command; its handler has
+# recorded it. before: the run writer and write_atomic then renamed the finished file into
+# place and the command still said "no partial output was kept" (seen once in CI).
+
+def test_a_swallowed_interrupt_stops_the_run_writer_commit(tmp_path):
+    from fringe.io.atomic import clear_interrupt, note_interrupt
+
+    out = tmp_path / "run.h5"
+    try:
+        with pytest.raises(KeyboardInterrupt):
+            with RunWriter(out, site={"latitude_deg": 10.0, "longitude_deg": 20.0},
+                           epoch_utc=EPOCH, apparatus={"kind": "clock", "sensitivity_hz": 1.0},
+                           signal_units="Hz") as w:
+                w.append(np.arange(50.0), np.zeros(50), np.ones(50))
+                note_interrupt(signal.SIGINT)          # as the command line's handler does
+    finally:
+        clear_interrupt()
+    assert os.listdir(tmp_path) == []
+
+
+def test_a_swallowed_interrupt_stops_write_atomic(tmp_path):
+    from fringe.io.atomic import clear_interrupt, note_interrupt, write_text_atomic
+
+    out = tmp_path / "a.txt"
+
+    def writer_then_noted(text):
+        note_interrupt(signal.SIGTERM)
+        return text
+
+    try:
+        with pytest.raises(KeyboardInterrupt):
+            write_text_atomic(out, writer_then_noted("whole"))
+    finally:
+        clear_interrupt()
+    assert os.listdir(tmp_path) == []
+    write_text_atomic(out, "whole")                   # once cleared, writes go through
+    assert out.read_text() == "whole"
