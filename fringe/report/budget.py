@@ -56,7 +56,8 @@ def budget_table(fit, style: str = "unicode") -> Table | None:
     """The budget table (None without a ``systematics`` part).
 
     Rows: the free coefficients; columns: statistical, each term, total (1 sigma, coefficient
-    units, each rounded up to two significant digits). A withheld term reads "withheld".
+    units, each rounded to the nearest two significant digits, so that they agree with the
+    limit lines that print the same sigmas). A withheld term reads "withheld".
     """
     s = fit.systematics
     if s is None:
@@ -66,12 +67,12 @@ def budget_table(fit, style: str = "unicode") -> Table | None:
     header = ("coefficient", "statistical", *(esc(n) for n in names), "total")
     rows = []
     for name, c in s.coefficients.items():
-        cells = [format_bound(c["statistical"], style)]
+        cells = [format_bound(c["statistical"], style, upward=False)]
         for n in names:
             v = c["terms"].get(n)
-            cells.append("withheld" if v is None else format_bound(v, style))
+            cells.append("withheld" if v is None else format_bound(v, style, upward=False))
         rows.append((coefficient_label(name, style), *cells,
-                     format_bound(c["total"], style)))
+                     format_bound(c["total"], style, upward=False)))
     stat = ("the joint σ, the runs' auxiliary couplings inside it" if fit.runs is not None
             else "the fit's σ without the auxiliary couplings' part")
     caption = (f"Systematic budget, 1σ in coefficient units: statistical ({stat}), each term, "

@@ -286,10 +286,13 @@ def format_interval(low: float, high: float, place: int, exponent: int,
     return f"[{lo}e{exponent}, {hi}e{exponent}]"
 
 
-def format_bound(x: float, style: str = "unicode", digits: int = 2) -> str:
+def format_bound(x: float, style: str = "unicode", digits: int = 2, *,
+                 upward: bool = True) -> str:
     """A non-negative bound rounded *up* to ``digits`` significant digits.
 
     Rounding up keeps the printed bound at or above the computed one (common practice).
+    ``upward=False`` rounds to the nearest instead (half up): for a size that is not a bound,
+    such as an uncertainty in a table beside lines that print the same number.
 
     Examples
     --------
@@ -310,10 +313,11 @@ def format_bound(x: float, style: str = "unicode", digits: int = 2) -> str:
         return "0"
     with localcontext() as ctx:
         ctx.prec = _PRECISION
-        r = d.quantize(Decimal(1).scaleb(d.adjusted() - (digits - 1)), rounding=ROUND_CEILING)
+        mode = ROUND_CEILING if upward else ROUND_HALF_UP
+        r = d.quantize(Decimal(1).scaleb(d.adjusted() - (digits - 1)), rounding=mode)
         e = r.adjusted()
         place = e - (digits - 1)
-        r = r.quantize(Decimal(1).scaleb(place), rounding=ROUND_CEILING)
+        r = r.quantize(Decimal(1).scaleb(place), rounding=mode)
     if PLAIN_EXPONENTS[0] <= e <= PLAIN_EXPONENTS[1]:
         e = 0
     m = mantissa_str(r, place, e)

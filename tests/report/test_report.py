@@ -84,6 +84,10 @@ def test_formatter_styles():
     assert format_interval(-2.2e-17, 4.6e-17, -18, -17) == "[−2.2, 4.6]×10⁻¹⁷"
     assert format_bound(3.01e-17) == "3.1×10⁻¹⁷"                # rounded up, never down
     assert format_bound(9.96e-18, "latex") == r"$1.0\times10^{-17}$"
+    # a size that is not a bound (the budget table's sigmas) rounds to the nearest
+    assert format_bound(3.01e-17, upward=False) == "3.0×10⁻¹⁷"
+    assert format_bound(1.54e-17, upward=False) == "1.5×10⁻¹⁷"
+    assert format_bound(9.96e-18, upward=False) == "1.0×10⁻¹⁷"
 
 
 @pytest.mark.parametrize(("value", "sigma"), [(math.nan, 1.0), (1.0, math.nan),
