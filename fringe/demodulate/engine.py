@@ -468,15 +468,13 @@ def _connect(client_class, address):
                           "and that the scheduler is running") from None
 
 
-def connect_scheduler(address):
-    """A ``distributed.Client`` of the scheduler at ``address`` (one-line ConfigError)."""
-    from distributed import Client
+def scheduler_client(scheduler):
+    """``(client, own)``: a ``distributed.Client`` for ``scheduler`` and whether it was made here.
 
-    return _connect(Client, address)
-
-
-def _run_dask(info, settings, parts, scheduler, collect, progress=None):
-    """Run the ranges on a dask cluster; join them in range order, reporting each one done."""
+    ``scheduler`` is an address (a new client, ``own`` True: close it when done) or a client
+    already connected (used as it is). One-line ConfigError: dask not installed, no scheduler
+    given, or the scheduler unreachable.
+    """
     try:
         from distributed import Client
     except ImportError:
@@ -485,7 +483,12 @@ def _run_dask(info, settings, parts, scheduler, collect, progress=None):
     if scheduler is None:
         raise ConfigError("engine='dask': needs scheduler=ADDRESS (e.g. tcp://host:8786)")
     own = not isinstance(scheduler, Client)
-    client = _connect(Client, scheduler) if own else scheduler
+    return (_connect(Client, scheduler) if own else scheduler), own
+
+
+def _run_dask(info, settings, parts, scheduler, collect, progress=None):
+    """Run the ranges on a dask cluster; join them in range order, reporting each one done."""
+    client, own = scheduler_client(scheduler)
     # the workers resolve a relative path against their own working directory: send the
     # absolute one (on a shared filesystem it names the same file)
     info = dataclasses.replace(info, path=os.path.abspath(info.path))

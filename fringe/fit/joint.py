@@ -464,20 +464,11 @@ def _parts_on_dask(paths, settings, demod, dut1_s, scheduler, progress, n_sample
     """The runs' RunParts fitted on a dask cluster, one task per run, in the order of paths."""
     import os
 
-    try:
-        from distributed import Client, as_completed
-    except ImportError:
-        raise ConfigError("engine='dask': needs the 'dask' extra (pip install "
-                          "'fringe[dask]')") from None
-    if scheduler is None:
-        raise ConfigError("engine='dask': needs scheduler=ADDRESS (e.g. tcp://host:8786)")
-    own = not isinstance(scheduler, Client)
-    if own:
-        from fringe.demodulate.engine import connect_scheduler
+    from fringe.demodulate.engine import scheduler_client
 
-        client = connect_scheduler(scheduler)
-    else:
-        client = scheduler
+    client, own = scheduler_client(scheduler)
+    from distributed import as_completed
+
     try:
         futures = {client.submit(_fit_part, os.path.abspath(p), settings, demod, dut1_s,
                                  pure=False): i for i, p in enumerate(paths)}
