@@ -18,7 +18,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from fringe.conventions import theta_from_azimuth
 from fringe.demodulate.blocks import demodulate_blocks, turn_boundaries
 from fringe.demodulate.motion import (
     LegCutter,
@@ -26,6 +25,7 @@ from fringe.demodulate.motion import (
     detect_motion,
     gap_harmonic,
     moving_mask,
+    unwrapped_theta,
 )
 from fringe.demodulate.settings import DemodSettings, leak_terms
 from fringe.demodulate.turn_store import Scratch, SpillingTurnBuilder, TurnStore
@@ -119,13 +119,13 @@ def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = (
                               f"(have {', '.join(run.aux_channels) or 'none'})")
     attrs, weighted = run.signal_attrs, run.weighted
     t, az = first["time"], first["azimuth"]
-    motion = detect_motion(t, az, settings, source=str(path))
+    theta = unwrapped_theta(az)
+    motion = detect_motion(t, az, settings, source=str(path), theta_rad=theta)
     check_coverage(motion, t, az, settings, source=str(path))
     period = motion.turn_period_s
     max_gap = settings.max_gap_s if settings.max_gap_s is not None else 0.25 * period
     starts = _leg_block_starts(run, max_gap) if motion.reverses else None
     gate = (attrs["gate_s"], attrs["gate_kind"]) if "gate_s" in attrs else None
-    theta = np.unwrap(theta_from_azimuth(az))
     dt = np.diff(t)
     return RecordInfo(path=str(path), n_samples=n, theta0_rad=reference_angle(theta),
                       turn_period_s=float(period), max_gap_s=float(max_gap),
