@@ -48,6 +48,11 @@ MAX_BLOCK_SAMPLES = 1 << 21
 #: angle): a record's stage 1 depends on its first SURVEY_SAMPLES samples and the blocks' own.
 SURVEY_SAMPLES = 1 << 16
 
+#: Records of at most this many samples, fitted whole with the local engine, are read into
+#: memory once (:meth:`fringe.io.runreader.RunFile.load`; about 24 bytes per sample and
+#: channel) and split into LOCAL_THREADS equal ranges; longer ones are read range by range.
+WHOLE_RECORD_SAMPLES = 1 << 19
+
 #: Registry of the engines of stage 1 (also the CLI's choices).
 ENGINES = ("local", "dask")
 
@@ -384,10 +389,13 @@ def stage1_store(path: str, settings: DemodSettings, *, aux_channels: tuple[str,
                                 scratch=scratch, glitch_rule=glitch_rule, run=own,
                                 start=start, stop=stop)
     if engine == "local":
-        info = survey(path, settings, aux_channels, run=run)
+        source = _loaded(run, aux_channels, start, stop)
+        info = survey(path, settings, aux_channels, run=source)
+        if source is not run and range_samples == RANGE_SAMPLES:   # one range per thread
+            range_samples = max(-(-info.n_samples // LOCAL_THREADS), 1)
         parts = _sub_ranges(info.n_samples, range_samples, start, stop)
         builder = SpillingTurnBuilder(settings, info.expected_blocks(), scratch)
-        _run_local(info, settings, parts, progress, builder.append, run=run)
+        _run_local(info, settings, parts, progress, builder.append, run=source)
     else:
         info = survey(path, settings, aux_channels)
         parts = _sub_ranges(info.n_samples, range_samples, start, stop)
@@ -400,6 +408,22 @@ def stage1_store(path: str, settings: DemodSettings, *, aux_channels: tuple[str,
     logger.info("stage 1: %d turns accepted of %d (%d partial, %d with a glitch)",
                 c["n_accepted"], c["n_blocks"], c["n_rejected_partial"], c["n_rejected_glitch"])
     return store, info
+
+
+def _loaded(run, aux_channels: tuple[str, ...], start: int, stop: int | None):
+    """``run`` in memory (:class:`~fringe.io.runreader.LoadedRun`) if short, else ``run``.
+
+    In memory: a record fitted whole of at most WHOLE_RECORD_SAMPLES samples. The channels
+    are those stage 1 reads (:attr:`RecordInfo.channels`); with an auxiliary channel
+    the file lacks, ``run`` is returned, so that the survey names it.
+    """
+    n = run.n_samples
+    whole = start == 0 and stop in (None, n)
+    if not whole or n > WHOLE_RECORD_SAMPLES or not hasattr(run, "load") \
+            or any(c not in run.aux_channels for c in aux_channels):
+        return run
+    return run.load(("time", "azimuth", "signal") + (("weight",) if run.weighted else ())
+                    + tuple(aux_channels))
 
 
 def _sub_ranges(n_samples: int, range_samples: int, start: int, stop: int | None):
@@ -417,13 +441,32 @@ def _sub_ranges(n_samples: int, range_samples: int, start: int, stop: int | None
 LOCAL_THREADS = min(2, os.cpu_count() or 1)
 
 
+#: The local engine's worker threads, started once per process: (process id, executor).
+_POOL: tuple[int, object] | None = None
+
+
+def _local_pool():
+    """The ThreadPoolExecutor of LOCAL_THREADS workers kept for this process's fits.
+
+    Started on first use, so a study's many fits do not start threads for each; a forked
+    child (whose copy has no threads) starts its own.
+    """
+    global _POOL
+    from concurrent.futures import ThreadPoolExecutor
+
+    if _POOL is None or _POOL[0] != os.getpid():
+        _POOL = (os.getpid(), ThreadPoolExecutor(max_workers=LOCAL_THREADS,
+                                                 thread_name_prefix="fringe-stage1"))
+    return _POOL[1]
+
+
 def _run_local(info, settings, parts, progress, collect, run=None):
     """Run the ranges in order, two at a time in threads.
 
     Each range's table goes to ``collect`` in range order (deterministic) as soon as it and its
     predecessors are done. ``run``: the record already open (else opened here).
     """
-    from concurrent.futures import ThreadPoolExecutor
+    from concurrent.futures import wait
 
     if run is None:
         with open_run(info.path, check_values=False) as own:
@@ -439,16 +482,17 @@ def _run_local(info, settings, parts, progress, collect, run=None):
         for ab in parts:
             collect(one(ab))
         return
-    pool = ThreadPoolExecutor(max_workers=LOCAL_THREADS)
+    futures = [_local_pool().submit(one, ab) for ab in parts]
     try:
-        for table in pool.map(one, parts):
-            collect(table)
+        for future in futures:
+            collect(future.result())
     except BaseException:
         # a bad range (or an interrupt) stops the rest at once instead of after every
         # queued range has run
-        pool.shutdown(wait=True, cancel_futures=True)
+        for future in futures:
+            future.cancel()
+        wait(futures)
         raise
-    pool.shutdown(wait=True)
 
 
 #: Seconds to wait for a dask scheduler before giving up (dask's own default is 30 s).
