@@ -117,7 +117,9 @@ def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = (
         with open_run(path, check_values=False) as own:   # each range checks what it reads
             return survey(path, settings, aux_channels, run=own)
     n = run.n_samples
-    first = next(run.iter_chunks(min(n, SURVEY_SAMPLES), ("time", "azimuth"), copy=True))
+    # one chunk: its buffers are this call's (a RunFile allocates them per call; a LoadedRun
+    # yields views of its arrays, which nothing here writes into), so no copy is needed
+    first = next(run.iter_chunks(min(n, SURVEY_SAMPLES), ("time", "azimuth")))
     for name in aux_channels:
         if name not in run.aux_channels:
             raise ConfigError(f"{path}: samples/{name}: no such auxiliary channel "
@@ -152,10 +154,11 @@ def reference_angle(theta_rad: np.ndarray) -> float:
     to the turn before).
     """
     steps = np.diff(theta_rad)
-    moving = steps[steps != 0]
+    moves = steps != 0
+    first = int(np.argmax(moves)) if moves.size else 0      # the first step that moves
     theta0 = float(theta_rad[0])
-    if moving.size and moving[0] < 0:
-        theta0 += 0.5 * float(-moving[0])
+    if moves.size and moves[first] and steps[first] < 0:
+        theta0 += 0.5 * float(-steps[first])
     return theta0 % (2 * np.pi)
 
 
