@@ -305,18 +305,20 @@ def orbital_phase_rad(epoch: Epoch, t_s: ArrayLike) -> NDArray[np.float64]:
 
 
 def earth_velocity_beta(epoch: Epoch, t_s: ArrayLike,
-                        grid_s: float = EPHEMERIS_GRID_S) -> NDArray[np.float64]:
+                        grid_s: float | None = EPHEMERIS_GRID_S) -> NDArray[np.float64]:
     """Earth's heliocentric velocity over c in SCCEF (BCRS ~ ICRS) axes, shape (n, 3).
 
     ERFA ``epv00`` (about 40 us a call) is evaluated on a grid of step ``grid_s`` spanning the
-    samples and interpolated with a cubic spline. TT is used for TDB (difference < 2 ms).
+    samples and interpolated with a cubic spline; ``grid_s=None`` evaluates it at the samples
+    themselves (for a few instants: what the spline gives at its grid nodes, without the seven
+    extra nodes). TT is used for TDB (difference < 2 ms).
     """
     from scipy.interpolate import CubicSpline
 
     t = np.asarray(t_s, dtype=float)
     if t.size == 0:
         return np.zeros((0, 3))
-    grid = _spline_grid(t, grid_s)
+    grid = t if grid_s is None else _spline_grid(t, grid_s)
     a, b = epoch.tt_jd(grid)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", erfa.ErfaWarning)
@@ -325,6 +327,8 @@ def earth_velocity_beta(epoch: Epoch, t_s: ArrayLike,
         warnings.warn("ERFA epv00 is valid 1900-2100; the Earth's velocity outside that span "
                       "is less accurate", TimeScaleWarning, stacklevel=2)
     v_grid = pvh["v"] * (AU_M / DAY_S / C_M_S)
+    if grid_s is None:
+        return v_grid
     return CubicSpline(grid, v_grid, axis=0)(t)
 
 
@@ -336,7 +340,7 @@ def _spline_grid(t: NDArray, grid_s: float) -> NDArray:
 
 
 def celestial_to_intermediate(epoch: Epoch, t_s: ArrayLike,
-                              grid_s: float = C2I_GRID_S) -> NDArray[np.float64]:
+                              grid_s: float | None = C2I_GRID_S) -> NDArray[np.float64]:
     """IAU 2006/2000A celestial-to-intermediate matrix Q(t) at samples ``t_s``, shape (n, 3, 3).
 
     Q takes GCRS (= SCCEF, ICRS axes) components to the celestial intermediate reference system
@@ -344,7 +348,8 @@ def celestial_to_intermediate(epoch: Epoch, t_s: ArrayLike,
     intermediate origin, from which the Earth Rotation Angle is counted: it carries frame bias,
     precession and nutation. ERFA ``c2i06a`` (about 50 us a call) is evaluated at TT on a grid
     of step ``grid_s`` spanning the samples and its nine elements are interpolated with a cubic
-    spline (error <= 1.2e-11 on the 12 h default grid, :data:`C2I_GRID_S`). Q - 1 is about
+    spline (error <= 1.2e-11 on the 12 h default grid, :data:`C2I_GRID_S`); ``grid_s=None``
+    evaluates it at the samples themselves (for a few instants). Q - 1 is about
     9.7e-5 rad per year since J2000 (precession) plus up to 4.8e-5 rad of nutation (1990-2040).
 
     References
@@ -357,6 +362,8 @@ def celestial_to_intermediate(epoch: Epoch, t_s: ArrayLike,
     t = np.asarray(t_s, dtype=float)
     if t.size == 0:
         return np.zeros((0, 3, 3))
+    if grid_s is None:
+        return erfa.c2i06a(*epoch.tt_jd(t)).reshape(*t.shape, 3, 3)
     grid = _spline_grid(t, grid_s)
     q_grid = erfa.c2i06a(*epoch.tt_jd(grid)).reshape(-1, 9)
     return CubicSpline(grid, q_grid, axis=0)(t).reshape(*t.shape, 3, 3)

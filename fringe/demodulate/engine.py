@@ -18,7 +18,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from fringe.conventions import theta_from_azimuth
 from fringe.demodulate.blocks import demodulate_blocks, turn_boundaries
 from fringe.demodulate.motion import (
     LegCutter,
@@ -26,6 +25,7 @@ from fringe.demodulate.motion import (
     detect_motion,
     gap_harmonic,
     moving_mask,
+    unwrapped_theta,
 )
 from fringe.demodulate.settings import DemodSettings, leak_terms
 from fringe.demodulate.turn_store import Scratch, SpillingTurnBuilder, TurnStore
@@ -47,6 +47,11 @@ MAX_BLOCK_SAMPLES = 1 << 21
 #: Samples at the start of a record that the survey reads (motion, turn period, reference
 #: angle): a record's stage 1 depends on its first SURVEY_SAMPLES samples and the blocks' own.
 SURVEY_SAMPLES = 1 << 16
+
+#: Records of at most this many samples, fitted whole with the local engine, are read into
+#: memory once (:meth:`fringe.io.runreader.RunFile.load`; about 24 bytes per sample and
+#: channel) and split into LOCAL_THREADS equal ranges; longer ones are read range by range.
+WHOLE_RECORD_SAMPLES = 1 << 19
 
 #: Registry of the engines of stage 1 (also the CLI's choices).
 ENGINES = ("local", "dask")
@@ -112,20 +117,22 @@ def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = (
         with open_run(path, check_values=False) as own:   # each range checks what it reads
             return survey(path, settings, aux_channels, run=own)
     n = run.n_samples
-    first = next(run.iter_chunks(min(n, SURVEY_SAMPLES), ("time", "azimuth"), copy=True))
+    # one chunk: its buffers are this call's (a RunFile allocates them per call; a LoadedRun
+    # yields views of its arrays, which nothing here writes into), so no copy is needed
+    first = next(run.iter_chunks(min(n, SURVEY_SAMPLES), ("time", "azimuth")))
     for name in aux_channels:
         if name not in run.aux_channels:
             raise ConfigError(f"{path}: samples/{name}: no such auxiliary channel "
                               f"(have {', '.join(run.aux_channels) or 'none'})")
     attrs, weighted = run.signal_attrs, run.weighted
     t, az = first["time"], first["azimuth"]
-    motion = detect_motion(t, az, settings, source=str(path))
+    theta = unwrapped_theta(az)
+    motion = detect_motion(t, az, settings, source=str(path), theta_rad=theta)
     check_coverage(motion, t, az, settings, source=str(path))
     period = motion.turn_period_s
     max_gap = settings.max_gap_s if settings.max_gap_s is not None else 0.25 * period
     starts = _leg_block_starts(run, max_gap) if motion.reverses else None
     gate = (attrs["gate_s"], attrs["gate_kind"]) if "gate_s" in attrs else None
-    theta = np.unwrap(theta_from_azimuth(az))
     dt = np.diff(t)
     return RecordInfo(path=str(path), n_samples=n, theta0_rad=reference_angle(theta),
                       turn_period_s=float(period), max_gap_s=float(max_gap),
@@ -147,10 +154,11 @@ def reference_angle(theta_rad: np.ndarray) -> float:
     to the turn before).
     """
     steps = np.diff(theta_rad)
-    moving = steps[steps != 0]
+    moves = steps != 0
+    first = int(np.argmax(moves)) if moves.size else 0      # the first step that moves
     theta0 = float(theta_rad[0])
-    if moving.size and moving[0] < 0:
-        theta0 += 0.5 * float(-moving[0])
+    if moves.size and moves[first] and steps[first] < 0:
+        theta0 += 0.5 * float(-steps[first])
     return theta0 % (2 * np.pi)
 
 
@@ -384,10 +392,13 @@ def stage1_store(path: str, settings: DemodSettings, *, aux_channels: tuple[str,
                                 scratch=scratch, glitch_rule=glitch_rule, run=own,
                                 start=start, stop=stop)
     if engine == "local":
-        info = survey(path, settings, aux_channels, run=run)
+        source = _loaded(run, aux_channels, start, stop)
+        info = survey(path, settings, aux_channels, run=source)
+        if source is not run and range_samples == RANGE_SAMPLES:   # one range per thread
+            range_samples = max(-(-info.n_samples // LOCAL_THREADS), 1)
         parts = _sub_ranges(info.n_samples, range_samples, start, stop)
         builder = SpillingTurnBuilder(settings, info.expected_blocks(), scratch)
-        _run_local(info, settings, parts, progress, builder.append, run=run)
+        _run_local(info, settings, parts, progress, builder.append, run=source)
     else:
         info = survey(path, settings, aux_channels)
         parts = _sub_ranges(info.n_samples, range_samples, start, stop)
@@ -400,6 +411,22 @@ def stage1_store(path: str, settings: DemodSettings, *, aux_channels: tuple[str,
     logger.info("stage 1: %d turns accepted of %d (%d partial, %d with a glitch)",
                 c["n_accepted"], c["n_blocks"], c["n_rejected_partial"], c["n_rejected_glitch"])
     return store, info
+
+
+def _loaded(run, aux_channels: tuple[str, ...], start: int, stop: int | None):
+    """``run`` in memory (:class:`~fringe.io.runreader.LoadedRun`) if short, else ``run``.
+
+    In memory: a record fitted whole of at most WHOLE_RECORD_SAMPLES samples. The channels
+    are those stage 1 reads (:attr:`RecordInfo.channels`); with an auxiliary channel
+    the file lacks, ``run`` is returned, so that the survey names it.
+    """
+    n = run.n_samples
+    whole = start == 0 and stop in (None, n)
+    if not whole or n > WHOLE_RECORD_SAMPLES or not hasattr(run, "load") \
+            or any(c not in run.aux_channels for c in aux_channels):
+        return run
+    return run.load(("time", "azimuth", "signal") + (("weight",) if run.weighted else ())
+                    + tuple(aux_channels))
 
 
 def _sub_ranges(n_samples: int, range_samples: int, start: int, stop: int | None):
@@ -417,13 +444,32 @@ def _sub_ranges(n_samples: int, range_samples: int, start: int, stop: int | None
 LOCAL_THREADS = min(2, os.cpu_count() or 1)
 
 
+#: The local engine's worker threads, started once per process: (process id, executor).
+_POOL: tuple[int, object] | None = None
+
+
+def _local_pool():
+    """The ThreadPoolExecutor of LOCAL_THREADS workers kept for this process's fits.
+
+    Started on first use, so a study's many fits do not start threads for each; a forked
+    child (whose copy has no threads) starts its own.
+    """
+    global _POOL
+    from concurrent.futures import ThreadPoolExecutor
+
+    if _POOL is None or _POOL[0] != os.getpid():
+        _POOL = (os.getpid(), ThreadPoolExecutor(max_workers=LOCAL_THREADS,
+                                                 thread_name_prefix="fringe-stage1"))
+    return _POOL[1]
+
+
 def _run_local(info, settings, parts, progress, collect, run=None):
     """Run the ranges in order, two at a time in threads.
 
     Each range's table goes to ``collect`` in range order (deterministic) as soon as it and its
     predecessors are done. ``run``: the record already open (else opened here).
     """
-    from concurrent.futures import ThreadPoolExecutor
+    from concurrent.futures import wait
 
     if run is None:
         with open_run(info.path, check_values=False) as own:
@@ -439,16 +485,17 @@ def _run_local(info, settings, parts, progress, collect, run=None):
         for ab in parts:
             collect(one(ab))
         return
-    pool = ThreadPoolExecutor(max_workers=LOCAL_THREADS)
+    futures = [_local_pool().submit(one, ab) for ab in parts]
     try:
-        for table in pool.map(one, parts):
-            collect(table)
+        for future in futures:
+            collect(future.result())
     except BaseException:
         # a bad range (or an interrupt) stops the rest at once instead of after every
         # queued range has run
-        pool.shutdown(wait=True, cancel_futures=True)
+        for future in futures:
+            future.cancel()
+        wait(futures)
         raise
-    pool.shutdown(wait=True)
 
 
 #: Seconds to wait for a dask scheduler before giving up (dask's own default is 30 s).

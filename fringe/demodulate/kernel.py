@@ -363,3 +363,41 @@ def block_starts(theta, t, theta0, max_gap_s, theta_prev, t_prev, has_prev):
         psi_prev = psi
         pt = t[i]
     return out
+
+
+@njit(cache=CACHE, nogil=True)
+def unwrap_angles(p):
+    """``numpy.unwrap(p)`` of a 1-D float64 array of angles (rad), bit for bit, in one pass.
+
+    The same arithmetic as numpy's (period 2 pi, discontinuity pi): each step dd is folded
+    into [-pi, pi) by a floored remainder (fmod, then + 2 pi for a negative remainder), a
+    fold of exactly -pi for a positive step becomes +pi, steps below pi in size are not
+    corrected, and the corrections are summed in order (as ``cumsum``). numpy makes five
+    temporary arrays; this makes none (``tests/demodulate/test_motion.py`` compares the two).
+    """
+    n = p.size
+    up = np.empty(n)
+    if n == 0:
+        return up
+    up[0] = p[0]
+    high = TWO_PI / 2.0
+    low = -high
+    acc = 0.0
+    for i in range(1, n):
+        dd = p[i] - p[i - 1]
+        if abs(dd) < high:                 # not corrected (numpy folds it, then drops it)
+            corr = 0.0
+        else:
+            m = np.fmod(dd - low, TWO_PI)
+            if m != 0.0:
+                if m < 0.0:
+                    m += TWO_PI
+            else:
+                m = 0.0
+            m += low
+            if m == low and dd > 0.0:
+                m = high
+            corr = m - dd
+        acc = corr if i == 1 else acc + corr
+        up[i] = p[i] + acc
+    return up

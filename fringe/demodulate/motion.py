@@ -46,6 +46,7 @@ from numba import njit
 from numpy.typing import NDArray
 
 from fringe.conventions import azimuth_from_theta, theta_from_azimuth
+from fringe.demodulate.kernel import unwrap_angles
 from fringe.demodulate.settings import DemodSettings
 from fringe.errors import FitError
 from fringe.io.fit_sections import Motion
@@ -73,6 +74,11 @@ _RULES = {
              "than half a turn staying with the block before it; or a time gap longer than "
              "max_gap_s"),
 }
+
+
+def unwrapped_theta(azimuth_rad: NDArray) -> NDArray:
+    """The table angle theta = pi - A (C7) of azimuths A, unwrapped (``numpy.unwrap``), rad."""
+    return unwrap_angles(np.ascontiguousarray(theta_from_azimuth(azimuth_rad)))
 
 
 def _wrapped(d: NDArray) -> NDArray:
@@ -174,7 +180,7 @@ class LegCutter:
 
     def feed(self, t_s: NDArray, azimuth_rad: NDArray) -> NDArray:
         """Block starts (global sample indices) decided by this chunk's samples."""
-        th = np.unwrap(theta_from_azimuth(azimuth_rad))
+        th = unwrapped_theta(azimuth_rad)
         if self._last is not None and th.size:
             th = th + (self._last + _wrapped(th[0] - self._last) - th[0])
         if th.size:
@@ -226,7 +232,7 @@ def _rest_positions(theta: NDArray, tolerance_rad: float) -> NDArray:
 
 
 def detect_motion(t_s: NDArray, azimuth_rad: NDArray, settings: DemodSettings,
-                  source: str = "run file") -> Motion:
+                  source: str = "run file", *, theta_rad: NDArray | None = None) -> Motion:
     """Classify the motion of a record's first samples (module docstring).
 
     Parameters
@@ -237,6 +243,8 @@ def detect_motion(t_s: NDArray, azimuth_rad: NDArray, settings: DemodSettings,
         ``rest_tolerance_deg`` is used.
     source : str
         The run file, for the messages.
+    theta_rad : ndarray, shape (n,), optional
+        :func:`unwrapped_theta` of ``azimuth_rad``, if the caller has it already.
 
     Raises
     ------
@@ -244,9 +252,10 @@ def detect_motion(t_s: NDArray, azimuth_rad: NDArray, settings: DemodSettings,
         When the table travels less than half a turn over the samples.
     """
     t = np.asarray(t_s, float)
-    theta = np.unwrap(theta_from_azimuth(azimuth_rad))
+    theta = unwrapped_theta(azimuth_rad) if theta_rad is None else theta_rad
     d, dt = np.diff(theta), np.diff(t)
-    long = dt <= 10.0 * np.median(dt) if dt.size else dt > 0    # leave out time gaps
+    median_dt = float(np.median(dt)) if dt.size else math.nan
+    long = dt <= 10.0 * median_dt if dt.size else dt > 0    # leave out time gaps
     travel = float(np.sum(np.abs(d[long])))
     if t.size < 2 or not t[-1] > t[0] or travel < np.pi:
         raise FitError(f"{source}: samples/azimuth: the table travels less than half a turn in "
@@ -255,7 +264,7 @@ def detect_motion(t_s: NDArray, azimuth_rad: NDArray, settings: DemodSettings,
     tol = math.radians(settings.rest_tolerance_deg)
     # stepped: rests at three or more positions (a table idle at one angle is not stepped)
     stepped = rest_fraction >= STEPPED_REST_FRACTION and _rest_positions(theta, tol).size >= 3
-    n_rev, legs = _legs(theta, t, 10.0 * float(np.median(dt)))
+    n_rev, legs = _legs(theta, t, 10.0 * median_dt)
     reverses = n_rev > 0
     sense = "alternating" if reverses else ("ccw" if np.sum(d[long]) > 0 else "cw")
     if stepped or reverses:
@@ -329,7 +338,7 @@ def check_coverage(motion: Motion, t_s: NDArray, azimuth_rad: NDArray,
             f"B; swing through at least {180 - gap_max / 2:g} deg")
     if motion.kind != "stepped":
         return
-    theta = np.unwrap(theta_from_azimuth(azimuth_rad))
+    theta = unwrapped_theta(azimuth_rad)
     marks = np.degrees(_rest_positions(theta, math.radians(settings.rest_tolerance_deg))) % 360.0
     distinct = np.unique(np.round(marks, 1) % 360.0)
     gap2 = _largest_gap_deg(2.0 * distinct)

@@ -58,9 +58,10 @@ def _grid_state(setup: Setup, t_ref_s: float, c2i: NDArray | None = None):
     phi = 2.0 * np.pi * np.arange(N_PHI) / N_PHI
     th, ph = np.meshgrid(theta, phi, indexing="ij")          # (N_THETA, N_PHI)
     th, ph = th.ravel(), ph.ravel()
-    beta = np.repeat(earth_velocity_beta(setup.epoch, [t_ref_s]), th.size, axis=0)
+    # one instant: ERFA there (what the frames' splines give at a grid node)
+    beta = np.repeat(earth_velocity_beta(setup.epoch, [t_ref_s], grid_s=None), th.size, axis=0)
     if c2i is None:
-        c2i = celestial_to_intermediate(setup.epoch, [t_ref_s])[0]
+        c2i = celestial_to_intermediate(setup.epoch, [t_ref_s], grid_s=None)[0]
     if setup.include_rotation_velocity:
         beta = beta + rotation_velocity_beta(ph, setup.site.axis_distance_m, c2i)
     state = FrameState(ph, setup.site.colatitude_rad, beta, c2i=c2i)

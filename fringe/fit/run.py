@@ -47,18 +47,22 @@ logger = logging.getLogger(__name__)
 
 
 def setup_from_run(path: str, theory: str, dut1_s: float = 0.0, *,
-                   while_written: bool = False) -> tuple[Setup, dict]:
+                   while_written: bool = False, run=None) -> tuple[Setup, dict]:
     """Build the Setup (site, epoch, apparatus, theory, units) from a run file's metadata.
 
     ``while_written``: also from a file a writer still holds (:func:`fringe.io.runreader
     .open_run`); the metadata's sample counts and times are then those of its flushed part.
+    ``run``: the record already open (a :class:`~fringe.io.runreader.RunFile` of ``path``),
+    left open; else it is opened here.
     """
-    with open_run(path, check_values=False, while_written=while_written) as run:
-        meta = run.to_dict()
-        site = run.site
-        attrs = dict(run.apparatus)
-        if "settings" in meta["extra_groups"]:      # for record_cautions, read while open
-            meta["settings_attrs"] = run.read_group_attrs("settings")
+    if run is None:
+        with open_run(path, check_values=False, while_written=while_written) as own:
+            return setup_from_run(path, theory, dut1_s, run=own)
+    meta = run.to_dict()
+    site = run.site
+    attrs = dict(run.apparatus)
+    if "settings" in meta["extra_groups"]:      # for record_cautions, read while open
+        meta["settings_attrs"] = run.read_group_attrs("settings")
     cls = APPARATUS_KINDS.get(attrs.get("kind"))
     fields = apparatus_fields(cls) if cls else set()
     ignored = sorted(set(attrs) - fields - {"kind"})
@@ -111,23 +115,25 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
         the columns (or use them as a context manager) to remove the scratch files.
     """
     demod = demod or DemodSettings()
-    setup, meta = setup_from_run(path, settings.theory, dut1_s)
-    for ch in settings.regress:
-        if ch not in meta["aux_channels"]:
-            raise ConfigError(f"FitSettings.regress {ch}: {path} has no auxiliary channel "
-                              f"{ch!r} (has {', '.join(meta['aux_channels']) or 'none'})")
-    _check_budget_early(budget, setup, settings)
-    scratch = Scratch(scratch_dir)
-    try:
-        with warnings.catch_warnings():   # the time-scale cautions are records (cautions)
-            warnings.simplefilter("ignore", TimeScaleWarning)
-            cautions = record_cautions(path, setup, meta)
-            result, store, models = _fit(path, setup, meta, settings, demod, engine, scheduler,
-                                         progress, scratch, one_stage, dut1_s, cautions,
-                                         budget)
-    except BaseException:
-        scratch.close()
-        raise
+    with open_run(path, check_values=False) as run:    # one opening: metadata and stage 1
+        setup, meta = setup_from_run(path, settings.theory, dut1_s, run=run)
+        for ch in settings.regress:
+            if ch not in meta["aux_channels"]:
+                raise ConfigError(f"FitSettings.regress {ch}: {path} has no auxiliary channel "
+                                  f"{ch!r} (has {', '.join(meta['aux_channels']) or 'none'})")
+        _check_budget_early(budget, setup, settings)
+        scratch = Scratch(scratch_dir)
+        try:
+            with warnings.catch_warnings():   # the time-scale cautions are records (cautions)
+                warnings.simplefilter("ignore", TimeScaleWarning)
+                cautions = record_cautions(path, setup, meta)
+                result, store, models = _fit(path, setup, meta, settings, demod, engine,
+                                             scheduler, progress, scratch, one_stage, dut1_s,
+                                             cautions, budget,
+                                             run=run if engine == "local" else None)
+        except BaseException:
+            scratch.close()
+            raise
     for w in cautions:
         warnings.warn(w.sentence, SimulationWarning if w.code == "simulated-noise-free"
                       else TimeScaleWarning, stacklevel=2)
@@ -197,11 +203,14 @@ def _systematics(res, models, settings, budget, calibration, meta):
 
 
 def _fit(path, setup, meta, settings, demod, engine, scheduler, progress, scratch, one_stage,
-         dut1_s, cautions, budget=None):
-    """Stages 1-3 and the packaging (:func:`fit_run`); returns the result, store and models."""
+         dut1_s, cautions, budget=None, run=None):
+    """Stages 1-3 and the packaging (:func:`fit_run`); returns the result, store and models.
+
+    ``run``: the record open for stage 1 (local engine), or None.
+    """
     store, info = stage1_store(path, demod, aux_channels=tuple(settings.regress),
                                engine=engine, scheduler=scheduler, progress=progress,
-                               scratch=scratch)
+                               scratch=scratch, run=run)
     if not np.any(store.accepted):
         raise FitError(no_block_message(info, store, demod))
     span_s = float(meta["time_last_s"] - meta["time_first_s"])

@@ -48,7 +48,9 @@ from numpy.typing import NDArray
 
 from fringe.demodulate.sessions import (
     MIN_SIDEREAL_PHASES,
+    SIDEREAL_BIN_DEG,
     SessionBuilder,
+    sidereal_bins,
     student_factor,
 )
 from fringe.demodulate.turn_store import Scratch, TurnStore
@@ -196,6 +198,22 @@ def session_builder(setup: Setup, store: TurnStore) -> SessionBuilder:
     return builder
 
 
+def sidereal_phase_count(setup: Setup, store: TurnStore) -> int:
+    """Occupied sidereal-phase bins of the accepted turns (what the session builder counts).
+
+    Only the bins (:func:`fringe.demodulate.sessions.sidereal_bins` of each accepted turn's
+    mean time): the sessions themselves are built only when they are reported (too few
+    phases).
+    """
+    lon = setup.site.east_longitude_rad
+    occupied = np.zeros(int(360 / SIDEREAL_BIN_DEG), bool)
+    for _, seg in store.segments():
+        t_mid = seg.t_mid_s[seg.accepted]
+        if t_mid.size:
+            occupied[sidereal_bins(sidereal_angle_rad(setup.epoch, t_mid, lon))] = True
+    return int(np.sum(occupied))
+
+
 def _few_phases(sessions: Sessions) -> FitWarning:
     n = sessions.n_sidereal_phases
     msg = (f"the accepted turns sit at {n} distinct sidereal phase(s) (occupied sidereal "
@@ -291,9 +309,8 @@ def stage2_and_3(setup: Setup, table: TurnTable | TurnStore, settings: FitSettin
     n_acc = int(np.sum(store.accepted))
     if n_acc == 0:
         raise FitError("fit: no accepted turn (see the rejection counts of fringe inspect)")
-    builder = session_builder(setup, store)
-    sidereal = builder.n_sidereal_phases >= MIN_SIDEREAL_PHASES
-    sessions = None if sidereal else builder.finish()
+    sidereal = sidereal_phase_count(setup, store) >= MIN_SIDEREAL_PHASES
+    sessions = None if sidereal else sessions_of(setup, store)
     few = [] if sidereal else [_few_phases(sessions)]
     theory = setup.theory
     if settings.free is not None:

@@ -192,3 +192,44 @@ def test_stalled_table_is_a_one_line_error(tmp_path, monkeypatch):
     monkeypatch.setattr(engine, "MAX_BLOCK_SAMPLES", 1 << 21)
     table, _ = run_stage1(str(path), DemodSettings(), range_samples=1 << 14)
     assert table.n_blocks >= 2000 and not table.accepted[-1] and table.n_valid[-1] > 40_000
+
+
+def _tables_equal(a, b):
+    for name in ("t_mid_s", "t_start_s", "t_stop_s", "n_valid", "coef", "ninv_2", "residual_rms",
+                 "angle_gap_deg", "status", "leak"):
+        assert np.array_equal(getattr(a, name), getattr(b, name), equal_nan=True), name
+
+
+def test_short_record_in_memory_is_the_streamed_stage1(small_run, monkeypatch):
+    """A short record is read whole once and split in LOCAL_THREADS ranges; a long one range by
+    range: the same turn table to the bit, and the loaded arrays are left as read."""
+    import fringe.demodulate.engine as engine
+    from fringe.demodulate.engine import run_stage1
+    from fringe.io.runreader import open_run
+
+    loaded = []
+    real_load = engine._loaded
+
+    def spy(run, *args):
+        got = real_load(run, *args)
+        if got is not run:
+            loaded.append((got, {c: got._data[c].copy() for c in got.channels}))
+        return got
+
+    monkeypatch.setattr(engine, "_loaded", spy)
+    memory, info_m = run_stage1(str(small_run), DemodSettings())
+    assert len(loaded) == 1
+    for name, before in loaded[0][1].items():
+        assert np.array_equal(loaded[0][0]._data[name], before, equal_nan=True), name
+    monkeypatch.setattr(engine, "WHOLE_RECORD_SAMPLES", 0)
+    streamed, info_s = run_stage1(str(small_run), DemodSettings())
+    assert len(loaded) == 1 and info_m == info_s
+    _tables_equal(memory, streamed)
+    with open_run(small_run) as run:
+        whole = run.load(("time", "azimuth"))
+        for kw in ({}, {"start": 5, "stop": 1000}, {"start": 7, "stop": 7}):
+            a = list(run.iter_chunks(300, ("time", "azimuth"), copy=True, **kw))
+            b = list(whole.iter_chunks(300, ("time", "azimuth"), **kw))
+            assert len(a) == len(b)
+            for x, y in zip(a, b):
+                assert all(np.array_equal(x[c], y[c]) for c in ("time", "azimuth"))

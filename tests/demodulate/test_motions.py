@@ -232,3 +232,27 @@ def test_a_table_idle_at_one_angle_is_not_stepped():
     az = np.where(t < 1500, 0.0, ContinuousRotation(45.0).azimuth_rad(t - 1500))
     m = detect_motion(t, az, DemodSettings())
     assert m.kind == "continuous" and m.excluded_samples_rule == ""
+
+
+@pytest.mark.parametrize("kind", ["uniform", "turning", "reversing", "boundaries", "steps"])
+def test_unwrap_angles_is_numpy_unwrap_bit_for_bit(kind):
+    # the reference is numpy.unwrap itself (docs/references.md [R-lib-numpy-unwrap], source);
+    # the cases include steps of exactly +-pi and multiples of 2 pi, where the fold is ambiguous
+    from fringe.demodulate.kernel import unwrap_angles
+
+    rng = np.random.default_rng(11)
+    for n in (0, 1, 2, 3, 257, 4096):
+        if kind == "uniform":
+            p = rng.uniform(-10.0, 10.0, n)
+        elif kind == "turning":
+            p = np.pi - np.mod(np.cumsum(rng.normal(-0.14, 0.01, n)), 2 * np.pi)
+        elif kind == "reversing":
+            p = np.mod(np.cumsum(rng.normal(0.0, 0.8, n)), 2 * np.pi) - np.pi
+        elif kind == "boundaries":
+            p = rng.choice([0.0, np.pi, -np.pi, 2 * np.pi, -2 * np.pi, 3 * np.pi, -0.0], n)
+        else:
+            p = np.cumsum(rng.choice([np.pi, -np.pi, 2 * np.pi, 0.5], n)) * 1.37
+        assert unwrap_angles(p).tobytes() == np.unwrap(p).tobytes()
+    p = np.linspace(0.0, 50.0, 300)
+    p[7] = np.nan
+    np.testing.assert_array_equal(unwrap_angles(p), np.unwrap(p))      # NaN propagates alike

@@ -75,3 +75,21 @@ def test_rejected_turns_are_left_out():
     (s,) = builder.finish().sessions
     assert s.n_turns == 4
     assert s.C.value == pytest.approx(np.mean(y[[0, 1, 3, 5], 0]))
+
+
+@pytest.mark.parametrize("fraction", [0.15, 1.0])
+def test_the_fits_phase_count_is_the_builders(small_run, fraction):
+    # stage 2-3 counts the sidereal phases without building the sessions; the count must be
+    # the builder's (which decides whether stage 2 runs), here for a whole and a cut record
+    from fringe.demodulate.engine import stage1_store
+    from fringe.demodulate.settings import DemodSettings
+    from fringe.fit.run import setup_from_run
+    from fringe.fit.stages import session_builder, sidereal_phase_count
+
+    setup, _ = setup_from_run(str(small_run), "sme")
+    from fringe.io.runreader import open_run
+
+    with open_run(small_run) as run:
+        stop = int(fraction * run.n_samples) if fraction < 1 else None
+    store, _ = stage1_store(str(small_run), DemodSettings(), stop=stop)
+    assert sidereal_phase_count(setup, store) == session_builder(setup, store).n_sidereal_phases

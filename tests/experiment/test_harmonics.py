@@ -52,14 +52,14 @@ def freeze_orbit(monkeypatch, beta_orbit, orbital_phase=0.0):
     docs/references.md [R-time-earth-orientation]).
     """
     value = circular_orbit_beta([orbital_phase], beta_orbit, ETA)
-    monkeypatch.setattr(harmonics, "earth_velocity_beta", lambda epoch, t_s: value.copy())
+    monkeypatch.setattr(harmonics, "earth_velocity_beta", lambda epoch, t_s, **_: value.copy())
     fix_pole(monkeypatch)
 
 
 def fix_pole(monkeypatch):
     """The celestial-to-intermediate matrix Q inside the projection set to the identity."""
     monkeypatch.setattr(harmonics, "celestial_to_intermediate",
-                        lambda epoch, t_s: np.eye(3)[None].repeat(len(t_s), axis=0))
+                        lambda epoch, t_s, **_: np.eye(3)[None].repeat(len(t_s), axis=0))
 
 
 def unit_ke(name):
@@ -146,7 +146,7 @@ def test_harmonics_are_those_of_the_tensor_in_intermediate_axes(monkeypatch, utc
     Q (IAU 2006/2000A, ERFA c2i06a) at the reference instant carries K into the axes the lab turns
     about ([R-time-earth-orientation]); no lab velocity, so the projection is exact algebra.
     """
-    monkeypatch.setattr(harmonics, "earth_velocity_beta", lambda epoch, t_s: np.zeros((1, 3)))
+    monkeypatch.setattr(harmonics, "earth_velocity_beta", lambda epoch, t_s, **_: np.zeros((1, 3)))
     chi = CHI
     setup = Setup(site=Site(latitude_deg=90.0 - np.degrees(chi), longitude_deg=0.0),
                   epoch=Epoch(utc), apparatus=CavityPair(), theory=SME,

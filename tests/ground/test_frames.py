@@ -422,6 +422,22 @@ def test_c2i_spline_against_direct(start_s, span_s):
     assert celestial_to_intermediate(YEAR_2026, []).shape == (0, 3, 3)
 
 
+def test_one_instant_without_the_spline_is_its_node_value():
+    # grid_s=None evaluates ERFA at the instants themselves; a spline returns its node values
+    # exactly, and an instant t is node 3 of its own grid (t - 3 g + 3 g == t for these t), so
+    # the harmonic table's one-instant frames are those of the splines (derived)
+    for t_ref in (0.0, 86_399.5, 1.7e7):
+        beta = earth_velocity_beta(YEAR_2026, [t_ref])
+        q = celestial_to_intermediate(YEAR_2026, [t_ref])
+        assert earth_velocity_beta(YEAR_2026, [t_ref], grid_s=None).tobytes() == beta.tobytes()
+        assert celestial_to_intermediate(YEAR_2026, [t_ref], grid_s=None).tobytes() == \
+            q.tobytes()
+    a, b = YEAR_2026.tt_jd(np.array([5.0, 7.0]))
+    direct = erfa.epv00(a, b)[0]["v"] * (149_597_870_700.0 / 86_400.0 / C_M_S)  # au/day over c
+    np.testing.assert_array_equal(earth_velocity_beta(YEAR_2026, [5.0, 7.0], grid_s=None),
+                                  direct)
+
+
 def test_frame_state_take_keeps_the_orientation():
     site = Site(latitude_deg=-37.5, longitude_deg=-70.0, height_m=0.0)
     state = frame_state(YEAR_2026, np.array([0.0, 1e5, 2e5]), site)

@@ -260,6 +260,27 @@ def test_turns_file_one_reader(tmp_path):
     assert read_accepted_turns(path, turn_period_s=45.0)["turn_period_s"] == 45.0
 
 
+def test_turns_file_in_memory_and_streamed_alike(tmp_path, monkeypatch):
+    # a small table is laid out in memory and written at once, a long one streamed through
+    # the guard: the reader sees the same columns, types and attributes either way
+    import fringe.io.turns_file as turns_file
+
+    columns = _turns(50)
+    small, long = tmp_path / "small.turns.h5", tmp_path / "long.turns.h5"
+    write_turns(small, units="Hz", epoch_utc="2027-02-03T00:00:00Z", columns=columns)
+    monkeypatch.setattr(turns_file, "IN_MEMORY_TURNS", 10)
+    write_turns(long, units="Hz", epoch_utc="2027-02-03T00:00:00Z", columns=columns)
+    a, b = read_turns(small), read_turns(long)
+    assert a.keys() == b.keys()
+    for name, value in a.items():
+        if isinstance(value, np.ndarray):
+            assert value.dtype == b[name].dtype and np.array_equal(value, b[name]), name
+        else:
+            assert value == b[name], name
+    assert not [p for p in tmp_path.iterdir() if p.name not in ("small.turns.h5",
+                                                                "long.turns.h5")]
+
+
 @pytest.mark.parametrize(("edit", "expected"), [
     (lambda c: c.pop("model_C"), "turns/model_C: expected a 1-D numeric dataset"),
     (lambda c: c.update(B=np.zeros(5)), "turns/B: expected 8 values (one per turn), got 5"),

@@ -56,9 +56,9 @@ def no_orbit(monkeypatch):
     along SCCEF Z (Q = 1: the closed forms' model, docs/references.md
     [R-time-earth-orientation]).
     """
-    monkeypatch.setattr(harmonics, "earth_velocity_beta", lambda epoch, t_s: np.zeros((1, 3)))
+    monkeypatch.setattr(harmonics, "earth_velocity_beta", lambda epoch, t_s, **_: np.zeros((1, 3)))
     monkeypatch.setattr(harmonics, "celestial_to_intermediate",
-                        lambda epoch, t_s: np.eye(3)[None].repeat(len(t_s), axis=0))
+                        lambda epoch, t_s, **_: np.eye(3)[None].repeat(len(t_s), axis=0))
 
 
 # ---- R1-R7 -----------------------------------------------------------------------------------
