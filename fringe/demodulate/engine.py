@@ -485,16 +485,19 @@ def _run_local(info, settings, parts, progress, collect, run=None):
         for ab in parts:
             collect(one(ab))
         return
-    futures = [_local_pool().submit(one, ab) for ab in parts]
+    pending = [_local_pool().submit(one, ab) for ab in parts]
+    pending.reverse()
     try:
-        for future in futures:
-            collect(future.result())
+        while pending:
+            # popped before its table is collected: a finished range's table is not kept by
+            # this list until the record ends (it held a year's tables: +150 MiB)
+            collect(pending.pop().result())
     except BaseException:
         # a bad range (or an interrupt) stops the rest at once instead of after every
         # queued range has run
-        for future in futures:
+        for future in pending:
             future.cancel()
-        wait(futures)
+        wait(pending)
         raise
 
 
