@@ -17,7 +17,7 @@ from typing import TYPE_CHECKING, NamedTuple
 
 from fringe.report import budget as _budget
 from fringe.report import runs as _runs
-from fringe.report.markup import html_text
+from fringe.report.markup import html_text, latex_escape, markdown_text
 from fringe.report.rms_solve import RmsSolution
 from fringe.report.rounding import (
     format_bound,
@@ -29,7 +29,6 @@ from fringe.report.rounding import (
 from fringe.report.tables import (
     Z95,
     bound95,
-    latex_escape,
     report_tables,
     to_html,
     to_latex,
@@ -399,7 +398,12 @@ def _site_name(fit: FitResult) -> str:
 
 
 def markdown_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) -> str:
-    """report.md: headline, warnings, tables, figures (linked), provenance."""
+    """report.md: headline, warnings, tables, figures (linked), provenance.
+
+    Every text above the provenance goes through :func:`fringe.report.markup.markdown_text`
+    (κ̃ₑ₋, ω<sub>R</sub>: no underscore of a subscript reaches the reader); the provenance
+    lists the raw record (JSON) entry by entry.
+    """
     fit, tables = c.fit, report_tables(c.fit, c.comparison, "unicode")
     site = _site_name(fit)
     out = [f"# fringe report: {fit.theory} fit" + (f" — {site}" if site else ""), "",
@@ -428,7 +432,8 @@ def markdown_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) ->
         for i, (name, caption, _) in enumerate(figs, start=1):
             out += [f"![Figure {i}: {name}]({FIGURE_DIR}/{name}.png)", "",
                     f"**Figure {i}.** {caption} (PDF: `{FIGURE_DIR}/{name}.pdf`)", ""]
-    out += ["## Provenance", ""]
+    out = [markdown_text(line) for line in out]      # subscripts without underscores
+    out += ["## Provenance", ""]        # the raw record, as in summary.json
     out += [f"- **{k}**: `{json.dumps(v, ensure_ascii=False)}`" for k, v in c.provenance.items()]
     return "\n".join(out) + "\n"
 

@@ -20,7 +20,7 @@ from typing import TYPE_CHECKING
 
 from fringe.errors import ConfigError
 from fringe.linalg import correlation_from_covariance
-from fringe.report.markup import html_text
+from fringe.report.markup import html_text, latex_escape
 from fringe.report.rounding import (
     STYLES,
     format_bound,
@@ -35,7 +35,7 @@ if TYPE_CHECKING:
 
 __all__ = ["Table", "Z68", "Z95", "bound95", "coefficient_label", "coefficient_table",
            "comparison_table", "correlation_table",
-           "cross_check_table", "harmonics_table", "latex_escape", "report_tables",
+           "cross_check_table", "harmonics_table", "report_tables",
            "sessions_table", "to_html", "to_latex", "to_markdown", "value_table"]
 
 #: Half-widths of the Gaussian 68 % and 95 % intervals, in sigma (two-sided; 1.96 is the
@@ -77,37 +77,6 @@ class Table:
 
 
 # ------------------------------------------------------------------------------ text helpers
-
-_LATEX_SPECIAL = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#",
-                  "_": r"\_", "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}",
-                  "^": r"\textasciicircum{}", "<": r"$<$", ">": r"$>$", "|": r"$|$"}
-_LATEX_UNICODE = {"±": r"$\pm$", "−": "-", "×": r"$\times$", "σ": r"$\sigma$",
-                  "χ": r"$\chi$", "²": r"$^2$", "θ": r"$\theta$", "φ": r"$\phi$",
-                  "ω": r"$\omega$", "α": r"$\alpha$", "β": r"$\beta$", "δ": r"$\delta$",
-                  "κ": r"$\kappa$", "Δ": r"$\Delta$", "≤": r"$\le$", "≥": r"$\ge$",
-                  "≈": r"$\approx$", "½": r"$\frac{1}{2}$", "°": r"$^\circ$", "µ": r"$\mu$",
-                  "–": "--", "—": "---", "’": "'", "“": "``", "”": "''", "…": r"\ldots{}",
-                  "\u0303": ""}
-
-
-def latex_escape(text: str) -> str:
-    """Plain (Unicode) text as LaTeX that compiles with pdflatex and no extra packages.
-
-    LaTeX specials are escaped, common physics symbols become math, any other non-ASCII
-    character becomes ``?``.
-    """
-    out = []
-    for ch in str(text):
-        if ch in _LATEX_SPECIAL:
-            out.append(_LATEX_SPECIAL[ch])
-        elif ch in _LATEX_UNICODE:
-            out.append(_LATEX_UNICODE[ch])
-        elif ord(ch) < 128:
-            out.append(ch)
-        else:
-            out.append("?")
-    return "".join(out)
-
 
 def _sup_latex(component: str) -> str:
     return component.replace("XXmYY", "XX-YY")
