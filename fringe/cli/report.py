@@ -55,15 +55,16 @@ def parse_value_sigma(text: str | None, option: str) -> tuple[float, float] | No
 def command(fit_json, out, compare, kt, is_, overwrite):
     """Tables, figures and a self-contained HTML page stating the limits in FIT_JSON."""
     from fringe.report.build import assemble_report, write_report
+    from fringe.report.markup import terminal_text
 
     kt_is = parse_value_sigma(kt, "--kt"), parse_value_sigma(is_, "--is")
     with step("report: tables"):
         content = assemble_report(fit_json, compare=compare, kt=kt_is[0], is_=kt_is[1])
     with step("report: figures and pages"):
         written = write_report(content, out, overwrite=overwrite)
-    click.echo(content.headline["text"])
+    click.echo(terminal_text(content.headline["text"]))
     for w in content.warnings:
-        click.echo(f"warning (from the fit): {w}", err=True)
+        click.echo(f"warning (from the fit): {terminal_text(w)}", err=True)
     if content.rms is not None:
         click.echo(content.rms.summary())
     click.echo("")

@@ -23,7 +23,7 @@ import html
 import re
 
 __all__ = ["coefficient_html", "html_text", "join_math", "latex_escape", "latex_text",
-           "markdown_text"]
+           "markdown_text", "terminal_text"]
 
 _KAPPA = "κ\u0303"
 _BASES = {"ke": f"{_KAPPA}<sub>e−</sub>", "ko": f"{_KAPPA}<sub>o+</sub>", "cq": "c"}
@@ -116,6 +116,21 @@ def markdown_text(text: str) -> str:
     ``ke_XY``, ``lab_C0`` and ``C_model`` are names and stay as they are.
     """
     return _MD_PATTERN.sub(_md_replace, str(text))
+
+
+def _terminal_replace(m: re.Match) -> str:
+    base, sub = (m.group("sym") or m.group("sub")).split("_", 1)
+    uni = _unicode_sub(sub)
+    return m.group(0) if uni is None else base + uni
+
+
+def terminal_text(text: str) -> str:
+    """Plain text for a terminal: Unicode subscripts where they exist, else the underscore.
+
+    As :func:`markdown_text`, but a subscript without Unicode subscript characters keeps its
+    underscore (``κ̃_e−`` -> ``κ̃ₑ₋``, ``ω_R`` stays).
+    """
+    return _MD_PATTERN.sub(_terminal_replace, str(text))
 
 
 # -------------------------------------------------------------------------------- LaTeX

@@ -110,14 +110,17 @@ def _minus(text: str, style: str) -> str:
     return text.replace("-", "−") if style == "unicode" else text
 
 
+def _signed(x: float, decimals: int) -> str:
+    """``x`` with its sign and ``decimals`` decimals; a value that rounds to zero has no sign."""
+    text = f"{x:+.{decimals}f}"
+    return text[1:] if float(text) == 0.0 else text
+
+
 def _signed2(x: float, style: str) -> str:
-    """Correlation coefficient with sign and two decimals (NaN -> 'n/a')."""
+    """Correlation coefficient with sign and two decimals (NaN -> 'n/a'; never -0.00)."""
     if not math.isfinite(x):
         return "n/a"
-    text = f"{x:+.2f}"
-    if text in ("+0.00", "-0.00"):
-        text = "0.00"
-    text = _minus(text, style)
+    text = _minus(_signed(x, 2), style)
     return f"${text}$" if style == "latex" else text
 
 
@@ -199,7 +202,7 @@ def harmonics_table(names: Sequence[str], values: Sequence[float], sigmas: Seque
     for n, v, s in zip(names, values, sigmas, strict=True):
         v, s = float(v), float(s)
         cell = format_mantissas(*pdg_round(v, s), style)
-        ratio = _minus(f"{v / s:+.1f}", style) if s > 0 else "—"
+        ratio = _minus(_signed(v / s, 1), style) if s > 0 else "—"
         if style == "latex":
             ratio = f"${ratio}$" if s > 0 else "--"
         rows.append((latex_escape(n) if style == "latex" else n, cell, ratio))
@@ -295,7 +298,7 @@ def cross_check_table(two_stage: Mapping[str, Mapping[str, float]],
         if b is None:
             continue
         s = max(a["sigma"], b["sigma"])
-        diff = _minus(f"{(b['value'] - a['value']) / s:+.2f}", style) if s > 0 else "n/a"
+        diff = _minus(_signed((b["value"] - a["value"]) / s, 2), style) if s > 0 else "n/a"
         if style == "latex" and s > 0:
             diff = f"${diff}$"
         rows.append((coefficient_label(n, style),
@@ -348,15 +351,16 @@ def to_latex(table: Table) -> str:
 
 
 def to_html(table: Table) -> str:
-    """An HTML ``<table>`` of a Unicode-style table.
+    """An HTML ``<table>`` of a Unicode-style table, its caption a paragraph above it.
 
     Every text goes through :func:`fringe.report.markup.html_text` (escaped; names and
     subscripts marked up).
     """
     e = html_text
-    out = ["<table>"]
-    if table.caption:
-        out.append(f"<caption>{e(table.caption)}</caption>")
+    out = []
+    if table.caption:          # above the table, not in it: as wide as the text, not the table
+        out.append(f'<p class="caption">{e(table.caption)}</p>')
+    out.append("<table>")
     out.append("<thead><tr>" + "".join(f"<th>{e(h)}</th>" for h in table.header)
                + "</tr></thead>")
     out.append("<tbody>")
