@@ -145,18 +145,45 @@ _LATEX_UNICODE = {"±": r"$\pm$", "−": "-", "×": r"$\times$", "σ": r"$\sigma
                   "≤": r"$\le$", "≥": r"$\ge$",
                   "≈": r"$\approx$", "½": r"$\frac{1}{2}$", "°": r"$^\circ$", "µ": r"$\mu$",
                   "–": "--", "—": "---", "’": "'", "“": "``", "”": "''", "…": r"\ldots{}",
-                  "⊕": r"$\oplus$",
+                  "⊕": r"$\oplus$", "τ": r"$\tau$", "ρ": r"$\rho$", "π": r"$\pi$",
+                  "μ": r"$\mu$", "γ": r"$\gamma$", "ε": r"$\epsilon$", "η": r"$\eta$",
+                  "ψ": r"$\psi$", "Ω": r"$\Omega$", "√": r"$\surd$", "∝": r"$\propto$",
+                  "→": r"$\to$", "∞": r"$\infty$", "≠": r"$\ne$", "·": r"$\cdot$",
                   "\u0303": ""}
+_SUPERSCRIPTS = dict(zip("⁰¹²³⁴⁵⁶⁷⁸⁹⁻⁺", "0123456789-+", strict=True))
+#: Runs LaTeX writes as one piece: κ with its tilde, superscript and subscript digits/letters.
+_LATEX_RUNS = re.compile("(κ\u0303|[" + "".join(_SUPERSCRIPTS) + "]+|["
+                         + "".join(dict.fromkeys(_UNICODE_SUB.values())) + "]+)")
+_SUBSCRIPTS = {v: ("-" if k == "−" else k) for k, v in _UNICODE_SUB.items()}
 
 
 def latex_escape(text: str) -> str:
-    """Plain (Unicode) text as LaTeX that compiles with pdflatex and no extra packages.
+    r"""Plain (Unicode) text as LaTeX that compiles with pdflatex and no extra packages.
 
-    LaTeX specials are escaped, common physics symbols become math, any other non-ASCII
-    character becomes ``?``; adjacent maths are joined into one.
+    LaTeX specials are escaped, common physics symbols become math (κ̃ -> ``\tilde{\kappa}``,
+    superscripts such as ⁻¹⁶ -> ``^{-16}``, Unicode subscripts -> ``_{\mathrm{...}}``), any
+    other non-ASCII character becomes ``?``; adjacent maths are joined into one.
     """
     out = []
-    for ch in str(text):
+    for i, piece in enumerate(_LATEX_RUNS.split(str(text))):
+        if i % 2:
+            out.append(_latex_run(piece))
+        else:
+            out.append(_latex_chars(piece))
+    return join_math("".join(out))
+
+
+def _latex_run(run: str) -> str:
+    if run == "κ\u0303":
+        return r"$\tilde{\kappa}$"
+    if run[0] in _SUPERSCRIPTS:
+        return "$^{" + "".join(_SUPERSCRIPTS[ch] for ch in run) + "}$"
+    return r"$_{\mathrm{" + "".join(_SUBSCRIPTS[ch] for ch in run) + "}}$"
+
+
+def _latex_chars(text: str) -> str:
+    out = []
+    for ch in text:
         if ch in _LATEX_SPECIAL:
             out.append(_LATEX_SPECIAL[ch])
         elif ch in _LATEX_UNICODE:
@@ -165,7 +192,7 @@ def latex_escape(text: str) -> str:
             out.append(ch)
         else:
             out.append("?")
-    return join_math("".join(out))
+    return "".join(out)
 
 
 def join_math(text: str) -> str:
@@ -178,7 +205,13 @@ _LATEX_SYMBOLS = {f"{_KAPPA}_e−": r"$\tilde{\kappa}_{e-}$",
                   f"{_KAPPA}_tr": r"$\tilde{\kappa}_{\mathrm{tr}}$"}
 
 
+_LATEX_PATTERN = re.compile(_MD_PATTERN.pattern + r"|(?P<harm>\b[CB](?:0|[sc][12])\b)")
+
+
 def _latex_replace(m: re.Match) -> str:
+    if m.group("harm"):
+        name = m.group("harm")
+        return f"\x00${name[0]}_{{{name[1:]}}}$\x01"
     if m.group("sym"):
         return "\x00" + _LATEX_SYMBOLS[m.group("sym")] + "\x01"
     base, sub = m.group("sub").split("_", 1)
@@ -195,7 +228,7 @@ def latex_text(text: str) -> str:
     -> ``$A_{1}$``; everything else as :func:`latex_escape` (names such
     as ``ke_XY`` become ``ke\_XY``). Compiles with pdflatex and no extra packages.
     """
-    marked = _MD_PATTERN.sub(_latex_replace, str(text))
+    marked = _LATEX_PATTERN.sub(_latex_replace, str(text))
     out = []
     for i, piece in enumerate(re.split("\x00|\x01", marked)):
         out.append(piece if i % 2 else latex_escape(piece))

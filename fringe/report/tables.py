@@ -20,7 +20,7 @@ from typing import TYPE_CHECKING
 
 from fringe.errors import ConfigError
 from fringe.linalg import correlation_from_covariance
-from fringe.report.markup import html_text, latex_escape
+from fringe.report.markup import html_text, latex_escape, latex_text
 from fringe.report.rounding import (
     STYLES,
     format_bound,
@@ -205,8 +205,15 @@ def harmonics_table(names: Sequence[str], values: Sequence[float], sigmas: Seque
         ratio = _minus(_signed(v / s, 1), style) if s > 0 else "—"
         if style == "latex":
             ratio = f"${ratio}$" if s > 0 else "--"
-        rows.append((latex_escape(n) if style == "latex" else n, cell, ratio))
+        rows.append((_harmonic_latex(n) if style == "latex" else n, cell, ratio))
     return Table(header, tuple(rows), caption=caption, label=label, style=style)
+
+
+def _harmonic_latex(name: str) -> str:
+    """A harmonic name in LaTeX: ``Cs1`` -> ``$C_{s1}$``; any other name escaped."""
+    if re.fullmatch(r"[CB](?:0|[sc][12])", name):
+        return f"${name[0]}_{{{name[1:]}}}$"
+    return latex_escape(name)
 
 
 def correlation_table(names: Sequence[str], covariance, *, style: str = "unicode",
@@ -329,10 +336,11 @@ def to_markdown(table: Table) -> str:
 
 
 def to_latex(table: Table) -> str:
-    """A plain ``tabular`` in a ``table`` float (no extra packages), caption and label.
+    r"""A ``tabular`` with booktabs rules in a ``table`` float, caption and label.
 
     The cells must already be LaTeX (build the table with ``style="latex"``); the caption is
-    escaped here.
+    turned into LaTeX here (:func:`fringe.report.markup.latex_text`). Needs
+    ``\usepackage{booktabs}``.
     """
     if table.style != "latex":
         raise ConfigError("table: style: expected 'latex' cells for the LaTeX renderer, got "
@@ -340,13 +348,13 @@ def to_latex(table: Table) -> str:
     cols = "l" + "c" * (len(table.header) - 1)
     lines = [r"\begin{table}[htbp]", r"\centering"]
     if table.caption:
-        lines.append(rf"\caption{{{latex_escape(table.caption)}}}")
+        lines.append(rf"\caption{{{latex_text(table.caption)}}}")
     if table.label:
         lines.append(rf"\label{{{table.label}}}")
-    lines += [rf"\begin{{tabular}}{{{cols}}}", r"\hline",
-              " & ".join(table.header) + r" \\", r"\hline"]
+    lines += [rf"\begin{{tabular}}{{{cols}}}", r"\toprule",
+              " & ".join(table.header) + r" \\", r"\midrule"]
     lines += [" & ".join(row) + r" \\" for row in table.rows]
-    lines += [r"\hline", r"\end{tabular}", r"\end{table}"]
+    lines += [r"\bottomrule", r"\end{tabular}", r"\end{table}"]
     return "\n".join(lines) + "\n"
 
 
