@@ -9,6 +9,7 @@ import stat
 import pytest
 
 from tests.helpers.commands import run_command
+from tests.helpers.latex import unbalanced
 
 FIT = ["fit", "run.h5", "--free", "ke_XY,ke_XXmYY"]
 
@@ -75,6 +76,8 @@ def test_blinded_report_says_so(folder):
     assert md.split("**Result.** ")[1].startswith("BLINDED")
     assert _json(folder / "rep" / "summary.json")["blinded"] is True
     assert "BLINDED" in (folder / "rep" / "report.html").read_text(encoding="utf-8")
+    tex = (folder / "rep" / "report.tex").read_text(encoding="utf-8")
+    assert "BLINDED" in tex and unbalanced(tex) == [] and tex.isascii()
 
 
 @pytest.mark.parametrize("text, words", [

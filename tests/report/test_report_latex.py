@@ -24,6 +24,8 @@ from fringe.report.latex import macro_name
 from fringe.report.rounding import format_bound
 from fringe.report.tables import bound95
 from tests.helpers.commands import run_command
+from tests.helpers.latex import code as _code
+from tests.helpers.latex import unbalanced as _unbalanced
 
 TEX = next((t for t in map(shutil.which, ("pdflatex", "lualatex")) if t), None)
 CITATION = r"Invented group A & B_1, 50% #3 {x} ~y ^z \w $5 (2020)"
@@ -45,34 +47,6 @@ def report(tmp_path_factory, data_dir):
     assert run.exit_code == 0, run.stdout + run.stderr
     out = folder / "out"
     return out, (out / "report.tex").read_text("utf-8"), (out / "numbers.tex").read_text("utf-8")
-
-
-def _code(tex: str) -> str:
-    """The text without comments (``%`` to the end of the line, unless escaped)."""
-    return "\n".join(re.sub(r"(?<!\\)%.*", "", line) for line in tex.splitlines())
-
-
-def _unbalanced(tex: str) -> list[str]:
-    """Problems with the braces and environments of ``tex`` (comments left out)."""
-    code = re.sub(r"\\[{}%&$#_\\]", "", _code(tex))        # escaped characters, \\ rows
-    problems, depth = [], 0
-    for i, ch in enumerate(code):
-        depth += {"{": 1, "}": -1}.get(ch, 0)
-        if depth < 0:
-            problems.append(f"closing brace without an opening one at {i}")
-            depth = 0
-    if depth:
-        problems.append(f"{depth} brace(s) left open")
-    stack = []
-    for kind, env in re.findall(r"\\(begin|end)\{([^}]*)\}", code):
-        if kind == "begin":
-            stack.append(env)
-        elif not stack or stack.pop() != env:
-            problems.append(rf"\end{{{env}}} does not close the open environment")
-    problems += [rf"\begin{{{e}}} never closed" for e in stack]
-    if code.count("$") % 2:
-        problems.append("an odd number of $")
-    return problems
 
 
 def test_fragment_has_no_preamble_and_names_its_packages(report):
