@@ -37,8 +37,9 @@ def parse_value_sigma(text: str | None, option: str) -> tuple[float, float] | No
 @click.command("report")
 @click.argument("fit_json")
 @click.option("--out", "out", default="fringe-report", show_default=True, metavar="DIR",
-              help="Directory to write report.md, report.tex, report.html, figures/ and "
-                   "summary.json into (created if missing).")
+              help="Directory to write report.md, report.tex (a LaTeX fragment) with "
+                   "numbers.tex (its macros), report.html, figures/ and summary.json into "
+                   "(created if missing).")
 @click.option("--compare", default=None, metavar="FILE",
               help="CSV or TOML table of earlier results (name, value, sigma, citation) to set "
                    "beside this one  [default: none]")
