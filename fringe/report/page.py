@@ -8,7 +8,8 @@ file in any browser, with no server and no network. Every text goes through
 ``<sub>``); each figure is as wide as its image at 96 px per inch, but at least 36 em (a
 column-width figure is scaled up so that its labels read on a screen and its caption is not a
 narrow column) and never wider than the page, and its caption is as wide as the figure; a
-table's caption is a paragraph above it, as wide as the text; the provenance is a table of
+table's caption is a paragraph above it, as wide as the text, and its cells do not wrap (a
+table wider than a narrow window scrolls in its own box); the provenance is a table of
 key/value rows with the raw record (JSON) in a ``<details>`` block under it; a print style
 sheet lays the page out for paper (no overflow, images to the page width, figures and tables
 not split across pages).
@@ -41,7 +42,8 @@ h2 { font-size: 1.2em; margin-top: 1.8em; border-bottom: 1px solid #bbb; }
 table { border-collapse: collapse; margin: .8em 0; font-size: .92em; }
 p.caption { font-style: italic; max-width: 48em; margin: .8em 0 .3em; }
 p.caption + table { margin-top: 0; }
-th, td { border: 1px solid #ccc; padding: .25em .6em; text-align: center; }
+th, td { border: 1px solid #ccc; padding: .25em .6em; text-align: center;
+         white-space: nowrap; }
 th { background: #f2f2f2; }
 td:first-child, th:first-child { text-align: left; }
 .coef { white-space: nowrap; }
@@ -52,6 +54,7 @@ figcaption { font-size: .9em; color: #333; margin-top: .4em; }
 table.prov { width: 100%; table-layout: fixed; }
 table.prov th { width: 14em; text-align: left; vertical-align: top; background: #f7f7f7;
                 font-weight: bold; }
+table.prov th, table.prov td { white-space: normal; }
 table.prov td { text-align: left; vertical-align: top; font-size: .9em; }
 table.prov code { font-family: 'DejaVu Sans Mono', monospace; font-size: .92em;
                   word-break: break-all; }
