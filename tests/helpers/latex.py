@@ -4,7 +4,17 @@ from __future__ import annotations
 
 import re
 
-__all__ = ["code", "unbalanced"]
+__all__ = ["KNOWN_COMMANDS", "code", "unbalanced", "unknown_commands"]
+
+#: Control words the outputs may use: LaTeX's own (article class, LaTeX 2e kernel and its math
+#: symbols), booktabs' rules, graphicx's \includegraphics, and fringe's own macros.
+KNOWN_COMMANDS = set("""
+begin end centering caption label paragraph item providecommand newcommand ensuremath input
+toprule midrule bottomrule includegraphics textwidth columnwidth
+tilde kappa pm times sigma chi theta phi omega alpha beta delta nu lambda Delta le ge approx
+frac circ mu ldots oplus tau rho pi gamma epsilon eta psi Omega surd propto to infty ne cdot
+mathrm textasciitilde textasciicircum textbackslash
+""".split())
 
 
 def code(tex: str) -> str:
@@ -33,3 +43,12 @@ def unbalanced(tex: str) -> list[str]:
     if text.count("$") % 2:
         problems.append("an odd number of $")
     return problems
+
+
+def unknown_commands(tex: str) -> set[str]:
+    r"""Control words of ``tex`` outside :data:`KNOWN_COMMANDS` and ``\fringe...`` macros.
+
+    Comments are left out.
+    """
+    used = set(re.findall(r"\\([A-Za-z]+)", code(tex)))
+    return {u for u in used - KNOWN_COMMANDS if not u.startswith("fringe")}

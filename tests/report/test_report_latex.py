@@ -26,6 +26,7 @@ from fringe.report.tables import bound95
 from tests.helpers.commands import run_command
 from tests.helpers.latex import code as _code
 from tests.helpers.latex import unbalanced as _unbalanced
+from tests.helpers.latex import unknown_commands
 
 TEX = next((t for t in map(shutil.which, ("pdflatex", "lualatex")) if t), None)
 CITATION = r"Invented group A & B_1, 50% #3 {x} ~y ^z \w $5 (2020)"
@@ -93,6 +94,12 @@ def test_braces_and_environments_balance(report):
     assert _unbalanced(tex) == []
     assert _unbalanced(numbers) == []
     assert _unbalanced(r"\begin{a}{\}") != []                  # the checker itself can fail
+
+
+def test_only_known_commands_are_used(report):
+    """A misspelt or package-only command would stop pdflatex: every control word is known."""
+    _, tex, numbers = report
+    assert unknown_commands(tex + "\n" + numbers) == set()
 
 
 def test_specials_of_a_citation_are_escaped(report):
