@@ -162,7 +162,8 @@ def latex_escape(text: str) -> str:
 
     LaTeX specials are escaped, common physics symbols become math (κ̃ -> ``\tilde{\kappa}``,
     superscripts such as ⁻¹⁶ -> ``^{-16}``, Unicode subscripts -> ``_{\mathrm{...}}``), any
-    other non-ASCII character becomes ``?``; adjacent maths are joined into one.
+    other non-ASCII character becomes ``?`` and a control character (line ends included) a
+    space; adjacent maths are joined into one.
     """
     out = []
     for i, piece in enumerate(_LATEX_RUNS.split(str(text))):
@@ -188,6 +189,8 @@ def _latex_chars(text: str) -> str:
             out.append(_LATEX_SPECIAL[ch])
         elif ch in _LATEX_UNICODE:
             out.append(_LATEX_UNICODE[ch])
+        elif ord(ch) < 32 or ord(ch) == 127:
+            out.append(" ")            # a control character (a line end would end a comment)
         elif ord(ch) < 128:
             out.append(ch)
         else:

@@ -43,6 +43,11 @@ def test_join_math_keeps_an_escaped_dollar():
     assert join_math(r"\$$<$") == r"\$$<$"          # an escaped dollar, then maths
 
 
+def test_latex_escape_turns_control_characters_into_spaces():
+    # a line end inside a comment of report.tex would end the comment
+    assert latex_escape("a\nb\rc\td\x0be\x7f") == "a b c d e "
+
+
 def test_latex_escape_of_every_special():
     assert latex_escape("a_b & 50 % # ~ ^ { } \\") == (
         r"a\_b \& 50 \% \# \textasciitilde{} \textasciicircum{} \{ \} \textbackslash{}")
