@@ -238,7 +238,10 @@ def load_fit(path: PathLike) -> FitResult:
 
 def write_report(fit_path: PathLike, out_dir: PathLike, *, compare: PathLike | None = None,
                  overwrite: bool = False, **inputs) -> list[Path]:
-    """Write the report of a fit result: report.md, report.tex, report.html, figures, summary.
+    """Write the report of a fit result: report.md, report.tex + numbers.tex, report.html, ...
+
+    The LaTeX pair is a fragment to include in a paper and its macros (docs/report.md, "LaTeX"); the
+    figures (PNG and PDF) and summary.json complete the set.
 
     Parameters
     ----------

@@ -26,8 +26,8 @@ from fringe.errors import FringeError, InputFileError
 #: the result that records its hash.
 DEMO_OUTPUTS = ("scenario.toml", "run.h5", "inspect.txt", "inspect_allan.png",
                 "inspect_spectrum.png", "fit.turns.h5", "fit.json", "report/report.md",
-                "report/report.tex", "report/report.html", "report/summary.json", "plan.json",
-                "plan.txt")
+                "report/report.tex", "report/numbers.tex", "report/report.html",
+                "report/summary.json", "plan.json", "plan.txt")
 
 
 def demo_scenario_path() -> Path:

@@ -37,8 +37,9 @@ def parse_value_sigma(text: str | None, option: str) -> tuple[float, float] | No
 @click.command("report")
 @click.argument("fit_json")
 @click.option("--out", "out", default="fringe-report", show_default=True, metavar="DIR",
-              help="Directory to write report.md, report.tex, report.html, figures/ and "
-                   "summary.json into (created if missing).")
+              help="Directory to write report.md, report.tex (a LaTeX fragment) with "
+                   "numbers.tex (its macros), report.html, figures/ and summary.json into "
+                   "(created if missing).")
 @click.option("--compare", default=None, metavar="FILE",
               help="CSV or TOML table of earlier results (name, value, sigma, citation) to set "
                    "beside this one  [default: none]")
@@ -55,15 +56,16 @@ def parse_value_sigma(text: str | None, option: str) -> tuple[float, float] | No
 def command(fit_json, out, compare, kt, is_, overwrite):
     """Tables, figures and a self-contained HTML page stating the limits in FIT_JSON."""
     from fringe.report.build import assemble_report, write_report
+    from fringe.report.markup import terminal_text
 
     kt_is = parse_value_sigma(kt, "--kt"), parse_value_sigma(is_, "--is")
     with step("report: tables"):
         content = assemble_report(fit_json, compare=compare, kt=kt_is[0], is_=kt_is[1])
     with step("report: figures and pages"):
         written = write_report(content, out, overwrite=overwrite)
-    click.echo(content.headline["text"])
+    click.echo(terminal_text(content.headline["text"]))
     for w in content.warnings:
-        click.echo(f"warning (from the fit): {w}", err=True)
+        click.echo(f"warning (from the fit): {terminal_text(w)}", err=True)
     if content.rms is not None:
         click.echo(content.rms.summary())
     click.echo("")

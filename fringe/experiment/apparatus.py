@@ -241,7 +241,7 @@ class CavityPair(Apparatus):
         """The beat of the two cavities: (nu_1 - nu_2)/nu, or nu_1 - nu_2 in Hz."""
         self.check_units(units)
         modes = "general modes" if self.mode_tensors is not None else "Fabry-Perot modes"
-        beat = "nu_1 - nu_2 [Hz]" if units == "Hz" else "(nu_1 - nu_2)/nu [1]"
+        beat = "ν_1 − ν_2 [Hz]" if units == "Hz" else "(ν_1 − ν_2)/ν [1]"
         return (f"cavity-pair beat {beat}, path 2 at azimuth A_1 + "
                 f"{self.path_separation_deg:g} deg, {modes}")
 
@@ -295,7 +295,7 @@ class CavityVsReference(CavityPair):
         self.check_units(units)
         ref = ("an atomic reference" if self.reference == "atomic"
                else f"a lab-fixed cavity at azimuth {self.reference:g} deg")
-        beat = "nu_rot - nu_ref [Hz]" if units == "Hz" else "(nu_rot - nu_ref)/nu [1]"
+        beat = "ν_rot − ν_ref [Hz]" if units == "Hz" else "(ν_rot − ν_ref)/ν [1]"
         return f"cavity-vs-reference {beat}, one rotating cavity against {ref}"
 
     def attributes(self):
@@ -378,7 +378,7 @@ class Michelson(Apparatus):
     def observable(self, units):
         """The fringe count Delta N = c (t_1 - t_2)/lambda (C8)."""
         self.check_units(units)
-        return (f"michelson fringe count Delta N = c (t_1 - t_2)/lambda [fringe], arm 2 at "
+        return (f"michelson fringe count ΔN = c (t_1 − t_2)/λ [fringe], arm 2 at "
                 f"azimuth A_1 + {self.path_separation_deg:g} deg, {self.passes} pass(es)")
 
     def attributes(self):

@@ -57,15 +57,23 @@ EFFICIENCY_DEFINITION = ("efficiency = white-noise Cramer-Rao sigma of this reco
 READABLE_VERSIONS = (1, 2, 3)
 
 CONVENTIONS = {
-    "coefficient_frame": "SCCEF (J2000/ICRS equatorial axes), C2",
-    "lab_frame": "x south, y east, z up; colatitude = 90 deg - geodetic latitude (C4)",
-    "sidereal_angle": "phi = ERA(UT1) + east longitude (C5)",
-    "theta": "azimuth of path 1 from south toward east, theta = pi - A (C6, C7)",
-    "beat": "path 1 minus path 2, path 2 at azimuth A1 + separation (C8)",
+    # each text names its section of docs/conventions.md (C2, C4, C5, C6/C7, C8, C9, C10, C13)
+    "coefficient_frame": "Sun-centred celestial equatorial frame SCCEF (J2000/ICRS "
+                         "equatorial axes); docs/conventions.md, 'The coefficient frame'",
+    "lab_frame": "x south, y east, z up; colatitude = 90 deg - geodetic latitude; "
+                 "docs/conventions.md, 'Lab frame and colatitude'",
+    "sidereal_angle": "phi = ERA(UT1) + east longitude; docs/conventions.md, 'Sidereal angle'",
+    "theta": "azimuth of path 1 from south toward east, theta = pi - A (A: file azimuth from "
+             "north toward east); docs/conventions.md, 'Turntable angle'",
+    "beat": "path 1 minus path 2, path 2 at azimuth A1 + separation; docs/conventions.md, "
+            "'Sign of the beat and of the fringe count'",
     "normalisation": "harmonics of the apparatus's observable, in its units; "
-                     "harmonics.two_path_factor f maps them to the two-path signal (C9)",
-    "fourier_model": "S = B sin 2theta + C cos 2theta, C = C0 + Cs1 sin phi + ... (C10)",
-    "rms": "rms_mm = delta - beta + 1/2, rms_kt = beta - alpha - 1 (C13)",
+                     "harmonics.two_path_factor f maps them to the two-path signal; "
+                     "docs/conventions.md, 'Normalisation: two paths'",
+    "fourier_model": "S = B sin 2theta + C cos 2theta, C = C0 + Cs1 sin phi + ...; "
+                     "docs/conventions.md, 'Fourier model and harmonic names'",
+    "rms": "rms_mm = delta - beta + 1/2, rms_kt = beta - alpha - 1; docs/conventions.md, "
+           "'RMS parameters and their combinations'",
     "uncertainties": "1 sigma",
 }
 

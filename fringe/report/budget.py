@@ -21,7 +21,7 @@ import math
 from collections.abc import Callable
 
 from fringe.io.fit_sections import Estimate
-from fringe.report.markup import html_text
+from fringe.report.markup import html_text, latex_escape
 from fringe.report.rounding import (
     format_bound,
     mantissa_str,
@@ -34,7 +34,6 @@ from fringe.report.tables import (
     Table,
     bound95,
     coefficient_label,
-    latex_escape,
     to_html,
     to_latex,
     to_markdown,

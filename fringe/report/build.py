@@ -3,9 +3,9 @@
 Use :func:`build_report` to go from the file to the output directory in one call. It is
 :func:`assemble_report` (read and validate the inputs, compute the headline, the comparison and
 the RMS solution; nothing is written) followed by :func:`write_report` (render report.md,
-report.tex, report.html, figures/*.png and *.pdf, summary.json). Every output file is written
-whole or not at all; nothing is written if any target exists without ``overwrite``; inputs are
-never written over.
+report.tex (a LaTeX fragment), numbers.tex (its macros), report.html, figures/*.png and *.pdf,
+summary.json). Every output file is written whole or not at all; nothing is written if any
+target exists without ``overwrite``; inputs are never written over.
 
 Where the parts live: the readers :func:`load_fit`, :func:`load_turns` and
 :func:`load_comparison` are in :mod:`fringe.report.inputs` (they validate their file and raise
@@ -40,12 +40,13 @@ from fringe.report.documents import (
 )
 from fringe.report.figures.style import save_figure_file
 from fringe.report.inputs import load_comparison, load_fit, load_turns
+from fringe.report.latex import NUMBERS_FILE, numbers_tex
 from fringe.report.rms_solve import solve_rms
 from fringe.version import software_versions
 
 __all__ = ["OUTPUT_FILES", "ReportContent", "assemble_report", "build_report", "write_report"]
 
-OUTPUT_FILES = ("report.md", "report.tex", "report.html", "summary.json")
+OUTPUT_FILES = ("report.md", "report.tex", NUMBERS_FILE, "report.html", "summary.json")
 
 
 # ------------------------------------------------------------------------------- assemble
@@ -167,9 +168,10 @@ def write_report(content: ReportContent, out_dir, *, overwrite: bool = False) ->
             # embed the very PNG just written (read back: one rendering, identical bytes)
             figs.append((name, caption, outputs.path(rendered[-2]).read_bytes()))
         write_text_atomic(outputs.path("report.md"), markdown_report(content, figs))
-        write_text_atomic(outputs.path("report.tex"), latex_report(content))
+        write_text_atomic(outputs.path("report.tex"), latex_report(content, figs))
+        write_text_atomic(outputs.path(NUMBERS_FILE), numbers_tex(content))
         write_text_atomic(outputs.path("report.html"), html_report(content, figs))
-        files = rendered + ["report.md", "report.tex", "report.html", "summary.json"]
+        files = rendered + list(OUTPUT_FILES)
         write_json_atomic(outputs.path("summary.json"),
                           summary(content, [f[0] for f in figs], files))
     return [out / f for f in files]
@@ -196,8 +198,8 @@ def build_report(fit_json_path, out_dir, *, compare=None, kt=None, is_=None,
     Returns
     -------
     list of Path
-        Every file written: figures/*.png and *.pdf, report.md, report.tex, report.html,
-        summary.json.
+        Every file written: figures/*.png and *.pdf, report.md, report.tex, numbers.tex,
+        report.html, summary.json.
 
     Examples
     --------

@@ -16,8 +16,9 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, NamedTuple
 
 from fringe.report import budget as _budget
+from fringe.report import latex as _latex
 from fringe.report import runs as _runs
-from fringe.report.markup import html_text
+from fringe.report.markup import html_text, latex_escape, latex_text, markdown_text
 from fringe.report.rms_solve import RmsSolution
 from fringe.report.rounding import (
     format_bound,
@@ -29,7 +30,6 @@ from fringe.report.rounding import (
 from fringe.report.tables import (
     Z95,
     bound95,
-    latex_escape,
     report_tables,
     to_html,
     to_latex,
@@ -399,7 +399,12 @@ def _site_name(fit: FitResult) -> str:
 
 
 def markdown_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) -> str:
-    """report.md: headline, warnings, tables, figures (linked), provenance."""
+    """report.md: headline, warnings, tables, figures (linked), provenance.
+
+    Every text above the provenance goes through :func:`fringe.report.markup.markdown_text`
+    (κ̃ₑ₋, ω<sub>R</sub>: no underscore of a subscript reaches the reader); the provenance
+    lists the raw record (JSON) entry by entry.
+    """
     fit, tables = c.fit, report_tables(c.fit, c.comparison, "unicode")
     site = _site_name(fit)
     out = [f"# fringe report: {fit.theory} fit" + (f" — {site}" if site else ""), "",
@@ -428,37 +433,44 @@ def markdown_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) ->
         for i, (name, caption, _) in enumerate(figs, start=1):
             out += [f"![Figure {i}: {name}]({FIGURE_DIR}/{name}.png)", "",
                     f"**Figure {i}.** {caption} (PDF: `{FIGURE_DIR}/{name}.pdf`)", ""]
-    out += ["## Provenance", ""]
+    out = [markdown_text(line) for line in out]      # subscripts without underscores
+    out += ["## Provenance", ""]        # the raw record, as in summary.json
     out += [f"- **{k}**: `{json.dumps(v, ensure_ascii=False)}`" for k, v in c.provenance.items()]
     return "\n".join(out) + "\n"
 
 
-def latex_report(c: ReportContent) -> str:
-    """Build report.tex: a standalone article (compiles with pdflatex, no extra packages).
+def latex_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]] = ()) -> str:
+    r"""Build report.tex: a fragment a paper ``\input``\ s (no preamble, no document).
 
-    It holds the headline paragraph, the warnings, the coefficient table (plain tabular) and
-    the paragraphs of the theory (medium speeds, RMS parameters).
+    Its opening comment names the packages it needs (:data:`fringe.report.latex.PACKAGES`),
+    the headline and every warning of the fit; then the coefficient table (booktabs), the
+    fixed coefficients, the blinding and systematic budget, the runs of a joint result, the
+    comparison with earlier results, the theory's own paragraphs (medium speeds, RMS
+    parameters), the per-session, nuisance, cross-check, sidereal-harmonics and correlation
+    tables, and one figure environment per figure (``figures/NAME.pdf``,
+    :func:`fringe.report.latex.figure_environment`). The numbers as macros are in
+    numbers.tex (:func:`fringe.report.latex.numbers_tex`).
     """
-    table = to_latex(report_tables(c.fit, c.comparison, "latex")["coefficients"])
-    out = [r"\documentclass{article}", r"\begin{document}",
-           r"\section*{" + latex_escape(f"Result of the {c.fit.theory} fit") + "}",
-           _budget.total_headline(c.fit, headline, "latex")["text"], ""]
-    if c.warnings:
-        out += [r"\paragraph{Warnings raised by the fit.}", r"\begin{itemize}"]
-        out += [r"\item " + latex_escape(w) for w in c.warnings] + [r"\end{itemize}"]
-    out.append(table)
+    tables = report_tables(c.fit, c.comparison, "latex")
+    lead = _budget.total_headline(c.fit, headline, "latex")["text"]
+    out = _latex.fragment_header(c, lead, c.warnings) + ["", to_latex(tables["coefficients"])]
+    if c.fit.fixed:
+        out.append(_latex.fixed_text(c.fit.fixed) + "\n")
     out += _budget.budget_latex(c.fit)
     out += _runs.runs_latex(c.fit)
-    if c.fit.fixed:
-        out.append(latex_escape(f"Fixed: {_fixed_text(c.fit)}.") + "\n")
+    if "comparison" in tables:
+        out.append(to_latex(tables["comparison"]))
     if c.fit.derived is not None and c.fit.theory == ClassicalMedium.name:
         out.append(r"\paragraph{Speeds through the medium.} "
-                   + " ".join(latex_escape(p) for p in _medium_text(c) if p) + "\n")
+                   + " ".join(latex_text(p) for p in _medium_text(c) if p) + "\n")
     if c.rms is not None:
         out.append(r"\paragraph{RMS parameters.} Deviations from special relativity from this "
                    r"fit and the user's Kennedy--Thorndike and Ives--Stilwell inputs "
                    r"(independent): " + "; ".join(_rms_lines(c.rms, "latex")) + ".\n")
-    out.append(r"\end{document}")
+    for key, _title in EXTRA_TABLES:
+        if key in tables:
+            out.append(to_latex(tables[key]))
+    out += _latex.figure_environments(figs)
     return "\n".join(out) + "\n"
 
 

@@ -5,10 +5,14 @@
 outside itself -- no external style sheet, script, font or image, no link -- so it opens from a
 file in any browser, with no server and no network. Every text goes through
 :func:`fringe.report.markup.html_text` (coefficient names as symbols, subscripts as
-``<sub>``); each figure is as wide as its image at 96 px per inch (never wider than the page)
-and its caption as wide as the figure; the provenance is a table of key/value rows with the raw
-record (JSON) in a ``<details>`` block under it; a print style sheet lays the page out for
-paper (no overflow, images to the page width, figures and tables not split across pages).
+``<sub>``); each figure is as wide as its image at 96 px per inch, but at least 36 em (a
+column-width figure is scaled up so that its labels read on a screen and its caption is not a
+narrow column) and never wider than the page, and its caption is as wide as the figure; a
+table's caption is a paragraph above it, as wide as the text, and its cells do not wrap (a
+table wider than a narrow window scrolls in its own box); the provenance is a table of
+key/value rows with the raw record (JSON) in a ``<details>`` block under it; a print style
+sheet lays the page out for paper (no overflow, images to the page width, figures and tables
+not split across pages).
 """
 
 from __future__ import annotations
@@ -36,18 +40,21 @@ h2 { font-size: 1.2em; margin-top: 1.8em; border-bottom: 1px solid #bbb; }
 .notes { color: #555; font-size: .92em; }
 .wide { max-width: 100%; overflow-x: auto; }
 table { border-collapse: collapse; margin: .8em 0; font-size: .92em; }
-caption { caption-side: top; text-align: left; font-style: italic; padding-bottom: .3em; }
-th, td { border: 1px solid #ccc; padding: .25em .6em; text-align: center; }
+p.caption { font-style: italic; max-width: 48em; margin: .8em 0 .3em; }
+p.caption + table { margin-top: 0; }
+th, td { border: 1px solid #ccc; padding: .25em .6em; text-align: center;
+         white-space: nowrap; }
 th { background: #f2f2f2; }
 td:first-child, th:first-child { text-align: left; }
 .coef { white-space: nowrap; }
 sub, sup { line-height: 0; }
-figure { margin: 1.4em 0; max-width: 100%; }
+figure { margin: 1.4em 0; max-width: 100%; min-width: min(100%, 36em); }
 figure img { display: block; width: 100%; height: auto; border: 1px solid #ddd; }
 figcaption { font-size: .9em; color: #333; margin-top: .4em; }
 table.prov { width: 100%; table-layout: fixed; }
 table.prov th { width: 14em; text-align: left; vertical-align: top; background: #f7f7f7;
                 font-weight: bold; }
+table.prov th, table.prov td { white-space: normal; }
 table.prov td { text-align: left; vertical-align: top; font-size: .9em; }
 table.prov code { font-family: 'DejaVu Sans Mono', monospace; font-size: .92em;
                   word-break: break-all; }
@@ -63,6 +70,7 @@ details pre { font-size: .8em; background: #f7f7f7; padding: .6em; white-space: 
   figure { max-width: 100% !important; }
   figure img { max-width: 100%; }
   figure, table, .headline, .warnings, tr { break-inside: avoid; page-break-inside: avoid; }
+  p.caption { break-after: avoid; page-break-after: avoid; }
   h1, h2 { break-after: avoid; page-break-after: avoid; }
   .headline, .warnings, th { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
   details summary { color: #000; }
@@ -105,8 +113,8 @@ def _short(x) -> str:
     if isinstance(x, float):
         return f"{x:.6g}"
     if isinstance(x, (list, tuple)):
-        return ", ".join(_short(v) for v in x)
-    if x is None:
+        return ", ".join(_short(v) for v in x) if x else "none"
+    if x is None or (isinstance(x, (str, Mapping)) and not x):
         return "—"
     return str(x)
 

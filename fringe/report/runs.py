@@ -14,10 +14,10 @@ from __future__ import annotations
 
 import html
 
+from fringe.report.markup import latex_escape
 from fringe.report.tables import (
     Table,
     coefficient_label,
-    latex_escape,
     to_html,
     to_latex,
     to_markdown,

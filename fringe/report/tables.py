@@ -20,7 +20,7 @@ from typing import TYPE_CHECKING
 
 from fringe.errors import ConfigError
 from fringe.linalg import correlation_from_covariance
-from fringe.report.markup import html_text
+from fringe.report.markup import html_text, latex_escape, latex_text
 from fringe.report.rounding import (
     STYLES,
     format_bound,
@@ -35,7 +35,7 @@ if TYPE_CHECKING:
 
 __all__ = ["Table", "Z68", "Z95", "bound95", "coefficient_label", "coefficient_table",
            "comparison_table", "correlation_table",
-           "cross_check_table", "harmonics_table", "latex_escape", "report_tables",
+           "cross_check_table", "harmonics_table", "report_tables",
            "sessions_table", "to_html", "to_latex", "to_markdown", "value_table"]
 
 #: Half-widths of the Gaussian 68 % and 95 % intervals, in sigma (two-sided; 1.96 is the
@@ -78,37 +78,6 @@ class Table:
 
 # ------------------------------------------------------------------------------ text helpers
 
-_LATEX_SPECIAL = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#",
-                  "_": r"\_", "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}",
-                  "^": r"\textasciicircum{}", "<": r"$<$", ">": r"$>$", "|": r"$|$"}
-_LATEX_UNICODE = {"±": r"$\pm$", "−": "-", "×": r"$\times$", "σ": r"$\sigma$",
-                  "χ": r"$\chi$", "²": r"$^2$", "θ": r"$\theta$", "φ": r"$\phi$",
-                  "ω": r"$\omega$", "α": r"$\alpha$", "β": r"$\beta$", "δ": r"$\delta$",
-                  "κ": r"$\kappa$", "Δ": r"$\Delta$", "≤": r"$\le$", "≥": r"$\ge$",
-                  "≈": r"$\approx$", "½": r"$\frac{1}{2}$", "°": r"$^\circ$", "µ": r"$\mu$",
-                  "–": "--", "—": "---", "’": "'", "“": "``", "”": "''", "…": r"\ldots{}",
-                  "\u0303": ""}
-
-
-def latex_escape(text: str) -> str:
-    """Plain (Unicode) text as LaTeX that compiles with pdflatex and no extra packages.
-
-    LaTeX specials are escaped, common physics symbols become math, any other non-ASCII
-    character becomes ``?``.
-    """
-    out = []
-    for ch in str(text):
-        if ch in _LATEX_SPECIAL:
-            out.append(_LATEX_SPECIAL[ch])
-        elif ch in _LATEX_UNICODE:
-            out.append(_LATEX_UNICODE[ch])
-        elif ord(ch) < 128:
-            out.append(ch)
-        else:
-            out.append("?")
-    return "".join(out)
-
-
 def _sup_latex(component: str) -> str:
     return component.replace("XXmYY", "XX-YY")
 
@@ -141,14 +110,17 @@ def _minus(text: str, style: str) -> str:
     return text.replace("-", "−") if style == "unicode" else text
 
 
+def _signed(x: float, decimals: int) -> str:
+    """``x`` with its sign and ``decimals`` decimals; a value that rounds to zero has no sign."""
+    text = f"{x:+.{decimals}f}"
+    return text[1:] if float(text) == 0.0 else text
+
+
 def _signed2(x: float, style: str) -> str:
-    """Correlation coefficient with sign and two decimals (NaN -> 'n/a')."""
+    """Correlation coefficient with sign and two decimals (NaN -> 'n/a'; never -0.00)."""
     if not math.isfinite(x):
         return "n/a"
-    text = f"{x:+.2f}"
-    if text in ("+0.00", "-0.00"):
-        text = "0.00"
-    text = _minus(text, style)
+    text = _minus(_signed(x, 2), style)
     return f"${text}$" if style == "latex" else text
 
 
@@ -230,11 +202,18 @@ def harmonics_table(names: Sequence[str], values: Sequence[float], sigmas: Seque
     for n, v, s in zip(names, values, sigmas, strict=True):
         v, s = float(v), float(s)
         cell = format_mantissas(*pdg_round(v, s), style)
-        ratio = _minus(f"{v / s:+.1f}", style) if s > 0 else "—"
+        ratio = _minus(_signed(v / s, 1), style) if s > 0 else "—"
         if style == "latex":
             ratio = f"${ratio}$" if s > 0 else "--"
-        rows.append((latex_escape(n) if style == "latex" else n, cell, ratio))
+        rows.append((_harmonic_latex(n) if style == "latex" else n, cell, ratio))
     return Table(header, tuple(rows), caption=caption, label=label, style=style)
+
+
+def _harmonic_latex(name: str) -> str:
+    """A harmonic name in LaTeX: ``Cs1`` -> ``$C_{s1}$``; any other name escaped."""
+    if re.fullmatch(r"[CB](?:0|[sc][12])", name):
+        return f"${name[0]}_{{{name[1:]}}}$"
+    return latex_escape(name)
 
 
 def correlation_table(names: Sequence[str], covariance, *, style: str = "unicode",
@@ -326,7 +305,7 @@ def cross_check_table(two_stage: Mapping[str, Mapping[str, float]],
         if b is None:
             continue
         s = max(a["sigma"], b["sigma"])
-        diff = _minus(f"{(b['value'] - a['value']) / s:+.2f}", style) if s > 0 else "n/a"
+        diff = _minus(_signed((b["value"] - a["value"]) / s, 2), style) if s > 0 else "n/a"
         if style == "latex" and s > 0:
             diff = f"${diff}$"
         rows.append((coefficient_label(n, style),
@@ -357,10 +336,11 @@ def to_markdown(table: Table) -> str:
 
 
 def to_latex(table: Table) -> str:
-    """A plain ``tabular`` in a ``table`` float (no extra packages), caption and label.
+    r"""A ``tabular`` with booktabs rules in a ``table`` float, caption and label.
 
     The cells must already be LaTeX (build the table with ``style="latex"``); the caption is
-    escaped here.
+    turned into LaTeX here (:func:`fringe.report.markup.latex_text`). Needs
+    ``\usepackage{booktabs}``.
     """
     if table.style != "latex":
         raise ConfigError("table: style: expected 'latex' cells for the LaTeX renderer, got "
@@ -368,26 +348,27 @@ def to_latex(table: Table) -> str:
     cols = "l" + "c" * (len(table.header) - 1)
     lines = [r"\begin{table}[htbp]", r"\centering"]
     if table.caption:
-        lines.append(rf"\caption{{{latex_escape(table.caption)}}}")
+        lines.append(rf"\caption{{{latex_text(table.caption)}}}")
     if table.label:
         lines.append(rf"\label{{{table.label}}}")
-    lines += [rf"\begin{{tabular}}{{{cols}}}", r"\hline",
-              " & ".join(table.header) + r" \\", r"\hline"]
+    lines += [rf"\begin{{tabular}}{{{cols}}}", r"\toprule",
+              " & ".join(table.header) + r" \\", r"\midrule"]
     lines += [" & ".join(row) + r" \\" for row in table.rows]
-    lines += [r"\hline", r"\end{tabular}", r"\end{table}"]
+    lines += [r"\bottomrule", r"\end{tabular}", r"\end{table}"]
     return "\n".join(lines) + "\n"
 
 
 def to_html(table: Table) -> str:
-    """An HTML ``<table>`` of a Unicode-style table.
+    """An HTML ``<table>`` of a Unicode-style table, its caption a paragraph above it.
 
     Every text goes through :func:`fringe.report.markup.html_text` (escaped; names and
     subscripts marked up).
     """
     e = html_text
-    out = ["<table>"]
-    if table.caption:
-        out.append(f"<caption>{e(table.caption)}</caption>")
+    out = []
+    if table.caption:          # above the table, not in it: as wide as the text, not the table
+        out.append(f'<p class="caption">{e(table.caption)}</p>')
+    out.append("<table>")
     out.append("<thead><tr>" + "".join(f"<th>{e(h)}</th>" for h in table.header)
                + "</tr></thead>")
     out.append("<tbody>")

@@ -9,6 +9,7 @@ import stat
 import pytest
 
 from tests.helpers.commands import run_command
+from tests.helpers.latex import unbalanced, unknown_commands
 
 FIT = ["fit", "run.h5", "--free", "ke_XY,ke_XXmYY"]
 
@@ -75,6 +76,9 @@ def test_blinded_report_says_so(folder):
     assert md.split("**Result.** ")[1].startswith("BLINDED")
     assert _json(folder / "rep" / "summary.json")["blinded"] is True
     assert "BLINDED" in (folder / "rep" / "report.html").read_text(encoding="utf-8")
+    tex = (folder / "rep" / "report.tex").read_text(encoding="utf-8")
+    assert "BLINDED" in tex and tex.isascii()
+    assert unbalanced(tex) == [] and unknown_commands(tex) == set()
 
 
 @pytest.mark.parametrize("text, words", [

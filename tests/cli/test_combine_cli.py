@@ -11,6 +11,7 @@ import json
 import pytest
 
 from tests.helpers.commands import run_command
+from tests.helpers.latex import unbalanced, unknown_commands
 from tests.helpers.runs import KE_TRUTH, simulate_run
 
 SHORT = {"days": 0.5, "interval_s": 2.0, "period_s": 60.0}
@@ -72,6 +73,9 @@ def test_the_report_of_a_joint_fit_shows_the_runs(labs, tmp_path):
     assert "σ joint" in section
     html = (tmp_path / "rep" / "report.html").read_text("utf-8")
     assert "Runs of the joint fit" in html
+    tex = (tmp_path / "rep" / "report.tex").read_text("utf-8")
+    assert r"\label{tab:runs-sigma}" in tex and tex.isascii()
+    assert unbalanced(tex) == [] and unknown_commands(tex) == set()
     summary = _json(tmp_path / "rep" / "summary.json")
     assert [r["path"] for r in summary["runs"]["runs"]] == ["cavity.h5", "michelson.h5"]
 

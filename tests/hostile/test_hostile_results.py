@@ -34,7 +34,9 @@ from fringe.io.fit_result import FitResult, read_fit_result
 from fringe.io.records import MAX_MAGNITUDE, MIN_MAGNITUDE, check_text
 from fringe.report.build import assemble_report
 from fringe.report.documents import html_report, latex_report, markdown_report, summary
+from fringe.report.latex import numbers_tex
 from tests.helpers.hostile import _settings, assert_one_line_naming, digest
+from tests.helpers.latex import unbalanced, unknown_commands
 
 DATA = Path(__file__).resolve().parents[1] / "data"
 EXAMPLE = json.loads((DATA / "fit_example.json").read_text("utf-8"))   # format version 1
@@ -319,6 +321,8 @@ def check_result_case(tmp_path: Path, case) -> None:
         assert check_text(str(w)) is None
     for text in (markdown_report(content, []), latex_report(content), html_report(content, [])):
         text.encode("utf-8")
+    tex = latex_report(content) + numbers_tex(content)
+    assert tex.isascii() and unbalanced(tex) == [] and not unknown_commands(tex), tex[:2000]
     json.dumps(summary(content, [], []), allow_nan=False).encode("utf-8")
     assert digest(path) == before
 

@@ -271,7 +271,9 @@ def test_report_states_warnings_and_comparison(rendered):
     assert "Invented group A (2020)" in md and "earlier/this" in md
     tex = (out / "report.tex").read_text("utf-8")
     assert tex.isascii() and r"\begin{tabular}" in tex and r"\label{tab:coefficients}" in tex
-    assert "booktabs" not in tex and r"\toprule" not in tex
+    assert r"\label{tab:comparison}" in tex and "Invented group A (2020)" in tex
+    # a fragment for \input (tests/report/test_report_latex.py checks its structure)
+    assert r"\documentclass" not in tex and r"\toprule" in tex
 
 
 def test_html_is_self_contained(rendered):

@@ -14,6 +14,7 @@ from fringe.errors import InputFileError
 from fringe.io.fit_result import FitResult
 from fringe.report.content import ReportContent
 from fringe.report.documents import headline, latex_report, markdown_report
+from tests.helpers.latex import unbalanced, unknown_commands
 
 EXAMPLE = json.loads((Path(__file__).resolve().parents[1] / "data" / "fit_example.json")
                      .read_text("utf-8"))
@@ -83,7 +84,9 @@ def test_headline_states_the_laboratory_speed():
     assert "## Speeds through the medium" in md
     assert "1.13e+06" in md and "< 31 km/s" in md      # orbital expectation; the Sun's speed
     assert "-0.0002 ± 0.0003 (1σ)" in md                # a negative fraction is accepted
-    assert "Speeds through the medium" in latex_report(c)
+    tex = latex_report(c)
+    assert "Speeds through the medium" in tex and tex.isascii()
+    assert unbalanced(tex) == [] and unknown_commands(tex) == set()
 
 
 @pytest.mark.parametrize("key", ["speed_kms_95", "sun_speed_kms_95"])

@@ -38,11 +38,12 @@ def spectrum(sidebands: bool) -> str:
 
 def residual_adev(turn_period_s: float, units: str) -> str:
     """Caption of the Allan deviation of the per-turn residuals."""
-    return ("Overlapping Allan deviation of the per-turn residuals C − C_model and "
-            f"B − B_model; τ0 = turn period = {turn_period_s:g} s (rejected and missing turns "
-            "excluded, not bridged). Error bars: ADEV/√N of the independent terms. Dotted "
-            "lines: τ^(−1/2) (white noise) from the first point; dashed: half a sidereal day "
-            f"and a sidereal day (T_sid). Unit: that of the observable ({units}).")
+    return ("Overlapping Allan deviation of the per-turn residuals of C and of B (measured "
+            "minus the fitted coefficient model); τ0 = turn period = "
+            f"{turn_period_s:g} s (rejected and missing turns excluded, not bridged). Error "
+            "bars: ADEV/√N of the independent terms. Dotted lines: white noise, ADEV ∝ 1/√τ, "
+            "from the first point; dashed: half a sidereal day and a sidereal day. Unit: that "
+            f"of the observable ({units}).")
 
 
 def limits(has_comparison: bool, scale: str, *, speeds: bool = False) -> str:
