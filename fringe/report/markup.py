@@ -75,14 +75,18 @@ def _replace(m: re.Match) -> str:
     return f"{base}<sub>{sub}</sub>"
 
 
-def html_text(text: str) -> str:
+def html_text(text: str, *, names_as_typed: bool = False) -> str:
     """Plain (Unicode) text as HTML: escaped, with names and subscripts marked up.
 
     Markup is added only around whole words (a name inside a longer identifier such as
     ``lab_C0`` or ``model_C`` is left as it is), and the escaping comes first, so the result is
-    safe for any input text.
+    safe for any input text. ``names_as_typed``: coefficient names stay as one types them (a
+    text that defines them, ``rms_mm = delta - beta + 1/2``); subscripts are still marked up.
     """
-    return _PATTERN.sub(_replace, html.escape(str(text), quote=False))
+    def replace(m: re.Match) -> str:
+        return m.group(0) if names_as_typed and m.group("coef") else _replace(m)
+
+    return _PATTERN.sub(replace, html.escape(str(text), quote=False))
 
 
 # ----------------------------------------------------------------------------- Markdown

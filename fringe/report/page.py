@@ -129,6 +129,9 @@ def provenance_rows(prov: Mapping) -> list[tuple[str, str]]:
     """
     rows = []
     for key, value in prov.items():
+        # the conventions define the names one types (rms_mm = delta - beta + 1/2): shown as
+        # typed, not turned into their symbols
+        conventions = str(key).startswith("conventions")
         if isinstance(value, Mapping) and set(value) == {"path", "sha256"}:
             cell = (f"{html_text(value['path'])}<br>sha256 "
                     f"<code>{html.escape(str(value['sha256']))}</code>")
@@ -137,7 +140,8 @@ def provenance_rows(prov: Mapping) -> list[tuple[str, str]]:
             for k, v in value.items():
                 text = ("; ".join(f"{kk} = {_short(vv)}" for kk, vv in v.items())
                         if isinstance(v, Mapping) else _short(v))
-                lines.append(f"<b>{html_text(k)}</b>: {html_text(text)}")
+                lines.append(f"<b>{html_text(k)}</b>: "
+                             f"{html_text(text, names_as_typed=conventions)}")
             cell = "<br>".join(lines) if lines else "—"
         else:
             cell = html_text(_short(value))

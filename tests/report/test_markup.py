@@ -64,3 +64,12 @@ def test_report_markdown_has_no_subscript_underscores(data_dir, tmp_path):
     assert "κ̃ₑ₋" in body
     assert not re.search(r"κ̃_|(?<![A-Za-z_.])[A-Za-zα-ωΑ-Ω]_[A-Za-z0-9]{1,4}\b", body), \
         re.findall(r"\S*[^\W\d]_\S*", body)
+
+
+def test_html_text_keeps_names_as_typed_where_they_are_defined():
+    from fringe.report.markup import html_text
+
+    text = "rms_mm = delta - beta + 1/2, P_MM"
+    # before: the provenance's conventions row read "δ − β + ½ = delta - beta + 1/2"
+    assert html_text(text, names_as_typed=True) == "rms_mm = delta - beta + 1/2, P<sub>MM</sub>"
+    assert "δ − β + ½</span> = delta" in html_text(text)
