@@ -181,6 +181,7 @@ def systematics_of(res, cache, budget: Budget | None, scale_rel: float | None,
     if not aux and budget is None:
         return None
     terms, sig, shifts = [], {n: {} for n in names}, {n: {} for n in names}
+    direction: dict[str, dict[str, float]] = {n: {} for n in names}
     for ch, (shift, s_c, s_n) in aux.items():
         terms += [{"name": f"aux:{ch}", "kind": "aux-channel", "source": f"coupling to "
                    f"auxiliary channel {ch} (FitSettings.regress), its uncertainty",
@@ -198,6 +199,8 @@ def systematics_of(res, cache, budget: Budget | None, scale_rel: float | None,
         else:
             p = _harmonic_projection(cache, len(labels), k, t.harmonic) * t.size
             size = {n: float(abs(p[i])) for i, n in enumerate(names)}
+            for i, n in enumerate(names):
+                direction[n][t.name] = float(p[i])
             kind, src = "declared-harmonic", f"declared on harmonic {t.harmonic} ({budget.path})"
         terms.append({"name": t.name, "kind": kind, "source": src, "note": t.note})
         for n in names:
@@ -214,7 +217,8 @@ def systematics_of(res, cache, budget: Budget | None, scale_rel: float | None,
     for i, n in enumerate(names):
         stat = float(np.sqrt(max(fit_sigma[i] ** 2 - joint[i], 0.0)))
         coefs[n] = {"statistical": stat, "fit_sigma": float(fit_sigma[i]), "terms": sig[n],
-                    "shift": shifts[n], "total": 0.0}
+                    "shift": shifts[n], "total": 0.0,
+                    **({"direction": direction[n]} if direction[n] else {})}
     out = Systematics(coefs, terms, channels,
                       {n: float(joint[i]) for i, n in enumerate(names)} if aux else {},
                       CORRELATIONS,

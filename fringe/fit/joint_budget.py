@@ -11,9 +11,12 @@ carried so:
 * ``scale`` (relative size ρ, a run's calibration or a declared scale): e = ρ ĉ_r, the joint term
   |W_r ĉ_r| ρ — exact; it becomes kind ``run-scale`` (a fixed size: the joint value does not
   rescale it).
-* ``declared-harmonic`` and ``aux-channel-noise``: the result stores each coefficient's size,
-  not the signs across coefficients, so the joint term is bounded by Σ_j |W_r[k, j]| s_j (an
-  upper bound, exact when one coefficient carries the term).
+* ``declared-harmonic``: the run's result stores the term's signed effect on every coefficient
+  (``direction``), d; the joint term is |W_r d| — exact. A result written before
+  ``direction`` existed gives the bound below.
+* ``aux-channel-noise`` (the noise of a channel's projection, not one direction): bounded by
+  Σ_j |W_r[k, j]| s_j, s_j its size on coefficient j (an upper bound, exact when one
+  coefficient carries the term).
 * ``aux-channel`` (a fitted coupling's uncertainty) is inside the run's likelihood, hence inside
   the joint σ; the joint ``statistical`` is the joint σ itself and these terms are not listed
   again.
@@ -37,9 +40,9 @@ __all__ = ["JOINT_CORRELATIONS", "joint_systematics"]
 
 #: How the joint budget treats correlated terms (recorded in the result).
 JOINT_CORRELATIONS = (
-    "runs' terms carried through each run's weight matrix, independent between runs; terms "
-    "stored without their signs across coefficients (harmonic, channel noise) bounded by the "
-    "absolute weights; auxiliary couplings inside the joint statistical σ; declared terms "
+    "runs' terms carried through each run's weight matrix, independent between runs; a "
+    "channel's noise term bounded by the absolute weights; auxiliary couplings inside the "
+    "joint statistical σ; declared terms "
     "independent of the others, scale terms fully correlated between coefficients")
 
 
@@ -59,6 +62,10 @@ def _run_terms(label: str, path: str, sysm: Systematics, names, own: np.ndarray,
             kind = "run-scale"
         elif kind == "declared-coefficient":
             size = np.abs(w) @ per          # one nonzero entry: exact
+        elif kind == "declared-harmonic" and all(
+                t["name"] in sysm.coefficients.get(n, {}).get("direction", {}) for n in names):
+            size = np.abs(w @ np.array([float(sysm.coefficients[n]["direction"][t["name"]])
+                                        for n in names]))
         else:
             size = np.abs(w) @ per          # signs not stored: an upper bound
         terms.append({"name": name, "kind": kind, "source": f"{label} ({path}): "

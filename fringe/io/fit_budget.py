@@ -30,7 +30,7 @@ TERM_KINDS = ("aux-channel", "aux-channel-noise", "declared-coefficient", "decla
 _SYS_KEYS = ("coefficients", "terms", "channels", "aux_joint_variance", "correlations",
              "budget_file", "withheld")
 _TERM_KEYS = ("name", "kind", "source", "relative", "note")
-_COEF_KEYS = ("statistical", "fit_sigma", "terms", "shift", "total")
+_COEF_KEYS = ("statistical", "fit_sigma", "terms", "shift", "direction", "total")
 
 
 def quadrature_total(statistical: float, terms: Mapping[str, float | None],
@@ -60,7 +60,10 @@ class Systematics:
     ----------
     coefficients : mapping
         ``{name: {"statistical", "fit_sigma", "terms": {term: sigma or None}, "shift":
-        {term: value}, "total"}}`` (coefficient units). ``statistical`` is the fit's sigma
+        {term: value}, "direction": {term: signed value}, "total"}}`` (coefficient units).
+        ``direction`` holds the signed one-sigma effect of a term that moves every coefficient
+        along one direction (a declared harmonic term), so that a joint result can carry it
+        exactly; ``terms`` holds its size. ``statistical`` is the fit's sigma
         without the auxiliary couplings' part, ``fit_sigma`` the fit's own sigma.
     terms : tuple of mapping
         ``{"name", "kind" (TERM_KINDS), "source", "relative" (scale terms), "note"}``.
@@ -157,6 +160,7 @@ class Systematics:
             e.unknown(_COEF_KEYS)
             sig = e.sub("terms")
             shift = e.sub("shift", required=False)
+            direction = e.sub("direction", required=False)
             for term, _ in sig.items():
                 if term not in names:
                     raise sig.error(term, "a term listed in systematics.terms", term)
@@ -167,7 +171,9 @@ class Systematics:
                           for k, _ in sig.items()},
                 "shift": {} if shift is None else {k: shift.number(k) for k, _ in
                                                    shift.items()},
-                "total": e.number("total", minimum=0.0)}
+                "total": e.number("total", minimum=0.0),
+                **({} if direction is None else {"direction": {
+                    k: direction.number(k) for k, _ in direction.items()}})}
         joint = s.sub("aux_joint_variance", required=False)
         budget = s.sub("budget_file", required=False)
         if budget is not None:

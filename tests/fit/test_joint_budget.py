@@ -80,6 +80,8 @@ def test_the_runs_terms_are_carried_through_their_weights(stored):
     _, results = stored
     joint = combine_results(results)
     names = list(joint.coefficients)
+    assert len({abs(v) > 0 for v in (results[0][1].systematics.coefficients[n]["direction"]
+                                     ["tilt residual"] for n in names)}) >= 1
     s = joint.systematics
     assert s is not None
     kinds = {t["name"]: t["kind"] for t in s.terms}
@@ -89,8 +91,11 @@ def test_the_runs_terms_are_carried_through_their_weights(stored):
     w1 = _weights(results, names)[0]
     own = np.array([results[0][1].coefficients[n].value for n in names])
     j = names.index("ke_ZZ")
-    per_harm = np.array([results[0][1].systematics.coefficients[n]["terms"]["tilt residual"]
-                         for n in names])
+    run1 = results[0][1].systematics.coefficients
+    signed = np.array([run1[n]["direction"]["tilt residual"] for n in names])
+    # the stored direction is the term's signed effect: its size is the term's sigma
+    np.testing.assert_array_equal(np.abs(signed), [run1[n]["terms"]["tilt residual"]
+                                                   for n in names])
     for k, n in enumerate(names):
         c = s.coefficients[n]
         # a size on ke_ZZ of run 1 moves joint coefficient n by W_1[n, ke_ZZ] x size
@@ -99,7 +104,7 @@ def test_the_runs_terms_are_carried_through_their_weights(stored):
         # the scale moves run 1's values by 2 %: the joint by W_1 (0.02 c_1)
         assert c["terms"]["run 1: beat calibration"] == pytest.approx(
             abs(w1[k] @ (0.02 * own)), rel=1e-6)
-        assert c["terms"]["run 1: tilt residual"] == pytest.approx(np.abs(w1[k]) @ per_harm,
+        assert c["terms"]["run 1: tilt residual"] == pytest.approx(abs(w1[k] @ signed),
                                                                     rel=1e-6)
         assert c["statistical"] == pytest.approx(joint.coefficients[n].sigma, rel=1e-12)
         assert c["total"] ** 2 == pytest.approx(
@@ -155,3 +160,21 @@ def test_without_any_term_there_is_no_budget():
     assert joint_systematics([("run 1", "a.h5", None, np.zeros(2), eye / 2),
                               ("run 2", "b.h5", None, np.zeros(2), eye / 2)],
                              ["ke_XY", "ke_ZZ"], np.zeros(2), eye, None, {}) is None
+
+
+def test_a_harmonic_term_without_its_direction_is_bounded(stored):
+    # a result written before `direction` existed: the joint term is sum_j |W[k, j]| s_j
+    import dataclasses
+
+    _, results = stored
+    p, r = results[0]
+    coefs = {n: {k: v for k, v in c.items() if k != "direction"}
+             for n, c in r.systematics.coefficients.items()}
+    old = dataclasses.replace(r, systematics=dataclasses.replace(r.systematics,
+                                                                 coefficients=coefs))
+    exact = combine_results(results).systematics
+    bound = combine_results([(p, old), results[1]]).systematics
+    for n in exact.coefficients:
+        e = exact.coefficients[n]["terms"]["run 1: tilt residual"]
+        b = bound.coefficients[n]["terms"]["run 1: tilt residual"]
+        assert b >= e * (1 - 1e-12)
