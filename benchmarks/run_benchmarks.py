@@ -74,11 +74,13 @@ glitch_size = 1e-13
 """
 
 
-def floor_seconds(path: str) -> float:
+def floor_seconds(path: str, chunk_cache: bool = True) -> float:
+    """One read of time, signal and azimuth and one sin/cos pass (s); ``chunk_cache=False``
+    reads without HDF5's chunk cache (``rdcc_nbytes=0``)."""
     import h5py
 
     t0 = time.perf_counter()
-    with h5py.File(path, "r") as f:
+    with h5py.File(path, "r", **({} if chunk_cache else {"rdcc_nbytes": 0})) as f:
         g = f["samples"]
         n = g["time"].shape[0]
         buf = np.empty(min(n, 1 << 17))

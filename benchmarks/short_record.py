@@ -29,7 +29,6 @@ from __future__ import annotations
 import argparse
 import json
 import sys
-import time
 from pathlib import Path
 
 import numpy as np
@@ -58,26 +57,12 @@ def record(work: Path, days: float) -> str:
 
 
 def floor_uncached_seconds(path: str) -> float:
-    """The floor read without HDF5's chunk cache (``rdcc_nbytes=0``), as the fit now reads.
+    """The floor read without HDF5's chunk cache, as the fit now reads.
 
     Reported beside the floor of ``run_benchmarks.floor_seconds`` (h5py's default cache, the
     floor of the issue), not in its place.
     """
-    import h5py
-
-    t0 = time.perf_counter()
-    with h5py.File(path, "r", rdcc_nbytes=0) as f:
-        g = f["samples"]
-        n = g["time"].shape[0]
-        buf = np.empty(min(n, 1 << 17))
-        for start in range(0, n, buf.size):
-            stop = min(start + buf.size, n)
-            view = buf[: stop - start]
-            for name in ("time", "signal", "azimuth"):
-                g[name].read_direct(view, np.s_[start:stop], np.s_[0:stop - start])
-            np.sin(view)
-            np.cos(view)
-    return time.perf_counter() - t0
+    return floor_seconds(path, chunk_cache=False)
 
 
 def ratio(work: Path, repeats: int) -> dict:
