@@ -97,9 +97,8 @@ def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_star
     aux_2d = (np.stack([np.asarray(aux[k], float) for k in names], axis=1) if names
               else np.zeros((n, 0)))
     kinds = leak_terms(settings)
-    theta = np.pi - np.asarray(azimuth_rad, float)
     (vcount, t_mid, t_lo, t_hi, coef, aux_coef, leak, ninv_2, rms, gap_rad, ok) = block_fits(
-        np.ascontiguousarray(t_s, float), theta, np.cos(theta), np.sin(theta),
+        np.ascontiguousarray(t_s, float), np.ascontiguousarray(azimuth_rad, float),
         np.ascontiguousarray(y, float), aux_2d, np.asarray(block_starts, np.int64),
         DRIFT_TERMS[settings.drift], settings.max_harmonic,
         np.array([LEAK_KIND_CODES[k] for k, _ in kinds], np.int64),
@@ -110,6 +109,7 @@ def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_star
         int(gap_harmonic))
     if gate is not None:
         starts = np.asarray(block_starts, np.int64)
+        theta = np.pi - np.asarray(azimuth_rad, float)          # C7
         correct_blocks(coef, ninv_2, leak, block_rates(np.asarray(t_s, float), theta, starts),
                        settings.term_names, gate, ok)
     status = np.where(ok, TurnTable.ACCEPTED, TurnTable.PARTIAL).astype(np.int8)

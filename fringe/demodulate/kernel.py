@@ -2,8 +2,8 @@
 
 One call handles every block of a contiguous sample range, one block at a time, in passes over
 the block's samples while they sit in the CPU cache: (1) valid-sample count, mean time, time span
-and the angles for the coverage check; (2) the design columns of the valid samples (stored
-column by column) and the signal, auxiliary and unit leak columns, whose products give the
+and the angles for the coverage check; (2) the design columns of the valid samples (built and
+stored column by column) and the signal, auxiliary and unit leak columns, whose products give the
 block's normal matrix and right-hand sides; (3) the residuals. Between (2) and (3) the normal
 equations are solved by a Cholesky factorisation of the unit-diagonal (scaled) normal matrix.
 
@@ -47,21 +47,6 @@ def _mod_2pi(v):
     Branch-free, so loops vectorise.
     """
     return v - TWO_PI * np.floor(v / TWO_PI)
-
-
-@njit(cache=CACHE, nogil=True, inline="always")
-def _design_row(x, tau, c1, s1, nd, max_harmonic):
-    """Fill x with 1, tau[, tau^2], cos theta, sin theta, ..., cos m theta, sin m theta."""
-    x[0] = 1.0
-    if nd > 1:
-        x[1] = tau
-    if nd > 2:
-        x[2] = tau * tau
-    c, s = c1, s1
-    for m in range(max_harmonic):
-        x[nd + 2 * m] = c
-        x[nd + 2 * m + 1] = s
-        c, s = c * c1 - s * s1, c * s1 + s * c1
 
 
 @njit(cache=CACHE, nogil=True)
@@ -147,18 +132,18 @@ def _largest_angle_gap(psi):
 # are in cache; split into functions it would pay call overhead in the hot loop and risk the
 # bit-identical numbers.
 @njit(cache=CACHE, nogil=True)
-def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
+def block_fits(t, azimuth, y, aux, starts, nd,  # noqa: C901
                max_harmonic, leak_kind, leak_power, min_samples, max_gap_rad, w,
                gap_harmonic=1):
     """Fit every block of a range (see the module docstring).
 
     Parameters
     ----------
-    t, theta, y : (n,) float64
-        Times (s), turntable angles theta (rad, C7) and signal (NaN = missing).
-    cos_theta, sin_theta : (n,) float64
-        cos and sin of theta (computed by numpy's vectorised functions, several times faster
-        than per-sample calls here).
+    t, azimuth, y : (n,) float64
+        Times (s), azimuths A of path 1 (rad, C7) and signal (NaN = missing). The table angle
+        theta = pi - A and its cosine and sine are computed here, per valid sample of the
+        blocks fitted (the same libm calls as numpy's, on this machine measured equal bit for
+        bit and faster than a numpy pass over the whole range, docs/performance.md).
     aux : (n, n_aux) float64
         Auxiliary channels (NaN = missing; a sample is valid only if all are finite).
     starts : (nb,) int64
@@ -211,19 +196,22 @@ def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
     rows = np.empty((p, longest))           # design columns of the block's valid samples
     vals = np.empty((r, longest))           # signal, aux and leak columns
     psi = np.empty(longest)
-    x = np.empty(p)
+    idx = np.empty(longest, np.int64)       # the block's valid samples
+    swv = np.empty(longest)                 # their sqrt(weight), tau, cos and sin theta
+    tauv = np.empty(longest)
+    c1v = np.empty(longest)
+    s1v = np.empty(longest)
+    cv = np.empty(longest)                  # cos and sin of the current harmonic m theta
+    sv = np.empty(longest)
+    u2 = np.empty((2, longest))             # cos 2 theta, sin 2 theta (the leak units)
     normal = np.empty((p, p))
     nn = np.empty((p, p))
     rhs = np.empty((p, r))
     scale = np.empty(p)
-    tpow = np.ones(4)
     low = np.empty((p, p))
     li = np.empty((p, p))
     inv = np.empty((p, p))
     need = max(min_samples, p + 2)
-    unit_col = np.zeros(q, np.int64)        # design column of each leak unit (x[0] = 1)
-    for k in range(q):
-        unit_col[k] = ic if leak_kind[k] == 0 else (isn if leak_kind[k] == 1 else 0)
     for b in range(nb):
         a0 = starts[b]
         a1 = starts[b + 1] if b + 1 < nb else n
@@ -237,7 +225,8 @@ def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
             for k in range(n_aux):
                 good = good and np.isfinite(aux[i, k])
             if good:
-                psi[cnt] = _mod_2pi(gap_harmonic * theta[i])
+                idx[cnt] = i
+                psi[cnt] = _mod_2pi(gap_harmonic * (np.pi - azimuth[i]))
                 cnt += 1
                 tsum += t[i]
                 lo = min(lo, t[i])
@@ -253,28 +242,54 @@ def block_fits(t, theta, cos_theta, sin_theta, y, aux, starts, nd,  # noqa: C901
         if cnt < need or gap_rad[b] > max_gap_rad:
             continue
         half = max(0.5 * (hi - lo), 1e-9)
-        # pass 2: design columns, then their products
-        m = 0
-        for i in range(a0, a1):
-            good = np.isfinite(y[i]) and np.isfinite(w[i])
-            for k in range(n_aux):
-                good = good and np.isfinite(aux[i, k])
-            if not good:
-                continue
-            sw = np.sqrt(w[i])
-            tau = (t[i] - tm) / half
-            tpow[1] = tau
-            tpow[2] = tau * tau
-            tpow[3] = tau * tau * tau
-            _design_row(x, tau, cos_theta[i], sin_theta[i], nd, max_harmonic)
-            for k in range(q):
-                vals[1 + n_aux + k, m] = x[unit_col[k]] * tpow[leak_power[k]] * sw
-            for j in range(p):
-                rows[j, m] = x[j] * sw
-            vals[0, m] = y[i] * sw
-            for k in range(n_aux):
-                vals[1 + k, m] = aux[i, k] * sw
-            m += 1
+        # pass 2: design columns (column by column, loops that vectorise; each value is the
+        # same product as a row-by-row build), then their products
+        m = cnt
+        for k in range(m):
+            i = idx[k]
+            swv[k] = np.sqrt(w[i])
+            tauv[k] = (t[i] - tm) / half
+            th = np.pi - azimuth[i]
+            c1v[k] = np.cos(th)
+            s1v[k] = np.sin(th)
+            vals[0, k] = y[i] * swv[k]
+        for kk in range(n_aux):
+            for k in range(m):
+                vals[1 + kk, k] = aux[idx[k], kk] * swv[k]
+        for k in range(m):
+            rows[0, k] = swv[k]
+        if nd > 1:
+            for k in range(m):
+                rows[1, k] = tauv[k] * swv[k]
+        if nd > 2:
+            for k in range(m):
+                rows[2, k] = (tauv[k] * tauv[k]) * swv[k]
+        for k in range(m):
+            cv[k] = c1v[k]
+            sv[k] = s1v[k]
+        for h in range(max_harmonic):
+            for k in range(m):
+                rows[nd + 2 * h, k] = cv[k] * swv[k]
+                rows[nd + 2 * h + 1, k] = sv[k] * swv[k]
+            if h == 1:
+                for k in range(m):
+                    u2[0, k] = cv[k]
+                    u2[1, k] = sv[k]
+            for k in range(m):
+                c = cv[k]
+                s = sv[k]
+                cv[k] = c * c1v[k] - s * s1v[k]
+                sv[k] = c * s1v[k] + s * c1v[k]
+        for kq in range(q):
+            kind = leak_kind[kq]
+            pw = leak_power[kq]
+            row = 1 + n_aux + kq
+            for k in range(m):
+                ta = tauv[k]
+                tp = 1.0 if pw == 0 else (ta if pw == 1 else (ta * ta if pw == 2
+                                                               else ta * ta * ta))
+                xu = u2[0, k] if kind == 0 else (u2[1, k] if kind == 1 else 1.0)
+                vals[row, k] = xu * tp * swv[k]
         for j in range(p):
             for u in range(j + 1):
                 normal[j, u] = _dot(rows[j], rows[u], m)
