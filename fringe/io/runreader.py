@@ -243,16 +243,20 @@ class RunFile:
             raise InputFileError(self.path, "file", _CORRUPT) from exc
 
     def _group(self, name: str, what: str) -> h5py.Group:
-        if name not in self._file:
-            raise self._err(name, f"missing group; expected {what}")
-        obj = self._get(self._file, name, name)
+        obj = self._get(self._file, name, name, missing=f"missing group; expected {what}")
         if not isinstance(obj, h5py.Group):
             raise self._err(name, "expected a group, got a dataset")
         return obj
 
-    def _get(self, group: h5py.Group, key: str, label: str):
-        """``group[key]``, refused (one line) unless its data are stored in this file."""
+    def _get(self, group: h5py.Group, key: str, label: str, missing: str | None = None):
+        """``group[key]``, refused (one line) unless its data are stored in this file.
+
+        ``missing``: the refusal of a name ``group`` lacks (default: h5py's KeyError, which
+        the guard reports as a damaged file).
+        """
         link = group.get(key, getlink=True)
+        if link is None and missing is not None:
+            raise self._err(label, missing)
         if isinstance(link, h5py.ExternalLink):
             raise self._err(label, f"expected an object stored in this file, got an external "
                             f"link to {link.path!r} in {link.filename!r} ({_WHY_LOCAL})")
@@ -265,7 +269,8 @@ class RunFile:
         dataset, a dataset with external raw storage. The fit's SHA-256 covers this file only.
         """
         why = _WHY_LOCAL
-        if obj.file.id.fileno != self._file.id.fileno:
+        # the file of obj's id, without building an h5py.File for it (obj.file does)
+        if h5py.h5i.get_file_id(obj.id).fileno != self._file.id.fileno:
             raise self._err(label, f"expected an object stored in this file, got a link that "
                             f"leads into another file ({why})")
         if isinstance(obj, h5py.Dataset):
@@ -278,9 +283,12 @@ class RunFile:
         return obj
 
     def _attr(self, obj, label: str, name: str, what: str):
-        if name not in obj.attrs:
-            raise self._err(label, f"missing attribute; expected {what}")
-        return obj.attrs[name]
+        try:
+            return obj.attrs[name]
+        except KeyError:
+            if name in obj.attrs:            # there, but unreadable: the guard's refusal
+                raise
+        raise self._err(label, f"missing attribute; expected {what}")
 
     def _validate_layout(self) -> None:
         f = self._file
