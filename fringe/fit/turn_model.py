@@ -164,12 +164,15 @@ def _measured_model(grid: _ModelGrid, t, half, leak, settings, with_a: bool = Tr
     lw = np.stack(_lagrange_derivative_weights(pos - i, grid.step_s, LEAK_ORDER), axis=1)
     n = t.size
     # coefficients of the j-th derivative of each source (A, C, B) in the measured C and B
+    # (each leak term's (source, power) is its own; "+ 0.0" as the sum into zeros gave)
+    terms = leak_terms(settings)
+    src = [{"A": 0, "C": 1, "B": 2}[kind] for kind, _ in terms]
+    scale = {j: half ** j / math.factorial(j) for j in {j for _, j in terms}}
     k_rj = np.zeros((n, 2, 3, LEAK_ORDER + 1))
     k_rj[:, 0, 1, 0] = 1.0
     k_rj[:, 1, 2, 0] = 1.0
-    src = {"A": 0, "C": 1, "B": 2}
-    for q, (kind, j) in enumerate(leak_terms(settings)):
-        k_rj[:, :, src[kind], j] += leak[:, :, q] * (half ** j / math.factorial(j))[:, None]
+    k_rj[:, :, src, [j for _, j in terms]] = (
+        leak * np.stack([scale[j] for _, j in terms], axis=1)[:, None, :] + 0.0)
     w = np.matmul(k_rj.reshape(n, 6, LEAK_ORDER + 1), lw)     # (n, (C, B) x 3 sources, stencil)
     # what stage 1 measures: for each turn and output, 18 stencil values of the three sources
     first = i + STENCIL[0]
