@@ -142,44 +142,47 @@ def _lagrange_derivative_weights(s: NDArray, step_s: float, max_order: int) -> l
     return out
 
 
-def _measured_model(grid: _ModelGrid, t, half, leak, settings, with_a: bool = True):
+def _measured_model(grid: _ModelGrid, t, half, leak, settings, with_a: bool = True,
+                    out: tuple | None = None):
     """What stage 1 measures for turns (t, half span, leak responses): A (or None), C, B.
 
-    Each is an array of shape (n, k): n turns, k coefficients.
+    Each is an array of shape (n, k): n turns, k coefficients; ``out`` = (C_out, B_out), arrays
+    (n, k), receives C and B (they are returned).
 
     The frozen model's value and derivatives at each turn come from the quintic through six grid
     values around it (:data:`STENCIL`). What stage 1 measures for C (and B alike) is
     C(t) + sum_q leak_q h^j / j! X_q^(j)(t) over the leak columns q (X_q the A, C or B model, j
-    its power of tau, h the half span), so it is a weighted sum of the 3 x 6 stencil values.
+    its power of tau, h the half span), so it is a weighted sum of the 3 x 6 stencil values
+    (:func:`fringe.fit.stencil.stencil_sum`, compiled).
     """
-    from scipy.sparse import csr_matrix
-
     from fringe.demodulate.settings import LEAK_ORDER, leak_terms
+    from fringe.fit.stencil import stencil_sum
 
     m = grid.values[0].shape[0]
     pos = (t - grid.start_s) / grid.step_s
     i = np.clip(np.floor(pos).astype(np.intp), -STENCIL[0], m - 1 - STENCIL[-1])
     lw = np.stack(_lagrange_derivative_weights(pos - i, grid.step_s, LEAK_ORDER), axis=1)
-    n, ns = t.size, STENCIL.size
+    n = t.size
     # coefficients of the j-th derivative of each source (A, C, B) in the measured C and B
+    # (each leak term's (source, power) is its own; "+ 0.0" as the sum into zeros gave)
+    terms = leak_terms(settings)
+    src = [{"A": 0, "C": 1, "B": 2}[kind] for kind, _ in terms]
+    scale = {j: half ** j / math.factorial(j) for j in {j for _, j in terms}}
     k_rj = np.zeros((n, 2, 3, LEAK_ORDER + 1))
     k_rj[:, 0, 1, 0] = 1.0
     k_rj[:, 1, 2, 0] = 1.0
-    src = {"A": 0, "C": 1, "B": 2}
-    for q, (kind, j) in enumerate(leak_terms(settings)):
-        k_rj[:, :, src[kind], j] += leak[:, :, q] * (half ** j / math.factorial(j))[:, None]
-    w = np.matmul(k_rj.reshape(n, 6, LEAK_ORDER + 1), lw)          # (n, 2 x 3, stencil)
-    # what stage 1 measures = a sparse (2 n x stacked grid values) product, 18 per row
-    cols = (np.arange(3)[None, :, None] * m + i[:, None, None] + STENCIL[None, None, :])
-    cols = np.repeat(cols.reshape(n, 1, -1), 2, axis=1).ravel()
-    measure = csr_matrix((w.ravel(), cols, np.arange(0, 2 * n * 3 * ns + 1, 3 * ns)),
-                         shape=(2 * n, 3 * m))
-    cb = (measure @ grid.stacked).reshape(n, 2, -1)
-    c, b = cb[:, 0], cb[:, 1]
+    k_rj[:, :, src, [j for _, j in terms]] = (
+        leak * np.stack([scale[j] for _, j in terms], axis=1)[:, None, :] + 0.0)
+    w = np.matmul(k_rj.reshape(n, 6, LEAK_ORDER + 1), lw)     # (n, (C, B) x 3 sources, stencil)
+    # what stage 1 measures: for each turn and output, 18 stencil values of the three sources
+    first = i + STENCIL[0]
+    k = grid.stacked.shape[1]
+    c, b = (np.empty((n, k)), np.empty((n, k))) if out is None else out
+    stencil_sum(w[:, :3], first, m, grid.stacked, c)
+    stencil_sum(w[:, 3:], first, m, grid.stacked, b)
     a = None
     if with_a:
-        a = csr_matrix((lw[:, 0].ravel(), (i[:, None] + STENCIL[None, :]).ravel(),
-                        np.arange(0, n * ns + 1, ns)), shape=(n, m)) @ grid.values[0]
+        a = stencil_sum(lw[:, :1], first, m, grid.values[0], np.empty((n, k)))
     return a, c, b
 
 
@@ -222,14 +225,13 @@ def turn_model(setup: Setup, t_s: NDArray, names: tuple[str, ...] | None = None,
             # numbers for any piece size), and the transient arrays stay small
             for j in range(i, min(i + TURN_BATCH, t.size), MEASURE_BATCH):
                 sl = slice(j, min(j + MEASURE_BATCH, i + TURN_BATCH))
-                pa, c[sl], b[sl] = _measured_model(grid, t[sl], half[sl],
-                                                   table.leak[rows[sl]], table.settings,
-                                                   with_a=mean)
+                pa, _, _ = _measured_model(grid, t[sl], half[sl], table.leak[rows[sl]],
+                                           table.settings, with_a=mean, out=(c[sl], b[sl]))
                 if mean:
                     a[sl] = pa
 
         starts = range(0, t.size, TURN_BATCH)
-        if len(starts) > 1:        # numpy and scipy.sparse release the GIL in the heavy parts
+        if len(starts) > 1:        # numpy and the compiled stencil release the GIL
             with ThreadPoolExecutor(max_workers=MODEL_THREADS) as pool:
                 list(pool.map(batch, starts))
         else:

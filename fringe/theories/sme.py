@@ -91,10 +91,20 @@ def boost_matrix(beta: NDArray) -> NDArray:
 
 
 def lab_transform(state: FrameState) -> NDArray:
-    """L = diag(1, R) Lambda(beta): SCCEF -> (boost) -> lab axes, shape (n, 4, 4)."""
+    """L = diag(1, R) Lambda(beta): SCCEF -> (boost) -> lab axes, shape (n, 4, 4).
+
+    Kept with the state once computed (as its ``rotation`` is), so the projections of several
+    tensors on one state (:func:`fringe.fit.turn_model._projected_basis`) form it once; the
+    returned array is read-only.
+    """
+    memo = state.__dict__.get("_lab_transform")
+    if memo is not None:
+        return memo
     lam = boost_matrix(state.beta)
     out = lam.copy()
     out[:, 1:, :] = np.einsum("nij,njk->nik", state.rotation, lam[:, 1:, :])
+    out.flags.writeable = False
+    state.__dict__["_lab_transform"] = out       # a frozen dataclass's cache, as cached_property
     return out
 
 
