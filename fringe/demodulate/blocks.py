@@ -63,6 +63,23 @@ def turn_boundaries(theta_rad: NDArray, theta0_rad: float, t_s: NDArray, max_gap
                                float(t_prev) if has_prev else 0.0, has_prev)
 
 
+def azimuth_boundaries(azimuth_rad: NDArray, theta0_rad: float, t_s: NDArray,
+                       max_gap_s: float, azimuth_prev: float | None = None,
+                       t_prev: float | None = None) -> NDArray:
+    """:func:`turn_boundaries` of the table angles theta = pi - A (C7) of azimuths A (rad).
+
+    The same result as ``turn_boundaries(numpy.pi - azimuth_rad, ...)`` with ``theta_prev =
+    numpy.pi - azimuth_prev``, without building the theta array (the kernel subtracts per
+    sample).
+    """
+    has_prev = azimuth_prev is not None
+    return kernel_block_starts(np.ascontiguousarray(azimuth_rad, float),
+                               np.ascontiguousarray(t_s, float), float(theta0_rad),
+                               float(max_gap_s),
+                               np.pi - float(azimuth_prev) if has_prev else 0.0,
+                               float(t_prev) if has_prev else 0.0, has_prev, True)
+
+
 def demodulate_blocks(t_s: NDArray, azimuth_rad: NDArray, y: NDArray, block_starts: NDArray,
                       settings: DemodSettings, aux: dict[str, NDArray] | None = None, *,
                       weight: NDArray | None = None, gate: tuple[float, str] | None = None,

@@ -18,7 +18,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from fringe.demodulate.blocks import demodulate_blocks, turn_boundaries
+from fringe.demodulate.blocks import azimuth_boundaries, demodulate_blocks, turn_boundaries
 from fringe.demodulate.motion import (
     LegCutter,
     check_coverage,
@@ -127,17 +127,19 @@ def survey(path: str, settings: DemodSettings, aux_channels: tuple[str, ...] = (
     attrs, weighted = run.signal_attrs, run.weighted
     t, az = first["time"], first["azimuth"]
     theta = unwrapped_theta(az)
-    motion = detect_motion(t, az, settings, source=str(path), theta_rad=theta)
+    dt = np.diff(t)
+    median_dt = float(np.median(dt)) if dt.size else float("nan")
+    motion = detect_motion(t, az, settings, source=str(path), theta_rad=theta, dt_s=dt,
+                           median_dt_s=median_dt)
     check_coverage(motion, t, az, settings, source=str(path))
     period = motion.turn_period_s
     max_gap = settings.max_gap_s if settings.max_gap_s is not None else 0.25 * period
     starts = _leg_block_starts(run, max_gap) if motion.reverses else None
     gate = (attrs["gate_s"], attrs["gate_kind"]) if "gate_s" in attrs else None
-    dt = np.diff(t)
     return RecordInfo(path=str(path), n_samples=n, theta0_rad=reference_angle(theta),
                       turn_period_s=float(period), max_gap_s=float(max_gap),
                       aux_channels=tuple(aux_channels),
-                      samples_per_turn=float(period / max(float(np.median(dt)), 1e-9)),
+                      samples_per_turn=float(period / max(median_dt, 1e-9)),
                       gate=gate, weighted=weighted,
                       motion=motion, block_starts=starts,
                       rest_tolerance_deg=settings.rest_tolerance_deg)
@@ -242,14 +244,14 @@ def _crossing_blocks(info: RecordInfo, start: int, stop: int, run, channels):
     pos = min(stop + info.lookahead_samples, n)
     lo = max(start - 1, 0)
     data = _read(run, lo, pos, channels)
-    t, th = data["time"], np.pi - data["azimuth"]
-    az_lo = float(data["azimuth"][0]) if start > 0 else None
+    t, az = data["time"], data["azimuth"]
+    az_lo = float(az[0]) if start > 0 else None
     if start > 0:
-        bnd = turn_boundaries(th[1:], info.theta0_rad, t[1:], info.max_gap_s,
-                              theta_prev=th[0], t_prev=t[0])
+        bnd = azimuth_boundaries(az[1:], info.theta0_rad, t[1:], info.max_gap_s,
+                                 azimuth_prev=az[0], t_prev=t[0])
         data = {c: v[1:] for c, v in data.items()}
     else:
-        bnd = turn_boundaries(th, info.theta0_rad, t, info.max_gap_s)
+        bnd = azimuth_boundaries(az, info.theta0_rad, t, info.max_gap_s)
         bnd[0] = True
     starts = np.flatnonzero(bnd)                       # sample indices after `start`
     inside = starts[starts < stop - start]
@@ -267,9 +269,9 @@ def _crossing_blocks(info: RecordInfo, start: int, stop: int, run, channels):
                 "there or split it")
         more = _read(run, pos, min(pos + info.lookahead_samples, n), channels)
         prev = parts[-1]
-        hit = np.flatnonzero(turn_boundaries(
-            np.pi - more["azimuth"], info.theta0_rad, more["time"], info.max_gap_s,
-            theta_prev=np.pi - prev["azimuth"][-1], t_prev=prev["time"][-1]))
+        hit = np.flatnonzero(azimuth_boundaries(
+            more["azimuth"], info.theta0_rad, more["time"], info.max_gap_s,
+            azimuth_prev=prev["azimuth"][-1], t_prev=prev["time"][-1]))
         after = hit + length
         parts.append(more)
         length += more["time"].size

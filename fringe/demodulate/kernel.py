@@ -356,8 +356,13 @@ def _psi(theta, theta0):
 
 
 @njit(cache=CACHE, nogil=True)
-def block_starts(theta, t, theta0, max_gap_s, theta_prev, t_prev, has_prev):
+def block_starts(theta, t, theta0, max_gap_s, theta_prev, t_prev, has_prev,
+                 from_azimuth=False):
     """Boolean (n,): True where a new block starts before sample i.
+
+    ``from_azimuth``: ``theta`` holds file azimuths A (rad) and each sample's table angle is
+    taken as pi - A (C7) here, the same subtraction as ``numpy.pi - A`` without its array
+    (``theta_prev`` is then already a table angle).
 
     See ``fringe.demodulate.turn_boundaries``. psi = (theta - theta0) mod 2 pi is computed once
     per sample, and a crossing of theta0 is a jump of psi by more than pi between neighbours
@@ -372,7 +377,7 @@ def block_starts(theta, t, theta0, max_gap_s, theta_prev, t_prev, has_prev):
     psi_prev = _psi(theta_prev, theta0)
     pt = t_prev
     for i in range(n):
-        psi = _psi(theta[i], theta0)
+        psi = _psi(np.pi - theta[i] if from_azimuth else theta[i], theta0)
         if i > 0 or has_prev:
             out[i] = (abs(psi - psi_prev) > np.pi) | ((t[i] - pt) > max_gap_s)
         psi_prev = psi

@@ -232,7 +232,8 @@ def _rest_positions(theta: NDArray, tolerance_rad: float) -> NDArray:
 
 
 def detect_motion(t_s: NDArray, azimuth_rad: NDArray, settings: DemodSettings,
-                  source: str = "run file", *, theta_rad: NDArray | None = None) -> Motion:
+                  source: str = "run file", *, theta_rad: NDArray | None = None,
+                  dt_s: NDArray | None = None, median_dt_s: float | None = None) -> Motion:
     """Classify the motion of a record's first samples (module docstring).
 
     Parameters
@@ -245,6 +246,10 @@ def detect_motion(t_s: NDArray, azimuth_rad: NDArray, settings: DemodSettings,
         The run file, for the messages.
     theta_rad : ndarray, shape (n,), optional
         :func:`unwrapped_theta` of ``azimuth_rad``, if the caller has it already.
+    dt_s : ndarray, shape (n - 1,), optional
+        ``numpy.diff(t_s)``, s, if the caller has it already (the survey).
+    median_dt_s : float, optional
+        ``numpy.median(dt_s)``, s, if the caller has it already (the survey).
 
     Raises
     ------
@@ -253,26 +258,34 @@ def detect_motion(t_s: NDArray, azimuth_rad: NDArray, settings: DemodSettings,
     """
     t = np.asarray(t_s, float)
     theta = unwrapped_theta(azimuth_rad) if theta_rad is None else theta_rad
-    d, dt = np.diff(theta), np.diff(t)
-    median_dt = float(np.median(dt)) if dt.size else math.nan
+    d = np.diff(theta)
+    dt = np.diff(t) if dt_s is None else dt_s
+    if median_dt_s is not None:
+        median_dt = float(median_dt_s)
+    else:
+        median_dt = float(np.median(dt)) if dt.size else math.nan
     long = dt <= 10.0 * median_dt if dt.size else dt > 0    # leave out time gaps
-    travel = float(np.sum(np.abs(d[long])))
+    # each array below is computed once and shared by the rules that use it
+    every = bool(long.all())
+    d_long = d if every else d[long]
+    abs_d = np.abs(d)
+    abs_d_long = abs_d if every else np.abs(d_long)
+    travel = float(np.sum(abs_d_long))
     if t.size < 2 or not t[-1] > t[0] or travel < np.pi:
         raise FitError(f"{source}: samples/azimuth: the table travels less than half a turn in "
                        f"the first {t.size} samples; cannot demodulate a non-rotating record")
-    rest_fraction = float(np.mean(np.abs(d) <= math.radians(settings.rest_tolerance_deg)))
+    rest_fraction = float(np.mean(abs_d <= math.radians(settings.rest_tolerance_deg)))
     tol = math.radians(settings.rest_tolerance_deg)
     # stepped: rests at three or more positions (a table idle at one angle is not stepped)
     stepped = rest_fraction >= STEPPED_REST_FRACTION and _rest_positions(theta, tol).size >= 3
     n_rev, legs = _legs(theta, t, 10.0 * median_dt)
     reverses = n_rev > 0
-    sense = "alternating" if reverses else ("ccw" if np.sum(d[long]) > 0 else "cw")
+    sense = "alternating" if reverses else ("ccw" if np.sum(d_long) > 0 else "cw")
     if stepped or reverses:
-        period = 2 * np.pi * float(np.sum(dt[long])) / max(float(np.sum(np.abs(d[long]))),
-                                                           1e-300)
+        period = 2 * np.pi * float(np.sum(dt if every else dt[long])) / max(travel, 1e-300)
     else:                       # continuous: the median rate (robust to long gaps), as before
         good = dt > 0
-        rate = float(np.median(np.abs(d)[good] / dt[good]))
+        rate = float(np.median(abs_d / dt if good.all() else abs_d[good] / dt[good]))
         period = 2 * np.pi / rate if rate > 0 else math.inf
     if not math.isfinite(period):
         raise FitError(f"{source}: samples/azimuth: cannot estimate the turn period from the "

@@ -322,6 +322,11 @@ def check_time_values(t_s: NDArray, start: int, prev_s: float | None,
     ``start`` is the index of ``t_s[0]`` in the record, for the message. An empty chunk returns
     ``prev_s``. A broken rule raises :class:`Invalid` naming ``obj`` and the index.
     """
+    # the common case in one comparison pass: strictly increasing between finite ends is
+    # finite throughout (NaN compares False); anything else goes through the full checks below
+    if t_s.size and np.isfinite(t_s[0]) and np.isfinite(t_s[-1]) \
+            and (prev_s is None or t_s[0] > prev_s) and bool(np.all(t_s[1:] > t_s[:-1])):
+        return float(t_s[-1])
     bad = ~np.isfinite(t_s)
     if bad.any():
         i = _first(bad)
@@ -357,6 +362,11 @@ def check_azimuth_values(azimuth: NDArray, start: int, obj: str = "samples/azimu
     ``start`` is the index of ``azimuth[0]``; ``rad_per_unit`` converts the values given to
     radians (pi/180 for degrees).
     """
+    # the common case by two reductions (NaN propagates through max and min; rounding of the
+    # product is monotonic, so the largest |A| decides): else the full checks below
+    if azimuth.size and max(float(azimuth.max()), -float(azimuth.min())) * rad_per_unit \
+            <= AZIMUTH_MAX_RAD:
+        return
     bad = ~np.isfinite(azimuth)
     if bad.any():
         i = _first(bad)
@@ -372,6 +382,8 @@ def check_azimuth_values(azimuth: NDArray, start: int, obj: str = "samples/azimu
 
 def check_signal_values(signal: NDArray, start: int, obj: str = "samples/signal") -> None:
     """Signal values must be finite or NaN (a dropped sample); ±inf is refused."""
+    if signal.size and np.isfinite(signal.max()) and np.isfinite(signal.min()):
+        return                   # finite extremes, no NaN: no inf either (else checked below)
     bad = np.isinf(signal)
     if bad.any():
         i = _first(bad)
@@ -438,6 +450,8 @@ def version_needed(signal_attrs: Mapping, weighted: bool) -> int:
 
 def check_weight_values(weight: NDArray, start: int, obj: str = "samples/weight") -> None:
     """Weights must be finite and > 0, or NaN (a dropped sample); ``start`` as for time."""
+    if weight.size and weight.min() > 0 and np.isfinite(weight.max()):
+        return                   # no NaN (min would be NaN), all > 0 and finite
     bad = ~(weight > 0) & ~np.isnan(weight) | np.isinf(weight)
     if bad.any():
         i = _first(bad)
