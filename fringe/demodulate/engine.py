@@ -487,6 +487,20 @@ def _run_local(info, settings, parts, progress, collect, run=None):
         for ab in parts:
             collect(one(ab))
         return
+    if len(parts) <= LOCAL_THREADS:
+        # a short record: the first range on this thread, which would otherwise only wait,
+        # the others on the pool (one thread hand-off less); collected in range order
+        rest = [_local_pool().submit(one, ab) for ab in parts[1:]]
+        try:
+            collect(one(parts[0]))
+            for future in rest:
+                collect(future.result())
+        except BaseException:
+            for future in rest:
+                future.cancel()
+            wait(rest)
+            raise
+        return
     pending = [_local_pool().submit(one, ab) for ab in parts]
     pending.reverse()
     try:

@@ -265,26 +265,27 @@ def detect_motion(t_s: NDArray, azimuth_rad: NDArray, settings: DemodSettings,
     else:
         median_dt = float(np.median(dt)) if dt.size else math.nan
     long = dt <= 10.0 * median_dt if dt.size else dt > 0    # leave out time gaps
-    # each array below is computed once and shared by the rules that use it
-    every = bool(long.all())
-    d_long = d if every else d[long]
-    abs_d = np.abs(d)
-    abs_d_long = abs_d if every else np.abs(d_long)
-    travel = float(np.sum(abs_d_long))
+    # the sums over the samples without gaps at once, their arrays dropped before the leg
+    # rule runs (fewer large arrays alive: the allocator reuses their memory)
+    d_long = d[long]
+    travel = float(np.sum(np.abs(d_long)))
+    turning_ccw = bool(np.sum(d_long) > 0)
+    del d_long
     if t.size < 2 or not t[-1] > t[0] or travel < np.pi:
         raise FitError(f"{source}: samples/azimuth: the table travels less than half a turn in "
                        f"the first {t.size} samples; cannot demodulate a non-rotating record")
-    rest_fraction = float(np.mean(abs_d <= math.radians(settings.rest_tolerance_deg)))
+    rest_fraction = float(np.mean(np.abs(d) <= math.radians(settings.rest_tolerance_deg)))
     tol = math.radians(settings.rest_tolerance_deg)
     # stepped: rests at three or more positions (a table idle at one angle is not stepped)
     stepped = rest_fraction >= STEPPED_REST_FRACTION and _rest_positions(theta, tol).size >= 3
     n_rev, legs = _legs(theta, t, 10.0 * median_dt)
     reverses = n_rev > 0
-    sense = "alternating" if reverses else ("ccw" if np.sum(d_long) > 0 else "cw")
+    sense = "alternating" if reverses else ("ccw" if turning_ccw else "cw")
     if stepped or reverses:
-        period = 2 * np.pi * float(np.sum(dt if every else dt[long])) / max(travel, 1e-300)
+        period = 2 * np.pi * float(np.sum(dt[long])) / max(travel, 1e-300)
     else:                       # continuous: the median rate (robust to long gaps), as before
         good = dt > 0
+        abs_d = np.abs(d)
         rate = float(np.median(abs_d / dt if good.all() else abs_d[good] / dt[good]))
         period = 2 * np.pi / rate if rate > 0 else math.inf
     if not math.isfinite(period):
