@@ -54,3 +54,40 @@ def test_azimuth_boundaries_equal_the_theta_ones():
                                      t_prev=t[0])
             assert np.array_equal(got, want)
             assert want.sum() > 0
+
+
+def test_short_record_on_the_calling_thread_is_the_one_thread_stage1(small_run, monkeypatch):
+    """Two ranges, the first on the calling thread and the second on the pool, give the turn
+    table of one thread to the bit, in range order; a failing range is raised."""
+    import fringe.demodulate.engine as engine
+    from fringe.demodulate.engine import run_stage1
+
+    monkeypatch.setattr(engine, "LOCAL_THREADS", 2)
+    threads = []
+    real = engine.demodulate_range
+
+    def spy(*args, **kw):
+        import threading
+        threads.append(threading.current_thread().name)
+        return real(*args, **kw)
+
+    monkeypatch.setattr(engine, "demodulate_range", spy)
+    two, info2 = run_stage1(str(small_run), DemodSettings())
+    assert len(threads) == 2 and "MainThread" in threads \
+        and any(name.startswith("fringe-stage1") for name in threads)
+    monkeypatch.setattr(engine, "LOCAL_THREADS", 1)
+    one, info1 = run_stage1(str(small_run), DemodSettings())
+    assert info1 == info2
+    for name in ("t_mid_s", "t_start_s", "t_stop_s", "n_valid", "coef", "ninv_2",
+                 "residual_rms", "angle_gap_deg", "status", "leak"):
+        assert np.array_equal(getattr(one, name), getattr(two, name), equal_nan=True), name
+
+    def broken(info, settings, a, b, run=None):
+        if a > 0:
+            raise RuntimeError("range failed")
+        return real(info, settings, a, b, run=run)
+
+    monkeypatch.setattr(engine, "LOCAL_THREADS", 2)
+    monkeypatch.setattr(engine, "demodulate_range", broken)
+    with pytest.raises(RuntimeError, match="range failed"):
+        run_stage1(str(small_run), DemodSettings())
