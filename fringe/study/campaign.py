@@ -18,15 +18,13 @@ from __future__ import annotations
 import os
 import shutil
 import tempfile
-import threading
 import time
-import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
-from fringe.errors import ConfigError, FringeError
+from fringe.errors import ConfigError, FringeError, warnings_kept_in_result
 
 __all__ = ["CampaignTask", "campaign_seeds", "fit_record", "run_campaign", "scramble_turns",
            "simulate_run"]
@@ -107,11 +105,7 @@ def fit_record(path: str, settings, demod=None, keep=None) -> dict:
     from fringe.fit.run import fit_run
 
     t0 = time.perf_counter()
-    if threading.current_thread() is threading.main_thread():
-        with warnings.catch_warnings():     # recorded below, from the result: not shown
-            warnings.simplefilter("ignore")
-            res, cols = fit_run(path, settings, demod)
-    else:       # the warnings state is one per process: another thread's fit may be in it
+    with warnings_kept_in_result():         # recorded below, from the result
         res, cols = fit_run(path, settings, demod)
     with cols:
         extra = keep(res, cols) if keep is not None else {}
