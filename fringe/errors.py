@@ -8,6 +8,10 @@ exceptions and are not caught.
 
 from __future__ import annotations
 
+import threading
+import warnings
+from contextlib import contextmanager
+
 
 class FringeError(Exception):
     """Base class of every user-facing fringe error (one-line message)."""
@@ -76,6 +80,23 @@ class SimulationWarning(FringeWarning):
 
 class CampaignWarning(FringeWarning):
     """One campaign of a study failed (its seed and reason); the others were kept."""
+
+
+@contextmanager
+def warnings_kept_in_result():
+    """Within: the warnings a fit shows are silenced, when called from the main thread.
+
+    For callers that keep a fit's warnings from its result (``result.warnings``), such as a
+    study's campaigns and a joint fit's runs. Python's warnings state is one per process, so
+    in another thread (a dask worker's) nothing is changed: the warnings are shown there, and
+    two fits side by side cannot undo each other's filters.
+    """
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        yield
 
 
 def check_finite_number(value, source: str, field: str, *, positive: bool = False,

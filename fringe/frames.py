@@ -34,7 +34,9 @@ from __future__ import annotations
 
 import math
 import re
+import threading
 import warnings
+from contextlib import contextmanager
 from dataclasses import dataclass
 from functools import cached_property, lru_cache
 from typing import NamedTuple
@@ -71,19 +73,65 @@ _ISO_RE = re.compile(
     r"^(\d{4})-(\d{2})-(\d{2})[T ](\d{2}):(\d{2}):(\d{2}(?:\.\d+)?)(Z|\+00:00|UTC)?$")
 
 
+_RECORDING = threading.local()
+
+
+@contextmanager
+def time_cautions_recorded():
+    """Within: this thread's frames do not warn of the time scales' reliability.
+
+    For a caller that records those cautions itself (:func:`time_span_cautions`, as the fit
+    does): the flag is per thread, so a fit in one thread neither silences nor sees the
+    warnings of another (Python's ``warnings.catch_warnings`` is one state per process).
+    """
+    before = getattr(_RECORDING, "on", False)
+    _RECORDING.on = True
+    try:
+        yield
+    finally:
+        _RECORDING.on = before
+
+
+def _warn_time_scale(message: str, stacklevel: int) -> None:
+    """A TimeScaleWarning, unless this thread records the cautions itself."""
+    if not getattr(_RECORDING, "on", False):
+        warnings.warn(message, TimeScaleWarning, stacklevel=stacklevel + 1)
+
+
+def _erfa_status(func, *args):
+    """``func``'s outputs through pyerfa's ufunc, and its status codes.
+
+    pyerfa's wrapper ``erfa.X`` turns a warning status into a Python warning (one warnings
+    state per process, shared by threads); its ufunc ``erfa.ufunc.X`` returns the status
+    itself. An error status (negative) raises pyerfa's ErfaError, as the wrapper would.
+    """
+    name = func.__name__
+    *out, status = getattr(erfa.ufunc, name)(*args)
+    status = np.asarray(status)
+    if np.any(status < 0):
+        erfa.core.check_errwarn(status, name)        # raises ErfaError, pyerfa's message
+    return (out[0] if len(out) == 1 else tuple(out)), status
+
+
+def _status_text(name: str, status: NDArray) -> str:
+    """The wording of pyerfa's ErfaWarning for the warning statuses of ``name``."""
+    codes, counts = np.unique(status[status > 0], return_counts=True)
+    texts = erfa.core.STATUS_CODES[name]
+    return f'ERFA function "{name}" yielded ' + ", ".join(
+        f'{c} of "{texts.get(int(k), f"Return code {int(k)}")}"' for k, c in zip(codes, counts))
+
+
 def _erfa_call(func, *args):
-    """Call an ERFA time function, turning ERFA's 'dubious year' warning into ours."""
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        out = func(*args)
-    for w in caught:
-        if "dubious" in str(w.message).lower():
-            warnings.warn("leap-second table is not authoritative for these dates (ERFA: "
-                          f"{w.message}); UTC conversion may be off by whole seconds (before "
-                          "1960 UTC is taken as UT: TAI - UTC = 0, no leap seconds)",
-                          TimeScaleWarning, stacklevel=3)
+    """Call an ERFA time function, turning ERFA's 'dubious year' status into our warning."""
+    out, status = _erfa_status(func, *args)
+    if np.any(status > 0):
+        text = _status_text(func.__name__, np.atleast_1d(status))
+        if "dubious" in text.lower():
+            _warn_time_scale("leap-second table is not authoritative for these dates (ERFA: "
+                             f"{text}); UTC conversion may be off by whole seconds (before "
+                             "1960 UTC is taken as UT: TAI - UTC = 0, no leap seconds)", 3)
         else:
-            warnings.warn(w.message, w.category, stacklevel=3)
+            warnings.warn(text, erfa.ErfaWarning, stacklevel=3)
     return out
 
 
@@ -105,10 +153,7 @@ class TimeCaution(NamedTuple):
 
 def _flagged(func, *args) -> bool:
     """True when ERFA returns a warning status (pyerfa's ErfaWarning) for these arguments."""
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        func(*args)
-    return any(issubclass(w.category, erfa.ErfaWarning) for w in caught)
+    return bool(np.any(_erfa_status(func, *args)[1] > 0))
 
 
 @lru_cache(maxsize=1)
@@ -184,14 +229,11 @@ def time_span_cautions(epoch: Epoch, first_s: float, last_s: float) -> list[Time
 
 
 def _erfa_quiet(func, *args):
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", erfa.ErfaWarning)
-        return func(*args)
+    return _erfa_status(func, *args)[0]
 
 
 def _tt_flagged(epoch: Epoch, t_s: float) -> bool:
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", TimeScaleWarning)
+    with time_cautions_recorded():
         a, b = epoch.tt_jd(np.array([float(t_s)]))
     return _flagged(erfa.epv00, a, b)
 
@@ -320,12 +362,10 @@ def earth_velocity_beta(epoch: Epoch, t_s: ArrayLike,
         return np.zeros((0, 3))
     grid = t if grid_s is None else _spline_grid(t, grid_s)
     a, b = epoch.tt_jd(grid)
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", erfa.ErfaWarning)
-        pvh, _ = erfa.epv00(a, b)
-    if caught:          # outside 1900-2100 (time_span_cautions: ephemeris-range)
-        warnings.warn("ERFA epv00 is valid 1900-2100; the Earth's velocity outside that span "
-                      "is less accurate", TimeScaleWarning, stacklevel=2)
+    (pvh, _), status = _erfa_status(erfa.epv00, a, b)
+    if np.any(status > 0):          # outside 1900-2100 (time_span_cautions: ephemeris-range)
+        _warn_time_scale("ERFA epv00 is valid 1900-2100; the Earth's velocity outside that "
+                         "span is less accurate", 2)
     v_grid = pvh["v"] * (AU_M / DAY_S / C_M_S)
     if grid_s is None:
         return v_grid

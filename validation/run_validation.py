@@ -606,8 +606,8 @@ def _null_details(by: dict) -> list[str]:
     if "null" in by:
         recs = by["null"]
         z = pulls(recs, "reduced-chi2", KE)
-        b0 = warning_rate(recs, "reduced-chi2", "SystematicsWarning: B0")
-        c0 = warning_rate(recs, "reduced-chi2", "SystematicsWarning: C0")
+        b0 = warning_rate(recs, "reduced-chi2", "b0-lab-fixed")
+        c0 = warning_rate(recs, "reduced-chi2", "c0-lab-fixed")
         out += ["", f"No injection ({len(recs)} campaigns): per-coefficient rate of |z| > 3 "
                 + ", ".join(f"{n} {100 * np.mean(np.abs(z[:, j]) > 3):.2f} %"
                             for j, n in enumerate(KE))
@@ -619,8 +619,8 @@ def _null_details(by: dict) -> list[str]:
     for name in ("rms", "clock"):            # C0 (and B0) against the fitted model's own
         if name in by:
             recs = by[name]
-            b0 = warning_rate(recs, "reduced-chi2", "SystematicsWarning: B0")
-            c0 = warning_rate(recs, "reduced-chi2", "SystematicsWarning: C0")
+            b0 = warning_rate(recs, "reduced-chi2", "b0-lab-fixed")
+            c0 = warning_rate(recs, "reduced-chi2", "c0-lab-fixed")
             tested = ("C0 compared with the C0 the fitted coefficients predict" if name == "rms"
                       else "C0 not tested: cq_ZZ rests on C0 alone, a caution note says so")
             out += ["", f"{name} ({len(recs)} campaigns; lab_B0 tested against zero, {tested}):"

@@ -29,7 +29,6 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
-import warnings
 from pathlib import Path
 
 import numpy as np
@@ -39,7 +38,7 @@ from fringe.demodulate.sessions import MIN_SIDEREAL_PHASES
 from fringe.demodulate.settings import DemodSettings
 from fringe.demodulate.turn_store import TurnStore
 from fringe.demodulate.turns import TurnTable, glitch_status
-from fringe.errors import ConfigError, FitError, TimeScaleWarning
+from fringe.errors import ConfigError, FitError
 from fringe.fit.incremental import (
     add_contribution,
     add_groups,
@@ -53,7 +52,7 @@ from fringe.fit.incremental import (
 )
 from fringe.fit.passes import design_columns, design_labels
 from fringe.fit.settings import FitSettings, default_free
-from fringe.frames import sidereal_angle_rad, time_span_cautions
+from fringe.frames import sidereal_angle_rad, time_cautions_recorded, time_span_cautions
 from fringe.io.atomic import signals_deferred, write_atomic, write_json_atomic
 from fringe.io.runreader import open_run, sha256
 
@@ -432,8 +431,7 @@ class IncrementalFit:
         res.notes.append(f"incremental fit of {files} run file(s){ranges} (fringe watch): "
                          "stage 1 per piece, stages 2-3 from accumulated normal equations")
         first, last = self.pieces[0], self.pieces[-1]
-        with warnings.catch_warnings():    # recorded as cautions, as fringe fit does
-            warnings.simplefilter("ignore", TimeScaleWarning)
+        with time_cautions_recorded():     # recorded as cautions, as fringe fit does
             res.warnings[:0] = [FitWarning(c.code, c.sentence, c.values) for c in
                                 time_span_cautions(setup.epoch, first["time_first_s"],
                                                    last["time_last_s"])]

@@ -397,10 +397,9 @@ def fit_joint(paths, settings, demod=None, *, engine: str = "local", scheduler=N
         no per-turn amplitudes file.
     """
     import dataclasses
-    import warnings
 
-    from fringe.errors import TimeScaleWarning
     from fringe.fit.run import fit_run, setup_from_run
+    from fringe.frames import time_cautions_recorded
     from fringe.theories import make_theory
 
     paths = [str(p) for p in paths]
@@ -418,8 +417,7 @@ def fit_joint(paths, settings, demod=None, *, engine: str = "local", scheduler=N
             raise ConfigError(f"{p}: the same run file as {seen[digest]} (sha256 "
                               f"{digest[:12]}...); a run enters a joint fit once")
         seen[digest] = p
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", TimeScaleWarning)
+        with time_cautions_recorded():      # the time cautions are recorded per run
             setup, meta = setup_from_run(p, settings.theory, dut1_s)
         setups.append((setup, float(meta["time_last_s"] - meta["time_first_s"]),
                        int(meta["n_samples"])))
@@ -449,12 +447,11 @@ def fit_joint(paths, settings, demod=None, *, engine: str = "local", scheduler=N
 def _fit_part(path: str, settings, demod, dut1_s: float) -> RunPart:
     """One run's fit on a dask worker (stage 1 local there): its RunPart."""
     import tempfile
-    import warnings
 
+    from fringe.errors import warnings_kept_in_result
     from fringe.fit.run import fit_run
 
-    with warnings.catch_warnings(), tempfile.TemporaryDirectory(prefix="fringe-joint-") as tmp:
-        warnings.simplefilter("ignore")      # the warnings are records of the result
+    with warnings_kept_in_result(), tempfile.TemporaryDirectory(prefix="fringe-joint-") as tmp:
         result, columns = fit_run(path, settings, demod, dut1_s=dut1_s, scratch_dir=tmp)
         columns.close()
     return run_part(result)

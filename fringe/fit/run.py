@@ -24,7 +24,7 @@ from fringe.experiment.apparatus import APPARATUS_KINDS, apparatus_fields, make_
 from fringe.experiment.basis import Setup
 from fringe.fit.settings import FitSettings
 from fringe.fit.stages import stage2_and_3
-from fringe.frames import Epoch, time_span_cautions
+from fringe.frames import Epoch, time_cautions_recorded, time_span_cautions
 from fringe.io.fit_calibration import SignalCalibration, scale_sigmas
 from fringe.io.fit_result import FitResult
 from fringe.io.fit_sections import (
@@ -124,8 +124,7 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
         _check_budget_early(budget, setup, settings)
         scratch = Scratch(scratch_dir)
         try:
-            with warnings.catch_warnings():   # the time-scale cautions are records (cautions)
-                warnings.simplefilter("ignore", TimeScaleWarning)
+            with time_cautions_recorded():   # the time-scale cautions are records (cautions)
                 cautions = record_cautions(path, setup, meta)
                 result, store, models = _fit(path, setup, meta, settings, demod, engine,
                                              scheduler, progress, scratch, one_stage, dut1_s,

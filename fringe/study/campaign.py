@@ -19,13 +19,12 @@ import os
 import shutil
 import tempfile
 import time
-import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
-from fringe.errors import ConfigError, FringeError
+from fringe.errors import ConfigError, FringeError, warnings_kept_in_result
 
 __all__ = ["CampaignTask", "campaign_seeds", "fit_record", "run_campaign", "scramble_turns",
            "simulate_run"]
@@ -98,15 +97,15 @@ def fit_record(path: str, settings, demod=None, keep=None) -> dict:
     """Fit ``path`` with :func:`fringe.fit.run.fit_run` (``fringe fit``'s path); a plain record.
 
     The record holds each free coefficient's value and sigma, the covariance, the white-noise
-    efficiency, the reduced chi-square, the turns used, the warnings raised (class and the
-    first 40 characters) and the time taken (s). ``keep(result, columns)``, if given, returns
-    more fields (a dict) taken from the fit result and its per-turn columns.
+    efficiency, the reduced chi-square, the turns used, the fit's warnings (each its code and
+    the first 40 characters of its sentence, from the result, so that campaigns fitted in
+    threads of one process keep their own) and the time taken (s). ``keep(result, columns)``,
+    if given, returns more fields (a dict) taken from the fit result and its per-turn columns.
     """
     from fringe.fit.run import fit_run
 
     t0 = time.perf_counter()
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
+    with warnings_kept_in_result():         # recorded below, from the result
         res, cols = fit_run(path, settings, demod)
     with cols:
         extra = keep(res, cols) if keep is not None else {}
@@ -117,8 +116,7 @@ def fit_record(path: str, settings, demod=None, keep=None) -> dict:
             "efficiency": dict(res.efficiency or {}),
             "chi2_reduced": res.statistics.chi2_reduced,
             "n_turns_used": res.statistics.n_turns_used,
-            "warnings": sorted({w.category.__name__ + ": " + str(w.message)[:40]
-                                for w in caught}),
+            "warnings": sorted({f"{w.code}: {w.sentence[:40]}" for w in res.warnings}),
             "epoch_utc": res.epoch_utc, "fit_s": time.perf_counter() - t0}
 
 

@@ -74,3 +74,48 @@ def test_times_beyond_erfa_calendar_give_cautions_not_an_erfa_error(t_s, codes):
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", TimeScaleWarning)
         assert {c.code for c in time_span_cautions(epoch, first, last)} == codes
+
+
+def test_erfa_status_is_read_without_the_warnings_state():
+    """The ERFA statuses come from pyerfa's ufuncs, not from Python's warnings (one state per
+    process): asking leaves nothing in a recorder, and the answer is the wrapper's."""
+    from fringe.frames import _erfa_call, _flagged
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        assert _flagged(erfa.epv00, 2378496.5, 0.0)           # 1800: outside 1900-2100
+        assert not _flagged(erfa.epv00, 2461000.5, 0.0)       # 2025
+        assert _flagged(erfa.dat, 1950, 1, 1, 0.0)           # before 1960: dubious year
+    assert caught == []
+    with pytest.warns(erfa.ErfaWarning):                        # the wrapper agrees
+        erfa.epv00(2378496.5, 0.0)
+    with pytest.raises(erfa.ErfaError, match="bad month"):      # an error status still raises
+        _erfa_call(erfa.dtf2d, "UTC", 2027, 13, 1, 0, 0, 0.0)
+
+
+def test_recorded_time_cautions_are_silenced_in_this_thread_only():
+    """time_cautions_recorded() silences the time-scale warnings of its own thread: a fit in
+    another thread still warns, and the main thread's warnings are left as they were."""
+    import threading
+
+    from fringe.frames import time_cautions_recorded
+
+    inside, outside = threading.Event(), threading.Event()
+    seen = {}
+
+    def recording():
+        with time_cautions_recorded():
+            inside.set()
+            outside.wait(10)
+            seen["recording"] = Epoch("1955-02-03T00:00:00Z").tt_jd(np.array([0.0]))
+
+    t = threading.Thread(target=recording)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", TimeScaleWarning)
+        t.start()
+        inside.wait(10)                     # the other thread is inside its context now
+        with pytest.warns(TimeScaleWarning, match="leap-second table"):
+            Epoch("1955-02-03T00:00:00Z").tt_jd(np.array([0.0]))
+        outside.set()
+        t.join()                            # its conversion raised no TimeScaleWarning error
+    assert "recording" in seen

@@ -424,3 +424,40 @@ def test_command_on_a_dask_cluster_and_an_unreachable_scheduler(scenario, tmp_pa
     lines = r.stderr.strip().splitlines()
     assert r.exit_code == 2 and len(lines) == 1 and "--scheduler ADDRESS" in lines[0], r.stderr
     assert not (tmp_path / "nowhere").exists()
+
+
+# == campaigns fitted in threads of one process ==================================================
+
+def test_campaigns_in_threads_keep_their_own_warnings(tmp_path):
+    """A dask worker with several threads fits campaigns side by side: each record lists the
+    warnings of its own fit (read from the result), not those of the fit beside it."""
+    import tomllib
+
+    from fringe.study.campaign import fit_record, simulate_run
+
+    doc = tomllib.loads(SCENARIO)
+    old = tomllib.loads(SCENARIO.replace("2027-02-03", "1955-02-03"))   # UTC before 1960
+    paths = {"new": str(tmp_path / "new.h5"), "old": str(tmp_path / "old.h5")}
+    simulate_run(doc, "new.toml", paths["new"], seed=3)
+    with pytest.warns(errors.TimeScaleWarning):
+        simulate_run(old, "old.toml", paths["old"], seed=3)
+    fit = FitSettings(free=FREE)
+    alone = {k: fit_record(p, fit)["warnings"] for k, p in paths.items()}
+    assert any(w.startswith("utc-before-1960") for w in alone["old"])
+    assert not any(w.startswith("utc-before-1960") for w in alone["new"])
+
+    side_by_side: dict = {}
+    start = threading.Barrier(2)
+
+    def one(key):
+        start.wait()
+        side_by_side[key] = fit_record(paths[key], fit)["warnings"]
+
+    threads = [threading.Thread(target=one, args=(k,)) for k in paths]
+    with warnings.catch_warnings():     # the threads' fits show their warnings: not errors
+        warnings.simplefilter("ignore")
+        for t in threads:
+            t.start()
+        for t in threads:
+            t.join()
+    assert side_by_side == alone
