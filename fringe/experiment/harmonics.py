@@ -38,6 +38,7 @@ from numpy.typing import NDArray
 from fringe.constants import DAY_S, SIDEREAL_YEAR_DAYS
 from fringe.conventions import HARMONIC_NAMES
 from fringe.experiment.basis import Setup, basis, signal
+from fringe.experiment.memo import SetupMemo, Unkeyable, fingerprint, quiet_call, read_only
 from fringe.frames import (
     FrameState,
     celestial_to_intermediate,
@@ -78,6 +79,21 @@ def _project(g: NDArray, th: NDArray, ph: NDArray) -> tuple[NDArray, NDArray]:
     return coef, np.sqrt(np.mean(resid ** 2, axis=0))
 
 
+#: The one-instant harmonic tables per setup (:mod:`fringe.experiment.memo`; 10 x k each).
+HARMONICS_MEMO = SetupMemo("one-instant harmonics", max_entries=64, max_bytes=1 << 20,
+                           max_entry_bytes=1 << 16)
+
+
+def _harmonics_key(setup, t_ref_s, params, names, c2i) -> tuple:
+    """Everything :func:`harmonics_at` depends on (raises Unkeyable if not keyable)."""
+    functions = (earth_velocity_beta, celestial_to_intermediate, rotation_velocity_beta, basis,
+                 signal, _grid_state, _project)
+    return ("harmonics-at", fingerprint(setup), float(t_ref_s).hex(), fingerprint(params),
+            None if names is None else tuple(names),
+            fingerprint(None if c2i is None else np.asarray(c2i, float)),
+            N_THETA, N_PHI, functions)
+
+
 def harmonics_at(setup: Setup, t_ref_s: float, params: dict[str, float] | None = None,
                  names: tuple[str, ...] | None = None, c2i: NDArray | None = None
                  ) -> tuple[NDArray, NDArray, tuple]:
@@ -85,7 +101,9 @@ def harmonics_at(setup: Setup, t_ref_s: float, params: dict[str, float] | None =
 
     The lab axes turn about the celestial intermediate pole of the instant: the frames use the
     celestial-to-intermediate matrix Q at ``t_ref_s`` (or ``c2i``, a (3, 3) Q to use instead),
-    so the harmonics are those of the coefficients rotated by Q (module docstring).
+    so the harmonics are those of the coefficients rotated by Q (module docstring). The result
+    is kept in :data:`HARMONICS_MEMO` for the next call with the same setup and arguments
+    (unless its computation warned); each call returns its own copies.
 
     Returns
     -------
@@ -97,6 +115,22 @@ def harmonics_at(setup: Setup, t_ref_s: float, params: dict[str, float] | None =
     labels : tuple of str
         The column labels.
     """
+    try:
+        key = _harmonics_key(setup, t_ref_s, params, names, c2i)
+    except Unkeyable:
+        key = None
+    got = None if key is None else HARMONICS_MEMO.get(key)
+    if got is None:
+        got, warned = quiet_call(_harmonics_at, setup, t_ref_s, params, names, c2i)
+        read_only(got[0], got[1])
+        if key is not None and not warned:
+            HARMONICS_MEMO.put(key, got)
+    coef, unc, labels = got
+    return coef.copy(), unc.copy(), labels
+
+
+def _harmonics_at(setup, t_ref_s, params, names, c2i):
+    """:func:`harmonics_at` computed (no memo)."""
     th, ph, state = _grid_state(setup, t_ref_s, c2i)
     az = np.pi - th
     if params is not None or not setup.theory.linear:
