@@ -20,7 +20,7 @@ import dataclasses
 import threading
 import warnings
 from collections import OrderedDict
-from types import FunctionType, MethodType
+from types import BuiltinFunctionType, FunctionType, MethodType
 
 import numpy as np
 
@@ -57,7 +57,7 @@ def fingerprint(obj) -> tuple:
     if isinstance(obj, dict):
         items = [(fingerprint(k), fingerprint(v)) for k, v in obj.items()]
         return ("d", tuple(sorted(items, key=repr)))
-    if isinstance(obj, (FunctionType, MethodType, type)):
+    if isinstance(obj, (FunctionType, MethodType, BuiltinFunctionType, np.ufunc, type)):
         return ("id", obj)
     if dataclasses.is_dataclass(obj):
         return (type(obj), tuple((f.name, fingerprint(getattr(obj, f.name)))
