@@ -14,6 +14,7 @@ import math
 import os
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import NDArray
@@ -179,18 +180,32 @@ def _lagrange_derivative_weights(s: NDArray, step_s: float, max_order: int) -> l
     for the j-th time derivative (per s^j) of the quintic through them, at the fractional
     positions s (in grid steps of ``step_s`` seconds).
     """
+    size = STENCIL.size
+    powers = np.empty((s.size, size))
+    powers[:, 0] = 1.0
+    for e in range(1, size):
+        powers[:, e] = powers[:, e - 1] * s
+    return [powers[:, :size - j] @ m / step_s ** j
+            for j, m in enumerate(_derivative_matrices(max_order))]
+
+
+@lru_cache(maxsize=4)
+def _derivative_matrices(max_order: int) -> tuple[NDArray, ...]:
+    """Per derivative order j, the (6 - j, 6) map from s^(e - j) to the stencil weights.
+
+    Row e - j of matrix j is e! / (e - j)! times the s^e coefficients of the Lagrange basis of
+    the stencil nodes; constant, so formed once (read-only).
+    """
     nodes = STENCIL.astype(float)
     mono = np.linalg.inv(np.vander(nodes, increasing=True))   # row e: s^e coefficients
-    powers = np.empty((s.size, nodes.size))
-    powers[:, 0] = 1.0
-    for e in range(1, nodes.size):
-        powers[:, e] = powers[:, e - 1] * s
     out = []
     for j in range(max_order + 1):
         e = np.arange(j, nodes.size)
         factor = np.array([math.factorial(x) / math.factorial(x - j) for x in e])
-        out.append(powers[:, :nodes.size - j] @ (factor[:, None] * mono[e]) / step_s ** j)
-    return out
+        m = factor[:, None] * mono[e]
+        m.flags.writeable = False
+        out.append(m)
+    return tuple(out)
 
 
 def _measured_model(grid: _ModelGrid, t, half, leak, settings, with_a: bool = True,

@@ -23,6 +23,7 @@ Kostelecky & Mewes, PRD 66, 056005 (2002), arXiv:hep-ph/0205211; Mattingly, Livi
 
 from __future__ import annotations
 
+from functools import lru_cache
 from typing import ClassVar
 
 import numpy as np
@@ -65,6 +66,14 @@ def unit_k_tensor(name: str) -> NDArray:
     else:
         raise KeyError(name)
     return k
+
+
+@lru_cache(maxsize=32)
+def _unit_basis(names: tuple[str, ...]) -> NDArray:
+    """The unit tensors of ``names`` flattened, (k, 16), read-only (one per name tuple)."""
+    out = np.stack([unit_k_tensor(n) for n in names]).reshape(len(names), 16)
+    out.flags.writeable = False
+    return out
 
 
 def k_tensor(values: dict[str, float]) -> NDArray:
@@ -164,7 +173,7 @@ class SmePhoton(Theory):
         """
         names = tuple(names) if names is not None else self.parameter_names
         self.check_params({n: 0.0 for n in names})
-        basis = np.stack([unit_k_tensor(n) for n in names]).reshape(len(names), 16)
+        basis = _unit_basis(names)
         n = w_lab.shape[0]
         a = np.zeros((n, 4, 4))
         tr_w = np.trace(w_lab, axis1=1, axis2=2)

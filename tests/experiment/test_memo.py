@@ -177,3 +177,21 @@ def test_fields_of_setup_are_all_covered():
     covered = {"site", "epoch", "apparatus", "units", "tilt", "include_rotation_velocity",
                "theory", "_checked"}
     assert {f.name for f in dataclasses.fields(Setup)} <= covered
+
+
+def test_one_instant_harmonics_with_kept_tensors_are_those_of_basis_bit_for_bit():
+    # the old computation: basis() at the grid's azimuths, the design built in place
+    from fringe.experiment.basis import basis
+
+    clear_setup_caches()
+    for setup in (base_setup(), base_setup(tilt=AxisTilt(east_rad=2e-4)),
+                  base_setup(apparatus=Michelson(), units="fringe")):
+        th, ph, state = harmonics._grid_state(setup, 5000.0)
+        g = basis(setup, np.zeros_like(th), np.pi - th, KE_NAMES, state=state)
+        funcs = [np.ones_like(ph), np.sin(ph), np.cos(ph), np.sin(2 * ph), np.cos(2 * ph)]
+        design = np.stack([np.cos(2 * th) * f for f in funcs]
+                          + [np.sin(2 * th) * f for f in funcs], axis=1)
+        want, *_ = np.linalg.lstsq(design, g, rcond=None)
+        for _ in range(2):                       # the second time from the kept tensors
+            got = harmonics._harmonics_at(setup, 5000.0, None, KE_NAMES, None)
+            assert np.array_equal(got[0], want)

@@ -116,3 +116,21 @@ def test_warm_fit_equals_cold_fit(small_run, tmp_path):
     assert out[0][0] == out[1][0]
     for name, value in out[0][1].items():
         assert np.array_equal(value, out[1][1][name], equal_nan=value.dtype.kind == "f"), name
+
+
+@pytest.mark.parametrize("order", [0, 1, 2, 3])
+def test_stencil_derivative_weights_differentiate_quintics_exactly(order):
+    """The kept derivative matrices: weights of the six grid values give the j-th derivative
+    of any polynomial of degree <= 5 through them (derived: Lagrange interpolation is exact
+    for such polynomials)."""
+    rng = np.random.default_rng(order)
+    step = 300.0
+    s = rng.uniform(0.0, 1.0, 50)
+    coef = rng.normal(size=6)                          # p(x) = sum c_e (x / step)^e, x in s
+    nodes = tm.STENCIL * step
+    values = np.polynomial.polynomial.polyval(nodes / step, coef)
+    for _ in range(2):                                 # the second call from the kept matrices
+        w = tm._lagrange_derivative_weights(s, step, order)[order]
+        dc = np.polynomial.polynomial.polyder(coef, order) / step ** order
+        want = np.polynomial.polynomial.polyval(s, dc)
+        assert np.allclose(w @ values, want, rtol=1e-9, atol=1e-9 * np.abs(want).max())
