@@ -15,7 +15,9 @@ Which function for which job:
 * :func:`rotation_sccef_to_lab` gives R such that v_lab = R v_SCCEF: R = R_z(chi, phi) Q(t), the
   lab axes about the celestial intermediate pole (docs/references.md [R-lab-R],
   [R-time-earth-orientation]).
-* :func:`frame_state` bundles phi, chi, Q and beta for a set of samples; it is what theories use.
+* :func:`frame_state` bundles phi, chi, Q and beta for a set of samples; it is what theories use
+  (with its rotation R and lab transform diag(1, R) Lambda(beta), :func:`boost_matrix`, kept
+  once computed).
 
 Time model: TAI(sample) = TAI(epoch) + t_s. UT1 is TAI + (UT1 - TAI), with UT1 - TAI held at
 its epoch value dUT1 - (TAI - UTC)(epoch); so phi stays continuous across a leap second. The
@@ -412,6 +414,24 @@ def rotation_sccef_to_lab(colatitude_rad: float, phi_rad: ArrayLike,
                      np.stack([sc * c, sc * s, np.full_like(phi, cc)], -1)], -2)
 
 
+def boost_matrix(beta: NDArray) -> NDArray:
+    """Observer Lorentz boost Lambda^mu_nu to a frame moving with velocity beta, (n, 4, 4).
+
+    x'^0 = gamma (x^0 - beta . x),  x' = x + ((gamma - 1)/beta^2 (beta . x) - gamma x^0) beta.
+    """
+    beta = np.atleast_2d(beta)
+    b2 = np.einsum("ni,ni->n", beta, beta)
+    gamma = 1.0 / np.sqrt(1.0 - b2)
+    # (gamma - 1)/b^2 = gamma^2/(gamma + 1), finite at b = 0
+    f = gamma * gamma / (gamma + 1.0)
+    lam = np.empty((beta.shape[0], 4, 4))
+    lam[:, 0, 0] = gamma
+    lam[:, 0, 1:] = -gamma[:, None] * beta
+    lam[:, 1:, 0] = -gamma[:, None] * beta
+    lam[:, 1:, 1:] = np.eye(3) + f[:, None, None] * beta[:, :, None] * beta[:, None, :]
+    return lam
+
+
 @dataclass(frozen=True)
 class FrameState:
     """Frame quantities at a set of samples: what every theory needs.
@@ -442,6 +462,18 @@ class FrameState:
     def rotation(self) -> NDArray:
         """R(t) = R_z(chi, phi) Q(t), SCCEF -> lab, shape (n, 3, 3)."""
         return rotation_sccef_to_lab(self.colatitude_rad, self.phi_rad, self.c2i)
+
+    @cached_property
+    def lab_transform(self) -> NDArray:
+        """L = diag(1, R) Lambda(beta), SCCEF -> (observer boost) -> lab axes, (n, 4, 4).
+
+        Read-only; the SME's exact lab transform (:func:`fringe.theories.sme.lab_transform`).
+        """
+        lam = boost_matrix(self.beta)
+        out = lam.copy()
+        out[:, 1:, :] = np.einsum("nij,njk->nik", self.rotation, lam[:, 1:, :])
+        out.flags.writeable = False
+        return out
 
     def take(self, index) -> FrameState:
         """The state at samples ``index`` (a slice or an integer array; repeats allowed)."""
