@@ -37,7 +37,7 @@ from __future__ import annotations
 import math
 import re
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import cached_property, lru_cache
 from typing import NamedTuple
 
@@ -457,10 +457,16 @@ class FrameState:
     beta: NDArray
     orbital_phase_rad: NDArray | None = None
     c2i: NDArray | None = None
+    #: (source state, repetitions) of a state made by :meth:`tile` (its rotation and lab
+    #: transform are the source's, repeated); None otherwise.
+    tiled_from: tuple | None = field(default=None, repr=False, compare=False)
 
     @cached_property
     def rotation(self) -> NDArray:
         """R(t) = R_z(chi, phi) Q(t), SCCEF -> lab, shape (n, 3, 3)."""
+        if self.tiled_from is not None:
+            src, reps = self.tiled_from
+            return np.tile(src.rotation, (reps, 1, 1))
         return rotation_sccef_to_lab(self.colatitude_rad, self.phi_rad, self.c2i)
 
     @cached_property
@@ -469,6 +475,11 @@ class FrameState:
 
         Read-only; the SME's exact lab transform (:func:`fringe.theories.sme.lab_transform`).
         """
+        if self.tiled_from is not None:
+            src, reps = self.tiled_from
+            out = np.tile(src.lab_transform, (reps, 1, 1))
+            out.flags.writeable = False
+            return out
         lam = boost_matrix(self.beta)
         out = lam.copy()
         out[:, 1:, :] = np.einsum("nij,njk->nik", self.rotation, lam[:, 1:, :])
@@ -482,6 +493,19 @@ class FrameState:
             c2i = c2i[index]
         phase = None if self.orbital_phase_rad is None else self.orbital_phase_rad[index]
         return FrameState(self.phi_rad[index], self.colatitude_rad, self.beta[index], phase, c2i)
+
+    def tile(self, reps: int) -> FrameState:
+        """The state repeated ``reps`` times (row i + j n is row i), as ``numpy.tile``.
+
+        Its rotation and lab transform are the source's repeated (formed once for the n
+        distinct rows; the same numbers as forming them row by row).
+        """
+        c2i = self.c2i
+        if c2i is not None and c2i.ndim == 3:
+            c2i = np.tile(c2i, (reps, 1, 1))
+        phase = None if self.orbital_phase_rad is None else np.tile(self.orbital_phase_rad, reps)
+        return FrameState(np.tile(self.phi_rad, reps), self.colatitude_rad,
+                          np.tile(self.beta, (reps, 1)), phase, c2i, tiled_from=(self, reps))
 
     def __len__(self) -> int:
         return int(np.shape(self.phi_rad)[0])

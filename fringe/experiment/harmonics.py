@@ -95,14 +95,17 @@ def _grid_tensor(setup: Setup, th: NDArray) -> tuple[NDArray, float]:
 
 
 def _grid_state(setup: Setup, t_ref_s: float, c2i: NDArray | None = None):
+    """The grid's angles and frames (the frames at the N_PHI sidereal angles, tiled)."""
     th, ph, _ = _angle_grid(N_THETA, N_PHI)
+    # the frames depend on phi alone: formed at the first table angle's N_PHI rows, tiled
+    ph1 = ph[:N_PHI]
     # one instant: ERFA there (what the frames' splines give at a grid node)
-    beta = np.repeat(earth_velocity_beta(setup.epoch, [t_ref_s], grid_s=None), th.size, axis=0)
+    beta = np.repeat(earth_velocity_beta(setup.epoch, [t_ref_s], grid_s=None), N_PHI, axis=0)
     if c2i is None:
         c2i = celestial_to_intermediate(setup.epoch, [t_ref_s], grid_s=None)[0]
     if setup.include_rotation_velocity:
-        beta = beta + rotation_velocity_beta(ph, setup.site.axis_distance_m, c2i)
-    state = FrameState(ph, setup.site.colatitude_rad, beta, c2i=c2i)
+        beta = beta + rotation_velocity_beta(ph1, setup.site.axis_distance_m, c2i)
+    state = FrameState(ph1, setup.site.colatitude_rad, beta, c2i=c2i).tile(N_THETA)
     return th, ph, state
 
 

@@ -195,3 +195,22 @@ def test_one_instant_harmonics_with_kept_tensors_are_those_of_basis_bit_for_bit(
         for _ in range(2):                       # the second time from the kept tensors
             got = harmonics._harmonics_at(setup, 5000.0, None, KE_NAMES, None)
             assert np.array_equal(got[0], want)
+
+
+def test_grid_state_from_tiled_frames_is_the_per_row_state_bit_for_bit():
+    # the old construction: every one of the N_THETA x N_PHI rows formed on its own
+    from fringe.frames import (
+        FrameState,
+        celestial_to_intermediate,
+        earth_velocity_beta,
+        rotation_velocity_beta,
+    )
+
+    setup = base_setup()
+    th, ph, state = harmonics._grid_state(setup, 5000.0)
+    beta = np.repeat(earth_velocity_beta(setup.epoch, [5000.0], grid_s=None), th.size, axis=0)
+    c2i = celestial_to_intermediate(setup.epoch, [5000.0], grid_s=None)[0]
+    beta = beta + rotation_velocity_beta(ph, setup.site.axis_distance_m, c2i)
+    plain = FrameState(ph, setup.site.colatitude_rad, beta, c2i=c2i)
+    for name in ("phi_rad", "beta", "rotation", "lab_transform"):
+        assert np.array_equal(getattr(state, name), getattr(plain, name)), name

@@ -22,3 +22,18 @@ def test_lab_transform_is_kept_read_only_and_equals_its_definition():
     part = state.take(slice(2, 5))
     assert part.lab_transform is not lt
     assert np.array_equal(part.lab_transform, lt[2:5])
+
+
+def test_a_tiled_state_is_the_state_of_the_repeated_rows_bit_for_bit():
+    t = np.arange(0.0, 7200.0, 900.0)
+    state = frame_state(Epoch("2027-02-03T00:00:00Z"), t, Site(latitude_deg=-31.5,
+                                                                longitude_deg=115.8))
+    tiled = state.tile(3)
+    rows = np.tile(np.arange(t.size), 3)
+    plain = frame_state(Epoch("2027-02-03T00:00:00Z"), t[rows],
+                        Site(latitude_deg=-31.5, longitude_deg=115.8))
+    assert len(tiled) == 3 * t.size
+    for name in ("phi_rad", "beta", "c2i", "orbital_phase_rad", "rotation", "lab_transform"):
+        assert np.array_equal(getattr(tiled, name), getattr(plain, name)), name
+    assert not tiled.lab_transform.flags.writeable
+    assert np.array_equal(tiled.take(slice(5, 9)).rotation, plain.rotation[5:9])
