@@ -73,11 +73,24 @@ _ISO_RE = re.compile(
     r"^(\d{4})-(\d{2})-(\d{2})[T ](\d{2}):(\d{2}):(\d{2}(?:\.\d+)?)(Z|\+00:00|UTC)?$")
 
 
+#: How many warnings the frame functions have issued in this process (one counter, never reset):
+#: a cache of frame-derived values (:mod:`fringe.experiment.memo`) keeps only results whose
+#: computation issued none, so that every later call warns again. Read by
+#: :func:`warnings_issued`.
+_WARNINGS_ISSUED = [0]
+
+
+def warnings_issued() -> int:
+    """Number of warnings the frame functions (ERFA's time scales, ephemeris) have issued."""
+    return _WARNINGS_ISSUED[0]
+
+
 def _erfa_call(func, *args):
     """Call an ERFA time function, turning ERFA's 'dubious year' warning into ours."""
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         out = func(*args)
+    _WARNINGS_ISSUED[0] += len(caught)
     for w in caught:
         if "dubious" in str(w.message).lower():
             warnings.warn("leap-second table is not authoritative for these dates (ERFA: "
@@ -326,6 +339,7 @@ def earth_velocity_beta(epoch: Epoch, t_s: ArrayLike,
         warnings.simplefilter("always", erfa.ErfaWarning)
         pvh, _ = erfa.epv00(a, b)
     if caught:          # outside 1900-2100 (time_span_cautions: ephemeris-range)
+        _WARNINGS_ISSUED[0] += 1
         warnings.warn("ERFA epv00 is valid 1900-2100; the Earth's velocity outside that span "
                       "is less accurate", TimeScaleWarning, stacklevel=2)
     v_grid = pvh["v"] * (AU_M / DAY_S / C_M_S)

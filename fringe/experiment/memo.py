@@ -18,11 +18,12 @@ from __future__ import annotations
 
 import dataclasses
 import threading
-import warnings
 from collections import OrderedDict
 from types import BuiltinFunctionType, FunctionType, MethodType
 
 import numpy as np
+
+from fringe.frames import warnings_issued
 
 __all__ = ["SetupMemo", "Unkeyable", "clear_setup_caches", "fingerprint", "quiet_call"]
 
@@ -156,14 +157,13 @@ def clear_setup_caches() -> None:
 
 
 def quiet_call(func, *args, **kwargs):
-    """``func(*args, **kwargs)`` and whether it warned; its warnings are re-issued.
+    """``func(*args, **kwargs)`` and whether the frame functions warned meanwhile.
 
-    A result whose computation warned (e.g. ERFA's ephemeris outside 1900-2100) is not cached,
-    so that every call that needs it warns again.
+    A result whose computation warned (e.g. ERFA's ephemeris outside 1900-2100,
+    :func:`fringe.frames.warnings_issued`) is not cached, so that every call that needs it
+    warns again. The warnings themselves pass as usual (nothing is intercepted, so this is
+    safe in threads; a warning of another thread meanwhile only stops this result's caching).
     """
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        out = func(*args, **kwargs)
-    for w in caught:
-        warnings.warn_explicit(w.message, w.category, w.filename, w.lineno, source=w.source)
-    return out, bool(caught)
+    before = warnings_issued()
+    out = func(*args, **kwargs)
+    return out, warnings_issued() != before

@@ -134,3 +134,15 @@ def test_stencil_derivative_weights_differentiate_quintics_exactly(order):
         dc = np.polynomial.polynomial.polyder(coef, order) / step ** order
         want = np.polynomial.polynomial.polyval(s, dc)
         assert np.allclose(w @ values, want, rtol=1e-9, atol=1e-9 * np.abs(want).max())
+
+
+def test_a_grid_whose_frames_warned_is_not_kept_and_warns_every_time():
+    from fringe.errors import TimeScaleWarning
+    from fringe.frames import Epoch
+
+    clear_setup_caches()
+    setup = base_setup(epoch=Epoch("2150-01-01T00:00:00Z"))   # beyond epv00's 1900-2100
+    for _ in range(2):
+        with pytest.warns(TimeScaleWarning):
+            tm._model_grid(setup, T, HALF, None, None)
+    assert tm.GRID_MEMO.stats()["entries"] == 0
