@@ -14,8 +14,9 @@ pass, ``run_benchmarks.floor_seconds``) and the fit (``fit_run`` and the per-tur
 file, ``run_benchmarks.fit_seconds``) twice: cold (the setup caches of
 ``fringe.experiment.memo`` cleared first, as a lone ``fringe fit``) and warm (after a fit of
 the same setup, as a study's later campaigns); interleaved, best of ``--repeats`` each; prints
-the ratio of each fit's best to the floor's best and of the medians; also the floor read
-without HDF5's chunk cache (as the fit reads), for comparison only.
+the ratio of each fit's best to the floor's best and of the medians, and whether the warm
+fit's result equals the cold one's bit for bit; also the floor read without HDF5's chunk
+cache (as the fit reads), for comparison only.
 
 ``profile``: cProfile of ``--fits`` fits of that record (after one warm-up fit), the functions
 with the largest cumulative time; ``--cold`` clears the setup caches before each fit.
@@ -91,6 +92,7 @@ def ratio(work: Path, repeats: int) -> dict:
         warms.append(fit_seconds(path, work))
         uncached.append(floor_uncached_seconds(path))
     floor, cold, warm = min(floors), min(colds), min(warms)
+    same = warm_equals_cold(path, work)
     med = float(np.median(floors))
     return {"floor_best_ms": 1e3 * floor,
             "cold_fit_best_ms": 1e3 * cold, "cold_fit_over_floor_best": cold / floor,
@@ -101,7 +103,27 @@ def ratio(work: Path, repeats: int) -> dict:
             "cold_fit_over_floor_median": float(np.median(colds)) / med,
             "warm_fit_median_ms": 1e3 * float(np.median(warms)),
             "warm_fit_over_floor_median": float(np.median(warms)) / med,
-            "repeats": repeats}
+            "warm_result_equals_cold": same, "repeats": repeats}
+
+
+def warm_equals_cold(path: str, work: Path) -> bool:
+    """True when a warm fit's result and per-turn columns equal a cold fit's, bit for bit."""
+    from fringe.experiment.memo import clear_setup_caches
+    from fringe.fit.run import fit_run
+    from fringe.fit.settings import FitSettings
+
+    out = []
+    for cold in (True, False):
+        if cold:
+            clear_setup_caches()
+        result, columns = fit_run(path, FitSettings(), scratch_dir=str(work))
+        with columns:
+            cols = {k: np.asarray(v).copy() for k, v in columns.to_dict().items()}
+        d = {k: v for k, v in result.to_dict().items() if k not in NOT_COMPARED}
+        out.append((json.dumps(d, sort_keys=True), cols))
+    (a, ca), (b, cb) = out
+    return a == b and ca.keys() == cb.keys() and all(
+        np.array_equal(ca[k], cb[k], equal_nan=ca[k].dtype.kind == "f") for k in ca)
 
 
 def profile(work: Path, fits: int, top: int, sort: str, cold: bool = False) -> None:
