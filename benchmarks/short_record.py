@@ -11,12 +11,15 @@ environment::
 ``ratio``: the 2-day record of the benchmark scenario (``run_benchmarks.SCENARIO``, 1 Hz,
 simulated once into BENCH_DIR); the floor (one read of time, azimuth and signal and one sin/cos
 pass, ``run_benchmarks.floor_seconds``) and the fit (``fit_run`` and the per-turn amplitudes
-file, ``run_benchmarks.fit_seconds``), interleaved, best of ``--repeats`` each; prints the
-ratio of the bests and of the medians; also the floor read without HDF5's chunk cache (as the
-fit reads), for comparison only.
+file, ``run_benchmarks.fit_seconds``) twice: cold (the setup caches of
+``fringe.experiment.memo`` cleared first, as a lone ``fringe fit``) and warm (after a fit of
+the same setup, as a study's later campaigns); interleaved, best of ``--repeats`` each; prints
+the ratio of each fit's best to the floor's best and of the medians, and whether the warm
+fit's result equals the cold one's bit for bit; also the floor read without HDF5's chunk
+cache (as the fit reads), for comparison only.
 
 ``profile``: cProfile of ``--fits`` fits of that record (after one warm-up fit), the functions
-with the largest cumulative time.
+with the largest cumulative time; ``--cold`` clears the setup caches before each fit.
 
 ``dump``: the fit result (JSON) and the per-turn columns (``.npz``) of the 2-, 6- and 30-day
 records. ``compare``: two dumps field by field; prints the largest relative difference of each
@@ -65,37 +68,84 @@ def floor_uncached_seconds(path: str) -> float:
     return floor_seconds(path, chunk_cache=False)
 
 
+def cold_fit_seconds(path: str, work: Path) -> float:
+    """A fit as the first of a process: the setup caches cleared before it (not timed)."""
+    from fringe.experiment.memo import clear_setup_caches
+
+    clear_setup_caches()
+    return fit_seconds(path, work)
+
+
 def ratio(work: Path, repeats: int) -> dict:
-    """Floor and fit of the 2-day record, interleaved; best and median of each."""
+    """Floor, cold fit and warm fit of the 2-day record, interleaved; best and median of each.
+
+    The cold fit starts with the setup caches (:mod:`fringe.experiment.memo`) cleared, as a
+    single ``fringe fit`` in a fresh process (the compiled kernels stay loaded); the warm fit
+    follows a fit of the same record, as a study's campaigns after its first.
+    """
     path = record(work, 2.0)
     fit_seconds(path, work)                       # loads the compiled kernels
-    floors, fits, uncached = [], [], []
+    floors, colds, warms, uncached = [], [], [], []
     for _ in range(repeats):
         floors.append(floor_seconds(path))
-        fits.append(fit_seconds(path, work))
+        colds.append(cold_fit_seconds(path, work))
+        warms.append(fit_seconds(path, work))
         uncached.append(floor_uncached_seconds(path))
-    floor, fit = min(floors), min(fits)
-    return {"floor_best_ms": 1e3 * floor, "fit_best_ms": 1e3 * fit,
-            "fit_over_floor_best": fit / floor,
+    floor, cold, warm = min(floors), min(colds), min(warms)
+    same = warm_equals_cold(path, work)
+    med = float(np.median(floors))
+    return {"floor_best_ms": 1e3 * floor,
+            "cold_fit_best_ms": 1e3 * cold, "cold_fit_over_floor_best": cold / floor,
+            "warm_fit_best_ms": 1e3 * warm, "warm_fit_over_floor_best": warm / floor,
             "floor_without_chunk_cache_best_ms": 1e3 * min(uncached),
-            "floor_median_ms": 1e3 * float(np.median(floors)),
-            "fit_median_ms": 1e3 * float(np.median(fits)),
-            "fit_over_floor_median": float(np.median(fits) / np.median(floors)),
-            "repeats": repeats}
+            "floor_median_ms": 1e3 * med,
+            "cold_fit_median_ms": 1e3 * float(np.median(colds)),
+            "cold_fit_over_floor_median": float(np.median(colds)) / med,
+            "warm_fit_median_ms": 1e3 * float(np.median(warms)),
+            "warm_fit_over_floor_median": float(np.median(warms)) / med,
+            "warm_result_equals_cold": same, "repeats": repeats}
 
 
-def profile(work: Path, fits: int, top: int, sort: str) -> None:
-    """cProfile of ``fits`` fits of the 2-day record (one warm-up fit first)."""
+def warm_equals_cold(path: str, work: Path) -> bool:
+    """True when a warm fit's result and per-turn columns equal a cold fit's, bit for bit."""
+    from fringe.experiment.memo import clear_setup_caches
+    from fringe.fit.run import fit_run
+    from fringe.fit.settings import FitSettings
+
+    out = []
+    for cold in (True, False):
+        if cold:
+            clear_setup_caches()
+        result, columns = fit_run(path, FitSettings(), scratch_dir=str(work))
+        with columns:
+            cols = {k: np.asarray(v).copy() for k, v in columns.to_dict().items()}
+        d = {k: v for k, v in result.to_dict().items() if k not in NOT_COMPARED}
+        out.append((json.dumps(d, sort_keys=True), cols))
+    (a, ca), (b, cb) = out
+    return a == b and ca.keys() == cb.keys() and all(
+        np.array_equal(ca[k], cb[k], equal_nan=ca[k].dtype.kind == "f") for k in ca)
+
+
+def profile(work: Path, fits: int, top: int, sort: str, cold: bool = False) -> None:
+    """cProfile of ``fits`` fits of the 2-day record (one warm-up fit first).
+
+    ``cold``: the setup caches are cleared before each fit (inside the profile: clearing is
+    cheap).
+    """
     import cProfile
     import pstats
 
     from run_benchmarks import fit_and_write
+
+    from fringe.experiment.memo import clear_setup_caches
 
     path = record(work, 2.0)
     fit_and_write(path, work)
     prof = cProfile.Profile()
     prof.enable()
     for _ in range(fits):
+        if cold:
+            clear_setup_caches()
         fit_and_write(path, work)
     prof.disable()
     pstats.Stats(prof).sort_stats(sort).print_stats(top)
@@ -185,6 +235,7 @@ def main() -> int:
     p.add_argument("--fits", type=int, default=10)
     p.add_argument("--top", type=int, default=60)
     p.add_argument("--sort", default="cumulative")
+    p.add_argument("--cold", action="store_true")
     p = sub.add_parser("dump")
     p.add_argument("--workdir", default="bench-work")
     p.add_argument("--out", required=True)
@@ -200,7 +251,7 @@ def main() -> int:
     if args.mode == "ratio":
         print(json.dumps(ratio(work, args.repeats), indent=2))
     elif args.mode == "profile":
-        profile(work, args.fits, args.top, args.sort)
+        profile(work, args.fits, args.top, args.sort, args.cold)
     else:
         dump(work, Path(args.out))
     return 0

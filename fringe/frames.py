@@ -15,7 +15,9 @@ Which function for which job:
 * :func:`rotation_sccef_to_lab` gives R such that v_lab = R v_SCCEF: R = R_z(chi, phi) Q(t), the
   lab axes about the celestial intermediate pole (docs/references.md [R-lab-R],
   [R-time-earth-orientation]).
-* :func:`frame_state` bundles phi, chi, Q and beta for a set of samples; it is what theories use.
+* :func:`frame_state` bundles phi, chi, Q and beta for a set of samples; it is what theories use
+  (with its rotation R and lab transform diag(1, R) Lambda(beta), :func:`boost_matrix`, kept
+  once computed).
 
 Time model: TAI(sample) = TAI(epoch) + t_s. UT1 is TAI + (UT1 - TAI), with UT1 - TAI held at
 its epoch value dUT1 - (TAI - UTC)(epoch); so phi stays continuous across a leap second. The
@@ -37,7 +39,7 @@ import re
 import threading
 import warnings
 from contextlib import contextmanager
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import cached_property, lru_cache
 from typing import NamedTuple
 
@@ -71,6 +73,18 @@ C2I_GRID_S = 43_200.0
 
 _ISO_RE = re.compile(
     r"^(\d{4})-(\d{2})-(\d{2})[T ](\d{2}):(\d{2}):(\d{2}(?:\.\d+)?)(Z|\+00:00|UTC)?$")
+
+
+#: How many warnings the frame functions have issued in this process (one counter, never reset;
+#: a status counts whether or not this thread shows it, :func:`time_cautions_recorded`): a cache
+#: of frame-derived values (:mod:`fringe.experiment.memo`) keeps only results whose computation
+#: issued none, so that every later call warns again. Read by :func:`warnings_issued`.
+_WARNINGS_ISSUED = [0]
+
+
+def warnings_issued() -> int:
+    """Number of warnings the frame functions (ERFA's time scales, ephemeris) have issued."""
+    return _WARNINGS_ISSUED[0]
 
 
 _RECORDING = threading.local()
@@ -125,6 +139,7 @@ def _erfa_call(func, *args):
     """Call an ERFA time function, turning ERFA's 'dubious year' status into our warning."""
     out, status = _erfa_status(func, *args)
     if np.any(status > 0):
+        _WARNINGS_ISSUED[0] += 1
         text = _status_text(func.__name__, np.atleast_1d(status))
         if "dubious" in text.lower():
             _warn_time_scale("leap-second table is not authoritative for these dates (ERFA: "
@@ -364,6 +379,7 @@ def earth_velocity_beta(epoch: Epoch, t_s: ArrayLike,
     a, b = epoch.tt_jd(grid)
     (pvh, _), status = _erfa_status(erfa.epv00, a, b)
     if np.any(status > 0):          # outside 1900-2100 (time_span_cautions: ephemeris-range)
+        _WARNINGS_ISSUED[0] += 1
         _warn_time_scale("ERFA epv00 is valid 1900-2100; the Earth's velocity outside that "
                          "span is less accurate", 2)
     v_grid = pvh["v"] * (AU_M / DAY_S / C_M_S)
@@ -452,6 +468,24 @@ def rotation_sccef_to_lab(colatitude_rad: float, phi_rad: ArrayLike,
                      np.stack([sc * c, sc * s, np.full_like(phi, cc)], -1)], -2)
 
 
+def boost_matrix(beta: NDArray) -> NDArray:
+    """Observer Lorentz boost Lambda^mu_nu to a frame moving with velocity beta, (n, 4, 4).
+
+    x'^0 = gamma (x^0 - beta . x),  x' = x + ((gamma - 1)/beta^2 (beta . x) - gamma x^0) beta.
+    """
+    beta = np.atleast_2d(beta)
+    b2 = np.einsum("ni,ni->n", beta, beta)
+    gamma = 1.0 / np.sqrt(1.0 - b2)
+    # (gamma - 1)/b^2 = gamma^2/(gamma + 1), finite at b = 0
+    f = gamma * gamma / (gamma + 1.0)
+    lam = np.empty((beta.shape[0], 4, 4))
+    lam[:, 0, 0] = gamma
+    lam[:, 0, 1:] = -gamma[:, None] * beta
+    lam[:, 1:, 0] = -gamma[:, None] * beta
+    lam[:, 1:, 1:] = np.eye(3) + f[:, None, None] * beta[:, :, None] * beta[:, None, :]
+    return lam
+
+
 @dataclass(frozen=True)
 class FrameState:
     """Frame quantities at a set of samples: what every theory needs.
@@ -477,11 +511,34 @@ class FrameState:
     beta: NDArray
     orbital_phase_rad: NDArray | None = None
     c2i: NDArray | None = None
+    #: (source state, repetitions) of a state made by :meth:`tile` (its rotation and lab
+    #: transform are the source's, repeated); None otherwise.
+    tiled_from: tuple | None = field(default=None, repr=False, compare=False)
 
     @cached_property
     def rotation(self) -> NDArray:
         """R(t) = R_z(chi, phi) Q(t), SCCEF -> lab, shape (n, 3, 3)."""
+        if self.tiled_from is not None:
+            src, reps = self.tiled_from
+            return np.tile(src.rotation, (reps, 1, 1))
         return rotation_sccef_to_lab(self.colatitude_rad, self.phi_rad, self.c2i)
+
+    @cached_property
+    def lab_transform(self) -> NDArray:
+        """L = diag(1, R) Lambda(beta), SCCEF -> (observer boost) -> lab axes, (n, 4, 4).
+
+        Read-only; the SME's exact lab transform (:func:`fringe.theories.sme.lab_transform`).
+        """
+        if self.tiled_from is not None:
+            src, reps = self.tiled_from
+            out = np.tile(src.lab_transform, (reps, 1, 1))
+            out.flags.writeable = False
+            return out
+        lam = boost_matrix(self.beta)
+        out = lam.copy()
+        out[:, 1:, :] = np.einsum("nij,njk->nik", self.rotation, lam[:, 1:, :])
+        out.flags.writeable = False
+        return out
 
     def take(self, index) -> FrameState:
         """The state at samples ``index`` (a slice or an integer array; repeats allowed)."""
@@ -490,6 +547,19 @@ class FrameState:
             c2i = c2i[index]
         phase = None if self.orbital_phase_rad is None else self.orbital_phase_rad[index]
         return FrameState(self.phi_rad[index], self.colatitude_rad, self.beta[index], phase, c2i)
+
+    def tile(self, reps: int) -> FrameState:
+        """The state repeated ``reps`` times (row i + j n is row i), as ``numpy.tile``.
+
+        Its rotation and lab transform are the source's repeated (formed once for the n
+        distinct rows; the same numbers as forming them row by row).
+        """
+        c2i = self.c2i
+        if c2i is not None and c2i.ndim == 3:
+            c2i = np.tile(c2i, (reps, 1, 1))
+        phase = None if self.orbital_phase_rad is None else np.tile(self.orbital_phase_rad, reps)
+        return FrameState(np.tile(self.phi_rad, reps), self.colatitude_rad,
+                          np.tile(self.beta, (reps, 1)), phase, c2i, tiled_from=(self, reps))
 
     def __len__(self) -> int:
         return int(np.shape(self.phi_rad)[0])

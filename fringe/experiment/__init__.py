@@ -9,6 +9,8 @@ Layer 3 of the data path. Which function for which job:
   values; :func:`two_theta_amplitudes` gives their 2θ amplitudes per turn.
 * :func:`harmonic_table` gives the sidereal and annual harmonics of each coefficient's signal;
   :func:`predict` the whole prediction of a scenario.
+* :func:`clear_setup_caches` empties the per-process caches of work that depends only on the
+  setup (:mod:`fringe.experiment.memo`: the turn model's grid, the one-instant harmonics).
 * Turntable motions: :class:`ContinuousRotation`, :class:`SteppedRotation`,
   :class:`ReversingRotation`, :class:`SwingingRotation`, :class:`RecordedAzimuth`, with an
   optional :class:`AxisTilt`; :func:`make_motion` builds one from a scenario section.
@@ -25,6 +27,7 @@ from fringe.experiment.apparatus import (
 )
 from fringe.experiment.basis import Setup, basis, signal, two_theta_amplitudes
 from fringe.experiment.harmonics import HarmonicTable, harmonic_table, harmonics_at
+from fringe.experiment.memo import clear_setup_caches
 from fringe.experiment.prediction import Prediction, iter_prediction_chunks, predict, signal_map
 from fringe.experiment.scenario import (
     Scenario,
@@ -45,7 +48,7 @@ from fringe.experiment.turntable import (
 __all__ = ["APPARATUS_KINDS", "Apparatus", "AxisTilt", "CavityPair", "CavityVsReference",
            "ContinuousRotation", "HarmonicTable", "Michelson", "OrientedClock", "Prediction",
            "RecordedAzimuth", "ReversingRotation", "Scenario", "Setup", "SteppedRotation",
-           "SwingingRotation", "basis", "harmonic_table",
+           "SwingingRotation", "basis", "clear_setup_caches", "harmonic_table",
            "harmonics_at", "iter_prediction_chunks", "load_scenario", "make_apparatus",
            "make_motion", "parse_assignments", "predict", "scenario_from_dict", "signal",
            "signal_map", "two_theta_amplitudes"]

@@ -31,13 +31,15 @@ records follow sample by sample (docs/theory.md).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import NDArray
 
 from fringe.constants import DAY_S, SIDEREAL_YEAR_DAYS
 from fringe.conventions import HARMONIC_NAMES
-from fringe.experiment.basis import Setup, basis, signal
+from fringe.experiment.basis import Setup, _combined_tensor, basis, signal
+from fringe.experiment.memo import SetupMemo, Unkeyable, fingerprint, quiet_call, read_only
 from fringe.frames import (
     FrameState,
     celestial_to_intermediate,
@@ -53,29 +55,83 @@ N_THETA = 16
 N_PHI = 32
 
 
-def _grid_state(setup: Setup, t_ref_s: float, c2i: NDArray | None = None):
-    theta = 2.0 * np.pi * np.arange(N_THETA) / N_THETA
-    phi = 2.0 * np.pi * np.arange(N_PHI) / N_PHI
+@lru_cache(maxsize=4)
+def _angle_grid(n_theta: int, n_phi: int) -> tuple[NDArray, NDArray, NDArray]:
+    """The table and sidereal angles on their uniform grids (each (n_theta n_phi,)), C10 design.
+
+    The design (n_theta n_phi, 10) has the columns cos 2 theta f(phi), then sin 2 theta f(phi),
+    f = 1, sin phi, cos phi, sin 2 phi, cos 2 phi. Constant, so formed once (read-only).
+    """
+    theta = 2.0 * np.pi * np.arange(n_theta) / n_theta
+    phi = 2.0 * np.pi * np.arange(n_phi) / n_phi
     th, ph = np.meshgrid(theta, phi, indexing="ij")          # (N_THETA, N_PHI)
     th, ph = th.ravel(), ph.ravel()
-    # one instant: ERFA there (what the frames' splines give at a grid node)
-    beta = np.repeat(earth_velocity_beta(setup.epoch, [t_ref_s], grid_s=None), th.size, axis=0)
-    if c2i is None:
-        c2i = celestial_to_intermediate(setup.epoch, [t_ref_s], grid_s=None)[0]
-    if setup.include_rotation_velocity:
-        beta = beta + rotation_velocity_beta(ph, setup.site.axis_distance_m, c2i)
-    state = FrameState(ph, setup.site.colatitude_rad, beta, c2i=c2i)
-    return th, ph, state
-
-
-def _project(g: NDArray, th: NDArray, ph: NDArray) -> tuple[NDArray, NDArray]:
-    """C10 coefficients (10, k) of signals g (n, k) on the grid, and the uncaptured rms (k,)."""
     funcs = [np.ones_like(ph), np.sin(ph), np.cos(ph), np.sin(2 * ph), np.cos(2 * ph)]
     design = np.stack([np.cos(2 * th) * f for f in funcs] + [np.sin(2 * th) * f for f in funcs],
                       axis=1)
+    read_only(th, ph, design)
+    return th, ph, design
+
+
+#: The apparatus's lab tensor at the grid's table angles, per apparatus (37 kB each).
+TENSOR_MEMO = SetupMemo("one-instant lab tensors", max_entries=8, max_bytes=1 << 20,
+                        max_entry_bytes=1 << 18)
+
+
+def _grid_tensor(setup: Setup, th: NDArray) -> tuple[NDArray, float]:
+    """W_lab (n, 3, 3) and w_iso at path-1 azimuths pi - th (:func:`basis`'s), kept per setup."""
+    try:
+        key = ("grid-tensor", fingerprint(setup.apparatus), setup.units,
+               fingerprint(setup.tilt), fingerprint(th), _combined_tensor)
+    except Unkeyable:
+        key = None
+    got = None if key is None else TENSOR_MEMO.get(key)
+    if got is None:
+        got = _combined_tensor(setup.apparatus, setup.units, np.pi - th, setup.tilt)
+        read_only(got[0])
+        if key is not None:
+            TENSOR_MEMO.put(key, got)
+    return got
+
+
+def _grid_state(setup: Setup, t_ref_s: float, c2i: NDArray | None = None):
+    """The grid's angles and frames (the frames at the N_PHI sidereal angles, tiled)."""
+    th, ph, _ = _angle_grid(N_THETA, N_PHI)
+    # the frames depend on phi alone: formed at the first table angle's N_PHI rows, tiled
+    ph1 = ph[:N_PHI]
+    # one instant: ERFA there (what the frames' splines give at a grid node)
+    beta = np.repeat(earth_velocity_beta(setup.epoch, [t_ref_s], grid_s=None), N_PHI, axis=0)
+    if c2i is None:
+        c2i = celestial_to_intermediate(setup.epoch, [t_ref_s], grid_s=None)[0]
+    if setup.include_rotation_velocity:
+        beta = beta + rotation_velocity_beta(ph1, setup.site.axis_distance_m, c2i)
+    state = FrameState(ph1, setup.site.colatitude_rad, beta, c2i=c2i).tile(N_THETA)
+    return th, ph, state
+
+
+def _project(g: NDArray, design: NDArray) -> tuple[NDArray, NDArray]:
+    """C10 coefficients (10, k) of signals g (n, k) on the grid, and the uncaptured rms (k,).
+
+    ``design``: the C10 design of the grid (:func:`_angle_grid`).
+    """
     coef, *_ = np.linalg.lstsq(design, g, rcond=None)
     resid = g - design @ coef
     return coef, np.sqrt(np.mean(resid ** 2, axis=0))
+
+
+#: The one-instant harmonic tables per setup (:mod:`fringe.experiment.memo`; 10 x k each).
+HARMONICS_MEMO = SetupMemo("one-instant harmonics", max_entries=64, max_bytes=1 << 20,
+                           max_entry_bytes=1 << 16)
+
+
+def _harmonics_key(setup, t_ref_s, params, names, c2i) -> tuple:
+    """Everything :func:`harmonics_at` depends on (raises Unkeyable if not keyable)."""
+    functions = (earth_velocity_beta, celestial_to_intermediate, rotation_velocity_beta, basis,
+                 signal, _grid_state, _grid_tensor, _project)
+    return ("harmonics-at", fingerprint(setup), float(t_ref_s).hex(), fingerprint(params),
+            None if names is None else tuple(names),
+            fingerprint(None if c2i is None else np.asarray(c2i, float)),
+            N_THETA, N_PHI, functions)
 
 
 def harmonics_at(setup: Setup, t_ref_s: float, params: dict[str, float] | None = None,
@@ -85,7 +141,9 @@ def harmonics_at(setup: Setup, t_ref_s: float, params: dict[str, float] | None =
 
     The lab axes turn about the celestial intermediate pole of the instant: the frames use the
     celestial-to-intermediate matrix Q at ``t_ref_s`` (or ``c2i``, a (3, 3) Q to use instead),
-    so the harmonics are those of the coefficients rotated by Q (module docstring).
+    so the harmonics are those of the coefficients rotated by Q (module docstring). The result
+    is kept in :data:`HARMONICS_MEMO` for the next call with the same setup and arguments
+    (unless its computation warned); each call returns its own copies.
 
     Returns
     -------
@@ -97,15 +155,32 @@ def harmonics_at(setup: Setup, t_ref_s: float, params: dict[str, float] | None =
     labels : tuple of str
         The column labels.
     """
+    try:
+        key = _harmonics_key(setup, t_ref_s, params, names, c2i)
+    except Unkeyable:
+        key = None
+    got = None if key is None else HARMONICS_MEMO.get(key)
+    if got is None:
+        got, warned = quiet_call(_harmonics_at, setup, t_ref_s, params, names, c2i)
+        read_only(got[0], got[1])
+        if key is not None and not warned:
+            HARMONICS_MEMO.put(key, got)
+    coef, unc, labels = got
+    return coef.copy(), unc.copy(), labels
+
+
+def _harmonics_at(setup, t_ref_s, params, names, c2i):
+    """:func:`harmonics_at` computed (no memo)."""
     th, ph, state = _grid_state(setup, t_ref_s, c2i)
-    az = np.pi - th
     if params is not None or not setup.theory.linear:
-        g = signal(setup, params or {}, np.zeros_like(th), az, state=state)[:, None]
+        g = signal(setup, params or {}, np.zeros_like(th), np.pi - th, state=state)[:, None]
         labels = ("total",)
     else:
+        # what basis() computes, with the time-independent lab tensors kept per apparatus
         labels = tuple(names) if names is not None else setup.theory.parameter_names
-        g = basis(setup, np.zeros_like(th), az, labels, state=state)
-    coef, unc = _project(g, th, ph)
+        w_lab, w_iso = _grid_tensor(setup, th)
+        g = setup.theory.project(state, w_lab, w_iso, labels)
+    coef, unc = _project(g, _angle_grid(N_THETA, N_PHI)[2])
     return coef, unc, labels
 
 

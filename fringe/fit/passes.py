@@ -223,8 +223,11 @@ def run_passes(setup, store: TurnStore, settings, free: tuple[str, ...] | None,
     sums = _Sums(kk)
     bootstrap = free is not None and settings.uncertainty == "bootstrap"
     done = 0                                   # accepted turns before this segment
+    # one segment's harmonic basis (<= SEGMENT_TURNS x 5) is kept for passes 2 and 3
+    keep_basis = len(store.bounds()) == 1 and not on_disk
     for (_, tab), level in zip(store.segments(), levels):
-        rows = _first_pass_rows(setup, tab, level, settings, free, kk, sigma_white, sums)
+        rows = _first_pass_rows(setup, tab, level, settings, free, kk, sigma_white, sums,
+                                keep_basis)
         cache.append(rows)
         done += rows["c"].size
         del tab, level, rows           # not alive while the next segment is read
@@ -240,13 +243,12 @@ def run_passes(setup, store: TurnStore, settings, free: tuple[str, ...] | None,
     # pass 2: chi^2 at the first solutions; row scales of stage 3
     chi2_h = rc2 = rb2 = 0.0
     for i in range(cache.n_segments):
-        r = cache.get(i, ("phi", "c", "b", "c3", "b3", "jc", "jb", "p00", "p01", "p11"))
+        r = cache.get(i, ROW_NAMES)
         if "phi" not in r:
             continue
         w = _weights(r)
         if sidereal:
-            chi2_h += residual_chi2(_harmonic_rows(harmonic_basis(r["phi"]), r["c"], r["b"]),
-                                    w, x_h)[0]
+            chi2_h += residual_chi2(_harmonic_rows(_basis_of(r), r["c"], r["b"]), w, x_h)[0]
         if free is not None and settings.uncertainty != "formal":
             _, mc, mb = residual_chi2(_design_rows(r["jc"], r["jb"], r.get("c3", r["c"]),
                                                    r.get("b3", r["b"])), w, out.x)
@@ -270,7 +272,7 @@ def run_passes(setup, store: TurnStore, settings, free: tuple[str, ...] | None,
     d_c, d_b = np.sqrt(out.r_c), np.sqrt(out.r_b)
     predicted = NormalParts.zeros(10)
     for i in range(cache.n_segments):
-        r = cache.get(i, ("phi", "c", "b", "c3", "b3", "jc", "jb", "p00", "p01", "p11"))
+        r = cache.get(i, ROW_NAMES)
         if "jc" not in r:
             continue
         provider = _design_rows(r["jc"], r["jb"], r.get("c3", r["c"]), r.get("b3", r["b"]))
@@ -279,11 +281,20 @@ def run_passes(setup, store: TurnStore, settings, free: tuple[str, ...] | None,
         mc, mb = fitted(provider, w.size, out.x)
         cache.update(i, {"model_c": mc, "model_b": mb})
         pc, pb = _coefficient_model(r, out.x[:len(free)])
-        predicted.add(normal_parts(_harmonic_rows(harmonic_basis(r["phi"]), pc, pb), w, 10))
+        predicted.add(normal_parts(_harmonic_rows(_basis_of(r), pc, pb), w, 10))
         del r, provider
     if out.harmonics is not None:          # None: stage 2 skipped (too few sidereal phases)
         out.harmonics["predicted"] = solve(*predicted.combine())[0].tolist()
     return out
+
+
+#: The per-turn rows passes 2 and 3 read from the cache ("f": the harmonic basis, when kept).
+ROW_NAMES = ("phi", "f", "c", "b", "c3", "b3", "jc", "jb", "p00", "p01", "p11")
+
+
+def _basis_of(rows: dict) -> NDArray:
+    """The harmonic basis of a segment's rows: kept from pass 1, or built from phi."""
+    return rows["f"] if "f" in rows else harmonic_basis(rows["phi"])
 
 
 def _coefficient_model(rows: dict, x: NDArray) -> tuple[NDArray, NDArray]:
@@ -330,8 +341,12 @@ class _Sums:
         self.t_first: float | None = None
 
 
-def _first_pass_rows(setup, tab, level, settings, free, kk, sigma_white, sums: _Sums) -> dict:
-    """Rows of one segment's accepted turns (for the cache), their parts added to ``sums``."""
+def _first_pass_rows(setup, tab, level, settings, free, kk, sigma_white, sums: _Sums,
+                     keep_basis: bool = False) -> dict:
+    """Rows of one segment's accepted turns (for the cache), their parts added to ``sums``.
+
+    ``keep_basis``: the harmonic basis is kept in the rows ("f") for passes 2 and 3.
+    """
     sel = tab.accepted
     t = tab.t_mid_s[sel]
     rows = {"c": tab.C[sel], "b": tab.B[sel]}
@@ -340,8 +355,10 @@ def _first_pass_rows(setup, tab, level, settings, free, kk, sigma_white, sums: _
     w = PairWeights.from_cov(level[:, None, None] ** 2 * tab.ninv_2[sel])
     rows.update(p00=w.p00, p01=w.p01, p11=w.p11,
                 phi=sidereal_angle_rad(setup.epoch, t, setup.site.east_longitude_rad))
-    sums.harm.add(normal_parts(_harmonic_rows(harmonic_basis(rows["phi"]), rows["c"],
-                                              rows["b"]), w, 10))
+    f = harmonic_basis(rows["phi"])
+    if keep_basis:
+        rows["f"] = f
+    sums.harm.add(normal_parts(_harmonic_rows(f, rows["c"], rows["b"]), w, 10))
     if free is None:
         return rows
     c3, b3 = rows["c"], rows["b"]

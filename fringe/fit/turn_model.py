@@ -14,12 +14,14 @@ import math
 import os
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import NDArray
 
 from fringe.demodulate.turns import TurnTable
 from fringe.experiment.basis import Setup, signal
+from fringe.experiment.memo import SetupMemo, Unkeyable, fingerprint, quiet_call, read_only
 
 #: Table angles per instant at which the model is evaluated and projected on 2 theta.
 N_ANGLES = 8
@@ -93,14 +95,52 @@ MEASURE_BATCH = 4096
 MODEL_THREADS = min(2, os.cpu_count() or 1)
 
 
+#: Grid instants the turn model's grid is rounded to at each end (its nodes are multiples of
+#: the step counted from the epoch, its ends multiples of this many steps): campaigns of one
+#: schedule whose first or last accepted turns differ share one grid, so :data:`GRID_MEMO` hits.
+GRID_ROUNDING_STEPS = 8
+
+#: The frozen model on its grid per setup (:mod:`fringe.experiment.memo`): a 2-day grid of
+#: five coefficients is 72 kB; a grid above 1 MiB (about 16 days of nine coefficients) is not
+#: kept, so a year's fit (many 34-day segments) holds nothing more.
+GRID_MEMO = SetupMemo("turn-model grid", max_entries=8, max_bytes=4 << 20,
+                      max_entry_bytes=1 << 20)
+
+
 @dataclass(frozen=True)
 class _ModelGrid:
     """The frozen model's A, C, B (each (m, k)) on a regular time grid start + step x i."""
 
     start_s: float
     step_s: float
-    values: tuple
-    stacked: NDArray            # the three stacked, (3 m, k)
+    values: tuple               # views of the rows of ``stacked``
+    stacked: NDArray            # the three stacked, (3 m, k), read-only
+
+
+def _grid_key(setup: Setup, names, params, start_s: float, step_s: float, m: int) -> tuple:
+    """Everything the frozen model on the grid depends on (raises Unkeyable if not keyable)."""
+    import fringe.frames as frames
+
+    functions = (frames.frame_state, frames.sidereal_angle_rad, frames.earth_velocity_beta,
+                 frames.celestial_to_intermediate, frames.rotation_velocity_beta,
+                 frames.orbital_phase_rad, _frozen_model)
+    constants = (N_ANGLES, MODEL_BATCH, frames.EPHEMERIS_GRID_S, frames.C2I_GRID_S)
+    return ("turn-model-grid", fingerprint(setup),
+            None if names is None else tuple(names), fingerprint(params),
+            float(start_s).hex(), float(step_s).hex(), int(m), functions, constants)
+
+
+def grid_nodes(t: NDArray, half: NDArray, step_s: float) -> tuple[float, int]:
+    """Start (s) and number of instants of the model grid for turns at t, half spans half.
+
+    The grid covers the turns with a margin of at least four steps; its nodes are multiples of
+    ``step_s`` from the epoch (t = 0) and its ends multiples of GRID_ROUNDING_STEPS steps, so
+    they do not depend on which turns near the ends were accepted.
+    """
+    block = GRID_ROUNDING_STEPS * step_s
+    lo = math.floor((float(np.min(t) - np.max(half)) - 4 * step_s) / block) * block
+    hi = math.ceil((float(np.max(t) + np.max(half)) + 4 * step_s) / block) * block
+    return lo, max(int(round((hi - lo) / step_s)) + 1, STENCIL.size + 2)
 
 
 def _model_grid(setup: Setup, t: NDArray, half: NDArray, names, params) -> _ModelGrid:
@@ -111,14 +151,26 @@ def _model_grid(setup: Setup, t: NDArray, half: NDArray, names, params) -> _Mode
     relative for h = WITHIN_TURN_GRID_S = 300 s and omega = 2 pi / 12 h (interpolation error
     bound of the Lagrange polynomial at the middle interval); the within-turn terms (~1e-3 of
     the signal) come from its derivatives, whose errors are of the same order relative to them.
-    A year costs 1.05e5 grid instants for any turn period.
+    A year costs 1.05e5 grid instants for any turn period. The grid's nodes are
+    :func:`grid_nodes`; its values are kept in :data:`GRID_MEMO` for the next fit of the same
+    setup on the same grid.
     """
     step = WITHIN_TURN_GRID_S
-    lo = float(np.min(t) - np.max(half)) - 4 * step
-    hi = float(np.max(t) + np.max(half)) + 4 * step
-    grid = lo + step * np.arange(max(int(np.ceil((hi - lo) / step)) + 1, STENCIL.size + 2))
-    values = _frozen_model(setup, grid, names, params)
-    return _ModelGrid(lo, step, values, np.concatenate(values, axis=0))
+    lo, m = grid_nodes(t, half, step)
+    try:
+        key = _grid_key(setup, names, params, lo, step, m)
+    except Unkeyable:
+        key = None
+    stacked = None if key is None else GRID_MEMO.get(key)
+    if stacked is None:
+        grid = lo + step * np.arange(m)
+        values, warned = quiet_call(_frozen_model, setup, grid, names, params)
+        stacked = np.concatenate(values, axis=0)
+        read_only(stacked)
+        if key is not None and not warned:
+            GRID_MEMO.put(key, stacked)
+    values = (stacked[:m], stacked[m:2 * m], stacked[2 * m:])
+    return _ModelGrid(lo, step, values, stacked)
 
 
 def _lagrange_derivative_weights(s: NDArray, step_s: float, max_order: int) -> list[NDArray]:
@@ -128,18 +180,32 @@ def _lagrange_derivative_weights(s: NDArray, step_s: float, max_order: int) -> l
     for the j-th time derivative (per s^j) of the quintic through them, at the fractional
     positions s (in grid steps of ``step_s`` seconds).
     """
+    size = STENCIL.size
+    powers = np.empty((s.size, size))
+    powers[:, 0] = 1.0
+    for e in range(1, size):
+        powers[:, e] = powers[:, e - 1] * s
+    return [powers[:, :size - j] @ m / step_s ** j
+            for j, m in enumerate(_derivative_matrices(max_order))]
+
+
+@lru_cache(maxsize=4)
+def _derivative_matrices(max_order: int) -> tuple[NDArray, ...]:
+    """Per derivative order j, the (6 - j, 6) map from s^(e - j) to the stencil weights.
+
+    Row e - j of matrix j is e! / (e - j)! times the s^e coefficients of the Lagrange basis of
+    the stencil nodes; constant, so formed once (read-only).
+    """
     nodes = STENCIL.astype(float)
     mono = np.linalg.inv(np.vander(nodes, increasing=True))   # row e: s^e coefficients
-    powers = np.empty((s.size, nodes.size))
-    powers[:, 0] = 1.0
-    for e in range(1, nodes.size):
-        powers[:, e] = powers[:, e - 1] * s
     out = []
     for j in range(max_order + 1):
         e = np.arange(j, nodes.size)
         factor = np.array([math.factorial(x) / math.factorial(x - j) for x in e])
-        out.append(powers[:, :nodes.size - j] @ (factor[:, None] * mono[e]) / step_s ** j)
-    return out
+        m = factor[:, None] * mono[e]
+        m.flags.writeable = False
+        out.append(m)
+    return tuple(out)
 
 
 def _measured_model(grid: _ModelGrid, t, half, leak, settings, with_a: bool = True,

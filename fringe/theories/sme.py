@@ -23,12 +23,14 @@ Kostelecky & Mewes, PRD 66, 056005 (2002), arXiv:hep-ph/0205211; Mattingly, Livi
 
 from __future__ import annotations
 
+from functools import lru_cache
 from typing import ClassVar
 
 import numpy as np
 from numpy.typing import NDArray
 
 from fringe.frames import FrameState
+from fringe.frames import boost_matrix as boost_matrix  # the observer boost, defined there
 from fringe.theories.base import Theory
 
 KE_NAMES = ("ke_XY", "ke_XZ", "ke_YZ", "ke_XXmYY", "ke_ZZ")
@@ -67,45 +69,27 @@ def unit_k_tensor(name: str) -> NDArray:
     return k
 
 
+@lru_cache(maxsize=32)
+def _unit_basis(names: tuple[str, ...]) -> NDArray:
+    """The unit tensors of ``names`` flattened, (k, 16), read-only (one per name tuple)."""
+    out = np.stack([unit_k_tensor(n) for n in names]).reshape(len(names), 16)
+    out.flags.writeable = False
+    return out
+
+
 def k_tensor(values: dict[str, float]) -> NDArray:
     """k^{mu nu} (SCCEF) of a set of SME coefficient values."""
     return sum((v * unit_k_tensor(n) for n, v in values.items()), np.zeros((4, 4)))
 
 
-def boost_matrix(beta: NDArray) -> NDArray:
-    """Observer Lorentz boost Lambda^mu_nu to a frame moving with velocity beta, (n, 4, 4).
-
-    x'^0 = gamma (x^0 - beta . x),  x' = x + ((gamma - 1)/beta^2 (beta . x) - gamma x^0) beta.
-    """
-    beta = np.atleast_2d(beta)
-    b2 = np.einsum("ni,ni->n", beta, beta)
-    gamma = 1.0 / np.sqrt(1.0 - b2)
-    # (gamma - 1)/b^2 = gamma^2/(gamma + 1), finite at b = 0
-    f = gamma * gamma / (gamma + 1.0)
-    lam = np.empty((beta.shape[0], 4, 4))
-    lam[:, 0, 0] = gamma
-    lam[:, 0, 1:] = -gamma[:, None] * beta
-    lam[:, 1:, 0] = -gamma[:, None] * beta
-    lam[:, 1:, 1:] = np.eye(3) + f[:, None, None] * beta[:, :, None] * beta[:, None, :]
-    return lam
-
-
 def lab_transform(state: FrameState) -> NDArray:
-    """L = diag(1, R) Lambda(beta): SCCEF -> (boost) -> lab axes, shape (n, 4, 4).
+    """L = diag(1, R) Lambda(beta): SCCEF -> (boost) -> lab axes, shape (n, 4, 4), read-only.
 
-    Kept with the state once computed (as its ``rotation`` is), so the projections of several
-    tensors on one state (:func:`fringe.fit.turn_model._projected_basis`) form it once; the
-    returned array is read-only.
+    The state's :attr:`~fringe.frames.FrameState.lab_transform`, kept with the state once
+    computed (as its ``rotation`` is), so the projections of several tensors on one state
+    (:func:`fringe.fit.turn_model._projected_basis`) form it once.
     """
-    memo = state.__dict__.get("_lab_transform")
-    if memo is not None:
-        return memo
-    lam = boost_matrix(state.beta)
-    out = lam.copy()
-    out[:, 1:, :] = np.einsum("nij,njk->nik", state.rotation, lam[:, 1:, :])
-    out.flags.writeable = False
-    state.__dict__["_lab_transform"] = out       # a frozen dataclass's cache, as cached_property
-    return out
+    return state.lab_transform
 
 
 class SmePhoton(Theory):
@@ -164,7 +148,7 @@ class SmePhoton(Theory):
         """
         names = tuple(names) if names is not None else self.parameter_names
         self.check_params({n: 0.0 for n in names})
-        basis = np.stack([unit_k_tensor(n) for n in names]).reshape(len(names), 16)
+        basis = _unit_basis(names)
         n = w_lab.shape[0]
         a = np.zeros((n, 4, 4))
         tr_w = np.trace(w_lab, axis1=1, axis2=2)
