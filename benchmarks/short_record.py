@@ -13,7 +13,8 @@ simulated once into BENCH_DIR); the floor (one read of time, azimuth and signal 
 pass, ``run_benchmarks.floor_seconds``) and the fit (``fit_run`` and the per-turn amplitudes
 file, ``run_benchmarks.fit_seconds``) twice: cold (the setup caches of
 ``fringe.experiment.memo`` cleared first, as a lone ``fringe fit``) and warm (after a fit of
-the same setup, as a study's later campaigns); interleaved, best of ``--repeats`` each; prints
+the same setup, as a study's later campaigns), and a study's campaign fit (``fit_record``:
+warm, no amplitudes file); interleaved, best of ``--repeats`` each; prints
 the ratio of each fit's best to the floor's best and of the medians, and whether the warm
 fit's result equals the cold one's bit for bit; also the floor read without HDF5's chunk
 cache (as the fit reads), for comparison only.
@@ -81,15 +82,19 @@ def ratio(work: Path, repeats: int) -> dict:
 
     The cold fit starts with the setup caches (:mod:`fringe.experiment.memo`) cleared, as a
     single ``fringe fit`` in a fresh process (the compiled kernels stay loaded); the warm fit
-    follows a fit of the same record, as a study's campaigns after its first.
+    follows a fit of the same record, as a study's campaigns after its first. The campaign
+    fit is what ``fringe study`` does with each simulated campaign
+    (:func:`fringe.study.campaign.fit_record`: the fit, warm, without the per-turn amplitudes
+    file, which a study does not write).
     """
     path = record(work, 2.0)
     fit_seconds(path, work)                       # loads the compiled kernels
-    floors, colds, warms, uncached = [], [], [], []
+    floors, colds, warms, campaigns, uncached = [], [], [], [], []
     for _ in range(repeats):
         floors.append(floor_seconds(path))
         colds.append(cold_fit_seconds(path, work))
         warms.append(fit_seconds(path, work))
+        campaigns.append(campaign_fit_seconds(path))
         uncached.append(floor_uncached_seconds(path))
     floor, cold, warm = min(floors), min(colds), min(warms)
     same = warm_equals_cold(path, work)
@@ -103,7 +108,22 @@ def ratio(work: Path, repeats: int) -> dict:
             "cold_fit_over_floor_median": float(np.median(colds)) / med,
             "warm_fit_median_ms": 1e3 * float(np.median(warms)),
             "warm_fit_over_floor_median": float(np.median(warms)) / med,
+            "campaign_fit_best_ms": 1e3 * min(campaigns),
+            "campaign_fit_over_floor_best": min(campaigns) / floor,
+            "campaign_fit_over_floor_median": float(np.median(campaigns)) / med,
             "warm_result_equals_cold": same, "repeats": repeats}
+
+
+def campaign_fit_seconds(path: str) -> float:
+    """One campaign's fit as ``fringe study`` does it (``fit_record``), s."""
+    import time
+
+    from fringe.fit.settings import FitSettings
+    from fringe.study.campaign import fit_record
+
+    t0 = time.perf_counter()
+    fit_record(path, FitSettings())
+    return time.perf_counter() - t0
 
 
 def warm_equals_cold(path: str, work: Path) -> bool:
