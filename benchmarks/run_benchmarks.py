@@ -156,11 +156,15 @@ def lmfit_loop_seconds_per_turn(path: str, n_turns: int = 200) -> float:
 def peak_rss_of_fit(path: str, work: Path) -> float:
     """Peak resident memory (MiB) of a fit and its amplitudes file in a fresh subprocess.
 
+    The child keeps freed memory mapped (:func:`fringe.heap.keep_freed_memory`), as ``fringe
+    fit`` does.
+
     Read from the child's own /proc/self/status VmHWM (ru_maxrss would include the parent's
     peak, which survives fork + exec on Linux).
     """
     code = ("import sys; sys.path.insert(0, sys.argv[3]); from run_benchmarks import "
-            "fit_and_write; fit_and_write(sys.argv[1], sys.argv[2]); "
+            "fit_and_write; from fringe.heap import keep_freed_memory; keep_freed_memory(); "
+            "fit_and_write(sys.argv[1], sys.argv[2]); "
             "print([l for l in open('/proc/self/status') if l.startswith('VmHWM')][0].split()[1])")
     out = subprocess.run([sys.executable, "-c", code, path, str(work),
                           str(Path(__file__).resolve().parent)], check=True,
@@ -281,6 +285,9 @@ def main():
     args = ap.parse_args()
     work = Path(args.workdir)
     work.mkdir(parents=True, exist_ok=True)
+    from fringe.heap import keep_freed_memory
+
+    keep_freed_memory()                  # as the fringe command does
     if args.watch_only:
         got = watch_updates(args.days if args.days != 365.0 else 30.0, work)
         (work / "watch_results.json").write_text(json.dumps(got, indent=2))

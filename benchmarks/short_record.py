@@ -3,7 +3,7 @@
 On demand (never run in CI; no pass/fail). From the repository root, in the project's
 environment::
 
-    python benchmarks/short_record.py ratio --workdir BENCH_DIR [--repeats 15]
+    python benchmarks/short_record.py ratio --workdir BENCH_DIR [--repeats 15] [--default-heap]
     python benchmarks/short_record.py profile --workdir BENCH_DIR [--fits 10]
     python benchmarks/short_record.py dump --workdir BENCH_DIR --out DUMP_DIR
     python benchmarks/short_record.py compare DUMP_A DUMP_B
@@ -17,7 +17,9 @@ the same setup, as a study's later campaigns), and a study's campaign fit (``fit
 warm, no amplitudes file); interleaved, best of ``--repeats`` each; prints
 the ratio of each fit's best to the floor's best and of the medians, and whether the warm
 fit's result equals the cold one's bit for bit; also the floor read without HDF5's chunk
-cache (as the fit reads), for comparison only.
+cache (as the fit reads), for comparison only. The process keeps freed memory mapped
+(:func:`fringe.heap.keep_freed_memory`), as the ``fringe`` command and a study's workers do;
+``--default-heap`` measures with glibc's default allocator settings instead.
 
 ``profile``: cProfile of ``--fits`` fits of that record (after one warm-up fit), the functions
 with the largest cumulative time; ``--cold`` clears the setup caches before each fit.
@@ -250,6 +252,7 @@ def main() -> int:
     p = sub.add_parser("ratio")
     p.add_argument("--workdir", default="bench-work")
     p.add_argument("--repeats", type=int, default=15)
+    p.add_argument("--default-heap", action="store_true")
     p = sub.add_parser("profile")
     p.add_argument("--workdir", default="bench-work")
     p.add_argument("--fits", type=int, default=10)
@@ -269,7 +272,10 @@ def main() -> int:
     work = Path(args.workdir)
     work.mkdir(parents=True, exist_ok=True)
     if args.mode == "ratio":
-        print(json.dumps(ratio(work, args.repeats), indent=2))
+        from fringe.heap import keep_freed_memory
+
+        kept = False if args.default_heap else keep_freed_memory()
+        print(json.dumps({**ratio(work, args.repeats), "freed_memory_kept": kept}, indent=2))
     elif args.mode == "profile":
         profile(work, args.fits, args.top, args.sort, args.cold)
     else:

@@ -19,7 +19,10 @@ from fringe.version import __version__
 @click.option("-q", "--quiet", is_flag=True, help=QUIET_HELP)
 def main(verbose: int, quiet: bool):
     """fringe: design, fit and publish rotating-apparatus tests of light-speed isotropy."""
+    from fringe.heap import keep_freed_memory
+
     reset_verbosity(verbose, quiet)
+    keep_freed_memory()          # freed arrays stay mapped for the next (fringe.heap)
 
 
 #: The modules of the commands, one each (``fringe/cli/<module>.py``, each defines ``command``).

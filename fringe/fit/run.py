@@ -10,6 +10,8 @@ import dataclasses
 import datetime
 import json
 import logging
+import os
+import threading
 import warnings
 from concurrent.futures import ThreadPoolExecutor
 
@@ -201,6 +203,22 @@ def _systematics(res, models, settings, budget, calibration, meta):
     return systematics_of(res, models.cache, budget, rel, dict(meta["aux_channels"]))
 
 
+#: The thread that hashes the fit's input, started once per process: (process id, executor).
+_HASHER: tuple[int, ThreadPoolExecutor] | None = None
+
+
+def _hasher() -> ThreadPoolExecutor:
+    """The executor hashing inputs beside the fit (one thread; a forked child starts its own).
+
+    Kept for the process, so that a study's many fits do not start a thread each.
+    """
+    global _HASHER
+    if _HASHER is None or _HASHER[0] != os.getpid():
+        _HASHER = (os.getpid(), ThreadPoolExecutor(max_workers=1,
+                                                   thread_name_prefix="fringe-hash"))
+    return _HASHER[1]
+
+
 def _fit(path, setup, meta, settings, demod, engine, scheduler, progress, scratch, one_stage,
          dut1_s, cautions, budget=None, run=None):
     """Stages 1-3 and the packaging (:func:`fit_run`); returns the result, store and models.
@@ -213,12 +231,17 @@ def _fit(path, setup, meta, settings, demod, engine, scheduler, progress, scratc
     if not np.any(store.accepted):
         raise FitError(no_block_message(info, store, demod))
     span_s = float(meta["time_last_s"] - meta["time_first_s"])
-    # the input's hash (provenance) is read on the second core while stages 2-3 run
-    with ThreadPoolExecutor(max_workers=1) as pool:
-        digest = pool.submit(sha256, path)
+    # the input's hash (provenance) is read on the second core while stages 2-3 run (measured
+    # better than beside the survey, whose HDF5 calls hold the GIL); stopped if they fail
+    stop = threading.Event()
+    digest = _hasher().submit(sha256, path, stop=stop)
+    try:
         harm, res, free, models = stage2_and_3(setup, store, settings, span_s / 86400.0,
                                                scratch)
-        input_sha256 = digest.result()
+    except BaseException:
+        stop.set()
+        raise
+    input_sha256 = digest.result()
     cross_check = None
     if one_stage and setup.theory.linear:
         from fringe.fit.onestage import one_stage_fit

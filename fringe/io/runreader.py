@@ -70,12 +70,20 @@ _WHY_LOCAL = "a run file holds all its data: the SHA-256 a fit records covers th
 _CORRUPT = "expected a readable HDF5 file, got a corrupt one (HDF5 could not read its contents)"
 
 
-def sha256(path: str | os.PathLike, *, block_bytes: int = 1 << 20) -> str:
-    """SHA-256 of a file's bytes, read in blocks of ``block_bytes`` (hexadecimal string)."""
+def sha256(path: str | os.PathLike, *, block_bytes: int = 1 << 20, stop=None) -> str | None:
+    """SHA-256 of a file's bytes, read in blocks of ``block_bytes`` (hexadecimal string).
+
+    ``stop``: a :class:`threading.Event`; once it is set, reading stops at the next block and
+    None is returned (a hash computed beside a fit that has failed).
+    """
     digest = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(block_bytes), b""):
-            digest.update(block)
+    buf = bytearray(block_bytes)          # one buffer for every block (no new bytes objects)
+    view = memoryview(buf)
+    with open(path, "rb", buffering=0) as fh:
+        while n := fh.readinto(buf):
+            if stop is not None and stop.is_set():
+                return None
+            digest.update(view[:n])
     return digest.hexdigest()
 
 

@@ -166,7 +166,9 @@ def _scratch(task: CampaignTask) -> tempfile.TemporaryDirectory:
 def _run(task: CampaignTask) -> dict:
     from fringe.demodulate.settings import DemodSettings
     from fringe.fit.settings import FitSettings
+    from fringe.heap import keep_freed_memory
 
+    keep_freed_memory()          # a worker process fits many campaigns (as the fringe command)
     out = {"row": task.row, "index": task.index, "seeds": dict(task.seeds),
            "truth": dict(task.truth)}
     with _scratch(task) as tmp:

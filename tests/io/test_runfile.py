@@ -593,3 +593,18 @@ def test_sha256_streams_the_bytes(tmp_path):
     path = tmp_path / "blob.bin"
     path.write_bytes(bytes(range(256)) * 41)
     assert sha256(path, block_bytes=7) == hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def test_sha256_of_an_empty_file_and_a_stopped_hash(tmp_path):
+    import threading
+
+    empty = tmp_path / "empty.bin"
+    empty.write_bytes(b"")
+    assert sha256(empty) == hashlib.sha256(b"").hexdigest()
+    stop = threading.Event()
+    stop.set()                       # a fit that failed: the hash beside it ends at once
+    # an empty file has no block to stop at: its hash is complete
+    assert sha256(empty, stop=stop) == hashlib.sha256(b"").hexdigest()
+    blob = tmp_path / "blob.bin"
+    blob.write_bytes(bytes(range(256)) * 41)
+    assert sha256(blob, block_bytes=7, stop=stop) is None
