@@ -45,7 +45,7 @@ import numpy as np
 from numba import njit
 from numpy.typing import NDArray
 
-from fringe.conventions import azimuth_from_theta, theta_from_azimuth
+from fringe.conventions import theta_from_azimuth
 from fringe.demodulate.kernel import unwrap_angles
 from fringe.demodulate.settings import DemodSettings
 from fringe.errors import FitError
@@ -210,18 +210,24 @@ def leg_starts(t_s: NDArray, azimuth_rad: NDArray, max_gap_s: float) -> NDArray:
     return LegCutter(max_gap_s).feed(t_s, azimuth_rad)
 
 
-def _legs(theta: NDArray, t: NDArray, max_gap_s: float) -> tuple[int, NDArray]:
+def _legs(theta: NDArray, t: NDArray, max_gap_s: float, dt: NDArray | None = None
+          ) -> tuple[int, NDArray]:
     """Starts of the legs between reversals of an unwrapped angle series, and their travel.
 
-    The travel of a leg is counted from the previous leg's extreme, rad.
+    The travel of a leg is counted from the previous leg's extreme, rad. ``theta`` is
+    unwrapped already (one chunk: the leg rule runs on it directly); ``dt``: ``diff(t)``, s,
+    if the caller has it.
     """
-    cutter = LegCutter(max_gap_s, cut_turns=False)
-    starts = cutter.feed(t, azimuth_from_theta(theta))
+    state = np.zeros(9)               # LegCutter's state, for the one chunk
+    starts = _leg_starts(np.ascontiguousarray(theta, float), np.ascontiguousarray(t, float),
+                         state, math.radians(REVERSAL_HYSTERESIS_DEG), float(max_gap_s), 0,
+                         False)
+    reversals = int(state[8])
     ends = np.append(starts[1:], theta.size)
-    gap = np.append(np.diff(t) > max_gap_s, False)
+    gap = np.append((np.diff(t) if dt is None else dt) > max_gap_s, False)
     travel = np.array([np.ptp(theta[a - 1 if a > 0 and not gap[a - 1] else a:b])
                        if b > a else 0.0 for a, b in zip(starts, ends)])
-    return cutter.reversals, travel
+    return reversals, travel
 
 
 def _rest_positions(theta: NDArray, tolerance_rad: float) -> NDArray:
@@ -278,7 +284,7 @@ def detect_motion(t_s: NDArray, azimuth_rad: NDArray, settings: DemodSettings,
     tol = math.radians(settings.rest_tolerance_deg)
     # stepped: rests at three or more positions (a table idle at one angle is not stepped)
     stepped = rest_fraction >= STEPPED_REST_FRACTION and _rest_positions(theta, tol).size >= 3
-    n_rev, legs = _legs(theta, t, 10.0 * median_dt)
+    n_rev, legs = _legs(theta, t, 10.0 * median_dt, dt)
     reverses = n_rev > 0
     sense = "alternating" if reverses else ("ccw" if turning_ccw else "cw")
     if stepped or reverses:

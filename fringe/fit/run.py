@@ -48,6 +48,10 @@ from fringe.version import software_versions
 logger = logging.getLogger(__name__)
 
 
+#: The attributes of a simulated record's ``settings`` group that :func:`record_cautions` reads.
+CAUTION_ATTRS = ("noise_free", "noise_json")
+
+
 def setup_from_run(path: str, theory: str, dut1_s: float = 0.0, *,
                    while_written: bool = False, run=None) -> tuple[Setup, dict]:
     """Build the Setup (site, epoch, apparatus, theory, units) from a run file's metadata.
@@ -64,7 +68,7 @@ def setup_from_run(path: str, theory: str, dut1_s: float = 0.0, *,
     site = run.site
     attrs = dict(run.apparatus)
     if "settings" in meta["extra_groups"]:      # for record_cautions, read while open
-        meta["settings_attrs"] = run.read_group_attrs("settings")
+        meta["settings_attrs"] = run.read_group_attrs("settings", only=CAUTION_ATTRS)
     cls = APPARATUS_KINDS.get(attrs.get("kind"))
     fields = apparatus_fields(cls) if cls else set()
     ignored = sorted(set(attrs) - fields - {"kind"})
@@ -154,7 +158,7 @@ def record_cautions(path: str, setup: Setup, meta: dict) -> list[FitWarning]:
         attrs = meta.get("settings_attrs")
         if attrs is None:
             with open_run(path, check_values=False) as run:
-                attrs = run.read_group_attrs("settings")
+                attrs = run.read_group_attrs("settings", only=CAUTION_ATTRS)
         try:
             noise = json.loads(attrs.get("noise_json", "null"))
         except (TypeError, ValueError):

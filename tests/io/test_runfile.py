@@ -412,6 +412,8 @@ def test_write_read_round_trip(tmp_path, compression, splits):
         attrs = run.read_group_attrs("truth")
         assert attrs["kappa_e_xy"] == 2e-17 and attrs["theory"] == "sme"
         np.testing.assert_array_equal(attrs["flags"], [1, 0, 1])
+        # only the attributes asked for, of those the group has
+        assert run.read_group_attrs("truth", only=("theory", "absent")) == {"theory": "sme"}
         np.testing.assert_array_equal(run.read_group_datasets("truth")["coefficients"],
                                       np.arange(5.0))
         whole = run.read_all(run.channels)
