@@ -13,15 +13,18 @@ dt, s), ``first[t]`` the grid index of the turn's first stencil point and the we
                    leak[t, 0, l] (h_t^j_l / j_l!) L_j_l[t, s]
 
 (w_B alike with leak[t, 1, l] and [q = B]; A is L_0 on the A source), where L_j[t, s] is the
-weight of stencil value s in the j-th time derivative (per s^j) of the quintic through the six
-values, at the turn's fractional position in its grid interval.
+weight of stencil value s in the j-th time derivative (per second^j) of the quintic through the
+six values, at the turn's fractional position in its grid interval.
 
 :func:`measured_turns` does all of it per turn, in one compiled loop, with no per-turn arrays
-(the numpy form it replaces built (n, 2, 3, 4) and (n, 6, 6) temporaries). In each sum the
-terms are added in a fixed order, one product and one sum at a time (no fused multiply-add, no
-reassociation): the Lagrange weights over the powers of s ascending, the weights over the
-derivative orders ascending, the stencil sums over q then s, so every turn's row is the same
-whatever the other turns. The compiled code is cached as the stage-1 kernels' is
+(the numpy form it replaces built (n, 2, 3, 4) and (n, 6, 6) temporaries). It is one function
+body: with a helper function per step called per turn (not inlined) it took 1.7x as long. In
+each sum the terms are added in a fixed order, one product and one sum at a time (no fused
+multiply-add, no reassociation): the Lagrange weights over the powers of s ascending, the
+weights over the derivative orders ascending, the stencil sums over q then s, so every turn's
+row is the same whatever the other turns. h^j is formed as repeated products (the numpy form
+used ``pow`` for j = 3, within an ulp of it; ``pow`` per term cost a third of the loop's
+time). The compiled code is cached as the stage-1 kernels' is
 (:mod:`fringe.demodulate.kernel_cache`).
 """
 
@@ -42,97 +45,80 @@ N_STENCIL = 6
 
 
 @njit(cache=CACHE, nogil=True)
-def _interval(pos, lo, hi):
-    """The turn's grid interval, clipped so that the stencil stays on the grid."""
-    fl = math.floor(pos)
-    if not fl >= lo:                        # also a NaN time: its row is NaN, as in numpy
-        return lo
-    if fl > hi:
-        return hi
-    return int(fl)
-
-
-@njit(cache=CACHE, nogil=True)
-def _derivative_weights(s, deriv, step_j, p, lw):
-    """lw[j] = the stencil weights of the j-th derivative (per s^j) at fractional position s."""
-    p[0] = 1.0
-    for e in range(1, N_STENCIL):
-        p[e] = p[e - 1] * s
-    for j in range(deriv.shape[0]):
-        for st in range(N_STENCIL):
-            acc = 0.0
-            for e in range(N_STENCIL - j):
-                acc += p[e] * deriv[j, e, st]
-            lw[j, st] = acc / step_j[j]
-
-
-@njit(cache=CACHE, nogil=True)
-def _turn_weights(lw, leak_t, h, src, power, fact, w):
-    """w[r, q] = weights of source q's stencil values in output r (C, B) of one turn.
-
-    The value itself (order 0) of C in C and of B in B, then the leak terms in their order
-    (per source, powers ascending; each term's (source, power) is its own).
-    """
-    for r in range(2):
-        for q in range(3):
-            for st in range(N_STENCIL):
-                w[r, q, st] = 0.0
-    for st in range(N_STENCIL):
-        w[0, 1, st] = lw[0, st]
-        w[1, 2, st] = lw[0, st]
-    for l_i in range(src.shape[0]):
-        j = power[l_i]
-        q = src[l_i]
-        scale = math.pow(h, float(j)) / fact[j]
-        for r in range(2):
-            coef = leak_t[r, l_i] * scale + 0.0
-            for st in range(N_STENCIL):
-                w[r, q, st] += coef * lw[j, st]
-
-
-@njit(cache=CACHE, nogil=True)
-def _turn_sums(w, lw0, first, m, x, with_a, c_t, b_t, a_t):
-    """C and B of one turn over sources q, then points s; A from the A source alone."""
-    k = x.shape[1]
-    for col in range(k):
-        c_t[col] = 0.0
-        b_t[col] = 0.0
-        if with_a:
-            a_t[col] = 0.0
-    for q in range(3):
-        row0 = q * m + first
-        for st in range(N_STENCIL):
-            wc = w[0, q, st]
-            wb = w[1, q, st]
-            row = row0 + st
-            for col in range(k):
-                v = x[row, col]
-                c_t[col] += wc * v
-                b_t[col] += wb * v
-            if with_a and q == 0:
-                wa = lw0[st]
-                for col in range(k):
-                    a_t[col] += wa * x[row, col]
-
-
-@njit(cache=CACHE, nogil=True)
-def _measured_turns(t, half, leak, start, step, m, deriv, src, power, fact, x,
+def _measured_turns(t, half, leak, start, step, m, deriv, src, power, fact, x,  # noqa: C901
                     with_a, c, b, a):
     n_order = deriv.shape[0]
+    k = x.shape[1]
     lo = 2                                  # -STENCIL[0]: the stencil starts two steps before
     hi = m - 4                              # m - 1 - STENCIL[-1]
     p = np.empty(N_STENCIL)                 # powers of the fractional position s
     lw = np.empty((n_order, N_STENCIL))     # derivative weights per order
     w = np.empty((2, 3, N_STENCIL))         # per output (C, B), source (A, C, B), point
+    hp = np.empty(n_order)                  # h^j / j! of the turn
     step_j = np.empty(n_order)
     for j in range(n_order):
         step_j[j] = step ** j
     for t_i in range(t.shape[0]):
+        # the turn's grid interval, clipped so that the stencil stays on the grid
         pos = (t[t_i] - start) / step
-        i = _interval(pos, lo, hi)
-        _derivative_weights(pos - i, deriv, step_j, p, lw)
-        _turn_weights(lw, leak[t_i], half[t_i], src, power, fact, w)
-        _turn_sums(w, lw[0], i - lo, m, x, with_a, c[t_i], b[t_i], a[t_i] if with_a else a[0])
+        fl = math.floor(pos)
+        if not fl >= lo:                    # also a NaN time: its row is NaN, as in numpy
+            i = lo
+        elif fl > hi:
+            i = hi
+        else:
+            i = int(fl)
+        # lw[j]: the weights of the j-th derivative (per second^j), the powers of s ascending
+        s = pos - i
+        p[0] = 1.0
+        for e in range(1, N_STENCIL):
+            p[e] = p[e - 1] * s
+        for j in range(n_order):
+            for st in range(N_STENCIL):
+                lw[j, st] = 0.0
+            for e in range(N_STENCIL - j):
+                pe = p[e]
+                for st in range(N_STENCIL):
+                    lw[j, st] += pe * deriv[j, e, st]
+            for st in range(N_STENCIL):
+                lw[j, st] /= step_j[j]
+        # w[r, q]: weights of source q's stencil values in output r (C, B): the value itself
+        # (order 0) of C in C and of B in B, then the leak terms in their order (per source,
+        # powers ascending; each term's (source, power) is its own) times h^j / j!
+        h = half[t_i]
+        hj = 1.0
+        for j in range(n_order):
+            hp[j] = hj / fact[j]
+            hj *= h
+        w[:] = 0.0
+        for st in range(N_STENCIL):
+            w[0, 1, st] = lw[0, st]
+            w[1, 2, st] = lw[0, st]
+        for l_i in range(src.shape[0]):
+            j = power[l_i]
+            q = src[l_i]
+            for r in range(2):
+                coef = leak[t_i, r, l_i] * hp[j] + 0.0
+                for st in range(N_STENCIL):
+                    w[r, q, st] += coef * lw[j, st]
+        # the sums: C and B over sources q, then points s; A from the A source alone
+        first = i - lo
+        for col in range(k):
+            acc_c = 0.0
+            acc_b = 0.0
+            for q in range(3):
+                row0 = q * m + first
+                for st in range(N_STENCIL):
+                    v = x[row0 + st, col]
+                    acc_c += w[0, q, st] * v
+                    acc_b += w[1, q, st] * v
+            c[t_i, col] = acc_c
+            b[t_i, col] = acc_b
+            if with_a:
+                acc_a = 0.0
+                for st in range(N_STENCIL):
+                    acc_a += lw[0, st] * x[first + st, col]
+                a[t_i, col] = acc_a
 
 
 def measured_turns(t_s: NDArray, half_s: NDArray, leak: NDArray, start_s: float,
