@@ -87,8 +87,8 @@ STENCIL = np.arange(-2, 4)
 #: Turns per batch when evaluating the per-turn model (bounds the transient memory).
 TURN_BATCH = 16384
 
-#: Turns per call of :func:`_measured_model` within a batch (its transient arrays, about 1.9 kB
-#: per turn, stay at ~8 MB per thread).
+#: Turns per call of :func:`_measured_model` within a batch (its transient arrays, the turns'
+#: leak responses copied and A when asked, about 0.2 kB per turn, stay under 1 MB per thread).
 MEASURE_BATCH = 4096
 
 #: Threads evaluating batches of turns (each writes its own rows of the result).
@@ -173,22 +173,6 @@ def _model_grid(setup: Setup, t: NDArray, half: NDArray, names, params) -> _Mode
     return _ModelGrid(lo, step, values, stacked)
 
 
-def _lagrange_derivative_weights(s: NDArray, step_s: float, max_order: int) -> list[NDArray]:
-    """Weights (n, 6) of the stencil values for the time derivatives of the stencil's quintic.
-
-    One array per derivative order j = 0 ... max_order: the weights of the six stencil values
-    for the j-th time derivative (per s^j) of the quintic through them, at the fractional
-    positions s (in grid steps of ``step_s`` seconds).
-    """
-    size = STENCIL.size
-    powers = np.empty((s.size, size))
-    powers[:, 0] = 1.0
-    for e in range(1, size):
-        powers[:, e] = powers[:, e - 1] * s
-    return [powers[:, :size - j] @ m / step_s ** j
-            for j, m in enumerate(_derivative_matrices(max_order))]
-
-
 @lru_cache(maxsize=4)
 def _derivative_matrices(max_order: int) -> tuple[NDArray, ...]:
     """Per derivative order j, the (6 - j, 6) map from s^(e - j) to the stencil weights.
@@ -208,47 +192,51 @@ def _derivative_matrices(max_order: int) -> tuple[NDArray, ...]:
     return tuple(out)
 
 
+@lru_cache(maxsize=4)
+def _derivative_stack(max_order: int) -> NDArray:
+    """:func:`_derivative_matrices` in one (max_order + 1, 6, 6) array, rows e >= 6 - j zero."""
+    size = STENCIL.size
+    out = np.zeros((max_order + 1, size, size))
+    for j, m in enumerate(_derivative_matrices(max_order)):
+        out[j, :size - j] = m
+    out.flags.writeable = False
+    return out
+
+
+@lru_cache(maxsize=8)
+def _leak_sources(terms: tuple) -> tuple[NDArray, NDArray]:
+    """Each leak term's source (0 A, 1 C, 2 B) and power of tau, as int arrays (read-only)."""
+    src = np.array([{"A": 0, "C": 1, "B": 2}[kind] for kind, _ in terms], dtype=np.int64)
+    power = np.array([j for _, j in terms], dtype=np.int64)
+    src.flags.writeable = power.flags.writeable = False
+    return src, power
+
+
 def _measured_model(grid: _ModelGrid, t, half, leak, settings, with_a: bool = True,
                     out: tuple | None = None):
     """What stage 1 measures for turns (t, half span, leak responses): A (or None), C, B.
 
     Each is an array of shape (n, k): n turns, k coefficients; ``out`` = (C_out, B_out), arrays
-    (n, k), receives C and B (they are returned).
+    (n, k), receives C and B (they are returned). t and half are in s, ``leak`` is
+    ``TurnTable.leak`` for the turns ((n, 2, l), dimensionless).
 
     The frozen model's value and derivatives at each turn come from the quintic through six grid
     values around it (:data:`STENCIL`). What stage 1 measures for C (and B alike) is
     C(t) + sum_q leak_q h^j / j! X_q^(j)(t) over the leak columns q (X_q the A, C or B model, j
-    its power of tau, h the half span), so it is a weighted sum of the 3 x 6 stencil values
-    (:func:`fringe.fit.stencil.stencil_sum`, compiled).
+    its power of tau, h the half span), so it is a weighted sum of the 3 x 6 stencil values;
+    :func:`fringe.fit.stencil.measured_turns` (compiled) forms the weights and the sums turn by
+    turn.
     """
     from fringe.demodulate.settings import LEAK_ORDER, leak_terms
-    from fringe.fit.stencil import stencil_sum
+    from fringe.fit.stencil import measured_turns
 
-    m = grid.values[0].shape[0]
-    pos = (t - grid.start_s) / grid.step_s
-    i = np.clip(np.floor(pos).astype(np.intp), -STENCIL[0], m - 1 - STENCIL[-1])
-    lw = np.stack(_lagrange_derivative_weights(pos - i, grid.step_s, LEAK_ORDER), axis=1)
+    m, k = grid.values[0].shape
     n = t.size
-    # coefficients of the j-th derivative of each source (A, C, B) in the measured C and B
-    # (each leak term's (source, power) is its own; "+ 0.0" as the sum into zeros gave)
-    terms = leak_terms(settings)
-    src = [{"A": 0, "C": 1, "B": 2}[kind] for kind, _ in terms]
-    scale = {j: half ** j / math.factorial(j) for j in {j for _, j in terms}}
-    k_rj = np.zeros((n, 2, 3, LEAK_ORDER + 1))
-    k_rj[:, 0, 1, 0] = 1.0
-    k_rj[:, 1, 2, 0] = 1.0
-    k_rj[:, :, src, [j for _, j in terms]] = (
-        leak * np.stack([scale[j] for _, j in terms], axis=1)[:, None, :] + 0.0)
-    w = np.matmul(k_rj.reshape(n, 6, LEAK_ORDER + 1), lw)     # (n, (C, B) x 3 sources, stencil)
-    # what stage 1 measures: for each turn and output, 18 stencil values of the three sources
-    first = i + STENCIL[0]
-    k = grid.stacked.shape[1]
+    src, power = _leak_sources(leak_terms(settings))
     c, b = (np.empty((n, k)), np.empty((n, k))) if out is None else out
-    stencil_sum(w[:, :3], first, m, grid.stacked, c)
-    stencil_sum(w[:, 3:], first, m, grid.stacked, b)
-    a = None
-    if with_a:
-        a = stencil_sum(lw[:, :1], first, m, grid.values[0], np.empty((n, k)))
+    a = np.empty((n, k)) if with_a else None
+    measured_turns(t, half, leak, grid.start_s, grid.step_s, m, _derivative_stack(LEAK_ORDER),
+                   src, power, grid.stacked, c, b, a)
     return a, c, b
 
 
@@ -297,7 +285,7 @@ def turn_model(setup: Setup, t_s: NDArray, names: tuple[str, ...] | None = None,
                     a[sl] = pa
 
         starts = range(0, t.size, TURN_BATCH)
-        if len(starts) > 1:        # numpy and the compiled stencil release the GIL
+        if len(starts) > 1:        # the compiled per-turn model releases the GIL
             with ThreadPoolExecutor(max_workers=MODEL_THREADS) as pool:
                 list(pool.map(batch, starts))
         else:

