@@ -245,7 +245,6 @@ def _fit(path, setup, meta, settings, demod, engine, scheduler, progress, scratc
     except BaseException:
         stop.set()
         raise
-    input_sha256 = digest.result()
     cross_check = None
     if one_stage and setup.theory.linear:
         from fringe.fit.onestage import one_stage_fit
@@ -253,23 +252,29 @@ def _fit(path, setup, meta, settings, demod, engine, scheduler, progress, scratc
         cross_check = OneStage.from_fit(one_stage_fit(info, demod, setup, store.load(),
                                                       res.names, settings))
     res.warnings[:0] = cautions
-    result = _package(path, setup, meta, settings, demod, info, store, harm, res, span_s,
-                      input_sha256, engine, dut1_s, cross_check)
-    calibration = _calibration(meta, info, result.coefficients)
-    if calibration is not None:
-        notes = result.notes + tuple(calibration.sentences())
-        if cross_check is not None and (calibration.gate_s or calibration.weighted):
-            notes += ("the one-stage cross-check fits the samples without the gate "
-                      "correction and unweighted",)
-        result = dataclasses.replace(result, calibration=calibration, notes=notes)
-    systematics = _systematics(res, models, settings, budget, calibration, meta)
-    if systematics is not None:
-        result = dataclasses.replace(result, systematics=systematics)
-    from fringe.fit.likelihood import likelihood_of
+    try:        # the hash is put in last: what follows does not need it
+        result = _package(path, setup, meta, settings, demod, info, store, harm, res, span_s,
+                          "", engine, dut1_s, cross_check)
+        calibration = _calibration(meta, info, result.coefficients)
+        if calibration is not None:
+            notes = result.notes + tuple(calibration.sentences())
+            if cross_check is not None and (calibration.gate_s or calibration.weighted):
+                notes += ("the one-stage cross-check fits the samples without the gate "
+                          "correction and unweighted",)
+            result = dataclasses.replace(result, calibration=calibration, notes=notes)
+        systematics = _systematics(res, models, settings, budget, calibration, meta)
+        if systematics is not None:
+            result = dataclasses.replace(result, systematics=systematics)
+        from fringe.fit.likelihood import likelihood_of
 
-    likelihood = likelihood_of(setup, res, settings, span_s)
-    if likelihood is not None:
-        result = dataclasses.replace(result, likelihood=likelihood)
+        likelihood = likelihood_of(setup, res, settings, span_s)
+        if likelihood is not None:
+            result = dataclasses.replace(result, likelihood=likelihood)
+    except BaseException:
+        stop.set()
+        raise
+    result = dataclasses.replace(result, input=dataclasses.replace(
+        result.input, sha256=digest.result()))
     return result, store, models
 
 
