@@ -6,7 +6,7 @@ is freed, and returns the top of the heap to the system once more than its trim 
 (twice the mmap threshold) lies free there. A fit of a short record makes short-lived arrays
 of about 1.4 MB (a 2-day 1 Hz record's columns) and frees some 10 MB at its end, so each fit
 faulted the pages of its temporaries in afresh: about 1.7 ms of a 16 ms fit
-(docs/performance.md, "Fifth round").
+(docs/performance.md, "Fifth round"; glibc's rules: docs/references.md [R-num-glibc-malloc]).
 
 :func:`keep_freed_memory` fixes the two thresholds (``mallopt``): blocks below
 MMAP_THRESHOLD_BYTES come from the heap, and up to TRIM_THRESHOLD_BYTES of freed heap stays in
