@@ -17,8 +17,8 @@ PACKAGE = Path(__file__).resolve().parents[1] / "fringe"
 
 #: DEVELOPERS.md's order, lowest first. A unit is a top-level module or subpackage of fringe.
 LAYERS = (
-    ("fringe.conventions", "fringe.constants", "fringe.errors", "fringe.linalg", "fringe.site",
-     "fringe.text_table", "fringe.version"),
+    ("fringe.conventions", "fringe.constants", "fringe.errors", "fringe.heap", "fringe.linalg",
+     "fringe.site", "fringe.text_table", "fringe.version"),
     ("fringe.frames",),
     ("fringe.theories",),
     ("fringe.experiment", "fringe.noise"),
