@@ -84,8 +84,8 @@ def setup_from_run(path: str, theory: str, dut1_s: float = 0.0, *,
 
 def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None, *,
             engine: str = "local", scheduler=None, dut1_s: float = 0.0, progress=None,
-            one_stage: bool = False, scratch_dir: str | None = None, budget=None
-            ) -> tuple[FitResult, TurnColumns]:
+            one_stage: bool = False, scratch_dir: str | None = None, budget=None,
+            hash_input: bool = True) -> tuple[FitResult, TurnColumns]:
     """Fit a run file end to end.
 
     Parameters
@@ -113,6 +113,11 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
         Declared systematic terms (:func:`fringe.io.budget_file.read_budget`); with it, or with
         ``settings.regress``, the result holds its ``systematics`` part
         (:mod:`fringe.fit.budget`; linear theories).
+    hash_input : bool
+        Compute the input's SHA-256 for the result's provenance (``FitResult.input.sha256``;
+        on a second thread, beside stages 2-3). False leaves it ``""`` (not computed): for
+        a study's campaign records, temporary files known by their seeds
+        (:func:`fringe.study.campaign.fit_record`); the numbers are the same either way.
 
     Returns
     -------
@@ -135,7 +140,8 @@ def fit_run(path: str, settings: FitSettings, demod: DemodSettings | None = None
                 result, store, models = _fit(path, setup, meta, settings, demod, engine,
                                              scheduler, progress, scratch, one_stage, dut1_s,
                                              cautions, budget,
-                                             run=run if engine == "local" else None)
+                                             run=run if engine == "local" else None,
+                                             hash_input=hash_input)
         except BaseException:
             scratch.close()
             raise
@@ -224,10 +230,11 @@ def _hasher() -> ThreadPoolExecutor:
 
 
 def _fit(path, setup, meta, settings, demod, engine, scheduler, progress, scratch, one_stage,
-         dut1_s, cautions, budget=None, run=None):
+         dut1_s, cautions, budget=None, run=None, hash_input=True):
     """Stages 1-3 and the packaging (:func:`fit_run`); returns the result, store and models.
 
-    ``run``: the record open for stage 1 (local engine), or None.
+    ``run``: the record open for stage 1 (local engine), or None. ``hash_input``: compute the
+    input's SHA-256 (else ``""``).
     """
     store, info = stage1_store(path, demod, aux_channels=tuple(settings.regress),
                                engine=engine, scheduler=scheduler, progress=progress,
@@ -238,7 +245,7 @@ def _fit(path, setup, meta, settings, demod, engine, scheduler, progress, scratc
     # the input's hash (provenance) is read on the second core while stages 2-3 run (measured
     # better than beside the survey, whose HDF5 calls hold the GIL); stopped if they fail
     stop = threading.Event()
-    digest = _hasher().submit(sha256, path, stop=stop)
+    digest = _hasher().submit(sha256, path, stop=stop) if hash_input else None
     try:
         harm, res, free, models = stage2_and_3(setup, store, settings, span_s / 86400.0,
                                                scratch)
@@ -255,27 +262,28 @@ def _fit(path, setup, meta, settings, demod, engine, scheduler, progress, scratc
     try:        # the hash is put in last: what follows does not need it
         result = _package(path, setup, meta, settings, demod, info, store, harm, res, span_s,
                           "", engine, dut1_s, cross_check)
+        parts = {}          # the result's later parts, put in with the hash (one rebuild)
         calibration = _calibration(meta, info, result.coefficients)
         if calibration is not None:
             notes = result.notes + tuple(calibration.sentences())
             if cross_check is not None and (calibration.gate_s or calibration.weighted):
                 notes += ("the one-stage cross-check fits the samples without the gate "
                           "correction and unweighted",)
-            result = dataclasses.replace(result, calibration=calibration, notes=notes)
+            parts.update(calibration=calibration, notes=notes)
         systematics = _systematics(res, models, settings, budget, calibration, meta)
         if systematics is not None:
-            result = dataclasses.replace(result, systematics=systematics)
+            parts["systematics"] = systematics
         from fringe.fit.likelihood import likelihood_of
 
         likelihood = likelihood_of(setup, res, settings, span_s)
         if likelihood is not None:
-            result = dataclasses.replace(result, likelihood=likelihood)
+            parts["likelihood"] = likelihood
     except BaseException:
         stop.set()
         raise
-    result = dataclasses.replace(result, input=dataclasses.replace(
-        result.input, sha256=digest.result()))
-    return result, store, models
+    if digest is not None:
+        parts["input"] = dataclasses.replace(result.input, sha256=digest.result())
+    return (dataclasses.replace(result, **parts) if parts else result), store, models
 
 
 def _calibration(meta: dict, info, coefficients) -> SignalCalibration | None:

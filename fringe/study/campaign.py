@@ -101,12 +101,15 @@ def fit_record(path: str, settings, demod=None, keep=None) -> dict:
     the first 40 characters of its sentence, from the result, so that campaigns fitted in
     threads of one process keep their own) and the time taken (s). ``keep(result, columns)``,
     if given, returns more fields (a dict) taken from the fit result and its per-turn columns.
+
+    The record's SHA-256 is not computed (``result.input.sha256`` is ``""``): a campaign's
+    record is a temporary file, known by its seeds; the numbers are those of ``fringe fit``.
     """
     from fringe.fit.run import fit_run
 
     t0 = time.perf_counter()
     with warnings_kept_in_result():         # recorded below, from the result
-        res, cols = fit_run(path, settings, demod)
+        res, cols = fit_run(path, settings, demod, hash_input=False)
     with cols:
         extra = keep(res, cols) if keep is not None else {}
     names = list(res.covariance.names)

@@ -147,3 +147,30 @@ def test_a_grid_whose_frames_warned_is_not_kept_and_warns_every_time():
         with pytest.warns(TimeScaleWarning):
             tm._model_grid(setup, T, HALF, None, None)
     assert tm.GRID_MEMO.stats()["entries"] == 0
+
+
+def test_a_fit_without_the_input_hash_gives_the_same_numbers(small_run, tmp_path):
+    """hash_input=False (a study's campaigns) leaves input.sha256 empty and nothing else changes."""
+    import hashlib
+
+    from fringe.study.campaign import fit_record
+
+    out = {}
+    for hashed in (True, False):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", SystematicsWarning)     # the small run's B0
+            result, columns = fit_run(str(small_run), FitSettings(), hash_input=hashed,
+                                      scratch_dir=str(tmp_path))
+        columns.close()
+        out[hashed] = result.to_dict()
+        for part in ("created_utc", "software"):
+            out[hashed].pop(part, None)
+    assert out[True]["input"]["sha256"] == hashlib.sha256(small_run.read_bytes()).hexdigest()
+    assert out[False]["input"]["sha256"] == ""
+    out[False]["input"]["sha256"] = out[True]["input"]["sha256"]
+    assert json.dumps(out[True], sort_keys=True) == json.dumps(out[False], sort_keys=True)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", SystematicsWarning)
+        record = fit_record(str(small_run), FitSettings())
+    assert record["value"] and record["value"] == {
+        n: e["value"] for n, e in out[True]["coefficients"].items() if n in record["value"]}
