@@ -186,7 +186,27 @@ def fragment_header(c: ReportContent, headline_text: str, warnings: Iterable[str
     out += ["% Warning raised by the fit: " + latex_escape(w).replace("\n", " ")
             for w in warnings]
     out.append(rf"\providecommand{{{FIGURE_PATH_MACRO}}}{{figures}}")
+    out += TABLE_PLACEMENT
     return out
+
+
+#: The definition of ``\fringetable{CAPTION AND LABEL}{TABULAR}`` (the fragment's opening): the
+#: tabular is measured first; a ``table`` float if it fits a column, else ``table*`` (both
+#: columns of a two-column paper; the same as ``table`` in a one-column one), and scaled down
+#: to the text width only if it is wider still. Plain LaTeX 2e and graphicx's \resizebox.
+TABLE_PLACEMENT = (
+    r"% \fringetable{caption and label}{tabular}: one column wide, or across the page (table*)",
+    r"% when wider than a column; scaled to the text width only if wider than that",
+    r"\ifdefined\fringetablebox\else\newsavebox{\fringetablebox}\fi",
+    r"\providecommand{\fringetablebody}{\ifdim\wd\fringetablebox>\textwidth",
+    r"  \resizebox{\textwidth}{!}{\usebox{\fringetablebox}}\else\usebox{\fringetablebox}\fi}",
+    r"\providecommand{\fringetable}[2]{\sbox{\fringetablebox}{#2}%",
+    r"  \ifdim\wd\fringetablebox>\columnwidth",
+    r"    \begin{table*}[htbp]\centering#1\fringetablebody\end{table*}%",
+    r"  \else",
+    r"    \begin{table}[htbp]\centering#1\fringetablebody\end{table}%",
+    r"  \fi}",
+)
 
 
 def figure_environment(name: str, caption: str, png: bytes | None, number: int) -> str:

@@ -335,26 +335,33 @@ def to_markdown(table: Table) -> str:
     return "\n".join(lines) + "\n"
 
 
-def to_latex(table: Table) -> str:
-    r"""A ``tabular`` with booktabs rules in a ``table`` float, caption and label.
+#: The LaTeX macro that places a table (defined by the fragment's opening,
+#: :func:`fringe.report.latex.fragment_header`): ``\fringetable{CAPTION AND LABEL}{TABULAR}``.
+TABLE_MACRO = r"\fringetable"
 
-    The cells must already be LaTeX (build the table with ``style="latex"``); the caption is
-    turned into LaTeX here (:func:`fringe.report.markup.latex_text`). Needs
+
+def to_latex(table: Table) -> str:
+    r"""A ``tabular`` with booktabs rules, its caption and label, placed by ``\fringetable``.
+
+    ``\fringetable`` (defined in the fragment's opening) puts it in a ``table`` float, or in
+    ``table*`` (across both columns of a two-column paper) when the tabular is wider than a
+    column. The cells must already be LaTeX (build the table with ``style="latex"``); the
+    caption is turned into LaTeX here (:func:`fringe.report.markup.latex_text`). Needs
     ``\usepackage{booktabs}``.
     """
     if table.style != "latex":
         raise ConfigError("table: style: expected 'latex' cells for the LaTeX renderer, got "
                           f"{table.style!r}")
     cols = "l" + "c" * (len(table.header) - 1)
-    lines = [r"\begin{table}[htbp]", r"\centering"]
+    head = ""
     if table.caption:
-        lines.append(rf"\caption{{{latex_text(table.caption)}}}")
+        head += rf"\caption{{{latex_text(table.caption)}}}"
     if table.label:
-        lines.append(rf"\label{{{table.label}}}")
-    lines += [rf"\begin{{tabular}}{{{cols}}}", r"\toprule",
-              " & ".join(table.header) + r" \\", r"\midrule"]
+        head += rf"\label{{{table.label}}}"
+    lines = [rf"{TABLE_MACRO}{{{head}}}{{%", rf"\begin{{tabular}}{{{cols}}}", r"\toprule",
+             " & ".join(table.header) + r" \\", r"\midrule"]
     lines += [" & ".join(row) + r" \\" for row in table.rows]
-    lines += [r"\bottomrule", r"\end{tabular}", r"\end{table}"]
+    lines += [r"\bottomrule", r"\end{tabular}}"]
     return "\n".join(lines) + "\n"
 
 

@@ -7,13 +7,15 @@ import re
 __all__ = ["KNOWN_COMMANDS", "code", "unbalanced", "unknown_commands"]
 
 #: Control words the outputs may use: LaTeX's own (article class, LaTeX 2e kernel and its math
-#: symbols), booktabs' rules, graphicx's \includegraphics, and fringe's own macros.
+#: symbols; its box and conditional primitives), booktabs' rules, graphicx's \includegraphics and
+#: \resizebox, and fringe's own macros.
 KNOWN_COMMANDS = set("""
 begin end centering caption label paragraph item providecommand newcommand ensuremath input
 toprule midrule bottomrule includegraphics textwidth columnwidth
 tilde kappa pm times sigma chi theta phi omega alpha beta delta nu lambda Delta le ge approx
 frac circ mu ldots oplus tau rho pi gamma epsilon eta psi Omega surd propto to infty ne cdot
 mathrm textasciitilde textasciicircum textbackslash
+ifdefined else fi newsavebox sbox usebox ifdim wd resizebox
 """.split())
 
 

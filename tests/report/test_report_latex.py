@@ -65,11 +65,16 @@ def test_every_table_is_there_once(report):
     _, tex, _ = report
     for label in TABLES:
         assert tex.count(rf"\label{{{label}}}") == 1, label
-    assert tex.count(r"\begin{table}") == len(TABLES)
-    # each table: caption, label, a booktabs tabular
-    for block in re.findall(r"\\begin\{table\}.*?\\end\{table\}", tex, re.S):
-        assert r"\caption{" in block and r"\label{tab:" in block
-        assert block.index(r"\toprule") < block.index(r"\midrule") < block.index(r"\bottomrule")
+    # each table: caption, label, a booktabs tabular, placed by \fringetable (defined once)
+    blocks = re.findall(r"^\\fringetable\{(.*?)\}\{%\n(\\begin\{tabular\}.*?\\end\{tabular\})\}$",
+                        tex, re.S | re.M)
+    assert len(blocks) == len(TABLES)
+    for head, tabular in blocks:
+        assert head.startswith(r"\caption{") and r"\label{tab:" in head
+        rules = [tabular.index(rule) for rule in (r"\toprule", r"\midrule", r"\bottomrule")]
+        assert rules == sorted(rules)
+    assert tex.count(r"\providecommand{\fringetable}") == 1
+    assert r"\begin{table}" not in tex.split(r"\providecommand{\fringetable}")[0]
 
 
 def test_every_figure_names_a_pdf_the_report_wrote(report):
@@ -171,3 +176,22 @@ def test_fragment_compiles_in_a_minimal_article(report, tmp_path):
     assert done.returncode == 0, done.stdout[-3000:]
     assert (work / "paper.pdf").read_bytes()[:5] == b"%PDF-"
     assert "Undefined control sequence" not in log and "Missing $" not in log
+    assert "Overfull \\hbox" not in log             # every table fits the text width
+
+
+@pytest.mark.tex
+@pytest.mark.skipif(TEX is None, reason="no TeX system on PATH (looked for pdflatex, lualatex)")
+def test_fragment_fits_a_two_column_paper(report, tmp_path):
+    """In two columns a table wider than a column goes across the page (table*), none overflows."""
+    out, tex, _ = report
+    work = tmp_path / "paper"
+    shutil.copytree(out, work)
+    (work / "paper.tex").write_text("\n".join([
+        r"\documentclass[twocolumn]{article}", r"\usepackage{booktabs}", r"\usepackage{graphicx}",
+        r"\input{numbers.tex}", r"\begin{document}", r"\input{report.tex}", r"\end{document}",
+        ""]), encoding="ascii")
+    done = subprocess.run([TEX, "-interaction=nonstopmode", "-halt-on-error", "paper.tex"],
+                          cwd=work, capture_output=True, text=True, timeout=300, check=False)
+    log = (work / "paper.log").read_text("latin-1") if (work / "paper.log").exists() else ""
+    assert done.returncode == 0, done.stdout[-3000:]
+    assert "Overfull \\hbox" not in log, log[-3000:]
