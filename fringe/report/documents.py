@@ -10,7 +10,7 @@ types). Nothing is written here: :func:`fringe.report.build.write_report` writes
 
 from __future__ import annotations
 
-import json
+import re
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, NamedTuple
@@ -403,7 +403,7 @@ def markdown_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) ->
 
     Every text above the provenance goes through :func:`fringe.report.markup.markdown_text`
     (κ̃ₑ₋, ω<sub>R</sub>: no underscore of a subscript reaches the reader); the provenance
-    lists the raw record (JSON) entry by entry.
+    lists the record entry by entry, as typed (:func:`provenance_markdown`).
     """
     fit, tables = c.fit, report_tables(c.fit, c.comparison, "unicode")
     site = _site_name(fit)
@@ -434,9 +434,36 @@ def markdown_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]]) ->
             out += [f"![Figure {i}: {name}]({FIGURE_DIR}/{name}.png)", "",
                     f"**Figure {i}.** {caption} (PDF: `{FIGURE_DIR}/{name}.pdf`)", ""]
     out = [markdown_text(line) for line in out]      # subscripts without underscores
-    out += ["## Provenance", ""]        # the raw record, as in summary.json
-    out += [f"- **{k}**: `{json.dumps(v, ensure_ascii=False)}`" for k, v in c.provenance.items()]
+    out += ["## Provenance", "", "The record of summary.json (which keeps every digit; here "
+            "floats to 6 significant digits).", ""]
+    out += provenance_markdown(c.provenance)
     return "\n".join(out) + "\n"
+
+
+def _md_literal(text: str) -> str:
+    """``text`` shown as typed in Markdown (the characters that would mark it up escaped)."""
+    return re.sub(r"([\\`*<>\[\]|])", r"\\\1", text)
+
+
+def provenance_markdown(prov) -> list[str]:
+    """The provenance as a Markdown list: a file as its path and hash, a mapping as sub-items.
+
+    Names and values as typed (``rms_mm = delta - beta + 1/2``), as the HTML page shows them
+    (:func:`fringe.report.page.provenance_entries`).
+    """
+    from fringe.report.page import provenance_entries
+
+    out = []
+    for key, kind, content in provenance_entries(prov):
+        if kind == "file":
+            path, digest = content
+            out.append(f"- **{_md_literal(key)}**: {_md_literal(path)} (sha256 `{digest}`)")
+        elif kind == "lines":
+            out.append(f"- **{_md_literal(key)}**:" + ("" if content else " —"))
+            out += [f"  - {_md_literal(k)}: {_md_literal(text)}" for k, text in content]
+        else:
+            out.append(f"- **{_md_literal(key)}**: {_md_literal(content)}")
+    return out
 
 
 def latex_report(c: ReportContent, figs: Sequence[tuple[str, str, bytes]] = ()) -> str:

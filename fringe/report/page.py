@@ -25,7 +25,8 @@ from collections.abc import Mapping, Sequence
 
 from fringe.report.markup import html_text
 
-__all__ = ["CSS", "html_page", "png_css_width", "png_data_uri", "provenance_rows"]
+__all__ = ["CSS", "html_page", "png_css_width", "png_data_uri", "provenance_entries",
+           "provenance_rows"]
 
 CSS = """
 body { font-family: Georgia, 'DejaVu Serif', serif; max-width: 62em; margin: 2em auto;
@@ -119,33 +120,48 @@ def _short(x) -> str:
     return str(x)
 
 
-def provenance_rows(prov: Mapping) -> list[tuple[str, str]]:
-    """(key, HTML) rows of the provenance table.
+def provenance_entries(prov: Mapping) -> list[tuple[str, str, object]]:
+    """The provenance record as readable entries ``(key, kind, content)``, for any document.
 
-    A string value is shown as text; a file record ``{"path", "sha256"}`` as the path and its
-    hash; any other mapping as one ``key: value`` line per entry (nested mappings inline); a
-    list as its items joined by commas. Floats show 6 significant digits (the raw record below
-    the table keeps every digit).
+    ``kind`` "file": a file record ``{"path", "sha256"}``, content ``(path, sha256)``;
+    "lines": any other mapping, content one ``(key, text)`` per entry (a nested mapping inline
+    as ``k = v; ...``); "text": anything else as text (a list's items joined by commas).
+    Floats show 6 significant digits (the raw record, summary.json, keeps every digit).
+    """
+    out = []
+    for key, value in prov.items():
+        if isinstance(value, Mapping) and set(value) == {"path", "sha256"}:
+            out.append((str(key), "file", (str(value["path"]), str(value["sha256"]))))
+        elif isinstance(value, Mapping):
+            out.append((str(key), "lines", [
+                (str(k), "; ".join(f"{kk} = {_short(vv)}" for kk, vv in v.items())
+                 if isinstance(v, Mapping) else _short(v)) for k, v in value.items()]))
+        else:
+            out.append((str(key), "text", _short(value)))
+    return out
+
+
+def provenance_rows(prov: Mapping) -> list[tuple[str, str]]:
+    """(key, HTML) rows of the provenance table (:func:`provenance_entries`).
+
+    A file record shows as the path and its hash; a mapping as one ``key: value`` line per
+    entry; anything else as text.
     """
     rows = []
-    for key, value in prov.items():
+    for key, kind, content in provenance_entries(prov):
         # the conventions define the names one types (rms_mm = delta - beta + 1/2): shown as
         # typed, not turned into their symbols
-        conventions = str(key).startswith("conventions")
-        if isinstance(value, Mapping) and set(value) == {"path", "sha256"}:
-            cell = (f"{html_text(value['path'])}<br>sha256 "
-                    f"<code>{html.escape(str(value['sha256']))}</code>")
-        elif isinstance(value, Mapping):
-            lines = []
-            for k, v in value.items():
-                text = ("; ".join(f"{kk} = {_short(vv)}" for kk, vv in v.items())
-                        if isinstance(v, Mapping) else _short(v))
-                lines.append(f"<b>{html_text(k)}</b>: "
-                             f"{html_text(text, names_as_typed=conventions)}")
-            cell = "<br>".join(lines) if lines else "—"
+        conventions = key.startswith("conventions")
+        if kind == "file":
+            path, digest = content
+            cell = f"{html_text(path)}<br>sha256 <code>{html.escape(digest)}</code>"
+        elif kind == "lines":
+            cell = "<br>".join(f"<b>{html_text(k)}</b>: "
+                               f"{html_text(text, names_as_typed=conventions)}"
+                               for k, text in content) or "—"
         else:
-            cell = html_text(_short(value))
-        rows.append((str(key), cell))
+            cell = html_text(content)
+        rows.append((key, cell))
     return rows
 
 

@@ -25,12 +25,11 @@ from tests.helpers.commands import run_command
 
 MASKS = [
     # (pattern, replacement); each must match exactly once
-    (r'(\*\*report created \(UTC\)\*\*: )`"[^"`]*"`', r"\1`<clock time>`"),
-    (r"(\*\*software of this report\*\*: )`\{[^`]*\}`", r"\1`<versions installed>`"),
-    (r'(\*\*fit file\*\*: `\{"path": "fit_example\.json", "sha256": )"[0-9a-f]{64}"',
-     r'\1"<sha256>"'),
-    (r'(\*\*per-turn amplitudes file\*\*: `\{"path": "fit_example\.turns\.h5", "sha256": )'
-     r'"[0-9a-f]{64}"', r'\1"<sha256>"'),
+    (r"(\*\*report created \(UTC\)\*\*: )\S+", r"\1<clock time>"),
+    (r"(\*\*software of this report\*\*:)\n(?:  - [^\n]*\n)+", "\\1 <versions installed>\n"),
+    (r"(\*\*fit file\*\*: fit_example\.json \(sha256 )`[0-9a-f]{64}`", r"\1`<sha256>`"),
+    (r"(\*\*per-turn amplitudes file\*\*: fit_example\.turns\.h5 \(sha256 )`[0-9a-f]{64}`",
+     r"\1`<sha256>`"),
 ]
 
 
