@@ -22,7 +22,7 @@ import datetime
 from pathlib import Path
 
 import fringe.report.figures.fit as F
-from fringe.errors import ConfigError
+from fringe.errors import ConfigError, InputFileError
 from fringe.io.atomic import write_json_atomic, write_text_atomic
 from fringe.io.fit_files import check_companion
 from fringe.io.fit_sections import Covariance
@@ -81,8 +81,11 @@ def assemble_report(fit_json_path, *, compare=None, kt: tuple[float, float] | No
     turns_path = turns = None
     if fit.amplitudes_file:
         turns_path = fit_path.parent / fit.amplitudes_file
-        if turns_path.is_file():          # the turns file written with this fit, no other
-            check_companion(fit, turns_path)
+        if not turns_path.is_file():
+            raise InputFileError(fit_path, "amplitudes_file", "expected the per-turn amplitudes "
+                                 "file written with this fit, beside it; got "
+                                 f"{fit.amplitudes_file!r}, which is not a file there")
+        check_companion(fit, turns_path)  # the turns file written with this fit, no other
         turns = load_turns(turns_path, fit)
     else:
         notes.append("The fit names no per-turn amplitudes file: the figures of the per-turn "
