@@ -457,7 +457,8 @@ def provenance_markdown(prov) -> list[str]:
     for key, kind, content in provenance_entries(prov):
         if kind == "file":
             path, digest = content
-            out.append(f"- **{_md_literal(key)}**: {_md_literal(path)} (sha256 `{digest}`)")
+            shown = f"`{digest}`" if re.fullmatch(r"[0-9a-f]+", digest) else _md_literal(digest)
+            out.append(f"- **{_md_literal(key)}**: {_md_literal(path)} (sha256 {shown})")
         elif kind == "lines":
             out.append(f"- **{_md_literal(key)}**:" + ("" if content else " —"))
             out += [f"  - {_md_literal(k)}: {_md_literal(text)}" for k, text in content]
