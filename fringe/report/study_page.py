@@ -8,6 +8,8 @@ from __future__ import annotations
 
 import html
 
+from fringe.report.markup import html_text
+
 __all__ = ["study_html", "study_markdown", "study_tables"]
 
 
@@ -17,7 +19,8 @@ def _pct(d: dict) -> str:
 
 
 def _g(x) -> str:
-    return "—" if x is None else f"{x:.3g}"
+    """A sigma with three significant digits, trailing zeros kept (9.60e-18)."""
+    return "—" if x is None else f"{x:.2e}"
 
 
 def _ratio(x) -> str:
@@ -102,7 +105,9 @@ def study_html(study: dict, figures: list[str]) -> str:
     for title, header, cells in study_tables(study):
         parts.append(f"<h2>{e(title)}</h2><table><tr>"
                      + "".join(f"<th>{e(h)}</th>" for h in header) + "</tr>")
-        parts += ["<tr>" + "".join(f"<td>{e(c)}</td>" for c in row) + "</tr>" for row in cells]
+        # the coefficient as its symbol (the name in its tooltip), as the fit's report shows it
+        parts += ["<tr>" + f"<td>{html_text(row[0])}</td>"
+                  + "".join(f"<td>{e(c)}</td>" for c in row[1:]) + "</tr>" for row in cells]
         parts.append("</table>")
     fails = _failures(study)
     if fails:

@@ -366,7 +366,14 @@ def test_command_writes_the_set_and_refuses_to_replace_it(scenario, tmp_path):
     for name in FREE:
         assert f"| {name} | 2 |" in page
     assert all(f"![{f}]({f})" in page for f in names if f.endswith(".png"))
-    assert "<img src='study_pulls.png'" in (out / "study.html").read_text(encoding="utf-8")
+    html_page = (out / "study.html").read_text(encoding="utf-8")
+    assert "<img src='study_pulls.png'" in html_page
+    # the HTML page names each coefficient by its symbol (its name in the tooltip), as the
+    # fit's report does; sigmas with three significant digits
+    for name in FREE:
+        assert f'<span class="coef" title="{name}">' in html_page
+    sigma = study["rows"][0]["coefficients"][FREE[0]]["sigma_median"]
+    assert f"<td>{sigma:.2e}</td>" in html_page and f"| {sigma:.2e} |" in page
     assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []   # no scratch
     again = run_command(tmp_path, ["study", "study.toml", "--campaigns", "2", "--out", "st"])
     assert again.exit_code != 0 and len(again.stderr.strip().splitlines()) == 1

@@ -10,6 +10,8 @@ import math
 
 import numpy as np
 
+from fringe.report.figures.style import coefficient_label
+
 __all__ = ["coverage", "pull_histograms", "sigma_vs_forecast"]
 
 _MARKERS = ("o", "s", "^", "v", "D", "P", "X", "*")
@@ -66,7 +68,7 @@ def pull_histograms(study: dict, row: int = 0, axes=None):
                 color="C0", alpha=0.6, label="campaigns")
         ax.plot(grid, np.exp(-0.5 * grid**2) / math.sqrt(2 * math.pi), "k-", lw=1,
                 label="N(0, 1)")
-        ax.set_title(name, fontsize=10)
+        ax.set_title(coefficient_label(name), fontsize=10)
         ax.set_xlabel("pull (est − ref) / σ")
         if v.size:
             ax.text(0.03, 0.97, f"mean {np.mean(v):+.2f}\nstd {np.std(v, ddof=1):.2f}"
@@ -105,7 +107,7 @@ def coverage(study: dict, ax=None):
         for j, row in enumerate(rows):
             ax.plot([], [], _MARKERS[j % len(_MARKERS)], color="0.4", ms=4,
                     label=_row_label(row))
-    ax.set_xticks(x, names)
+    ax.set_xticks(x, [coefficient_label(n) for n in names])
     ax.set_ylim(top=101.0)
     ax.set_ylabel("campaigns inside the interval (%)")
     ax.set_title("coverage; bands: expected ± 1 and ± 2 binomial σ", fontsize=10)
@@ -133,7 +135,7 @@ def sigma_vs_forecast(study: dict, ax=None):
                 color="C0", label="median reported σ / forecast")
         ax.plot(x, [c[n]["scatter"] / c[n]["sigma_forecast"] for n in shown], "o", color="C1",
                 mfc="none", label="std(est − ref) / forecast")
-        ax.set_xticks(x, shown)
+        ax.set_xticks(x, [coefficient_label(n) for n in shown])
         ax.set_ylabel("ratio to the forecast σ")
         ax.set_ylim(min(0.8, ax.get_ylim()[0]), max(1.2, ax.get_ylim()[1]))
     else:
@@ -141,7 +143,7 @@ def sigma_vs_forecast(study: dict, ax=None):
         for i, n in enumerate(names):
             med = [r["coefficients"].get(n, {}).get("sigma_median", np.nan) for r in rows]
             fc = [r["coefficients"].get(n, {}).get("sigma_forecast") or np.nan for r in rows]
-            ax.semilogy(v, med, "o", color=f"C{i}", label=f"{n} median σ")
+            ax.semilogy(v, med, "o", color=f"C{i}", label=f"{coefficient_label(n)} median σ")
             ax.semilogy(v, fc, "-", color=f"C{i}", lw=1)
         f = rows[0]["vary"]
         ax.set_xlabel(f"{f['field']} ({f['unit']})")
