@@ -158,23 +158,32 @@ def test_macro_names_are_letters_only(parts, expected):
     assert macro_name(*parts) == expected
 
 
-@pytest.mark.tex
-@pytest.mark.skipif(TEX is None, reason="no TeX system on PATH (looked for pdflatex, lualatex)")
-def test_fragment_compiles_in_a_minimal_article(report, tmp_path):
-    out, _, _ = report
+def _compile(report_dir, tmp_path, options: str, body: list[str]) -> str:
+    """Compile the report's fragment and macros in an article (``options``, ``body``): its log.
+
+    Fails on a TeX error; checks that a PDF was written.
+    """
     work = tmp_path / "paper"
-    shutil.copytree(out, work)
+    shutil.copytree(report_dir, work)
     (work / "paper.tex").write_text("\n".join([
-        r"\documentclass{article}", r"\usepackage{booktabs}", r"\usepackage{graphicx}",
-        r"\input{numbers.tex}", r"\begin{document}",
-        r"Bound \fringeHeadlineBound{} set by \fringeHeadlineCoefficient; "
-        r"$\kappa = \fringeKeXYResult$ over \fringeSpanDays{} days, \fringeTurns{} turns.",
-        r"\input{report.tex}", r"\end{document}", ""]), encoding="ascii")
+        rf"\documentclass{options}{{article}}", r"\usepackage{booktabs}", r"\usepackage{graphicx}",
+        r"\input{numbers.tex}", r"\begin{document}", *body, r"\input{report.tex}",
+        r"\end{document}", ""]), encoding="ascii")
     done = subprocess.run([TEX, "-interaction=nonstopmode", "-halt-on-error", "paper.tex"],
                           cwd=work, capture_output=True, text=True, timeout=300, check=False)
     log = (work / "paper.log").read_text("latin-1") if (work / "paper.log").exists() else ""
     assert done.returncode == 0, done.stdout[-3000:]
     assert (work / "paper.pdf").read_bytes()[:5] == b"%PDF-"
+    return log
+
+
+@pytest.mark.tex
+@pytest.mark.skipif(TEX is None, reason="no TeX system on PATH (looked for pdflatex, lualatex)")
+def test_fragment_compiles_in_a_minimal_article(report, tmp_path):
+    out, _, _ = report
+    log = _compile(out, tmp_path, "", [
+        r"Bound \fringeHeadlineBound{} set by \fringeHeadlineCoefficient; "
+        r"$\kappa = \fringeKeXYResult$ over \fringeSpanDays{} days, \fringeTurns{} turns."])
     assert "Undefined control sequence" not in log and "Missing $" not in log
     assert "Overfull \\hbox" not in log             # every table fits the text width
 
@@ -183,15 +192,6 @@ def test_fragment_compiles_in_a_minimal_article(report, tmp_path):
 @pytest.mark.skipif(TEX is None, reason="no TeX system on PATH (looked for pdflatex, lualatex)")
 def test_fragment_fits_a_two_column_paper(report, tmp_path):
     """In two columns a table wider than a column goes across the page (table*), none overflows."""
-    out, tex, _ = report
-    work = tmp_path / "paper"
-    shutil.copytree(out, work)
-    (work / "paper.tex").write_text("\n".join([
-        r"\documentclass[twocolumn]{article}", r"\usepackage{booktabs}", r"\usepackage{graphicx}",
-        r"\input{numbers.tex}", r"\begin{document}", r"\input{report.tex}", r"\end{document}",
-        ""]), encoding="ascii")
-    done = subprocess.run([TEX, "-interaction=nonstopmode", "-halt-on-error", "paper.tex"],
-                          cwd=work, capture_output=True, text=True, timeout=300, check=False)
-    log = (work / "paper.log").read_text("latin-1") if (work / "paper.log").exists() else ""
-    assert done.returncode == 0, done.stdout[-3000:]
+    out, _, _ = report
+    log = _compile(out, tmp_path, "[twocolumn]", [])
     assert "Overfull \\hbox" not in log, log[-3000:]
