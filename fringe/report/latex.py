@@ -22,7 +22,7 @@ from typing import TYPE_CHECKING
 from fringe.report.markup import latex_escape, latex_text
 from fringe.report.page import png_css_width
 from fringe.report.rounding import format_bound, format_interval, pdg_place, pdg_round
-from fringe.report.tables import Z95, bound95, coefficient_label
+from fringe.report.tables import TABLE_MACRO, Z95, bound95, coefficient_label
 
 if TYPE_CHECKING:
     from fringe.report.content import ReportContent
@@ -200,7 +200,7 @@ TABLE_PLACEMENT = (
     r"\ifdefined\fringetablebox\else\newsavebox{\fringetablebox}\fi",
     r"\providecommand{\fringetablebody}{\ifdim\wd\fringetablebox>\textwidth",
     r"  \resizebox{\textwidth}{!}{\usebox{\fringetablebox}}\else\usebox{\fringetablebox}\fi}",
-    r"\providecommand{\fringetable}[2]{\sbox{\fringetablebox}{#2}%",
+    rf"\providecommand{{{TABLE_MACRO}}}[2]{{\sbox{{\fringetablebox}}{{#2}}%",
     r"  \ifdim\wd\fringetablebox>\columnwidth",
     r"    \begin{table*}[htbp]\centering#1\fringetablebody\end{table*}%",
     r"  \else",

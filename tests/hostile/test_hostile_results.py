@@ -232,7 +232,7 @@ FOUND = [
     (0, [At("site.name", "\ud800")]),
     (0, [At("warnings.0", "two\nerror: faked line")]),               # a faked error line
     (0, [At("input.path", "a\rerror: x")]),
-    (0, [Leaf(7, "0")]),             # amplitudes_file "0": no such file (found 2026-12-04)
+    (0, [At("amplitudes_file", "0")]),  # no such file (found as a leaf change, 2026-12-04)
 ]
 
 
